@@ -1,0 +1,1 @@
+"""One module per `rigside` subcommand: `add_arguments(parser)` and `run(args)`."""

@@ -1,0 +1,45 @@
+"""The `rigside` command line: subcommands per CONTRACTS.md section 4, one-line errors, exit 2."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pytest
+
+from monitor.app.cli import COMMANDS, build_parser, main
+
+
+def run_cli(*args: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "monitor.app", *args], capture_output=True, text=True, timeout=60)
+
+
+def test_contract_commands_are_declared():
+    assert set(COMMANDS) == {"demo", "record", "import", "report", "export", "decide", "log"}
+
+
+def test_help_lists_the_commands_that_exist():
+    result = run_cli("--help")
+    assert result.returncode == 0 and "rigside" in result.stdout
+
+
+def test_unknown_command_is_one_line_and_exit_2():
+    result = run_cli("frobnicate")
+    assert result.returncode == 2
+    assert len(result.stderr.strip().splitlines()) == 1 and "frobnicate" in result.stderr
+
+
+def test_parser_builds_without_importing_qt_or_scipy():
+    code = "import sys; from monitor.app.cli import build_parser; build_parser(); " \
+           "print(sorted(m for m in sys.modules if m.split('.')[0] in ('PySide6', 'scipy', 'pyqtgraph')))"
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == "[]"
+
+
+def test_bad_flag_exits_2_with_one_line(capsys):
+    assert build_parser().prog == "rigside"
+    with pytest.raises(SystemExit) as caught:
+        main(["--no-such-flag"])
+    assert caught.value.code == 2
+    assert len(capsys.readouterr().err.strip().splitlines()) == 1
