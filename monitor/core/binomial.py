@@ -1,0 +1,55 @@
+"""Confidence intervals for a proportion k/n (rolling and session hit rates).
+
+Rule: `wilson` is the closed-form Wilson score interval (no scipy: the live
+path and the recorder must not pay scipy's import); `clopper_pearson` is the
+exact interval from beta quantiles and imports scipy only when called. With
+no trials (n = 0) both return the whole range (0, 1). Bounds are clipped to
+[0, 1]; k = 0 gives a lower bound of exactly 0 and k = n an upper bound of 1.
+"""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+from statistics import NormalDist
+
+
+@lru_cache(maxsize=16)
+def _z(confidence: float) -> float:
+    return NormalDist().inv_cdf(0.5 + confidence / 2.0)
+
+
+def _check(k: int, n: int, confidence: float) -> None:
+    if not 0 <= k <= n:
+        raise ValueError(f"need 0 <= k <= n, got k={k}, n={n}")
+    if not 0 < confidence < 1:
+        raise ValueError(f"confidence must be in (0, 1), got {confidence}")
+
+
+def wilson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
+    """Wilson score interval for k successes in n trials."""
+    _check(k, n, confidence)
+    if n == 0:
+        return 0.0, 1.0
+    z = _z(confidence)
+    z2 = z * z
+    p = k / n
+    centre = p + z2 / (2 * n)
+    spread = z * math.sqrt(p * (1 - p) / n + z2 / (4 * n * n))
+    scale = 1 + z2 / n
+    low = 0.0 if k == 0 else max(0.0, (centre - spread) / scale)
+    high = 1.0 if k == n else min(1.0, (centre + spread) / scale)
+    return low, high
+
+
+def clopper_pearson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
+    """Exact (Clopper-Pearson) interval; imports scipy on first use."""
+    _check(k, n, confidence)
+    if n == 0:
+        return 0.0, 1.0
+    from scipy.stats import beta  # lazy: keeps scipy out of start-up
+
+    alpha = 1 - confidence
+    low = 0.0 if k == 0 else float(beta.ppf(alpha / 2, k, n - k + 1))
+    high = 1.0 if k == n else float(beta.ppf(1 - alpha / 2, k + 1, n - k))
+    return low, high
