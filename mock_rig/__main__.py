@@ -1,0 +1,175 @@
+"""`python -m mock_rig`: simulated boxes and animals from the command line.
+
+Rule: each subcommand is a thin wrapper over the module API (history, live,
+demo); bad arguments print a one-line error naming the argument and exit 2
+(argparse's convention); Ctrl-C stops live boxes cleanly with exit 0.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+from mock_rig import scenario
+from mock_rig.faults import KINDS, parse_fault
+from mock_rig.history import cohort, write_history
+from mock_rig.live import LiveRig, stop_rigs
+from mock_rig.outputs import FileOutput, PtyOutput, StreamOutput
+from mock_rig.rig import BoardConfig, wrap_soon
+from mock_rig.tasks import JOYSTICK_HOLD, TWO_PRESS
+
+
+def _positive(kind):
+    def convert(text: str):
+        value = kind(text)
+        if value <= 0:
+            raise argparse.ArgumentTypeError(f"must be positive, got {text}")
+        return value
+
+    return convert
+
+
+def _fault(text: str):
+    try:
+        return parse_fault(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def _variants(parser: argparse.ArgumentParser) -> None:
+    group = parser.add_argument_group("variants (animal and firmware)")
+    group.add_argument("--drive", choices=("error", "outcome"), default="error",
+                       help="fast learning from the signed error or from the reward (default error)")
+    group.add_argument("--warmup", action="store_true", help="session-start warm-up offset")
+    group.add_argument("--satiety", action="store_true", help="late-session satiety drift")
+    group.add_argument("--narrowing", action="store_true",
+                       help="variability narrows with practice")
+    group.add_argument("--legacy", action="store_true",
+                       help="older firmware: no outcome and no param events")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="python -m mock_rig",
+        description="Simulated animals and operant boxes that speak rigside wire format 1.",
+    )
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    hist = sub.add_parser("history", help="write weeks of session files, protocols and truth.json")
+    hist.add_argument("--animals", type=_positive(int), default=8)
+    hist.add_argument("--days", type=_positive(int), default=30, help="calendar days (weekday sessions)")
+    hist.add_argument("--seed", type=int, default=1)
+    hist.add_argument("--out", type=Path, required=True, help="directory to write into")
+    hist.add_argument("--task", choices=(TWO_PRESS, JOYSTICK_HOLD), default=TWO_PRESS)
+    hist.add_argument("--trial-truth", action="store_true",
+                      help="also write NAME.trials.csv: latent states per completed trial")
+    _variants(hist)
+
+    live = sub.add_parser("live", help="run one simulated box in real time or faster")
+    live.add_argument("--out", default="pty", help="pty | stdout | file:PATH (default pty)")
+    live.add_argument("--link", type=Path, help="pty only: keep this symlink pointing at the device")
+    live.add_argument("--no-wait", action="store_true",
+                      help="pty only: start at once instead of booting when a reader opens the port")
+    live.add_argument("--speed", type=_positive(float), default=1.0, help="times faster than real time")
+    live.add_argument("--seed", type=int, default=1)
+    live.add_argument("--animal", type=int, default=0, help="index of the cohort animal (default 0)")
+    live.add_argument("--task", choices=(TWO_PRESS, JOYSTICK_HOLD), default=TWO_PRESS)
+    live.add_argument("--sessions", type=int, default=1, help="sessions to run (0 = until stopped)")
+    live.add_argument("--seconds", type=_positive(float), help="stop after this many seconds")
+    live.add_argument("--wrap", type=int, default=32, help="counter bits (0 = never wraps)")
+    live.add_argument("--wrap-soon", type=_positive(float), metavar="SECONDS",
+                      help="start the counter so that it wraps this many seconds after boot")
+    live.add_argument("--fault", type=_fault, action="append", default=[],
+                      metavar="KIND@START[:SECONDS]", help=f"schedule a fault; kinds: {', '.join(KINDS)}")
+    _variants(live)
+
+    demo = sub.add_parser("demo", help="four demo animals with history, live on ptys")
+    demo.add_argument("--out", type=Path, required=True, help="directory for the history files")
+    demo.add_argument("--links", type=Path, help="directory for per-animal device symlinks")
+    demo.add_argument("--speed", type=_positive(float), default=10.0)
+    demo.add_argument("--seconds", type=_positive(float), help="stop after this many seconds")
+    demo.add_argument("--seed", type=int, default=7)
+    return parser
+
+
+def _base(args):
+    return scenario.variant_params(args.drive, args.warmup, args.satiety, args.narrowing)
+
+
+def cmd_history(args) -> int:
+    started = time.perf_counter()
+    animals = cohort(args.animals, args.seed, _base(args), legacy=args.legacy, task=args.task)
+    truth = write_history(args.out, animals, args.days, trial_truth=args.trial_truth)
+    sessions = sum(len(a["sessions"]) for a in truth["animals"].values())
+    print(f"wrote {sessions} sessions of {len(animals)} animals to {args.out} "
+          f"in {time.perf_counter() - started:.1f} s")
+    return 0
+
+
+def _output(args, parser):
+    if args.out == "pty":
+        return PtyOutput(link=args.link, wait_for_open=not args.no_wait)
+    if args.out == "stdout":
+        return StreamOutput()
+    if args.out.startswith("file:") and len(args.out) > 5:
+        return FileOutput(args.out[5:])
+    parser.error(f"argument --out: expected pty, stdout or file:PATH, got {args.out!r}")
+
+
+def cmd_live(args, parser) -> int:
+    if args.animal < 0:
+        parser.error("argument --animal: must be 0 or more")
+    animal = cohort(args.animal + 1, args.seed, _base(args), legacy=args.legacy, task=args.task)[args.animal]
+    start = wrap_soon(args.wrap_soon, args.wrap) if args.wrap_soon and args.wrap else None
+    animal.board = BoardConfig(fw=animal.board.fw, wrap=args.wrap, legacy=args.legacy,
+                               counter_start_us=start, rig_name=animal.board.rig_name)
+    output = _output(args, parser)
+    if isinstance(output, PtyOutput):
+        where = f" (symlink {args.link})" if args.link else ""
+        print(f"{animal.name}: device {output.device}{where}", file=sys.stderr, flush=True)
+    rig = LiveRig(animal, output, speed=args.speed, faults=tuple(args.fault),
+                  sessions=args.sessions or None)
+    return _run_until(args.seconds, [rig.start()])
+
+
+def cmd_demo(args) -> int:
+    from mock_rig.demo import prepare_demo, start_demo
+
+    prepared = prepare_demo(args.out, args.seed)
+    rigs = start_demo(prepared, args.links, args.speed)
+    for d, rig in zip(prepared, rigs):
+        print(f"{d.animal.name} ({d.label}): {rig.output.device} protocol {d.protocol_path}",
+              flush=True)
+    return _run_until(args.seconds, rigs)
+
+
+def _run_until(seconds: float | None, rigs: list[LiveRig]) -> int:
+    deadline = None if seconds is None else time.monotonic() + seconds
+    try:
+        while any(r.running for r in rigs):
+            if deadline is not None and time.monotonic() >= deadline:
+                break
+            time.sleep(0.1)
+    except KeyboardInterrupt:
+        pass
+    stop_rigs(rigs)
+    errors = [r.error for r in rigs if r.error is not None]
+    for error in errors:
+        print(f"mock_rig: box stopped with an error: {error!r}", file=sys.stderr)
+    return 1 if errors else 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command == "history":
+        return cmd_history(args)
+    if args.command == "live":
+        return cmd_live(args, parser)
+    return cmd_demo(args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
