@@ -1,0 +1,325 @@
+"""Serial source: one pyserial reader thread per port, with unplug, reconnect and gaps.
+
+Rule: the reader reads whatever is waiting and feeds the line decoder; every
+record reaches the sink in order, in `Batch`es, from this thread only.
+`SerialException` and `OSError` from the port are an unplug: the port is
+closed at once, a gap opens, and the configured path (which may be a
+`/dev/serial/by-id/...` symlink, a COM name or a pyserial URL) is tried again
+every `retry_s`, then the device with the configured USB serial number, found
+with `serial.tools.list_ports`. Boards reset when the port opens, so after each
+open the bytes before the board's header line are discarded (counted); if no
+header comes within `header_wait_s` the held bytes are read from their first
+complete line instead (a board that does not reset). A board that resets in
+the middle of a line sends its header glued to the cut line: the cut part is
+kept as a malformed record and the header read as a header. Any other exception —
+one raised by the sink included — ends the reader with the state
+"connection lost" and the error; it is never swallowed. On POSIX ports are
+opened with `exclusive=True`. `import serial` here is pyserial (absolute
+imports).
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+import time
+from pathlib import Path
+from typing import Callable, NamedTuple
+
+import serial
+from serial.tools import list_ports
+
+from drivers.clock import Unwrapper
+from drivers.status import (CONNECTED, LOST, STOPPED, WAITING, Batch, BatchSink, Gap, SourceStatus,
+                            StatusBoard)
+from drivers.wire import HEADER_TAG, LineDecoder, Record, WireDecoder
+
+DEFAULT_BAUD = 115200
+RETRY_S = 0.2  # how often a missing device is looked for (contract: back within 2 s)
+READ_TIMEOUT_S = 0.1  # longest a read blocks: bounds stop latency and idle wake-ups
+HEADER_WAIT_S = 3.0  # after an open, how long to wait for the board's header line
+HUNT_LIMIT = 64 * 1024  # bytes held while waiting for the header (~5 s at 115200 baud)
+
+PortOpener = Callable[[str], serial.SerialBase]
+
+
+class PortInfo(NamedTuple):
+    """A candidate serial device, for choosing a rig's port."""
+
+    device: str
+    description: str
+    serial_number: str | None
+    vid_pid: str | None  # "2341:0043"
+    manufacturer: str | None
+    links: tuple[str, ...]  # stable /dev/serial/by-id names that point at `device`
+
+
+def list_serial_ports() -> list[PortInfo]:
+    """Serial devices present now, with USB description, serial number and VID:PID."""
+    links = _stable_links()
+    found = []
+    for port in list_ports.comports():
+        vid_pid = f"{port.vid:04X}:{port.pid:04X}" if port.vid is not None and port.pid is not None else None
+        found.append(PortInfo(port.device, port.description or "", port.serial_number, vid_pid,
+                              port.manufacturer, links.get(os.path.realpath(port.device), ())))
+    return sorted(found, key=lambda p: p.device)
+
+
+def find_by_serial_number(usb_serial: str) -> str | None:
+    """The device path of the USB device with this serial number, if present."""
+    for port in list_ports.comports():
+        if port.serial_number == usb_serial:
+            return port.device
+    return None
+
+
+def _stable_links(folder: str = "/dev/serial/by-id") -> dict[str, tuple[str, ...]]:
+    links: dict[str, list[str]] = {}
+    base = Path(folder)
+    if base.is_dir():
+        for link in sorted(base.iterdir()):
+            links.setdefault(os.path.realpath(link), []).append(str(link))
+    return {device: tuple(names) for device, names in links.items()}
+
+
+def open_port(path: str, baudrate: int = DEFAULT_BAUD) -> serial.SerialBase:
+    """Open a device path or a pyserial URL (loop://, socket://host:port)."""
+    if "://" in path:
+        return serial.serial_for_url(path, baudrate=baudrate, timeout=READ_TIMEOUT_S)
+    exclusive = True if os.name == "posix" else None
+    return serial.Serial(path, baudrate=baudrate, timeout=READ_TIMEOUT_S, exclusive=exclusive)
+
+
+class SerialSource:
+    """Reads one serial device in a thread; `status()` may be called from any thread."""
+
+    def __init__(
+        self,
+        port: str,
+        sink: BatchSink,
+        *,
+        usb_serial: str | None = None,
+        baudrate: int = DEFAULT_BAUD,
+        decoder: LineDecoder | None = None,
+        wait_for_header: bool = True,
+        header_wait_s: float = HEADER_WAIT_S,
+        retry_s: float = RETRY_S,
+        silent_after_s: float = 5.0,
+        opener: PortOpener | None = None,
+        on_lost: Callable[[BaseException], None] | None = None,
+        wall_clock: Callable[[], float] = time.time,
+    ) -> None:
+        self.port = port
+        self.usb_serial = usb_serial
+        self.baudrate = baudrate
+        self.decoder = decoder if decoder is not None else WireDecoder()
+        self.wait_for_header = wait_for_header and isinstance(self.decoder, WireDecoder)
+        self.header_wait_s = header_wait_s
+        self.retry_s = retry_s
+        self.on_lost = on_lost
+        self.failure: BaseException | None = None
+        self.opened_path: str | None = None  # the device actually open now
+        self.board = StatusBoard(silent_after_s)
+        self._sink = sink
+        self._opener = opener or (lambda path: open_port(path, baudrate))
+        self._wall = wall_clock
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+        self._port: serial.SerialBase | None = None
+        self._opens = 0
+        self._gap_start: float | None = None
+        self._gap_reason = ""
+        self._hunting = False
+        self._held = b""
+        self._hunt_deadline = 0.0
+
+    # --- control (any thread) -------------------------------------------------
+
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._run, name=f"serial {self.port}", daemon=True)
+        self._thread.start()
+
+    def stop(self, timeout: float = 2.0) -> None:
+        """Stop reading; an unfinished line and an open gap are delivered first."""
+        self._stop.set()
+        port = self._port
+        if port is not None and hasattr(port, "cancel_read"):
+            try:
+                port.cancel_read()
+            except (serial.SerialException, OSError, NotImplementedError):
+                pass
+        if self._thread is not None:
+            self._thread.join(timeout)
+
+    @property
+    def alive(self) -> bool:
+        return self._thread is not None and self._thread.is_alive()
+
+    def status(self) -> SourceStatus:
+        return self.board.snapshot()
+
+    # --- reader thread ----------------------------------------------------------
+
+    def _run(self) -> None:
+        try:
+            self._loop()
+            self._finish()
+            self.board.set_state(STOPPED)
+        except BaseException as exc:  # noqa: BLE001 - surfaced as "connection lost", never swallowed
+            self._lost(exc)
+        finally:
+            self._close_port()
+
+    def _loop(self) -> None:
+        while not self._stop.is_set():
+            if self._port is None and not self._connect():
+                self._stop.wait(self.retry_s)
+                continue
+            try:
+                data = self._read()
+            except (serial.SerialException, OSError) as exc:
+                self._unplugged(exc)
+                continue
+            if self._hunting:
+                data = self._hunt(data)
+            if data:
+                self._deliver(self._decode(data))
+
+    def _read(self) -> bytes:
+        assert self._port is not None
+        first = self._port.read(1)  # blocks at most READ_TIMEOUT_S
+        if not first:
+            return b""
+        waiting = self._port.in_waiting
+        return first + self._port.read(waiting) if waiting else first
+
+    def _connect(self) -> bool:
+        """Open the configured path, else the device with the configured USB serial number."""
+        problem = self._try_open(self.port)
+        if problem and self.usb_serial:
+            found = find_by_serial_number(self.usb_serial)
+            if found and found != self.port:
+                problem = self._try_open(found)
+        if not problem:
+            self._opened()
+            return True
+        if self._gap_start is None:
+            self._gap_start, self._gap_reason = self._wall(), "device not present at start"
+            self.board.gap_started(self._gap_start, problem)
+        self.board.set_state(WAITING)
+        return False
+
+    def _try_open(self, path: str) -> str:
+        """Open `path`; return "" on success, else what went wrong."""
+        try:
+            self._port = self._opener(path)
+        except (serial.SerialException, OSError, ValueError) as exc:
+            return f"cannot open {path}: {exc}"
+        self.opened_path = path
+        return ""
+
+    def _opened(self) -> None:
+        now = self._wall()
+        self._opens += 1
+        self.board.set_state(CONNECTED)
+        gaps: tuple[Gap, ...] = ()
+        if self._gap_start is not None:
+            gaps = (Gap(self._gap_start, now, self._gap_reason),)
+            self._gap_start = None
+            self.board.gap_ended(gaps[0])
+        if self.wait_for_header:
+            self._hunting, self._held = True, b""
+            self._hunt_deadline = time.monotonic() + self.header_wait_s
+        elif self._opens > 1:
+            self._new_segment()
+        if gaps:
+            self._sink(Batch([], now, gaps=gaps))
+
+    def _new_segment(self) -> None:
+        """A reconnect without a header: the board's counter may have restarted."""
+        decoder = self.decoder
+        if isinstance(decoder, WireDecoder):
+            decoder.segment += 1
+            decoder.unwrapper = Unwrapper(decoder.wrap)
+
+    def _hunt(self, data: bytes) -> bytes:
+        """Hold bytes until the header line; return what the decoder may have."""
+        held = self._held + data
+        at = held.find(HEADER_TAG)  # boot noise need not end in a newline: the tag starts the header
+        if at >= 0:
+            self._stop_hunting(at)
+            return held[at:]
+        if time.monotonic() < self._hunt_deadline and len(held) < HUNT_LIMIT:
+            self._held = held
+            return b""
+        cut = held.find(b"\n")
+        if cut < 0 and len(held) < HUNT_LIMIT:
+            self._held = held
+            return b""
+        cut = len(held) if cut < 0 else cut + 1
+        self._stop_hunting(cut)
+        self.board.notice(f"no header line within {self.header_wait_s:g} s of opening: reading without it")
+        self._new_segment()
+        return held[cut:]
+
+    def _stop_hunting(self, discarded: int) -> None:
+        self._hunting, self._held = False, b""
+        if discarded:
+            self.board.discarded(discarded)
+
+    def _decode(self, data: bytes) -> list[Record]:
+        """Feed the decoder; a header glued to a line cut short by a reset starts its own line."""
+        at = data.find(HEADER_TAG)
+        if at < 0 or (data[at - 1 : at] in (b"\n", b"\r") if at else not self.decoder.pending):
+            return self.decoder.feed(data)
+        return self.decoder.feed(data[:at]) + self.decoder.close() + self.decoder.feed(data[at:])
+
+    def _deliver(self, records: list[Record]) -> None:
+        if records:
+            self.board.count(records)
+            self._sink(Batch(records, self._wall()))
+        else:
+            self.board.data_arrived()
+
+    def _unplugged(self, exc: BaseException) -> None:
+        self._close_port()
+        self._gap_start, self._gap_reason = self._wall(), f"unplugged: {type(exc).__name__}: {exc}"
+        self.board.gap_started(self._gap_start, f"{type(exc).__name__}: {exc}")
+        self.board.set_state(WAITING)
+        self._hunting, self._held = False, b""
+        self._deliver_unfinished()
+
+    def _deliver_unfinished(self) -> None:
+        records = self.decoder.close()
+        if records:
+            self.board.count(records)
+            self._sink(Batch(records, self._wall()))
+
+    def _finish(self) -> None:
+        if self._hunting:
+            self._stop_hunting(len(self._held))  # still waiting for a header: counted as discarded
+        self._deliver_unfinished()
+        if self._gap_start is not None:
+            now = self._wall()
+            gap = Gap(self._gap_start, now, self._gap_reason + "; still open when reading stopped")
+            self._gap_start = None
+            self._sink(Batch([], now, gaps=(gap,)))
+
+    def _lost(self, exc: BaseException) -> None:
+        self.failure = exc
+        self.board.error(f"{type(exc).__name__}: {exc}")
+        self.board.gap_started(self._wall(), None)
+        self.board.set_state(LOST)
+        if self.on_lost is not None:
+            try:
+                self.on_lost(exc)
+            except Exception as inner:  # noqa: BLE001 - the first error is the one to show
+                self.board.notice(f"on_lost handler failed: {inner!r}")
+
+    def _close_port(self) -> None:
+        port, self._port, self.opened_path = self._port, None, None
+        if port is not None:
+            try:
+                port.close()
+            except (serial.SerialException, OSError):
+                pass

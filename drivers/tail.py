@@ -1,0 +1,306 @@
+"""File source: follow a growing file from a saved byte offset, line by line, exactly once.
+
+Rule: the file is the truth and the reader only ever moves forward through
+complete lines. Every `poll_s` (100-250 ms) it reads binary from where it
+stopped and feeds the line decoder (`WireDecoder` or `MappedDecoder`); a
+partial last line waits in the decoder and is read again after a restart,
+because each `Batch` carries the `FilePosition` just past its last complete
+line together with the decoder's state — the store commits both with the
+batch's records, so a restart resumes exactly once. Rotation (the path's
+st_dev/st_ino changes, or the path disappears): the old handle is drained to
+its end, its unfinished last line is kept as a malformed record, and the new
+file is followed from byte 0. Truncation (size below the read position): read
+again from byte 0, with a notice. A restart recognises "the same file" by a
+hash of its first bytes and of the bytes just before the offset (st_ino can
+be 0 on Windows); a different file at the
+path is read from byte 0, with a notice. I/O errors close the handle and
+reopen at the last position (state "waiting for device"); any other
+exception, the sink's included, ends the reader as "connection lost".
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import threading
+import time
+from typing import Any, BinaryIO, Callable
+
+from drivers.clock import Unwrapper
+from drivers.mapping import MappedDecoder
+from drivers.status import (CONNECTED, LOST, STOPPED, WAITING, Batch, BatchSink, FilePosition,
+                            SourceStatus, StatusBoard)
+from drivers.wire import CLOCK_UNITS_US, LineDecoder, Record, WireDecoder
+
+POLL_S = 0.2
+CHUNK = 1 << 20  # bytes read per batch at most
+FINGERPRINT_LEN = 1024  # bytes at the start of a file that identify it across restarts
+
+DecoderFactory = Callable[[], LineDecoder]
+
+
+def decoder_state(decoder: LineDecoder) -> dict[str, Any]:
+    """The JSON-able state a decoder needs to go on after its last complete line."""
+    state: dict[str, Any] = {"line": decoder.line, "offset": decoder.offset}
+    if isinstance(decoder, WireDecoder):
+        state.update(kind="wire", segment=decoder.segment, clock=decoder.clock, wrap=decoder.wrap,
+                     unwrap=decoder.unwrapper.state)
+    elif isinstance(decoder, MappedDecoder):
+        # MappedDecoder has no public state API yet: its private fields are read here (see docs/sources.md).
+        state.update(kind="mapped", needs_header=decoder._needs_header, index=dict(decoder._index),
+                     clocks=[[animal, session, segment, unwrap.state]
+                             for (animal, session), (segment, unwrap) in decoder._clocks.items()])
+    else:
+        raise TypeError(f"no saved state for {type(decoder).__name__}")
+    return state
+
+
+def restore_decoder(decoder: LineDecoder, state: dict[str, Any]) -> None:
+    """Put a fresh decoder back into a `decoder_state`; ValueError if the kinds differ."""
+    kind = "wire" if isinstance(decoder, WireDecoder) else "mapped" if isinstance(decoder, MappedDecoder) else None
+    if state.get("kind") != kind:
+        raise ValueError(f"saved reading state is for a {state.get('kind')} decoder, not {kind}")
+    decoder.line, decoder.offset = int(state["line"]), int(state["offset"])
+    if isinstance(decoder, WireDecoder):
+        clock, wrap = state["clock"], int(state["wrap"])
+        decoder.segment, decoder.clock, decoder.wrap = int(state["segment"]), clock, wrap
+        decoder._unit = CLOCK_UNITS_US[clock]  # no public setter in drivers.wire
+        decoder._limit = (1 << wrap) if wrap else 0
+        decoder.unwrapper = Unwrapper(wrap)
+        decoder.unwrapper.restore(state["unwrap"])
+    elif isinstance(decoder, MappedDecoder):
+        decoder._needs_header = bool(state["needs_header"])
+        decoder._index = {role: int(col) for role, col in state["index"].items()}
+        clocks = {}
+        for animal, session, segment, unwrap_state in state["clocks"]:
+            unwrap = Unwrapper(decoder.mapping.wrap_bits)
+            unwrap.restore(unwrap_state)
+            clocks[(animal, session)] = (int(segment), unwrap)
+        decoder._clocks = clocks
+
+
+def file_fingerprint(fh: BinaryIO, offset: int, span: int | None = None) -> tuple[str, int]:
+    """sha256 of a file's first `span` bytes and the `span` bytes before `offset`; (hash, span).
+
+    Both ends: a new file that merely starts like the old one (the same header
+    lines) differs just before the offset.
+    """
+    span = min(FINGERPRINT_LEN, offset) if span is None else span
+    here = fh.tell()
+    fh.seek(0)
+    head = fh.read(span)
+    fh.seek(offset - span)
+    tail = fh.read(span)
+    fh.seek(here)
+    return hashlib.sha256(head + tail).hexdigest(), span
+
+
+class FileTail:
+    """Follows one file; `poll()` does one step (tests), `start()` runs it in a thread."""
+
+    def __init__(
+        self,
+        path: str | os.PathLike[str],
+        sink: BatchSink,
+        *,
+        decoder_factory: DecoderFactory = WireDecoder,
+        resume: FilePosition | None = None,
+        poll_s: float = POLL_S,
+        silent_after_s: float = 5.0,
+        should_pause: Callable[[], bool] | None = None,
+        on_lost: Callable[[BaseException], None] | None = None,
+        wall_clock: Callable[[], float] = time.time,
+    ) -> None:
+        self.path = os.fspath(path)
+        self.poll_s = poll_s
+        self.should_pause = should_pause
+        self.on_lost = on_lost
+        self.failure: BaseException | None = None
+        self.board = StatusBoard(silent_after_s)
+        self.decoder: LineDecoder = decoder_factory()
+        self._factory = decoder_factory
+        self._sink = sink
+        self._wall = wall_clock
+        self._resume = resume
+        self._fh: BinaryIO | None = None
+        self._identity = (0, 0)
+        self._read_pos = 0
+        self._print: tuple[int, str, int] | None = None  # (offset, fingerprint, span) last computed
+        self._last_position: FilePosition | None = resume
+        self._notices: list[str] = []
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+
+    # --- control -----------------------------------------------------------
+
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._run, name=f"tail {self.path}", daemon=True)
+        self._thread.start()
+
+    def stop(self, timeout: float = 5.0) -> None:
+        """Stop after one last poll (what is complete now is delivered)."""
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join(timeout)
+
+    @property
+    def alive(self) -> bool:
+        return self._thread is not None and self._thread.is_alive()
+
+    def status(self) -> SourceStatus:
+        return self.board.snapshot()
+
+    @property
+    def position(self) -> FilePosition:
+        """Where a restart would resume now (needs the file open)."""
+        offset = self.decoder.offset
+        if self._print is None or self._print[0] != offset:
+            assert self._fh is not None
+            self._print = (offset, *file_fingerprint(self._fh, offset))
+        _, print_, span = self._print
+        return FilePosition(offset, self._identity, print_, span, decoder_state(self.decoder))
+
+    def _run(self) -> None:
+        try:
+            while not self._stop.is_set():
+                if self.should_pause is None or not self.should_pause():
+                    self.poll()
+                self._stop.wait(self.poll_s)
+            self.poll()
+            self.board.set_state(STOPPED)
+        except BaseException as exc:  # noqa: BLE001 - surfaced as "connection lost", never swallowed
+            self.failure = exc
+            self.board.error(f"{type(exc).__name__}: {exc}")
+            self.board.set_state(LOST)
+            if self.on_lost is not None:
+                self.on_lost(exc)
+        finally:
+            self._close()
+
+    # --- one poll ----------------------------------------------------------
+
+    def poll(self) -> bool:
+        """Read what is new; return whether any record was delivered."""
+        try:
+            if self._fh is None and not self._open():
+                return False
+            return self._read_new()
+        except OSError as exc:
+            self._close()
+            self._resume = self._last_position  # reopen where the last delivered batch ended
+            self.decoder = self._factory()
+            self.board.error(f"{type(exc).__name__}: {exc}")
+            self.board.set_state(WAITING)
+            return False
+
+    def _open(self) -> bool:
+        try:
+            fh = open(self.path, "rb")  # noqa: SIM115 - kept open while following
+        except FileNotFoundError:
+            self.board.set_state(WAITING)
+            return False
+        st = os.fstat(fh.fileno())
+        self._fh, self._identity, self._print = fh, (st.st_dev, st.st_ino), None
+        resume, self._resume = self._resume, None
+        start = 0
+        if resume is not None:
+            if self._continues(fh, st.st_size, resume):
+                restore_decoder(self.decoder, resume.decoder)
+                start = resume.offset
+            else:
+                restore_decoder(self.decoder, resume.decoder)  # so that segment numbers go on rising
+                self._renew_decoder()
+                self._notify("the file differs from the one read before: reading it from byte 0")
+        fh.seek(start)
+        self._read_pos = start
+        self._last_position = self.position
+        self.board.set_state(CONNECTED)
+        return True
+
+    @staticmethod
+    def _continues(fh: BinaryIO, size: int, pos: FilePosition) -> bool:
+        """Does this file hold, up to `pos.offset`, the bytes that `pos` was taken from?"""
+        return size >= pos.offset and file_fingerprint(fh, pos.offset, pos.prefix_len)[0] == pos.fingerprint
+
+    def _read_new(self) -> bool:
+        assert self._fh is not None
+        try:
+            st = os.stat(self.path)
+            rotated = (st.st_dev, st.st_ino) != self._identity
+        except FileNotFoundError:
+            rotated = True
+        if not rotated and os.fstat(self._fh.fileno()).st_size < self._read_pos:
+            self._truncated()
+        delivered = False
+        while True:  # to the end now: a rotated file is drained, a big backlog read in chunks
+            data = self._fh.read(CHUNK)
+            if not data:
+                break
+            self._read_pos += len(data)
+            delivered |= self._deliver(self.decoder.feed(data))
+            if not rotated and self.should_pause is not None and self.should_pause():
+                break
+        if rotated:
+            delivered |= self._rotated()
+        elif not delivered:
+            self._flush_notices()
+        return delivered
+
+    def _rotated(self) -> bool:
+        """The path names another file now; the old one has been read to its end."""
+        last = self.position
+        if self._path_continues(last):  # replaced by a copy that goes on from here
+            self._close()
+            self.decoder, self._resume = self._factory(), last
+            self._notify(f"file replaced by one with the same content: going on from byte {last.offset}")
+            return False
+        delivered = self._deliver(self.decoder.close())
+        self._close()
+        self._renew_decoder()
+        self._notify("file rotated: following the new file from byte 0")
+        return delivered
+
+    def _path_continues(self, pos: FilePosition) -> bool:
+        try:
+            with open(self.path, "rb") as fh:
+                return self._continues(fh, os.fstat(fh.fileno()).st_size, pos)
+        except FileNotFoundError:
+            return False
+
+    def _truncated(self) -> None:
+        assert self._fh is not None
+        self._deliver(self.decoder.close())
+        self._notify(f"file truncated below byte {self._read_pos}: reading again from byte 0")
+        self._renew_decoder()
+        self._fh.seek(0)
+        self._read_pos = 0
+
+    def _renew_decoder(self) -> None:
+        """A new file (rotation, truncation): fresh line count and clock, segments go on rising."""
+        old, self.decoder = self.decoder, self._factory()
+        if isinstance(old, WireDecoder) and isinstance(self.decoder, WireDecoder):
+            self.decoder.segment = old.segment + 1
+
+    def _notify(self, text: str) -> None:
+        self._notices.append(text)
+        self.board.notice(text)
+
+    def _deliver(self, records: list[Record]) -> bool:
+        if not records:
+            return False
+        self.board.count(records)
+        notices, self._notices = tuple(self._notices), []
+        self._last_position = self.position
+        self._sink(Batch(records, self._wall(), resume=self._last_position, notices=notices))
+        return True
+
+    def _flush_notices(self) -> None:
+        if self._notices and self._fh is not None:
+            notices, self._notices = tuple(self._notices), []
+            self._last_position = self.position
+            self._sink(Batch([], self._wall(), resume=self._last_position, notices=notices))
+
+    def _close(self) -> None:
+        fh, self._fh = self._fh, None
+        if fh is not None:
+            fh.close()
