@@ -16,6 +16,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
+from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from drivers.clock import Unwrapper
@@ -115,6 +116,7 @@ class MappedDecoder(LineDecoder):
     """Feed bytes of a mapped file, get wire records (events carry animal/session)."""
 
     max_line = 4096
+    kind = "mapped"
 
     def __init__(self, mapping: Mapping, line: int = 0, offset: int = 0) -> None:
         super().__init__(line, offset)
@@ -130,6 +132,20 @@ class MappedDecoder(LineDecoder):
     def segments(self) -> dict[tuple[str | None, str | None], int]:
         """Segment number of each (animal, session) seen so far."""
         return {key: seg for key, (seg, _) in self._clocks.items()}
+
+    def state(self) -> dict[str, Any]:
+        clocks = [[animal, session, segment, unwrap.state] for (animal, session), (segment, unwrap) in self._clocks.items()]
+        return {**super().state(), "needs_header": self._needs_header, "index": dict(self._index), "clocks": clocks}
+
+    def restore(self, state: dict[str, Any]) -> None:
+        super().restore(state)
+        self._needs_header = bool(state["needs_header"])
+        self._index = {role: int(col) for role, col in state["index"].items()}
+        self._clocks = {}
+        for animal, session, segment, unwrap_state in state["clocks"]:
+            unwrap = Unwrapper(self.mapping.wrap_bits)
+            unwrap.restore(unwrap_state)
+            self._clocks[(animal, session)] = (int(segment), unwrap)
 
     def _split(self, text: str) -> list[str]:
         delim = self.mapping.delimiter

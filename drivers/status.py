@@ -43,7 +43,7 @@ class FilePosition(NamedTuple):
     `identity` is (st_dev, st_ino) of the file; `fingerprint` is a hash of the
     file's first `prefix_len` bytes and of the `prefix_len` bytes before
     `offset` (how a restart recognises the same file);
-    `decoder` is the decoder's JSON-able state (`drivers.tail.decoder_state`).
+    `decoder` is the decoder's JSON-able state (`LineDecoder.state()`).
     """
 
     offset: int

@@ -24,59 +24,17 @@ import hashlib
 import os
 import threading
 import time
-from typing import Any, BinaryIO, Callable
+from typing import BinaryIO, Callable
 
-from drivers.clock import Unwrapper
-from drivers.mapping import MappedDecoder
 from drivers.status import (CONNECTED, LOST, STOPPED, WAITING, Batch, BatchSink, FilePosition,
                             SourceStatus, StatusBoard)
-from drivers.wire import CLOCK_UNITS_US, LineDecoder, Record, WireDecoder
+from drivers.wire import LineDecoder, Record, WireDecoder
 
 POLL_S = 0.2
 CHUNK = 1 << 20  # bytes read per batch at most
 FINGERPRINT_LEN = 1024  # bytes at the start of a file that identify it across restarts
 
 DecoderFactory = Callable[[], LineDecoder]
-
-
-def decoder_state(decoder: LineDecoder) -> dict[str, Any]:
-    """The JSON-able state a decoder needs to go on after its last complete line."""
-    state: dict[str, Any] = {"line": decoder.line, "offset": decoder.offset}
-    if isinstance(decoder, WireDecoder):
-        state.update(kind="wire", segment=decoder.segment, clock=decoder.clock, wrap=decoder.wrap,
-                     unwrap=decoder.unwrapper.state)
-    elif isinstance(decoder, MappedDecoder):
-        # MappedDecoder has no public state API yet: its private fields are read here (see docs/sources.md).
-        state.update(kind="mapped", needs_header=decoder._needs_header, index=dict(decoder._index),
-                     clocks=[[animal, session, segment, unwrap.state]
-                             for (animal, session), (segment, unwrap) in decoder._clocks.items()])
-    else:
-        raise TypeError(f"no saved state for {type(decoder).__name__}")
-    return state
-
-
-def restore_decoder(decoder: LineDecoder, state: dict[str, Any]) -> None:
-    """Put a fresh decoder back into a `decoder_state`; ValueError if the kinds differ."""
-    kind = "wire" if isinstance(decoder, WireDecoder) else "mapped" if isinstance(decoder, MappedDecoder) else None
-    if state.get("kind") != kind:
-        raise ValueError(f"saved reading state is for a {state.get('kind')} decoder, not {kind}")
-    decoder.line, decoder.offset = int(state["line"]), int(state["offset"])
-    if isinstance(decoder, WireDecoder):
-        clock, wrap = state["clock"], int(state["wrap"])
-        decoder.segment, decoder.clock, decoder.wrap = int(state["segment"]), clock, wrap
-        decoder._unit = CLOCK_UNITS_US[clock]  # no public setter in drivers.wire
-        decoder._limit = (1 << wrap) if wrap else 0
-        decoder.unwrapper = Unwrapper(wrap)
-        decoder.unwrapper.restore(state["unwrap"])
-    elif isinstance(decoder, MappedDecoder):
-        decoder._needs_header = bool(state["needs_header"])
-        decoder._index = {role: int(col) for role, col in state["index"].items()}
-        clocks = {}
-        for animal, session, segment, unwrap_state in state["clocks"]:
-            unwrap = Unwrapper(decoder.mapping.wrap_bits)
-            unwrap.restore(unwrap_state)
-            clocks[(animal, session)] = (int(segment), unwrap)
-        decoder._clocks = clocks
 
 
 def file_fingerprint(fh: BinaryIO, offset: int, span: int | None = None) -> tuple[str, int]:
@@ -158,7 +116,7 @@ class FileTail:
             assert self._fh is not None
             self._print = (offset, *file_fingerprint(self._fh, offset))
         _, print_, span = self._print
-        return FilePosition(offset, self._identity, print_, span, decoder_state(self.decoder))
+        return FilePosition(offset, self._identity, print_, span, self.decoder.state())
 
     def _run(self) -> None:
         try:
@@ -205,10 +163,10 @@ class FileTail:
         start = 0
         if resume is not None:
             if self._continues(fh, st.st_size, resume):
-                restore_decoder(self.decoder, resume.decoder)
+                self.decoder.restore(resume.decoder)
                 start = resume.offset
             else:
-                restore_decoder(self.decoder, resume.decoder)  # so that segment numbers go on rising
+                self.decoder.restore(resume.decoder)  # so that segment numbers go on rising
                 self._renew_decoder()
                 self._notify("the file differs from the one read before: reading it from byte 0")
         fh.seek(start)

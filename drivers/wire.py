@@ -15,7 +15,7 @@ the decoder reads; the simulator and firmware tests use it.
 from __future__ import annotations
 
 import re
-from typing import NamedTuple, Union
+from typing import Any, NamedTuple, Union
 
 from drivers.clock import Unwrapper
 
@@ -228,6 +228,23 @@ class LineDecoder:
     def _overlong(self, size: int) -> str:
         return f"line longer than {self.max_line} bytes ({size} bytes, the first {self.max_line} kept)"
 
+    kind = "lines"
+
+    def state(self) -> dict[str, Any]:
+        """JSON-able state to go on after the last complete line (see `restore`)."""
+        return {"kind": self.kind, "line": self.line, "offset": self.offset}
+
+    def restore(self, state: dict[str, Any]) -> None:
+        """Continue from a `state()` taken from a decoder of the same kind.
+
+        Only complete lines are covered: the caller resumes its input at `offset`.
+        ValueError when the state belongs to another kind of decoder.
+        """
+        if state.get("kind") != self.kind:
+            raise ValueError(f"saved reading state is for a {state.get('kind')} decoder, not {self.kind}")
+        self._buf, self._overflow = b"", 0
+        self.line, self.offset = int(state["line"]), int(state["offset"])
+
     def _position(self, size: int) -> tuple[int, int]:
         """Count one line of `size` bytes; return its (line number, offset)."""
         self.line += 1
@@ -246,14 +263,28 @@ class LineDecoder:
 class WireDecoder(LineDecoder):
     """Feed bytes, get records. One decoder per byte stream (port or file)."""
 
+    kind = "wire"
+
     def __init__(self, line: int = 0, offset: int = 0, segment: int = 0) -> None:
         super().__init__(line, offset)
         self.segment = segment
-        self.clock = DEFAULT_CLOCK
-        self.wrap = DEFAULT_WRAP
-        self._unit = CLOCK_UNITS_US[DEFAULT_CLOCK]
-        self._limit = 1 << DEFAULT_WRAP
-        self.unwrapper = Unwrapper(DEFAULT_WRAP)
+        self._set_clock(DEFAULT_CLOCK, DEFAULT_WRAP)
+
+    def _set_clock(self, clock: str, wrap: int) -> None:
+        self.clock, self.wrap = clock, wrap
+        self._unit = CLOCK_UNITS_US[clock]
+        self._limit = (1 << wrap) if wrap else 0
+        self.unwrapper = Unwrapper(wrap)
+
+    def state(self) -> dict[str, Any]:
+        return {**super().state(), "segment": self.segment, "clock": self.clock, "wrap": self.wrap,
+                "unwrap": self.unwrapper.state}
+
+    def restore(self, state: dict[str, Any]) -> None:
+        super().restore(state)
+        self.segment = int(state["segment"])
+        self._set_clock(state["clock"], int(state["wrap"]))
+        self.unwrapper.restore(state["unwrap"])
 
     def _decode_line(self, raw: bytes, size: int) -> Record:
         content = raw[:-1] if raw[-1:] == b"\r" else raw
@@ -300,10 +331,7 @@ class WireDecoder(LineDecoder):
             return Malformed(raw, parsed, line, offset, size)
         version, clock, wrap, fields = parsed
         self.segment += 1
-        self.clock, self.wrap = clock, wrap
-        self._unit = CLOCK_UNITS_US[clock]
-        self._limit = (1 << wrap) if wrap else 0
-        self.unwrapper = Unwrapper(wrap)
+        self._set_clock(clock, wrap)
         return Header(version, clock, wrap, fields, self.segment, line, offset, size)
 
 

@@ -233,3 +233,25 @@ def test_line_shaped_input_never_raises_and_is_accounted_for(lines, chunks):
 @given(st.binary(max_size=600))
 def test_chunking_never_changes_the_records(data):
     assert feed_whole(data) == feed_bytewise(data)
+
+
+def test_state_restore_resumes_after_the_last_complete_line():
+    import json
+
+    data = encode_header(wrap=16, clock="ms") + b"".join(encode_event(t % 2**16, "lick") for t in range(0, 300_000, 7_001))
+    whole = decode_all(data)
+    cut = data.index(b"\n", len(data) // 2) + 1
+    first = WireDecoder()
+    head = first.feed(data[:cut])
+    saved = json.loads(json.dumps(first.state()))  # stored as JSON in the store
+    second = WireDecoder()
+    second.restore(saved)
+    assert head + second.feed(data[saved["offset"]:]) + second.close() == whole
+
+
+def test_restore_refuses_another_decoders_state():
+    from drivers.mapping import MappedDecoder, parse_mapping
+
+    mapped = MappedDecoder(parse_mapping('[format]\ndelimiter=";"\n[columns]\ndevice_time=0\nevent=1\n[clock]\nunit="ms"\n[events]\n'))
+    with pytest.raises(ValueError, match="mapped"):
+        WireDecoder().restore(mapped.state())

@@ -179,10 +179,8 @@ def _decoder_factory(mapping_path: Path | None) -> Callable[[], Any]:
 
 
 def _check_resume(state: dict[str, Any], factory: Callable[[], Any], where: str) -> None:
-    from drivers.tail import restore_decoder
-
     try:
-        restore_decoder(factory(), state)
+        factory().restore(state)
     except (ValueError, KeyError, TypeError) as exc:
         raise UsageError(f"--source: {where} was read before in another format ({exc}); "
                          "give the same --mapping as before") from None
