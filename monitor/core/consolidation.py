@@ -1,0 +1,282 @@
+"""Consolidation estimate of one animal: fit, compare, estimate, forecast, report.
+
+Rule: both fast-state driving signals ("error", "outcome") are fitted with the
+two-rate model for ``race_iter`` optimiser steps from the same starts; the
+variant ahead is fitted to convergence (the other's likelihood is reported as
+reached, a lower bound of its maximum), and so is the one-rate model of that
+variant.  The two-rate model counts as constraining the split only
+when it beats the one-rate model of the same variant by AIC(one) - AIC(two) >=
+``aic_margin`` (10 by default: the one-rate model then has essentially no
+support); otherwise every session is "not constrained" with the interval [0, 1].
+The final fit also starts from short and long break retentions; optima within
+``mode_margin`` (2) log-likelihood of the best are all kept and share the
+interval's draws.  A warm start (``warm_start`` of a previous result, e.g. cached in the store)
+refits from the cached optima only, and falls back to the full fit when another
+variant now fits better.  A session whose interval is wider than ``uninformative_width`` is "not
+constrained" too.  Status words: "estimated", "not constrained", "not
+converged", "too few trials", "cancelled".  Without a usable fit the figure is
+0 with the interval [0, 1]: a model quantity that can never open an eligibility
+window by itself.  The figure is a property of a fitted behavioural model, not
+proof that behaviour no longer depends on a brain area; advisory only.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from typing import Callable
+
+import numpy as np
+
+from monitor.core.consolidation_estimate import Forecast, forecast, slow_fractions
+from monitor.core.consolidation_fit import Cancelled, ModelFit, default_starts, fit_model, with_curvature
+from monitor.core.consolidation_model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
+
+CAVEAT = ("Model-based slow-state fraction of a fitted behavioural model; not proof that the behaviour "
+          "no longer depends on a brain area. Advisory only: read it with the transparent measures.")
+Progress = Callable[[float, str], None]
+
+
+@dataclass(frozen=True)
+class Options:
+    """Settings of an estimate (defaults documented in docs/consolidation.md)."""
+
+    variants: tuple[str, ...] = VARIANTS
+    starts: int = 4
+    optimise: int = 1
+    max_iter: int = 150
+    race_iter: int = 15
+    mode_tau_b: tuple[float, ...] = (2.0, 500.0)
+    mode_margin: float = 2.0
+    draws: int = 40
+    state_draws: int = 25
+    aic_margin: float = 10.0
+    uninformative_width: float = 0.8
+    level: float = 0.8
+    horizon: int = 200
+    min_trials: int = 1000
+    min_sessions: int = 4
+    warmup: str = "model"
+    warmup_trials: int = 5
+    tau_w: tuple[float, ...] = (5.0, 25.0)
+    drift: bool = True
+    seed: int = 0
+
+
+@dataclass(frozen=True)
+class SessionEstimate:
+    session: int
+    estimate: float
+    low: float
+    high: float
+    status: str
+
+
+@dataclass(frozen=True)
+class ConsolidationResult:
+    """Everything an estimate produced; ``warm_start`` can be cached and passed to the next refit."""
+
+    status: str
+    reason: str
+    sessions: list[SessionEstimate]
+    n_trials: int
+    dropped_trials: int
+    two_rate: ModelFit | None = None
+    one_rate: ModelFit | None = None
+    variant_loglikes: dict[str, float] = field(default_factory=dict)
+    delta_aic: float | None = None
+    forecast: Forecast | None = None
+    warm_start: dict = field(default_factory=dict)
+    evaluations: int = 0
+    notes: tuple[str, ...] = ()
+
+
+def _key(variant: str, two_rate: bool) -> str:
+    return f"{variant}/{'two' if two_rate else 'one'}"
+
+
+def _empty(status: str, reason: str, labels: np.ndarray, n_trials: int, dropped: int) -> ConsolidationResult:
+    rows = [SessionEstimate(int(s), 0.0, 0.0, 1.0, status) for s in labels]
+    return ConsolidationResult(status, reason, rows, n_trials, dropped)
+
+
+def estimate_consolidation(
+    series: TrialSeries,
+    options: Options = Options(),
+    warm_start: dict | None = None,
+    progress: Progress | None = None,
+    cancel: Callable[[], bool] | None = None,
+) -> ConsolidationResult:
+    """Fit the models to one animal's series and estimate the slow-state fraction per session."""
+    report = progress or (lambda fraction, message: None)
+    warm = warm_start or {}
+    report(0.0, "preparing trials")
+    prep = prepare(series, options.warmup, options.warmup_trials, options.tau_w, options.drift)
+    if prep.n_trials < options.min_trials or len(prep.labels) < options.min_sessions:
+        return _empty("too few trials", f"{prep.n_trials} trials in {len(prep.labels)} sessions (need "
+                      f"{options.min_trials} in {options.min_sessions})", prep.labels, prep.n_trials,
+                      prep.dropped_trials)
+    rng = np.random.default_rng(options.seed)
+    steps = len(options.variants) + 3
+    try:
+        fitted = _refit_warm(prep, warm, options, cancel, report, steps) if _usable(warm, options) else None
+        variant, modes, fits = fitted or _fit_cold(prep, warm, options, cancel, report, steps, rng)
+        two, one = modes[0], fits[_key(variant, False)]
+        report((steps - 0.5) / steps, "interval")
+        fractions = slow_fractions(prep, modes, rng, options.draws, options.state_draws)
+        outlook = forecast(prep, two, fractions, options.level, options.horizon)
+    except Cancelled:
+        return _empty("cancelled", "cancelled", prep.labels, prep.n_trials, prep.dropped_trials)
+    report(1.0, "done")
+    delta_aic = one.aic - two.aic
+    if not two.converged:
+        status, reason = "not converged", two.reason or "optimiser did not converge"
+    elif delta_aic < options.aic_margin:
+        status, reason = "not constrained", (f"two-rate model does not beat one-rate clearly "
+                                             f"(AIC difference {delta_aic:.1f} < {options.aic_margin:g})")
+    else:
+        status, reason = "estimated", f"two-rate model preferred (AIC difference {delta_aic:.1f})"
+    rows = []
+    for label, est, low, high in zip(prep.labels, fractions.estimate, fractions.low, fractions.high):
+        word = status
+        if status != "estimated":
+            low, high = 0.0, 1.0
+        elif high - low > options.uninformative_width:
+            word = "not constrained"
+        rows.append(SessionEstimate(int(label), float(est), float(low), float(high), word))
+    warm_out: dict = {key: fit.theta.tolist() for key, fit in fits.items()}
+    warm_out |= {"variant": variant, "modes": [m.theta.tolist() for m in modes]}
+    return ConsolidationResult(
+        status, reason, rows, prep.n_trials, prep.dropped_trials, two, one,
+        {v: fits[_key(v, True)].loglike for v in options.variants}, float(delta_aic), outlook, warm_out,
+        sum(f.evaluations for f in fits.values()), tuple(prep.notes),
+    )
+
+
+def _usable(warm: dict, options: Options) -> bool:
+    variant = warm.get("variant")
+    return (variant in options.variants and bool(warm.get("modes"))
+            and all(_key(v, True) in warm for v in options.variants) and _key(variant, False) in warm)
+
+
+def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Progress, steps: int,
+              rng: np.random.Generator) -> tuple[str, list[ModelFit], dict[str, ModelFit]]:
+    """Race the variants, then fit the leader's optima and its one-rate model to convergence."""
+    fits: dict[str, ModelFit] = {}
+    for v_i, variant in enumerate(options.variants):
+        key = _key(variant, True)
+        starts = ([np.asarray(warm[key])] if key in warm else []) + default_starts(True, options.starts, rng)
+        fits[key] = fit_model(prep, variant, True, starts, options.optimise, options.race_iter, cancel, False)
+        report((v_i + 1) / steps, f"two-rate model, {variant} variant (first {options.race_iter} steps)")
+    # the variant ahead after the first steps is fitted to convergence, from its own point and
+    # from break retentions at both ends (the likelihood can have an optimum at each)
+    variant = max(options.variants, key=lambda v: fits[_key(v, True)].loglike)
+    lead = fits[_key(variant, True)]
+    report((len(options.variants) + 1) / steps, f"two-rate model, {variant} variant, to convergence")
+    starts = []
+    for tau in options.mode_tau_b:
+        alt = lead.theta.copy()
+        alt[TWO_RATE.index("tau_b")] = to_theta({"tau_b": tau}, ("tau_b",))[0]
+        starts.append(alt)
+    raced = [lead] + [fit_model(prep, variant, True, [s], 1, options.race_iter, cancel, False) for s in starts]
+    top = max(f.loglike for f in raced)
+    found = [fit_model(prep, variant, True, [f.theta], 1, options.max_iter, cancel, False)
+             for f in raced if top - f.loglike < 5 * options.mode_margin]
+    modes = _select_modes(prep, found, sum(f.evaluations for f in raced), options, cancel)
+    fits[_key(variant, True)] = modes[0]
+    key = _key(variant, False)
+    projected = to_theta({k: modes[0].params[k] for k in ONE_RATE}, ONE_RATE)
+    starts = ([np.asarray(warm[key])] if key in warm else []) + [projected]
+    starts += default_starts(False, options.starts, rng)
+    # the comparison is only fair when the one-rate model is fitted as hard as the two-rate one
+    one = fit_model(prep, variant, False, starts, options.optimise + 1, options.max_iter, cancel, False)
+    fits[key] = one
+    report((len(options.variants) + 2) / steps, "one-rate model")
+    if modes[0].loglike < one.loglike + 1.0:
+        # the two-rate model nests the one-rate one: ending below it means a poor optimum; restart
+        # from the one-rate solution with a small slow state
+        embed = to_theta(one.params | {"c": 1e-4, "slow_leak": 1e-5, "q_s": 1e-6}, TWO_RATE)
+        again = fit_model(prep, variant, True, [embed], 1, options.max_iter, cancel, False)
+        modes = _select_modes(prep, [again] + modes, modes[0].evaluations, options, cancel)
+        fits[_key(variant, True)] = modes[0]
+    return variant, modes, fits
+
+
+def _refit_warm(prep: Prepared, warm: dict, options: Options, cancel, report: Progress,
+                steps: int) -> tuple[str, list[ModelFit], dict[str, ModelFit]] | None:
+    """Refit from a cached result's optima; None (refit cold) when another variant now fits better
+    or the two-rate optimum falls below the one-rate model it nests."""
+    variant = warm["variant"]
+    fits: dict[str, ModelFit] = {}
+    found = [fit_model(prep, variant, True, [np.asarray(t)], 1, options.max_iter, cancel, False)
+             for t in warm["modes"]]
+    report(1 / steps, f"two-rate model, {variant} variant, from the cached fit")
+    for other in options.variants:
+        if other != variant:
+            fits[_key(other, True)] = fit_model(prep, other, True, [np.asarray(warm[_key(other, True)])], 1,
+                                                options.race_iter // 3, cancel, False)
+            if fits[_key(other, True)].loglike > max(f.loglike for f in found):
+                return None
+    modes = _select_modes(prep, found, 0, options, cancel)
+    fits[_key(variant, True)] = modes[0]
+    key = _key(variant, False)
+    fits[key] = fit_model(prep, variant, False, [np.asarray(warm[key])], 1, options.max_iter, cancel, False)
+    report((steps - 1) / steps, "one-rate model, from the cached fit")
+    if modes[0].loglike < fits[key].loglike + 1.0:  # a poor optimum of the nesting model: refit cold
+        return None
+    return variant, modes, fits
+
+
+def _select_modes(prep: Prepared, found: list[ModelFit], spent: int, options: Options,
+                  cancel) -> list[ModelFit]:
+    """Converged, distinct optima within ``mode_margin`` of the best, best first, with curvature."""
+    found = sorted(found, key=lambda f: -f.loglike)
+    best = found[0]
+    modes = [best]
+    for f in found[1:]:
+        distinct = all(np.max(np.abs(f.theta - m.theta)) > 0.5 for m in modes)
+        if f.converged and distinct and best.loglike - f.loglike < options.mode_margin:
+            modes.append(f)
+    spent += sum(f.evaluations for f in found)
+    modes = [with_curvature(prep, m, cancel) for m in modes]
+    return [replace(modes[0], evaluations=spent + modes[0].evaluations - best.evaluations)] + modes[1:]
+
+
+def consolidation_block(result: ConsolidationResult, aic_margin: float = 10.0) -> dict:
+    """The report's ``consolidation`` block (CONTRACTS.md section 5) plus extra keys."""
+    last = result.sessions[-1] if result.sessions else SessionEstimate(0, 0.0, 0.0, 1.0, result.status)
+    block: dict = {
+        "session": last.session if result.sessions else None,
+        "estimate": last.estimate,
+        "low": last.low,
+        "high": last.high,
+        "status": last.status,
+        "reason": result.reason,
+        "caveat": CAVEAT,
+        "trajectory": [
+            {"session": s.session, "estimate": s.estimate, "low": s.low, "high": s.high, "status": s.status}
+            for s in result.sessions
+        ],
+        "trials": result.n_trials,
+        "dropped_trials": result.dropped_trials,
+        "notes": list(result.notes),
+    }
+    if result.two_rate is not None and result.one_rate is not None:
+        block["comparison"] = {
+            "variant": result.two_rate.variant,
+            "variant_loglikes": result.variant_loglikes,
+            "one_rate_loglike": result.one_rate.loglike,
+            "two_rate_loglike": result.two_rate.loglike,
+            "delta_aic": result.delta_aic,
+            "criterion": f"two-rate preferred when AIC(one-rate) - AIC(two-rate) >= {aic_margin:g}",
+            "two_rate_preferred": bool(result.delta_aic is not None and result.delta_aic >= aic_margin),
+            "converged": result.two_rate.converged,
+            "parameters": result.two_rate.params,
+            "one_rate_parameters": {k: result.one_rate.params[k] for k in ONE_RATE},
+        }
+    if result.forecast is not None:
+        f = result.forecast
+        block["forecast"] = {
+            "level": f.level, "reached": f.reached, "sessions_low": f.sessions_low,
+            "sessions_median": f.sessions_median, "sessions_high": f.sessions_high, "horizon": f.horizon,
+            "trials_per_session": f.trials_per_session, "break_hours": f.break_hours,
+        }
+    return block

@@ -1,0 +1,185 @@
+"""Maximum-likelihood fit of the learning models, with curvature-based parameter uncertainty.
+
+Rule: the profile log-likelihood (offset, warm-up size and noise scale profiled
+out exactly) is maximised over the transformed parameters by L-BFGS-B with
+forward-difference gradients, from several starts (a warm start from a cached
+fit first when given); the best optimum is kept.  A fit is "converged" when the
+optimiser reports success and the curvature (a forward-difference Hessian) is
+that of a maximum; otherwise the reason is kept.  Parameter uncertainty is the
+Laplace approximation N(theta_hat, H^-1) on the transformed scale; flat
+directions get a floor curvature so that their draws spread over the whole
+range (wide, never falsely narrow).  Every likelihood evaluation checks the
+cancel callback.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from monitor.core.consolidation_model import (
+    ONE_RATE,
+    TWO_RATE,
+    Evaluation,
+    Prepared,
+    evaluate,
+    to_natural,
+    to_theta,
+)
+
+THETA_BOUND = 9.0  # transformed parameters stay in [-9, 9] (ranges' ends to within ~1e-4)
+CURVATURE_FLOOR = 1e-2  # a flat direction still gets a variance of at most 100 on theta's scale
+
+
+class Cancelled(Exception):
+    """Raised inside a fit when the cancel callback says so."""
+
+
+@dataclass(frozen=True)
+class ModelFit:
+    """One fitted model (variant x one/two-rate)."""
+
+    variant: str
+    two_rate: bool
+    theta: np.ndarray
+    params: dict[str, float]
+    loglike: float
+    n_params: int  # including the profiled offsets and noise scale (for AIC)
+    converged: bool
+    reason: str
+    cov_theta: np.ndarray | None
+    evaluations: int
+
+    @property
+    def aic(self) -> float:
+        return 2.0 * self.n_params - 2.0 * self.loglike
+
+
+class Objective:
+    """Negative profile log-likelihood on the transformed scale, with a counter and cancel check."""
+
+    def __init__(self, prep: Prepared, variant: str, two_rate: bool, cancel: Callable[[], bool] | None):
+        self.prep, self.variant, self.two_rate, self.cancel = prep, variant, two_rate, cancel
+        self.names = TWO_RATE if two_rate else ONE_RATE
+        self.evaluations = 0
+
+    def evaluate(self, theta: np.ndarray) -> Evaluation:
+        if self.cancel is not None and self.cancel():
+            raise Cancelled()
+        self.evaluations += 1
+        return evaluate(self.prep, to_natural(theta, self.names), self.variant, self.two_rate)
+
+    def __call__(self, theta: np.ndarray) -> float:
+        try:
+            value = -self.evaluate(theta).profiled.loglike
+        except (np.linalg.LinAlgError, FloatingPointError, ValueError):
+            return 1e300
+        return value if np.isfinite(value) else 1e300
+
+    def value_and_grad(self, theta: np.ndarray, step: float = 1e-6) -> tuple[float, np.ndarray]:
+        f0 = self(theta)
+        grad = np.empty(len(theta))
+        for i in range(len(theta)):
+            t = theta.copy()
+            t[i] += step
+            grad[i] = (self(t) - f0) / step
+        return f0, grad
+
+    def hessian(self, theta: np.ndarray, step: float = 1e-2) -> np.ndarray:
+        """Forward second differences: (p + 1)(p + 2) / 2 evaluations."""
+        p = len(theta)
+        f0 = self(theta)
+        single = np.empty(p)
+        for i in range(p):
+            t = theta.copy()
+            t[i] += step
+            single[i] = self(t)
+        hess = np.empty((p, p))
+        for i in range(p):
+            for j in range(i, p):
+                t = theta.copy()
+                t[i] += step
+                t[j] += step
+                hess[i, j] = hess[j, i] = (self(t) - single[i] - single[j] + f0) / step**2
+        return hess
+
+
+def default_starts(two_rate: bool, count: int, rng: np.random.Generator) -> list[np.ndarray]:
+    """A fixed central start, then random starts spread over the transformed box."""
+    if two_rate:
+        base = to_theta({"a_f": 0.9, "b_f": 0.05, "c": 1e-3, "slow_leak": 1e-4, "tau_b": 24.0,
+                         "q_f": 1e-3, "q_s": 1e-5}, TWO_RATE)
+    else:
+        base = to_theta({"a_f": 0.95, "b_f": 0.05, "tau_b": 24.0, "q_f": 1e-3}, ONE_RATE)
+    starts = [base]
+    if not two_rate:  # a slow, well-retained single process: where one-rate fits of long series end
+        starts.append(to_theta({"a_f": 0.9995, "b_f": 0.002, "tau_b": 1000.0, "q_f": 1e-4}, ONE_RATE))
+    for _ in range(max(count - len(starts), 0)):
+        starts.append(np.clip(base + rng.normal(0.0, 1.5, len(base)), -THETA_BOUND + 1, THETA_BOUND - 1))
+    return starts
+
+
+def fit_model(
+    prep: Prepared,
+    variant: str,
+    two_rate: bool,
+    starts: list[np.ndarray],
+    optimise: int = 2,
+    max_iter: int = 80,
+    cancel: Callable[[], bool] | None = None,
+    curvature: bool = True,
+) -> ModelFit:
+    """Screen all starts by likelihood, optimise the best ``optimise`` of them, keep the best.
+
+    With ``curvature`` the Laplace covariance is computed too (see :func:`with_curvature`).
+    """
+    from scipy.optimize import minimize
+
+    obj = Objective(prep, variant, two_rate, cancel)
+    screened = sorted(starts, key=lambda t: obj(np.asarray(t, float)))
+    best = None
+    bounds = [(-THETA_BOUND, THETA_BOUND)] * len(obj.names)
+    for start in screened[:optimise]:
+        res = minimize(obj.value_and_grad, np.asarray(start, float), jac=True, method="L-BFGS-B",
+                       bounds=bounds, options={"maxiter": max_iter, "ftol": 1e-9, "gtol": 1e-3})
+        if best is None or res.fun < best.fun:
+            best = res
+    theta = np.asarray(best.x, float)
+    loglike = -float(best.fun)
+    converged, reason = bool(best.success) and np.isfinite(loglike), "" if best.success else str(best.message)
+    if not (np.isfinite(loglike) and loglike > -1e299):
+        converged, reason = False, "likelihood not finite"
+    fit = ModelFit(variant, two_rate, theta, to_natural(theta, obj.names), loglike, len(obj.names) + prep.effects.shape[0] + 1,
+                   converged, reason, None, obj.evaluations)
+    return with_curvature(prep, fit, cancel) if curvature and converged else fit
+
+
+def with_curvature(prep: Prepared, fit: ModelFit, cancel: Callable[[], bool] | None = None) -> ModelFit:
+    """The fit with its Laplace covariance; not converged when the curvature is not a maximum's."""
+    obj = Objective(prep, fit.variant, fit.two_rate, cancel)
+    cov, problem = laplace_covariance(obj.hessian(fit.theta))
+    converged = fit.converged and not problem
+    reason = problem or fit.reason
+    return ModelFit(fit.variant, fit.two_rate, fit.theta, fit.params, fit.loglike, fit.n_params, converged,
+                    reason, cov, fit.evaluations + obj.evaluations)
+
+
+def laplace_covariance(hess: np.ndarray) -> tuple[np.ndarray, str]:
+    """Inverse curvature with a floor on flat directions; a reason when it is not a maximum."""
+    sym = 0.5 * (hess + hess.T)
+    if not np.all(np.isfinite(sym)):
+        return np.eye(len(sym)) / CURVATURE_FLOOR, "curvature not finite"
+    vals, vecs = np.linalg.eigh(sym)
+    reason = ""
+    if vals.min() < -0.05 * max(abs(vals).max(), 1.0):
+        reason = "not at a maximum (negative curvature)"
+    vals = np.maximum(vals, CURVATURE_FLOOR)
+    return (vecs / vals) @ vecs.T, reason
+
+
+def draw_thetas(fit: ModelFit, count: int, rng: np.random.Generator) -> np.ndarray:
+    """Parameter draws from the Laplace approximation, kept inside the transformed box."""
+    cov = fit.cov_theta if fit.cov_theta is not None else np.eye(len(fit.theta)) / CURVATURE_FLOOR
+    draws = rng.multivariate_normal(fit.theta, cov, size=count, method="eigh")
+    return np.clip(draws, -THETA_BOUND, THETA_BOUND)

@@ -1,0 +1,407 @@
+"""Exact Kalman-filter likelihood for two-state linear-Gaussian learning models.
+
+Rule: the model is, per trial n of a session,
+    x[n+1] = F x[n] + B u[n] + w[n],   w ~ N(0, Q)
+    y[n]   = H x[n] + v[n],            v ~ N(0, R)
+with a known input u (learning from an observed result is a known input), and
+between sessions x[start of next] = D_k x[end of previous] (a break transition
+per session).  Several "columns" of (y, u) are filtered at once with the same
+gains: the filter is linear in the data, so regression effects in the
+observation (an offset, a warm-up term) are innovations of extra columns and can
+be profiled out by generalised least squares (de Jong's augmented filter).
+
+Speed: every session is filtered with the steady-state gain (the fixed point of
+the Riccati recursion, found by the doubling algorithm), which is exact for a
+session whose prior covariance is the steady one; the mean recursion is then a
+second-order linear filter that ``scipy.signal.lfilter`` runs on all sessions at
+once.  The session's true prior covariance P_inf + dP is corrected for exactly
+with the determinant lemma and the Woodbury identity (2x2 algebra per session),
+and each session's means are affine in its start mean, so only short loops over
+sessions are sequential.  The covariance need not settle within a session (it
+does not when the slow state's noise is small); the result equals the plain
+trial-by-trial filter to rounding.  A one-state model is the two-state one with
+the second state held at zero (zero row/column in F, B, Q and the initial
+covariance).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+LOG_2PI = float(np.log(2.0 * np.pi))
+
+
+@dataclass(frozen=True)
+class StateSpace:
+    """Matrices of the two-state model (see module docstring)."""
+
+    transition: np.ndarray  # F (2, 2)
+    input_gain: np.ndarray  # B (2,)
+    design: np.ndarray  # H (2,)
+    obs_var: float  # R
+    state_cov: np.ndarray  # Q (2, 2)
+    init_mean: np.ndarray  # mean of x before the first trial (2,)
+    init_cov: np.ndarray  # covariance of x before the first trial (2, 2)
+
+
+@dataclass(frozen=True)
+class Layout:
+    """Session layout of a trial series: contiguous blocks of trials."""
+
+    starts: np.ndarray  # (S,) index of each session's first trial
+    lengths: np.ndarray  # (S,) trials per session (>= 1)
+    breaks: np.ndarray  # (S, 2, 2) transition applied before each session (first ignored)
+
+
+@dataclass(frozen=True)
+class FilterOutput:
+    """Sufficient statistics of the exact filter for every data column."""
+
+    gram: np.ndarray  # (C, C) sum over trials of v_c v_d / S (exact innovations v, variance S)
+    logdet: float  # sum over trials of ln S
+    n_obs: int
+    end_means: np.ndarray  # (C, S, 2) predicted state after each session's last trial
+    end_covs: np.ndarray  # (S, 2, 2) its covariance (before the break)
+
+
+def steady_covariance(model: StateSpace, iterations: int = 80) -> np.ndarray:
+    """Fixed point of the predicted-covariance Riccati recursion (structure-preserving doubling).
+
+    Iterates A <- A W^-1 A, G <- G + A W^-1 G A', X <- X + A' X W^-1 A with
+    W = I + G X, from A = F', G = H'H/R, X = Q; X converges quadratically to P_inf.
+    Written out for 2x2 matrices in floats (it runs once per likelihood).
+    """
+    (f11, f12), (f21, f22) = model.transition.tolist()
+    a11, a12, a21, a22 = f11, f21, f12, f22  # A = F'
+    h1, h2 = model.design.tolist()
+    r = float(model.obs_var)
+    g11, g12, g22 = h1 * h1 / r, h1 * h2 / r, h2 * h2 / r
+    (x11, x12), (_, x22) = model.state_cov.tolist()
+    for _ in range(iterations):
+        w11, w12 = 1.0 + g11 * x11 + g12 * x12, g11 * x12 + g12 * x22
+        w21, w22 = g12 * x11 + g22 * x12, 1.0 + g12 * x12 + g22 * x22
+        det = w11 * w22 - w12 * w21
+        i11, i12, i21, i22 = w22 / det, -w12 / det, -w21 / det, w11 / det
+        # V = W^-1 A
+        v11, v12 = i11 * a11 + i12 * a21, i11 * a12 + i12 * a22
+        v21, v22 = i21 * a11 + i22 * a21, i21 * a12 + i22 * a22
+        # X' = X + A' X V
+        xv11, xv12 = x11 * v11 + x12 * v21, x11 * v12 + x12 * v22
+        xv21, xv22 = x12 * v11 + x22 * v21, x12 * v12 + x22 * v22
+        n11 = x11 + a11 * xv11 + a21 * xv21
+        n12 = x12 + a11 * xv12 + a21 * xv22
+        n22 = x22 + a12 * xv12 + a22 * xv22
+        # G' = G + A W^-1 G A' ; U = W^-1 G
+        u11, u12 = i11 * g11 + i12 * g12, i11 * g12 + i12 * g22
+        u21, u22 = i21 * g11 + i22 * g12, i21 * g12 + i22 * g22
+        au11, au12 = a11 * u11 + a12 * u21, a11 * u12 + a12 * u22
+        au21, au22 = a21 * u11 + a22 * u21, a21 * u12 + a22 * u22
+        g11, g12, g22 = (g11 + au11 * a11 + au12 * a12, g12 + au11 * a21 + au12 * a22,
+                         g22 + au21 * a21 + au22 * a22)
+        # A' = A W^-1 A = A V
+        a11, a12, a21, a22 = (a11 * v11 + a12 * v21, a11 * v12 + a12 * v22,
+                              a21 * v11 + a22 * v21, a21 * v12 + a22 * v22)
+        change = max(abs(n11 - x11), abs(n12 - x12), abs(n22 - x22))
+        x11, x12, x22 = n11, n12, n22
+        if change <= 1e-16 * max(abs(x11), abs(x22), 1e-300):
+            break
+    return np.array([[x11, x12], [x12, x22]])
+
+
+def _powers(m: np.ndarray, count: int) -> np.ndarray:
+    """M**t for t = 0..count-1 as (count, 2, 2), by the Cayley-Hamilton recurrence."""
+    from scipy.signal import lfilter
+
+    tr, det = m[0, 0] + m[1, 1], m[0, 0] * m[1, 1] - m[0, 1] * m[1, 0]
+    x = np.zeros((4, max(count, 2)))
+    x[:, 0] = np.eye(2).ravel()
+    x[:, 1] = m.ravel() - tr * np.eye(2).ravel()
+    out = lfilter([1.0], [1.0, -tr, det], x, axis=-1)[:, :count]
+    return out.T.reshape(count, 2, 2)
+
+
+def _steady_response(m: np.ndarray, drive: np.ndarray) -> np.ndarray:
+    """Zero-start states z[t+1] = M z[t] + drive[t] for t = 0..T-1; drive (2, ..., T) -> (2, ..., T+1).
+
+    Each state component is a second-order all-pole filter of the drive:
+    (z^2 - tr z + det) z_t = (z I + adj0) drive (Cayley-Hamilton).
+    """
+    from scipy.signal import lfilter
+
+    tr, det = m[0, 0] + m[1, 1], m[0, 0] * m[1, 1] - m[0, 1] * m[1, 0]
+    c1, c2 = drive[0], drive[1]
+    shape = c1.shape[:-1] + (c1.shape[-1] + 1,)
+    w1, w2 = np.zeros(shape), np.zeros(shape)
+    w1[..., 1:] = c1
+    w2[..., 1:] = c2
+    w1[..., 2:] += -m[1, 1] * c1[..., :-1] + m[0, 1] * c2[..., :-1]
+    w2[..., 2:] += m[1, 0] * c1[..., :-1] - m[0, 0] * c2[..., :-1]
+    return lfilter([1.0], [1.0, -tr, det], np.stack([w1, w2]), axis=-1)
+
+
+def _covariance_chain(
+    breaks: np.ndarray,
+    lengths: np.ndarray,
+    init_cov: np.ndarray,
+    p_inf: np.ndarray,
+    cum_oo: np.ndarray,
+    g_end: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """Sequential 2x2 recursion over sessions, in floats.
+
+    Per session: dP = P0 - P_inf, L = I + dP A, W = L^-1 dP, ln det L, and the
+    end covariance P_inf + G W G'; the next prior is D P_end D'.
+    """
+    n_sess = len(lengths)
+    w_all = np.empty((n_sess, 2, 2))
+    end_covs = np.empty((n_sess, 2, 2))
+    (q11, q12), (_, q22) = p_inf.tolist()
+    (p11, p12), (_, p22) = init_cov.tolist()
+    brk = breaks.reshape(n_sess, 4).tolist()
+    aa = cum_oo[lengths].reshape(n_sess, 4).tolist()
+    gg = g_end[lengths].reshape(n_sess, 4).tolist()
+    logdet = 0.0
+    e11 = e12 = e22 = 0.0
+    for k in range(n_sess):
+        if k:
+            d11, d12, d21, d22 = brk[k]
+            t11, t12 = d11 * e11 + d12 * e12, d11 * e12 + d12 * e22
+            t21, t22 = d21 * e11 + d22 * e12, d21 * e12 + d22 * e22
+            p11, p12, p22 = t11 * d11 + t12 * d12, t11 * d21 + t12 * d22, t21 * d21 + t22 * d22
+        x11, x12, x22 = p11 - q11, p12 - q12, p22 - q22
+        a11, a12, _, a22 = aa[k]
+        l11, l12 = 1.0 + x11 * a11 + x12 * a12, x11 * a12 + x12 * a22
+        l21, l22 = x12 * a11 + x22 * a12, 1.0 + x12 * a12 + x22 * a22
+        det = l11 * l22 - l12 * l21
+        logdet += math.log(det)
+        w11 = (l22 * x11 - l12 * x12) / det
+        w12 = (l22 * x12 - l12 * x22) / det
+        w22 = (l11 * x22 - l21 * x12) / det
+        w_all[k] = ((w11, w12), (w12, w22))
+        g11, g12, g21, g22 = gg[k]
+        u11, u12 = g11 * w11 + g12 * w12, g11 * w12 + g12 * w22
+        u21, u22 = g21 * w11 + g22 * w12, g21 * w12 + g22 * w22
+        e11 = q11 + u11 * g11 + u12 * g12
+        e12 = q12 + u11 * g21 + u12 * g22
+        e22 = q22 + u21 * g21 + u22 * g22
+        end_covs[k] = ((e11, e12), (e12, e22))
+    return w_all, end_covs, logdet
+
+
+def _mean_chain(breaks: np.ndarray, trans: np.ndarray, const: np.ndarray, init_mean: np.ndarray) -> np.ndarray:
+    """Start means of every session and column: m0[k+1] = D[k+1] (T[k] m0[k] + c[k]), in floats."""
+    n_sess, n_cols, _ = const.shape
+    brk = breaks.reshape(n_sess, 4).tolist()
+    trn = trans.reshape(n_sess, 4).tolist()
+    cst = const.tolist()
+    out = np.empty((n_sess, n_cols, 2))
+    cur = [[0.0, 0.0] for _ in range(n_cols)]
+    cur[0] = init_mean.tolist()
+    for k in range(n_sess):
+        if k:
+            d11, d12, d21, d22 = brk[k]
+            cur = [[d11 * x1 + d12 * x2, d21 * x1 + d22 * x2] for x1, x2 in cur]
+        out[k] = cur
+        t11, t12, t21, t22 = trn[k]
+        cur = [[t11 * x1 + t12 * x2 + c1, t21 * x1 + t22 * x2 + c2] for (x1, x2), (c1, c2) in zip(cur, cst[k])]
+    return out
+
+
+@dataclass(frozen=True)
+class Padded:
+    """Per-session rows of the data (S, T+1), zero after each session's end; reusable across fits."""
+
+    y: np.ndarray
+    u: np.ndarray
+    valid: np.ndarray  # (S, T) True on real trials
+    u_is_minus_y: bool
+    y_right: np.ndarray  # (S, T): each session's data ending at the last column
+    u_right: np.ndarray
+
+
+def pad(layout: Layout, obs: np.ndarray, inputs: np.ndarray) -> Padded:
+    """Lay the trial series out as one zero-padded row per session (left- and right-aligned)."""
+    obs, inputs = np.asarray(obs, float), np.asarray(inputs, float)
+    lengths = layout.lengths.astype(np.intp)
+    starts = layout.starts.astype(np.intp)
+    t_max = int(lengths.max())
+    grid = np.arange(t_max + 1)
+    valid = grid[None, :] < lengths[:, None]
+    gidx = np.minimum(starts[:, None] + grid[None, :], len(obs) - 1)
+    shift = grid[None, :t_max] - (t_max - lengths[:, None])  # position within the session, right-aligned
+    valid_r = shift >= 0
+    ridx = np.clip(starts[:, None] + shift, 0, len(obs) - 1)
+    return Padded(
+        obs[gidx] * valid, inputs[gidx] * valid, valid[:, :t_max], bool(np.array_equal(inputs, -obs)),
+        obs[ridx] * valid_r, inputs[ridx] * valid_r,
+    )
+
+
+def kalman_filter(
+    model: StateSpace,
+    layout: Layout,
+    obs: np.ndarray,
+    inputs: np.ndarray,
+    effects: np.ndarray | None = None,
+    padded: Padded | None = None,
+) -> FilterOutput:
+    """Exact filter statistics of the data (column 0) and of unit observation effects.
+
+    ``obs``, ``inputs``: (N,) per trial.  ``effects``: (E, T) regressors indexed by
+    the trial's position within its session (an offset is a row of ones, a
+    warm-up term a decaying row); column e + 1 of the output is the filter of
+    an observation offset of -effects[e] with no input, so the innovations for
+    effect sizes b are v0 + sum b_e v_e.  Column 0 starts from ``init_mean``,
+    the effect columns from zero.  ``padded`` (from :func:`pad`) saves laying
+    out the same data again on every call.
+
+    Method: each session is filtered with the steady-state gain (an exact
+    filter for a session whose prior covariance is the steady one), then
+    corrected exactly for its true prior covariance P0 = P_inf + dP: the
+    observations' covariance differs by O dP O' with O[j] = H F^j, so the
+    determinant lemma and the Woodbury identity give the exact
+    log-likelihood, innovation quadratic forms and end state from 2x2
+    quantities per session.
+    """
+    from scipy.signal import lfilter
+
+    n = len(obs)
+    starts, lengths = layout.starts.astype(np.intp), layout.lengths.astype(np.intp)
+    n_sess = len(starts)
+    t_max = int(lengths.max())
+    eff = np.zeros((0, t_max)) if effects is None else np.asarray(effects, float)[:, :t_max]
+    n_eff = eff.shape[0]
+    f, bvec, h = model.transition, model.input_gain, model.design
+    p_inf = steady_covariance(model)
+    s_inf = float(h @ p_inf @ h + model.obs_var)
+    k_inf = p_inf @ h / s_inf
+    m = f @ (np.eye(2) - np.outer(k_inf, h))
+    gain = f @ k_inf
+
+    # shared sequences over the position t within a session
+    m_pow = _powers(m, t_max + 1)
+    f_pow = _powers(f, t_max + 1)
+    h_m = np.einsum("a,tab->tb", h, m_pow[:t_max])  # H M^t
+    o_rows = np.einsum("a,tab->tb", h, f_pow[:t_max])  # O[t] = H F^t
+    # steady filter of the columns O (2 of them) and of the effects (data -eff, no input)
+    shared_y = np.concatenate([o_rows.T, -eff])  # (2 + E, T)
+    shared_state = _steady_response(m, gain[:, None, None] * shared_y[None])  # (2, 2 + E, T + 1)
+    shared_a = shared_y - np.einsum("a,act->ct", h, shared_state[:, :, :t_max])  # innovations
+    o_tilde, eff_a = shared_a[:2].T, shared_a[2:]  # (T, 2), (E, T)
+    zeta_end = np.moveaxis(shared_state[:, :2], -1, 0)  # (T+1, 2, 2)
+    g_end = f_pow - zeta_end  # F^n - zeta_n
+    eff_end = np.moveaxis(shared_state[:, 2:], -1, 0)  # (T+1, 2, E)
+
+    def cum(x: np.ndarray) -> np.ndarray:
+        out = np.zeros((t_max + 1,) + x.shape[1:])
+        np.cumsum(x, axis=0, out=out[1:])
+        return out / s_inf
+
+    cum_oo = cum(o_tilde[:, :, None] * o_tilde[:, None, :])
+    cum_hh = cum(h_m[:, :, None] * h_m[:, None, :])
+    cum_oh = cum(o_tilde[:, :, None] * h_m[:, None, :])
+    cum_ee = cum(eff_a.T[:, :, None] * eff_a.T[:, None, :])  # (T+1, E, E)
+    cum_eh = cum(eff_a.T[:, :, None] * h_m[:, None, :])  # (T+1, E, 2)
+    cum_eo = cum(eff_a.T[:, :, None] * o_tilde[:, None, :])  # (T+1, E, 2)
+
+    # the data: steady filter from a zero start, all sessions at once (padded)
+    data = padded if padded is not None else pad(layout, obs, inputs)
+    tr, det = m[0, 0] + m[1, 1], m[0, 0] * m[1, 1] - m[0, 1] * m[1, 0]
+    adj0 = np.array([[-m[1, 1], m[0, 1]], [m[1, 0], -m[0, 0]]])
+    den = [1.0, -tr, det]
+
+    def numerator(proj: np.ndarray, vec: np.ndarray) -> list[float]:
+        return [0.0, float(proj @ vec), float(proj @ adj0 @ vec)]
+
+    if data.u_is_minus_y:
+        h_psi = lfilter(numerator(h, gain - bvec), den, data.y, axis=-1)
+    else:
+        h_psi = lfilter(numerator(h, gain), den, data.y, axis=-1)
+        h_psi += lfilter(numerator(h, bvec), den, data.u, axis=-1)
+    a = data.y[:, :t_max] - h_psi[:, :t_max]
+    a *= data.valid
+    s_aa = np.einsum("st,st->s", a, a) / s_inf
+    sums = a @ np.concatenate([eff_a.T, h_m, o_tilde], axis=1) / s_inf
+    s_ae, s_ah, s_ao = sums[:, :n_eff], sums[:, n_eff : n_eff + 2], sums[:, n_eff + 2 :]
+    # end states: with the sessions right-aligned the weights M^(T-1-t) are shared
+    back = m_pow[t_max - 1 :: -1]  # (T, 2, 2): M^(T-1-t)
+    if data.u_is_minus_y:
+        psi_end = data.y_right @ (back @ (gain - bvec))
+    else:
+        psi_end = data.y_right @ (back @ gain) + data.u_right @ (back @ bvec)
+
+    # covariance chain (data-free): prior of each session, correction W, end covariance
+    w_all, end_covs, logdet_corr = _covariance_chain(
+        layout.breaks, lengths, np.asarray(model.init_cov, float), p_inf, cum_oo, g_end
+    )
+    logdet = n * np.log(s_inf) + logdet_corr
+
+    # mean chain: per column, end = T_k m0 + c_k (affine in the session's start mean)
+    n_cols = 1 + n_eff
+    gw = np.einsum("sab,sbc->sac", g_end[lengths], w_all)  # G W
+    trans = m_pow[lengths] - np.einsum("sab,sbc->sac", gw, cum_oh[lengths])  # (S, 2, 2)
+    const = np.empty((n_sess, n_cols, 2))
+    const[:, 0] = psi_end + np.einsum("sab,sb->sa", gw, s_ao)
+    const[:, 1:] = np.moveaxis(eff_end[lengths], 1, 2) + np.einsum("sab,seb->sea", gw, cum_eo[lengths])
+    start_means = _mean_chain(layout.breaks, trans, const, np.asarray(model.init_mean, float))
+    end_means = np.einsum("sab,scb->sca", trans, start_means) + const
+
+    # exact quadratic forms of the innovations, all sessions at once
+    hh, oh = cum_hh[lengths], cum_oh[lengths]
+    quad_a = np.empty((n_sess, n_cols, n_cols))  # sum a_c a_d / s for the zero-start responses
+    quad_a[:, 0, 0] = s_aa
+    quad_a[:, 0, 1:] = s_ae
+    quad_a[:, 1:, 0] = s_ae
+    quad_a[:, 1:, 1:] = cum_ee[lengths]
+    ah = np.empty((n_sess, n_cols, 2))  # sum a_c (H M^t) / s
+    ah[:, 0], ah[:, 1:] = s_ah, cum_eh[lengths]
+    ao = np.empty((n_sess, n_cols, 2))  # sum a_c O~_t / s
+    ao[:, 0], ao[:, 1:] = s_ao, cum_eo[lengths]
+    m0 = start_means
+    cross = np.einsum("scb,sdb->scd", ah, m0)
+    b = ao - np.einsum("sab,scb->sca", oh, m0)  # (S, C, 2): O~' v / s
+    gram = (
+        quad_a - cross - np.transpose(cross, (0, 2, 1))
+        + np.einsum("sca,sab,sdb->scd", m0, hh, m0)
+        - np.einsum("sca,sab,sdb->scd", b, w_all, b)
+    ).sum(0)
+    return FilterOutput(gram, float(logdet), n, np.transpose(end_means, (1, 0, 2)), end_covs)
+
+
+def loglike(out: FilterOutput) -> float:
+    """Gaussian log-likelihood of column 0: -1/2 sum[ln(2 pi S) + v^2/S]."""
+    return float(-0.5 * (out.n_obs * LOG_2PI + out.logdet + out.gram[0, 0]))
+
+
+@dataclass(frozen=True)
+class Profiled:
+    """Log-likelihood with regression effects (and optionally the scale) profiled out."""
+
+    loglike: float
+    coef: np.ndarray  # effects of columns 1.. (observation offsets)
+    scale: float  # multiplies every variance (1 when not profiled)
+
+
+def profile_effects(out: FilterOutput, profile_scale: bool) -> Profiled:
+    """Maximise over the effects of columns 1.. (GLS) and, if asked, a common variance scale.
+
+    Column c >= 1 holds the filter of a unit effect, so the innovations for
+    effects b are v0 + sum_c b_c v_c.  With ``profile_scale`` every variance of
+    the model is read as relative to R and the scale is its ML value RSS / N.
+    """
+    gram, n = out.gram, out.n_obs
+    if gram.shape[0] > 1:
+        coef = -np.linalg.solve(gram[1:, 1:], gram[1:, 0])
+        rss = float(gram[0, 0] + gram[1:, 0] @ coef)
+    else:
+        coef, rss = np.zeros(0), float(gram[0, 0])
+    rss = max(rss, 1e-300)
+    if profile_scale:
+        scale = rss / n
+        ll = -0.5 * (n * LOG_2PI + n * np.log(scale) + out.logdet + n)
+    else:
+        scale = 1.0
+        ll = -0.5 * (n * LOG_2PI + out.logdet + rss)
+    return Profiled(float(ll), coef, float(scale))
