@@ -21,7 +21,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from drivers.clock import Unwrapper
 from drivers.config import ConfigError, TomlFile
-from drivers.wire import EVENT_SPECS, KNOWN_EVENTS, Comment, Event, LineDecoder, Record, check_args
+from drivers.wire import EVENT_SPECS, KNOWN_EVENTS, MAX_TIME_US, Comment, Event, LineDecoder, Record, check_args
 
 UNITS_US = {"us": 1, "ms": 1000, "s": 1_000_000}
 ROLES_REQUIRED = ("device_time", "event")
@@ -225,6 +225,8 @@ class MappedDecoder(LineDecoder):
             value = int(text)
             if self._limit and value >= self._limit:
                 return f"device time {value} is not below 2^{self.mapping.wrap_bits}"
+            if value * self._factor >= MAX_TIME_US:
+                return f"device time {value} is beyond 2^62 us"
             return value
         if not self._limit:
             try:
@@ -232,7 +234,7 @@ class MappedDecoder(LineDecoder):
             except ValueError:
                 pass
             else:
-                if value_f >= 0:
+                if 0 <= value_f * self._factor < MAX_TIME_US:
                     return value_f
         return f"device time {text!r} is not an unsigned number"
 

@@ -21,6 +21,9 @@ from drivers.clock import Unwrapper
 
 WIRE_VERSION = 1
 MAX_LINE = 256  # bytes of line content, terminator excluded (contract: at most 256)
+# Device times must fit a signed 64-bit integer (the store's integers) with room
+# for unwrapping: 2^62 us is about 146,000 years, beyond any real counter.
+MAX_TIME_US = 1 << 62
 HEADER_TAG = b"# rigside-wire"
 
 CLOCK_UNITS_US = {"us": 1, "ms": 1000}
@@ -120,6 +123,22 @@ def _event_name(word: bytes) -> str | None:
         if len(_NAME_CACHE) < _NAME_CACHE_MAX:
             _NAME_CACHE[word] = name
         return name
+
+
+_ARGS_CACHE: dict[tuple[str, bytes], tuple[str | None, tuple[str, ...]]] = {}
+_ARGS_CACHE_MAX = 65536  # argument texts repeat (lever 1, reward 30); noise must not grow it
+
+
+def _parse_args(name: str, text: bytes) -> tuple[str | None, tuple[str, ...]]:
+    """(why the arguments do not fit, or None; the arguments as text). Cached: hot path."""
+    key = (name, text)
+    found = _ARGS_CACHE.get(key)
+    if found is None:
+        args_b = [text.strip()] if name == "note" else text.split()
+        found = (check_args(name, args_b), tuple(a.decode("ascii") for a in args_b))
+        if len(_ARGS_CACHE) < _ARGS_CACHE_MAX and name != "note":  # notes rarely repeat
+            _ARGS_CACHE[key] = found
+    return found
 
 
 def check_args(name: str, args: list[bytes]) -> str | None:
@@ -307,6 +326,8 @@ class WireDecoder(LineDecoder):
         raw_time = int(time_text)
         if self._limit and raw_time >= self._limit:
             return Malformed(raw, f"TIME {raw_time} is not below 2^{self.wrap}", line, offset, size)
+        if raw_time * self._unit >= MAX_TIME_US:
+            return Malformed(raw, f"TIME {raw_time} is beyond 2^62 us", line, offset, size)
         name = _event_name(parts[1])
         if name is None:
             return Malformed(raw, "EVENT is not a word", line, offset, size)
@@ -315,11 +336,9 @@ class WireDecoder(LineDecoder):
                 return Malformed(raw, check_args(name, []) or "", line, offset, size)
             args: tuple[str, ...] = ()
         else:
-            args_b = [parts[2].strip()] if name == "note" else parts[2].split()
-            problem = check_args(name, args_b)
+            problem, args = _parse_args(name, parts[2])
             if problem:
                 return Malformed(raw, problem, line, offset, size)
-            args = tuple(a.decode("ascii") for a in args_b)
         return Event(self.unwrapper(raw_time) * self._unit, name, args, raw_time, self.segment, line, offset, size)
 
     def _decode_comment(self, raw: bytes, line: int, offset: int, size: int) -> Record:

@@ -255,3 +255,10 @@ def test_restore_refuses_another_decoders_state():
     mapped = MappedDecoder(parse_mapping('[format]\ndelimiter=";"\n[columns]\ndevice_time=0\nevent=1\n[clock]\nunit="ms"\n[events]\n'))
     with pytest.raises(ValueError, match="mapped"):
         WireDecoder().restore(mapped.state())
+
+
+def test_times_beyond_64_bit_storage_are_malformed():
+    data = encode_header(wrap=0) + b"9" * 40 + b" lick\n" + encode_header(wrap=64) + b"18446744073709551615 lick\n"
+    _, huge, _, wide = decode_all(data)
+    assert isinstance(huge, Malformed) and "2^62" in huge.reason
+    assert isinstance(wide, Malformed) and "2^62" in wide.reason
