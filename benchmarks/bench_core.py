@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 import sys
 import time
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -89,8 +90,23 @@ def best_of(fn, repeats: int) -> float:
     return min(times)
 
 
-def main() -> None:
-    trials = int(sys.argv[1]) if len(sys.argv) > 1 else 30_000
+class CoreTimes(NamedTuple):
+    """One measurement: the finished live session, its events, the timings and the agreement check."""
+
+    protocol: Any
+    live: LiveSession
+    snap: Any
+    events: list[Event]
+    feed_s: float
+    per_event_us: float
+    snapshot_s: float
+    batch_s: float
+    refresh_s: float
+    agree: bool
+
+
+def measure(trials: int = 30_000, repeats: int = 3) -> CoreTimes:
+    """Time the incremental path and the from-scratch refresh over one long session."""
     protocol = parse_protocol(PROTOCOL, "bench.toml")
     events = [r for r in decode_all(session_bytes(trials)) if isinstance(r, Event)]
 
@@ -101,15 +117,31 @@ def main() -> None:
         return live
 
     live = incremental()
-    feed_s = best_of(incremental, 3)
+    feed_s = best_of(incremental, repeats)
     per_event_us = feed_s / len(events) * 1e6
-    snapshot_s = best_of(lambda: [live.snapshot() for _ in range(200)], 3) / 200
-    batch_s = best_of(lambda: batch_refresh(protocol, events), 3)
+    snapshot_s = best_of(lambda: [live.snapshot() for _ in range(200)], repeats) / 200
+    batch_s = best_of(lambda: batch_refresh(protocol, events), repeats)
     refresh_s = snapshot_s + EVENTS_PER_REFRESH * per_event_us / 1e6
     live.finish()  # the batch path closes the last attempt too
     snap, ref = live.snapshot(), batch_refresh(protocol, events)
     agree = snap.hits == ref["hits"] and snap.median_interval_ms == ref["median"] \
         and np.array_equal(snap.linear.today, ref["linear"]) and np.array_equal(snap.log.today, ref["log"])
+    return CoreTimes(protocol, live, snap, events, feed_s, per_event_us, snapshot_s, batch_s, refresh_s, agree)
+
+
+def figures(quick: bool = False) -> list[tuple[str, float, str, str]]:
+    """Table lines for `python -m benchmarks`: (label, value, unit, detail)."""
+    m = measure(repeats=1 if quick else 3)
+    ratio = m.batch_s / m.refresh_s
+    return [(f"incremental vs from scratch at {m.snap.trials} trials", ratio, "x",
+             f"goal >= 100x ({'met' if ratio >= 100 else 'NOT met'}); per refresh {m.refresh_s * 1e6:.0f} us "
+             f"({EVENTS_PER_REFRESH} events at {m.per_event_us:.1f} us + snapshot {m.snapshot_s * 1e6:.0f} us) vs "
+             f"{m.batch_s * 1e3:.0f} ms recomputed; {len(m.events):,} events; results agree: {m.agree}")]
+
+
+def main() -> None:
+    trials = int(sys.argv[1]) if len(sys.argv) > 1 else 30_000
+    protocol, live, snap, events, feed_s, per_event_us, snapshot_s, batch_s, refresh_s, agree = measure(trials)
 
     print(f"session: {snap.trials} trials, {len(events)} events (incremental and batch agree: {agree})")
     print(f"incremental update: {per_event_us:.2f} us per event ({feed_s:.2f} s for all events)")

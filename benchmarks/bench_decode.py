@@ -60,21 +60,29 @@ LR = "lever_up"
 """
 
 
+def figures(quick: bool = False) -> list[tuple[str, float, str, str]]:
+    """Table lines for `python -m benchmarks`: (label, value, unit, detail); best of 3 runs."""
+    lines = 50_000 if quick else 500_000
+    data = session_bytes(lines)
+    mapped = b"".join(f"{i * 1000 % 2**32};{'LP' if i % 2 else 'LR'};1\n".encode() for i in range(lines))
+    out = []
+    for chunk, label in ((4096, "decode, 4 KiB reads"), (64, "decode, 64-byte reads (serial-sized)")):
+        per_s, n = rate(WireDecoder, data, chunk, 3)
+        out.append((label, per_s, "lines/s", f"{n:,} lines of a mixed session, best of 3"))
+    per_s, n = rate(lambda: MappedDecoder(parse_mapping(MAPPING)), mapped, 4096, 3)
+    out.append(("decode mapped format, 4 KiB reads", per_s, "lines/s", f"{n:,} lines, best of 3"))
+    wire_limit = 16 * 115200 / 10 / 16  # 16 ports, 10 bits per byte, ~16-byte lines
+    out.append(("wire limit, 16 ports at 115200 baud", wire_limit, "lines/s", "16-byte lines, 10 bits per byte"))
+    return out
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--quick", action="store_true")
     args = parser.parse_args()
-    lines = 50_000 if args.quick else 500_000
-    data = session_bytes(lines)
-    mapped = b"".join(f"{i * 1000 % 2**32};{'LP' if i % 2 else 'LR'};1\n".encode() for i in range(lines))
     print(f"{'figure':<44} {'value':>12}  unit")
-    for chunk, label in ((4096, "decode, 4 KiB reads"), (64, "decode, 64-byte reads (serial-sized)")):
-        per_s, n = rate(WireDecoder, data, chunk, 3)
-        print(f"{label:<44} {per_s:>12,.0f}  lines/s ({n:,} lines)")
-    per_s, n = rate(lambda: MappedDecoder(parse_mapping(MAPPING)), mapped, 4096, 3)
-    print(f"{'decode mapped format, 4 KiB reads':<44} {per_s:>12,.0f}  lines/s ({n:,} lines)")
-    wire_limit = 16 * 115200 / 10 / 16  # 16 ports, 10 bits per byte, ~16-byte lines
-    print(f"{'wire limit, 16 ports at 115200 baud':<44} {wire_limit:>12,.0f}  lines/s (16-byte lines)")
+    for label, value, unit, detail in figures(args.quick):
+        print(f"{label:<44} {value:>12,.0f}  {unit} ({detail})")
 
 
 if __name__ == "__main__":

@@ -35,6 +35,15 @@ def run_once(animals: int, days: int, seed: int) -> tuple[float, dict]:
     return seconds, figures
 
 
+def figures(quick: bool = False) -> list[tuple[str, float, str, str]]:
+    """Table lines for `python -m benchmarks`: (label, value, unit, detail); one run."""
+    animals, days = (2, 10) if quick else (8, 30)
+    seconds, f = run_once(animals, days, 1)
+    return [(f"simulator history, {animals} animals x {days} days", seconds, "s",
+             f"{f['sessions']} sessions, {f['trials']:,} completed trials, {f['lines']:,} lines "
+             f"({f['lines'] / seconds:,.0f} lines/s)")]
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--animals", type=int, default=8)
