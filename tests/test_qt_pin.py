@@ -20,5 +20,6 @@ def test_void_qt_calls_do_not_drop_none_refcount():
     for i in range(500):
         obj.setObjectName(f"tile{i % 7}")  # a Qt method that returns nothing
     after = sys.getrefcount(None)
-    # 6.12.0 would lose one reference per call: 500 here. Allow small noise from other code.
-    assert after >= before - 5
+    # 6.12.0 would lose one reference per call: 500 here. Threads of earlier tests still ending
+    # can move None's count by a few dozen, so allow 100.
+    assert after >= before - 100

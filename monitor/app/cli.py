@@ -24,6 +24,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "export": ("monitor.app.commands.export", "events or trials to CSV, or everything to NWB"),
     "decide": ("monitor.app.commands.decide", "record a person's eligibility decision"),
     "log": ("monitor.app.commands.log", "check the decision log"),
+    "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
 }
 
 

@@ -15,6 +15,15 @@ cannot reproduce), gaps, file_offsets (a file source's resume position, written
 in the same transaction as its events) and clock_samples (host receive time of
 serial batches, for device-to-host alignment). Times named `*_at` are host
 wall-clock seconds since the epoch (REAL); `*_wall` are ISO 8601 text.
+
+Version 2 (the store issue): rigs (name bound to a USB serial or port, valve
+calibration), animals (what NWB's subject asks for, usual boxes, baseline
+weight), protocols (unique name and version), imports (content hash: a file is
+imported once), session columns (animal, protocol, stage, exclusion, event rowid
+range), check-ins, conditions, trials (derived, rebuildable) with their build
+counts, decisions (insert-only: triggers refuse UPDATE and DELETE), the care
+log, cached fits, cached report entries and alerts. The hot events table stays
+as it was: no index.
 """
 
 from __future__ import annotations
@@ -116,8 +125,188 @@ _V1 = (
     )""",
 )
 
+# Version 2 (the store issue): who, where, under which protocol, what was done,
+# the derived trials, the decision log, the care log, cached fits and alerts.
+_APPEND_ONLY = "decisions are append-only: a correction is a new entry (rigside decide --corrects SEQ)"
+
+_V2 = (
+    """CREATE TABLE rigs (
+        id INTEGER PRIMARY KEY,
+        name TEXT NOT NULL UNIQUE,
+        usb_serial TEXT,                -- the board's USB serial number (binds the name to the device)
+        port TEXT,                      -- or the port / by-id path it is bound to
+        valve_ul_per_ms REAL CHECK (valve_ul_per_ms IS NULL OR valve_ul_per_ms > 0),
+        calibration_checked TEXT,       -- ISO date of the last valve calibration check
+        created_at REAL NOT NULL
+    )""",
+    """CREATE TABLE animals (
+        id INTEGER PRIMARY KEY,
+        name TEXT NOT NULL UNIQUE,
+        cohort TEXT,
+        species TEXT,                   -- e.g. Rattus norvegicus (NWB subject)
+        strain TEXT,
+        sex TEXT CHECK (sex IS NULL OR sex IN ('F', 'M', 'U', 'O')),
+        date_of_birth TEXT,             -- ISO date
+        genotype TEXT,
+        usual_boxes TEXT,               -- JSON list of rig names this animal normally trains in
+        baseline_weight_g REAL CHECK (baseline_weight_g IS NULL OR baseline_weight_g > 0),
+        created_at REAL NOT NULL
+    )""",
+    """CREATE TABLE protocols (
+        id INTEGER PRIMARY KEY,
+        name TEXT NOT NULL,
+        version INTEGER NOT NULL,
+        text TEXT NOT NULL,             -- the TOML as read
+        created_at REAL NOT NULL,
+        UNIQUE (name, version)
+    )""",
+    """CREATE TABLE imports (
+        id INTEGER PRIMARY KEY,
+        path TEXT NOT NULL,
+        sha256 TEXT NOT NULL UNIQUE,    -- of the file's bytes: the same content is never imported twice
+        size INTEGER NOT NULL,
+        format TEXT NOT NULL CHECK (format IN ('wire', 'mapped')),
+        mapping_text TEXT,
+        imported_at REAL NOT NULL,
+        sessions INTEGER NOT NULL,
+        events INTEGER NOT NULL,
+        malformed INTEGER NOT NULL
+    )""",
+    "ALTER TABLE sessions ADD COLUMN animal_id INTEGER REFERENCES animals(id)",
+    "ALTER TABLE sessions ADD COLUMN protocol_id INTEGER REFERENCES protocols(id)",
+    "ALTER TABLE sessions ADD COLUMN import_id INTEGER REFERENCES imports(id)",
+    "ALTER TABLE sessions ADD COLUMN label TEXT",          # the file's or the mapping's name for it
+    "ALTER TABLE sessions ADD COLUMN stage TEXT",          # stage in force at the start
+    "ALTER TABLE sessions ADD COLUMN excluded INTEGER NOT NULL DEFAULT 0",
+    "ALTER TABLE sessions ADD COLUMN exclusion_reason TEXT",
+    "ALTER TABLE sessions ADD COLUMN excluded_by TEXT",
+    "ALTER TABLE sessions ADD COLUMN excluded_at REAL",
+    "ALTER TABLE sessions ADD COLUMN first_event INTEGER",  # rowid range of its events (a bounded scan)
+    "ALTER TABLE sessions ADD COLUMN last_event INTEGER",
+    # device time (µs, first clock segment) at which start_wall was taken; NULL: the first event
+    "ALTER TABLE sessions ADD COLUMN start_device_us INTEGER",
+    """CREATE TABLE checkins (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER NOT NULL UNIQUE REFERENCES sessions(id),
+        animal_id INTEGER NOT NULL REFERENCES animals(id),
+        rig TEXT NOT NULL,
+        operator TEXT NOT NULL,
+        weight_before_g REAL CHECK (weight_before_g IS NULL OR weight_before_g > 0),
+        stage TEXT,
+        protocol_id INTEGER REFERENCES protocols(id),
+        warning TEXT,                   -- e.g. the animal is not in one of its usual boxes
+        checked_in_at REAL NOT NULL,
+        checked_out_at REAL
+    )""",
+    """CREATE TABLE conditions (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER NOT NULL REFERENCES sessions(id),
+        what TEXT NOT NULL,             -- surgery, inactivation (drug, site), infusion, ...
+        dose TEXT,
+        volume_ul REAL,
+        sham INTEGER NOT NULL DEFAULT 0,
+        notes TEXT,
+        operator TEXT NOT NULL,
+        at TEXT NOT NULL                -- ISO 8601 with UTC offset
+    )""",
+    """CREATE TABLE trials (
+        session_id INTEGER NOT NULL REFERENCES sessions(id),
+        idx INTEGER NOT NULL,           -- Trial.index, from 1
+        t_us INTEGER NOT NULL,          -- session-relative device time of the first press / crossing
+        interval_ms REAL,               -- NULL when there is none
+        target_ms REAL NOT NULL,
+        window_low_ms REAL NOT NULL,
+        window_high_ms REAL NOT NULL,
+        stage TEXT NOT NULL,
+        outcome TEXT NOT NULL,
+        rewarded INTEGER NOT NULL,
+        outcome_source TEXT NOT NULL,
+        computed_outcome TEXT NOT NULL,
+        segment INTEGER NOT NULL,
+        PRIMARY KEY (session_id, idx)
+    ) WITHOUT ROWID""",
+    """CREATE TABLE trial_builds (
+        session_id INTEGER PRIMARY KEY REFERENCES sessions(id),
+        protocol_id INTEGER REFERENCES protocols(id),
+        built_at REAL NOT NULL,
+        trials INTEGER NOT NULL,
+        counts TEXT NOT NULL,           -- JSON: TrialBuilder.counts (inter_trial, disagreements, ...)
+        water_ul REAL,
+        malformed INTEGER NOT NULL
+    )""",
+    """CREATE TABLE decisions (
+        id INTEGER PRIMARY KEY,         -- insertion order (verify reads in this order)
+        seq INTEGER NOT NULL UNIQUE,    -- the entry's number in the chain, from 1
+        prev_hash TEXT NOT NULL,
+        algorithm TEXT NOT NULL,
+        decision TEXT NOT NULL,
+        animal TEXT NOT NULL,
+        operator TEXT NOT NULL,
+        reason TEXT NOT NULL,
+        time TEXT NOT NULL,
+        group_name TEXT,
+        group_code TEXT,
+        planned_manipulation TEXT,
+        planned_date TEXT,
+        assignment_method TEXT,
+        assignment_seed INTEGER,
+        snapshot TEXT,                  -- canonical JSON of the figures and the rule's verdict
+        rule_state TEXT,
+        disagrees_with_rule INTEGER NOT NULL,
+        corrects INTEGER,
+        payload TEXT NOT NULL,          -- the canonical text that was hashed
+        hash TEXT NOT NULL
+    )""",
+    f"""CREATE TRIGGER decisions_no_update BEFORE UPDATE ON decisions
+        BEGIN SELECT RAISE(ABORT, '{_APPEND_ONLY}'); END""",
+    f"""CREATE TRIGGER decisions_no_delete BEFORE DELETE ON decisions
+        BEGIN SELECT RAISE(ABORT, '{_APPEND_ONLY}'); END""",
+    """CREATE TABLE care_log (
+        id INTEGER PRIMARY KEY,
+        animal_id INTEGER NOT NULL REFERENCES animals(id),
+        kind TEXT NOT NULL CHECK (kind IN ('supplement', 'weight', 'note')),
+        at TEXT NOT NULL,               -- ISO 8601 with UTC offset
+        amount REAL,                    -- supplement: ml; weight: g
+        by TEXT NOT NULL,
+        text TEXT,
+        recorded_at REAL NOT NULL
+    )""",
+    """CREATE TABLE fits (
+        id INTEGER PRIMARY KEY,
+        animal_id INTEGER NOT NULL REFERENCES animals(id),
+        created_at REAL NOT NULL,
+        fingerprint TEXT NOT NULL,      -- of the data fitted (monitor.store.fits.data_fingerprint)
+        params TEXT NOT NULL,           -- JSON
+        block TEXT NOT NULL,            -- JSON: the report's consolidation block
+        sessions TEXT NOT NULL          -- JSON: per-session estimates
+    )""",
+    """CREATE TABLE alerts (
+        id INTEGER PRIMARY KEY,
+        animal_id INTEGER REFERENCES animals(id),
+        rig TEXT,
+        kind TEXT NOT NULL,
+        level TEXT NOT NULL,
+        message TEXT NOT NULL,
+        raised_at REAL NOT NULL,
+        acknowledged_by TEXT,
+        acknowledged_at REAL
+    )""",
+    """CREATE TABLE report_cache (
+        animal_id INTEGER PRIMARY KEY REFERENCES animals(id),
+        fingerprint TEXT NOT NULL,      -- monitor.store.reporting.report_fingerprint when it was built
+        entry TEXT NOT NULL,            -- JSON: the animal's report entry without `consolidation`
+        built_at REAL NOT NULL
+    )""",
+    "CREATE INDEX trials_by_session ON trials (session_id)",
+    "CREATE INDEX care_by_animal ON care_log (animal_id, at)",
+    "CREATE INDEX fits_by_animal ON fits (animal_id, created_at)",
+    "CREATE INDEX sessions_by_animal ON sessions (animal_id, started_at)",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
+    Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
+              "care log, fits, alerts", _V2),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

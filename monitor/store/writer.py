@@ -12,7 +12,9 @@ refused and counted: the state turns "overflow" (loud), and once the store
 recovers a gap row records how many events were lost and when. File sources
 are never refused (the file keeps them): `backlogged` tells their readers to
 pause. Anything else (schema, session rows, queries) runs on the writer's
-connection through `call()`, in order with the batches.
+connection through `call()`, in order with the batches. Codes of unknown
+event words are settled inside each commit against the file, since another
+process (an import) may have added words meanwhile.
 """
 
 from __future__ import annotations
@@ -145,7 +147,7 @@ class StoreWriter:
     def call(self, fn: Callable[[sqlite3.Connection], T], *, transaction: bool = True,
              timeout: float | None = 30.0) -> T:
         """Run `fn(conn)` on the writer's connection after everything submitted so far."""
-        if self._thread is None or not self._thread.is_alive():
+        if self._thread is None or not self._thread.is_alive() or self.status().state == FAILED:
             raise RuntimeError(f"the store writer is not running ({self.status().text})")
         future: Future = Future()
         self._queue.put(_Call(fn, future, transaction))
@@ -320,6 +322,26 @@ class StoreWriter:
         self._new_codes.append((code, name))
         return code
 
+    def _settle_codes(self, conn: sqlite3.Connection) -> None:
+        """Inside the commit: another process (an import) may have added unknown words since we looked."""
+        stored = dict(conn.execute("SELECT name, code FROM event_codes"))
+        top = max([FIRST_UNKNOWN_CODE - 1, *stored.values()])
+        remap: dict[int, int] = {}
+        fresh: list[tuple[int, str]] = []
+        for code, name in self._new_codes:
+            final = stored.get(name)
+            if final is None:
+                top += 1
+                final = top
+                fresh.append((final, name))
+            if final != code:
+                remap[code] = final
+            self._codes[name] = final
+        self._next_code = top + 1
+        self._new_codes = fresh
+        if remap:
+            self._events = [e if e[5] not in remap else (*e[:5], remap[e[5]], *e[6:]) for e in self._events]
+
     def _lose(self, batch: Batch, source_id: int, session_id: int) -> None:
         lost = sum(1 for r in batch.records if type(r) is Event) or len(batch.records)
         loss = self._losses.get((source_id, session_id))
@@ -356,6 +378,7 @@ class StoreWriter:
                          f"store overflow: {loss.events} live events not stored"))
         conn.execute("BEGIN IMMEDIATE")
         if self._new_codes:
+            self._settle_codes(conn)
             conn.executemany("INSERT INTO event_codes (code, name, known) VALUES (?, ?, 0)", self._new_codes)
         conn.executemany("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
                          "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", self._events)

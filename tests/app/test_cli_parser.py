@@ -15,7 +15,7 @@ def run_cli(*args: str) -> subprocess.CompletedProcess:
 
 
 def test_contract_commands_are_declared():
-    assert set(COMMANDS) == {"demo", "record", "import", "report", "export", "decide", "log"}
+    assert set(COMMANDS) == {"demo", "record", "import", "report", "export", "decide", "log", "care"}
 
 
 def test_help_lists_the_commands_that_exist():

@@ -233,11 +233,11 @@ def test_export_events_csv_has_the_contract_columns_and_escapes_formulas(tmp_pat
 
 
 @pytest.mark.parametrize("args, names", [
-    (["export", "trials", "--csv", "x.csv"], "not available yet"),
-    (["export", "--nwb", "outdir"], "not available yet"),
+    (["export", "trials", "--csv", "x.csv"], "--db"),
+    (["export", "--nwb", "outdir"], "--db"),
     (["export", "events"], "--csv"),
 ])
-def test_export_not_yet_built_or_incomplete_is_a_one_line_usage_error(tmp_path, args, names):
+def test_export_with_a_missing_database_or_incomplete_arguments_is_a_one_line_usage_error(tmp_path, args, names):
     result = cli(*args, "--db", str(tmp_path / "none.sqlite3"))
     assert result.returncode == 2
     assert len(result.stderr.strip().splitlines()) == 1 and names in result.stderr

@@ -187,4 +187,6 @@ def test_repainting_tiles_does_not_drop_nones_refcount(qtbot):
     for i in range(200):
         tile.set_state(replace(tile.state, trials_today=i + 1000))
         tile.grab()                                   # a full paint: dozens of void QPainter calls
-    assert sys.getrefcount(None) >= before - 5
+    # 6.12.0 would drop thousands here (200 paints x dozens of void calls); other threads of
+    # earlier tests still ending can move None's count by a few dozen, so allow 200.
+    assert sys.getrefcount(None) >= before - 200

@@ -1,14 +1,16 @@
-"""`rigside export events --db DB --csv FILE`: every stored event as one CSV row.
+"""`rigside export events|trials --db DB --csv FILE` and `rigside export --db DB --nwb DIR`.
 
-Rule: a header row, then one row per event in the order it was stored, with
-the columns `animal`, `session`, `rig`, `segment`, `line`, `device_time` (the
-counter as the rig sent it), `t_us` (unwrapped device time in µs within the
-segment), `event`, `value`. The store is opened read-only and streamed, so
-exporting never holds the whole table in memory and never blocks recording.
-A cell that begins with = + - @ (or a tab or carriage return) and is not a
-number gets a leading apostrophe, so a spreadsheet shows it instead of running
-it. `export trials` and `--nwb` come with the store's trial tables: until
-then they are refused with a one-line message.
+Rule: events: a header row, then one row per event in the order it was
+stored, with the columns `animal`, `session`, `rig`, `segment`, `line`,
+`device_time` (the counter as the rig sent it), `t_us` (unwrapped device time
+in µs within the segment), `event`, `value`. Trials: one row per derived
+trial (TRIAL_CSV_COLUMNS), sessions in time order, excluded sessions included
+with their flag. The store is opened read-only and streamed, so exporting
+never holds a whole table in memory and never blocks recording. A cell that
+begins with = + - @ (or a tab or carriage return) and is not a number gets a
+leading apostrophe, so a spreadsheet shows it instead of running it. NWB:
+one file per session (monitor.store.nwb_export; needs the `nwb` extra), a
+progress line per file on stderr.
 """
 
 from __future__ import annotations
@@ -22,6 +24,9 @@ from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
 
 EVENT_COLUMNS = ("animal", "session", "rig", "segment", "line", "device_time", "t_us", "event", "value")
+TRIAL_CSV_COLUMNS = ("animal", "session", "session_start", "rig", "label", "excluded", "trial", "t_us",
+                     "interval_ms", "outcome", "rewarded", "outcome_source", "computed_outcome", "target_ms",
+                     "window_low_ms", "window_high_ms", "stage", "segment")
 _NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
@@ -31,6 +36,14 @@ FROM events AS e
 JOIN sessions AS s ON s.id = e.session_id
 JOIN event_codes AS c ON c.code = e.code
 ORDER BY e.rowid
+"""
+
+_TRIALS_SQL = """
+SELECT s.animal, s.id, s.start_wall, s.rig, s.label, s.excluded, t.idx, t.t_us, t.interval_ms, t.outcome,
+       t.rewarded, t.outcome_source, t.computed_outcome, t.target_ms, t.window_low_ms, t.window_high_ms,
+       t.stage, t.segment
+FROM sessions AS s JOIN trials AS t ON t.session_id = s.id
+ORDER BY s.animal, s.started_at, s.id, t.idx
 """
 
 
@@ -43,26 +56,50 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     if args.nwb is not None:
-        raise UsageError("--nwb: NWB export is not available yet (it comes with the store's trial tables)")
-    if args.what == "trials":
-        raise UsageError("trials: trial export is not available yet (it comes with the store's trial tables)")
-    if args.what != "events":
-        raise UsageError("what: say what to export: events (with --csv FILE)")
+        if args.what is not None or args.csv is not None:
+            raise UsageError("--nwb: exports everything; give it without events/trials and --csv")
+        return _export_nwb(args)
+    if args.what is None:
+        raise UsageError("what: say what to export: events or trials (with --csv FILE), or --nwb DIR")
     if args.csv is None:
         raise UsageError("--csv: give the CSV file to write")
-    from monitor.store.db import StoreError, open_store
-
+    conn = _open(args)
     try:
-        conn = open_store(resolve_db(args.db), readonly=True)
-    except StoreError as exc:
-        raise UsageError(f"--db: {exc}") from None
-    try:
-        rows = write_events_csv(conn, args.csv)
+        rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
     except OSError as exc:
         raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
     finally:
         conn.close()
-    print(f"exported {rows} events to {args.csv}")
+    print(f"exported {rows} {args.what} to {args.csv}")
+    return 0
+
+
+def _open(args: argparse.Namespace):
+    from monitor.store.db import StoreError, open_store
+
+    try:
+        return open_store(resolve_db(args.db), readonly=True)
+    except StoreError as exc:
+        raise UsageError(f"--db: {exc}") from None
+
+
+def _export_nwb(args: argparse.Namespace) -> int:
+    import sys
+
+    try:
+        import pynwb  # noqa: F401 - checked before anything is written
+    except ImportError:
+        raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
+    from monitor.store.nwb_export import export_nwb
+
+    conn = _open(args)
+    try:
+        paths = export_nwb(conn, args.nwb, lambda i, n, p: print(f"[{i}/{n}] {p.name}", file=sys.stderr))
+    except OSError as exc:
+        raise UsageError(f"--nwb: cannot write into {args.nwb} ({exc.strerror or exc})") from None
+    finally:
+        conn.close()
+    print(f"exported {len(paths)} sessions to {args.nwb}")
     return 0
 
 
@@ -73,6 +110,18 @@ def write_events_csv(conn, path: Path) -> int:
         writer = csv.writer(out)
         writer.writerow(EVENT_COLUMNS)
         for row in conn.execute(_EVENTS_SQL):
+            writer.writerow([safe_cell(v) for v in row])
+            count += 1
+    return count
+
+
+def write_trials_csv(conn, path: Path) -> int:
+    """Stream every derived trial to `path`; return the number of rows written."""
+    count = 0
+    with open(path, "w", newline="", encoding="utf-8") as out:
+        writer = csv.writer(out)
+        writer.writerow(TRIAL_CSV_COLUMNS)
+        for row in conn.execute(_TRIALS_SQL):
             writer.writerow([safe_cell(v) for v in row])
             count += 1
     return count

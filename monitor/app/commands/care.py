@@ -1,0 +1,153 @@
+"""`rigside care weigh|supplement|note|baseline|sheet --db DB ...`: the care log and the daily water ledger.
+
+Rule: `weigh`, `supplement` and `note` add one care-log row for a known
+animal (time: `--at` ISO 8601 with offset, default now); `baseline` sets the
+animal's baseline weight (the reference for percent of baseline). `sheet
+--day DATE` prints each animal's care day (water earned in sessions +
+supplements against the daily minimum, weight and percent of baseline, the
+alerts) and with `--csv FILE` writes the care sheet (CARE_SHEET_COLUMNS of
+monitor.core.care). Thresholds come from the `[care]` table of `--settings
+FILE` (keys and defaults: docs/care.md), else the defaults. Bad input: one
+line, exit 2. Advisory: the approved animal-use protocol, the animal-care
+committee and the veterinarian decide; follow local rules.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+from datetime import date, datetime
+from pathlib import Path
+
+from monitor.app.errors import UsageError
+from monitor.app.paths import add_db_argument, resolve_db
+
+CAUTION = ("Advisory figures: the approved animal-use protocol, the animal-care committee and the veterinarian "
+           "decide; follow local rules.")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("action", choices=("weigh", "supplement", "note", "baseline", "sheet"))
+    add_db_argument(parser)
+    parser.add_argument("--animal", help="the animal (all animals for sheet)")
+    parser.add_argument("--grams", type=float, help="weigh: body weight; baseline: baseline weight (g)")
+    parser.add_argument("--ml", type=float, help="supplement: volume given (ml)")
+    parser.add_argument("--by", help="who did it")
+    parser.add_argument("--text", help="note: the health note")
+    parser.add_argument("--at", help="when (ISO 8601 with UTC offset; default now)")
+    parser.add_argument("--day", help="sheet: the care day (ISO date; default today)")
+    parser.add_argument("--csv", type=Path, help="sheet: also write the care sheet to this CSV file")
+    parser.add_argument("--settings", type=Path, help="lab settings TOML with a [care] table")
+
+
+def run(args: argparse.Namespace) -> int:
+    if args.action == "sheet":
+        return _sheet(args)
+    if not args.animal:
+        raise UsageError("--animal: say which animal")
+    from monitor.store import care_log
+    from monitor.store.db import StoreError, open_store
+    from monitor.store.records import RecordError, ensure_animal, find_animal
+
+    at = args.at or datetime.now().astimezone().isoformat(timespec="seconds")
+    try:
+        conn = open_store(resolve_db(args.db), busy_timeout_ms=30_000)
+    except StoreError as exc:
+        raise UsageError(f"--db: {exc}") from None
+    try:
+        if find_animal(conn, args.animal) is None:
+            raise UsageError(f"--animal: no animal {args.animal!r} in the database")
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            if args.action == "weigh":
+                care_log.add_weighing(conn, args.animal, at=at, grams=_need(args.grams, "--grams"),
+                                      by=_need(args.by, "--by"))
+            elif args.action == "supplement":
+                care_log.add_supplement(conn, args.animal, at=at, ml=_need(args.ml, "--ml"), by=_need(args.by, "--by"),
+                                        note=args.text or "")
+            elif args.action == "note":
+                care_log.add_note(conn, args.animal, at=at, by=_need(args.by, "--by"), text=_need(args.text, "--text"))
+            else:
+                ensure_animal(conn, args.animal, baseline_weight_g=_need(args.grams, "--grams"))
+            conn.execute("COMMIT")
+        except BaseException:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            raise
+    except RecordError as exc:
+        field = str(exc).split(":")[0]
+        option = {"time": "--at", "by": "--by", "ml": "--ml", "grams": "--grams", "baseline_weight_g": "--grams",
+                  "text": "--text", "animal": "--animal"}.get(field, "--" + field)
+        raise UsageError(f"{option}: {exc}") from None
+    finally:
+        conn.close()
+    print(f"{args.animal}: {args.action} recorded ({at})")
+    return 0
+
+
+def _need(value, option: str):
+    if value is None or (isinstance(value, str) and not value.strip()):
+        raise UsageError(f"{option}: needed for this action")
+    return value
+
+
+def _config(path: Path | None):
+    from monitor.core.care import CareConfig, parse_care
+
+    if path is None:
+        return CareConfig()
+    import tomllib
+
+    from drivers.config import ConfigError, TomlFile
+
+    try:
+        text = path.read_text(encoding="utf-8")
+        doc = TomlFile(text, str(path))
+        return parse_care(doc.data.get("care", {}), doc)
+    except OSError as exc:
+        raise UsageError(f"--settings: cannot read {path} ({exc.strerror or exc})") from None
+    except (ConfigError, tomllib.TOMLDecodeError) as exc:
+        raise UsageError(f"--settings: {exc}") from None
+
+
+def _sheet(args: argparse.Namespace) -> int:
+    from monitor.app.commands.export import safe_cell
+    from monitor.app.commands.report import known_animal, open_readonly
+    from monitor.core.care import CARE_SHEET_COLUMNS, care_sheet
+    from monitor.store.care_log import animal_care
+    from monitor.store.records import animal_names
+
+    try:
+        day = date.fromisoformat(args.day) if args.day else date.today()
+    except ValueError:
+        raise UsageError(f"--day: expected an ISO date, got {args.day!r}") from None
+    config = _config(args.settings)
+    conn = open_readonly(args.db)
+    try:
+        if args.animal:
+            known_animal(conn, args.animal)
+        names = [args.animal] if args.animal else animal_names(conn)
+        cohort = [animal_care(conn, name, config) for name in names]
+    finally:
+        conn.close()
+    summaries = care_sheet(cohort, day, config, datetime.now().astimezone())
+    for s in summaries:
+        weight = "no weight" if s.weight_g is None else f"{s.weight_g:.1f} g" + (
+            f" ({s.percent_of_baseline:.1f} % of baseline)" if s.percent_of_baseline is not None else "")
+        owed = f", owed {s.owed_ml:.2f} ml" if s.owed_ml else ""
+        print(f"{s.animal} {s.day}: {s.total_ml:.2f} ml ({s.earned_ml:.2f} earned + {s.supplement_ml:.2f} "
+              f"supplement){owed}; {weight}")
+        for alert in s.alerts:
+            print(f"  {alert.level.upper()}: {alert.message}")
+    print(CAUTION)
+    if args.csv is not None:
+        try:
+            with open(args.csv, "w", newline="", encoding="utf-8") as out:
+                writer = csv.writer(out)
+                writer.writerow(CARE_SHEET_COLUMNS)
+                for s in summaries:
+                    row = s.row()
+                    writer.writerow([safe_cell(row[c]) for c in CARE_SHEET_COLUMNS])
+        except OSError as exc:
+            raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
+    return 0

@@ -1,0 +1,134 @@
+"""`rigside decide --db DB --animal NAME --decision eligible|assigned|deferred|excluded [--group NAME]
+--operator NAME --reason TEXT`: record a person's decision in the hash-chained log.
+
+Rule: the person decides. The animal's figures are taken from the same data
+as `rigside report` (stored trials, cached consolidation fit), turned into
+`AnimalFigures`, and judged by the eligibility rule of the protocol in force
+(its `[eligibility]` table); the figures and the rule's verdict are frozen in
+the entry, and an entry that disagrees with the rule is recorded with both.
+A protocol without a rule gives the verdict "no eligibility rule" (nothing to
+disagree with). An unknown animal, a bad value (decision, date, group for an
+assignment, a correction of an entry that does not exist) is refused with one
+line and exit 2; nothing is written then. The entry is appended in one
+`BEGIN IMMEDIATE` transaction, waiting up to `--wait` seconds for another
+writer. Prints the entry's seq, the rule's state and whether it disagrees.
+These figures are advisory: the approved animal-use protocol, the
+animal-care committee and the veterinarian decide.
+"""
+
+from __future__ import annotations
+
+import argparse
+from dataclasses import replace
+from datetime import datetime
+
+from monitor.app.errors import UsageError
+from monitor.app.paths import add_db_argument, resolve_db
+
+NO_RULE = "no eligibility rule"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_db_argument(parser)
+    parser.add_argument("--animal", required=True)
+    parser.add_argument("--decision", required=True, choices=("eligible", "assigned", "deferred", "excluded"))
+    parser.add_argument("--group", help="the experimental group (needed for assigned)")
+    parser.add_argument("--operator", required=True, help="who decides")
+    parser.add_argument("--reason", required=True, help="why, in a sentence")
+    parser.add_argument("--planned", help="the planned manipulation (e.g. 'muscimol M1 0.5 µl')")
+    parser.add_argument("--planned-date", help="its planned date (ISO date or date-time with offset)")
+    parser.add_argument("--corrects", type=int, metavar="SEQ", help="this entry corrects entry SEQ")
+    parser.add_argument("--method", help="assignment method (e.g. cohort-sha256-v1), with --seed")
+    parser.add_argument("--seed", type=int, help="assignment seed, with --method")
+    parser.add_argument("--wait", type=float, default=30.0, help="seconds to wait for another writer (default 30)")
+
+
+def run(args: argparse.Namespace) -> int:
+    import sqlite3
+
+    from monitor.store.db import StoreError, open_store
+
+    try:
+        conn = open_store(resolve_db(args.db), busy_timeout_ms=int(max(args.wait, 0) * 1000))
+    except StoreError as exc:
+        raise UsageError(f"--db: {exc}") from None
+    try:
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            entry, verdict = _decide(conn, args)
+            conn.execute("COMMIT")
+        except BaseException:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            raise
+    except sqlite3.OperationalError as exc:
+        raise UsageError(f"--db: {resolve_db(args.db)}: {exc} (waited {args.wait:g} s); nothing recorded") from None
+    finally:
+        conn.close()
+    d = entry.decision
+    agree = "disagrees with the rule (both recorded)" if d.disagrees_with_rule else "agrees with the rule"
+    if verdict is None:
+        agree = "no rule to compare with"
+    print(f"entry {entry.seq}: {d.animal} {d.decision}{' to ' + d.group if d.group else ''} by {d.operator}; "
+          f"rule: {d.rule_state}; {agree}. Hash {entry.hash}")
+    return 0
+
+
+def _decide(conn, args):
+    from drivers.config import ConfigError, TomlFile
+
+    from monitor.app.commands.report import known_animal
+    from monitor.core.decision_log import new_decision
+    from monitor.core.eligibility import parse_eligibility
+    from monitor.core.eligibility_report import figures_from_report
+    from monitor.core.eligibility_verdict import Verdict, evaluate
+    from monitor.store.decisions import append_decision
+    from monitor.store.derive import protocol_of
+    from monitor.store.reporting import animal_entry
+
+    known_animal(conn, args.animal)
+    entry = animal_entry(conn, args.animal)
+    if entry is None:
+        raise UsageError(f"--animal: {args.animal!r} has no session with a protocol yet; nothing to decide on")
+    figures = figures_from_report(entry, entry["consolidation"])
+    text = conn.execute("SELECT protocol_text FROM sessions WHERE animal = ? AND protocol_text IS NOT NULL "
+                        "ORDER BY started_at DESC, id DESC LIMIT 1", (args.animal,)).fetchone()[0]
+    protocol = protocol_of(text)
+    try:
+        rule = parse_eligibility(protocol.eligibility, TomlFile(text, "<protocol in force>"),
+                                 protocol_name=protocol.name, protocol_version=protocol.version)
+    except ConfigError as exc:
+        raise UsageError(f"--animal: the protocol in force has a bad [eligibility] rule ({exc})") from None
+    if rule is not None:
+        verdict = evaluate(rule, figures)
+        group_rule = rule.group(args.group) if args.group else None
+        if args.decision == "eligible" and args.group and group_rule is None:
+            raise UsageError(f"--group: the rule has no group {args.group!r} "
+                             f"(groups: {', '.join(g.name for g in rule.groups)})")
+    else:
+        verdict = Verdict(args.animal, NO_RULE, NO_RULE, (), (),
+                          "The protocol in force has no [eligibility] rule; the figures are recorded as they were.",
+                          figures.session, figures.protocol_version)
+    try:
+        decision = new_decision(
+            decision=args.decision, animal=args.animal, operator=args.operator, reason=args.reason,
+            time=datetime.now().astimezone().isoformat(timespec="seconds"), figures=figures, verdict=verdict,
+            group=args.group, planned_manipulation=args.planned, planned_date=args.planned_date,
+            assignment_method=args.method, assignment_seed=args.seed, corrects=args.corrects)
+        if rule is None:
+            decision = replace(decision, disagrees_with_rule=False)
+        logged = append_decision(conn, decision)
+    except ValueError as exc:
+        raise UsageError(f"{_option(str(exc))}: {exc}") from None
+    return logged, (None if rule is None else verdict)
+
+
+def _option(message: str) -> str:
+    """The command-line option a core ValueError is about."""
+    for words, option in (("names a group", "--group"), ("blinded", "--group"), ("planned_date", "--planned-date"),
+                          ("planned_manipulation", "--planned"), ("assignment", "--method/--seed"),
+                          ("corrects", "--corrects"), ("entry ", "--corrects"), ("operator", "--operator"),
+                          ("reason", "--reason"), ("figures are for", "--animal"), ("animal", "--animal")):
+        if words in message:
+            return option
+    return "--decision"

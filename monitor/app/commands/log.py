@@ -1,0 +1,79 @@
+"""`rigside log verify|head|export --db DB`: check, anchor and export the decision log.
+
+Rule: `verify` reads every entry in insertion order and checks order, links,
+hashes and corrections (monitor.store.decisions.verify); exit 0 with
+"N entries, chain intact", or exit 1 with one line naming the first broken
+entry and why. `--head SEQ:HASH` (repeatable) also checks heads printed
+earlier by `log head`, which catches entries deleted from the end or a
+rewritten log; keep them somewhere else (a lab notebook, an e-mail).
+`export --csv FILE` writes one row per entry (DECISION_CSV_COLUMNS, cells
+escaped as in every rigside CSV). Read-only.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import sys
+from pathlib import Path
+
+from monitor.app.errors import UsageError
+from monitor.app.paths import add_db_argument
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("action", choices=("verify", "head", "export"), help="what to do with the log")
+    add_db_argument(parser)
+    parser.add_argument("--head", action="append", default=[], metavar="SEQ:HASH",
+                        help="verify: a head printed earlier by `rigside log head` (repeatable)")
+    parser.add_argument("--csv", type=Path, help="export: the CSV file to write")
+    parser.add_argument("--animal", help="export: only this animal's entries")
+
+
+def _heads(values: list[str]):
+    from monitor.core.decision_log import Head
+
+    heads = []
+    for value in values:
+        seq, sep, digest = value.partition(":")
+        if not sep or not seq.isdigit() or len(digest) != 64:
+            raise UsageError(f"--head: expected SEQ:HASH as printed by `rigside log head`, got {value!r}")
+        heads.append(Head(int(seq), digest))
+    return heads
+
+
+def run(args: argparse.Namespace) -> int:
+    from monitor.app.commands.export import safe_cell
+    from monitor.app.commands.report import open_readonly
+    from monitor.core.decision_log import DECISION_CSV_COLUMNS
+    from monitor.store.decisions import chain_head, entries, verify
+
+    heads = _heads(args.head)
+    if args.action == "export" and args.csv is None:
+        raise UsageError("--csv: give the CSV file to write")
+    conn = open_readonly(args.db)
+    try:
+        if args.action == "verify":
+            result = verify(conn, heads=heads)
+            if not result.ok:
+                print(f"rigside log verify: BROKEN: {result.message}", file=sys.stderr)
+                return 1
+            print(result.message)
+            return 0
+        if args.action == "head":
+            mark = chain_head(conn)
+            print("empty log" if mark is None else f"{mark.seq}:{mark.hash}")
+            return 0
+        rows = [e.csv_row() for e in entries(conn, args.animal)]
+    finally:
+        conn.close()
+    try:
+        with open(args.csv, "w", newline="", encoding="utf-8") as out:
+            writer = csv.writer(out)
+            writer.writerow(DECISION_CSV_COLUMNS)
+            for row in rows:
+                writer.writerow([safe_cell(row[c]) for c in DECISION_CSV_COLUMNS])
+    except OSError as exc:
+        raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
+    print(f"exported {len(rows)} decisions to {args.csv}")
+    return 0

@@ -1,0 +1,67 @@
+"""The cache of consolidation fits: one row per fit, the newest per animal is read.
+
+Rule: a fit is stored with the fingerprint of the data it was fitted to
+(`data_fingerprint`: the animal's included sessions, in time order, with the
+time their trials were last derived), its parameters, the report's
+consolidation block (CONTRACTS.md §5) and its per-session estimates, all JSON.
+Reading never refits: `cached_block` gives the newest fit's block with
+`"current"` (its fingerprint equals the data's now) added; an animal with no
+fit yet gets NOT_FITTED for its last session, estimate 0 with the interval
+[0, 1], which no eligibility window accepts.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import sqlite3
+import time
+from typing import Any, Mapping, Sequence
+
+from monitor.store.records import ensure_animal
+
+NOT_FITTED = "not fitted"
+
+
+def data_fingerprint(conn: sqlite3.Connection, animal: str) -> str:
+    """SHA-256 over the animal's included sessions and their trial builds."""
+    rows = conn.execute(
+        "SELECT s.id, coalesce(b.built_at, 0), coalesce(b.trials, 0) FROM sessions AS s "
+        "LEFT JOIN trial_builds AS b ON b.session_id = s.id WHERE s.animal = ? AND s.excluded = 0 "
+        "ORDER BY s.started_at, s.id", (animal,)).fetchall()
+    return hashlib.sha256(json.dumps(rows).encode()).hexdigest()
+
+
+def save_fit(conn: sqlite3.Connection, animal: str, *, fingerprint: str, params: Mapping[str, Any],
+             block: Mapping[str, Any], sessions: Sequence[Mapping[str, Any]]) -> int:
+    """Store a fit (in the caller's transaction); return its id."""
+    for key in ("session", "estimate", "low", "high", "status"):
+        if key not in block:
+            raise ValueError(f"block: the consolidation block needs {key!r}")
+    cur = conn.execute("INSERT INTO fits (animal_id, created_at, fingerprint, params, block, sessions) "
+                       "VALUES (?, ?, ?, ?, ?, ?)",
+                       (ensure_animal(conn, animal), time.time(), fingerprint, json.dumps(dict(params)),
+                        json.dumps(dict(block)), json.dumps([dict(s) for s in sessions])))
+    return int(cur.lastrowid)
+
+
+def latest_fit(conn: sqlite3.Connection, animal: str) -> dict[str, Any] | None:
+    """The newest fit of `animal`: fingerprint, params, block, sessions, created_at; or None."""
+    row = conn.execute("SELECT f.fingerprint, f.params, f.block, f.sessions, f.created_at FROM fits AS f "
+                       "JOIN animals AS a ON a.id = f.animal_id WHERE a.name = ? ORDER BY f.id DESC LIMIT 1",
+                       (animal,)).fetchone()
+    if row is None:
+        return None
+    return {"fingerprint": row[0], "params": json.loads(row[1]), "block": json.loads(row[2]),
+            "sessions": json.loads(row[3]), "created_at": row[4]}
+
+
+def cached_block(conn: sqlite3.Connection, animal: str, last_session: int | None) -> dict[str, Any]:
+    """The consolidation block for the report (never a refit)."""
+    fit = latest_fit(conn, animal)
+    if fit is None:
+        return {"session": last_session, "estimate": 0.0, "low": 0.0, "high": 1.0, "status": NOT_FITTED,
+                "current": False}
+    block = dict(fit["block"])
+    block["current"] = fit["fingerprint"] == data_fingerprint(conn, animal)
+    return block

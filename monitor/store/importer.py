@@ -1,0 +1,307 @@
+"""Importing recorded files: wire-format sessions and a lab's mapped history files.
+
+Rule: a file is imported once: its SHA-256 is stored in `imports` in the same
+transaction as its sessions, events, raw lines and trials, so a crash leaves
+all of the file or none, and the same bytes (under any name) are refused
+afterwards. Every record is kept: events in `events`, malformed lines,
+headers and comments in `raw_lines` with their position. Sessions
+(docs/store.md, "Sessions"): a mapped file's `session` column, when it has
+one, names them; otherwise a `session_end` closes the running session, a
+`session_start` after presses opens a new one, and so does a pause longer than
+`gap_s` (by wall time when both events have one — a wrapping counter cannot
+measure a long pause — else by device time within a clock segment). The
+animal is the mapping's `animal` column, else `--animal`, else the file name
+`NAME_sNN.ext`. A session starts at its first record's wall time: the
+header's `start=` (+ device time when it begins inside a segment) or the
+mapped wall-time column; without either, the file's modification time, and a
+notice row says so. The trials of each session are derived as it is stored.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+import sqlite3
+import time
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+from drivers.wire import Comment, Event, Header, Malformed, Record, WireDecoder
+from monitor.store.derive import rebuild_trials
+from monitor.store.records import ensure_animal, ensure_protocol
+from monitor.store.schema import FIRST_UNKNOWN_CODE
+
+GAP_S = 2 * 3600.0  # a pause longer than this between two events of one animal starts a new session
+PRESSES = frozenset({"lever_down", "lever_up", "joystick", "trial_start", "outcome"})
+_FILE_ANIMAL = re.compile(r"^(?P<animal>.+?)_s\d+$")
+
+
+class ImportRefused(Exception):
+    """The file cannot be imported as asked; the message says why in one line."""
+
+
+@dataclass
+class _Session:
+    animal: str
+    label: str
+    start: datetime | None = None
+    rig: str | None = None
+    start_device_us: int | None = None  # device µs at `start`
+    records: list[Record] = field(default_factory=list)
+    events: int = 0
+    malformed: int = 0
+    pressed: bool = False
+    ended: bool = False
+    last_t: tuple[int, int] | None = None  # (segment, t_us) of the last event
+    last_wall: datetime | None = None
+
+
+@dataclass(frozen=True)
+class Imported:
+    """What one file gave."""
+
+    path: str
+    sessions: int
+    events: int
+    malformed: int
+    trials: int
+    labels: tuple[str, ...]
+    notices: tuple[str, ...]
+    animals: tuple[str, ...]
+
+
+def file_digest(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def already_imported(conn: sqlite3.Connection, digest: str) -> tuple[str, float] | None:
+    """(path, imported_at) of an earlier import of the same bytes, or None."""
+    row = conn.execute("SELECT path, imported_at FROM imports WHERE sha256 = ?", (digest,)).fetchone()
+    return None if row is None else (row[0], row[1])
+
+
+def animal_from_file_name(path: Path) -> str | None:
+    """`alder_s03.rsw` -> `alder` (mock_rig's and many labs' naming), else None."""
+    match = _FILE_ANIMAL.match(path.stem)
+    return match.group("animal") if match else None
+
+
+class _Splitter:
+    """Cuts one file's records into sessions per animal (the module rule)."""
+
+    def __init__(self, path: Path, animal: str | None, gap_s: float, mapped: bool, has_session: bool) -> None:
+        self.path, self.animal, self.gap_s = path, animal, gap_s
+        self.mapped, self.has_session = mapped, has_session
+        self.sessions: list[_Session] = []
+        self.current: dict[tuple[str, str | None], _Session] = {}
+        self.last: _Session | None = None
+        self.segment_start: dict[int, datetime] = {}
+        self.segment_rig: dict[int, str] = {}
+        self.pending: list[Record] = []  # records before any session exists
+        self.begun: set[int] = set()  # segments whose first event has been seen
+        self.notices: list[str] = []
+
+    def _animal_of(self, event: Event) -> str:
+        name = event.animal or self.animal
+        if name is None:
+            raise ImportRefused(f"{self.path}: the file does not say which animal (no animal column, and the "
+                                "name is not NAME_sNN): give --animal")
+        return name
+
+    def _wall(self, event: Event) -> datetime | None:
+        if event.wall_time:
+            return datetime.fromisoformat(event.wall_time)
+        start = self.segment_start.get(event.segment)
+        return None if start is None else start + timedelta(microseconds=event.t_us)
+
+    def _new(self, key: tuple[str, str | None], event: Event, wall: datetime | None, origin: int) -> _Session:
+        label = key[1] if key[1] is not None else f"{self.path.name}#{sum(s.animal == key[0] for s in self.sessions) + 1}"
+        session = _Session(key[0], label, wall, self.segment_rig.get(event.segment), origin)
+        if not self.sessions and self.pending:
+            session.records.extend(self.pending)
+            session.malformed += sum(type(r) is Malformed for r in self.pending)
+            self.pending.clear()
+        self.sessions.append(session)
+        self.current[key] = session
+        return session
+
+    def _starts_new(self, session: _Session, event: Event, wall: datetime | None) -> bool:
+        if self.has_session:
+            return False
+        if session.ended:
+            return True
+        if event.name == "session_start" and session.pressed:
+            return True
+        if wall is not None and session.last_wall is not None:  # a wrapping counter cannot measure long pauses
+            return (wall - session.last_wall).total_seconds() > self.gap_s
+        if session.last_t is not None and session.last_t[0] == event.segment:
+            return (event.t_us - session.last_t[1]) / 1e6 > self.gap_s
+        return False
+
+    def add(self, record: Record) -> None:
+        if type(record) is Header:
+            start = record.fields.get("start")
+            if start is not None:
+                try:
+                    stamp = datetime.fromisoformat(start)
+                except ValueError:
+                    stamp = None
+                if stamp is not None and stamp.tzinfo is not None:
+                    self.segment_start[record.segment] = stamp
+                else:
+                    self.notices.append(f"line {record.line}: header start={start!r} is not ISO 8601 with an "
+                                        "offset; ignored")
+            if "rig" in record.fields:
+                self.segment_rig[record.segment] = record.fields["rig"]
+        if type(record) is not Event:
+            target = self.last
+            if target is None:
+                self.pending.append(record)
+            else:
+                target.records.append(record)
+                target.malformed += type(record) is Malformed
+            return
+        key = (self._animal_of(record), record.session)
+        wall, origin = self._wall(record), record.t_us
+        if record.segment not in self.begun and not record.wall_time:
+            self.begun.add(record.segment)
+            if record.segment in self.segment_start:  # a segment's first event: the header's start=
+                wall, origin = self.segment_start[record.segment], 0
+        session = self.current.get(key)
+        if session is None or self._starts_new(session, record, wall):
+            session = self._new(key, record, wall, origin)
+            if self.last is not None and self.last is not session and not self.mapped:
+                # headers and comments just before the session's first event belong to it
+                moved = _trailing_non_events(self.last.records)
+                if moved:
+                    del self.last.records[-len(moved):]
+                    self.last.malformed -= sum(type(r) is Malformed for r in moved)
+                    session.records[:0] = moved
+                    session.malformed += sum(type(r) is Malformed for r in moved)
+        session.records.append(record)
+        session.events += 1
+        session.pressed |= record.name in PRESSES
+        session.ended |= record.name == "session_end"
+        session.last_t = (record.segment, record.t_us)
+        session.last_wall = wall or session.last_wall
+        self.last = session
+
+    def finish(self, fallback: datetime) -> list[_Session]:
+        if self.pending:  # a file with no events at all: keep its lines in one empty session
+            session = _Session(self.animal or self.path.stem, f"{self.path.name}#1")
+            session.records, session.malformed = list(self.pending), sum(type(r) is Malformed for r in self.pending)
+            self.sessions.append(session)
+        for session in self.sessions:
+            if session.start is None:
+                session.start = fallback
+                self.notices.append(f"{session.label}: no wall-clock time in the file; the session start is the "
+                                    f"file's modification time {fallback.isoformat(timespec='seconds')}")
+        return self.sessions
+
+
+def _trailing_non_events(records: list[Record]) -> list[Record]:
+    out: list[Record] = []
+    for record in reversed(records):
+        if type(record) is Event:
+            break
+        out.append(record)
+    out.reverse()
+    return out
+
+
+def import_file(conn: sqlite3.Connection, path: Path, data: bytes, *, protocol_text: str, protocol_name: str,
+                protocol_version: int, animal: str | None = None, mapping: Any = None,
+                mapping_text: str | None = None, gap_s: float = GAP_S) -> Imported:
+    """Store one file's sessions in the caller's transaction (BEGIN IMMEDIATE); see the module rule."""
+    digest = file_digest(data)
+    earlier = already_imported(conn, digest)
+    if earlier is not None:
+        when = datetime.fromtimestamp(earlier[1]).astimezone().isoformat(timespec="seconds")
+        raise ImportRefused(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
+                            "nothing was changed")
+    if mapping is None:
+        decoder: Any = WireDecoder()
+    else:
+        from drivers.mapping import MappedDecoder
+
+        decoder = MappedDecoder(mapping)
+    records = decoder.feed(data) + decoder.close()
+    has_session = mapping is not None and "session" in mapping.columns
+    animal = animal if animal is not None or mapping is not None and "animal" in mapping.columns \
+        else animal_from_file_name(path)
+    splitter = _Splitter(path, animal, gap_s, mapping is not None, has_session)
+    for record in records:
+        splitter.add(record)
+    mtime = datetime.fromtimestamp(path.stat().st_mtime).astimezone() if path.exists() else datetime.now().astimezone()
+    sessions = splitter.finish(mtime)
+
+    now = time.time()
+    total_events = sum(s.events for s in sessions)
+    total_malformed = sum(s.malformed for s in sessions)
+    import_id = conn.execute(
+        "INSERT INTO imports (path, sha256, size, format, mapping_text, imported_at, sessions, events, malformed) "
+        "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        (str(path), digest, len(data), "wire" if mapping is None else "mapped", mapping_text, now, len(sessions),
+         total_events, total_malformed)).lastrowid
+    protocol_id = ensure_protocol(conn, protocol_name, protocol_version, protocol_text)
+    codes = dict(conn.execute("SELECT name, code FROM event_codes"))
+    trials = 0
+    for session in sessions:
+        trials += _store_session(conn, session, import_id, protocol_id, protocol_name, protocol_version,
+                                 protocol_text, codes)
+    if splitter.notices and sessions:
+        first = conn.execute("SELECT min(id) FROM sessions WHERE import_id = ?", (import_id,)).fetchone()[0]
+        conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
+                         "VALUES (?, NULL, NULL, 'notice', ?, NULL)", [(first, n) for n in splitter.notices])
+    return Imported(str(path), len(sessions), total_events, total_malformed, trials,
+                    tuple(s.label for s in sessions), tuple(splitter.notices),
+                    tuple(sorted({s.animal for s in sessions})))
+
+
+def _code(conn: sqlite3.Connection, codes: dict[str, int], name: str) -> int:
+    code = codes.get(name)
+    if code is None:
+        code = max([FIRST_UNKNOWN_CODE - 1, *codes.values()]) + 1
+        conn.execute("INSERT INTO event_codes (code, name, known) VALUES (?, ?, 0)", (code, name))
+        codes[name] = code
+    return code
+
+
+def _store_session(conn: sqlite3.Connection, session: _Session, import_id: int, protocol_id: int,
+                   protocol_name: str, protocol_version: int, protocol_text: str, codes: dict[str, int]) -> int:
+    assert session.start is not None
+    animal_id = ensure_animal(conn, session.animal)
+    ended = session.last_wall.timestamp() if session.last_wall is not None else None
+    session_id = conn.execute(
+        "INSERT INTO sessions (source_id, animal, rig, protocol_name, protocol_version, protocol_text, started_at, "
+        "ended_at, start_wall, animal_id, protocol_id, import_id, label, start_device_us) VALUES (NULL, ?, ?, ?, ?, "
+        "?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        (session.animal, session.rig or "import", protocol_name, protocol_version, protocol_text,
+         session.start.timestamp(), ended, session.start.isoformat(timespec="seconds"), animal_id, protocol_id,
+         import_id, session.label, session.start_device_us)).lastrowid
+    events, raw = [], []
+    for r in session.records:
+        kind = type(r)
+        if kind is Event:
+            events.append((session_id, r.segment, r.line, r.t_us, r.raw_time, _code(conn, codes, r.name),
+                           " ".join(r.args) if r.args else None, r.wall_time))
+        elif kind is Malformed:
+            raw.append((session_id, r.line, r.offset, "malformed", r.reason, bytes(r.raw)))
+        elif kind is Header:
+            text = " ".join([f"# rigside-wire {r.version}", *(f"{k}={v}" for k, v in r.fields.items())])
+            raw.append((session_id, r.line, r.offset, "header", None, text.encode("ascii", "replace")))
+        elif kind is Comment:
+            raw.append((session_id, r.line, r.offset, "comment", None, r.text.encode("utf-8", "surrogateescape")))
+    before = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
+    conn.executemany("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
+                     "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", events)
+    after = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
+    if raw:
+        conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
+                         "VALUES (?, ?, ?, ?, ?, ?)", raw)
+    if events:
+        conn.execute("UPDATE sessions SET first_event = ?, last_event = ? WHERE id = ?", (before + 1, after, session_id))
+    return rebuild_trials(conn, session_id, [r for r in session.records if type(r) is Event])
+

@@ -1,0 +1,85 @@
+"""`rigside care` (not yet registered in cli.py): log weights, supplements and notes, print the care sheet."""
+
+from __future__ import annotations
+
+import csv
+from datetime import datetime
+
+import pytest
+
+from drivers.wire import encode_event, encode_header
+from monitor.app import cli
+from monitor.app.commands import care
+
+PROTOCOL = """
+[protocol]
+name = "two-press 650 ms"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+reward_ul = 30
+"""
+
+
+def rigside_care(capsys, *args) -> tuple[int, str, str]:
+    parser = cli.OneLineParser(prog="rigside care")
+    care.add_arguments(parser)
+    try:
+        code = care.run(parser.parse_args([str(a) for a in args]))
+    except cli.UsageError as exc:
+        print(f"rigside care: error: {exc}", file=__import__("sys").stderr)
+        code = 2
+    except SystemExit as exc:
+        code = exc.code
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+@pytest.fixture
+def db(tmp_path, capsys):
+    today = datetime.now().astimezone()
+    start = today.replace(hour=9, minute=0, second=0, microsecond=0)
+    data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
+    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (issue 9's check value), each confirmed by a lick
+        t = 1000 + 4000 * k
+        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
+        data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")
+    path = tmp_path / "heron_s01.rsw"
+    path.write_bytes(data)
+    (tmp_path / "p.toml").write_text(PROTOCOL)
+    store = tmp_path / "store.sqlite3"
+    assert cli.main(["import", str(path), "--protocol", str(tmp_path / "p.toml"), "--db", str(store)]) == 0
+    capsys.readouterr()
+    return store
+
+
+def test_care_log_and_sheet(tmp_path, capsys, db):
+    now = datetime.now().astimezone().isoformat(timespec="seconds")
+    assert rigside_care(capsys, "baseline", "--db", db, "--animal", "heron", "--grams", "25.0")[0] == 0
+    assert rigside_care(capsys, "weigh", "--db", db, "--animal", "heron", "--grams", "21.3", "--by", "ana",
+                        "--at", now)[0] == 0
+    assert rigside_care(capsys, "supplement", "--db", db, "--animal", "heron", "--ml", "0.3", "--by", "bo",
+                        "--at", now)[0] == 0
+    assert rigside_care(capsys, "note", "--db", db, "--animal", "heron", "--by", "bo", "--text", "=eyes ok",
+                        "--at", now)[0] == 0
+    sheet = tmp_path / "sheet.csv"
+    code, out, err = rigside_care(capsys, "sheet", "--db", db, "--csv", sheet)
+    assert code == 0, err
+    assert "heron" in out and "85.2 % of baseline" in out and "veterinarian" in out  # 21.3 / 25.0 = 85.2 %
+    with open(sheet, newline="") as fh:
+        row = next(csv.DictReader(fh))
+    assert float(row["earned_ml"]) == pytest.approx(1.2) and float(row["total_ml"]) == pytest.approx(1.5)
+    assert row["notes"] == "'=eyes ok"  # escaped for spreadsheets
+
+
+@pytest.mark.parametrize("args, names", [
+    (["weigh", "--animal", "nobody", "--grams", "20", "--by", "a"], "--animal"),
+    (["weigh", "--animal", "heron", "--by", "a"], "--grams"),
+    (["weigh", "--animal", "heron", "--grams", "-3", "--by", "a"], "--grams"),
+    (["supplement", "--animal", "heron", "--ml", "0.5", "--by", "a", "--at", "yesterday"], "--at"),
+    (["sheet", "--day", "2026-02-31"], "--day"),
+])
+def test_bad_care_input_is_one_line_and_exit_2(capsys, db, args, names):
+    code, _, err = rigside_care(capsys, *args, "--db", db)
+    assert code == 2 and len(err.strip().splitlines()) == 1 and names in err, err

@@ -1,0 +1,301 @@
+"""`rigside import`, `report`, `export trials|--nwb`, `decide` and `log` through the CLI: results, exit codes,
+one-line errors, and the store's faults (corrupt or newer file, a lock held by another process, a full disk)."""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import json
+import sqlite3
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from mock_rig.history import cohort, write_history
+from monitor.app.cli import main
+from monitor.store.db import open_store
+
+ELIGIBILITY = """
+[eligibility]
+cohort = "orchard"
+
+[eligibility.groups.early]
+label = "plateaued, early"
+min_sessions_since_plateau = 0
+max_sessions_since_plateau = 50
+"""
+
+
+@pytest.fixture(scope="module")
+def history(tmp_path_factory) -> tuple[Path, dict]:
+    out = tmp_path_factory.mktemp("history")
+    truth = write_history(out, cohort(2, seed=1), days=6)
+    return out, truth
+
+
+def run_cli(capsys, *args: str) -> tuple[int, str, str]:
+    try:
+        code = main([str(a) for a in args])
+    except SystemExit as exc:  # argparse's own refusals
+        code = exc.code
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def cli(*args: str, timeout: float = 120) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "monitor.app", *map(str, args)], capture_output=True, text=True,
+                          timeout=timeout)
+
+
+def import_animal(capsys, db: Path, out: Path, animal: str, *extra: str, first: int | None = None
+                  ) -> tuple[int, str, str]:
+    files = sorted(out.glob(f"{animal}_s*.rsw"))[:first]
+    return run_cli(capsys, "import", *files, "--protocol", out / f"{animal}.protocol.toml", "--db", db, *extra)
+
+
+def one_line(err: str) -> bool:
+    return len(err.strip().splitlines()) == 1
+
+
+def digest(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_import_report_and_reimport_refusal(tmp_path, capsys, history):
+    out, truth = history
+    db = tmp_path / "store.sqlite3"
+    for animal in truth["animals"]:
+        code, stdout, err = import_animal(capsys, db, out, animal)
+        assert code == 0, err
+        n = len(truth["animals"][animal]["sessions"])
+        assert f"[{n}/{n}]" in err and f"imported {n} files: {n} sessions" in stdout  # progress, one line per file
+    code, stdout, err = run_cli(capsys, "report", "--db", db, "--json")
+    assert code == 0, err
+    document = json.loads(stdout)
+    for entry in document["animals"]:
+        expected = truth["animals"][entry["animal"]]["sessions"]
+        assert [(s["index"], s["trials"], s["hits"]) for s in entry["sessions"]] == \
+            [(s["index"], s["trials"], s["hits"]) for s in expected]
+        assert set(entry["plateau"]) >= {"reached", "session", "rule"}
+        c = entry["consolidation"]
+        assert (c["session"], c["estimate"], c["low"], c["high"], c["status"]) == (len(expected), 0.0, 0.0, 1.0,
+                                                                                  "not fitted")
+    one = json.loads(run_cli(capsys, "report", "--db", db, "--animal", "alder", "--json")[1])
+    assert [a["animal"] for a in one["animals"]] == ["alder"]
+    before = digest(db)
+    code, _, err = import_animal(capsys, db, out, "alder")
+    assert code == 2 and one_line(err) and "already imported" in err
+    assert digest(db) == before
+
+
+@pytest.mark.parametrize("args, names", [
+    (["report", "--animal", "nobody"], "--animal"),
+    (["import", "missing.rsw", "--protocol", "p.toml"], "--protocol"),
+    (["decide", "--animal", "nobody", "--decision", "eligible", "--operator", "ana", "--reason", "r"], "--animal"),
+    (["decide", "--animal", "x", "--decision", "maybe", "--operator", "ana", "--reason", "r"], "--decision"),
+    (["log", "verify", "--head", "3:abc"], "--head"),
+    (["export", "events"], "--csv"),
+])
+def test_bad_input_is_one_line_and_exit_2(tmp_path, capsys, args, names):
+    db = tmp_path / "store.sqlite3"
+    open_store(db).close()
+    code, _, err = run_cli(capsys, *args, "--db", db)
+    assert code == 2 and one_line(err) and names in err, err
+
+
+def test_export_trials_csv_and_nwb(tmp_path, capsys, history):
+    pynwb = pytest.importorskip("pynwb")
+    out, truth = history
+    db = tmp_path / "store.sqlite3"
+    assert import_animal(capsys, db, out, "alder", first=2)[0] == 0
+    sessions = truth["animals"]["alder"]["sessions"][:2]
+    sqlite = sqlite3.connect(db)
+    sqlite.execute("INSERT INTO animals (name, created_at) VALUES ('x', 0)")  # a row the export must not need
+    sqlite.execute("UPDATE animals SET species = 'Rattus norvegicus', sex = 'F', genotype = '=cmd()', "
+                   "date_of_birth = '2025-10-01', cohort = 'orchard' WHERE name = 'alder'")
+    sqlite.execute("UPDATE sessions SET excluded = 1, exclusion_reason = '@cable loose' WHERE id = 2")
+    sqlite.commit()
+    sqlite.close()
+    trials_csv = tmp_path / "trials.csv"
+    code, stdout, err = run_cli(capsys, "export", "trials", "--db", db, "--csv", trials_csv)
+    assert code == 0, err
+    with open(trials_csv, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    completed = sum(s["trials"] for s in sessions)
+    assert sum(r["outcome"] in ("hit", "miss") for r in rows) == completed
+    assert {"interval_ms", "outcome", "target_ms", "window_low_ms", "window_high_ms", "stage"} <= set(rows[0])
+    assert {r["excluded"] for r in rows if r["session"] == "2"} == {"1"}
+
+    nwb_dir = tmp_path / "nwb"
+    code, stdout, err = run_cli(capsys, "export", "--db", db, "--nwb", nwb_dir)
+    assert code == 0, err
+    files = sorted(nwb_dir.glob("*.nwb"))
+    assert len(files) == len(sessions)
+    with pynwb.NWBHDF5IO(str(nwb_dir / "alder_session1.nwb"), "r") as io:  # read back with pynwb itself
+        nwb = io.read()
+        assert nwb.subject.subject_id == "alder" and nwb.subject.species == "Rattus norvegicus"
+        assert nwb.subject.sex == "F" and nwb.subject.genotype == "=cmd()"
+        trials = nwb.trials.to_dataframe()
+        events = nwb.get_events_table("rig_events").to_dataframe()
+        first = sessions[0]
+        assert int(trials["outcome"].isin(["hit", "miss"]).sum()) == first["trials"]
+        assert int((trials["outcome"] == "hit").sum()) == first["hits"]
+        assert {"interval_ms", "outcome", "target_ms", "window_low_ms", "window_high_ms", "stage"} <= set(trials)
+        presses = events[events["event"] == "lever_down"]["timestamp"].to_numpy()
+        # a completed trial starts at its first press: each start is a press time in the events table
+        done = trials[trials["outcome"].isin(["hit", "miss"])]
+        assert set(done["start_time"].round(6)) <= set(presses.round(6))
+        assert nwb.session_start_time.isoformat() == first["start"]
+    with pynwb.NWBHDF5IO(str(nwb_dir / "alder_session2.nwb"), "r") as io:
+        assert "EXCLUDED: @cable loose" in io.read().session_description
+
+
+def test_decide_records_figures_and_verdict_and_log_verifies(tmp_path, capsys, history):
+    out, _ = history
+    protocol = tmp_path / "alder.protocol.toml"
+    protocol.write_text((out / "alder.protocol.toml").read_text() + ELIGIBILITY)
+    db = tmp_path / "store.sqlite3"
+    files = sorted(out.glob("alder_s*.rsw"))
+    assert run_cli(capsys, "import", *files, "--protocol", protocol, "--db", db)[0] == 0
+    report = json.loads(run_cli(capsys, "report", "--db", db, "--animal", "alder", "--json")[1])["animals"][0]
+    code, stdout, err = run_cli(capsys, "decide", "--db", db, "--animal", "alder", "--decision", "eligible",
+                                "--group", "early", "--operator", "ana", "--reason", "looks ready",
+                                "--planned", "muscimol M1", "--planned-date", "2026-03-10")
+    assert code == 0, err
+    assert "entry 1" in stdout
+    row = sqlite3.connect(db).execute("SELECT reason, snapshot, rule_state, disagrees_with_rule, planned_date "
+                                      "FROM decisions").fetchone()
+    snapshot = json.loads(row[1])
+    assert row[0] == "looks ready" and row[4] == "2026-03-10"
+    assert snapshot["figures"]["measures"]["hit_rate"] == report["sessions"][-1]["hit_rate"]
+    assert snapshot["figures"]["plateau_reached"] == report["plateau"]["reached"]
+    assert snapshot["figures"]["slow_status"] == "not fitted"
+    # the rule says what it says; the person's decision is recorded either way, with the disagreement flagged
+    plateaued = report["plateau"]["reached"]
+    assert row[2] == snapshot["verdict"]["state"]
+    assert bool(row[3]) == (not plateaued)
+    code, stdout, err = run_cli(capsys, "decide", "--db", db, "--animal", "alder", "--decision", "deferred",
+                                "--operator", "bo", "--reason", "wrong animal entered", "--corrects", "1")
+    assert code == 0, err
+    code, _, err = run_cli(capsys, "decide", "--db", db, "--animal", "alder", "--decision", "deferred",
+                           "--operator", "bo", "--reason", "r", "--corrects", "7")
+    assert code == 2 and one_line(err) and "--corrects" in err
+    assert run_cli(capsys, "log", "verify", "--db", db)[:2] == (0, "2 entries, chain intact\n")
+    code, head, _ = run_cli(capsys, "log", "head", "--db", db)
+    assert code == 0 and head.startswith("2:")
+    assert run_cli(capsys, "log", "verify", "--db", db, "--head", head.strip())[0] == 0
+    log_csv = tmp_path / "log.csv"
+    assert run_cli(capsys, "log", "export", "--db", db, "--csv", log_csv)[0] == 0
+    with open(log_csv, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [(r["seq"], r["decision"], r["corrects"]) for r in rows] == [("1", "eligible", ""), ("2", "deferred", "1")]
+
+
+def test_corrupt_or_newer_database_is_refused_and_left_untouched(tmp_path, capsys, history):
+    out, _ = history
+    corrupt = tmp_path / "corrupt.sqlite3"
+    corrupt.write_bytes(b"SQLite format 3\x00" + b"\x07" * 4000)
+    newer = tmp_path / "newer.sqlite3"
+    conn = sqlite3.connect(newer)
+    conn.execute("PRAGMA application_id = 1381188657")  # 0x52534431, rigside's id (monitor.store.schema)
+    conn.execute("CREATE TABLE t (x)")
+    conn.execute("PRAGMA user_version = 99")
+    conn.close()
+    files = sorted(out.glob("alder_s*.rsw"))[:1]
+    for db, why in ((corrupt, "damaged"), (newer, "newer rigside")):
+        before = digest(db)
+        for args in (["import", *files, "--protocol", out / "alder.protocol.toml"], ["report", "--json"],
+                     ["decide", "--animal", "alder", "--decision", "deferred", "--operator", "a", "--reason", "r"]):
+            code, _, err = run_cli(capsys, *args, "--db", db)
+            assert code == 2 and one_line(err) and why in err and "left unchanged" in err, err
+        assert digest(db) == before
+
+
+HOLD_LOCK = """
+import sqlite3, sys, time
+conn = sqlite3.connect(sys.argv[1], isolation_level=None)
+conn.execute("BEGIN EXCLUSIVE")
+print("locked", flush=True)
+time.sleep(float(sys.argv[2]))
+conn.execute("COMMIT")
+open(sys.argv[3], "w").write("released")
+"""
+
+
+def test_import_waits_for_a_lock_held_by_another_process(tmp_path, capsys, history):
+    out, _ = history
+    db = tmp_path / "store.sqlite3"
+    assert import_animal(capsys, db, out, "birch", first=1)[0] == 0  # the file exists at the current version
+    released = tmp_path / "released"
+    holder = subprocess.Popen([sys.executable, "-c", HOLD_LOCK, str(db), "3", str(released)], stdout=subprocess.PIPE,
+                              text=True)
+    try:
+        assert holder.stdout.readline().strip() == "locked"
+        files = sorted(out.glob("alder_s*.rsw"))[:2]
+        result = cli("import", *files, "--protocol", out / "alder.protocol.toml", "--db", db)
+        assert result.returncode == 0, result.stderr
+        assert released.exists()  # the import could only commit after the other process let go
+    finally:
+        holder.wait(30)
+    assert holder.returncode == 0
+    assert sqlite3.connect(db).execute("SELECT count(DISTINCT animal) FROM sessions").fetchone()[0] == 2
+
+
+def test_import_gives_up_with_one_line_when_the_lock_outlasts_wait(tmp_path, capsys, history):
+    out, _ = history
+    db = tmp_path / "store.sqlite3"
+    assert import_animal(capsys, db, out, "birch", first=1)[0] == 0
+    released = tmp_path / "released"
+    holder = subprocess.Popen([sys.executable, "-c", HOLD_LOCK, str(db), "2", str(released)], stdout=subprocess.PIPE,
+                              text=True)
+    try:
+        assert holder.stdout.readline().strip() == "locked"
+        result = cli("import", *sorted(out.glob("alder_s*.rsw"))[:1], "--protocol", out / "alder.protocol.toml",
+                     "--db", db, "--wait", "0.2")
+        assert result.returncode == 2 and one_line(result.stderr) and "locked" in result.stderr, result.stderr
+    finally:
+        holder.wait(30)
+    assert sqlite3.connect(db).execute("SELECT count(*) FROM sessions WHERE animal = 'alder'").fetchone()[0] == 0
+
+
+def test_concurrent_decide_processes_each_take_their_own_seq(tmp_path, capsys, history):
+    out, _ = history
+    db = tmp_path / "store.sqlite3"
+    assert import_animal(capsys, db, out, "alder")[0] == 0
+    procs = [subprocess.Popen([sys.executable, "-m", "monitor.app", "decide", "--db", str(db), "--animal", "alder",
+                               "--decision", "deferred", "--operator", f"op{i}", "--reason", f"reason {i}"],
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True) for i in range(4)]
+    for proc in procs:
+        _, err = proc.communicate(timeout=120)
+        assert proc.returncode == 0, err
+    result = cli("log", "verify", "--db", db)
+    assert result.returncode == 0 and result.stdout.strip() == "4 entries, chain intact"
+    seqs = [r[0] for r in sqlite3.connect(db).execute("SELECT seq FROM decisions ORDER BY id")]
+    assert seqs == [1, 2, 3, 4]
+
+
+def test_full_disk_during_import_stores_nothing_and_says_so(tmp_path, capsys, history, monkeypatch):
+    out, _ = history
+    db = tmp_path / "store.sqlite3"
+    assert import_animal(capsys, db, out, "birch", first=1)[0] == 0
+    from monitor.store import db as store_db
+
+    real = store_db.open_store
+
+    def nearly_full(*args, **kwargs):
+        conn = real(*args, **kwargs)
+        pages = conn.execute("PRAGMA page_count").fetchone()[0]
+        conn.execute(f"PRAGMA max_page_count = {pages + 3}")  # SQLITE_FULL without filling the real disk
+        return conn
+
+    monkeypatch.setattr(store_db, "open_store", nearly_full)
+    code, _, err = import_animal(capsys, db, out, "alder")
+    assert code == 2 and one_line(err) and "full" in err and "0 of" in err, err
+    monkeypatch.setattr(store_db, "open_store", real)
+    conn = sqlite3.connect(db)
+    assert conn.execute("SELECT count(*) FROM sessions WHERE animal = 'alder'").fetchone()[0] == 0
+    assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == 1
+    conn.close()
+    assert import_animal(capsys, db, out, "alder")[0] == 0  # with space again, the same files import
