@@ -236,7 +236,7 @@ class MainWindow(QMainWindow):
         self.apply_palette()
 
     def changeEvent(self, event: QEvent) -> None:
-        if event.type() == QEvent.Type.PaletteChange:
+        if event.type() in (QEvent.Type.PaletteChange, QEvent.Type.ApplicationPaletteChange):
             self.apply_palette()
         super().changeEvent(event)
 

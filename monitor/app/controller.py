@@ -1,0 +1,707 @@
+"""The controller: sources → Fanout → (store writer, engine) → a ~20 Hz timer on the GUI thread → owners.
+
+Rule: the composition root of the desktop app. Each rig is one source (serial
+or file) whose reader thread calls its `Fanout`; the store writer and the
+engine run in their own threads. A QTimer on the GUI thread (`refresh`, ~20
+Hz) runs the callables workers posted, takes the engine's latest snapshots and
+alerts, and pushes view models to the RigBoard, AnimalBook and AlertBook,
+which announce only what changed (so an unchanged tile is not repainted).
+Everything that may wait (store calls, loading an animal's history, fitting
+the consolidation model) runs in a worker thread with progress and cancel,
+and hands its result back through the inbox. Check-in closes the rig's
+session and starts a new one (the engine first, then the Fanout); check-out
+ends it. Before any check-in a rig's events are kept in a session with no
+animal (animal ''). `close()` stops the sources, ends open sessions and
+flushes the writer; SIGINT/SIGTERM call it.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import queue
+import signal
+import sqlite3
+import sys
+import threading
+import time
+from datetime import datetime
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any, NamedTuple, Protocol as TypingProtocol
+
+from PySide6.QtCore import QObject, Qt, QTimer
+from PySide6.QtWidgets import QApplication, QLabel, QProgressBar, QPushButton
+
+from drivers.wire import Event, WireDecoder
+from monitor.app.alerting import AlertCentre, AlertStore, TableAlertStore
+from monitor.app.engine import Engine, RaisedAlert, RigSnapshot, SessionPlan
+from monitor.app.pipeline import Fanout
+from monitor.app import views
+from monitor.core.alerts import AlertRules, plateau_alert, store_alert
+from monitor.core.protocol import Protocol, parse_protocol
+from monitor.core.stats import LiveSession
+from monitor.store import db
+from monitor.store.writer import StoreWriter
+from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, RigSetup, TodayState
+from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
+
+REFRESH_MS = 50
+SWITCH_INTERVAL_S = 0.001  # Python's default 5 ms let 16 reader threads delay each Qt call (bench_latency.py)
+NO_ANIMAL = ""  # the sessions row of a rig's events before anyone checked in
+
+
+class RigSpec(NamedTuple):
+    """One rig on this PC: its source and its default protocol."""
+
+    name: str
+    kind: str                        # "serial" | "file"
+    path: str
+    protocol_path: Path
+    usb_serial: str | None = None
+    mapping_path: Path | None = None
+    valve_ul_per_ms: float | None = None
+    wait_for_header: bool = True
+
+
+class LoadedProtocol(NamedTuple):
+    protocol: Protocol
+    text: str
+    path: Path
+
+
+def load_protocol(path: Path) -> LoadedProtocol:
+    text = Path(path).read_text(encoding="utf-8")
+    return LoadedProtocol(parse_protocol(text, str(path)), text, Path(path))
+
+
+def decoder_factory(mapping_path: Path | None) -> Callable[[], Any]:
+    """A new line decoder per source: the wire format, or a lab's mapped format."""
+    if mapping_path is None:
+        return WireDecoder
+    from drivers.mapping import MappedDecoder, load_mapping
+
+    mapping = load_mapping(mapping_path)
+    return lambda: MappedDecoder(mapping)
+
+
+class Cancelled(Exception):
+    """A worker job was cancelled."""
+
+
+class Job:
+    """A worker's handle: report progress, check for cancel (any thread)."""
+
+    def __init__(self, title: str, post: Callable[[Callable[[], None]], None],
+                 on_progress: Callable[[str, float, str], None]) -> None:
+        self.title = title
+        self._post, self._on_progress = post, on_progress
+        self.cancel_event = threading.Event()
+
+    def progress(self, fraction: float, message: str = "") -> None:
+        if self.cancel_event.is_set():
+            raise Cancelled()
+        self._post(lambda: self._on_progress(self.title, fraction, message))
+
+    def cancelled(self) -> bool:
+        return self.cancel_event.is_set()
+
+
+class HistoryProvider(TypingProtocol):
+    """An animal's past sessions, segmented (runs in a worker thread)."""
+
+    def sessions(self, animal: str, protocol: Protocol, job: Job) -> list[views.HistorySession]: ...
+
+
+def segment(protocol: Protocol, events: Sequence[Event], stage: str | None = None) -> tuple[list, dict, float]:
+    """Trials, builder counts and water of one session's events (as the live view counts them)."""
+    live = LiveSession(protocol, stage)
+    for event in events:
+        live.feed(event)
+    live.finish()
+    return live.trials, dict(live.builder.counts), live.stats.water_ul
+
+
+def _hours_between(end: float | None, start: float | None) -> float:
+    if end is None or start is None or start <= end:
+        return 23.0
+    return (start - end) / 3600.0
+
+
+def store_v2() -> bool:
+    """Whether the store's records API (check-in, exclusions, derived trials, alerts table) is installed."""
+    try:
+        import monitor.store.derive  # noqa: F401
+        import monitor.store.records  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+class StoreHistory:
+    """Past (ended) sessions of an animal read from the store, in time order.
+
+    With the store's derived trials (store v2) those are read; a session without
+    them (recorded before, or not derived yet) is segmented from its events here.
+    """
+
+    def __init__(self, path: Path) -> None:
+        self.path = Path(path)
+
+    def sessions(self, animal: str, protocol: Protocol, job: Job) -> list[views.HistorySession]:
+        conn = db.open_store(self.path, readonly=True)
+        try:
+            columns = {row[1] for row in conn.execute("PRAGMA table_info(sessions)")}
+            v2 = "excluded" in columns and store_v2()
+            extra = ", excluded, coalesce(exclusion_reason, '')" if v2 else ", 0, ''"
+            rows = conn.execute(f"SELECT id, rig, start_wall, started_at, ended_at{extra} FROM sessions "
+                                "WHERE animal = ? AND ended_at IS NOT NULL ORDER BY started_at, id",
+                                (animal,)).fetchall()
+            stored, builds, conditions = {}, {}, {}
+            if v2:
+                from monitor.store.derive import trials_by_session
+                from monitor.store.records import conditions_of
+
+                ids = [r[0] for r in rows]
+                stored = trials_by_session(conn, ids)
+                for marks in (ids[i:i + 500] for i in range(0, len(ids), 500)):
+                    query = ("SELECT session_id, counts, water_ul, malformed FROM trial_builds WHERE session_id IN "
+                             f"({', '.join('?' * len(marks))})")
+                    builds.update({r[0]: r[1:] for r in conn.execute(query, marks)})
+                conditions = {i: "; ".join(c["what"] for c in conditions_of(conn, i)) for i in ids}
+            out: list[views.HistorySession] = []
+            previous_end = None
+            for k, (session_id, rig, start_wall, started, ended, excluded, reason) in enumerate(rows):
+                job.progress(k / max(len(rows), 1), f"session {k + 1} of {len(rows)}")
+                if session_id in builds:
+                    counts_text, water, malformed = builds[session_id]
+                    trials, counts = stored.get(session_id, []), json.loads(counts_text)
+                else:
+                    trials, counts, water = segment(protocol, self._events(conn, session_id))
+                    malformed = conn.execute("SELECT count(*) FROM raw_lines WHERE session_id = ? AND kind = "
+                                             "'malformed'", (session_id,)).fetchone()[0]
+                out.append(views.HistorySession(
+                    tuple(trials), start_wall[:16].replace("T", " "), rig, counts, water, malformed, bool(excluded),
+                    reason, conditions.get(session_id, ""), _hours_between(previous_end, started), session_id))
+                previous_end = ended
+            return out
+        finally:
+            conn.close()
+
+    @staticmethod
+    def _events(conn: sqlite3.Connection, session_id: int) -> list[Event]:
+        return [Event(t_us, name, tuple((value or "").split()) if name != "note" else (value or "",), raw, seg, line,
+                      0, 0)
+                for seg, line, t_us, raw, name, value in conn.execute(
+                    "SELECT e.segment, e.line, e.t_us, e.raw_time, c.name, e.value FROM events e "
+                    "JOIN event_codes c ON c.code = e.code WHERE e.session_id = ? ORDER BY e.rowid", (session_id,))]
+
+
+def _end_session(conn: sqlite3.Connection, session_id: int) -> None:
+    """Check out (store v2: the check-in record too, then derive the session's trials), else end it."""
+    if not store_v2():
+        db.end_session(conn, session_id)
+        return
+    from monitor.store import derive, records
+
+    try:
+        records.check_out(conn, session_id)
+    except records.RecordError:           # a session opened without a check-in record
+        db.end_session(conn, session_id)
+    derive.rebuild_trials(conn, session_id)
+
+
+class _Rig:
+    def __init__(self, spec: RigSpec, protocol: LoadedProtocol, source: Any, fanout: Fanout, source_id: int) -> None:
+        self.spec, self.protocol, self.source, self.fanout, self.source_id = spec, protocol, source, fanout, source_id
+        self.session_id: int | None = None          # the checked-in session
+        self.idle_session_id: int | None = None
+        self.animal: str | None = None
+        self.snapshot: RigSnapshot | None = None
+
+
+class Controller(QObject):
+    """Wires the live path and the window; GUI thread only (except where a method says otherwise)."""
+
+    def __init__(self, writer: StoreWriter, *, history: HistoryProvider | None = None,
+                 rules: AlertRules = AlertRules(), alert_store: AlertStore | None | str = "store",
+                 protocols: dict[str, LoadedProtocol] | None = None, refresh_ms: int = REFRESH_MS,
+                 fit_consolidation: bool = True, parent: QObject | None = None) -> None:
+        super().__init__(parent)
+        self.writer = writer
+        self.history = history or StoreHistory(writer.path)
+        self.engine = Engine(rules=rules)
+        self.board, self.book, self.alert_book = RigBoard(self), AnimalBook(self), AlertBook(self)
+        if alert_store == "store":       # the store's alerts table when it has one, else nothing is kept
+            alert_store = TableAlertStore(writer) if store_v2() else None
+        self.alerts = AlertCentre(self.alert_book, alert_store)
+        self.protocols: dict[str, LoadedProtocol] = dict(protocols or {})   # by animal
+        self.fit_consolidation = fit_consolidation
+        self.rigs: dict[str, _Rig] = {}
+        self.window = None
+        self.open_pages: set[str] = set()
+        self.history_parts: dict[str, views.HistoryParts] = {}
+        self.fits: dict[str, Any] = {}
+        self._loading: dict[str, Job] = {}
+        self._today: dict[str, tuple[int, TodayState | None]] = {}
+        self._plateau: dict[str, bool] = {}
+        self._store_failing = False
+        self._status_shown = None
+        self._inbox: queue.SimpleQueue[Callable[[], None]] = queue.SimpleQueue()
+        self._jobs: list[Job] = []
+        self._heavy = threading.Condition()   # one history load or fit at a time: the GUI keeps its share of the GIL
+        self._heavy_busy = False
+        self._heavy_waiting: list[str] = []
+        self.progress_bar: QProgressBar | None = None
+        self.progress_label: QLabel | None = None
+        self.cancel_button: QPushButton | None = None
+        self.painted: list[tuple[str, float]] = []    # (rig, reader stamp) of tile states handed to the board
+        self.refresh_seconds: list[float] = []
+        self.closed = False
+        self._previous_handlers: dict[int, Any] = {}
+        self.timer = QTimer(self)
+        self.timer.setInterval(refresh_ms)
+        self.timer.timeout.connect(self.refresh)
+
+    # --- start, stop -----------------------------------------------------------------------
+    def start(self, switch_interval_s: float = SWITCH_INTERVAL_S) -> None:
+        """Start the engine and the timer; shorten the interpreter's thread switch interval so the GUI
+        thread gets the GIL back within ~1 ms from the reader, engine and writer threads."""
+        sys.setswitchinterval(switch_interval_s)
+        self.engine.start()
+        self.timer.start()
+
+    def attach(self, window) -> None:
+        """Connect a MainWindow's requests and put the job progress into its status bar."""
+        self.window = window
+        window.checked_in.connect(self.check_in)
+        window.checked_out.connect(self.check_out)
+        window.rig_added.connect(self._rig_from_setup)
+        window.page_opened.connect(self.page_opened)
+        window.page_closed.connect(self.page_closed)
+        window.exclusion_requested.connect(self.exclude)
+        window.condition_requested.connect(self.add_condition)
+        self.progress_label = QLabel()
+        self.progress_label.setTextFormat(Qt.TextFormat.PlainText)
+        self.progress_bar = QProgressBar()
+        self.progress_bar.setFixedWidth(120)
+        self.progress_bar.setRange(0, 100)
+        self.progress_bar.setFormat("%p %")
+        self.cancel_button = QPushButton("Cancel")
+        self.cancel_button.setToolTip("Cancel the work in progress")
+        self.cancel_button.clicked.connect(self.cancel_jobs)
+        for widget in (self.progress_label, self.progress_bar, self.cancel_button):
+            window.statusBar().addPermanentWidget(widget)
+            widget.hide()
+        window.set_roster(self.roster())
+
+    def install_signal_handlers(self, app: QApplication) -> None:
+        """SIGINT/SIGTERM: close cleanly (the 20 Hz timer lets Python run the handler promptly)."""
+        def handler(signum, frame) -> None:
+            self.close()
+            app.quit()
+            QTimer.singleShot(0, app.quit)    # also when the event loop has not started yet
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            self._previous_handlers[sig] = signal.signal(sig, handler)
+
+    def close(self) -> bool:
+        """Stop the sources, end sessions, flush the store; True when every row was stored."""
+        if self.closed:
+            return True
+        self.closed = True
+        self.timer.stop()
+        for sig, previous in self._previous_handlers.items():
+            signal.signal(sig, previous)
+        self.cancel_jobs()
+        for rig in self.rigs.values():
+            rig.source.stop()
+        checked_in = [r.session_id for r in self.rigs.values() if r.session_id is not None]
+        idle = [r.idle_session_id for r in self.rigs.values() if r.idle_session_id is not None]
+        try:
+            self.writer.call(lambda c: ([_end_session(c, s) for s in checked_in],
+                                        [db.end_session(c, s) for s in idle]))
+        except Exception:  # noqa: BLE001 - the events matter more than the end times
+            pass
+        self.engine.stop()
+        return self.writer.stop()
+
+    # --- rigs ------------------------------------------------------------------------------
+    def add_rig(self, spec: RigSpec, start: bool = True,
+                source_factory: Callable[[Fanout], Any] | None = None) -> None:
+        """Register a rig and start its source now (blocks on the store: for start-up).
+
+        `source_factory(fanout)` replaces the serial or file source (benchmarks, simulators): the
+        object it returns needs `start()`, `stop()` and `status() -> SourceStatus`.
+        """
+        self._start_rig(self._register(spec), start, source_factory)
+
+    def start_source(self, name: str) -> None:
+        """Start the reader of a rig added with `start=False` (e.g. once its animal is checked in)."""
+        if not self.closed:
+            self.rigs[name].source.start()
+
+    def _register(self, spec: RigSpec) -> tuple:
+        """The store side of adding a rig (any thread): source row, idle session, resume point."""
+        protocol = load_protocol(spec.protocol_path)
+        key = str(Path(spec.path).resolve()) if spec.kind == "file" else spec.path
+        source_id = self.writer.call(lambda c: db.register_source(
+            c, spec.kind, key, spec.name, spec.usb_serial, str(spec.mapping_path) if spec.mapping_path else None))
+        idle = self.writer.call(lambda c: db.start_session(c, source_id, NO_ANIMAL, spec.name, None, None, None))
+        resume = (self.writer.call(lambda c: db.file_position(c, source_id), transaction=False)
+                  if spec.kind == "file" else None)
+        return spec, protocol, source_id, idle, resume
+
+    def _start_rig(self, registered: tuple, start: bool = True,
+                   source_factory: Callable[[Fanout], Any] | None = None) -> None:
+        spec, protocol, source_id, idle, resume = registered
+        fanout = Fanout(self.writer, source_id=source_id, session_id=idle, live=spec.kind == "serial",
+                        engine=self.engine.queue)
+        factory = decoder_factory(spec.mapping_path)
+        if source_factory is not None:
+            source: Any = source_factory(fanout)
+        elif spec.kind == "file":
+            from drivers.tail import FileTail
+
+            source = FileTail(spec.path, fanout, decoder_factory=factory, resume=resume,
+                                   should_pause=lambda: self.writer.backlogged)
+        else:
+            from drivers.serial import SerialSource
+
+            source = SerialSource(spec.path, fanout, usb_serial=spec.usb_serial, decoder=factory(),
+                                  wait_for_header=spec.wait_for_header and spec.mapping_path is None)
+        rig = _Rig(spec, protocol, source, fanout, source_id)
+        rig.idle_session_id = idle
+        self.rigs[spec.name] = rig
+        self.engine.add_rig(spec.name, source_id, source.status)
+        if start:
+            source.start()
+        self._refresh_roster()
+
+    def _rig_from_setup(self, setup: RigSetup) -> None:
+        spec = RigSpec(setup.name, setup.source, setup.path, Path(setup.protocol_path), setup.serial_number,
+                       Path(setup.mapping_path) if setup.mapping_path else None, setup.valve_ul_per_ms)
+        self.run_job(f"adding {setup.name}", lambda job: self._register(spec), self._start_rig)
+
+    def roster(self) -> Roster:
+        animals = sorted(set(self.protocols) | {r.animal for r in self.rigs.values() if r.animal})
+        stages = sorted({s.name for p in [*self.protocols.values(), *(r.protocol for r in self.rigs.values())]
+                         for s in p.protocol.stages})
+        usual = {a: tuple(sorted({row.rig for row in parts.sessions if row.rig}))
+                 for a, parts in self.history_parts.items()}
+        return Roster(animals=tuple(animals), rigs=tuple(self.rigs), stages=tuple(stages), usual_rigs=usual,
+                      occupied={n: r.animal for n, r in self.rigs.items() if r.animal}, operators=())
+
+    # --- check-in, check-out ---------------------------------------------------------------------
+    def check_in(self, record: CheckIn) -> None:
+        """Start a session of `record.animal` in `record.rig` (the store call runs in a worker)."""
+        rig = self.rigs[record.rig]
+        loaded = self.protocols.get(record.animal, rig.protocol)
+        stage = record.stage if loaded.protocol.stage(record.stage) is not None else None
+        previous = rig.session_id
+
+        def work(job: Job) -> tuple[int, str | None]:
+            def start(conn: sqlite3.Connection) -> tuple[int, str | None]:
+                if previous is not None:
+                    _end_session(conn, previous)
+                if not store_v2():
+                    return db.start_session(conn, rig.source_id, record.animal, record.rig, loaded.protocol.name,
+                                            loaded.protocol.version, loaded.text), None
+                from monitor.store import records
+
+                protocol_id = records.ensure_protocol(conn, loaded.protocol.name, loaded.protocol.version,
+                                                      loaded.text)
+                return records.check_in(conn, animal=record.animal, rig=record.rig, operator=record.operator,
+                                        protocol_id=protocol_id, weight_before_g=record.weight_g, stage=stage,
+                                        source_id=rig.source_id)
+            return self.writer.call(start)
+
+        def done(result: tuple[int, str | None]) -> None:
+            session_id, warning = result
+            if warning and self.window is not None:
+                self.window.statusBar().showMessage(f"Checked in. Note: {warning}", 15000)
+            if rig.session_id is not None:
+                self.engine.close_session(record.rig, rig.session_id)
+            self.engine.open_session(SessionPlan(record.rig, session_id, record.animal, loaded.protocol, stage,
+                                                 rig.spec.valve_ul_per_ms, started=time.monotonic()))
+            rig.fanout.session_id = session_id                 # after the engine knows the session
+            rig.session_id, rig.animal = session_id, record.animal
+            self.protocols.setdefault(record.animal, loaded)     # its history is read with this protocol
+            self._refresh_roster()
+            self.load_history(record.animal)
+
+        self.run_job(f"checking in {record.animal}", work, done)
+
+    def check_out(self, rig_name: str) -> None:
+        rig = self.rigs.get(rig_name)
+        if rig is None or rig.session_id is None:
+            return
+        session_id, animal = rig.session_id, rig.animal
+        self.engine.close_session(rig_name, session_id)
+        rig.fanout.session_id = rig.idle_session_id
+        rig.session_id, rig.animal = None, None
+        self._refresh_roster()
+
+        def done(_: Any) -> None:
+            if animal:
+                self.load_history(animal, refresh=True)
+
+        self.run_job(f"checking out {animal}", lambda job: self.writer.call(lambda c: _end_session(c, session_id)),
+                     done)
+
+    def _refresh_roster(self) -> None:
+        if self.window is not None:
+            self.window.set_roster(self.roster())
+
+    # --- exclusions and conditions (store v2) ---------------------------------------------------------
+    def _stored_session(self, animal: str, index: int) -> int | None:
+        parts = self.history_parts.get(animal)
+        if parts is None or not 1 <= index <= len(parts.session_ids):
+            return None
+        return parts.session_ids[index - 1]
+
+    def _operator(self) -> str:
+        return self.window.alert_panel.operator.text().strip() if self.window is not None else ""
+
+    def _record(self, what: str, animal: str, index: int, fn: Callable[[sqlite3.Connection, int, str], Any]) -> None:
+        session_id, operator = self._stored_session(animal, index), self._operator()
+        if not store_v2() or session_id is None or not operator:
+            why = ("this store has no records of that kind" if not store_v2() else
+                   "session not found in the store" if session_id is None else
+                   "type your name in the Operator field first")
+            if self.window is not None:
+                self.window.statusBar().showMessage(f"{what} not saved: {why}.", 15000)
+            return
+        self.run_job(f"{what} for {animal}", lambda job: self.writer.call(lambda c: fn(c, session_id, operator)),
+                     lambda _: self.load_history(animal, refresh=True))
+
+    def exclude(self, record: Exclusion) -> None:
+        """Flag a session excluded with its reason (kept, left out of curves and fits)."""
+        from monitor.store import records as store_records
+
+        self._record("exclusion", record.animal, record.session,
+                     lambda c, sid, who: store_records.exclude_session(c, sid, record.reason, who))
+
+    def add_condition(self, record: ConditionRecord) -> None:
+        from monitor.store import records as store_records
+
+        at = datetime.now().astimezone().isoformat(timespec="seconds")
+        self._record("condition", record.animal, record.session, lambda c, sid, who: store_records.add_condition(
+            c, sid, what=record.what, operator=who, at=at, dose=record.dose or None, volume_ul=record.volume_ul,
+            sham=record.sham, notes=record.note or None))
+
+    # --- history ------------------------------------------------------------------------------------
+    def load_history(self, animal: str, refresh: bool = False) -> None:
+        """Load (or reload) an animal's history and fit, off the GUI thread."""
+        if animal in self._loading or (animal in self.history_parts and not refresh):
+            return
+        loaded = self._protocol_of(animal)
+        if loaded is None:
+            return
+        protocol = loaded.protocol
+
+        def work(job: Job):
+            with self._heavy_turn(job, animal):
+                sessions = self.history.sessions(animal, protocol, job)
+                parts = views.history_parts(protocol, sessions)
+            self._post(lambda: self._history_ready(animal, parts))
+            if not self.fit_consolidation:
+                return None
+            from monitor.core.consolidation import estimate_consolidation
+
+            warm = getattr(self.fits.get(animal), "warm_start", None)
+            with self._heavy_turn(job, animal):
+                series = views.consolidation_series(protocol, sessions)
+                if len(series.y) == 0:            # no trial of the final stage yet: nothing to fit
+                    return None
+                fit = estimate_consolidation(series, warm_start=warm, cancel=job.cancelled,
+                                             progress=lambda f, m: job.progress(f, f"consolidation model: {m}"))
+                if fit.status == "cancelled":
+                    raise Cancelled()
+                return views.history_parts(protocol, sessions, fit), fit
+
+        def done(result) -> None:
+            self._loading.pop(animal, None)
+            if result is None:
+                self.fits.setdefault(animal, None)
+            else:
+                parts, fit = result
+                self.fits[animal] = fit
+                self._history_ready(animal, parts)
+
+        self._loading[animal] = self.run_job(f"history of {animal}", work, done,
+                                             failed=lambda: self._loading.pop(animal, None))
+
+    @contextlib.contextmanager
+    def _heavy_turn(self, job: Job, animal: str):
+        """Wait (cancellably) for the one slot for heavy work; animals with an open page go first."""
+        with self._heavy:
+            self._heavy_waiting.append(animal)
+            try:
+                while self._heavy_busy or (animal not in self.open_pages
+                                           and any(a in self.open_pages for a in self._heavy_waiting)):
+                    if job.cancelled():
+                        raise Cancelled()
+                    self._heavy.wait(0.2)
+                self._heavy_busy = True
+            finally:
+                self._heavy_waiting.remove(animal)
+        try:
+            yield
+        finally:
+            with self._heavy:
+                self._heavy_busy = False
+                self._heavy.notify_all()
+
+    def _protocol_of(self, animal: str) -> LoadedProtocol | None:
+        if animal in self.protocols:
+            return self.protocols[animal]
+        for rig in self.rigs.values():
+            if rig.animal == animal:
+                return rig.protocol
+        return None
+
+    def _history_ready(self, animal: str, parts: views.HistoryParts) -> None:
+        self.history_parts[animal] = parts
+        alert = plateau_alert(self._plateau.get(animal), parts.plateau_reached, parts.plateau_session,
+                              parts.plateau_reason)
+        self._plateau[animal] = parts.plateau_reached
+        if alert is not None:
+            rig = next((n for n, r in self.rigs.items() if r.animal == animal), "")
+            self.alerts.push(RaisedAlert(rig, animal, alert, time.time()))
+        self._refresh_roster()
+        self._push_page(animal)
+
+    # --- pages ------------------------------------------------------------------------------------------
+    def page_opened(self, animal: str) -> None:
+        self.open_pages.add(animal)
+        self.load_history(animal)
+        self._push_page(animal)
+
+    def page_closed(self, animal: str) -> None:
+        self.open_pages.discard(animal)
+
+    def _push_page(self, animal: str) -> None:
+        if animal not in self.open_pages:
+            return
+        rig = next((r for r in self.rigs.values() if r.animal == animal), None)
+        loaded = self._protocol_of(animal)
+        today = None
+        if rig is not None and rig.snapshot is not None and rig.snapshot.animal == animal:
+            version, cached = self._today.get(animal, (-1, None))
+            if version != rig.snapshot.version:
+                parts = self.history_parts.get(animal)
+                cached = views.today_state(rig.snapshot, parts.previous_intervals if parts else None,
+                                           time.monotonic())
+                self._today[animal] = (rig.snapshot.version, cached)
+            today = cached
+        self.book.update(views.page_state(animal, rig.spec.name if rig else None,
+                                          loaded.protocol.name if loaded else "", today,
+                                          self.history_parts.get(animal)))
+
+    # --- the timer ---------------------------------------------------------------------------------------
+    def refresh(self) -> None:
+        """One tick on the GUI thread: inbox, snapshots, alerts, tiles, pages, status bar."""
+        started = time.perf_counter()
+        while True:
+            try:
+                self._inbox.get_nowait()()
+            except queue.Empty:
+                break
+        fresh = self.engine.take_snapshots()
+        for name, snap in fresh.items():
+            if name in self.rigs:
+                self.rigs[name].snapshot = snap
+        for raised in self.engine.take_alerts():
+            self.alerts.push(raised)
+        wstatus = self.writer.status()
+        failing = wstatus.state in ("failed", "overflow")
+        alert = store_alert(self._store_failing, failing, wstatus.text)
+        self._store_failing = failing
+        if alert is not None:
+            self.alerts.push(RaisedAlert("", None, alert, time.time()))
+        now = time.monotonic()
+        statuses = {}
+        for name, rig in self.rigs.items():
+            status = rig.source.status()
+            statuses[name] = status
+            count, worst = self.alerts.summary(name)
+            tile = views.tile_state(name, rig.snapshot, status, now=now, source_text=rig.spec.path,
+                                    alert_count=count, alert_severity=worst)
+            if self.board.update(tile) and name in fresh:
+                self.painted.append((name, fresh[name].newest_stamp))
+            if rig.animal and name in fresh:
+                self._push_page(rig.animal)
+        bar = views.status_state(statuses, wstatus.state, wstatus.text, wstatus.committed_events)
+        if self.window is not None and bar != self._status_shown:
+            self._status_shown = bar
+            self.window.set_status(bar)
+        self.refresh_seconds.append(time.perf_counter() - started)
+        del self.refresh_seconds[:-1000]
+        del self.painted[:-10000]
+
+    # --- worker jobs -----------------------------------------------------------------------------------
+    def _post(self, fn: Callable[[], None]) -> None:
+        """Run `fn` on the GUI thread at the next tick (any thread)."""
+        self._inbox.put(fn)
+
+    def run_job(self, title: str, work: Callable[[Job], Any], done: Callable[[Any], None],
+                failed: Callable[[], None] | None = None) -> Job:
+        """Run `work(job)` in a worker thread; `done(result)` then runs on the GUI thread."""
+        job = Job(title, self._post, self._show_progress)
+        self._jobs.append(job)
+
+        def run() -> None:
+            try:
+                result = work(job)
+            except Cancelled:
+                self._post(lambda: self._job_over(job, f"{title}: cancelled", failed))
+                return
+            except Exception as exc:  # noqa: BLE001 - shown in the status bar, never swallowed
+                message = f"{title} failed: {type(exc).__name__}: {exc}"
+                self._post(lambda: self._job_over(job, message, failed))
+                return
+            self._post(lambda: (self._job_over(job, "", None), done(result)))
+
+        threading.Thread(target=run, name=title, daemon=True).start()
+        return job
+
+    def _job_over(self, job: Job, message: str, failed: Callable[[], None] | None) -> None:
+        if job in self._jobs:
+            self._jobs.remove(job)
+        if failed is not None:
+            failed()
+        if self.window is not None:
+            if message:
+                self.window.statusBar().showMessage(message, 10000)
+            if not self._jobs and self.progress_bar is not None:
+                for widget in (self.progress_label, self.progress_bar, self.cancel_button):
+                    widget.hide()
+
+    def _show_progress(self, title: str, fraction: float, message: str) -> None:
+        if self.progress_bar is None or not any(j.title == title for j in self._jobs):
+            return
+        self.progress_bar.setValue(int(round(100 * min(max(fraction, 0.0), 1.0))))
+        self.progress_label.setText(title)
+        self.progress_label.setToolTip(message)
+        for widget in (self.progress_label, self.progress_bar, self.cancel_button):
+            widget.show()
+
+    def cancel_jobs(self) -> None:
+        for job in self._jobs:
+            job.cancel_event.set()
+
+    def jobs(self) -> list[str]:
+        return [j.title for j in self._jobs]
+
+
+def wait_for(condition: Callable[[], bool], timeout: float, app: QApplication | None = None) -> bool:
+    """Process Qt events until `condition()` holds or `timeout` seconds pass."""
+    deadline = time.monotonic() + timeout
+    app = app or QApplication.instance()
+    while not condition():
+        if time.monotonic() > deadline:
+            return False
+        app.processEvents()
+        time.sleep(0.01)
+    return True
+

@@ -1,0 +1,238 @@
+"""`rigside demo`: four simulated boxes through the real serial path, the store and the full window.
+
+Rule: the demo cohort of mock_rig (naive, learning, plateaued but not
+consolidated, consolidated, with weeks of generated history) is written into
+the demo folder (a fresh temporary one unless `--folder`), each animal goes
+live on its own pseudo-terminal behind a symlink and is read by the real
+`SerialSource`, through the Fanout into a fresh demo database (unless `--db`)
+and the engine, and each animal is checked in to its box. Without ptys
+(Windows), or with `--files`, each box appends to a log file read by the real
+`FileTail`. History: the generated session files are imported into the demo
+database with the store's importer in a worker job (progress in the status
+bar), and animal pages read their history from the store once it is done;
+where the store has no importer, the parts are computed from the files
+directly (`FileHistory`). Headless (`--headless`) uses the
+offscreen platform, sizes the window 1366×768 and saves `window.grab()` to
+`--screenshot` when `--seconds` have passed; exit 0 when every row was stored.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import threading
+import tempfile
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from pathlib import Path
+
+from drivers.wire import Event, Header, Malformed, decode_all
+from monitor.app import views
+from monitor.core.protocol import Protocol
+
+SECTIONS = {"today": 0, "curve": 1, "consolidation": 2, "sessions": 3}
+CHECK_IN_WEIGHT_G = 310.0   # the demo's rats weigh in at this (our own figure)
+
+
+@dataclass
+class DemoOptions:
+    speed: float = 10.0
+    seconds: float | None = None
+    headless: bool = False
+    screenshot: Path | None = None
+    db: Path | None = None
+    folder: Path | None = None
+    seed: int = 7
+    animal: str | None = None
+    section: str = "today"
+    files: bool = False
+    fit: bool = True
+    wait_history: float = 0.0
+    history: tuple[int, ...] | None = None   # sessions of history per animal (default: mock_rig's 1, 8, 20, 75)
+
+
+class FileHistory:
+    """Past sessions of the demo animals, read from the generated session files."""
+
+    def __init__(self, files: dict[str, list[Path]]) -> None:
+        self.files = files
+
+    def sessions(self, animal: str, protocol: Protocol, job) -> list[views.HistorySession]:
+        from monitor.app.controller import segment
+
+        paths = self.files.get(animal, [])
+        out: list[views.HistorySession] = []
+        previous_end: datetime | None = None
+        for k, path in enumerate(paths):
+            job.progress(k / max(len(paths), 1), f"session {k + 1} of {len(paths)}")
+            records = decode_all(path.read_bytes())
+            events = [r for r in records if isinstance(r, Event)]
+            start_text = next((r.fields.get("start", "") for r in records if isinstance(r, Header)), "")
+            start = datetime.fromisoformat(start_text) if start_text else None
+            trials, counts, water = segment(protocol, events)
+            hours = 23.0
+            if start is not None and previous_end is not None:
+                hours = max((start - previous_end).total_seconds() / 3600.0, 0.0)
+            if start is not None and events:
+                previous_end = start + timedelta(microseconds=events[-1].t_us - events[0].t_us)
+            malformed = sum(1 for r in records if isinstance(r, Malformed))
+            out.append(views.HistorySession(tuple(trials), start_text[:16].replace("T", " "),
+                                            _box_of(records), counts, water, malformed, break_hours=hours))
+        return out
+
+
+def _box_of(records) -> str:
+    return next((r.fields.get("rig", "") for r in records if isinstance(r, Header)), "")
+
+
+class ImportedHistory:
+    """The store's history, once the demo's files are imported (waits, cancellably, until then)."""
+
+    def __init__(self, inner, done: threading.Event) -> None:
+        self.inner, self.done = inner, done
+
+    def sessions(self, animal: str, protocol: Protocol, job) -> list[views.HistorySession]:
+        while not self.done.wait(0.2):
+            job.progress(0.0, "waiting for the demo history to be imported")
+        return self.inner.sessions(animal, protocol, job)
+
+
+def importer_available() -> bool:
+    try:
+        from monitor.store.importer import import_file  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def import_history(controller, prepared, done: threading.Event) -> None:
+    """Import every demo session file into the store, in a worker job; set `done` at the end."""
+    from monitor.store.importer import ImportRefused, import_file
+
+    files = [(d, path) for d in prepared for path in d.session_files]
+
+    def work(job) -> int:
+        count = 0
+        try:
+            for k, (d, path) in enumerate(files):
+                job.progress(k / len(files), f"{path.name}")
+                text = d.protocol_path.read_text(encoding="utf-8")
+                protocol = controller.protocols[d.animal.name].protocol
+                data = path.read_bytes()
+                try:
+                    controller.writer.call(lambda c: import_file(
+                        c, path, data, protocol_text=text, protocol_name=protocol.name,
+                        protocol_version=protocol.version, animal=d.animal.name))
+                    count += 1
+                except ImportRefused:       # --db given and imported before: keep what is there
+                    pass
+        finally:
+            done.set()
+        return count
+
+    def finished(count: int) -> None:
+        for animal in list(controller.history_parts):
+            controller.load_history(animal, refresh=True)
+
+    controller.run_job("importing the demo history", work, finished)
+
+
+def run(options: DemoOptions, inspect=None) -> int:
+    """Run the demo until the window closes, a signal, or `options.seconds`; the exit code.
+
+    `inspect(controller, window)` is called at the end, before anything stops (tests use it).
+    """
+    if options.headless:
+        os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    from PySide6.QtCore import QCoreApplication, QEvent, QSettings, QTimer
+    from PySide6.QtWidgets import QApplication
+
+    from mock_rig.demo import STAGES, prepare_demo, start_demo
+    from mock_rig.live import LiveRig, stop_rigs
+    from mock_rig.outputs import FileOutput
+    from monitor.app.controller import Controller, RigSpec, StoreHistory, load_protocol, wait_for
+    from monitor.app.discovery import discover_devices
+    from monitor.core.alerts import AlertRules
+    from monitor.store.writer import StoreWriter
+    from monitor.ui.main_window import MainWindow
+    from monitor.ui.models import CheckIn
+
+    folder = options.folder or Path(tempfile.mkdtemp(prefix="rigside-demo-"))
+    folder.mkdir(parents=True, exist_ok=True)
+    db_path = options.db or folder / "demo.sqlite3"
+    print(f"rigside demo: files in {folder}, database {db_path}", file=sys.stderr)
+    stages = STAGES if options.history is None else tuple(
+        (label, name, count) for (label, name, _), count in zip(STAGES, options.history))
+    prepared = prepare_demo(folder / "history", seed=options.seed, stages=stages)
+    app = QApplication.instance() or QApplication(sys.argv[:1])
+    writer = StoreWriter(db_path)
+    writer.start()
+    protocols = {d.animal.name: load_protocol(d.protocol_path) for d in prepared}
+    imported = threading.Event()
+    if importer_available():
+        history = ImportedHistory(StoreHistory(db_path), imported)
+    else:
+        history = FileHistory({d.animal.name: d.session_files for d in prepared})
+    controller = Controller(writer, history=history, rules=AlertRules(clock_rate=options.speed),
+                            protocols=protocols, fit_consolidation=options.fit)
+    settings = None if options.headless else QSettings("rigside", "rigside-demo")
+    window = MainWindow(controller.board, controller.book, controller.alert_book, settings=settings,
+                        discover_devices=discover_devices,
+                        protocols=lambda: [str(d.protocol_path) for d in prepared])
+    controller.attach(window)
+    use_files = options.files or not hasattr(os, "openpty")
+    if use_files:
+        rigs = []
+        for d in prepared:
+            path = folder / f"{d.animal.board.rig_name}.rsw"
+            rigs.append(LiveRig(d.animal, FileOutput(path), speed=options.speed, sessions=None).start())
+            controller.add_rig(RigSpec(d.animal.board.rig_name, "file", str(path), d.protocol_path), start=False)
+    else:
+        rigs = start_demo(prepared, link_dir=folder / "dev", speed=options.speed)
+        for d in prepared:
+            controller.add_rig(RigSpec(d.animal.board.rig_name, "serial", str(folder / "dev" / d.animal.name),
+                                       d.protocol_path), start=False)
+    window.resize(1366, 768)
+    window.show()
+    controller.start()
+    controller.install_signal_handlers(app)
+    if isinstance(history, ImportedHistory):
+        import_history(controller, prepared, imported)
+    for d in prepared:       # check in first, then open the ports: every event lands in its animal's session
+        stage = d.animal.protocol.stages[d.animal.stage_index].name
+        controller.check_in(CheckIn(d.animal.name, d.animal.board.rig_name, "demo", CHECK_IN_WEIGHT_G, stage))
+    wait_for(lambda: all(r.session_id is not None for r in controller.rigs.values()), 10.0, app)
+    for name in controller.rigs:
+        controller.start_source(name)
+    if options.animal:
+        wait_for(lambda: options.animal in controller.roster().occupied.values(), 10.0, app)
+        page = window.open_animal(options.animal)
+        page.sections.setCurrentIndex(SECTIONS[options.section])
+
+    def finish() -> None:
+        if options.wait_history and options.animal:
+            wait_for(lambda: options.animal in controller.history_parts
+                     and (not options.fit or options.animal in controller.fits), options.wait_history, app)
+            wait_for(lambda: False, 0.3, app)
+        if options.screenshot is not None:
+            window.resize(1366, 768)
+            app.processEvents()
+            window.grab().save(str(options.screenshot))
+        if inspect is not None:
+            inspect(controller, window)
+        window.close()
+        app.quit()
+
+    if options.seconds is not None:
+        QTimer.singleShot(int(options.seconds * 1000), finish)
+    try:
+        app.exec()
+    finally:
+        stored = controller.close()
+        stop_rigs(rigs)
+        window.deleteLater()  # leave no top-level window behind in a host application (tests)
+        QCoreApplication.sendPostedEvents(None, QEvent.Type.DeferredDelete)
+    totals = {name: (rig.snapshot.live.trials if rig.snapshot and rig.snapshot.live else 0)
+              for name, rig in controller.rigs.items()}
+    print("rigside demo: trials per box: " + ", ".join(f"{k} {v}" for k, v in totals.items()), file=sys.stderr)
+    return 0 if stored else 1

@@ -1,0 +1,184 @@
+"""monitor.app.controller: a file source through the Fanout, store and engine to the owners (offscreen)."""
+
+from __future__ import annotations
+
+import datetime as dt
+import importlib.util
+import sqlite3
+import threading
+from pathlib import Path
+
+import pytest
+
+from monitor.app.controller import Controller, RigSpec
+from monitor.store.writer import StoreWriter
+from monitor.ui.main_window import MainWindow
+from monitor.ui.models import CheckIn, Severity
+
+spec = importlib.util.spec_from_file_location("app_engine_streams_c", Path(__file__).with_name("test_app_engine.py"))
+streams = importlib.util.module_from_spec(spec)
+spec.loader.exec_module(streams)
+
+PROTOCOL_TEXT = """
+[protocol]
+name = "two-press 650 ms"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+
+[plateau]
+rule = "consecutive_sessions"
+min_hit_rate = 0.5
+sessions = 3
+min_trials = 5
+"""
+
+
+class RecordingAlertStore:
+    def __init__(self) -> None:
+        self.saved, self.acks = [], []
+        self.lock = threading.Lock()
+
+    def save(self, alert) -> None:
+        with self.lock:
+            self.saved.append(alert)
+
+    def acknowledge(self, alert_id, operator, when) -> None:
+        with self.lock:
+            self.acks.append((alert_id, operator, when))
+
+
+@pytest.fixture
+def rig(qapp, tmp_path):
+    protocol = tmp_path / "p.toml"
+    protocol.write_text(PROTOCOL_TEXT)
+    log = tmp_path / "box1.rsw"
+    log.write_bytes(b"")
+    writer = StoreWriter(tmp_path / "t.sqlite3")
+    writer.start()
+    store = RecordingAlertStore()
+    controller = Controller(writer, alert_store=store, fit_consolidation=False)
+    window = MainWindow(controller.board, controller.book, controller.alert_book)
+    controller.attach(window)
+    controller.add_rig(RigSpec("box 1", "file", str(log), protocol))
+    controller.start()
+    yield controller, window, log, store, tmp_path / "t.sqlite3"
+    controller.close()
+    window.close()
+
+
+def sessions_in(db):
+    with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+        return conn.execute("SELECT animal, rig, ended_at IS NOT NULL FROM sessions ORDER BY id").fetchall()
+
+
+def test_check_in_trials_reach_the_tile_and_check_out_ends_the_session(rig, qtbot):
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    intervals = [650, 700, 1000, 640, 300, 655]
+    with log.open("ab") as fh:
+        fh.write(streams.session_bytes(intervals, valve_ms=900))
+    qtbot.waitUntil(lambda: (controller.board.state("box 1") or None) is not None
+                    and controller.board.state("box 1").trials_today == 6, timeout=10000)
+    tile = controller.board.state("box 1")
+    assert tile.animal == "wren" and tile.source_text == str(log)
+    # the valve rule fired once, shows on the tile, and went to the alert store
+    qtbot.waitUntil(lambda: controller.board.state("box 1").alert_count == 1, timeout=5000)
+    assert controller.board.state("box 1").alert_severity is Severity.URGENT
+    alert = controller.alert_book.alerts()[0]
+    assert alert.kind == "valve open too long"
+    qtbot.waitUntil(lambda: len(store.saved) == 1, timeout=5000)
+    assert controller.alert_book.acknowledge(alert.id, "ana")
+    qtbot.waitUntil(lambda: len(store.acks) == 1, timeout=5000)
+    assert store.acks[0][:2] == (alert.id, "ana") and isinstance(store.acks[0][2], dt.datetime)
+    qtbot.waitUntil(lambda: controller.board.state("box 1").alert_count == 0, timeout=5000)
+    # a quiet tick changes nothing on the board
+    changed = []
+    controller.board.rig_changed.connect(changed.append)
+    controller.refresh()
+    controller.refresh()
+    assert len(changed) <= 1                      # at most the session clock's next second
+    controller.check_out("box 1")
+    qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
+    qtbot.waitUntil(lambda: controller.board.state("box 1").animal is None, timeout=5000)
+    assert controller.board.state("box 1").connection.word == "idle"
+
+
+def test_history_comes_from_the_store_when_the_page_opens(rig, qtbot):
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    with log.open("ab") as fh:
+        fh.write(streams.session_bytes([650, 660, 640, 1000, 655]))
+    qtbot.waitUntil(lambda: controller.board.state("box 1").trials_today == 5, timeout=10000)
+    qtbot.waitUntil(lambda: controller.writer.status().committed_events > 0 and
+                    controller.writer.status().pending_rows == 0, timeout=10000)
+    controller.check_out("box 1")
+    qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
+    from monitor.app.controller import store_v2
+    if store_v2():                                  # the store derived the session's trials at check-out
+        with sqlite3.connect(db) as conn:
+            assert conn.execute("SELECT count(*) FROM trials").fetchone()[0] == 5
+    controller.history_parts.clear()
+    window.open_animal("wren")
+    qtbot.waitUntil(lambda: "wren" in controller.history_parts, timeout=20000)
+    rows = controller.history_parts["wren"].sessions
+    assert [(r.trials, r.hits, r.rig) for r in rows] == [(5, 4, "box 1")]
+    page = controller.book.state("wren")
+    assert page is not None and page.curve is controller.history_parts["wren"].curve
+    if store_v2():                                  # an exclusion from the page goes to the store
+        from monitor.ui.models import Exclusion
+        window.alert_panel.operator.setText("ana")
+        controller.exclude(Exclusion("wren", 1, "cable fault"))
+        qtbot.waitUntil(lambda: "wren" in controller.history_parts and
+                        controller.history_parts["wren"].sessions[0].excluded, timeout=20000)
+        assert controller.history_parts["wren"].sessions[0].exclusion_reason == "cable fault"
+
+
+def test_long_work_shows_progress_and_can_be_cancelled(rig, qtbot):
+    controller, window, *_ = rig
+    started = threading.Event()
+
+    def work(job):
+        started.set()
+        while True:
+            job.progress(0.5, "waiting")
+            job.cancel_event.wait(0.05)
+
+    controller.run_job("a long job", work, lambda result: None)
+    qtbot.waitUntil(lambda: controller.progress_bar.isVisibleTo(window), timeout=5000)
+    assert controller.progress_bar.value() == 50 and controller.progress_label.text() == "a long job"
+    controller.cancel_jobs()
+    qtbot.waitUntil(lambda: controller.jobs() == [], timeout=5000)
+    assert "cancelled" in window.statusBar().currentMessage()
+    assert not controller.progress_bar.isVisibleTo(window)
+
+
+def test_a_failing_job_is_shown_not_swallowed(rig, qtbot):
+    controller, window, *_ = rig
+    controller.run_job("a broken job", lambda job: 1 / 0, lambda result: None)
+    qtbot.waitUntil(lambda: "ZeroDivisionError" in window.statusBar().currentMessage(), timeout=5000)
+
+
+def test_alerts_go_to_the_stores_alerts_table(qapp, tmp_path, qtbot):
+    from monitor.app.controller import store_v2
+    if not store_v2():
+        pytest.skip("the store has no alerts table")
+    from monitor.app.engine import RaisedAlert
+    from monitor.core.alerts import URGENT, Raised
+    writer = StoreWriter(tmp_path / "a.sqlite3")
+    writer.start()
+    controller = Controller(writer, fit_consolidation=False)
+    try:
+        alert = controller.alerts.push(RaisedAlert("box 1", "wren", Raised("lever held", URGENT, "held"), 1.7e9))
+        controller.alert_book.acknowledge(alert.id, "ana")
+
+        def row():
+            with sqlite3.connect(tmp_path / "a.sqlite3") as conn:
+                return conn.execute("SELECT rig, kind, level, message, acknowledged_by FROM alerts").fetchall()
+        qtbot.waitUntil(lambda: row() == [("box 1", "lever held", "urgent", "held", "ana")], timeout=10000)
+        assert controller.alerts.errors == []
+    finally:
+        controller.close()

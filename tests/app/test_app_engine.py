@@ -1,0 +1,214 @@
+"""monitor.app.engine: batches from the Fanout become snapshots equal to a batch recomputation."""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+import pytest
+from statsmodels.stats.proportion import proportion_confint
+
+from drivers.status import READING, WAITING, Batch, SourceStatus
+from drivers.wire import Event, WireDecoder, encode_event
+from monitor.app.engine import Engine, SessionPlan, link_of
+from monitor.app.pipeline import Fanout
+from monitor.core.protocol import parse_protocol
+from monitor.core.trials import build_trials
+
+PROTOCOL = parse_protocol("""
+[protocol]
+name = "two-press 650 ms"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+
+[plateau]
+rule = "consecutive_sessions"
+min_hit_rate = 0.5
+sessions = 3
+min_trials = 5
+""", "test.toml")
+
+
+class Writer:
+    def __init__(self) -> None:
+        self.rows = 0
+
+    def submit(self, batch, *, source_id, session_id, live) -> None:
+        self.rows += len(batch.records)
+
+
+def status(state=READING, gap_since=None) -> SourceStatus:
+    return SourceStatus(state, 0, 0, 0, 0, 0.0, gap_since, 0, None, None, None)
+
+
+def session_bytes(intervals_ms, start_ms=1000, rig_outcomes=True, valve_ms=30) -> bytes:
+    """A two-press session of our own: one trial per interval, 3 s apart."""
+    out = [b"# rigside-wire 1 clock=us wrap=32\n"]
+    t = start_ms
+    for interval in intervals_ms:
+        us = t * 1000
+        second = us + int(interval * 1000)
+        out += [encode_event(us - 100_000, "trial_start"), encode_event(us, "lever_down"),
+                encode_event(us + 50_000, "lever_up"), encode_event(second, "lever_down"),
+                encode_event(second + 50_000, "lever_up")]
+        if rig_outcomes:
+            word = "hit" if abs(interval - 650) <= 130 else "miss"
+            out.append(encode_event(second + 60_000, "outcome", word))
+            if word == "hit":
+                out.append(encode_event(second + 70_000, "valve", str(valve_ms)))
+        t += 3000
+    return b"".join(out)
+
+
+def drain(engine: Engine) -> None:
+    while not engine.queue.empty():
+        engine.step(0)
+    engine.step(0)
+
+
+def feed(fanout: Fanout, data: bytes, pieces: int = 7) -> None:
+    decoder = WireDecoder()
+    for chunk in np.array_split(np.frombuffer(data, np.uint8), pieces):
+        fanout(Batch(decoder.feed(chunk.tobytes()), time.time()))
+
+
+@pytest.fixture
+def intervals():
+    rng = np.random.default_rng(5)
+    return np.round(650 * np.exp(rng.normal(0, 0.25, 180)), 1)
+
+
+def make(engine_kwargs=None):
+    engine = Engine(publish_s=0.0, check_s=0.0, **(engine_kwargs or {}))
+    writer = Writer()
+    fanout = Fanout(writer, source_id=1, session_id=5, live=True, engine=engine.queue)
+    engine.add_rig("box 1", 1, status)
+    engine.open_session(SessionPlan("box 1", 5, "wren", PROTOCOL, started=100.0))
+    return engine, writer, fanout
+
+
+def test_snapshot_equals_a_batch_recomputation(intervals):
+    engine, writer, fanout = make()
+    data = session_bytes(intervals)
+    feed(fanout, data)
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    events = [r for r in WireDecoder().feed(data) if isinstance(r, Event)]
+    trials, _ = build_trials(PROTOCOL, events)
+    completed = [t for t in trials if t.completed]
+    live = snap.live
+    assert (snap.animal, snap.session_id, snap.started, snap.ended) == ("wren", 5, 100.0, False)
+    assert live.trials == len(completed) and live.hits == sum(t.rewarded for t in completed)
+    assert snap.events == len(events) and writer.rows == len(data.splitlines())
+    # the rate series: one point per completed trial; its band is the Wilson interval of the last 100
+    assert len(snap.series.trial) == len(completed)
+    hits = np.array([t.rewarded for t in completed])
+    for n in (1, 37, 100, len(completed)):
+        window = hits[max(0, n - 100):n]
+        low, high = proportion_confint(window.sum(), len(window), alpha=0.05, method="wilson")  # statsmodels
+        assert snap.series.rate[n - 1] == pytest.approx(window.mean())
+        assert (snap.series.low[n - 1], snap.series.high[n - 1]) == (pytest.approx(low), pytest.approx(high))
+    # the histogram of today equals numpy's over the same edges
+    expected, _ = np.histogram([t.interval_ms for t in completed], bins=live.linear.edges)  # numpy
+    inside = (np.array([t.interval_ms for t in completed]) >= live.linear.edges[0]) & \
+             (np.array([t.interval_ms for t in completed]) <= live.linear.edges[-1])
+    assert live.linear.today.sum() == inside.sum()
+    assert np.array_equal(live.linear.today, expected)
+    assert not snap.series.rate.flags.writeable
+
+
+def test_published_arrays_do_not_change_when_more_trials_arrive(intervals):
+    engine, _, fanout = make()
+    feed(fanout, session_bytes(intervals[:60]))
+    drain(engine)
+    first = engine.take_snapshots()["box 1"]
+    kept = first.series.rate.copy()
+    feed(fanout, session_bytes(intervals[60:], start_ms=1000 + 3000 * 60))
+    drain(engine)
+    later = engine.take_snapshots()["box 1"]
+    assert later.version > first.version and len(later.series.rate) > len(kept)
+    assert np.array_equal(first.series.rate, kept, equal_nan=True)
+    assert engine.take_snapshots() == {}                    # nothing changed since
+
+
+def test_batches_of_no_session_count_as_activity_only(intervals):
+    engine, _, fanout = make()
+    fanout.session_id = 77                                  # a session the engine was never told about
+    feed(fanout, session_bytes(intervals[:10]))
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    assert snap.events > 0 and snap.live.trials == 0
+
+
+def test_check_out_finishes_the_session_and_check_in_starts_a_new_one(intervals):
+    engine, _, fanout = make()
+    feed(fanout, session_bytes(intervals[:20]))
+    drain(engine)
+    engine.close_session("box 1", 5)
+    drain(engine)
+    ended = engine.take_snapshots()["box 1"]
+    assert ended.ended and ended.live.trials > 0
+    engine.open_session(SessionPlan("box 1", 6, "lark", PROTOCOL, started=200.0))
+    fanout.session_id = 6
+    feed(fanout, session_bytes(intervals[:3]))
+    drain(engine)
+    fresh = engine.take_snapshots()["box 1"]
+    assert (fresh.animal, fresh.session_id, fresh.ended) == ("lark", 6, False)
+    assert fresh.live.trials == 3
+
+
+def test_stamps_and_alerts_travel_with_the_batches(intervals):
+    engine, _, fanout = make()
+    before = time.monotonic()
+    feed(fanout, session_bytes(intervals[:30], valve_ms=900))
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    assert before <= snap.newest_stamp <= time.monotonic()
+    alerts = engine.take_alerts()
+    assert [a.alert.kind for a in alerts] == ["valve open too long"]       # repeat limit: once
+    assert alerts[0].rig == "box 1" and alerts[0].animal == "wren"
+
+
+def test_disagreement_with_the_rig_is_alerted(intervals):
+    engine, _, fanout = make()
+    data = session_bytes([650.0, 650.0]).replace(b"outcome hit", b"outcome miss", 1)
+    feed(fanout, data, pieces=1)
+    drain(engine)
+    assert engine.take_snapshots()["box 1"].disagreements == 1
+    assert [a.alert.kind for a in engine.take_alerts()] == ["disagreement"]
+
+
+def test_link_alerts_come_from_the_source_status():
+    now = [0.0]
+    engine = Engine(publish_s=0.0, check_s=0.0, clock=lambda: now[0])
+    current = [status()]
+    engine.add_rig("box 2", 2, lambda: current[0])
+    engine.step(0)
+    current[0] = status(WAITING, gap_since=5.0)
+    now[0] = 1.0
+    engine.step(0)
+    now[0] = 70.0
+    engine.step(0)
+    assert [a.alert.kind for a in engine.take_alerts()] == ["disconnected", "device gone"]
+    assert link_of(status(WAITING)) == "up"               # waiting at start, no gap yet: not a disconnection
+
+
+def test_engine_thread_publishes_without_being_driven(intervals):
+    engine, _, fanout = make({})
+    engine.publish_s = 0.02
+    engine.start()
+    try:
+        feed(fanout, session_bytes(intervals[:40]))
+        deadline = time.monotonic() + 10
+        seen = {}
+        while time.monotonic() < deadline:
+            seen.update(engine.take_snapshots())
+            if "box 1" in seen and seen["box 1"].live.trials == 40:
+                break
+            time.sleep(0.01)
+        assert seen["box 1"].live.trials == 40
+    finally:
+        engine.stop()
+    assert engine.error is None
