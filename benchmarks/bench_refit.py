@@ -1,22 +1,26 @@
 """Refit time of the consolidation estimate over 30,000 trials, against statsmodels' generic MLEModel.fit.
 
-Prints `refit (30000 trials): S s` for the whole estimate (both variants, one- and
-two-rate models, several starts, curvature, interval draws, forecast), the time
-of a warm refit from the cached fit, the time of fitting the two-rate
-error-driven model alone, and the same model fitted by statsmodels' MLEModel
-(time-varying transition at session breaks, state_intercept = B u) with a
-capped number of iterations, and the ratio.  Run: python benchmarks/bench_refit.py
+Prints `refit (30000 trials): S s` for the whole cold estimate (both variants, one-
+and two-rate models, several starts, curvature, interval draws, forecast), the
+time of a warm refit from the cached fit, the time of fitting the two-rate
+error-driven model alone, the cost of one new trial through the live filter, and
+the same model fitted by statsmodels' MLEModel (time-varying transition at
+session breaks, state_intercept = B u) with a capped number of iterations
+(``--maxiter``), and the ratio.  ``figures(quick)`` returns the same figures for
+``python -m benchmarks``.  Run: python benchmarks/bench_refit.py
 """
 from __future__ import annotations
 
 import argparse
 import importlib
 import time
+from dataclasses import dataclass
 
 import numpy as np
 
 from monitor.core.consolidation import estimate_consolidation
 from monitor.core.consolidation_fit import default_starts, fit_model
+from monitor.core.consolidation_live import live_filter
 from monitor.core.consolidation_model import TWO_RATE, prepare, simulate, to_natural
 
 TRUTH = {"a_f": 0.97, "b_f": 0.03, "c": 2e-4, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
@@ -72,43 +76,108 @@ def statsmodels_fit(prep, maxiter: int):
     return time.perf_counter() - t0, res
 
 
+@dataclass(frozen=True)
+class RefitTimes:
+    """Figures of one run (seconds unless named otherwise)."""
+
+    trials: int
+    cold_s: float
+    cold_evaluations: int
+    status: str
+    warm_s: float
+    warm_evaluations: int
+    single_s: float
+    single_loglike: float
+    single_converged: bool
+    single_evaluations: int
+    live_us: float  # one trial through the live filter
+    sm_s: float
+    sm_loglike: float
+    sm_converged: bool
+    sm_iterations: int | None
+    sm_fcalls: int | None
+    maxiter: int
+
+    @property
+    def ratio_single(self) -> float:
+        return self.sm_s / self.single_s
+
+    @property
+    def ratio_cold(self) -> float:
+        return self.sm_s / self.cold_s
+
+
+def measure(trials: int = 30000, maxiter: int = 50, seed: int = 3) -> RefitTimes:
+    """Time the cold and warm estimate, one two-rate fit, the live filter and statsmodels' fit."""
+    rng = np.random.default_rng(seed)
+    sessions = trials // 400
+    lengths = np.full(sessions, trials // sessions)
+    hours = rng.choice([22.0, 24.0, 26.0, 48.0, 70.0], sessions)
+    sim = simulate(TRUTH, lengths, hours, rng, warmup=-0.2)
+    prep = prepare(sim.series)
+    for module in ("scipy.optimize", "scipy.signal", "scipy.linalg"):  # cold imports are paid once per process
+        importlib.import_module(module)
+
+    t0 = time.perf_counter()
+    res = estimate_consolidation(sim.series)
+    cold = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    again = estimate_consolidation(sim.series, warm_start=res.warm_start)
+    warm = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    ours = fit_model(prep, "error", True, default_starts(True, 1, np.random.default_rng(0)), 1, 150, None, False)
+    single = time.perf_counter() - t0
+
+    live = live_filter(sim.series, res)
+    live.start_session(22.0)
+    new_y, new_rewarded = sim.series.y[-400:], sim.series.rewarded[-400:]
+    t0 = time.perf_counter()
+    for y, rewarded in zip(new_y.tolist(), new_rewarded.tolist()):
+        live.add_trial(y, rewarded)
+        live.fraction()
+    live_us = (time.perf_counter() - t0) / len(new_y) * 1e6
+
+    sm_time, sm = statsmodels_fit(prep, maxiter)
+    iters = sm.mle_retvals.get("iterations", sm.mle_retvals.get("nit"))
+    return RefitTimes(len(sim.series.y), cold, res.evaluations, res.status, warm, again.evaluations, single,
+                      ours.loglike, ours.converged, ours.evaluations, live_us, sm_time, float(sm.llf),
+                      bool(sm.mle_retvals.get("converged")), iters, sm.mle_retvals.get("fcalls"), maxiter)
+
+
+def figures(quick: bool = False) -> list[tuple[str, float, str, str]]:
+    """Table lines for `python -m benchmarks`: (label, value, unit, detail)."""
+    m = measure(maxiter=5 if quick else 50)
+    return [
+        (f"refit ({m.trials} trials)", m.cold_s, "s",
+         f"goal <= 1 s ({'met' if m.cold_s <= 1.0 else 'NOT met'}); cold, {m.cold_evaluations} likelihood "
+         f"evaluations, status {m.status}; warm refit from the cached fit {m.warm_s:.2f} s"),
+        ("statsmodels MLEModel.fit / ours (same model, one start)", m.ratio_single, "x",
+         f"statsmodels {m.sm_s:.2f} s (lbfgs, maxiter={m.maxiter}, converged {m.sm_converged}, "
+         f"loglike {m.sm_loglike:.3f}) vs ours {m.single_s:.2f} s (loglike {m.single_loglike:.3f}); "
+         f"statsmodels / our whole cold refit {m.ratio_cold:.1f}x"),
+        ("live filter, one new trial", m.live_us, "us", "update + fraction at fixed parameters, no refit"),
+    ]
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--trials", type=int, default=30000)
     parser.add_argument("--maxiter", type=int, default=50, help="iteration cap of the statsmodels fit")
     parser.add_argument("--seed", type=int, default=3)
     args = parser.parse_args()
-    rng = np.random.default_rng(args.seed)
-    sessions = args.trials // 400
-    lengths = np.full(sessions, args.trials // sessions)
-    hours = rng.choice([22.0, 24.0, 26.0, 48.0, 70.0], sessions)
-    sim = simulate(TRUTH, lengths, hours, rng, warmup=-0.2)
-    prep = prepare(sim.series)
-    for module in ("scipy.optimize", "scipy.signal"):  # cold imports are paid once per process
-        importlib.import_module(module)
-
-    t0 = time.perf_counter()
-    res = estimate_consolidation(sim.series)
-    cold = time.perf_counter() - t0
-    print(f"refit (30000 trials): {cold:.2f} s" if args.trials == 30000 else f"refit ({args.trials} trials): {cold:.2f} s")
-    print(f"  status {res.status}; {res.evaluations} likelihood evaluations ({1e3 * cold / res.evaluations:.2f} ms each)")
-    t0 = time.perf_counter()
-    again = estimate_consolidation(sim.series, warm_start=res.warm_start)
-    print(f"warm refit from the cached fit: {time.perf_counter() - t0:.2f} s ({again.evaluations} evaluations)")
-
-    t0 = time.perf_counter()
-    ours = fit_model(prep, "error", True, default_starts(True, 1, np.random.default_rng(0)), 1, 150, None, False)
-    ours_time = time.perf_counter() - t0
-    print(f"two-rate error-driven model alone, one start: {ours_time:.2f} s, loglike {ours.loglike:.3f}, "
-          f"converged {ours.converged}, {ours.evaluations} evaluations")
-
-    sm_time, sm = statsmodels_fit(prep, args.maxiter)
-    iters = sm.mle_retvals.get("iterations", sm.mle_retvals.get("nit"))
-    print(f"statsmodels MLEModel.fit (lbfgs, maxiter={args.maxiter}): {sm_time:.2f} s, loglike {sm.llf:.3f}, "
-          f"converged {sm.mle_retvals.get('converged')}, iterations {iters}, "
-          f"function calls {sm.mle_retvals.get('fcalls')}")
-    print(f"ratio statsmodels / ours (same model, one start): {sm_time / ours_time:.1f}")
-    print(f"ratio statsmodels / our whole refit: {sm_time / cold:.1f}")
+    m = measure(args.trials, args.maxiter, args.seed)
+    print(f"refit ({m.trials} trials): {m.cold_s:.2f} s")
+    print(f"  status {m.status}; {m.cold_evaluations} likelihood evaluations "
+          f"({1e3 * m.cold_s / m.cold_evaluations:.2f} ms each)")
+    print(f"warm refit from the cached fit: {m.warm_s:.2f} s ({m.warm_evaluations} evaluations)")
+    print(f"two-rate error-driven model alone, one start: {m.single_s:.2f} s, loglike {m.single_loglike:.3f}, "
+          f"converged {m.single_converged}, {m.single_evaluations} evaluations")
+    print(f"live filter (fixed parameters, no refit): {m.live_us:.1f} us per new trial")
+    print(f"statsmodels MLEModel.fit (lbfgs, maxiter={m.maxiter}): {m.sm_s:.2f} s, loglike {m.sm_loglike:.3f}, "
+          f"converged {m.sm_converged}, iterations {m.sm_iterations}, function calls {m.sm_fcalls}")
+    print(f"ratio statsmodels / ours (same model, one start): {m.ratio_single:.1f}")
+    print(f"ratio statsmodels / our whole refit: {m.ratio_cold:.1f}")
 
 
 if __name__ == "__main__":

@@ -4,7 +4,8 @@ Rule: both fast-state driving signals ("error", "outcome") are fitted with the
 two-rate model for ``race_iter`` optimiser steps from the same starts; the
 variant ahead is fitted to convergence (the other's likelihood is reported as
 reached, a lower bound of its maximum), and so is the one-rate model of that
-variant.  The two-rate model counts as constraining the split only
+variant (its two best screened starts run a third of ``race_iter`` steps; those
+more than ``race_margin`` log-likelihood behind go no further).  The two-rate model counts as constraining the split only
 when it beats the one-rate model of the same variant by AIC(one) - AIC(two) >=
 ``aic_margin`` (10 by default: the one-rate model then has essentially no
 support); otherwise every session is "not constrained" with the interval [0, 1].
@@ -27,7 +28,7 @@ from typing import Callable
 import numpy as np
 
 from monitor.core.consolidation_estimate import Forecast, forecast, slow_fractions
-from monitor.core.consolidation_fit import Cancelled, ModelFit, default_starts, fit_model, with_curvature
+from monitor.core.consolidation_fit import JOINED, Cancelled, ModelFit, default_starts, fit_model, with_curvature
 from monitor.core.consolidation_model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
 
 CAVEAT = ("Model-based slow-state fraction of a fitted behavioural model; not proof that the behaviour "
@@ -44,6 +45,7 @@ class Options:
     optimise: int = 1
     max_iter: int = 150
     race_iter: int = 15
+    race_margin: float = 50.0
     mode_tau_b: tuple[float, ...] = (2.0, 500.0)
     mode_margin: float = 2.0
     draws: int = 40
@@ -166,28 +168,41 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
         starts = ([np.asarray(warm[key])] if key in warm else []) + default_starts(True, options.starts, rng)
         fits[key] = fit_model(prep, variant, True, starts, options.optimise, options.race_iter, cancel, False)
         report((v_i + 1) / steps, f"two-rate model, {variant} variant (first {options.race_iter} steps)")
-    # the variant ahead after the first steps is fitted to convergence, from its own point and
-    # from break retentions at both ends (the likelihood can have an optimum at each)
+    # the variant ahead after the first steps is fitted to convergence, then also from break
+    # retentions at both ends (the likelihood can have an optimum at each); a run that comes
+    # close to an optimum already found stops there (it is converging onto it)
     variant = max(options.variants, key=lambda v: fits[_key(v, True)].loglike)
     lead = fits[_key(variant, True)]
     report((len(options.variants) + 1) / steps, f"two-rate model, {variant} variant, to convergence")
-    starts = []
+    found = [fit_model(prep, variant, True, [lead.theta], 1, options.max_iter, cancel, False)]
+    spent = lead.evaluations
+    raced_alts = []
     for tau in options.mode_tau_b:
         alt = lead.theta.copy()
         alt[TWO_RATE.index("tau_b")] = to_theta({"tau_b": tau}, ("tau_b",))[0]
-        starts.append(alt)
-    raced = [lead] + [fit_model(prep, variant, True, [s], 1, options.race_iter, cancel, False) for s in starts]
-    top = max(f.loglike for f in raced)
-    found = [fit_model(prep, variant, True, [f.theta], 1, options.max_iter, cancel, False)
-             for f in raced if top - f.loglike < 5 * options.mode_margin]
-    modes = _select_modes(prep, found, sum(f.evaluations for f in raced), options, cancel)
+        raced = fit_model(prep, variant, True, [alt], 1, options.race_iter, cancel, False, (found[0].theta,))
+        spent += raced.evaluations
+        if raced.reason != JOINED:
+            raced_alts.append(raced)
+    top = max([lead.loglike] + [r.loglike for r in raced_alts])
+    for raced in raced_alts:
+        if top - raced.loglike >= 5 * options.mode_margin:
+            continue
+        known = tuple(f.theta for f in found)
+        again = fit_model(prep, variant, True, [raced.theta], 1, options.max_iter, cancel, False, known)
+        if again.reason == JOINED:
+            spent += again.evaluations
+        else:
+            found.append(again)
+    modes = _select_modes(prep, found, spent, options, cancel)
     fits[_key(variant, True)] = modes[0]
     key = _key(variant, False)
     projected = to_theta({k: modes[0].params[k] for k in ONE_RATE}, ONE_RATE)
     starts = ([np.asarray(warm[key])] if key in warm else []) + [projected]
     starts += default_starts(False, options.starts, rng)
     # the comparison is only fair when the one-rate model is fitted as hard as the two-rate one
-    one = fit_model(prep, variant, False, starts, options.optimise + 1, options.max_iter, cancel, False)
+    one = fit_model(prep, variant, False, starts, options.optimise + 1, options.max_iter, cancel, False,
+                    race=(max(1, options.race_iter // 3), options.race_margin))
     fits[key] = one
     report((len(options.variants) + 2) / steps, "one-rate model")
     if modes[0].loglike < one.loglike + 1.0:

@@ -3,7 +3,10 @@
 Rule: the profile log-likelihood (offset, warm-up size and noise scale profiled
 out exactly) is maximised over the transformed parameters by L-BFGS-B with
 forward-difference gradients, from several starts (a warm start from a cached
-fit first when given); the best optimum is kept.  A fit is "converged" when the
+fit first when given); the best optimum is kept.  Two shortcuts save
+evaluations without changing which optimum wins: a run that comes within
+``JOIN_DISTANCE`` of an optimum already found stops (it is converging onto it),
+and raced starts (a few steps each) far behind the best go no further.  A fit is "converged" when the
 optimiser reports success and the curvature (a forward-difference Hessian) is
 that of a maximum; otherwise the reason is kept.  Parameter uncertainty is the
 Laplace approximation N(theta_hat, H^-1) on the transformed scale; flat
@@ -30,6 +33,9 @@ from monitor.core.consolidation_model import (
 
 THETA_BOUND = 9.0  # transformed parameters stay in [-9, 9] (ranges' ends to within ~1e-4)
 CURVATURE_FLOOR = 1e-2  # a flat direction still gets a variance of at most 100 on theta's scale
+FTOL = 1e-9  # relative change of the objective at which L-BFGS-B stops
+JOIN_DISTANCE = 0.3  # a run this close to a known optimum is converging onto it
+JOINED = "joined a known optimum"
 
 
 class Cancelled(Exception):
@@ -129,10 +135,18 @@ def fit_model(
     max_iter: int = 80,
     cancel: Callable[[], bool] | None = None,
     curvature: bool = True,
+    known: tuple[np.ndarray, ...] = (),
+    race: tuple[int, float] | None = None,
 ) -> ModelFit:
     """Screen all starts by likelihood, optimise the best ``optimise`` of them, keep the best.
 
+    ``race`` = (steps, margin): with several starts to optimise, each runs ``steps`` steps
+    first and only those within ``margin`` log-likelihood of the best go on.
+
     With ``curvature`` the Laplace covariance is computed too (see :func:`with_curvature`).
+    ``known``: optima already found (and those of earlier starts here); a run whose iterate
+    comes within ``JOIN_DISTANCE`` of one (max-norm on the transformed scale) stops there,
+    and when no other run is kept the fit carries the reason ``JOINED``.
     """
     from scipy.optimize import minimize
 
@@ -140,14 +154,38 @@ def fit_model(
     screened = sorted(starts, key=lambda t: obj(np.asarray(t, float)))
     best = None
     bounds = [(-THETA_BOUND, THETA_BOUND)] * len(obj.names)
-    for start in screened[:optimise]:
-        res = minimize(obj.value_and_grad, np.asarray(start, float), jac=True, method="L-BFGS-B",
-                       bounds=bounds, options={"maxiter": max_iter, "ftol": 1e-9, "gtol": 1e-3})
-        if best is None or res.fun < best.fun:
-            best = res
+    joined: list[bool] = []
+
+    def watch(xk: np.ndarray) -> None:
+        if any(np.max(np.abs(xk - k)) < JOIN_DISTANCE for k in known):
+            joined[-1] = True
+            raise StopIteration
+
+    def run(start: np.ndarray, steps: int):
+        return minimize(obj.value_and_grad, np.asarray(start, float), jac=True, method="L-BFGS-B",
+                        bounds=bounds, callback=watch if known else None,
+                        options={"maxiter": steps, "ftol": FTOL, "gtol": 1e-3})
+
+    chosen = screened[:optimise]
+    if race is not None and len(chosen) > 1:
+        # every chosen start runs a few steps; those far behind the best then stop
+        steps, margin = race
+        raced = [run(start, steps) for start in chosen]
+        top = min(r.fun for r in raced)
+        chosen = [r.x for r in raced if r.fun - top < margin]
+        max_iter = max(max_iter - steps, 1)
+    for start in chosen:
+        joined.append(False)
+        res = run(start, max_iter)
+        if best is None or (res.fun < best.fun and not joined[-1]) or best_joined:
+            best, best_joined = res, joined[-1]
+        if res.success and not joined[-1]:
+            known = known + (np.asarray(res.x, float),)  # a later start that joins this optimum stops
     theta = np.asarray(best.x, float)
     loglike = -float(best.fun)
     converged, reason = bool(best.success) and np.isfinite(loglike), "" if best.success else str(best.message)
+    if best_joined:
+        converged, reason = False, JOINED
     if not (np.isfinite(loglike) and loglike > -1e299):
         converged, reason = False, "likelihood not finite"
     fit = ModelFit(variant, two_rate, theta, to_natural(theta, obj.names), loglike, len(obj.names) + prep.effects.shape[0] + 1,

@@ -24,8 +24,8 @@ import numpy as np
 from monitor.core.kalman import Layout, Padded, Profiled, StateSpace, kalman_filter, pad, profile_effects
 
 VARIANTS = ("error", "outcome")
-RUNNING_MEAN_TRIALS = 20.0
-DRIFT_TRIALS = 300.0  # scale of the within-session (satiety) drift term  # time constant of the running mean the outcome variant compares with
+RUNNING_MEAN_TRIALS = 20.0  # time constant of the running mean the outcome variant compares with
+DRIFT_TRIALS = 300.0  # scale of the within-session (satiety) drift term
 
 # name -> (low, high, log-scale?)
 RANGES: dict[str, tuple[float, float, bool]] = {
@@ -150,18 +150,23 @@ def prepare(
     starts = np.r_[0, np.cumsum(lengths)[:-1]].astype(np.intp)
     inputs = {"error": -y, "outcome": rew * (y - _running_mean(y))}
     layout = Layout(starts, lengths, np.tile(np.eye(2), (len(lengths), 1, 1)))
-    padded = {v: pad(layout, y, inputs[v]) for v in VARIANTS}
+    padded = {v: pad(layout, y, inputs[v]) for v in VARIANTS} if len(lengths) else {}
     t_max = int(lengths.max()) if len(lengths) else 1
-    # effects by position within the kept session
-    if warmup == "model":
-        rows = [np.ones(t_max)] + [np.exp(-np.arange(t_max) / tau) for tau in tau_w]
-    else:
-        rows = [np.ones(t_max)]
-    if drift:
-        rows.append((np.arange(t_max) / DRIFT_TRIALS) ** 2)
-    effects = np.vstack(rows)
+    effects = effect_rows(np.arange(t_max), warmup, tau_w, drift)
     return Prepared(labels_all[kept_sessions], lengths, starts, merged, y, rew, inputs, padded,
                     effects, dropped, warmup, notes)
+
+
+def effect_rows(position: np.ndarray, warmup: str, tau_w: tuple[float, ...], drift: bool) -> np.ndarray:
+    """Observation regressors (E, len(position)) by position within the kept session: offset,
+    warm-up terms (when modelled), drift (when asked); the order of the profiled coefficients."""
+    position = np.asarray(position, float)
+    rows = [np.ones_like(position)]
+    if warmup == "model":
+        rows += [np.exp(-position / tau) for tau in tau_w]
+    if drift:
+        rows.append((position / DRIFT_TRIALS) ** 2)
+    return np.vstack(rows)
 
 
 def _running_mean(y: np.ndarray) -> np.ndarray:

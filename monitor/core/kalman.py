@@ -155,8 +155,8 @@ def _covariance_chain(
     end covariance P_inf + G W G'; the next prior is D P_end D'.
     """
     n_sess = len(lengths)
-    w_all = np.empty((n_sess, 2, 2))
-    end_covs = np.empty((n_sess, 2, 2))
+    w_rows: list[tuple[float, ...]] = []
+    end_rows: list[tuple[float, ...]] = []
     (q11, q12), (_, q22) = p_inf.tolist()
     (p11, p12), (_, p22) = init_cov.tolist()
     brk = breaks.reshape(n_sess, 4).tolist()
@@ -179,34 +179,41 @@ def _covariance_chain(
         w11 = (l22 * x11 - l12 * x12) / det
         w12 = (l22 * x12 - l12 * x22) / det
         w22 = (l11 * x22 - l21 * x12) / det
-        w_all[k] = ((w11, w12), (w12, w22))
+        w_rows.append((w11, w12, w12, w22))
         g11, g12, g21, g22 = gg[k]
         u11, u12 = g11 * w11 + g12 * w12, g11 * w12 + g12 * w22
         u21, u22 = g21 * w11 + g22 * w12, g21 * w12 + g22 * w22
         e11 = q11 + u11 * g11 + u12 * g12
         e12 = q12 + u11 * g21 + u12 * g22
         e22 = q22 + u21 * g21 + u22 * g22
-        end_covs[k] = ((e11, e12), (e12, e22))
-    return w_all, end_covs, logdet
+        end_rows.append((e11, e12, e12, e22))
+    return np.array(w_rows).reshape(n_sess, 2, 2), np.array(end_rows).reshape(n_sess, 2, 2), logdet
 
 
 def _mean_chain(breaks: np.ndarray, trans: np.ndarray, const: np.ndarray, init_mean: np.ndarray) -> np.ndarray:
-    """Start means of every session and column: m0[k+1] = D[k+1] (T[k] m0[k] + c[k]), in floats."""
+    """Start means of every session and column: m0[k+1] = D[k+1] (T[k] m0[k] + c[k]).
+
+    The recursion is a block lower-bidiagonal linear system in the stacked start
+    means (2S unknowns per column, lower bandwidth 3), solved in one banded LAPACK call.
+    """
+    from scipy.linalg import solve_banded
+
     n_sess, n_cols, _ = const.shape
-    brk = breaks.reshape(n_sess, 4).tolist()
-    trn = trans.reshape(n_sess, 4).tolist()
-    cst = const.tolist()
-    out = np.empty((n_sess, n_cols, 2))
-    cur = [[0.0, 0.0] for _ in range(n_cols)]
-    cur[0] = init_mean.tolist()
-    for k in range(n_sess):
-        if k:
-            d11, d12, d21, d22 = brk[k]
-            cur = [[d11 * x1 + d12 * x2, d21 * x1 + d22 * x2] for x1, x2 in cur]
-        out[k] = cur
-        t11, t12, t21, t22 = trn[k]
-        cur = [[t11 * x1 + t12 * x2 + c1, t21 * x1 + t22 * x2 + c2] for (x1, x2), (c1, c2) in zip(cur, cst[k])]
-    return out
+    rhs = np.zeros((n_sess, 2, n_cols))
+    rhs[0, :, 0] = init_mean
+    if n_sess > 1:
+        step = breaks[1:] @ trans[:-1]  # A_k = D[k+1] T[k]
+        rhs[1:] = breaks[1:] @ np.swapaxes(const[:-1], 1, 2)  # D[k+1] c[k]
+    if n_sess == 1:
+        return np.moveaxis(rhs, 2, 1)
+    band = np.zeros((4, 2 * n_sess))  # band[i - j, j] = matrix[i, j]
+    band[0] = 1.0
+    band[1, 1:-2:2] = -step[:, 0, 1]
+    band[2, 0:-2:2] = -step[:, 0, 0]
+    band[2, 1:-2:2] = -step[:, 1, 1]
+    band[3, 0:-2:2] = -step[:, 1, 0]
+    solved = solve_banded((3, 0), band, rhs.reshape(2 * n_sess, n_cols), check_finite=False)
+    return np.moveaxis(solved.reshape(n_sess, 2, n_cols), 2, 1)
 
 
 @dataclass(frozen=True)
@@ -340,13 +347,13 @@ def kalman_filter(
 
     # mean chain: per column, end = T_k m0 + c_k (affine in the session's start mean)
     n_cols = 1 + n_eff
-    gw = np.einsum("sab,sbc->sac", g_end[lengths], w_all)  # G W
-    trans = m_pow[lengths] - np.einsum("sab,sbc->sac", gw, cum_oh[lengths])  # (S, 2, 2)
+    gw = g_end[lengths] @ w_all  # G W
+    trans = m_pow[lengths] - gw @ cum_oh[lengths]  # (S, 2, 2)
     const = np.empty((n_sess, n_cols, 2))
-    const[:, 0] = psi_end + np.einsum("sab,sb->sa", gw, s_ao)
-    const[:, 1:] = np.moveaxis(eff_end[lengths], 1, 2) + np.einsum("sab,seb->sea", gw, cum_eo[lengths])
+    const[:, 0] = psi_end + (gw @ s_ao[:, :, None])[:, :, 0]
+    const[:, 1:] = np.moveaxis(eff_end[lengths], 1, 2) + cum_eo[lengths] @ np.swapaxes(gw, 1, 2)
     start_means = _mean_chain(layout.breaks, trans, const, np.asarray(model.init_mean, float))
-    end_means = np.einsum("sab,scb->sca", trans, start_means) + const
+    end_means = start_means @ np.swapaxes(trans, 1, 2) + const
 
     # exact quadratic forms of the innovations, all sessions at once
     hh, oh = cum_hh[lengths], cum_oh[lengths]
@@ -360,12 +367,12 @@ def kalman_filter(
     ao = np.empty((n_sess, n_cols, 2))  # sum a_c O~_t / s
     ao[:, 0], ao[:, 1:] = s_ao, cum_eo[lengths]
     m0 = start_means
-    cross = np.einsum("scb,sdb->scd", ah, m0)
-    b = ao - np.einsum("sab,scb->sca", oh, m0)  # (S, C, 2): O~' v / s
+    cross = ah @ np.swapaxes(m0, 1, 2)
+    b = ao - m0 @ np.swapaxes(oh, 1, 2)  # (S, C, 2): O~' v / s
     gram = (
         quad_a - cross - np.transpose(cross, (0, 2, 1))
-        + np.einsum("sca,sab,sdb->scd", m0, hh, m0)
-        - np.einsum("sca,sab,sdb->scd", b, w_all, b)
+        + m0 @ hh @ np.swapaxes(m0, 1, 2)
+        - b @ w_all @ np.swapaxes(b, 1, 2)
     ).sum(0)
     return FilterOutput(gram, float(logdet), n, np.transpose(end_means, (1, 0, 2)), end_covs)
 

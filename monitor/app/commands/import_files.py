@@ -6,7 +6,9 @@ any name) or be given twice; otherwise one line names the file and exit 2.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived; while another process holds the
 write lock the import waits up to `--wait` seconds instead of failing. Then
-each imported animal's report entry is built once and cached. One
+each imported animal's report entry is built once and cached, and (unless
+`--no-fit`) its consolidation model is refitted in a separate process and
+cached (monitor.store.consolidation_fits), one stderr line per animal. One
 progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1 session,
 5123 events, 0 malformed, 402 attempts`), a summary line to stdout. Sessions,
 animals and times: monitor.store.importer and docs/store.md.
@@ -35,6 +37,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="a pause longer than this starts a new session (default 2)")
     parser.add_argument("--wait", type=float, default=WAIT_S,
                         help=f"seconds to wait while another process writes the database (default {WAIT_S:g})")
+    parser.add_argument("--no-fit", action="store_true",
+                        help="skip refitting the consolidation model (the report then says \"not fitted\")")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -132,9 +136,26 @@ def run(args: argparse.Namespace) -> int:
                          "imported, the rest not)") from None
     finally:
         conn.close()
+    if not args.no_fit:
+        _refit(resolve_db(args.db), sorted(animals))
     print(f"imported {len(contents)} files: {_n(totals[0], 'session')}, {totals[1]} events, {totals[2]} malformed "
           f"lines, {totals[3]} attempts (trials, lone, premature, omitted) in {time.monotonic() - started:.1f} s")
     return 0
+
+
+def _refit(db: Path, animals: list[str]) -> None:
+    """Refit each imported animal in a separate process; one stderr line per animal."""
+    from monitor.store.consolidation_fits import refit_in_process
+
+    def finished(animal: str, block: dict | None, error: str | None) -> None:
+        if block is None:
+            print(f"fit {animal}: failed ({error or 'no result'}); the report says \"not fitted\"", file=sys.stderr)
+            return
+        print(f"fit {animal}: slow-state fraction {block['estimate']:.2f} ({block['low']:.2f}-{block['high']:.2f}, "
+              f"{block['status']}) at session {block['session']}", file=sys.stderr)
+
+    print(f"fitting the consolidation model of {_n(len(animals), 'animal')} in a separate process", file=sys.stderr)
+    refit_in_process(db, animals, finished=finished)
 
 
 def _n(count: int, word: str) -> str:

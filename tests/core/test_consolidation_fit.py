@@ -1,0 +1,36 @@
+"""Search shortcuts of the fitter: a run that joins a known optimum stops; a raced start far behind is dropped."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from monitor.core.consolidation_fit import JOINED, default_starts, fit_model
+from monitor.core.consolidation_model import prepare, simulate
+
+TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
+
+
+@pytest.fixture(scope="module")
+def prep():
+    rng = np.random.default_rng(4)
+    lengths = rng.integers(60, 80, 6)
+    return prepare(simulate(TRUTH, lengths, rng.choice([22.0, 48.0, 70.0], 6), rng, warmup=-0.2).series)
+
+
+def test_a_run_that_reaches_a_known_optimum_stops_there(prep):
+    start = default_starts(False, 1, np.random.default_rng(0))[0]
+    full = fit_model(prep, "error", False, [start], 1, 150, None, False)
+    assert full.converged, full.reason
+    joined = fit_model(prep, "error", False, [start], 1, 150, None, False, known=(full.theta,))
+    assert joined.reason == JOINED and not joined.converged
+    assert joined.evaluations < full.evaluations
+    assert np.max(np.abs(joined.theta - full.theta)) < 0.3
+
+
+def test_race_keeps_the_best_and_never_loses_to_the_plain_multistart(prep):
+    starts = default_starts(False, 4, np.random.default_rng(1))
+    plain = fit_model(prep, "error", False, starts, 2, 150, None, False)
+    raced = fit_model(prep, "error", False, starts, 2, 150, None, False, race=(5, 50.0))
+    assert raced.converged, raced.reason
+    assert raced.loglike >= plain.loglike - 1e-3
