@@ -6,9 +6,11 @@ engine run in their own threads. A QTimer on the GUI thread (`refresh`, ~20
 Hz) runs the callables workers posted, takes the engine's latest snapshots and
 alerts, and pushes view models to the RigBoard, AnimalBook and AlertBook,
 which announce only what changed (so an unchanged tile is not repainted).
-Everything that may wait (store calls, loading an animal's history, fitting
-the consolidation model) runs in a worker thread with progress and cancel,
-and hands its result back through the inbox. Check-in closes the rig's
+Everything that may wait (store calls, loading an animal's history) runs in
+a worker thread with progress and cancel, and hands its result back through
+the inbox; the consolidation model is refitted in a separate process (the
+GUI's interpreter lock stays free) and cached in the store, and a page shows
+the cached fit. Check-in closes the rig's
 session and starts a new one (the engine first, then the Fanout); check-out
 ends it. Before any check-in a rig's events are kept in a session with no
 animal (animal ''). `close()` stops the sources, ends open sessions and
@@ -491,7 +493,12 @@ class Controller(QObject):
 
     # --- history ------------------------------------------------------------------------------------
     def load_history(self, animal: str, refresh: bool = False) -> None:
-        """Load (or reload) an animal's history and fit, off the GUI thread."""
+        """Load (or reload) an animal's history and its consolidation fit, off the GUI thread.
+
+        The fit shown is the one cached in the store; when there is none, or the data changed since
+        (a session ended, a session was excluded), the model is refitted in a separate process
+        (monitor.store.consolidation_fits), which caches the new fit, and the page is updated again.
+        """
         if animal in self._loading or (animal in self.history_parts and not refresh):
             return
         loaded = self._protocol_of(animal)
@@ -502,34 +509,43 @@ class Controller(QObject):
         def work(job: Job):
             with self._heavy_turn(job, animal):
                 sessions = self.history.sessions(animal, protocol, job)
-                parts = views.history_parts(protocol, sessions)
+                cached = self._cached_fit(animal)
+                parts = views.history_parts(protocol, sessions, cached)
             self._post(lambda: self._history_ready(animal, parts))
-            if not self.fit_consolidation:
-                return None
-            from monitor.core.consolidation import estimate_consolidation
+            if not self.fit_consolidation or cached is None or cached["current"]:
+                return parts, cached
+            from monitor.store.consolidation_fits import refit_in_process
 
-            warm = getattr(self.fits.get(animal), "warm_start", None)
             with self._heavy_turn(job, animal):
-                series = views.consolidation_series(protocol, sessions)
-                if len(series.y) == 0:            # no trial of the final stage yet: nothing to fit
-                    return None
-                fit = estimate_consolidation(series, warm_start=warm, cancel=job.cancelled,
-                                             progress=lambda f, m: job.progress(f, f"consolidation model: {m}"))
-                if fit.status == "cancelled":
+                block = refit_in_process(
+                    self.writer.path, [animal], cancel=job.cancelled,
+                    progress=lambda _a, f, m: job.progress(f, f"consolidation model: {m}"))[animal]
+            if block is None:
+                if job.cancelled():
                     raise Cancelled()
-                return views.history_parts(protocol, sessions, fit), fit
+                raise RuntimeError("the consolidation fit ended without a result")
+            return views.history_parts(protocol, sessions, block), block
 
         def done(result) -> None:
             self._loading.pop(animal, None)
-            if result is None:
-                self.fits.setdefault(animal, None)
-            else:
-                parts, fit = result
-                self.fits[animal] = fit
-                self._history_ready(animal, parts)
+            parts, block = result
+            self.fits[animal] = block
+            self._history_ready(animal, parts)
 
         self._loading[animal] = self.run_job(f"history of {animal}", work, done,
                                              failed=lambda: self._loading.pop(animal, None))
+
+    def _cached_fit(self, animal: str) -> dict[str, Any] | None:
+        """The store's newest consolidation block of `animal`, with "current" (None: a store without fits)."""
+        if not store_v2():
+            return None
+        from monitor.store.fits import cached_block
+
+        conn = db.open_store(self.writer.path, readonly=True)
+        try:
+            return cached_block(conn, animal, None)
+        finally:
+            conn.close()
 
     @contextlib.contextmanager
     def _heavy_turn(self, job: Job, animal: str):

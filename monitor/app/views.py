@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from typing import NamedTuple
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -160,26 +160,17 @@ class HistoryParts(NamedTuple):
 
 def consolidation_series(protocol: Protocol, sessions: Sequence[HistorySession]) -> TrialSeries:
     """The final stage's completed trials as the consolidation estimator takes them (label = session index)."""
-    final = protocol.final_stage.name
-    label, interval, target, rewarded = [], [], [], []
-    for index, session in enumerate(sessions, start=1):
-        for t in session.trials:
-            if t.completed and t.stage == final and math.isfinite(t.interval_ms):
-                label.append(index)
-                interval.append(t.interval_ms)
-                target.append(t.target_ms)
-                rewarded.append(t.rewarded)
-    used = sorted(set(label))
-    breaks = np.array([sessions[i - 1].break_hours for i in used], float)
-    excluded = np.array([sessions[i - 1].excluded for i in used], bool)
-    return TrialSeries.from_intervals(np.array(label, int), np.array(interval, float), np.array(target, float),
-                                      np.array(rewarded, bool), breaks, excluded)
+    from monitor.store.consolidation_fits import build_series
+
+    return build_series(protocol.final_stage.name, [(s.trials, s.break_hours, s.excluded) for s in sessions])
 
 
-def history_parts(protocol: Protocol, sessions: Sequence[HistorySession], fit=None) -> HistoryParts:
+def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
+                  fit: Mapping[str, Any] | None = None) -> HistoryParts:
     """Learning curve, consolidation panel and session table from an animal's past sessions.
 
-    `fit` is a `monitor.core.consolidation.ConsolidationResult` (or None: measures only).
+    `fit` is the consolidation block of the store's cached fit (CONTRACTS.md section 5 with its
+    "trajectory", "forecast" and "current"), or None: measures only.
     """
     from monitor.core.consolidation_measures import since_plateau
 
@@ -261,26 +252,27 @@ def _latest_error(protocol: Protocol, sessions: Sequence[HistorySession]) -> tup
 
 
 def _consolidation_state(since: Mapping[str, int | None], latest: tuple[float | None, float | None],
-                         drops: tuple[StartDrop, ...], fit) -> ConsolidationState:
+                         drops: tuple[StartDrop, ...], fit: Mapping[str, Any] | None) -> ConsolidationState:
     error_ms, cv = latest
     empty = np.zeros(0)
-    if fit is None or not fit.sessions:
-        why = "not fitted yet" if fit is None else fit.reason
+    rows = list(fit.get("trajectory") or ()) if fit is not None else []
+    if not rows:
+        why = "not fitted yet" if fit is None else f"{fit['status']}" + (f", {fit['reason']}" if fit.get("reason") else "")
         return ConsolidationState(since["trials"], since["sessions"], error_ms, cv, drops, empty, empty, empty,
                                   empty, (), model_comparison=f"Model: {why}.")
-    rows = fit.sessions
-    comparison = f"Model ({fit.status}): {fit.reason}."
+    comparison = f"Model ({fit['status']}): {fit.get('reason', '')}."
+    if fit.get("current") is False:
+        comparison += " Fitted before the latest data; a refit is due."
     low = high = None
-    level = 0.8
-    if fit.forecast is not None:
-        level = fit.forecast.level
-        if fit.status == "estimated":
-            low, high = fit.forecast.sessions_low, fit.forecast.sessions_high
+    forecast = fit.get("forecast") or {}
+    level = forecast.get("level", 0.8)
+    if forecast and fit["status"] == "estimated":
+        low, high = forecast["sessions_low"], forecast["sessions_high"]
     return ConsolidationState(
         since["trials"], since["sessions"], error_ms, cv, drops,
-        session=np.array([r.session for r in rows], float), fraction=np.array([r.estimate for r in rows], float),
-        fraction_low=np.array([r.low for r in rows], float), fraction_high=np.array([r.high for r in rows], float),
-        status=tuple(r.status for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,
+        session=np.array([r["session"] for r in rows], float), fraction=np.array([r["estimate"] for r in rows], float),
+        fraction_low=np.array([r["low"] for r in rows], float), fraction_high=np.array([r["high"] for r in rows], float),
+        status=tuple(r["status"] for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,
         forecast_level=level)
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import importlib.util
+import json
 import sqlite3
 import threading
 from pathlib import Path
@@ -135,6 +136,37 @@ def test_history_comes_from_the_store_when_the_page_opens(rig, qtbot):
         qtbot.waitUntil(lambda: "wren" in controller.history_parts and
                         controller.history_parts["wren"].sessions[0].excluded, timeout=20000)
         assert controller.history_parts["wren"].sessions[0].exclusion_reason == "cable fault"
+
+
+def fits_in(db) -> list[str]:
+    with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+        return [json.loads(b)["status"] for (b,) in conn.execute("SELECT block FROM fits ORDER BY id")]
+
+
+def test_the_fit_runs_in_a_child_process_is_cached_and_not_redone_for_unchanged_data(rig, qtbot, monkeypatch):
+    controller, window, log, store, db = rig
+    controller.fit_consolidation = True
+    spawned = []
+    import monitor.store.consolidation_fits as fits_module
+    real = fits_module.refit_in_process
+    monkeypatch.setattr(fits_module, "refit_in_process", lambda *a, **k: (spawned.append(a[1]), real(*a, **k))[1])
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    with log.open("ab") as fh:
+        fh.write(streams.session_bytes([650, 660, 640, 1000, 655]))
+    qtbot.waitUntil(lambda: controller.board.state("box 1").trials_today == 5, timeout=10000)
+    controller.check_out("box 1")
+    qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
+    controller.history_parts.clear()
+    window.open_animal("wren")
+    # five trials are far below the estimator's minimum: the child saves "too few trials", the page says so
+    qtbot.waitUntil(lambda: fits_in(db) == ["too few trials"] and controller.fits.get("wren") is not None,
+                    timeout=60000)
+    assert spawned == [["wren"]]
+    assert "too few trials" in controller.book.state("wren").consolidation.model_comparison
+    controller.load_history("wren", refresh=True)   # same data: the cached fit is current, no new process
+    qtbot.waitUntil(lambda: "wren" not in controller._loading, timeout=20000)
+    assert spawned == [["wren"]] and fits_in(db) == ["too few trials"]
 
 
 def test_long_work_shows_progress_and_can_be_cancelled(rig, qtbot):
