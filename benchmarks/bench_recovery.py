@@ -5,7 +5,9 @@ parameters drawn per animal; one target, a reward window of +/-20 %, nights and
 weekends between sessions), the estimate is computed from the trials alone,
 and the truth (the learner's slow / (fast + slow) after each session's last
 trial) is compared with it.  Prints per regime: the coverage of the 90 %
-interval over animals x sessions, the median absolute error after plateau
+interval over animals x sessions (all of them, and "cov.est": only the
+sessions whose status is "estimated", where the interval is not the whole
+[0, 1] by rule), the median absolute error after plateau
 (3 sessions in a row with hit rate >= 0.5; the first of them is the plateau
 session), the median interval width and the status words.
 Run: python benchmarks/bench_recovery.py [--animals 4 --sessions 40]
@@ -87,10 +89,11 @@ def main() -> None:
     parser.add_argument("--regimes", nargs="*", default=list(REGIMES))
     args = parser.parse_args()
     print(f"{args.animals} animals x {args.sessions} sessions per regime (250-350 trials each)")
-    print(f"{'regime':24s} {'kind':10s} {'coverage':>8s} {'MAE>plat':>8s} {'width':>6s} {'seconds':>7s}  status")
+    print(f"{'regime':24s} {'kind':10s} {'coverage':>8s} {'cov.est':>7s} {'MAE>plat':>8s} {'width':>6s} "
+          f"{'seconds':>7s}  status")
     for name in args.regimes:
         matched, base, schedule = REGIMES[name]
-        covered, errors, widths, words, spent = [], [], [], Counter(), 0.0
+        covered, confident, errors, widths, words, spent = [], [], [], [], Counter(), 0.0
         for animal in range(args.animals):
             rng = np.random.default_rng([args.seed, animal, list(REGIMES).index(name)])
             series, truth, hit_rates = train(draw_params(rng, base), args.sessions, schedule, rng)
@@ -100,14 +103,17 @@ def main() -> None:
             est = np.array([s.estimate for s in res.sessions])
             low = np.array([s.low for s in res.sessions])
             high = np.array([s.high for s in res.sessions])
-            covered.extend((low <= truth) & (truth <= high))
+            inside = (low <= truth) & (truth <= high)
+            covered.extend(inside)
+            confident.extend(inside[[s.status == "estimated" for s in res.sessions]])
             widths.extend(high - low)
             words.update(s.status for s in res.sessions)
             plateau = plateau_session(hit_rates)
             if plateau is not None:
                 errors.extend(np.abs(est - truth)[plateau:])
         mae = f"{np.median(errors):.3f}" if errors else "n/a"
-        print(f"{name:24s} {'matched' if matched else 'mismatch':10s} {np.mean(covered):8.2f} {mae:>8s} "
+        cov_est = f"{np.mean(confident):.2f}" if confident else "n/a"
+        print(f"{name:24s} {'matched' if matched else 'mismatch':10s} {np.mean(covered):8.2f} {cov_est:>7s} {mae:>8s} "
               f"{np.median(widths):6.2f} {spent / args.animals:7.1f}  {dict(words)}")
 
 

@@ -77,6 +77,24 @@ def demo_animals(
     return out
 
 
+# an eligibility rule of our own for the demo cohort (docs/eligibility.md): two timing groups
+DEMO_ELIGIBILITY = """
+[eligibility]
+cohort = "demo"
+warn_sessions = 2
+
+[eligibility.groups.early]
+label = "plateaued, not consolidated"
+max_sessions_since_plateau = 12
+max_interval_error = 0.2
+
+[eligibility.groups.late]
+label = "consolidated"
+min_sessions_since_plateau = 20
+max_cv = 0.3
+"""
+
+
 def prepare_demo(
     out: Path,
     seed: int = 7,
@@ -93,7 +111,7 @@ def prepare_demo(
     for label, animal, sessions in demo_animals(seed, stages):
         train(animal, weekdays_before(today, sessions), out)
         protocol_path = out / f"{animal.name}.protocol.toml"
-        protocol_path.write_text(protocol_toml(animal.protocol))
+        protocol_path.write_text(protocol_toml(animal.protocol) + DEMO_ELIGIBILITY)
         files = [out / s["file"] for s in animal.sessions]
         prepared.append(DemoAnimal(label, animal, protocol_path, files))
     truth = truth_document([d.animal for d in prepared])

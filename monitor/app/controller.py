@@ -241,6 +241,7 @@ class Controller(QObject):
         self.fit_consolidation = fit_consolidation
         self.rigs: dict[str, _Rig] = {}
         self.window = None
+        self.records = None          # eligibility and care (monitor/app/eligibility_care.py) once a window attaches
         self.open_pages: set[str] = set()
         self.history_parts: dict[str, views.HistoryParts] = {}
         self.fits: dict[str, Any] = {}
@@ -296,6 +297,10 @@ class Controller(QObject):
             window.statusBar().addPermanentWidget(widget)
             widget.hide()
         window.set_roster(self.roster())
+        from monitor.app.eligibility_care import DecisionsAndCare
+
+        self.records = DecisionsAndCare(self)
+        self.records.attach(window)
 
     def install_signal_handlers(self, app: QApplication) -> None:
         """SIGINT/SIGTERM: close cleanly (the 20 Hz timer lets Python run the handler promptly)."""
@@ -586,6 +591,8 @@ class Controller(QObject):
             self.alerts.push(RaisedAlert(rig, animal, alert, time.time()))
         self._refresh_roster()
         self._push_page(animal)
+        if self.records is not None:
+            self.records.update([animal])
 
     # --- pages ------------------------------------------------------------------------------------------
     def page_opened(self, animal: str) -> None:
@@ -610,9 +617,10 @@ class Controller(QObject):
                                            time.monotonic())
                 self._today[animal] = (rig.snapshot.version, cached)
             today = cached
+        care, eligibility = self.records.texts(animal) if self.records is not None else ("", "")
         self.book.update(views.page_state(animal, rig.spec.name if rig else None,
                                           loaded.protocol.name if loaded else "", today,
-                                          self.history_parts.get(animal)))
+                                          self.history_parts.get(animal), care, eligibility))
 
     # --- the timer ---------------------------------------------------------------------------------------
     def refresh(self) -> None:

@@ -67,8 +67,9 @@ def add_note(conn: sqlite3.Connection, animal: str, *, at: str, by: str, text: s
     return _add(conn, animal, "note", at, by, None, text)
 
 
-def animal_care(conn: sqlite3.Connection, animal: str, config: CareConfig) -> AnimalCare:
-    """Everything the care ledger needs for one animal, from the store."""
+def animal_care(conn: sqlite3.Connection, animal: str, config: CareConfig,
+                since: datetime | None = None) -> AnimalCare:
+    """Everything the care ledger needs for one animal, from the store (sessions started before `since` skipped)."""
     from monitor.core.care_water import session_water
 
     known = find_animal(conn, animal)
@@ -89,6 +90,8 @@ def animal_care(conn: sqlite3.Connection, animal: str, config: CareConfig) -> An
             "SELECT id, start_wall, started_at, ended_at, rig, protocol_text FROM sessions WHERE animal = ? "
             "ORDER BY started_at, id", (animal,)).fetchall():
         start = datetime.fromisoformat(start_wall)
+        if since is not None and start.tzinfo is not None and start < since:
+            continue
         end = start + timedelta(seconds=(ended_at or started_at) - started_at)
         reward_ul = protocol_of(text).reward_ul if text else None
         sessions.append(session_water(session_events(conn, session_id), ul_per_ms=valve_calibration(conn, rig),

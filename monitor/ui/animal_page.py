@@ -7,6 +7,8 @@ Every axis names its unit, every estimate is drawn with its interval, every
 verdict has its one-sentence reason beside it, and the consolidation figure
 comes after the transparent measures with its caveat and the advisory note.
 Flagging an exclusion or adding a condition emits a record; the app stores it.
+Buttons beside the eligibility and care lines ask the app for the decision
+dialog, the decision history and the care window.
 """
 
 from __future__ import annotations
@@ -450,6 +452,9 @@ class AnimalPage(QWidget):
 
     exclusion_requested = Signal(object)   # Exclusion
     condition_requested = Signal(object)   # ConditionRecord
+    decision_requested = Signal(str)       # animal
+    history_requested = Signal(str)        # animal
+    care_requested = Signal()
 
     def __init__(self, book: AnimalBook, animal: str, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -494,12 +499,24 @@ class AnimalPage(QWidget):
         self.sections.addTab(self.curve, "Learning curve")
         self.sections.addTab(self.consolidation, "Consolidation")
         self.sections.addTab(self.sessions, "Sessions")
+        self.record_buttons = {key: QPushButton(text) for key, text in (
+            ("decide", "Record a decision…"), ("decisions", "Decision history…"), ("care", "Care today…"))}
+        self.record_buttons["decide"].clicked.connect(lambda: self.decision_requested.emit(self.animal))
+        self.record_buttons["decisions"].clicked.connect(lambda: self.history_requested.emit(self.animal))
+        self.record_buttons["care"].clicked.connect(self.care_requested.emit)
+        eligibility = QHBoxLayout()
+        eligibility.addWidget(self.eligibility_line, 1)
+        eligibility.addWidget(self.record_buttons["decide"])
+        eligibility.addWidget(self.record_buttons["decisions"])
+        care = QHBoxLayout()
+        care.addWidget(self.care, 1)
+        care.addWidget(self.record_buttons["care"])
         layout = QVBoxLayout(self)
         layout.addLayout(header)
         layout.addWidget(self.plateau_line)
-        layout.addWidget(self.eligibility_line)
+        layout.addLayout(eligibility)
         layout.addWidget(self.sections, 1)
-        layout.addWidget(self.care)
+        layout.addLayout(care)
         layout.addWidget(self.care_advisory)
 
         self._shown: AnimalPageState | None = None

@@ -38,6 +38,9 @@ SHORTCUTS = {
     "overview": "Ctrl+1",
     "close_page": "Ctrl+W",
     "add_rig": "Ctrl+Shift+N",
+    "decide": "Ctrl+D",
+    "decisions": "Ctrl+Shift+D",
+    "care": "Ctrl+J",
 }
 
 
@@ -55,6 +58,9 @@ class MainWindow(QMainWindow):
     condition_requested = Signal(object)   # ConditionRecord
     page_opened = Signal(str)              # animal: the app starts pushing its page state
     page_closed = Signal(str)              # animal
+    decision_requested = Signal(str)       # animal ('' when no page is open): open the decision dialog
+    history_requested = Signal(str)        # animal: show its logged decisions
+    care_requested = Signal()              # open the care window (the day's water ledger)
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
                  roster: Roster | None = None, discover_devices: Callable[[], Sequence[SerialDevice]] = tuple,
@@ -122,6 +128,12 @@ class MainWindow(QMainWindow):
         view = self.menuBar().addMenu("&View")
         view.addAction(self._action("overview", "&All rigs", lambda: self.tabs.setCurrentIndex(0)))
         view.addAction(self._action("close_page", "&Close page", self.close_current_page))
+        animals = self.menuBar().addMenu("A&nimals")
+        animals.addAction(self._action("decide", "Record a &decision…",
+                                       lambda: self.decision_requested.emit(self.current_animal())))
+        animals.addAction(self._action("decisions", "Decision &history…",
+                                       lambda: self.history_requested.emit(self.current_animal())))
+        animals.addAction(self._action("care", "&Care today…", self.care_requested.emit))
         alerts = self.menuBar().addMenu("A&lerts")
         alerts.addAction(self._action("acknowledge", "&Acknowledge", self.alert_panel.acknowledge_selected,
                                       "acknowledge"))
@@ -167,11 +179,19 @@ class MainWindow(QMainWindow):
             page = AnimalPage(self.book, animal)
             page.exclusion_requested.connect(self.exclusion_requested)
             page.condition_requested.connect(self.condition_requested)
+            page.decision_requested.connect(self.decision_requested)
+            page.history_requested.connect(self.history_requested)
+            page.care_requested.connect(self.care_requested)
             self.pages[animal] = page
             self.tabs.addTab(page, animal)
             self.page_opened.emit(animal)
         self.tabs.setCurrentWidget(page)
         return page
+
+    def current_animal(self) -> str:
+        """The animal of the page in front ('' on the overview)."""
+        page = self.tabs.currentWidget()
+        return page.animal if isinstance(page, AnimalPage) else ""
 
     def close_current_page(self) -> None:
         index = self.tabs.currentIndex()

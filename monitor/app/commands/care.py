@@ -15,16 +15,11 @@ committee and the veterinarian decide; follow local rules.
 from __future__ import annotations
 
 import argparse
-import csv
 from datetime import date, datetime
 from pathlib import Path
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
-
-CAUTION = ("Advisory figures: the approved animal-use protocol, the animal-care committee and the veterinarian "
-           "decide; follow local rules.")
-
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("action", choices=("weigh", "supplement", "note", "baseline", "sheet"))
@@ -91,63 +86,35 @@ def _need(value, option: str):
     return value
 
 
-def _config(path: Path | None):
-    from monitor.core.care import CareConfig, parse_care
-
-    if path is None:
-        return CareConfig()
-    import tomllib
-
-    from drivers.config import ConfigError, TomlFile
-
-    try:
-        text = path.read_text(encoding="utf-8")
-        doc = TomlFile(text, str(path))
-        return parse_care(doc.data.get("care", {}), doc)
-    except OSError as exc:
-        raise UsageError(f"--settings: cannot read {path} ({exc.strerror or exc})") from None
-    except (ConfigError, tomllib.TOMLDecodeError) as exc:
-        raise UsageError(f"--settings: {exc}") from None
-
-
 def _sheet(args: argparse.Namespace) -> int:
-    from monitor.app.commands.export import safe_cell
+    from monitor.app.animal_records import CARE_CAUTION, care_config, care_day, care_line, write_care_csv
     from monitor.app.commands.report import known_animal, open_readonly
-    from monitor.core.care import CARE_SHEET_COLUMNS, care_sheet
-    from monitor.store.care_log import animal_care
     from monitor.store.records import animal_names
 
     try:
         day = date.fromisoformat(args.day) if args.day else date.today()
     except ValueError:
         raise UsageError(f"--day: expected an ISO date, got {args.day!r}") from None
-    config = _config(args.settings)
+    try:
+        config = care_config(args.settings)
+    except ValueError as exc:
+        raise UsageError(f"--settings: {exc}") from None
     conn = open_readonly(args.db)
     try:
         if args.animal:
             known_animal(conn, args.animal)
         names = [args.animal] if args.animal else animal_names(conn)
-        cohort = [animal_care(conn, name, config) for name in names]
+        summaries = care_day(conn, names, day, config, datetime.now().astimezone())
     finally:
         conn.close()
-    summaries = care_sheet(cohort, day, config, datetime.now().astimezone())
     for s in summaries:
-        weight = "no weight" if s.weight_g is None else f"{s.weight_g:.1f} g" + (
-            f" ({s.percent_of_baseline:.1f} % of baseline)" if s.percent_of_baseline is not None else "")
-        owed = f", owed {s.owed_ml:.2f} ml" if s.owed_ml else ""
-        print(f"{s.animal} {s.day}: {s.total_ml:.2f} ml ({s.earned_ml:.2f} earned + {s.supplement_ml:.2f} "
-              f"supplement){owed}; {weight}")
+        print(f"{s.animal} {s.day}: {care_line(s)}")
         for alert in s.alerts:
             print(f"  {alert.level.upper()}: {alert.message}")
-    print(CAUTION)
+    print(CARE_CAUTION)
     if args.csv is not None:
         try:
-            with open(args.csv, "w", newline="", encoding="utf-8") as out:
-                writer = csv.writer(out)
-                writer.writerow(CARE_SHEET_COLUMNS)
-                for s in summaries:
-                    row = s.row()
-                    writer.writerow([safe_cell(row[c]) for c in CARE_SHEET_COLUMNS])
+            write_care_csv(args.csv, summaries)
         except OSError as exc:
             raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
     return 0

@@ -19,14 +19,8 @@ animal-care committee and the veterinarian decide.
 from __future__ import annotations
 
 import argparse
-from dataclasses import replace
-from datetime import datetime
-
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
-
-NO_RULE = "no eligibility rule"
-
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser)
@@ -75,57 +69,28 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _decide(conn, args):
-    from drivers.config import ConfigError, TomlFile
-
+    from monitor.app.animal_records import RuleError, judge, record_decision
     from monitor.app.commands.report import known_animal
-    from monitor.core.decision_log import new_decision
-    from monitor.core.eligibility import parse_eligibility
-    from monitor.core.eligibility_report import figures_from_report
-    from monitor.core.eligibility_verdict import Verdict, evaluate
-    from monitor.store.decisions import append_decision
-    from monitor.store.derive import protocol_of
-    from monitor.store.reporting import animal_entry
 
     known_animal(conn, args.animal)
-    entry = animal_entry(conn, args.animal)
-    if entry is None:
+    try:
+        judgement = judge(conn, args.animal)
+    except RuleError as exc:
+        raise UsageError(f"--animal: {exc}") from None
+    if judgement is None:
         raise UsageError(f"--animal: {args.animal!r} has no session with a protocol yet; nothing to decide on")
-    figures = figures_from_report(entry, entry["consolidation"])
-    text = conn.execute("SELECT protocol_text FROM sessions WHERE animal = ? AND protocol_text IS NOT NULL "
-                        "ORDER BY started_at DESC, id DESC LIMIT 1", (args.animal,)).fetchone()[0]
-    protocol = protocol_of(text)
     try:
-        rule = parse_eligibility(protocol.eligibility, TomlFile(text, "<protocol in force>"),
-                                 protocol_name=protocol.name, protocol_version=protocol.version)
-    except ConfigError as exc:
-        raise UsageError(f"--animal: the protocol in force has a bad [eligibility] rule ({exc})") from None
-    if rule is not None:
-        verdict = evaluate(rule, figures)
-        group_rule = rule.group(args.group) if args.group else None
-        if args.decision == "eligible" and args.group and group_rule is None:
-            raise UsageError(f"--group: the rule has no group {args.group!r} "
-                             f"(groups: {', '.join(g.name for g in rule.groups)})")
-    else:
-        verdict = Verdict(args.animal, NO_RULE, NO_RULE, (), (),
-                          "The protocol in force has no [eligibility] rule; the figures are recorded as they were.",
-                          figures.session, figures.protocol_version)
-    try:
-        decision = new_decision(
-            decision=args.decision, animal=args.animal, operator=args.operator, reason=args.reason,
-            time=datetime.now().astimezone().isoformat(timespec="seconds"), figures=figures, verdict=verdict,
-            group=args.group, planned_manipulation=args.planned, planned_date=args.planned_date,
-            assignment_method=args.method, assignment_seed=args.seed, corrects=args.corrects)
-        if rule is None:
-            decision = replace(decision, disagrees_with_rule=False)
-        logged = append_decision(conn, decision)
+        logged = record_decision(conn, judgement, decision=args.decision, operator=args.operator, reason=args.reason,
+                                 group=args.group, planned_manipulation=args.planned, planned_date=args.planned_date,
+                                 assignment_method=args.method, assignment_seed=args.seed, corrects=args.corrects)
     except ValueError as exc:
         raise UsageError(f"{_option(str(exc))}: {exc}") from None
-    return logged, (None if rule is None else verdict)
+    return logged, (None if judgement.rule is None else judgement.verdict)
 
 
 def _option(message: str) -> str:
     """The command-line option a core ValueError is about."""
-    for words, option in (("names a group", "--group"), ("blinded", "--group"), ("planned_date", "--planned-date"),
+    for words, option in (("names a group", "--group"), ("has no group", "--group"), ("blinded", "--group"), ("planned_date", "--planned-date"),
                           ("planned_manipulation", "--planned"), ("assignment", "--method/--seed"),
                           ("corrects", "--corrects"), ("entry ", "--corrects"), ("operator", "--operator"),
                           ("reason", "--reason"), ("figures are for", "--animal"), ("animal", "--animal")):

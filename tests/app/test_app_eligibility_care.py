@@ -1,0 +1,167 @@
+"""monitor.app.eligibility_care: verdict and care lines, alerts, decisions and care records through a real store."""
+
+from __future__ import annotations
+
+import csv
+from datetime import datetime
+
+import pytest
+from PySide6.QtGui import QImage
+
+from drivers.wire import Event, encode_event, encode_header
+from monitor.app import cli
+from monitor.app.controller import Controller
+from monitor.app.eligibility_care import care_row, decision_view
+from monitor.app.animal_records import Judgement
+from monitor.core.assignment import blinding_key
+from monitor.core.care import AnimalCare, CareConfig, Weighing, day_summary
+from monitor.core.care_water import session_water
+from monitor.core.eligibility import parse_eligibility
+from monitor.core.eligibility_figures import AnimalFigures
+from monitor.core.eligibility_verdict import evaluate
+from monitor.store.db import open_store
+from monitor.store.decisions import entries
+from monitor.store.writer import StoreWriter
+from monitor.ui.care_panel import CareEntry, CarePanel
+from monitor.ui.decision_dialog import DecisionDialog
+from monitor.ui.decision_history import DecisionHistory
+from monitor.ui.main_window import MainWindow
+
+PROTOCOL = """
+[protocol]
+name = "two-press 650 ms"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+reward_ul = 30
+
+[eligibility]
+cohort = "shore"
+
+[eligibility.groups.any]
+label = "any hit rate"
+plateau = false
+min_hit_rate = 0.0
+"""
+
+
+@pytest.fixture
+def app(qapp, tmp_path):
+    start = datetime.now().astimezone().replace(hour=0, minute=5, second=0, microsecond=0)
+    data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
+    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (issue 9 check values), each confirmed by a lick
+        t = 1000 + 4000 * k
+        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
+        data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")
+    (tmp_path / "heron_s01.rsw").write_bytes(data)
+    (tmp_path / "p.toml").write_text(PROTOCOL)
+    db = tmp_path / "store.sqlite3"
+    assert cli.main(["import", str(tmp_path / "heron_s01.rsw"), "--protocol", str(tmp_path / "p.toml"),
+                     "--db", str(db)]) == 0
+    writer = StoreWriter(db)
+    writer.start()
+    controller = Controller(writer, alert_store=None, fit_consolidation=False)
+    window = MainWindow(controller.board, controller.book, controller.alert_book)
+    controller.attach(window)
+    controller.start()
+    yield controller, window, db
+    controller.close()
+    window.close()
+
+
+def kinds(controller) -> list[str]:
+    return [a.kind for a in controller.alert_book.alerts()]
+
+
+def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
+    controller, window, db = app
+    records = controller.records
+    qtbot.waitUntil(lambda: "heron" in records.verdicts and "heron" in records.summaries, timeout=20000)
+    assert records.verdicts["heron"].state == "in window: any hit rate"
+    assert records.summaries["heron"].earned_ml == pytest.approx(1.2)     # 40 x 30 µL (issue 9 check values)
+    assert "window opened" in kinds(controller) and "weight missing" in kinds(controller)
+    # the page shows both lines
+    page = window.open_animal("heron")
+    qtbot.waitUntil(lambda: page.eligibility_line.text().startswith("Eligibility (rule's verdict): in window"),
+                    timeout=20000)
+    assert page.care.text().startswith("Care today: Water 1.20 ml of 1.00 ml minimum")
+    # a second check raises nothing new: each alert once per day and level
+    count = len(kinds(controller))
+    records.update()
+    qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
+    assert len(kinds(controller)) == count
+    # care records through the window: baseline 25.0 g, weight 21.3 g -> 85.2 % (issue 9 check values)
+    records.open_care()
+    panel = records.care_panel
+    assert isinstance(panel, CarePanel)
+    records.log_care(CareEntry("heron", "baseline", 25.0, "", "ana"))
+    qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
+    records.log_care(CareEntry("heron", "weight", 21.3, "", "ana"))
+    qtbot.waitUntil(lambda: records.summaries["heron"].weight_g == 21.3 and not controller.jobs(), timeout=20000)
+    assert round(records.summaries["heron"].percent_of_baseline, 1) == 85.2
+    qtbot.waitUntil(lambda: panel.table.rowCount() == 1 and panel.table.item(0, 8).text() == "85.2", timeout=20000)
+    panel.resize(1300, 700)
+    panel.grab().save(str(tmp_path / "care.png"))
+    # the sheet as CSV and as a printable page
+    records.export("csv", str(tmp_path / "sheet.csv"))
+    qtbot.waitUntil(lambda: (tmp_path / "sheet.csv").exists() and not controller.jobs(), timeout=20000)
+    row = next(csv.DictReader(open(tmp_path / "sheet.csv", encoding="utf-8")))
+    assert (row["animal"], float(row["earned_ml"]), float(row["percent_of_baseline"])) == ("heron", 1.2, 85.2)
+    records.export("png", str(tmp_path / "sheet.png"))
+    assert QImage(str(tmp_path / "sheet.png")).width() == 1754
+
+
+def test_a_decision_against_the_rule_is_recorded_with_the_snapshot_shown(app, qtbot):
+    controller, window, db = app
+    records = controller.records
+    records.open_decision("heron")
+    qtbot.waitUntil(lambda: isinstance(records.dialog, DecisionDialog), timeout=20000)
+    dialog = records.dialog
+    shown = dict(dialog.view.figures)
+    assert shown["plateau"] == "not reached" and dialog.view.rule_state == "in window: any hit rate"
+    dialog.decision.setCurrentText("excluded")          # the window is open: the rule does not support this
+    dialog.operator.setText("ana")
+    dialog.reason.setText("the vet advised a pause")
+    assert "differs" in dialog.agreement.text()
+    assert dialog.try_accept()
+    conn = open_store(db, readonly=True)
+    try:
+        qtbot.waitUntil(lambda: len(entries(conn, "heron")) == 1, timeout=20000)
+        entry = entries(conn, "heron")[0]
+    finally:
+        conn.close()
+    d = entry.decision
+    assert (d.decision, d.operator, d.disagrees_with_rule, d.rule_state) == (
+        "excluded", "ana", True, "in window: any hit rate")
+    assert d.snapshot.data()["verdict"]["state"] == "in window: any hit rate"
+    assert d.snapshot.figures().measures["hit_rate"] == pytest.approx(1.0)
+    records.open_history("heron")
+    qtbot.waitUntil(lambda: isinstance(records.dialog, DecisionHistory), timeout=20000)
+    history = records.dialog
+    assert history.table.rowCount() == 1 and history.table.item(0, 6).text() == "no (both kept)"
+    assert history.chain.text().startswith("✔ Decision log intact: 1 entries")
+
+
+def test_blinded_decisions_show_codes_and_compare_with_the_real_group():
+    rule = parse_eligibility({"groups": {"drug": {"plateau": False, "min_hit_rate": 0.5},
+                                         "vehicle": {"plateau": False, "min_hit_rate": 0.5}}})
+    figures = AnimalFigures("heron", "p", 1, session=3, measures={"hit_rate": 0.8})
+    key = blinding_key(["drug", "vehicle"], b"0123456789abcdef")
+    view = decision_view(Judgement(figures, rule, evaluate(rule, figures)), key, ())
+    shown = {text for _, text in view.groups}
+    assert shown == set(key.codes.values()) and not shown & {"drug", "vehicle"} and view.blinded
+    assert view.agrees[("eligible", key.code_of("drug"))] is True
+    assert view.agrees[("excluded", "")] is False
+
+
+def test_care_row_check_values():
+    # valve 25 ms at 1.2 µL/ms = 30 µL; 21.3 g against a 25.0 g baseline = 85.2 % (issue 9 check values)
+    now = datetime.now().astimezone()
+    events = [Event(1_000_000, "valve", ("25",), "1000", 0, 1, 0, 0), Event(1_100_000, "lick", (), "1100", 0, 2, 0, 0)]
+    water = session_water(events, ul_per_ms=1.2, reward_ul=None, max_valve_ms=250, lick_window_ms=2000,
+                          session="1", end=now)
+    assert water.earned_ul == pytest.approx(30.0)
+    care = AnimalCare("heron", 25.0, (water,), (), (Weighing(now, 21.3, "ana"),))
+    row = care_row(day_summary(care, now.date(), CareConfig(), now))
+    assert row.cells[0] == "0.03" and row.cells[5] == "21.3" and row.cells[6] == "85.2"
