@@ -413,6 +413,32 @@ def _logistic(value: float) -> float:
     return e / (1.0 + e)
 
 
+def _posterior_mode(state: float, prior_var: float, hits: float, total: float, mu: float) -> float:
+    """The root of g(x) = x - state - prior_var * (hits - total * logistic(mu + x)): safeguarded Newton.
+
+    g rises strictly (g' = 1 + prior_var * total * p (1 - p) >= 1) and its root lies in
+    [state + prior_var * (hits - total), state + prior_var * hits], so a Newton step that leaves
+    the bracket is replaced by bisection (plain Newton overshoots on large blocks and diverges).
+    """
+    low, high = state + prior_var * (hits - total), state + prior_var * hits
+    guess = min(max(state, low), high)
+    for _ in range(200):
+        p = _logistic(mu + guess)
+        value = guess - state - prior_var * (hits - total * p)
+        if value > 0:
+            high = guess
+        else:
+            low = guess
+        step = value / (1 + prior_var * total * p * (1 - p))
+        candidate = guess - step
+        if not low < candidate < high:
+            candidate = 0.5 * (low + high)
+        if abs(candidate - guess) < 1e-12 or high - low < 1e-12:
+            return candidate
+        guess = candidate
+    return guess
+
+
 def state_space_curve(outcomes: Sequence[bool] | np.ndarray, chance: float, block: int | None = None,
                       max_iter: int = 200, tol: float = 1e-4, sigma2: float | None = None) -> StateSpaceCurve:
     """Smith et al. (2004): x_k = x_(k-1) + e_k, p_k = logistic(logit(chance) + x_k),
@@ -442,13 +468,7 @@ def state_space_curve(outcomes: Sequence[bool] | np.ndarray, chance: float, bloc
         for k in range(steps):
             pv = var + sigma2
             n, total = counts[k], totals[k]
-            guess = state
-            for _ in range(50):
-                p = _logistic(mu + guess)
-                step = (guess - state - pv * (n - total * p)) / (1 + pv * total * p * (1 - p))
-                guess -= step
-                if abs(step) < 1e-12:
-                    break
+            guess = _posterior_mode(state, pv, n, total, mu)
             p = _logistic(mu + guess)
             state, var = guess, 1.0 / (1.0 / pv + total * p * (1 - p))
             post[k], post_v[k], prior_v[k] = state, var, pv

@@ -291,3 +291,31 @@ def test_hull_candidates_equal_the_literal_rule(series, origin):
         hull.extend_to(t)
         chosen = hull.candidate(t)
         assert chosen in allowed and chosen == min(allowed)  # the first trial on a tie
+
+
+@pytest.mark.parametrize("prior_var", [0.01, 0.5, 5.0, 20.0])
+@pytest.mark.parametrize("hits, total", [(50, 50), (45, 50), (0, 50), (1, 1), (0, 1)])
+@pytest.mark.parametrize("chance", [0.01, 0.5, 0.9])
+def test_posterior_mode_equals_brentq(prior_var, hits, total, chance):
+    """The filter's per-step posterior mode (Smith et al. 2004, eq. for x_k|k) is the root that
+    scipy.optimize.brentq finds for the same equation; plain Newton went astray on large blocks."""
+    from scipy.optimize import brentq
+
+    from monitor.core.plateau import _logistic, _posterior_mode
+
+    mu, state = math.log(chance / (1 - chance)), 0.3
+
+    def g(x: float) -> float:
+        return x - state - prior_var * (hits - total * _logistic(mu + x))
+
+    root = brentq(g, state + prior_var * (hits - total) - 1, state + prior_var * hits + 1, xtol=1e-13)
+    assert _posterior_mode(state, prior_var, hits, total, mu) == pytest.approx(root, abs=1e-9)
+
+
+def test_long_series_from_a_low_baseline_stays_finite():
+    """A first session with no hit puts chance at its 0.01 floor; 22,000 later trials at ~70 %
+    overflowed the old Newton step (seen on a demo animal's 75 sessions)."""
+    rng = np.random.default_rng(0)
+    outcomes = np.r_[np.zeros(300), rng.random(22000) < 0.7]
+    fit = state_space_curve(outcomes, 0.01)
+    assert np.all(np.isfinite(fit.p_mode)) and fit.p_mode[-1] > 0.6
