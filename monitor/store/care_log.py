@@ -3,7 +3,8 @@
 Rule: each record is one `care_log` row for a known animal with an aware
 ISO 8601 time, who did it, and the amount (ml of a supplement, g of a
 weighing) or the text of a note; rows are only added. `animal_care` gathers an
-animal's records and the water earned in each of its sessions
+animal's records (the weight taken at each check-in counts as a weighing) and
+the water earned in each of its sessions
 (monitor.core.care_water over the stored events, with the rig's valve
 calibration and the protocol's reward size) into `monitor.core.care.AnimalCare`,
 so `day_summary` and `care_sheet` of monitor.core.care give the daily ledger
@@ -85,6 +86,12 @@ def animal_care(conn: sqlite3.Connection, animal: str, config: CareConfig,
             weighings.append(Weighing(moment, amount, by))
         else:
             notes.append(HealthNote(moment, by, text))
+    # the weight taken at check-in is a weighing too (the trainer weighs the animal before the session)
+    for grams, at, by in conn.execute(
+            "SELECT c.weight_before_g, s.start_wall, c.operator FROM checkins AS c JOIN sessions AS s "
+            "ON s.id = c.session_id WHERE c.animal_id = ? AND c.weight_before_g IS NOT NULL", (known.id,)):
+        weighings.append(Weighing(datetime.fromisoformat(at), grams, by))
+    weighings.sort(key=lambda w: w.time)
     sessions = []
     for session_id, start_wall, started_at, ended_at, rig, text in conn.execute(
             "SELECT id, start_wall, started_at, ended_at, rig, protocol_text FROM sessions WHERE animal = ? "

@@ -194,6 +194,19 @@ def test_care_log_feeds_the_daily_ledger(tmp_path):
     assert summary.notes == ("coat scruffy",)
 
 
+def test_the_weight_taken_at_check_in_is_a_weighing_of_the_day(tmp_path):
+    conn = store(tmp_path)
+    ensure_animal(conn, "heron", baseline_weight_g=25.0)
+    when = datetime(2026, 3, 2, 9, 0, tzinfo=timezone.utc).timestamp()
+    check_in(conn, animal="heron", rig="box1", operator="ana", protocol_id=None, weight_before_g=21.3, when=when)
+    care = animal_care(conn, "heron", CareConfig())
+    assert [(w.grams, w.by) for w in care.weighings] == [(21.3, "ana")]
+    summary = day_summary(care, date(2026, 3, 2), CareConfig(),
+                          now=datetime(2026, 3, 2, 18, 0, tzinfo=timezone.utc))
+    # issue 9's check value: 21.3 g against a 25.0 g baseline = 85.2 %
+    assert summary.percent_of_baseline == pytest.approx(85.2)
+
+
 def test_cached_report_entry_is_used_only_while_its_data_are_unchanged(tmp_path):
     conn = store(tmp_path)
     ids = import_sessions(conn, tmp_path, "heron", [2, 8, 8, 9])
