@@ -27,11 +27,13 @@ from datetime import datetime, timedelta
 from pathlib import Path
 
 from drivers.wire import Event, Header, Malformed, decode_all
+from mock_rig import scenario
 from monitor.app import views
 from monitor.core.protocol import Protocol
 
 SECTIONS = {"today": 0, "curve": 1, "consolidation": 2, "sessions": 3}
 CHECK_IN_WEIGHT_G = 310.0   # the demo's rats weigh in at this (our own figure)
+BASELINE_WEIGHT_G = 335.0   # and weighed this before water restriction began (our own figure: 92.5 %)
 
 
 @dataclass
@@ -108,12 +110,16 @@ def importer_available() -> bool:
 def import_history(controller, prepared, done: threading.Event) -> None:
     """Import every demo session file into the store, in a worker job; set `done` at the end."""
     from monitor.store.importer import ImportRefused, import_file
+    from monitor.store.records import ensure_animal
 
     files = [(d, path) for d in prepared for path in d.session_files]
 
     def work(job) -> int:
         count = 0
         try:
+            for d in prepared:      # the cohort's records: a baseline weight for the care day's percentage
+                controller.writer.call(lambda c, name=d.animal.name: ensure_animal(
+                    c, name, cohort=scenario.COHORT, species="Rattus norvegicus", baseline_weight_g=BASELINE_WEIGHT_G))
             for k, (d, path) in enumerate(files):
                 job.progress(k / len(files), f"{path.name}")
                 text = d.protocol_path.read_text(encoding="utf-8")
