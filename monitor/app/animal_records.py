@@ -4,7 +4,11 @@ Rule: one place turns the store into what a person decides on. `judge(conn,
 animal)` takes the animal's figures from the same data as `rigside report`
 (stored trials, cached consolidation fit), reads the eligibility rule of the
 protocol in force and returns the figures with the rule's verdict (the
-verdict "no eligibility rule" when the protocol has none). `record_decision`
+verdict "no eligibility rule" when the protocol has none). For a blinded
+cohort (`[eligibility] blinded = true`) the rule's groups are renamed to their
+codes before judging (monitor.app.blinding keeps the key beside the
+database), so the verdict, its alerts, the dialog and the log speak codes
+only. `record_decision`
 freezes those figures and the verdict in a new hash-chained entry inside the
 caller's transaction; the person decides, so an entry that disagrees with
 the rule is recorded with both. `care_day` gives each animal's care day from
@@ -23,6 +27,7 @@ from datetime import date, datetime, timedelta
 from pathlib import Path
 from typing import Any, NamedTuple, Sequence
 
+from monitor.core.assignment import BlindingKey
 from monitor.core.care import CARE_SHEET_COLUMNS, CareConfig, DaySummary, care_sheet
 from monitor.core.decision_log import LogEntry, new_decision
 from monitor.core.eligibility import EligibilityRule
@@ -40,11 +45,19 @@ class RuleError(ValueError):
 
 
 class Judgement(NamedTuple):
-    """An animal's figures and the rule's verdict on them (rule None: the protocol has none)."""
+    """An animal's figures and the rule's verdict on them (rule None: the protocol has none).
+
+    When blinded, `rule` and `verdict` name groups by their codes and `blinding` holds the key.
+    """
 
     figures: AnimalFigures
     rule: EligibilityRule | None
     verdict: Verdict
+    blinding: BlindingKey | None = None
+
+    def real_group(self, group: str) -> str:
+        """The group's name behind a code (the name itself when not blinded)."""
+        return group if self.blinding is None else self.blinding.group_of(group)
 
 
 def judge(conn: sqlite3.Connection, animal: str) -> Judgement | None:
@@ -73,7 +86,24 @@ def judge(conn: sqlite3.Connection, animal: str) -> Judgement | None:
                           "The protocol in force has no [eligibility] rule; the figures are recorded as they were.",
                           figures.session, figures.protocol_version)
         return Judgement(figures, None, verdict)
-    return Judgement(figures, rule, evaluate(rule, figures))
+    if not rule.blinded:
+        return Judgement(figures, rule, evaluate(rule, figures))
+    key = _blinding(conn, rule)
+    coded = rule.under_codes(key.codes)
+    figures = replace(figures, forecast={key.code_of(g): f for g, f in figures.forecast.items() if g in key.codes})
+    return Judgement(figures, coded, evaluate(coded, figures), key)
+
+
+def _blinding(conn: sqlite3.Connection, rule: EligibilityRule) -> BlindingKey:
+    from monitor.app.blinding import BlindingError, cohort_key, database_path
+
+    db = database_path(conn)
+    if db is None:
+        raise RuleError("a blinded cohort needs a database file (its key is kept beside it)")
+    try:
+        return cohort_key(db, rule.cohort_name, [g.name for g in rule.groups])
+    except BlindingError as exc:
+        raise RuleError(str(exc)) from None
 
 
 def record_decision(conn: sqlite3.Connection, judgement: Judgement, *, decision: str, operator: str, reason: str,
@@ -85,7 +115,12 @@ def record_decision(conn: sqlite3.Connection, judgement: Judgement, *, decision:
     from monitor.store.decisions import append_decision
 
     rule, verdict = judgement.rule, judgement.verdict
-    if rule is not None and decision == "eligible" and group and rule.group(group) is None:
+    if judgement.blinding is not None and group:
+        if rule is None or rule.group(group) is None:
+            raise ValueError(f"the cohort is blinded: name the group by its code "
+                             f"({', '.join(sorted(judgement.blinding.codes.values()))})")
+        group_code, blinded = group, True
+    elif rule is not None and decision == "eligible" and group and rule.group(group) is None:
         raise ValueError(f"the rule has no group {group!r} (groups: {', '.join(g.name for g in rule.groups)})")
     entry = new_decision(
         decision=decision, animal=judgement.figures.animal, operator=operator, reason=reason,
@@ -129,21 +164,3 @@ def write_care_csv(path: Path, summaries: Sequence[DaySummary]) -> None:
         for s in summaries:
             row: dict[str, Any] = s.row()
             writer.writerow([safe_cell(row[c]) for c in CARE_SHEET_COLUMNS])
-
-
-def care_config(path: Path | None) -> CareConfig:
-    """The `[care]` table of a lab settings file (defaults without one); ValueError names the file and key."""
-    if path is None:
-        return CareConfig()
-    import tomllib
-
-    from drivers.config import ConfigError, TomlFile
-    from monitor.core.care import parse_care
-
-    try:
-        doc = TomlFile(Path(path).read_text(encoding="utf-8"), str(path))
-        return parse_care(doc.data.get("care", {}), doc)
-    except OSError as exc:
-        raise ValueError(f"cannot read {path} ({exc.strerror or exc})") from None
-    except (ConfigError, tomllib.TOMLDecodeError) as exc:
-        raise ValueError(str(exc)) from None

@@ -4,7 +4,8 @@ Rule: this module only parses. Each subcommand lives in its own module of
 `monitor.app.commands` exposing `add_arguments(parser)` and `run(args) -> int`;
 those modules import their heavy dependencies (Qt, scipy, the store) inside
 `run`, so `rigside record` never loads Qt or scipy. Bad input anywhere gives
-one line `rigside CMD: error: ...` on stderr and exit code 2.
+one line `rigside CMD: error: ...` on stderr and exit code 2. Plain
+`rigside`, with no command, opens the window (`rigside window`).
 """
 
 from __future__ import annotations
@@ -17,12 +18,14 @@ from typing import Sequence
 from monitor.app.errors import UsageError
 
 COMMANDS: dict[str, tuple[str, str]] = {
+    "window": ("monitor.app.commands.window", "the window for this PC's rigs (also plain `rigside`)"),
     "demo": ("monitor.app.commands.demo", "simulated rigs on pseudo-terminals and the full window"),
     "record": ("monitor.app.commands.record", "headless acquisition from one source into the store"),
     "import": ("monitor.app.commands.import_files", "import recorded session files"),
     "report": ("monitor.app.commands.report", "per-animal summary"),
     "export": ("monitor.app.commands.export", "events or trials to CSV, or everything to NWB"),
     "decide": ("monitor.app.commands.decide", "record a person's eligibility decision"),
+    "assign": ("monitor.app.commands.assign", "draw an animal's group at random and record it; reveal a blinding key"),
     "log": ("monitor.app.commands.log", "check the decision log"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
 }
@@ -60,7 +63,8 @@ def _command_module(module_name: str):
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    words = list(sys.argv[1:] if argv is None else argv)
+    args = parser.parse_args(words or ["window"])  # plain `rigside` opens the window
     try:
         return int(args._module.run(args) or 0)
     except UsageError as exc:

@@ -274,8 +274,8 @@ class Controller(QObject):
         self.engine.start()
         self.timer.start()
 
-    def attach(self, window) -> None:
-        """Connect a MainWindow's requests and put the job progress into its status bar."""
+    def attach(self, window, care=None) -> None:
+        """Connect a MainWindow's requests and put the job progress into its status bar; `care`: a CareConfig."""
         self.window = window
         window.checked_in.connect(self.check_in)
         window.checked_out.connect(self.check_out)
@@ -299,7 +299,7 @@ class Controller(QObject):
         window.set_roster(self.roster())
         from monitor.app.eligibility_care import DecisionsAndCare
 
-        self.records = DecisionsAndCare(self)
+        self.records = DecisionsAndCare(self, care)
         self.records.attach(window)
 
     def install_signal_handlers(self, app: QApplication) -> None:
@@ -353,6 +353,11 @@ class Controller(QObject):
         key = str(Path(spec.path).resolve()) if spec.kind == "file" else spec.path
         source_id = self.writer.call(lambda c: db.register_source(
             c, spec.kind, key, spec.name, spec.usb_serial, str(spec.mapping_path) if spec.mapping_path else None))
+        if store_v2():   # the rig's binding and valve calibration (the water ledger converts valve time with it)
+            from monitor.store.records import ensure_rig
+
+            self.writer.call(lambda c: ensure_rig(c, spec.name, usb_serial=spec.usb_serial, port=key,
+                                                  valve_ul_per_ms=spec.valve_ul_per_ms))
         idle = self.writer.call(lambda c: db.start_session(c, source_id, NO_ANIMAL, spec.name, None, None, None))
         resume = (self.writer.call(lambda c: db.file_position(c, source_id), transaction=False)
                   if spec.kind == "file" else None)

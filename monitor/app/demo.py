@@ -29,6 +29,7 @@ from pathlib import Path
 from drivers.wire import Event, Header, Malformed, decode_all
 from mock_rig import scenario
 from monitor.app import views
+from monitor.core.care import CareConfig
 from monitor.core.protocol import Protocol
 
 SECTIONS = {"today": 0, "curve": 1, "consolidation": 2, "sessions": 3}
@@ -51,6 +52,7 @@ class DemoOptions:
     fit: bool = True
     wait_history: float = 0.0
     history: tuple[int, ...] | None = None   # sessions of history per animal (default: mock_rig's 1, 8, 20, 75)
+    care: CareConfig | None = None           # the lab's [care] thresholds (None: the defaults)
 
 
 class FileHistory:
@@ -185,7 +187,7 @@ def run(options: DemoOptions, inspect=None) -> int:
     window = MainWindow(controller.board, controller.book, controller.alert_book, settings=settings,
                         discover_devices=discover_devices,
                         protocols=lambda: [str(d.protocol_path) for d in prepared])
-    controller.attach(window)
+    controller.attach(window, care=options.care)
     use_files = options.files or not hasattr(os, "openpty")
     if use_files:
         rigs = []

@@ -9,8 +9,9 @@ within the rule's `warn_sessions`, as a range of sessions, and closed) and
 care alerts (supplement owed, no fluid, weight missing or low, valve open too
 long, rewards with no licks...) go to the alert list, each once per day and
 level until it clears. The decision dialog shows the judgement read when it
-opened and records exactly that snapshot; with a blinding key operators see
-and record only group codes. The care window logs weights, supplements,
+opened and records exactly that snapshot; "assigned" can draw the group at
+random (`assigning.draw_next`, the same draw as `rigside assign`); in a
+blinded cohort operators see and record only group codes. The care window logs weights, supplements,
 notes and baselines through the store writer and saves the sheet as CSV or
 PNG. Advisory: the approved protocol, the animal-care committee and the
 veterinarian decide.
@@ -30,7 +31,8 @@ from monitor.app.animal_records import Judgement, RuleError, care_day, care_line
     write_care_csv
 from monitor.app.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT, Raised
-from monitor.core.assignment import BlindingKey
+from monitor.app.assigning import AssignError, Draw, draw_next, record_draw
+from monitor.core.assignment import BLOCKS_METHOD
 from monitor.core.care import CareConfig, DaySummary
 from monitor.core.decision_log import ChainCheck, LogEntry, rule_agrees
 from monitor.core.eligibility_verdict import Verdict, window_changes
@@ -72,23 +74,42 @@ def figure_lines(j: Judgement) -> tuple[tuple[str, str], ...]:
             ("slow-state fraction (model)", slow))
 
 
-def decision_view(j: Judgement, blinding: BlindingKey | None, earlier: Sequence[LogEntry],
-                  operator: str = "") -> DecisionView:
-    """What the decision dialog shows: the verdict, the frozen figures, the groups (codes when blinded)."""
-    if blinding is not None:
-        groups = tuple((code, code) for code in sorted(blinding.codes.values()))
-        real = {code: blinding.group_of(code) for code, _ in groups}
-    else:
-        groups = tuple((g.name, g.label) for g in j.rule.groups) if j.rule is not None else ()
-        real = {name: name for name, _ in groups}
+def decision_view(j: Judgement, earlier: Sequence[LogEntry], operator: str = "") -> DecisionView:
+    """What the decision dialog shows: the verdict, the frozen figures, the groups (codes only when blinded)."""
+    groups: tuple[tuple[str, str], ...] = ()
+    if j.rule is not None:
+        groups = tuple((g.name, g.label) for g in j.rule.groups)
+        if j.blinding is not None:
+            groups = tuple(sorted(groups))      # the rule's order would tell which code is which group
     agrees = {}
     if j.rule is not None:
         for decision in DECISIONS:
-            for value in ("", *real):
-                agrees[(decision, value)] = rule_agrees(decision, real.get(value), j.verdict)
+            for value in ("", *(name for name, _ in groups)):
+                agrees[(decision, value)] = rule_agrees(decision, value or None, j.verdict)
     rows = tuple((e.seq, f"{e.decision.decision} by {e.decision.operator}, {e.decision.time}") for e in earlier)
+    can_draw, note = draw_offer(j, earlier)
     return DecisionView(j.figures.animal, j.verdict.state, j.verdict.reason, figure_lines(j), groups,
-                        blinding is not None, agrees, j.rule is not None, rows, operator)
+                        j.blinding is not None, agrees, j.rule is not None, rows, operator, can_draw, note)
+
+
+def draw_offer(j: Judgement, earlier: Sequence[LogEntry]) -> tuple[bool, str]:
+    """Whether the dialog may draw the group at random, and the sentence shown beside the button."""
+    rule = j.rule
+    if rule is None or len(rule.groups) < 2:
+        return False, "No random draw: the protocol in force names fewer than two groups."
+    if rule.assignment != BLOCKS_METHOD:
+        return False, "No draw here: this cohort is dealt as a whole (rigside assign --animals ...)."
+    if any(e.decision.decision == "assigned" for e in earlier):
+        return False, "No draw: this animal is already assigned (record a correction instead)."
+    what = "group code" if j.blinding is not None else "group"
+    return True, (f"The {what} is drawn from cohort {rule.cohort_name!r}'s permuted blocks ({BLOCKS_METHOD}, "
+                  "seed recorded), never from the figures.")
+
+
+def draw_text(draw: Draw) -> str:
+    what = "group code" if draw.blinded else "group"
+    return (f"Drawn at random: {what} {draw.group} ({draw.method}, seed {draw.seed}, animal {draw.position + 1} "
+            f"of cohort {draw.cohort!r}). Recorded only when you press Record decision.")
 
 
 def history_view(animal: str, entries: Sequence[LogEntry], check: ChainCheck) -> HistoryView:
@@ -140,11 +161,11 @@ def thresholds_text(c: CareConfig) -> str:
 class DecisionsAndCare(QObject):
     """The window's eligibility and care side, wired to a Controller (GUI thread only)."""
 
-    def __init__(self, controller, config: CareConfig = CareConfig(), blinding: BlindingKey | None = None,
-                 check_every_ms: int = CHECK_EVERY_MS) -> None:
+    def __init__(self, controller, config: CareConfig | None = None, check_every_ms: int = CHECK_EVERY_MS) -> None:
         super().__init__(controller)
         self.controller = controller
-        self.config, self.blinding = config, blinding
+        self.config = config or CareConfig()     # the lab's [care] thresholds (monitor.app.settings)
+        self.draws: dict[str, Draw] = {}     # animal -> the draw its open dialog shows
         self.verdicts: dict[str, Verdict] = {}
         self.summaries: dict[str, DaySummary] = {}
         self._raised: dict[str, set[tuple]] = {}
@@ -277,21 +298,44 @@ class DecisionsAndCare(QObject):
             if j is None:
                 self._say(f"{animal} has no session with a protocol yet: nothing to decide on.")
                 return
-            dialog = DecisionDialog(decision_view(j, self.blinding, earlier, self._operator()), self._window())
+            self.draws.pop(animal, None)
+            dialog = DecisionDialog(decision_view(j, earlier, self._operator()), self._window())
             dialog.decided.connect(lambda request: self.record(request, j))
+            dialog.draw_requested.connect(lambda _: self.draw(dialog, j))
             self._show(dialog)
 
         self.controller.run_job(f"figures of {animal}", self._read(read), done)
 
+    def draw(self, dialog: DecisionDialog, j: Judgement) -> None:
+        """Draw the animal's group (the cohort's plan is recorded if new) and show it in the dialog."""
+        animal = j.figures.animal
+
+        def work(conn) -> Draw | str:
+            try:
+                return draw_next(conn, j)
+            except AssignError as exc:
+                return f"No draw: {exc}."
+
+        def done(result: Draw | str) -> None:
+            if isinstance(result, str):
+                dialog.show_draw_refused(result)
+                return
+            self.draws[animal] = result
+            dialog.show_draw(result.group, draw_text(result))
+
+        self.controller.run_job(f"drawing a group for {animal}", lambda job: self.controller.writer.call(work), done)
+
     def record(self, request: DecisionRequest, j: Judgement) -> None:
         """Append the decision with the snapshot the dialog showed (through the store writer)."""
-        group, code = request.group, None
-        if self.blinding is not None and request.group:
-            group, code = self.blinding.group_of(request.group), request.group
+        draw = self.draws.pop(request.animal, None) if request.drawn else None
 
         def write(conn) -> LogEntry:
+            if draw is not None:
+                return record_draw(conn, j, draw, operator=request.operator, reason=request.reason,
+                                   planned_manipulation=request.planned_manipulation,
+                                   planned_date=request.planned_date)
             return record_decision(conn, j, decision=request.decision, operator=request.operator,
-                                   reason=request.reason, group=group, group_code=code, blinded=code is not None,
+                                   reason=request.reason, group=request.group,
                                    planned_manipulation=request.planned_manipulation,
                                    planned_date=request.planned_date, corrects=request.corrects)
 
@@ -299,7 +343,8 @@ class DecisionsAndCare(QObject):
             d = entry.decision
             agree = ("no rule to compare with" if j.rule is None else
                      "differs from the rule (both recorded)" if d.disagrees_with_rule else "agrees with the rule")
-            self._say(f"Entry {entry.seq} recorded: {d.animal} {d.decision}; rule: {d.rule_state}; {agree}.")
+            how = f", drawn at random ({d.assignment_method})" if draw is not None else ""
+            self._say(f"Entry {entry.seq} recorded: {d.animal} {d.decision}{how}; rule: {d.rule_state}; {agree}.")
 
         self.controller.run_job(f"recording the decision for {request.animal}",
                                 lambda job: self.controller.writer.call(write), done)

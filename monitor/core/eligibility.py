@@ -10,16 +10,20 @@ figure never opens a window on its own: a group that bounds
 `slow_fraction` must also bound a transparent figure, or the rule is refused
 at parse time with file, line and key. `parse_eligibility` refuses unknown
 keys, wrong types and empty or contradictory bounds; it is pure (the caller
-reads the file). Every key is documented in docs/eligibility.md.
+reads the file). The same table says how the cohort's animals are assigned
+to those groups (`assignment`, `per_block`) and whether operators see group
+codes instead of names (`blinded`); `under_codes` renames the groups for a
+blinded cohort. Every key is documented in docs/eligibility.md.
 """
 
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass
-from typing import Any
+from dataclasses import dataclass, replace
+from typing import Any, Mapping
 
 from drivers.config import ConfigError, TomlFile
+from monitor.core.assignment import BLOCKS_METHOD, COHORT_METHOD
 from monitor.core.eligibility_figures import SINCE_PLATEAU, TRANSPARENT_MEASURES
 
 SLOW = "slow_fraction"
@@ -33,7 +37,8 @@ GROWING = SINCE_PLATEAU + (SLOW,)
 _FRACTIONS = ("hit_rate", "fixed_window_fraction", SLOW)
 _NON_NEGATIVE = ("interval_error", "cv") + SINCE_PLATEAU
 _COUNTS = SINCE_PLATEAU
-_TOP_KEYS = {"cohort", "warn_sessions", "groups"}
+_TOP_KEYS = {"cohort", "warn_sessions", "groups", "assignment", "per_block", "blinded"}
+ASSIGNMENT_METHODS = {"blocks": BLOCKS_METHOD, "cohort": COHORT_METHOD}  # `assignment` word -> method
 _GROUP_KEYS = ({"label", "plateau", "slow_fraction_basis", "slow_fraction_status"}
                | {f"{side}_{figure}" for side in ("min", "max") for figure in FIGURES})
 _BARE = re.compile(r"^[A-Za-z0-9_\-]+$")
@@ -108,12 +113,24 @@ class EligibilityRule:
     warn_sessions: int = DEFAULT_WARN_SESSIONS
     protocol_name: str | None = None
     protocol_version: int | None = None
+    assignment: str = BLOCKS_METHOD     # how animals are drawn into the groups (monitor.core.assignment)
+    per_block: int = 1
+    blinded: bool = False
 
     def group(self, name: str) -> GroupRule | None:
         for group in self.groups:
             if group.name == name:
                 return group
         return None
+
+    @property
+    def cohort_name(self) -> str:
+        """The cohort the rule is written for: `cohort`, else the protocol's name."""
+        return self.cohort or self.protocol_name or "cohort"
+
+    def under_codes(self, codes: Mapping[str, str]) -> "EligibilityRule":
+        """The same rule with each group's name and label replaced by its code (group -> code)."""
+        return replace(self, groups=tuple(replace(g, name=codes[g.name], label=codes[g.name]) for g in self.groups))
 
 
 def format_figure(value: float) -> str:
@@ -165,7 +182,18 @@ def parse_eligibility(table: dict[str, Any], doc: TomlFile | None = None, *,
         if not isinstance(values, dict):
             raise where.error("eligibility.groups", name, "must be a table of conditions")
         groups.append(_parse_group(name, values, where))
-    return EligibilityRule(tuple(groups), cohort, warn, protocol_name, protocol_version)
+    assignment = table.get("assignment", "blocks")
+    if assignment not in ASSIGNMENT_METHODS:
+        raise where.error("eligibility", "assignment",
+                          f"expected one of {', '.join(map(repr, ASSIGNMENT_METHODS))}, got {assignment!r}")
+    per_block = table.get("per_block", 1)
+    if isinstance(per_block, bool) or not isinstance(per_block, int) or per_block < 1:
+        raise where.error("eligibility", "per_block", f"expected a whole number >= 1, got {per_block!r}")
+    blinded = table.get("blinded", False)
+    if not isinstance(blinded, bool):
+        raise where.error("eligibility", "blinded", f"expected true or false, got {blinded!r}")
+    return EligibilityRule(tuple(groups), cohort, warn, protocol_name, protocol_version,
+                           ASSIGNMENT_METHODS[assignment], per_block, blinded)
 
 
 def _parse_group(name: str, values: dict[str, Any], where: _Where) -> GroupRule:

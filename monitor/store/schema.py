@@ -24,6 +24,10 @@ range), check-ins, conditions, trials (derived, rebuildable) with their build
 counts, decisions (insert-only: triggers refuse UPDATE and DELETE), the care
 log, cached fits, cached report entries and alerts. The hot events table stays
 as it was: no index.
+
+Version 3 (random assignment): assignment_plans, one row per cohort (method,
+seed, groups, per_block, blinded), insert-only like the decisions: a plan is
+never changed once its seed is drawn.
 """
 
 from __future__ import annotations
@@ -303,10 +307,29 @@ _V2 = (
     "CREATE INDEX sessions_by_animal ON sessions (animal_id, started_at)",
 )
 
+_NO_REPLAN = "an assignment plan is never changed: its seed was drawn once and recorded"
+
+_V3 = (
+    """CREATE TABLE assignment_plans (
+        cohort TEXT PRIMARY KEY,        -- the eligibility rule's cohort (else the protocol's name)
+        method TEXT NOT NULL,           -- monitor.core.assignment: blocks-sha256-v1 | cohort-sha256-v1
+        seed INTEGER NOT NULL,          -- drawn once with new_seed()
+        groups TEXT NOT NULL,           -- JSON list of the rule's group names, in the rule's order
+        per_block INTEGER NOT NULL CHECK (per_block >= 1),
+        blinded INTEGER NOT NULL,       -- 1: animals are drawn among the groups' codes
+        created_at TEXT NOT NULL        -- ISO 8601 with UTC offset
+    )""",
+    f"""CREATE TRIGGER assignment_plans_no_update BEFORE UPDATE ON assignment_plans
+        BEGIN SELECT RAISE(ABORT, '{_NO_REPLAN}'); END""",
+    f"""CREATE TRIGGER assignment_plans_no_delete BEFORE DELETE ON assignment_plans
+        BEGIN SELECT RAISE(ABORT, '{_NO_REPLAN}'); END""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
               "care log, fits, alerts", _V2),
+    Migration("assignment plans", _V3),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

@@ -5,7 +5,10 @@ figures are advisory, the eligibility rule's own verdict with its reason, and
 the frozen figures that will be stored with the entry. The person chooses the
 decision, the group (only group codes when the study is blinded), who decides
 and why, the planned manipulation and date, and optionally the earlier entry
-this one corrects. A line says, in words and a shape, whether the choice
+this one corrects. With "assigned", *Draw the group at random* asks the app
+for a draw (signal `draw_requested`); the drawn group (its code when blinded)
+is shown and locked before anything is recorded, and the request then says
+it was drawn. A line says, in words and a shape, whether the choice
 agrees with the rule; a choice that differs is still recorded, with the
 verdict beside it. OK emits a `DecisionRequest`; the app stores it. All text
 is plain (never markup). The view model is plain data built by the app.
@@ -18,7 +21,7 @@ from datetime import date, datetime
 from typing import Mapping
 
 from PySide6.QtCore import Qt, Signal
-from PySide6.QtWidgets import QComboBox, QGridLayout, QLineEdit, QWidget
+from PySide6.QtWidgets import QComboBox, QGridLayout, QHBoxLayout, QLineEdit, QPushButton, QWidget
 
 from monitor.ui.dialogs import RecordDialog, plain_label
 
@@ -45,6 +48,8 @@ class DecisionView:
     has_rule: bool = True
     earlier: tuple[tuple[int, str], ...] = ()               # (seq, one line) of this animal's entries
     operator: str = ""
+    can_draw: bool = False                                  # a random draw can be offered for "assigned"
+    draw_note: str = ""                                     # how the draw is made, or why it cannot be
 
 
 @dataclass(frozen=True)
@@ -59,6 +64,7 @@ class DecisionRequest:
     planned_manipulation: str | None
     planned_date: str | None
     corrects: int | None
+    drawn: bool = False               # the group was drawn at random in the dialog
 
 
 def _date_ok(text: str) -> bool:
@@ -77,6 +83,7 @@ class DecisionDialog(RecordDialog):
     """Record eligible / assigned / deferred / excluded for one animal, with the figures frozen."""
 
     decided = Signal(object)   # DecisionRequest
+    draw_requested = Signal(str)   # animal
 
     def __init__(self, view: DecisionView, parent: QWidget | None = None) -> None:
         super().__init__(f"Decision for {view.animal}", parent)
@@ -122,8 +129,20 @@ class DecisionDialog(RecordDialog):
         self.corrects.addItem("nothing (a new decision)", None)
         for seq, line in view.earlier:
             self.corrects.addItem(f"entry {seq}: {line}", seq)
+        self.drawn = False
+        self.draw_button = QPushButton("Draw the group at random")
+        self.draw_button.setEnabled(view.can_draw)
+        self.draw_button.clicked.connect(lambda: self.draw_requested.emit(view.animal))
+        self.draw_text = plain_label(view.draw_note)
+        self.draw_text.setObjectName("draw")
+        self.draw_row = QWidget()
+        draw_layout = QHBoxLayout(self.draw_row)
+        draw_layout.setContentsMargins(0, 0, 0, 0)
+        draw_layout.addWidget(self.draw_button)
+        draw_layout.addWidget(self.draw_text, 1)
         self.agreement = plain_label()
         self.agreement.setObjectName("agreement")
+        self.decision.currentIndexChanged.connect(self._show_draw_row)
         self.decision.currentIndexChanged.connect(self._show_agreement)
         self.group.currentIndexChanged.connect(self._show_agreement)
 
@@ -134,6 +153,7 @@ class DecisionDialog(RecordDialog):
         self.body.insertLayout(4, self.figures)
         self.add_row("Decision", self.decision)
         self.add_row("Group code" if view.blinded else "Group", self.group)
+        self.add_row("Random assignment", self.draw_row)
         self.add_row("Decided by", self.operator)
         self.add_row("Reason", self.reason)
         self.add_row("Planned manipulation", self.planned)
@@ -141,7 +161,30 @@ class DecisionDialog(RecordDialog):
         self.add_row("Corrects", self.corrects)
         self.body.insertWidget(self.body.indexOf(self.problem_line), self.agreement)
         self.buttons.button(self.buttons.StandardButton.Ok).setText("Record decision")
+        self._show_draw_row()
         self._show_agreement()
+
+    def _show_draw_row(self) -> None:
+        visible = self.decision.currentText() == "assigned"
+        self.draw_row.setVisible(visible)
+        self.form.labelForField(self.draw_row).setVisible(visible)
+
+    def show_draw(self, group: str, text: str) -> None:
+        """Show the drawn group (value as recorded) and lock the choice until the dialog closes."""
+        index = self.group.findData(group)
+        if index < 0:
+            self.show_draw_refused(f"The draw gave {group!r}, which is not in the list: nothing was drawn.")
+            return
+        self.group.setCurrentIndex(index)
+        self.drawn = True
+        for widget in (self.group, self.decision, self.draw_button):
+            widget.setEnabled(False)
+        self.draw_text.setText(text)
+        self.draw_text.setStyleSheet("background: rgba(86, 180, 233, 60); color: palette(text); "
+                                     "font-weight: bold; padding: 4px;")  # Okabe–Ito sky blue
+
+    def show_draw_refused(self, text: str) -> None:
+        self.draw_text.setText(text)
 
     def _choice(self) -> tuple[str, str]:
         return self.decision.currentText(), self.group.currentData() or NO_GROUP
@@ -175,4 +218,4 @@ class DecisionDialog(RecordDialog):
         self.decided.emit(DecisionRequest(
             self.view.animal, decision, group or None, self.operator.text().strip(), self.reason.text().strip(),
             self.planned.text().strip() or None, self.planned_date.text().strip() or None,
-            self.corrects.currentData()))
+            self.corrects.currentData(), self.drawn))

@@ -144,15 +144,19 @@ def test_a_decision_against_the_rule_is_recorded_with_the_snapshot_shown(app, qt
 
 
 def test_blinded_decisions_show_codes_and_compare_with_the_real_group():
-    rule = parse_eligibility({"groups": {"drug": {"plateau": False, "min_hit_rate": 0.5},
-                                         "vehicle": {"plateau": False, "min_hit_rate": 0.5}}})
+    rule = parse_eligibility({"blinded": True, "groups": {"drug": {"plateau": False, "min_hit_rate": 0.5},
+                                                          "vehicle": {"plateau": False, "max_hit_rate": 0.5}}})
     figures = AnimalFigures("heron", "p", 1, session=3, measures={"hit_rate": 0.8})
     key = blinding_key(["drug", "vehicle"], b"0123456789abcdef")
-    view = decision_view(Judgement(figures, rule, evaluate(rule, figures)), key, ())
+    coded = rule.under_codes(key.codes)
+    view = decision_view(Judgement(figures, coded, evaluate(coded, figures), key), ())
     shown = {text for _, text in view.groups}
     assert shown == set(key.codes.values()) and not shown & {"drug", "vehicle"} and view.blinded
-    assert view.agrees[("eligible", key.code_of("drug"))] is True
+    assert "drug" not in view.rule_state + view.rule_reason and key.code_of("drug") in view.rule_state
+    assert view.agrees[("eligible", key.code_of("drug"))] is True      # drug's window is open (hit rate 0.8)
+    assert view.agrees[("eligible", key.code_of("vehicle"))] is False
     assert view.agrees[("excluded", "")] is False
+    assert view.can_draw and "group code" in view.draw_note
 
 
 def test_care_row_check_values():

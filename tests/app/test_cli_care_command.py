@@ -83,3 +83,19 @@ def test_care_log_and_sheet(tmp_path, capsys, db):
 def test_bad_care_input_is_one_line_and_exit_2(capsys, db, args, names):
     code, _, err = rigside_care(capsys, *args, "--db", db)
     assert code == 2 and len(err.strip().splitlines()) == 1 and names in err, err
+
+
+def test_the_default_settings_file_sets_the_thresholds(tmp_path, capsys, db, monkeypatch):
+    import platformdirs
+
+    config = tmp_path / "config"
+    config.mkdir()
+    monkeypatch.setattr(platformdirs, "user_config_dir", lambda *a, **k: str(config))
+    code, out, _ = rigside_care(capsys, "sheet", "--db", db)
+    assert code == 0 and "of 1.00 ml minimum" in out                   # no file: the defaults
+    (config / "settings.toml").write_text("[care]\ndaily_minimum_ml = 2.5\n")
+    code, out, _ = rigside_care(capsys, "sheet", "--db", db)
+    assert code == 0 and "of 2.50 ml minimum" in out
+    (config / "settings.toml").write_text("[care]\n\nweight_limit_percent = 90\n")   # above the warning level
+    code, _, err = rigside_care(capsys, "sheet", "--db", db)
+    assert code == 2 and f"--settings: {config / 'settings.toml'}:3" in err and "weight_limit_percent" in err

@@ -38,14 +38,17 @@ DEMO_IN_CHILD = """
 import json, sys
 from pathlib import Path
 from monitor.app.demo import DemoOptions, run
+from monitor.app.settings import care_config
 seen = {}
 def inspect(controller, window):
     seen["tiles"] = {rig: [controller.board.state(rig).animal, controller.board.state(rig).trials_today]
                      for rig in controller.board.rigs()}
     seen["kinds"] = sorted({r.spec.kind for r in controller.rigs.values()})
     seen["size"] = [window.width(), window.height()]
+    seen["minimum"] = controller.records.config.daily_minimum_ml
 code = run(DemoOptions(speed=20, seconds=3, headless=True, folder=Path(sys.argv[1]), fit=False,
-                       files=sys.argv[2] == "files", history=(1, 2, 3, 4)), inspect)
+                       files=sys.argv[2] == "files", history=(1, 2, 3, 4),
+                       care=care_config(Path(sys.argv[3]))), inspect)
 print(json.dumps({"code": code, **seen}))
 """
 
@@ -53,7 +56,9 @@ print(json.dumps({"code": code, **seen}))
 @pytest.mark.parametrize("files", [False, True], ids=["serial-pty", "file-fallback"])
 def test_the_demo_shows_trials_arriving_and_stores_them(tmp_path, files):
     # In a child process: a whole application run must not leave Qt state behind for other tests.
-    result = subprocess.run([sys.executable, "-c", DEMO_IN_CHILD, str(tmp_path), "files" if files else "serial"],
+    (tmp_path / "lab.toml").write_text("[care]\ndaily_minimum_ml = 2.5\n")
+    result = subprocess.run([sys.executable, "-c", DEMO_IN_CHILD, str(tmp_path), "files" if files else "serial",
+                             str(tmp_path / "lab.toml")],
                             capture_output=True, text=True, timeout=180,
                             env={**os.environ, "QT_QPA_PLATFORM": "offscreen"})
     assert result.returncode == 0, result.stderr[-2000:]
@@ -67,6 +72,7 @@ def test_the_demo_shows_trials_arriving_and_stores_them(tmp_path, files):
     events, open_sessions = stored_events(tmp_path / "demo.sqlite3")
     assert events > 0 and open_sessions == 0                 # every session was ended on close
     assert seen["size"] == [1366, 768]
+    assert seen["minimum"] == 2.5                            # the lab's [care] thresholds reach the window
 
 
 def test_headless_screenshot_command(tmp_path):
@@ -106,8 +112,11 @@ def test_sigterm_closes_cleanly(tmp_path):
 
 
 def test_bad_options_exit_2(tmp_path):
+    bad = tmp_path / "lab.toml"
+    bad.write_text('[care]\nend_of_day = "17:00"\ndaily_minimum_ml = "lots"\n')
     for argv, words in ((["--headless"], "needs --seconds"), (["--history", "1,2"], "--history"),
-                        (["--speed", "0", "--seconds", "1"], "--speed")):
+                        (["--speed", "0", "--seconds", "1"], "--speed"),
+                        (["--settings", str(bad), "--seconds", "1"], f"--settings: {bad}:3")):
         result = subprocess.run([sys.executable, "-m", "monitor.app", "demo", *argv],
                                 capture_output=True, text=True, timeout=60)
         assert result.returncode == 2 and words in result.stderr

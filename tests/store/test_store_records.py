@@ -63,14 +63,14 @@ def import_sessions(conn, tmp_path, animal: str, hit_counts: list[int], trials: 
     return [r[0] for r in conn.execute("SELECT id FROM sessions WHERE animal = ? ORDER BY started_at", (animal,))]
 
 
-def test_version_1_file_migrates_to_2_keeping_its_sessions(tmp_path):
+def test_version_1_file_migrates_to_the_newest_keeping_its_sessions(tmp_path):
     path = tmp_path / "old.sqlite3"
     conn = open_store(path, migrations=MIGRATIONS[:1])
     source = db.register_source(conn, "file", "/x.rsw", "box1")
     db.start_session(conn, source, "heron", "box1", "p", 1, "[protocol]")
     conn.close()
     conn = open_store(path)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 2
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 3
     assert conn.execute("SELECT animal, rig, excluded, animal_id FROM sessions").fetchall() == [("heron", "box1", 0, None)]
     assert conn.execute("SELECT count(*) FROM sqlite_master WHERE name = 'events_by_session'").fetchone()[0] == 0
     assert conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'index' AND tbl_name = 'events'"

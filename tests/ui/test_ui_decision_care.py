@@ -26,7 +26,9 @@ VIEW = DecisionView(
     groups=(("early", "plateaued, not consolidated"), ("late", "consolidated")),
     agrees={("eligible", "early"): True, ("eligible", ""): True, ("excluded", ""): False,
             ("excluded", "early"): False, ("assigned", "early"): True},
-    earlier=((3, "deferred by ana, 2026-03-02T10:00:00+01:00"),), operator="ana")
+    earlier=((3, "deferred by ana, 2026-03-02T10:00:00+01:00"),), operator="ana", can_draw=True,
+    draw_note="The group is drawn from cohort 'spring-timing''s permuted blocks (blocks-sha256-v1, seed recorded), "
+              "never from the figures.")
 
 
 def labels(widget) -> str:
@@ -76,6 +78,34 @@ def test_blinded_groups_show_only_codes(qtbot):
     assert "Group code" in labels(widget)
 
 
+def test_the_random_draw_is_offered_for_assigned_only_and_shown_locked(qtbot):
+    view = DecisionView("cedar", "in window: G-7Q, G-K3", "open.", (), groups=(("G-7Q", "G-7Q"), ("G-K3", "G-K3")),
+                        blinded=True, can_draw=True, draw_note="The group code is drawn from cohort 'shore'.",
+                        operator="ana")
+    widget = DecisionDialog(view)
+    qtbot.addWidget(widget)
+    widget.show()
+    assert not widget.draw_row.isVisible()
+    widget.decision.setCurrentText("assigned")
+    assert widget.draw_row.isVisible() and widget.draw_button.isEnabled()
+    assert widget.draw_text.text() == "The group code is drawn from cohort 'shore'."
+    widget.show_draw("G-K3", "Drawn at random: group code G-K3 (blocks-sha256-v1, seed 5, animal 1).")
+    assert widget.group.currentData() == "G-K3" and "G-K3" in widget.draw_text.text()
+    assert not (widget.group.isEnabled() or widget.decision.isEnabled() or widget.draw_button.isEnabled())
+    widget.resize(900, 700)
+    save(widget, "decision-dialog-drawn.png")
+
+
+def test_a_draw_that_is_not_possible_says_why(qtbot):
+    widget = DecisionDialog(DecisionView("cedar", "training", "no.", (), can_draw=False,
+                                         draw_note="No random draw: the protocol in force names fewer than two groups."))
+    qtbot.addWidget(widget)
+    widget.decision.setCurrentText("assigned")
+    assert not widget.draw_button.isEnabled() and "fewer than two groups" in widget.draw_text.text()
+    widget.show_draw_refused("No draw: cedar is already assigned.")
+    assert widget.draw_text.text() == "No draw: cedar is already assigned." and not widget.drawn
+
+
 def test_text_from_the_store_is_plain(qtbot):
     widget = DecisionDialog(DecisionView("<b>x</b>", "<i>state</i>", "<a href='x'>reason</a>", (("a", "<b>1</b>"),)))
     qtbot.addWidget(widget)
@@ -95,6 +125,19 @@ def test_a_filled_dialog_emits_the_request(dialog, qtbot):
         assert dialog.try_accept()
     assert caught.args[0] == DecisionRequest("cedar", "excluded", None, "ana", "lost weight; vet advised a pause",
                                              "none", "2026-03-09", 3)
+
+
+def test_the_draw_button_asks_for_a_draw_and_the_request_says_it_was_drawn(dialog, qtbot):
+    dialog.decision.setCurrentText("assigned")
+    with qtbot.waitSignal(dialog.draw_requested) as asked:
+        dialog.draw_button.click()
+    assert asked.args == ["cedar"]
+    dialog.show_draw("late", "Drawn at random: group late.")
+    dialog.reason.setText("plateau reached")
+    with qtbot.waitSignal(dialog.decided) as caught:
+        assert dialog.try_accept()
+    assert caught.args[0] == DecisionRequest("cedar", "assigned", "late", "ana", "plateau reached", None, None, None,
+                                             drawn=True)
 
 
 def test_missing_fields_are_named_and_nothing_is_emitted(dialog, qtbot):

@@ -7,7 +7,8 @@ animal's baseline weight (the reference for percent of baseline). `sheet
 supplements against the daily minimum, weight and percent of baseline, the
 alerts) and with `--csv FILE` writes the care sheet (CARE_SHEET_COLUMNS of
 monitor.core.care). Thresholds come from the `[care]` table of `--settings
-FILE` (keys and defaults: docs/care.md), else the defaults. Bad input: one
+FILE`, else of the user's default settings file (monitor.app.settings), else
+the defaults (keys and defaults: docs/care.md). Bad input: one
 line, exit 2. Advisory: the approved animal-use protocol, the animal-care
 committee and the veterinarian decide; follow local rules.
 """
@@ -20,6 +21,7 @@ from pathlib import Path
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
+from monitor.app.settings import add_settings_argument
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("action", choices=("weigh", "supplement", "note", "baseline", "sheet"))
@@ -32,7 +34,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--at", help="when (ISO 8601 with UTC offset; default now)")
     parser.add_argument("--day", help="sheet: the care day (ISO date; default today)")
     parser.add_argument("--csv", type=Path, help="sheet: also write the care sheet to this CSV file")
-    parser.add_argument("--settings", type=Path, help="lab settings TOML with a [care] table")
+    add_settings_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -87,7 +89,8 @@ def _need(value, option: str):
 
 
 def _sheet(args: argparse.Namespace) -> int:
-    from monitor.app.animal_records import CARE_CAUTION, care_config, care_day, care_line, write_care_csv
+    from monitor.app.animal_records import CARE_CAUTION, care_day, care_line, write_care_csv
+    from monitor.app.settings import care_config, settings_path
     from monitor.app.commands.report import known_animal, open_readonly
     from monitor.store.records import animal_names
 
@@ -96,7 +99,7 @@ def _sheet(args: argparse.Namespace) -> int:
     except ValueError:
         raise UsageError(f"--day: expected an ISO date, got {args.day!r}") from None
     try:
-        config = care_config(args.settings)
+        config = care_config(settings_path(args.settings))
     except ValueError as exc:
         raise UsageError(f"--settings: {exc}") from None
     conn = open_readonly(args.db)

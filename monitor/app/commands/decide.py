@@ -7,7 +7,8 @@ as `rigside report` (stored trials, cached consolidation fit), turned into
 (its `[eligibility]` table); the figures and the rule's verdict are frozen in
 the entry, and an entry that disagrees with the rule is recorded with both.
 A protocol without a rule gives the verdict "no eligibility rule" (nothing to
-disagree with). An unknown animal, a bad value (decision, date, group for an
+disagree with). In a blinded cohort `--group` takes a group code and only the
+code is recorded; a random draw is `rigside assign`. An unknown animal, a bad value (decision, date, group for an
 assignment, a correction of an entry that does not exist) is refused with one
 line and exit 2; nothing is written then. The entry is appended in one
 `BEGIN IMMEDIATE` transaction, waiting up to `--wait` seconds for another
@@ -26,7 +27,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser)
     parser.add_argument("--animal", required=True)
     parser.add_argument("--decision", required=True, choices=("eligible", "assigned", "deferred", "excluded"))
-    parser.add_argument("--group", help="the experimental group (needed for assigned)")
+    parser.add_argument("--group", help="the experimental group (needed for assigned); its code when blinded")
     parser.add_argument("--operator", required=True, help="who decides")
     parser.add_argument("--reason", required=True, help="why, in a sentence")
     parser.add_argument("--planned", help="the planned manipulation (e.g. 'muscimol M1 0.5 µl')")

@@ -10,6 +10,7 @@ import argparse
 from pathlib import Path
 
 from monitor.app.errors import UsageError
+from monitor.app.settings import add_settings_argument
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -29,6 +30,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-fit", action="store_true", help="do not fit the consolidation model")
     parser.add_argument("--history", metavar="N,N,N,N",
                         help="sessions of generated history of alder, birch, cedar, damson (default 1,8,20,75)")
+    add_settings_argument(parser)
     parser.add_argument("--wait-history", type=float, default=0.0, metavar="S",
                         help="before the screenshot, wait up to S seconds for the open page's history and fit")
 
@@ -52,10 +54,16 @@ def run(args: argparse.Namespace) -> int:
             history = ()
         if len(history) != 4 or min(history) < 1:
             raise UsageError(f"--history: four whole numbers of sessions, each at least 1, got {args.history!r}")
+    from monitor.app.settings import care_config, settings_path
+
+    try:
+        care = care_config(settings_path(args.settings))
+    except ValueError as exc:
+        raise UsageError(f"--settings: {exc}") from None
     from monitor.app.demo import DemoOptions
     from monitor.app.demo import run as run_demo
 
     return run_demo(DemoOptions(speed=args.speed, seconds=args.seconds, headless=args.headless,
                                 screenshot=args.screenshot, db=args.db, folder=args.folder, seed=args.seed,
                                 animal=args.animal, section=args.section, files=args.files, fit=not args.no_fit,
-                                wait_history=args.wait_history, history=history))
+                                wait_history=args.wait_history, history=history, care=care))

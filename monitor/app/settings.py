@@ -1,0 +1,56 @@
+"""The lab's settings file: where it is, and its `[care]` thresholds, for the CLI and the window alike.
+
+Rule: `--settings FILE` names the file; without it, `settings.toml` in the
+user config directory that platformdirs names for "rigside" is read when it
+exists, else the defaults apply. A file that cannot be read or holds a
+mistake is refused with one message naming the file, line and key (through
+drivers.config.TomlFile / ConfigError), never half-used. Advisory: the
+approved animal-use protocol, the animal-care committee and the veterinarian
+set the limits.
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from monitor.core.care import CareConfig
+
+
+def default_settings_path() -> Path:
+    """The per-user settings file (it may not exist)."""
+    from platformdirs import user_config_dir
+
+    return Path(user_config_dir("rigside", appauthor=False)) / "settings.toml"
+
+
+def add_settings_argument(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--settings", type=Path, default=None,
+                        help="lab settings TOML with a [care] table (default: the user config directory's "
+                             "settings.toml, when it exists)")
+
+
+def settings_path(value: Path | None) -> Path | None:
+    """`--settings` as given, else the default file when it exists, else None (defaults)."""
+    if value is not None:
+        return value
+    default = default_settings_path()
+    return default if default.is_file() else None
+
+
+def care_config(path: Path | None) -> CareConfig:
+    """The `[care]` table of a settings file (defaults without one); ValueError names file, line and key."""
+    if path is None:
+        return CareConfig()
+    import tomllib
+
+    from drivers.config import ConfigError, TomlFile
+    from monitor.core.care import parse_care
+
+    try:
+        doc = TomlFile(Path(path).read_text(encoding="utf-8"), str(path))
+        return parse_care(doc.data.get("care", {}), doc)
+    except OSError as exc:
+        raise ValueError(f"cannot read {path} ({exc.strerror or exc})") from None
+    except (ConfigError, tomllib.TOMLDecodeError) as exc:
+        raise ValueError(str(exc)) from None
