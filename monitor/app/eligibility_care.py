@@ -8,7 +8,8 @@ one line each. Window changes (`window_changes`: opened, closing or opening
 within the rule's `warn_sessions`, as a range of sessions, and closed) and
 care alerts (supplement owed, no fluid, weight missing or low, valve open too
 long, rewards with no licks...) go to the alert list, each once per day and
-level until it clears. The decision dialog shows the judgement read when it
+level; when its condition clears (the weight is logged, the supplement given)
+it leaves the open list, acknowledged as "rigside (no longer true)". The decision dialog shows the judgement read when it
 opened and records exactly that snapshot; "assigned" can draw the group at
 random (`assigning.draw_next`, the same draw as `rigside assign`); in a
 blinded cohort operators see and record only group codes. The care window logs weights, supplements,
@@ -47,6 +48,8 @@ WINDOW_SEVERITY = {"opened": ATTENTION, "closing": ATTENTION, "opening": INFO, "
 WINDOW_KIND = {"opened": "window opened", "closing": "window closing", "opening": "window may open",
                "closed": "window closed"}
 LEVEL_ORDER = ("alert", "warning", "notice")
+
+CLEARED_BY = "rigside (no longer true)"  # who "acknowledges" a care alert whose condition cleared by itself
 
 
 def _num(value: float | None, digits: int = 2, unit: str = "") -> str:
@@ -168,7 +171,7 @@ class DecisionsAndCare(QObject):
         self.draws: dict[str, Draw] = {}     # animal -> the draw its open dialog shows
         self.verdicts: dict[str, Verdict] = {}
         self.summaries: dict[str, DaySummary] = {}
-        self._raised: dict[str, set[tuple]] = {}
+        self._raised: dict[str, dict[tuple, int]] = {}   # animal -> (day, kind, level) -> alert id
         self._busy = False
         self._again: set[str] | None = None     # animals to judge once the running job is done (empty: all)
         self.care_panel: CarePanel | None = None
@@ -265,12 +268,16 @@ class DecisionsAndCare(QObject):
                 self.verdicts[name] = j.verdict
         for s in summaries:
             self.summaries[s.animal] = s
-            keys = {(s.day, a.kind, a.level) for a in s.alerts}
-            before = self._raised.get(s.animal, set())
+            before = self._raised.get(s.animal, {})
+            now: dict[tuple, int] = {}
             for a in s.alerts:
-                if (s.day, a.kind, a.level) not in before:
-                    self._push(s.animal, a.kind.replace("_", " "), CARE_SEVERITY[a.level], f"{s.animal}: {a.message}")
-            self._raised[s.animal] = keys
+                key = (s.day, a.kind, a.level)
+                now[key] = before[key] if key in before else self._push(
+                    s.animal, a.kind.replace("_", " "), CARE_SEVERITY[a.level], f"{s.animal}: {a.message}")
+            for key, alert_id in before.items():   # no longer true (weighed, supplement logged...): off the list
+                if key not in now:
+                    self.controller.alert_book.acknowledge(alert_id, CLEARED_BY)
+            self._raised[s.animal] = now
         if panel is not None and self.care_panel is not None:
             self.care_panel.set_view(CareView(self.care_panel.view.day, tuple(care_row(s) for s in panel),
                                               thresholds_text(self.config)))
@@ -278,9 +285,9 @@ class DecisionsAndCare(QObject):
             self.controller._push_page(name)
         self._over()
 
-    def _push(self, animal: str, kind: str, severity: str, text: str) -> None:
+    def _push(self, animal: str, kind: str, severity: str, text: str) -> int:
         """An animal's alert: in the list under the animal, not on a box's tile (the box is not at fault)."""
-        self.controller.alerts.push(RaisedAlert("", animal, Raised(kind, severity, text), time.time()))
+        return self.controller.alerts.push(RaisedAlert("", animal, Raised(kind, severity, text), time.time())).id
 
     # --- decisions ---------------------------------------------------------------------------
     def open_decision(self, animal: str) -> None:

@@ -11,7 +11,7 @@ from PySide6.QtGui import QImage
 from drivers.wire import Event, encode_event, encode_header
 from monitor.app import cli
 from monitor.app.controller import Controller
-from monitor.app.eligibility_care import care_row, decision_view
+from monitor.app.eligibility_care import CLEARED_BY, care_row, decision_view
 from monitor.app.animal_records import Judgement
 from monitor.core.assignment import blinding_key
 from monitor.core.care import AnimalCare, CareConfig, Weighing, day_summary
@@ -100,6 +100,10 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     records.log_care(CareEntry("heron", "weight", 21.3, "", "ana"))
     qtbot.waitUntil(lambda: records.summaries["heron"].weight_g == 21.3 and not controller.jobs(), timeout=20000)
     assert round(records.summaries["heron"].percent_of_baseline, 1) == 85.2
+    # the weight is logged: "weight missing" no longer holds and leaves the open list (kept, acknowledged by rigside)
+    missing = [a for a in controller.alert_book.alerts() if a.kind == "weight missing"]
+    assert len(missing) == 1 and missing[0].acknowledged_by == CLEARED_BY
+    assert "weight missing" not in [a.kind for a in controller.alert_book.open_alerts()]
     qtbot.waitUntil(lambda: panel.table.rowCount() == 1 and panel.table.item(0, 8).text() == "85.2", timeout=20000)
     panel.resize(1300, 700)
     panel.grab().save(str(tmp_path / "care.png"))
