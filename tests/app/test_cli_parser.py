@@ -52,3 +52,15 @@ def test_plain_rigside_opens_the_window(monkeypatch):
     opened = []
     monkeypatch.setattr(window, "run", lambda args: opened.append(args.command) or 0)
     assert main([]) == 0 and opened == ["window"]
+
+
+def test_a_reader_that_goes_away_gives_no_traceback(tmp_path):
+    """`rigside report --json | head -1`: the pipe closes before the command is done."""
+    script = ("import sys; from monitor.app import cli; from monitor.app.commands import report\n"
+              "def run(args):\n    for _ in range(100000):\n        print('x' * 80)\n    return 0\n"
+              "report.run = run\nsys.exit(cli.main(['report', '--json']))\n")
+    child = subprocess.Popen([sys.executable, "-c", script], stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    child.stdout.read(100)
+    child.stdout.close()
+    err = child.stderr.read().decode()
+    assert child.wait(timeout=60) == 1 and "Traceback" not in err, err
