@@ -23,6 +23,7 @@ import sys
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
+from monitor.app.store_access import write_transaction
 
 CAUTION = ("Advisory: the approved animal-use protocol, the animal-care committee and the veterinarian decide; "
            "follow local rules.")
@@ -48,27 +49,7 @@ def run(args: argparse.Namespace) -> int:
     for option, value in (("--operator", args.operator), ("--reason", args.reason)):
         if not value or not value.strip():
             raise UsageError(f"{option}: needed to assign")
-    import sqlite3
-
-    from monitor.store.db import StoreError, open_store
-
-    try:
-        conn = open_store(resolve_db(args.db), busy_timeout_ms=int(max(args.wait, 0) * 1000))
-    except StoreError as exc:
-        raise UsageError(f"--db: {exc}") from None
-    try:
-        conn.execute("BEGIN IMMEDIATE")
-        try:
-            done = _assign(conn, args)
-            conn.execute("COMMIT")
-        except BaseException:
-            if conn.in_transaction:
-                conn.execute("ROLLBACK")
-            raise
-    except sqlite3.OperationalError as exc:
-        raise UsageError(f"--db: {resolve_db(args.db)}: {exc} (waited {args.wait:g} s); nothing recorded") from None
-    finally:
-        conn.close()
+    done = write_transaction(args.db, args.wait, lambda conn: _assign(conn, args))
     for draw, entry in done:
         d = entry.decision
         shown = f"group code {draw.group} (blinded)" if draw.blinded else draw.group

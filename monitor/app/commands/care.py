@@ -20,8 +20,12 @@ from datetime import date, datetime
 from pathlib import Path
 
 from monitor.app.errors import UsageError
-from monitor.app.paths import add_db_argument, resolve_db
+from monitor.app.paths import add_db_argument
 from monitor.app.settings import add_settings_argument
+from monitor.app.store_access import write_transaction
+
+WAIT_S = 30.0  # seconds to wait for another process holding the store's write lock
+
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("action", choices=("weigh", "supplement", "note", "baseline", "sheet"))
@@ -43,41 +47,31 @@ def run(args: argparse.Namespace) -> int:
     if not args.animal:
         raise UsageError("--animal: say which animal")
     from monitor.store import care_log
-    from monitor.store.db import StoreError, open_store
     from monitor.store.records import RecordError, ensure_animal, find_animal
 
     at = args.at or datetime.now().astimezone().isoformat(timespec="seconds")
-    try:
-        conn = open_store(resolve_db(args.db), busy_timeout_ms=30_000)
-    except StoreError as exc:
-        raise UsageError(f"--db: {exc}") from None
-    try:
+
+    def record(conn) -> None:
         if find_animal(conn, args.animal) is None:
             raise UsageError(f"--animal: no animal {args.animal!r} in the database")
-        conn.execute("BEGIN IMMEDIATE")
-        try:
-            if args.action == "weigh":
-                care_log.add_weighing(conn, args.animal, at=at, grams=_need(args.grams, "--grams"),
-                                      by=_need(args.by, "--by"))
-            elif args.action == "supplement":
-                care_log.add_supplement(conn, args.animal, at=at, ml=_need(args.ml, "--ml"), by=_need(args.by, "--by"),
-                                        note=args.text or "")
-            elif args.action == "note":
-                care_log.add_note(conn, args.animal, at=at, by=_need(args.by, "--by"), text=_need(args.text, "--text"))
-            else:
-                ensure_animal(conn, args.animal, baseline_weight_g=_need(args.grams, "--grams"))
-            conn.execute("COMMIT")
-        except BaseException:
-            if conn.in_transaction:
-                conn.execute("ROLLBACK")
-            raise
+        if args.action == "weigh":
+            care_log.add_weighing(conn, args.animal, at=at, grams=_need(args.grams, "--grams"),
+                                  by=_need(args.by, "--by"))
+        elif args.action == "supplement":
+            care_log.add_supplement(conn, args.animal, at=at, ml=_need(args.ml, "--ml"), by=_need(args.by, "--by"),
+                                    note=args.text or "")
+        elif args.action == "note":
+            care_log.add_note(conn, args.animal, at=at, by=_need(args.by, "--by"), text=_need(args.text, "--text"))
+        else:
+            ensure_animal(conn, args.animal, baseline_weight_g=_need(args.grams, "--grams"))
+
+    try:
+        write_transaction(args.db, WAIT_S, record)
     except RecordError as exc:
         field = str(exc).split(":")[0]
         option = {"time": "--at", "by": "--by", "ml": "--ml", "grams": "--grams", "baseline_weight_g": "--grams",
                   "text": "--text", "animal": "--animal"}.get(field, "--" + field)
         raise UsageError(f"{option}: {exc}") from None
-    finally:
-        conn.close()
     print(f"{args.animal}: {args.action} recorded ({at})")
     return 0
 

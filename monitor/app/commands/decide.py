@@ -21,7 +21,8 @@ from __future__ import annotations
 
 import argparse
 from monitor.app.errors import UsageError
-from monitor.app.paths import add_db_argument, resolve_db
+from monitor.app.paths import add_db_argument
+from monitor.app.store_access import write_transaction
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser)
@@ -39,27 +40,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import sqlite3
-
-    from monitor.store.db import StoreError, open_store
-
-    try:
-        conn = open_store(resolve_db(args.db), busy_timeout_ms=int(max(args.wait, 0) * 1000))
-    except StoreError as exc:
-        raise UsageError(f"--db: {exc}") from None
-    try:
-        conn.execute("BEGIN IMMEDIATE")
-        try:
-            entry, verdict = _decide(conn, args)
-            conn.execute("COMMIT")
-        except BaseException:
-            if conn.in_transaction:
-                conn.execute("ROLLBACK")
-            raise
-    except sqlite3.OperationalError as exc:
-        raise UsageError(f"--db: {resolve_db(args.db)}: {exc} (waited {args.wait:g} s); nothing recorded") from None
-    finally:
-        conn.close()
+    entry, verdict = write_transaction(args.db, args.wait, lambda conn: _decide(conn, args))
     d = entry.decision
     agree = "disagrees with the rule (both recorded)" if d.disagrees_with_rule else "agrees with the rule"
     if verdict is None:
