@@ -8,20 +8,37 @@ the same model fitted by statsmodels' MLEModel (time-varying transition at
 session breaks, state_intercept = B u) with a capped number of iterations
 (``--maxiter``), and the ratio.  ``figures(quick)`` returns the same figures for
 ``python -m benchmarks``.  Run: python benchmarks/bench_refit.py
+
+The goal is one core: BLAS is held to one thread (``OPENBLAS_NUM_THREADS=1``
+unless already set, before numpy loads).  scipy's L-BFGS-B wakes an OpenBLAS
+worker thread that then spins on the second core; on a busy machine that
+slows the fit by up to half.  Run with ``OPENBLAS_NUM_THREADS=2`` to see it.
 """
 from __future__ import annotations
 
-import argparse
-import importlib
-import time
-from dataclasses import dataclass
+import os
 
-import numpy as np
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # before numpy is imported (see the docstring)
 
-from monitor.core.consolidation import estimate_consolidation
-from monitor.core.consolidation_fit import default_starts, fit_model
-from monitor.core.consolidation_live import live_filter
-from monitor.core.consolidation_model import TWO_RATE, prepare, simulate, to_natural
+import argparse  # noqa: E402
+import importlib  # noqa: E402
+import time  # noqa: E402
+import timeit  # noqa: E402
+from dataclasses import dataclass  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+from monitor.core.consolidation import estimate_consolidation  # noqa: E402
+from monitor.core.consolidation_fit import default_starts, fit_model  # noqa: E402
+from monitor.core.consolidation_live import live_filter  # noqa: E402
+from monitor.core.consolidation_model import (  # noqa: E402
+    TWO_RATE,
+    evaluate,
+    loglike_gradient,
+    prepare,
+    simulate,
+    to_natural,
+)
 
 TRUTH = {"a_f": 0.97, "b_f": 0.03, "c": 2e-4, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
 
@@ -91,6 +108,9 @@ class RefitTimes:
     single_converged: bool
     single_evaluations: int
     live_us: float  # one trial through the live filter
+    likelihood_ms: float  # one likelihood (two-rate, error variant; best of 7 x 100)
+    gradient_ms: float  # one likelihood with its exact gradient (the same)
+    blas_threads: str
     sm_s: float
     sm_loglike: float
     sm_converged: bool
@@ -138,10 +158,16 @@ def measure(trials: int = 30000, maxiter: int = 50, seed: int = 3) -> RefitTimes
         live.fraction()
     live_us = (time.perf_counter() - t0) / len(new_y) * 1e6
 
+    theta = ours.theta
+    params = to_natural(theta, TWO_RATE)
+    likelihood = min(timeit.repeat(lambda: evaluate(prep, params, "error", True), number=100, repeat=7)) / 100
+    gradient = min(timeit.repeat(lambda: loglike_gradient(prep, theta, "error", True), number=100, repeat=7)) / 100
+
     sm_time, sm = statsmodels_fit(prep, maxiter)
     iters = sm.mle_retvals.get("iterations", sm.mle_retvals.get("nit"))
     return RefitTimes(len(sim.series.y), cold, res.evaluations, res.status, warm, again.evaluations, single,
-                      ours.loglike, ours.converged, ours.evaluations, live_us, sm_time, float(sm.llf),
+                      ours.loglike, ours.converged, ours.evaluations, live_us, 1e3 * likelihood, 1e3 * gradient,
+                      os.environ.get("OPENBLAS_NUM_THREADS", ""), sm_time, float(sm.llf),
                       bool(sm.mle_retvals.get("converged")), iters, sm.mle_retvals.get("fcalls"), maxiter)
 
 
@@ -151,7 +177,10 @@ def figures(quick: bool = False) -> list[tuple[str, float, str, str]]:
     return [
         (f"refit ({m.trials} trials)", m.cold_s, "s",
          f"goal <= 1 s ({'met' if m.cold_s <= 1.0 else 'NOT met'}); cold, {m.cold_evaluations} likelihood "
-         f"evaluations, status {m.status}; warm refit from the cached fit {m.warm_s:.2f} s"),
+         f"evaluations (most with their exact gradient), status {m.status}; warm refit from the cached fit "
+         f"{m.warm_s:.2f} s; OPENBLAS_NUM_THREADS={m.blas_threads}"),
+        ("one likelihood / with its exact gradient", m.likelihood_ms, "ms",
+         f"with gradient {m.gradient_ms:.2f} ms (30000 trials, two-rate, best of 7 x 100)"),
         ("statsmodels MLEModel.fit / ours (same model, one start)", m.ratio_single, "x",
          f"statsmodels {m.sm_s:.2f} s (lbfgs, maxiter={m.maxiter}, converged {m.sm_converged}, "
          f"loglike {m.sm_loglike:.3f}) vs ours {m.single_s:.2f} s (loglike {m.single_loglike:.3f}); "
@@ -168,8 +197,9 @@ def main() -> None:
     args = parser.parse_args()
     m = measure(args.trials, args.maxiter, args.seed)
     print(f"refit ({m.trials} trials): {m.cold_s:.2f} s")
-    print(f"  status {m.status}; {m.cold_evaluations} likelihood evaluations "
-          f"({1e3 * m.cold_s / m.cold_evaluations:.2f} ms each)")
+    print(f"  status {m.status}; {m.cold_evaluations} likelihood evaluations, most with their exact gradient "
+          f"({1e3 * m.cold_s / m.cold_evaluations:.2f} ms each); OPENBLAS_NUM_THREADS={m.blas_threads}")
+    print(f"one likelihood: {m.likelihood_ms:.2f} ms; with its exact gradient: {m.gradient_ms:.2f} ms")
     print(f"warm refit from the cached fit: {m.warm_s:.2f} s ({m.warm_evaluations} evaluations)")
     print(f"two-rate error-driven model alone, one start: {m.single_s:.2f} s, loglike {m.single_loglike:.3f}, "
           f"converged {m.single_converged}, {m.single_evaluations} evaluations")

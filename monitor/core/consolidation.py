@@ -9,7 +9,8 @@ more than ``race_margin`` log-likelihood behind go no further).  The two-rate mo
 when it beats the one-rate model of the same variant by AIC(one) - AIC(two) >=
 ``aic_margin`` (10 by default: the one-rate model then has essentially no
 support); otherwise every session is "not constrained" with the interval [0, 1].
-The final fit also starts from short and long break retentions; optima within
+The final fit also starts from short and long break retentions and from the
+one-rate solution with a small slow state (the nested model's basin); optima within
 ``mode_margin`` (2) log-likelihood of the best are all kept and share the
 interval's draws.  A warm start (``warm_start`` of a previous result, e.g. cached in the store)
 refits from the cached optima only, and falls back to the full fit when another
@@ -194,10 +195,9 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
             spent += again.evaluations
         else:
             found.append(again)
-    modes = _select_modes(prep, found, spent, options, cancel)
-    fits[_key(variant, True)] = modes[0]
+    best = max(found, key=lambda f: f.loglike)
     key = _key(variant, False)
-    projected = to_theta({k: modes[0].params[k] for k in ONE_RATE}, ONE_RATE)
+    projected = to_theta({k: best.params[k] for k in ONE_RATE}, ONE_RATE)
     starts = ([np.asarray(warm[key])] if key in warm else []) + [projected]
     starts += default_starts(False, options.starts, rng)
     # the comparison is only fair when the one-rate model is fitted as hard as the two-rate one
@@ -205,13 +205,24 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
                     race=(max(1, options.race_iter // 3), options.race_margin))
     fits[key] = one
     report((len(options.variants) + 2) / steps, "one-rate model")
-    if modes[0].loglike < one.loglike + 1.0:
-        # the two-rate model nests the one-rate one: ending below it means a poor optimum; restart
-        # from the one-rate solution with a small slow state
-        embed = to_theta(one.params | {"c": 1e-4, "slow_leak": 1e-5, "q_s": 1e-6}, TWO_RATE)
-        again = fit_model(prep, variant, True, [embed], 1, options.max_iter, cancel, False)
-        modes = _select_modes(prep, [again] + modes, modes[0].evaluations, options, cancel)
-        fits[_key(variant, True)] = modes[0]
+    # the two-rate model nests the one-rate one: it also starts from the one-rate solution with a small
+    # slow state (its own basin is often the best); ending below the one-rate model means a poor
+    # optimum, and then that start runs to convergence at once
+    embed = to_theta(one.params | {"c": 1e-4, "slow_leak": 1e-5, "q_s": 1e-6}, TWO_RATE)
+    if best.loglike < one.loglike + 1.0:
+        found.append(fit_model(prep, variant, True, [embed], 1, options.max_iter, cancel, False))
+    else:
+        known = tuple(f.theta for f in found)
+        raced = fit_model(prep, variant, True, [embed], 1, options.race_iter, cancel, False, known)
+        spent += raced.evaluations
+        if raced.reason != JOINED and best.loglike - raced.loglike < 5 * options.mode_margin:
+            again = fit_model(prep, variant, True, [raced.theta], 1, options.max_iter, cancel, False, known)
+            if again.reason == JOINED:
+                spent += again.evaluations
+            else:
+                found.append(again)
+    modes = _select_modes(prep, found, spent, options, cancel)
+    fits[_key(variant, True)] = modes[0]
     return variant, modes, fits
 
 

@@ -2,8 +2,9 @@
 
 Rule: the profile log-likelihood (offset, warm-up size and noise scale profiled
 out exactly) is maximised over the transformed parameters by L-BFGS-B with
-forward-difference gradients, from several starts (a warm start from a cached
-fit first when given); the best optimum is kept.  Two shortcuts save
+exact gradients (forward-mode tangents of the filter, ``kalman_tangent``), from
+several starts (a warm start from a cached fit first when given); the best
+optimum is kept.  Two shortcuts save
 evaluations without changing which optimum wins: a run that comes within
 ``JOIN_DISTANCE`` of an optimum already found stops (it is converging onto it),
 and raced starts (a few steps each) far behind the best go no further.  A fit is "converged" when the
@@ -27,6 +28,7 @@ from monitor.core.consolidation_model import (
     Evaluation,
     Prepared,
     evaluate,
+    loglike_gradient,
     to_natural,
     to_theta,
 )
@@ -83,14 +85,19 @@ class Objective:
             return 1e300
         return value if np.isfinite(value) else 1e300
 
-    def value_and_grad(self, theta: np.ndarray, step: float = 1e-6) -> tuple[float, np.ndarray]:
-        f0 = self(theta)
-        grad = np.empty(len(theta))
-        for i in range(len(theta)):
-            t = theta.copy()
-            t[i] += step
-            grad[i] = (self(t) - f0) / step
-        return f0, grad
+    def value_and_grad(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
+        """Objective and its exact gradient (forward-mode tangents, ``kalman_tangent``): one evaluation."""
+        if self.cancel is not None and self.cancel():
+            raise Cancelled()
+        self.evaluations += 1
+        try:
+            with np.errstate(all="ignore"):
+                value, grad = loglike_gradient(self.prep, theta, self.variant, self.two_rate)
+        except (np.linalg.LinAlgError, FloatingPointError, ValueError):
+            return 1e300, np.zeros(len(theta))
+        if not (np.isfinite(value) and np.all(np.isfinite(grad))):
+            return 1e300, np.zeros(len(theta))
+        return -value, -grad
 
     def hessian(self, theta: np.ndarray, step: float = 1e-2) -> np.ndarray:
         """Forward second differences: (p + 1)(p + 2) / 2 evaluations."""
@@ -152,7 +159,7 @@ def fit_model(
 
     obj = Objective(prep, variant, two_rate, cancel)
     screened = sorted(starts, key=lambda t: obj(np.asarray(t, float)))
-    best = None
+    best, best_joined = None, False
     bounds = [(-THETA_BOUND, THETA_BOUND)] * len(obj.names)
     joined: list[bool] = []
 

@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from monitor.core.kalman import Layout, Padded, Profiled, StateSpace, kalman_filter, pad, profile_effects
+from monitor.core.kalman_tangent import Tangents, profile_gradient
 
 VARIANTS = ("error", "outcome")
 RUNNING_MEAN_TRIALS = 20.0  # time constant of the running mean the outcome variant compares with
@@ -191,6 +192,21 @@ def to_natural(theta: np.ndarray, names: tuple[str, ...]) -> dict[str, float]:
     return out
 
 
+def natural_slopes(theta: np.ndarray, names: tuple[str, ...]) -> np.ndarray:
+    """d(parameter)/d(theta) of :func:`to_natural`, per parameter."""
+    out = []
+    for value, name in zip(np.asarray(theta, float), names):
+        low, high, log = RANGES[name]
+        frac = 1.0 / (1.0 + np.exp(-value))
+        slope = frac * (1.0 - frac)
+        if log:
+            natural = np.exp(np.log(low) + frac * (np.log(high) - np.log(low)))
+            out.append(natural * slope * (np.log(high) - np.log(low)))
+        else:
+            out.append(slope * (high - low))
+    return np.array(out)
+
+
 def to_theta(params: dict[str, float], names: tuple[str, ...]) -> np.ndarray:
     """Inverse of :func:`to_natural` (values clipped just inside their ranges)."""
     out = []
@@ -216,6 +232,25 @@ def state_space(params: dict[str, float], two_rate: bool) -> StateSpace:
         q = np.diag([q_f, 0.0])
         h = np.array([1.0, 0.0])
     return StateSpace(f, np.array([b_f, 0.0]), h, 1.0, q, np.zeros(2), q.copy())
+
+
+def state_space_tangents(params: dict[str, float], two_rate: bool, hours: np.ndarray) -> Tangents:
+    """Derivatives of :func:`state_space`'s matrices and :func:`layout_for`'s breaks with respect to
+    each parameter, in the order of ``TWO_RATE`` / ``ONE_RATE``."""
+    names = TWO_RATE if two_rate else ONE_RATE
+    at = names.index
+    d_f, d_b, d_q = np.zeros((len(names), 2, 2)), np.zeros((len(names), 2)), np.zeros((len(names), 2, 2))
+    d_breaks = np.zeros((len(names), len(hours), 2, 2))
+    d_f[at("a_f"), 0, 0] = 1.0
+    d_b[at("b_f"), 0] = 1.0
+    d_q[at("q_f"), 0, 0] = 1.0
+    tau = params["tau_b"]
+    d_breaks[at("tau_b"), :, 0, 0] = hours / tau**2 * np.exp(-hours / tau)
+    if two_rate:
+        d_f[at("c")] = [[-1.0, 0.0], [1.0, 0.0]]
+        d_f[at("slow_leak"), 1, 1] = -1.0
+        d_q[at("q_s"), 1, 1] = 1.0
+    return Tangents(d_f, d_b, d_q, d_q.copy(), d_breaks)
 
 
 def layout_for(prep: Prepared, params: dict[str, float], two_rate: bool) -> Layout:
@@ -245,6 +280,17 @@ def evaluate(prep: Prepared, params: dict[str, float], variant: str, two_rate: b
     weights = np.r_[1.0, prof.coef]
     means = np.einsum("c,csa->sa", weights, out.end_means)
     return Evaluation(prof, means, out.end_covs * prof.scale)
+
+
+def loglike_gradient(prep: Prepared, theta: np.ndarray, variant: str, two_rate: bool) -> tuple[float, np.ndarray]:
+    """Exact profile log-likelihood and its gradient with respect to the transformed parameters."""
+    names = TWO_RATE if two_rate else ONE_RATE
+    params = to_natural(theta, names)
+    model, layout, padded = state_space(params, two_rate), layout_for(prep, params, two_rate), prep.padded[variant]
+    out = kalman_filter(model, layout, prep.y, prep.inputs[variant], prep.effects, padded, keep_work=True)
+    prof = profile_effects(out, profile_scale=True)
+    grad = profile_gradient(model, layout, padded, out, prof, state_space_tangents(params, two_rate, prep.hours))
+    return prof.loglike, grad * natural_slopes(theta, names)
 
 
 @dataclass(frozen=True)

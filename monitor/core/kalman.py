@@ -21,7 +21,8 @@ sessions are sequential.  The covariance need not settle within a session (it
 does not when the slow state's noise is small); the result equals the plain
 trial-by-trial filter to rounding.  A one-state model is the two-state one with
 the second state held at zero (zero row/column in F, B, Q and the initial
-covariance).
+covariance).  The intermediates can be kept (``keep_work``) for the exact
+gradient of the profiled likelihood (:mod:`monitor.core.kalman_tangent`).
 """
 from __future__ import annotations
 
@@ -64,6 +65,32 @@ class FilterOutput:
     n_obs: int
     end_means: np.ndarray  # (C, S, 2) predicted state after each session's last trial
     end_covs: np.ndarray  # (S, 2, 2) its covariance (before the break)
+    work: FilterWork | None = None  # intermediates, kept on request for the gradient
+
+
+@dataclass(frozen=True)
+class FilterWork:
+    """Intermediates of :func:`kalman_filter` that its tangent (``kalman_tangent``) reuses."""
+
+    p_inf: np.ndarray  # (2, 2) steady predicted covariance
+    s_inf: float  # its innovation variance
+    k_inf: np.ndarray  # (2,) steady Kalman gain (filtering form)
+    m: np.ndarray  # (2, 2) steady closed-loop matrix F (I - k h')
+    gain: np.ndarray  # (2,) F k
+    m_pow: np.ndarray  # (T+1, 2, 2) M^t
+    h_m: np.ndarray  # (T, 2) H M^t
+    shared_y: np.ndarray  # (2 + E, T) rows of O' and the effects' observations -effects
+    shared_state: np.ndarray  # (2, 2 + E, T+1) their zero-start steady states
+    g_end: np.ndarray  # (T+1, 2, 2) F^t - zeta_t
+    a: np.ndarray  # (S, T) zero-start steady innovations of the data, zero after each session's end
+    shared_sums: np.ndarray  # (S, E+4, E+4) sums over each session of basis basis' / s, basis [eff_a', H M^t, O~]
+    data_sums: np.ndarray  # (S, E+4) sums of a basis / s
+    data_square: np.ndarray  # (S,) sums of a^2 / s
+    h_psi: np.ndarray  # (S, T+1) H times the zero-start steady state of the data
+    phis: list[np.ndarray]  # (S, T+1) x / den for each driving series (y; u too unless u = -y)
+    w: np.ndarray  # (S, 2, 2) Woodbury correction of each session
+    trans: np.ndarray  # (S, 2, 2) end mean = trans m0 + const
+    start_means: np.ndarray  # (S, C, 2)
 
 
 def steady_covariance(model: StateSpace, iterations: int = 80) -> np.ndarray:
@@ -110,6 +137,21 @@ def steady_covariance(model: StateSpace, iterations: int = 80) -> np.ndarray:
     return np.array([[x11, x12], [x12, x22]])
 
 
+ONE_CORE_PRODUCT = 200_000  # multiply-adds per BLAS call, below OpenBLAS's threading threshold (4 * 65536)
+
+
+def one_core_matmul(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """x @ y for x (R, T) and y (..., T, K), in row blocks small enough that BLAS stays on one core.
+
+    OpenBLAS splits a larger product over threads; when the other core is busy the
+    wait for it costs milliseconds, far more than the product itself.
+    """
+    rows = max(1, ONE_CORE_PRODUCT // (x.shape[1] * y.shape[-1]))
+    if x.shape[0] <= rows:
+        return x @ y
+    return np.concatenate([x[i : i + rows] @ y for i in range(0, x.shape[0], rows)], axis=-2)
+
+
 def _powers(m: np.ndarray, count: int) -> np.ndarray:
     """M**t for t = 0..count-1 as (count, 2, 2), by the Cayley-Hamilton recurrence."""
     from scipy.signal import lfilter
@@ -122,7 +164,7 @@ def _powers(m: np.ndarray, count: int) -> np.ndarray:
     return out.T.reshape(count, 2, 2)
 
 
-def _steady_response(m: np.ndarray, drive: np.ndarray) -> np.ndarray:
+def steady_response(m: np.ndarray, drive: np.ndarray) -> np.ndarray:
     """Zero-start states z[t+1] = M z[t] + drive[t] for t = 0..T-1; drive (2, ..., T) -> (2, ..., T+1).
 
     Each state component is a second-order all-pole filter of the drive:
@@ -143,25 +185,24 @@ def _steady_response(m: np.ndarray, drive: np.ndarray) -> np.ndarray:
 
 def _covariance_chain(
     breaks: np.ndarray,
-    lengths: np.ndarray,
     init_cov: np.ndarray,
     p_inf: np.ndarray,
-    cum_oo: np.ndarray,
-    g_end: np.ndarray,
+    oo: np.ndarray,
+    g: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray, float]:
-    """Sequential 2x2 recursion over sessions, in floats.
+    """Sequential 2x2 recursion over sessions, in floats; ``oo`` (A) and ``g`` (G) per session.
 
     Per session: dP = P0 - P_inf, L = I + dP A, W = L^-1 dP, ln det L, and the
     end covariance P_inf + G W G'; the next prior is D P_end D'.
     """
-    n_sess = len(lengths)
+    n_sess = len(breaks)
     w_rows: list[tuple[float, ...]] = []
     end_rows: list[tuple[float, ...]] = []
     (q11, q12), (_, q22) = p_inf.tolist()
     (p11, p12), (_, p22) = init_cov.tolist()
     brk = breaks.reshape(n_sess, 4).tolist()
-    aa = cum_oo[lengths].reshape(n_sess, 4).tolist()
-    gg = g_end[lengths].reshape(n_sess, 4).tolist()
+    aa = oo.reshape(n_sess, 4).tolist()
+    gg = g.reshape(n_sess, 4).tolist()
     logdet = 0.0
     e11 = e12 = e22 = 0.0
     for k in range(n_sess):
@@ -191,29 +232,35 @@ def _covariance_chain(
 
 
 def _mean_chain(breaks: np.ndarray, trans: np.ndarray, const: np.ndarray, init_mean: np.ndarray) -> np.ndarray:
-    """Start means of every session and column: m0[k+1] = D[k+1] (T[k] m0[k] + c[k]).
-
-    The recursion is a block lower-bidiagonal linear system in the stacked start
-    means (2S unknowns per column, lower bandwidth 3), solved in one banded LAPACK call.
-    """
-    from scipy.linalg import solve_banded
-
+    """Start means of every session and column: m0[k+1] = D[k+1] (T[k] m0[k] + c[k])."""
     n_sess, n_cols, _ = const.shape
     rhs = np.zeros((n_sess, 2, n_cols))
     rhs[0, :, 0] = init_mean
     if n_sess > 1:
-        step = breaks[1:] @ trans[:-1]  # A_k = D[k+1] T[k]
         rhs[1:] = breaks[1:] @ np.swapaxes(const[:-1], 1, 2)  # D[k+1] c[k]
+    return np.moveaxis(chain_solve(breaks[1:] @ trans[:-1], rhs), 2, 1)
+
+
+def chain_solve(step: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve x[0] = rhs[0], x[k+1] = step[k] x[k] + rhs[k+1] for all k; step (S-1, n, n), rhs (S, n, C).
+
+    The recursion is a unit lower-triangular banded system in the stacked x (nS
+    unknowns per column, lower bandwidth 2n - 1), solved by forward substitution
+    in one LAPACK call (dtbtrs).
+    """
+    from scipy.linalg.lapack import dtbtrs
+
+    n_sess, size, n_cols = rhs.shape
     if n_sess == 1:
-        return np.moveaxis(rhs, 2, 1)
-    band = np.zeros((4, 2 * n_sess))  # band[i - j, j] = matrix[i, j]
-    band[0] = 1.0
-    band[1, 1:-2:2] = -step[:, 0, 1]
-    band[2, 0:-2:2] = -step[:, 0, 0]
-    band[2, 1:-2:2] = -step[:, 1, 1]
-    band[3, 0:-2:2] = -step[:, 1, 0]
-    solved = solve_banded((3, 0), band, rhs.reshape(2 * n_sess, n_cols), check_finite=False)
-    return np.moveaxis(solved.reshape(n_sess, 2, n_cols), 2, 1)
+        return rhs.copy()
+    band = np.zeros((2 * size, size * n_sess))  # band[i - j, j] = matrix[i, j]; the unit diagonal is implied
+    rows, cols = np.indices((size, size))
+    for i, j in zip(rows.ravel(), cols.ravel()):  # entry (i, j) of step[k] sits at (n(k+1) + i, nk + j)
+        band[size + i - j, j : size * (n_sess - 1) : size] = -step[:, i, j]
+    solved, info = dtbtrs(band, rhs.reshape(size * n_sess, n_cols), uplo="L", diag="U")
+    if info != 0:
+        raise np.linalg.LinAlgError(f"dtbtrs failed (info {info})")
+    return solved.reshape(n_sess, size, n_cols)
 
 
 @dataclass(frozen=True)
@@ -253,6 +300,7 @@ def kalman_filter(
     inputs: np.ndarray,
     effects: np.ndarray | None = None,
     padded: Padded | None = None,
+    keep_work: bool = False,
 ) -> FilterOutput:
     """Exact filter statistics of the data (column 0) and of unit observation effects.
 
@@ -262,7 +310,8 @@ def kalman_filter(
     an observation offset of -effects[e] with no input, so the innovations for
     effect sizes b are v0 + sum b_e v_e.  Column 0 starts from ``init_mean``,
     the effect columns from zero.  ``padded`` (from :func:`pad`) saves laying
-    out the same data again on every call.
+    out the same data again on every call; ``keep_work`` keeps the intermediates
+    (``FilterOutput.work``) for :mod:`monitor.core.kalman_tangent`.
 
     Method: each session is filtered with the steady-state gain (an exact
     filter for a session whose prior covariance is the steady one), then
@@ -294,24 +343,19 @@ def kalman_filter(
     o_rows = np.einsum("a,tab->tb", h, f_pow[:t_max])  # O[t] = H F^t
     # steady filter of the columns O (2 of them) and of the effects (data -eff, no input)
     shared_y = np.concatenate([o_rows.T, -eff])  # (2 + E, T)
-    shared_state = _steady_response(m, gain[:, None, None] * shared_y[None])  # (2, 2 + E, T + 1)
+    shared_state = steady_response(m, gain[:, None, None] * shared_y[None])  # (2, 2 + E, T + 1)
     shared_a = shared_y - np.einsum("a,act->ct", h, shared_state[:, :, :t_max])  # innovations
     o_tilde, eff_a = shared_a[:2].T, shared_a[2:]  # (T, 2), (E, T)
     zeta_end = np.moveaxis(shared_state[:, :2], -1, 0)  # (T+1, 2, 2)
     g_end = f_pow - zeta_end  # F^n - zeta_n
     eff_end = np.moveaxis(shared_state[:, 2:], -1, 0)  # (T+1, 2, E)
 
-    def cum(x: np.ndarray) -> np.ndarray:
-        out = np.zeros((t_max + 1,) + x.shape[1:])
-        np.cumsum(x, axis=0, out=out[1:])
-        return out / s_inf
-
-    cum_oo = cum(o_tilde[:, :, None] * o_tilde[:, None, :])
-    cum_hh = cum(h_m[:, :, None] * h_m[:, None, :])
-    cum_oh = cum(o_tilde[:, :, None] * h_m[:, None, :])
-    cum_ee = cum(eff_a.T[:, :, None] * eff_a.T[:, None, :])  # (T+1, E, E)
-    cum_eh = cum(eff_a.T[:, :, None] * h_m[:, None, :])  # (T+1, E, 2)
-    cum_eo = cum(eff_a.T[:, :, None] * o_tilde[:, None, :])  # (T+1, E, 2)
+    # sums over each session's trials (divided by s) of products of the shared sequences
+    basis = np.concatenate([eff_a.T, h_m, o_tilde], axis=1)  # (T, E + 4)
+    at_end = np.cumsum(basis[:, :, None] * basis[:, None, :], axis=0)[lengths - 1] / s_inf
+    ee, eh, eo = at_end[:, :n_eff, :n_eff], at_end[:, :n_eff, n_eff : n_eff + 2], at_end[:, :n_eff, n_eff + 2 :]
+    hh, oh, oo = at_end[:, n_eff : n_eff + 2, n_eff : n_eff + 2], at_end[:, n_eff + 2 :, n_eff : n_eff + 2], \
+        at_end[:, n_eff + 2 :, n_eff + 2 :]
 
     # the data: steady filter from a zero start, all sessions at once (padded)
     data = padded if padded is not None else pad(layout, obs, inputs)
@@ -322,50 +366,55 @@ def kalman_filter(
     def numerator(proj: np.ndarray, vec: np.ndarray) -> list[float]:
         return [0.0, float(proj @ vec), float(proj @ adj0 @ vec)]
 
-    if data.u_is_minus_y:
-        h_psi = lfilter(numerator(h, gain - bvec), den, data.y, axis=-1)
+    drives = [(data.y, gain - bvec)] if data.u_is_minus_y else [(data.y, gain), (data.u, bvec)]
+    phis = []
+    if keep_work:  # through x / den, which the gradient reuses (equal to the direct filter to rounding)
+        phis = [lfilter([1.0], den, x, axis=-1) for x, _ in drives]
+        h_psi = np.zeros_like(data.y)
+        for phi, (_, vec) in zip(phis, drives):
+            _, lag1, lag2 = numerator(h, vec)
+            h_psi[:, 1:] += lag1 * phi[:, :-1]
+            h_psi[:, 2:] += lag2 * phi[:, :-2]
     else:
-        h_psi = lfilter(numerator(h, gain), den, data.y, axis=-1)
-        h_psi += lfilter(numerator(h, bvec), den, data.u, axis=-1)
+        h_psi = sum(lfilter(numerator(h, vec), den, x, axis=-1) for x, vec in drives)
     a = data.y[:, :t_max] - h_psi[:, :t_max]
     a *= data.valid
     s_aa = np.einsum("st,st->s", a, a) / s_inf
-    sums = a @ np.concatenate([eff_a.T, h_m, o_tilde], axis=1) / s_inf
+    sums = one_core_matmul(a, basis) / s_inf
     s_ae, s_ah, s_ao = sums[:, :n_eff], sums[:, n_eff : n_eff + 2], sums[:, n_eff + 2 :]
     # end states: with the sessions right-aligned the weights M^(T-1-t) are shared
     back = m_pow[t_max - 1 :: -1]  # (T, 2, 2): M^(T-1-t)
     if data.u_is_minus_y:
-        psi_end = data.y_right @ (back @ (gain - bvec))
+        psi_end = one_core_matmul(data.y_right, back @ (gain - bvec))
     else:
-        psi_end = data.y_right @ (back @ gain) + data.u_right @ (back @ bvec)
+        psi_end = one_core_matmul(data.y_right, back @ gain) + one_core_matmul(data.u_right, back @ bvec)
 
     # covariance chain (data-free): prior of each session, correction W, end covariance
     w_all, end_covs, logdet_corr = _covariance_chain(
-        layout.breaks, lengths, np.asarray(model.init_cov, float), p_inf, cum_oo, g_end
+        layout.breaks, np.asarray(model.init_cov, float), p_inf, oo, g_end[lengths]
     )
     logdet = n * np.log(s_inf) + logdet_corr
 
     # mean chain: per column, end = T_k m0 + c_k (affine in the session's start mean)
     n_cols = 1 + n_eff
     gw = g_end[lengths] @ w_all  # G W
-    trans = m_pow[lengths] - gw @ cum_oh[lengths]  # (S, 2, 2)
+    trans = m_pow[lengths] - gw @ oh  # (S, 2, 2)
     const = np.empty((n_sess, n_cols, 2))
     const[:, 0] = psi_end + (gw @ s_ao[:, :, None])[:, :, 0]
-    const[:, 1:] = np.moveaxis(eff_end[lengths], 1, 2) + cum_eo[lengths] @ np.swapaxes(gw, 1, 2)
+    const[:, 1:] = np.moveaxis(eff_end[lengths], 1, 2) + eo @ np.swapaxes(gw, 1, 2)
     start_means = _mean_chain(layout.breaks, trans, const, np.asarray(model.init_mean, float))
     end_means = start_means @ np.swapaxes(trans, 1, 2) + const
 
     # exact quadratic forms of the innovations, all sessions at once
-    hh, oh = cum_hh[lengths], cum_oh[lengths]
     quad_a = np.empty((n_sess, n_cols, n_cols))  # sum a_c a_d / s for the zero-start responses
     quad_a[:, 0, 0] = s_aa
     quad_a[:, 0, 1:] = s_ae
     quad_a[:, 1:, 0] = s_ae
-    quad_a[:, 1:, 1:] = cum_ee[lengths]
+    quad_a[:, 1:, 1:] = ee
     ah = np.empty((n_sess, n_cols, 2))  # sum a_c (H M^t) / s
-    ah[:, 0], ah[:, 1:] = s_ah, cum_eh[lengths]
+    ah[:, 0], ah[:, 1:] = s_ah, eh
     ao = np.empty((n_sess, n_cols, 2))  # sum a_c O~_t / s
-    ao[:, 0], ao[:, 1:] = s_ao, cum_eo[lengths]
+    ao[:, 0], ao[:, 1:] = s_ao, eo
     m0 = start_means
     cross = ah @ np.swapaxes(m0, 1, 2)
     b = ao - m0 @ np.swapaxes(oh, 1, 2)  # (S, C, 2): O~' v / s
@@ -374,7 +423,11 @@ def kalman_filter(
         + m0 @ hh @ np.swapaxes(m0, 1, 2)
         - b @ w_all @ np.swapaxes(b, 1, 2)
     ).sum(0)
-    return FilterOutput(gram, float(logdet), n, np.transpose(end_means, (1, 0, 2)), end_covs)
+    work = None
+    if keep_work:
+        work = FilterWork(p_inf, s_inf, k_inf, m, gain, m_pow, h_m, shared_y, shared_state, g_end, a, at_end, sums,
+                          s_aa, h_psi, phis, w_all, trans, start_means)
+    return FilterOutput(gram, float(logdet), n, np.transpose(end_means, (1, 0, 2)), end_covs, work)
 
 
 def loglike(out: FilterOutput) -> float:

@@ -5,7 +5,17 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from monitor.core.kalman import Layout, StateSpace, kalman_filter, loglike, pad, profile_effects, steady_covariance
+from monitor.core.kalman import (
+    Layout,
+    StateSpace,
+    chain_solve,
+    kalman_filter,
+    loglike,
+    one_core_matmul,
+    pad,
+    profile_effects,
+    steady_covariance,
+)
 
 sm_mlemodel = pytest.importorskip("statsmodels.tsa.statespace.mlemodel")
 
@@ -122,3 +132,25 @@ def test_steady_covariance_matches_scipy_riccati_solver():
     # scipy's DARE in the filtering form: A = F', B = H'
     ref = solve_discrete_are(model.transition.T, model.design[:, None], model.state_cov, np.array([[0.05]]))
     np.testing.assert_allclose(steady_covariance(model), ref, rtol=1e-9)
+
+
+@pytest.mark.parametrize("size", [2, 4])
+def test_chain_solve_matches_a_dense_solve(size):
+    rng = np.random.default_rng(5)
+    n_sess, n_cols = 9, 3
+    step = rng.normal(0.0, 0.8, (n_sess - 1, size, size))
+    rhs = rng.normal(size=(n_sess, size, n_cols))
+    dense = np.eye(size * n_sess)
+    for k in range(n_sess - 1):
+        dense[size * (k + 1) : size * (k + 2), size * k : size * (k + 1)] = -step[k]
+    # numpy.linalg.solve of the same block lower-bidiagonal system
+    ref = np.linalg.solve(dense, rhs.reshape(size * n_sess, n_cols)).reshape(n_sess, size, n_cols)
+    np.testing.assert_allclose(chain_solve(step, rhs), ref, rtol=1e-12, atol=1e-12)
+
+
+def test_one_core_matmul_matches_numpy():
+    rng = np.random.default_rng(6)
+    x, y = rng.normal(size=(301, 400)), rng.normal(size=(3, 400, 8))
+    # numpy.matmul in one call
+    np.testing.assert_allclose(one_core_matmul(x, y), x @ y, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(one_core_matmul(x, y[0]), x @ y[0], rtol=1e-12, atol=1e-12)
