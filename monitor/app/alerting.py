@@ -44,7 +44,10 @@ class AlertCentre:
         self._worker: threading.Thread | None = None
         self.errors: list[str] = []
         self.acknowledged: list[tuple[int, str]] = []
+        self._summaries: dict[str, tuple[int, Severity | None]] | None = None   # open alerts per rig
         book.acknowledged.connect(self._on_acknowledged)
+        book.alert_added.connect(self._book_changed)
+        book.alert_changed.connect(self._book_changed)
 
     def push(self, raised: RaisedAlert) -> Alert:
         alert = Alert(id=self._next_id, time=dt.datetime.fromtimestamp(raised.wall).astimezone(), rig=raised.rig,
@@ -57,8 +60,22 @@ class AlertCentre:
         return alert
 
     def summary(self, rig: str) -> tuple[int, Severity | None]:
-        """Open alerts of a rig and the worst of them, for its tile."""
-        return len(self.book.open_alerts(rig)), self.book.worst_open(rig)
+        """Open alerts of a rig and the worst of them, for its tile.
+
+        The timer asks for every rig ~20 times a second: the book is counted once after it changed, not
+        once per rig and tick.
+        """
+        if self._summaries is None:
+            found: dict[str, tuple[int, Severity | None]] = {}
+            for alert in self.book.open_alerts():
+                count, worst = found.get(alert.rig, (0, None))
+                found[alert.rig] = (count + 1, alert.severity if worst is None or alert.severity.rank > worst.rank
+                                    else worst)
+            self._summaries = found
+        return self._summaries.get(rig, (0, None))
+
+    def _book_changed(self, alert_id: int) -> None:
+        self._summaries = None
 
     def _on_acknowledged(self, alert_id: int, operator: str) -> None:
         self.acknowledged.append((alert_id, operator))

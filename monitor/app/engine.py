@@ -2,17 +2,18 @@
 
 Rule: one engine thread serves every rig. Reader threads hand batches to the
 Fanout, which puts them on `Engine.queue` without waiting (a full queue costs
-the display a batch, never the store). The engine feeds each event to the
-rig's `LiveSession` (O(1) per event) and to its alert rules, appends the
-rolling hit rate after each completed trial to append-only arrays, and at
-most every `publish_s` publishes one immutable `RigSnapshot` per rig that
-changed into a latest-value slot. The GUI thread's timer calls
-`take_snapshots()` and `take_alerts()`; neither ever waits for the engine
-beyond a short lock, and the engine never touches Qt. Sessions are opened and
-closed by control messages (`open_session`, `close_session`) that are applied
-before any batch of that session; a batch of no known session (no animal
-checked in) still counts as activity. Alert rules that depend on time and on
-the source's link are checked every `check_s`.
+the display a batch, never the store). The engine thread wakes once every
+`publish_s` (not once per batch: fewer turns of the GIL taken from the GUI
+thread), takes every queued batch, feeds each event to the rig's `LiveSession`
+(O(1) per event) and to its alert rules, appends the rolling hit rate after
+each completed trial to append-only arrays, and publishes one immutable
+`RigSnapshot` per rig that changed into a latest-value slot. The GUI thread's
+timer calls `take_snapshots()` and `take_alerts()`; neither ever waits for the
+engine beyond a short lock, and the engine never touches Qt. Sessions are
+opened and closed by control messages (`open_session`, `close_session`) that
+are applied before any batch of that session; a batch of no known session (no
+animal checked in) still counts as activity. Alert rules that depend on time
+and on the source's link are checked every `check_s`.
 """
 
 from __future__ import annotations
@@ -181,6 +182,7 @@ class Engine:
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._last_publish = self._last_check = 0.0
+        self._behind = False      # the last step left batches queued
         self.batches = 0
         self.error: str | None = None
 
@@ -228,18 +230,26 @@ class Engine:
             raise
 
     def step(self, timeout: float) -> None:
-        """Apply controls, process what is queued (waiting up to `timeout`), publish, check rules."""
+        """Wait up to `timeout` for the next publish slot, apply controls, process what is queued, publish,
+        check rules.
+
+        The engine sleeps between slots and then takes every queued batch in one go, rather than waking for
+        each batch: one wake-up (and one turn of the GIL) per slot instead of one per reader batch, which
+        leaves the GUI thread its share; snapshots are published at the same cadence as before.
+        """
+        wait = min(max(timeout, 0.0), self._last_publish + self.publish_s - self._clock())
+        if wait > 0 and not self._behind:
+            self._stop.wait(wait)
         self._apply_controls()
-        now = self._clock()
-        deadline = now + max(timeout, 0.0)
+        self._behind = False
         while True:
-            wait = max(0.0, min(deadline, self._last_publish + self.publish_s) - self._clock())
             try:
-                item = self.queue.get(timeout=wait) if wait > 0 else self.queue.get_nowait()
+                item = self.queue.get_nowait()
             except queue.Empty:
                 break
             self._batch(item)
-            if self._clock() - self._last_publish >= self.publish_s:
+            if self._clock() - self._last_publish >= 2 * self.publish_s:
+                self._behind = True     # a backlog: publish what is done, go on without sleeping
                 break
         now = self._clock()
         if now - self._last_check >= self.check_s:

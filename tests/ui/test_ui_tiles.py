@@ -190,3 +190,65 @@ def test_repainting_tiles_does_not_drop_nones_refcount(qtbot):
     # 6.12.0 would drop thousands here (200 paints x dozens of void calls); other threads of
     # earlier tests still ending can move None's count by a few dozen, so allow 200.
     assert sys.getrefcount(None) >= before - 200
+
+
+# --- drawing: a cached static layer under the figures ------------------------------
+def test_histogram_bars_are_fractions_of_the_plot():
+    from monitor.ui.tile_paint import histogram_bars
+
+    # bins [0, 1), [1, 2), [2, 4] over a 4 ms axis; the empty bin draws nothing, the tallest fills the plot
+    assert histogram_bars((0, 2, 4), (0.0, 1.0, 2.0, 4.0)) == ((0.25, 0.25, 0.5), (0.5, 0.5, 1.0))
+    assert histogram_bars((), ()) == ()
+
+
+def test_a_text_slot_puts_text_where_qts_own_aligned_drawtext_does(qtbot):
+    # the reference is Qt's drawText(rect, AlignRight | AlignVCenter): the slot must draw the same pixels
+    from PySide6.QtCore import QRectF
+    from PySide6.QtGui import QFont, QImage, QPainter
+
+    from monitor.ui.tile_paint import RIGHT, LEFT, draw_in, text_slot
+
+    font = QFont()
+    font.setPixelSize(23)
+    rect = QRectF(10.5, 7.25, 180.0, 31.0)
+
+    def drawn(paint) -> QImage:
+        image = QImage(220, 50, QImage.Format.Format_ARGB32_Premultiplied)
+        image.fill(0)
+        p = QPainter(image)
+        paint(p)
+        p.end()
+        return image
+
+    for align, right in ((RIGHT, True), (LEFT, False)):
+        def by_qt(p):
+            p.setFont(font)
+            p.drawText(rect, align, "hit 62 %")
+        assert drawn(by_qt) == drawn(lambda p: draw_in(p, text_slot(rect, font, right), "hit 62 %"))
+
+
+def test_the_static_layer_is_kept_while_only_figures_change(qtbot):
+    tile = RigTile(sample.tile_state(0, np.random.default_rng(0)))
+    qtbot.addWidget(tile)
+    tile.resize(300, 180)
+    first = tile.grab().toImage()
+    builds = tile.static_builds
+    tile.set_state(replace(tile.state, trials_today=tile.state.trials_today + 1, session_seconds=4000.0))
+    changed = tile.grab().toImage()
+    assert tile.static_builds == builds and changed != first        # figures redrawn over the kept layer
+    tile.set_state(replace(tile.state, connection=Connection.QUIET))
+    tile.grab()
+    assert tile.static_builds == builds + 1                          # the frame and state word changed
+
+
+def test_a_tile_shows_the_same_pixels_for_the_same_state_whatever_came_between(qtbot):
+    state = sample.tile_state(3, np.random.default_rng(2))
+    tile = RigTile(state)
+    qtbot.addWidget(tile)
+    tile.resize(300, 180)
+    before = tile.grab().toImage()
+    tile.set_state(replace(state, trials_today=99999, hit_rate=0.99, last_interval_ms=1400.0,
+                           hist_counts=tuple(reversed(state.hist_counts))))
+    tile.grab()
+    tile.set_state(state)
+    assert tile.grab().toImage() == before                           # nothing stale left by the dynamic layer
