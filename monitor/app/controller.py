@@ -246,6 +246,7 @@ class Controller(QObject):
         self.history_parts: dict[str, views.HistoryParts] = {}
         self.fits: dict[str, Any] = {}
         self._loading: dict[str, Job] = {}
+        self._reload: set[str] = set()          # animals whose data changed while their history was loading
         self._today: dict[str, tuple[int, TodayState | None]] = {}
         self._plateau: dict[str, bool] = {}
         self._store_failing = False
@@ -509,7 +510,11 @@ class Controller(QObject):
         (a session ended, a session was excluded), the model is refitted in a separate process
         (monitor.store.consolidation_fits), which caches the new fit, and the page is updated again.
         """
-        if animal in self._loading or (animal in self.history_parts and not refresh):
+        if animal in self._loading:
+            if refresh:                      # the data changed under a load in progress: load again after it
+                self._reload.add(animal)
+            return
+        if animal in self.history_parts and not refresh:
             return
         loaded = self._protocol_of(animal)
         if loaded is None:
@@ -536,14 +541,19 @@ class Controller(QObject):
                 raise RuntimeError("the consolidation fit ended without a result")
             return views.history_parts(protocol, sessions, block), block
 
-        def done(result) -> None:
+        def over() -> None:
             self._loading.pop(animal, None)
+            if animal in self._reload:
+                self._reload.discard(animal)
+                self.load_history(animal, refresh=True)
+
+        def done(result) -> None:
             parts, block = result
             self.fits[animal] = block
             self._history_ready(animal, parts)
+            over()
 
-        self._loading[animal] = self.run_job(f"history of {animal}", work, done,
-                                             failed=lambda: self._loading.pop(animal, None))
+        self._loading[animal] = self.run_job(f"history of {animal}", work, done, failed=over)
 
     def _cached_fit(self, animal: str) -> dict[str, Any] | None:
         """The store's newest consolidation block of `animal`, with "current" (None: a store without fits)."""

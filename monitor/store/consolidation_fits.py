@@ -1,7 +1,8 @@
 """Consolidation fits from the store: one TrialSeries per animal, refitted in a separate process, cached.
 
 Rule: an animal's series is its sessions as the report lists them (sessions
-with a protocol text, by start then id; label = the report's index), keeping
+with a protocol text, by start then id; label = the report's index; a session
+still being recorded is left out: a fit describes the end of a session), keeping
 the completed final-stage trials of the latest session's protocol with a
 finite interval: interval, target and rewarded (the rig's outcome) per
 trial; per session the break = this session's start minus the previous
@@ -12,13 +13,16 @@ trajectory with the data fingerprint taken before reading, so a fit of data
 that changed meanwhile is stored as not current. A series with no
 final-stage trial is saved as "too few trials" (estimate 0, interval
 [0, 1]). `refit_in_process` runs the refits in one spawned child process (the
-caller's interpreter stays free), relays progress and passes cancel on.
+caller's interpreter stays free) with one BLAS thread, relays progress and
+passes cancel on.
 """
 
 from __future__ import annotations
 
+import contextlib
 import math
 import multiprocessing
+import os
 import queue as queue_module
 import sqlite3
 from collections.abc import Callable, Iterable, Sequence
@@ -29,9 +33,13 @@ import numpy as np
 
 from monitor.core.consolidation_model import TrialSeries
 from monitor.core.trials import Trial
+from monitor.store.fits import FINISHED
 
 DEFAULT_BREAK_HOURS = 23.0
 TOO_FEW = "too few trials"
+# one BLAS thread in the fit's process: a second OpenBLAS thread only spins beside L-BFGS-B
+# (1.78 s instead of 1.08 s for a cold refit over 30,000 trials, benchmarks/bench_refit.py)
+ONE_CORE = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 Progress = Callable[[float, str], None]
 
 
@@ -66,7 +74,8 @@ def store_series(conn: sqlite3.Connection, animal: str) -> tuple[TrialSeries, in
     rows = conn.execute(
         "SELECT s.id, s.protocol_text, s.started_at, s.ended_at, s.excluded, b.session_id "
         "FROM sessions AS s LEFT JOIN trial_builds AS b ON b.session_id = s.id "
-        "WHERE s.animal = ? AND s.protocol_text IS NOT NULL ORDER BY s.started_at, s.id", (animal,)).fetchall()
+        f"WHERE s.animal = ? AND s.protocol_text IS NOT NULL AND {FINISHED} ORDER BY s.started_at, s.id",
+        (animal,)).fetchall()
     if not rows:
         return build_series("", []), 0
     final = protocol_of(rows[-1][1]).final_stage.name
@@ -129,6 +138,21 @@ def refit_animal(db: str | Path | sqlite3.Connection, animal: str, progress: Pro
             conn.close()
 
 
+@contextlib.contextmanager
+def _environment(values: dict[str, str]):
+    """Set environment variables for a child about to start; restore them after."""
+    saved = {key: os.environ.get(key) for key in values}
+    os.environ.update(values)
+    try:
+        yield
+    finally:
+        for key, value in saved.items():
+            if value is None:
+                os.environ.pop(key, None)
+            else:
+                os.environ[key] = value
+
+
 def _child(db_path: str, animals: list[str], out: Any, cancel: Any) -> None:
     """The child process: refit each animal, reporting ("progress"|"done"|"failed", animal, ...) on `out`."""
     for animal in animals:
@@ -157,7 +181,8 @@ def refit_in_process(db_path: str | Path, animals: Iterable[str],
     out, stop = context.Queue(), context.Event()
     child = context.Process(target=_child, args=(str(db_path), names, out, stop), daemon=True,
                             name="consolidation fit")
-    child.start()
+    with _environment(ONE_CORE):   # the spawned interpreter reads it before numpy loads
+        child.start()
     try:
         while len(results) < len(names):
             if cancel is not None and cancel():

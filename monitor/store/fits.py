@@ -2,7 +2,8 @@
 
 Rule: a fit is stored with the fingerprint of the data it was fitted to
 (`data_fingerprint`: the animal's included sessions, in time order, with the
-time their trials were last derived), its parameters, the report's
+time their trials were last derived; a session still being recorded is left
+out), its parameters, the report's
 consolidation block (CONTRACTS.md §5) and its per-session estimates, all JSON.
 Reading never refits: `cached_block` gives the newest fit's block with
 `"current"` (its fingerprint equals the data's now) added; an animal with no
@@ -21,13 +22,15 @@ from typing import Any, Mapping, Sequence
 from monitor.store.records import ensure_animal
 
 NOT_FITTED = "not fitted"
+FINISHED = "(s.ended_at IS NOT NULL OR s.import_id IS NOT NULL)"  # SQL: a session that is not being recorded now
 
 
 def data_fingerprint(conn: sqlite3.Connection, animal: str) -> str:
-    """SHA-256 over the animal's included sessions and their trial builds."""
+    """SHA-256 over the animal's included sessions and their trial builds (a session still being
+    recorded does not count: a fit describes the end of a session)."""
     rows = conn.execute(
         "SELECT s.id, coalesce(b.built_at, 0), coalesce(b.trials, 0) FROM sessions AS s "
-        "LEFT JOIN trial_builds AS b ON b.session_id = s.id WHERE s.animal = ? AND s.excluded = 0 "
+        f"LEFT JOIN trial_builds AS b ON b.session_id = s.id WHERE s.animal = ? AND s.excluded = 0 AND {FINISHED} "
         "ORDER BY s.started_at, s.id", (animal,)).fetchall()
     return hashlib.sha256(json.dumps(rows).encode()).hexdigest()
 
