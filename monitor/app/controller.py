@@ -27,6 +27,7 @@ import sqlite3
 import sys
 import threading
 import time
+from dataclasses import replace
 from datetime import datetime
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -38,6 +39,7 @@ from PySide6.QtWidgets import QApplication, QLabel, QProgressBar, QPushButton
 from drivers.wire import Event, WireDecoder
 from monitor.app.alerting import AlertCentre, AlertStore, TableAlertStore
 from monitor.app.engine import Engine, RaisedAlert, RigSnapshot, SessionPlan
+from monitor.app.live_fraction import LiveFractions, live_text, session_start_wall
 from monitor.app.pipeline import Fanout
 from monitor.app import views
 from monitor.core.alerts import AlertRules, plateau_alert, store_alert
@@ -247,6 +249,9 @@ class Controller(QObject):
         self.fits: dict[str, Any] = {}
         self._loading: dict[str, Job] = {}
         self._reload: set[str] = set()          # animals whose data changed while their history was loading
+        self.live_fractions = LiveFractions()   # this session's slow-state fraction from the cached fit
+        self._live_panels: dict[str, tuple] = {}  # animal -> (history panel, fraction, panel with it)
+        self._followed: dict[str, tuple | None] = {}  # animal -> (fraction, missed) of its session so far
         self._today: dict[str, tuple[int, TodayState | None]] = {}
         self._plateau: dict[str, bool] = {}
         self._store_failing = False
@@ -450,6 +455,9 @@ class Controller(QObject):
             return
         session_id, animal = rig.session_id, rig.animal
         self.engine.close_session(rig_name, session_id)
+        if animal:
+            self.live_fractions.forget(animal)
+            self._followed.pop(animal, None)
         rig.fanout.session_id = rig.idle_session_id
         rig.session_id, rig.animal = None, None
         self._refresh_roster()
@@ -539,6 +547,7 @@ class Controller(QObject):
                 if job.cancelled():
                     raise Cancelled()
                 raise RuntimeError("the consolidation fit ended without a result")
+            block = self._cached_fit(animal) or block     # as saved, with the filter for this session's trials
             return views.history_parts(protocol, sessions, block), block
 
         def over() -> None:
@@ -549,6 +558,8 @@ class Controller(QObject):
 
         def done(result) -> None:
             parts, block = result
+            if (block or {}).get("live") != (self.fits.get(animal) or {}).get("live"):
+                self.live_fractions.forget(animal)        # a new fit: follow the session from it
             self.fits[animal] = block
             self._history_ready(animal, parts)
             over()
@@ -559,11 +570,12 @@ class Controller(QObject):
         """The store's newest consolidation block of `animal`, with "current" (None: a store without fits)."""
         if not store_v2():
             return None
-        from monitor.store.fits import cached_block
+        from monitor.store.fits import cached_block, latest_fit
 
         conn = db.open_store(self.writer.path, readonly=True)
         try:
-            return cached_block(conn, animal, None)
+            fit = latest_fit(conn, animal)
+            return {**cached_block(conn, animal, None), "live": fit["params"].get("live") if fit else None}
         finally:
             conn.close()
 
@@ -635,7 +647,31 @@ class Controller(QObject):
         care, eligibility = self.records.texts(animal) if self.records is not None else ("", "")
         self.book.update(views.page_state(animal, rig.spec.name if rig else None,
                                           loaded.protocol.name if loaded else "", today,
-                                          self.history_parts.get(animal), care, eligibility))
+                                          self.history_parts.get(animal), care, eligibility,
+                                          self._live_panel(animal, rig, loaded)))
+
+    def _follow(self, animal: str, rig: _Rig) -> None:
+        """Feed the session's new trials to the animal's cached filter (every rig, page open or not)."""
+        snapshot, block, loaded = rig.snapshot, self.fits.get(animal) or {}, self._protocol_of(animal)
+        if snapshot is None or snapshot.session_id is None or snapshot.animal != animal or not block.get("live") \
+                or loaded is None:
+            return
+        self._followed[animal] = self.live_fractions.update(
+            animal, snapshot.session_id, snapshot.live, block["live"], loaded.protocol.final_stage.name,
+            session_start_wall(snapshot.started))
+
+    def _live_panel(self, animal: str, rig: _Rig | None, loaded: LoadedProtocol | None):
+        """The consolidation panel with this session's figure (the same object until a trial is followed)."""
+        parts, block = self.history_parts.get(animal), self.fits.get(animal) or {}
+        followed = self._followed.get(animal) if rig is not None and rig.animal == animal else None
+        if parts is None or followed is None:
+            return None
+        before = self._live_panels.get(animal)
+        if before is not None and before[0] is parts.consolidation and before[1] is followed[0]:
+            return before[2]
+        panel = replace(parts.consolidation, live_text=live_text(*followed, block.get("session")))
+        self._live_panels[animal] = (parts.consolidation, followed[0], panel)
+        return panel
 
     # --- the timer ---------------------------------------------------------------------------------------
     def refresh(self) -> None:
@@ -669,6 +705,7 @@ class Controller(QObject):
             if self.board.update(tile) and name in fresh:
                 self.painted.append((name, fresh[name].newest_stamp))
             if rig.animal and name in fresh:
+                self._follow(rig.animal, rig)
                 self._push_page(rig.animal)
         bar = views.status_state(statuses, wstatus.state, wstatus.text, wstatus.committed_events)
         if self.window is not None and bar != self._status_shown:

@@ -277,10 +277,12 @@ def _consolidation_state(since: Mapping[str, int | None], latest: tuple[float | 
 
 
 def page_state(animal: str, rig: str | None, protocol_name: str, today: TodayState | None,
-               history: HistoryParts | None, care_text: str = "", eligibility_text: str = "") -> AnimalPageState:
-    """An animal page from its live part and its history parts (the same part objects until they change)."""
+               history: HistoryParts | None, care_text: str = "", eligibility_text: str = "",
+               consolidation: ConsolidationState | None = None) -> AnimalPageState:
+    """An animal page from its live part and its history parts (the same part objects until they change);
+    `consolidation` replaces the history's panel (the same panel with this session's figure)."""
     return AnimalPageState(animal=animal, rig=rig, protocol=protocol_name, today=today,
                            curve=history.curve if history else None,
-                           consolidation=history.consolidation if history else None,
+                           consolidation=consolidation or (history.consolidation if history else None),
                            sessions=history.sessions if history else (), care_text=care_text,
                            eligibility_text=eligibility_text)

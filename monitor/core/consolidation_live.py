@@ -117,6 +117,24 @@ class LiveFilter:
         return LiveFraction(estimate, low, high, s.status, self.trials)
 
 
+def filter_state(live: LiveFilter) -> dict:
+    """A JSON-ready dict of the filter (setup and state), to cache beside the fit."""
+    s = live.setup
+    return {"params": dict(s.params), "variant": s.variant, "two_rate": s.two_rate, "coef": s.coef.tolist(),
+            "scale": s.scale, "warmup": s.warmup, "warmup_trials": s.warmup_trials, "tau_w": list(s.tau_w),
+            "drift": s.drift, "direction": s.direction, "below": s.below, "above": s.above, "status": s.status,
+            "mean": live.mean.tolist(), "cov": live.cov.tolist(), "running_mean": live.running_mean}
+
+
+def restore_filter(state: dict) -> LiveFilter:
+    """The filter `filter_state` described, ready for the next session."""
+    setup = LiveSetup(dict(state["params"]), state["variant"], bool(state["two_rate"]), np.asarray(state["coef"], float),
+                      float(state["scale"]), state["warmup"], int(state["warmup_trials"]), tuple(state["tau_w"]),
+                      bool(state["drift"]), float(state["direction"]), float(state["below"]), float(state["above"]),
+                      state["status"])
+    return LiveFilter(setup, np.asarray(state["mean"], float), np.asarray(state["cov"], float), state["running_mean"])
+
+
 def live_filter(series: TrialSeries, result: ConsolidationResult, options: Options = Options()) -> LiveFilter | None:
     """A live filter that continues after the last session of ``series``, from the fit in ``result``
     (one batch filter pass, no refit); None when the result has no two-rate fit."""

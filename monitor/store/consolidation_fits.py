@@ -8,7 +8,9 @@ finite interval: interval, target and rewarded (the rig's outcome) per
 trial; per session the break = this session's start minus the previous
 session's end in hours (23 h when unknown or not positive) and the excluded
 flag. `refit_animal` fits it with `estimate_consolidation` from the cached
-fit's `warm_start` and saves params (the warm start), the §5 block and its
+fit's `warm_start` and saves params (the warm start, and the live filter's
+state after the last session with that session's end, so the window can
+follow new trials without a refit), the §5 block and its
 trajectory with the data fingerprint taken before reading, so a fit of data
 that changed meanwhile is stored as not current. A series with no
 final-stage trial is saved as "too few trials" (estimate 0, interval
@@ -67,8 +69,9 @@ def build_series(final_stage: str, sessions: Sequence[tuple[Sequence[Trial], flo
                                       np.array(rewarded, bool), breaks, excluded)
 
 
-def store_series(conn: sqlite3.Connection, animal: str) -> tuple[TrialSeries, int]:
-    """The animal's series from the store and its last report index (0 when it has no session)."""
+def store_series(conn: sqlite3.Connection, animal: str) -> tuple[TrialSeries, int, float | None]:
+    """The animal's series from the store, its last report index (0 when it has no session) and when its last
+    session ended (epoch seconds; None when unknown)."""
     from monitor.store.derive import derive, protocol_of, trials_by_session
 
     rows = conn.execute(
@@ -77,7 +80,7 @@ def store_series(conn: sqlite3.Connection, animal: str) -> tuple[TrialSeries, in
         f"WHERE s.animal = ? AND s.protocol_text IS NOT NULL AND {FINISHED} ORDER BY s.started_at, s.id",
         (animal,)).fetchall()
     if not rows:
-        return build_series("", []), 0
+        return build_series("", []), 0, None
     final = protocol_of(rows[-1][1]).final_stage.name
     trials = trials_by_session(conn, [r[0] for r in rows])
     sessions, previous_end = [], None
@@ -87,7 +90,7 @@ def store_series(conn: sqlite3.Connection, animal: str) -> tuple[TrialSeries, in
             trials[session_id] = fresh[0] if fresh is not None else []
         sessions.append((trials[session_id], hours_between(previous_end, started), bool(excluded)))
         previous_end = ended if ended is not None else previous_end
-    return build_series(final, sessions), len(rows)
+    return build_series(final, sessions), len(rows), previous_end
 
 
 def too_few_block(last_session: int, n_trials: int) -> dict[str, Any]:
@@ -104,13 +107,14 @@ def refit_animal(db: str | Path | sqlite3.Connection, animal: str, progress: Pro
     conn = db if isinstance(db, sqlite3.Connection) else open_store(Path(db))
     try:
         fingerprint = data_fingerprint(conn, animal)
-        series, last = store_series(conn, animal)
+        series, last, last_end = store_series(conn, animal)
         cached = latest_fit(conn, animal)
         params: dict[str, Any] = {}
         if len(series.y) == 0:
             block = too_few_block(last, 0)
         else:
             from monitor.core.consolidation import consolidation_block, estimate_consolidation
+            from monitor.core.consolidation_live import filter_state, live_filter
 
             warm = (cached or {}).get("params", {}).get("warm_start") or None
             result = estimate_consolidation(series, warm_start=warm, progress=progress, cancel=cancel)
@@ -120,6 +124,9 @@ def refit_animal(db: str | Path | sqlite3.Connection, animal: str, progress: Pro
             if block["session"] is None:   # no session estimated (e.g. too few trials): the last index
                 block["session"] = last
             params = {"warm_start": result.warm_start, "evaluations": result.evaluations}
+            live = live_filter(series, result)
+            if live is not None:   # the filter at the end of the last session: new trials go on from here
+                params["live"] = {**filter_state(live), "ended_at": last_end}
         in_transaction = conn.in_transaction
         if not in_transaction:
             conn.execute("BEGIN IMMEDIATE")

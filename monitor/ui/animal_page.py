@@ -272,7 +272,7 @@ class ConsolidationPanel(QWidget):
             label = _big(plain_label(), 12 if key != "drops" else 11, bold=key != "drops")
             self.measures[key] = label
             form.addRow(plain_label(caption, wrap=False), label)
-        self.plot = make_plot("session (number)", "slow-state fraction (model, 0–1)")
+        self.plot = make_plot("session (number)", "slow-state fraction (0–1)")
         self.ranges = RangeKeeper(self.plot)
         self.ranges.set_y(0, 1)
         self.low = pg.PlotDataItem(pen=pg.mkPen(None))
@@ -283,6 +283,8 @@ class ConsolidationPanel(QWidget):
         for item in (self.low, self.high, self.band, self.fraction, self.marks):
             self.plot.addItem(item)
         self.estimate = _big(plain_label(), 12)
+        self.live = plain_label()
+        self.live.setObjectName("live_fraction")
         self.comparison = plain_label()
         self.forecast = plain_label()
         self.caveat = plain_label()
@@ -304,6 +306,7 @@ class ConsolidationPanel(QWidget):
         right.addWidget(plain_label("band: 90 % interval · ● estimated · ▲ not constrained"))
         right.addWidget(self.plot, 1)
         right.addWidget(self.estimate)
+        right.addWidget(self.live)
         right.addWidget(self.comparison)
         right.addWidget(self.forecast)
         right.addWidget(self.caveat)
@@ -342,6 +345,8 @@ class ConsolidationPanel(QWidget):
                 f"{state.fraction_high[-1]:.2f}), {state.status[-1]}")
         else:
             self.estimate.setText("No fit yet: the model needs sessions after the plateau.")
+        self.live.setText(state.live_text)
+        self.live.setVisible(bool(state.live_text))
         self.comparison.setText(state.model_comparison)
         if state.forecast_low is not None and state.forecast_high is not None:
             self.forecast.setText(f"Forecast: {state.forecast_level:.2f} in {state.forecast_low}–{state.forecast_high} "

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
 from monitor.core.consolidation import ConsolidationResult, Options, SessionEstimate, consolidation_block, estimate_consolidation
 from monitor.core.consolidation_fit import ModelFit
-from monitor.core.consolidation_live import LiveFilter, LiveSetup, live_filter
+from monitor.core.consolidation_live import LiveFilter, LiveSetup, filter_state, live_filter, restore_filter
 from monitor.core.consolidation_model import TWO_RATE, TrialSeries, evaluate, prepare, simulate, to_theta
 
 TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
@@ -69,6 +71,19 @@ def test_live_filter_continues_after_the_cached_fit(variant):
     assert 0.0 <= frac.low <= frac.estimate <= frac.high <= 1.0
     assert frac.high - frac.low == pytest.approx(0.4) or frac.low == 0.0 or frac.high == 1.0  # cached width moved
     assert frac.trials_since_fit == int(np.sum(np.isfinite(series.y[series.session == series.labels[-1]])))
+
+
+def test_a_filter_restored_from_its_json_state_goes_on_exactly_alike():
+    series = _series(3)
+    head_mask = series.session != series.labels[-1]
+    head = TrialSeries(series.session[head_mask], series.y[head_mask], series.rewarded[head_mask],
+                       series.break_hours[:-1], series.excluded[:-1])
+    live = live_filter(head, _result_at(TRUTH, "outcome", series.labels[:-1]))
+    restored = restore_filter(json.loads(json.dumps(filter_state(live))))  # through JSON, as the store keeps it
+    ends = [_feed(f, series, {series.labels[-1]})[-1] for f in (live, restored)]
+    np.testing.assert_array_equal(ends[0][0], ends[1][0])
+    np.testing.assert_array_equal(ends[0][1], ends[1][1])
+    assert live.fraction() == restored.fraction()
 
 
 def test_empty_series_is_too_few_trials():
