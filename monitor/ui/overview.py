@@ -31,7 +31,7 @@ class OverviewPanel(QWidget):
         self._last_focus: str | None = None
         self._grid = QGridLayout()
         self._grid.setSpacing(8)
-        self._empty = QLabel("No rigs yet. Add one with Rig ▸ Add rig…")
+        self._empty = QLabel("No rigs yet. Add one with Rigs ▸ Add rig… (Ctrl+Shift+N).")
         self._empty.setTextFormat(Qt.TextFormat.PlainText)
         self._empty.setAlignment(Qt.AlignmentFlag.AlignCenter)
         layout = QVBoxLayout(self)
