@@ -105,13 +105,15 @@ class DecisionDialog(RecordDialog):
         half = (len(view.figures) + 1) // 2
         for k, (caption, value) in enumerate(view.figures):
             column = 0 if k < half else 2
-            value_label = plain_label(value, wrap=False)
+            value_label = plain_label(value)          # a long value (the model figure) wraps, never clips
             value_label.setObjectName("figure")
             bold = value_label.font()
             bold.setBold(True)
             value_label.setFont(bold)
             self.figures.addWidget(plain_label(caption, wrap=False), k % half, column)
             self.figures.addWidget(value_label, k % half, column + 1)
+        self.figures.setColumnStretch(1, 1)
+        self.figures.setColumnStretch(3, 1)
         self.decision = QComboBox()
         self.decision.addItems(list(DECISIONS))
         self.group = QComboBox()
