@@ -48,7 +48,7 @@ PLAN = (
     Plan("bench_latency", "event-to-screen latency p50/p99, 16 rigs", ("--seconds=8",)),
     Plan("bench_gui", "GUI main thread per refresh"),
     Plan("bench_core", "incremental vs from scratch at 30000 trials"),
-    Plan("bench_refit", "refit (30000 trials)", ("--maxiter=5",)),
+    Plan("bench_refit", "refit at session end (30000 trials)", ("--maxiter=5",)),
     Plan("bench_memory", "memory growth, 16 rigs x 8 h accelerated"),
     Plan("bench_history", "simulator history"),
 )

@@ -90,6 +90,7 @@ class ConsolidationResult:
     warm_start: dict = field(default_factory=dict)
     evaluations: int = 0
     notes: tuple[str, ...] = ()
+    from_cache: bool = False  # refitted from the cached fit's optima (no fresh multi-start search)
 
 
 def _key(variant: str, two_rate: bool) -> str:
@@ -121,6 +122,7 @@ def estimate_consolidation(
     steps = len(options.variants) + 3
     try:
         fitted = _refit_warm(prep, warm, options, cancel, report, steps) if _usable(warm, options) else None
+        from_cache = fitted is not None
         variant, modes, fits = fitted or _fit_cold(prep, warm, options, cancel, report, steps, rng)
         two, one = modes[0], fits[_key(variant, False)]
         report((steps - 0.5) / steps, "interval")
@@ -150,7 +152,7 @@ def estimate_consolidation(
     return ConsolidationResult(
         status, reason, rows, prep.n_trials, prep.dropped_trials, two, one,
         {v: fits[_key(v, True)].loglike for v in options.variants}, float(delta_aic), outlook, warm_out,
-        sum(f.evaluations for f in fits.values()), tuple(prep.notes),
+        sum(f.evaluations for f in fits.values()), tuple(prep.notes), from_cache,
     )
 
 

@@ -109,25 +109,27 @@ def forecast(
     hours = float(np.median(prep.hours[1:][-pace_sessions:])) if len(prep.hours) > 1 else 24.0
     reached = bool(fractions.estimate[-1] >= level)
     slope, intercept = _input_feedback(prep, fit.variant, n_future)
-    counts = []
+    maps, consts = [], []
     for params, states in zip(fractions.draw_params, fractions.draws_last):
         model = state_space(params, two_rate=True)
         drive = model.input_gain * (intercept + slope * params["offset"])
         per_session, const = session_map(model, slope, drive, n_future)
-        rho = np.exp(-hours / params["tau_b"])
-        brk = np.diag([rho, 1.0])
-        x = states
-        found = np.full(len(x), np.inf)
-        for k in range(1, horizon + 1):
-            x = (x @ brk.T) @ per_session.T + const
-            total = x.sum(1)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                frac = np.where(total != 0, x[:, 1] / total, 0.0)
-            found = np.where(np.isinf(found) & (frac >= level), k, found)
-            if np.all(np.isfinite(found)):
-                break
-        counts.append(found)
-    all_counts = np.minimum(np.concatenate(counts), horizon + 1)  # not reached: beyond the horizon
+        step = per_session @ np.diag([np.exp(-hours / params["tau_b"]), 1.0])  # the break, then a session
+        maps.append(np.broadcast_to(step, (len(states), 2, 2)))
+        consts.append(np.broadcast_to(const, (len(states), 2)))
+    # every draw's state draws run forward together: x <- step x + const, session by session
+    step, const = np.concatenate(maps), np.concatenate(consts)
+    x = np.concatenate(list(fractions.draws_last))
+    found = np.full(len(x), np.inf)
+    for k in range(1, horizon + 1):
+        x = np.einsum("nab,nb->na", step, x) + const
+        total = x.sum(1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            frac = np.where(total != 0, x[:, 1] / total, 0.0)
+        found = np.where(np.isinf(found) & (frac >= level), k, found)
+        if np.all(np.isfinite(found)):
+            break
+    all_counts = np.minimum(found, horizon + 1)  # not reached: beyond the horizon
     qs = np.quantile(all_counts, (0.05, 0.5, 0.95))
 
     def as_int(v: float) -> int | None:
@@ -143,10 +145,10 @@ def session_map(model: StateSpace, slope: float, drive: np.ndarray, trials: int)
     x' = (F + slope B H) x + drive, drive = B (intercept + slope * offset).
     """
     closed = model.transition + slope * np.outer(model.input_gain, model.design)
-    phi, const = np.eye(2), np.zeros(2)
-    for _ in range(trials):
-        phi, const = closed @ phi, closed @ const + drive
-    return phi, const
+    augmented = np.eye(3)  # [[closed, drive], [0, 1]]: its power carries both Phi and c
+    augmented[:2, :2], augmented[:2, 2] = closed, drive
+    power = np.linalg.matrix_power(augmented, trials)
+    return power[:2, :2], power[:2, 2]
 
 
 def _input_feedback(prep: Prepared, variant: str, recent_trials: int) -> tuple[float, float]:

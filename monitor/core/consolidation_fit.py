@@ -7,7 +7,8 @@ several starts (a warm start from a cached fit first when given); the best
 optimum is kept.  Two shortcuts save
 evaluations without changing which optimum wins: a run that comes within
 ``JOIN_DISTANCE`` of an optimum already found stops (it is converging onto it),
-and raced starts (a few steps each) far behind the best go no further.  A fit is "converged" when the
+and raced starts (a few steps each) far behind the best go no further.  A run's evaluations are
+capped at twice its steps plus five (line searches that keep failing are not converging).  A fit is "converged" when the
 optimiser reports success and the curvature (a forward-difference Hessian) is
 that of a maximum; otherwise the reason is kept.  Parameter uncertainty is the
 Laplace approximation N(theta_hat, H^-1) on the transformed scale; flat
@@ -171,7 +172,7 @@ def fit_model(
     def run(start: np.ndarray, steps: int):
         return minimize(obj.value_and_grad, np.asarray(start, float), jac=True, method="L-BFGS-B",
                         bounds=bounds, callback=watch if known else None,
-                        options={"maxiter": steps, "ftol": FTOL, "gtol": 1e-3})
+                        options={"maxiter": steps, "maxfun": 2 * steps + 5, "ftol": FTOL, "gtol": 1e-3})
 
     chosen = screened[:optimise]
     if race is not None and len(chosen) > 1:

@@ -27,6 +27,7 @@ gradient of the profiled likelihood (:mod:`monitor.core.kalman_tangent`).
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
 
 import numpy as np
@@ -137,6 +138,7 @@ def steady_covariance(model: StateSpace, iterations: int = 80) -> np.ndarray:
     return np.array([[x11, x12], [x12, x22]])
 
 
+BLAS_ONE_THREAD = os.environ.get("OPENBLAS_NUM_THREADS") == "1"  # read by OpenBLAS when numpy loads
 ONE_CORE_PRODUCT = 200_000  # multiply-adds per BLAS call, below OpenBLAS's threading threshold (4 * 65536)
 
 
@@ -144,12 +146,24 @@ def one_core_matmul(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """x @ y for x (R, T) and y (..., T, K), in row blocks small enough that BLAS stays on one core.
 
     OpenBLAS splits a larger product over threads; when the other core is busy the
-    wait for it costs milliseconds, far more than the product itself.
+    wait for it costs milliseconds, far more than the product itself.  When BLAS was
+    loaded with one thread (``OPENBLAS_NUM_THREADS=1``, as in the refit process) it is
+    one product.
     """
     rows = max(1, ONE_CORE_PRODUCT // (x.shape[1] * y.shape[-1]))
-    if x.shape[0] <= rows:
+    if x.shape[0] <= rows or BLAS_ONE_THREAD:
         return x @ y
     return np.concatenate([x[i : i + rows] @ y for i in range(0, x.shape[0], rows)], axis=-2)
+
+
+def session_sums(left: np.ndarray, right: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """sum over t < L_s of left[k, t] right[t, j] for every session: (S, K, J).
+
+    One matrix product per stretch between distinct session lengths, then a cumulative sum.
+    """
+    edges, where = np.unique(lengths, return_inverse=True)
+    parts = [left[:, lo:hi] @ right[lo:hi] for lo, hi in zip(np.r_[0, edges[:-1]], edges)]
+    return np.cumsum(np.stack(parts), 0)[where]
 
 
 def _powers(m: np.ndarray, count: int) -> np.ndarray:

@@ -66,6 +66,7 @@ def test_warm_start_reuses_the_previous_fit(matched):
     again = estimate_consolidation(sim.series, FAST, warm_start=res.warm_start)
     assert again.two_rate.loglike >= res.two_rate.loglike - 0.5
     assert again.evaluations < res.evaluations
+    assert again.from_cache and not res.from_cache
 
 
 def test_too_few_trials_and_cancel_and_progress():
