@@ -13,9 +13,10 @@ be profiled out by generalised least squares (de Jong's augmented filter).
 Speed: every session is filtered with the steady-state gain (the fixed point of
 the Riccati recursion, found by the doubling algorithm), which is exact for a
 session whose prior covariance is the steady one; the mean recursion is then a
-second-order linear filter that ``scipy.signal.lfilter`` runs on all sessions at
-once.  The session's true prior covariance P_inf + dP is corrected for exactly
-with the determinant lemma and the Woodbury identity (2x2 algebra per session),
+second-order linear filter that ``scipy.signal.lfilter`` runs on all sessions of
+a length group at once (sessions are grouped by length, so that one long
+session does not pad every other session's row to its length).  The session's
+true prior covariance P_inf + dP is corrected for exactly with the determinant lemma and the Woodbury identity (2x2 algebra per session),
 and each session's means are affine in its start mean, so only short loops over
 sessions are sequential.  The covariance need not settle within a session (it
 does not when the slow state's noise is small); the result equals the plain
@@ -70,6 +71,15 @@ class FilterOutput:
 
 
 @dataclass(frozen=True)
+class GroupWork:
+    """The data's steady filter for one length group (rows as in ``PaddedGroup``)."""
+
+    a: np.ndarray  # (G, T_g) zero-start steady innovations of the data, zero after each session's end
+    h_psi: np.ndarray  # (G, T_g+1) H times the zero-start steady state of the data
+    phis: list[np.ndarray]  # (G, T_g+1) x / den for each driving series (y; u too unless u = -y)
+
+
+@dataclass(frozen=True)
 class FilterWork:
     """Intermediates of :func:`kalman_filter` that its tangent (``kalman_tangent``) reuses."""
 
@@ -83,12 +93,10 @@ class FilterWork:
     shared_y: np.ndarray  # (2 + E, T) rows of O' and the effects' observations -effects
     shared_state: np.ndarray  # (2, 2 + E, T+1) their zero-start steady states
     g_end: np.ndarray  # (T+1, 2, 2) F^t - zeta_t
-    a: np.ndarray  # (S, T) zero-start steady innovations of the data, zero after each session's end
     shared_sums: np.ndarray  # (S, E+4, E+4) sums over each session of basis basis' / s, basis [eff_a', H M^t, O~]
     data_sums: np.ndarray  # (S, E+4) sums of a basis / s
     data_square: np.ndarray  # (S,) sums of a^2 / s
-    h_psi: np.ndarray  # (S, T+1) H times the zero-start steady state of the data
-    phis: list[np.ndarray]  # (S, T+1) x / den for each driving series (y; u too unless u = -y)
+    groups: tuple[GroupWork, ...]  # per length group of the padded data (``Padded.groups``)
     w: np.ndarray  # (S, 2, 2) Woodbury correction of each session
     trans: np.ndarray  # (S, 2, 2) end mean = trans m0 + const
     start_means: np.ndarray  # (S, C, 2)
@@ -277,34 +285,73 @@ def chain_solve(step: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     return solved.reshape(n_sess, size, n_cols)
 
 
-@dataclass(frozen=True)
-class Padded:
-    """Per-session rows of the data (S, T+1), zero after each session's end; reusable across fits."""
+GROUP_COST_CELLS = 3000  # a length group's fixed cost (~25 numpy calls), in padded cells (~40 ns each)
 
+
+@dataclass(frozen=True)
+class PaddedGroup:
+    """Sessions of similar length, one zero-padded row each (G, T_g+1), T_g their longest."""
+
+    rows: np.ndarray  # (G,) the sessions' indices in the layout
+    t_max: int
     y: np.ndarray
     u: np.ndarray
-    valid: np.ndarray  # (S, T) True on real trials
-    u_is_minus_y: bool
-    y_right: np.ndarray  # (S, T): each session's data ending at the last column
+    valid: np.ndarray  # (G, T_g) True on real trials
+    y_right: np.ndarray  # (G, T_g): each session's data ending at the last column
     u_right: np.ndarray
 
 
-def pad(layout: Layout, obs: np.ndarray, inputs: np.ndarray) -> Padded:
-    """Lay the trial series out as one zero-padded row per session (left- and right-aligned)."""
+@dataclass(frozen=True)
+class Padded:
+    """The data laid out for the filter's passes, in length groups; reusable across fits."""
+
+    groups: tuple[PaddedGroup, ...]
+    u_is_minus_y: bool
+
+
+def length_groups(lengths: np.ndarray, max_groups: int = 3, group_cost: float = GROUP_COST_CELLS) -> list[np.ndarray]:
+    """Split the sessions, by length, into at most ``max_groups`` groups of least padded area.
+
+    The area is the sum over groups of (sessions x longest session) plus
+    ``group_cost`` a group: one long session then no longer pads every
+    other session's row to its length.
+    """
+    order = np.argsort(lengths, kind="stable")
+    ranked = lengths[order].astype(float)
+    n = len(ranked)
+    k = np.arange(1, n)  # a split after the k shortest sessions
+    best = [(n * ranked[-1] + group_cost, ())]
+    if max_groups >= 2 and n > 1:
+        two = k * ranked[k - 1] + (n - k) * ranked[-1] + 2 * group_cost
+        best.append((float(two.min()), (int(k[two.argmin()]),)))
+    if max_groups >= 3 and n > 2:
+        i, j = np.meshgrid(k, k, indexing="ij")
+        three = i * ranked[i - 1] + (j - i) * ranked[j - 1] + (n - j) * ranked[-1] + 3 * group_cost
+        three = np.where(j > i, three, np.inf)
+        flat = int(three.argmin())
+        best.append((float(three.flat[flat]), (int(i.flat[flat]), int(j.flat[flat]))))
+    cuts = min(best, key=lambda pair: pair[0])[1]
+    return np.split(order, cuts)
+
+
+def pad(layout: Layout, obs: np.ndarray, inputs: np.ndarray, max_groups: int = 3,
+        group_cost: float = GROUP_COST_CELLS) -> Padded:
+    """Lay the trial series out as zero-padded rows per session (left- and right-aligned), in length groups."""
     obs, inputs = np.asarray(obs, float), np.asarray(inputs, float)
-    lengths = layout.lengths.astype(np.intp)
-    starts = layout.starts.astype(np.intp)
-    t_max = int(lengths.max())
-    grid = np.arange(t_max + 1)
-    valid = grid[None, :] < lengths[:, None]
-    gidx = np.minimum(starts[:, None] + grid[None, :], len(obs) - 1)
-    shift = grid[None, :t_max] - (t_max - lengths[:, None])  # position within the session, right-aligned
-    valid_r = shift >= 0
-    ridx = np.clip(starts[:, None] + shift, 0, len(obs) - 1)
-    return Padded(
-        obs[gidx] * valid, inputs[gidx] * valid, valid[:, :t_max], bool(np.array_equal(inputs, -obs)),
-        obs[ridx] * valid_r, inputs[ridx] * valid_r,
-    )
+    all_lengths = layout.lengths.astype(np.intp)
+    groups = []
+    for rows in length_groups(all_lengths, max_groups, group_cost):
+        lengths, starts = all_lengths[rows], layout.starts.astype(np.intp)[rows]
+        t_max = int(lengths.max())
+        grid = np.arange(t_max + 1)
+        valid = grid[None, :] < lengths[:, None]
+        gidx = np.minimum(starts[:, None] + grid[None, :], len(obs) - 1)
+        shift = grid[None, :t_max] - (t_max - lengths[:, None])  # position within the session, right-aligned
+        valid_r = shift >= 0
+        ridx = np.clip(starts[:, None] + shift, 0, len(obs) - 1)
+        groups.append(PaddedGroup(rows, t_max, obs[gidx] * valid, inputs[gidx] * valid, valid[:, :t_max],
+                                  obs[ridx] * valid_r, inputs[ridx] * valid_r))
+    return Padded(tuple(groups), bool(np.array_equal(inputs, -obs)))
 
 
 def kalman_filter(
@@ -371,7 +418,7 @@ def kalman_filter(
     hh, oh, oo = at_end[:, n_eff : n_eff + 2, n_eff : n_eff + 2], at_end[:, n_eff + 2 :, n_eff : n_eff + 2], \
         at_end[:, n_eff + 2 :, n_eff + 2 :]
 
-    # the data: steady filter from a zero start, all sessions at once (padded)
+    # the data: steady filter from a zero start, the sessions of each length group at once (padded)
     data = padded if padded is not None else pad(layout, obs, inputs)
     tr, det = m[0, 0] + m[1, 1], m[0, 0] * m[1, 1] - m[0, 1] * m[1, 0]
     adj0 = np.array([[-m[1, 1], m[0, 1]], [m[1, 0], -m[0, 0]]])
@@ -380,28 +427,32 @@ def kalman_filter(
     def numerator(proj: np.ndarray, vec: np.ndarray) -> list[float]:
         return [0.0, float(proj @ vec), float(proj @ adj0 @ vec)]
 
-    drives = [(data.y, gain - bvec)] if data.u_is_minus_y else [(data.y, gain), (data.u, bvec)]
-    phis = []
-    if keep_work:  # through x / den, which the gradient reuses (equal to the direct filter to rounding)
-        phis = [lfilter([1.0], den, x, axis=-1) for x, _ in drives]
-        h_psi = np.zeros_like(data.y)
-        for phi, (_, vec) in zip(phis, drives):
-            _, lag1, lag2 = numerator(h, vec)
-            h_psi[:, 1:] += lag1 * phi[:, :-1]
-            h_psi[:, 2:] += lag2 * phi[:, :-2]
-    else:
-        h_psi = sum(lfilter(numerator(h, vec), den, x, axis=-1) for x, vec in drives)
-    a = data.y[:, :t_max] - h_psi[:, :t_max]
-    a *= data.valid
-    s_aa = np.einsum("st,st->s", a, a) / s_inf
-    sums = one_core_matmul(a, basis) / s_inf
+    vecs = [gain - bvec] if data.u_is_minus_y else [gain, bvec]
+    back_vecs = [m_pow[:t_max] @ vec for vec in vecs]  # (T, 2): M^k vec; a group reads it backwards
+    s_aa, sums, psi_end = np.empty(n_sess), np.empty((n_sess, n_eff + 4)), np.zeros((n_sess, 2))
+    group_work = []
+    for grp in data.groups:
+        xs = [grp.y] if data.u_is_minus_y else [grp.y, grp.u]
+        phis = []
+        if keep_work:  # through x / den, which the gradient reuses (equal to the direct filter to rounding)
+            phis = [lfilter([1.0], den, x, axis=-1) for x in xs]
+            h_psi = np.zeros_like(grp.y)
+            for phi, vec in zip(phis, vecs):
+                _, lag1, lag2 = numerator(h, vec)
+                h_psi[:, 1:] += lag1 * phi[:, :-1]
+                h_psi[:, 2:] += lag2 * phi[:, :-2]
+        else:
+            h_psi = sum(lfilter(numerator(h, vec), den, x, axis=-1) for x, vec in zip(xs, vecs))
+        a = grp.y[:, : grp.t_max] - h_psi[:, : grp.t_max]
+        a *= grp.valid
+        s_aa[grp.rows] = np.einsum("st,st->s", a, a) / s_inf
+        sums[grp.rows] = one_core_matmul(a, basis[: grp.t_max]) / s_inf
+        # end states: with the sessions right-aligned the weights M^(T_g-1-t) are shared
+        rights = [grp.y_right] if data.u_is_minus_y else [grp.y_right, grp.u_right]
+        for x, weights in zip(rights, back_vecs):
+            psi_end[grp.rows] += one_core_matmul(x, weights[grp.t_max - 1 :: -1])
+        group_work.append(GroupWork(a, h_psi, phis))
     s_ae, s_ah, s_ao = sums[:, :n_eff], sums[:, n_eff : n_eff + 2], sums[:, n_eff + 2 :]
-    # end states: with the sessions right-aligned the weights M^(T-1-t) are shared
-    back = m_pow[t_max - 1 :: -1]  # (T, 2, 2): M^(T-1-t)
-    if data.u_is_minus_y:
-        psi_end = one_core_matmul(data.y_right, back @ (gain - bvec))
-    else:
-        psi_end = one_core_matmul(data.y_right, back @ gain) + one_core_matmul(data.u_right, back @ bvec)
 
     # covariance chain (data-free): prior of each session, correction W, end covariance
     w_all, end_covs, logdet_corr = _covariance_chain(
@@ -439,8 +490,8 @@ def kalman_filter(
     ).sum(0)
     work = None
     if keep_work:
-        work = FilterWork(p_inf, s_inf, k_inf, m, gain, m_pow, h_m, shared_y, shared_state, g_end, a, at_end, sums,
-                          s_aa, h_psi, phis, w_all, trans, start_means)
+        work = FilterWork(p_inf, s_inf, k_inf, m, gain, m_pow, h_m, shared_y, shared_state, g_end, at_end, sums,
+                          s_aa, tuple(group_work), w_all, trans, start_means)
     return FilterOutput(gram, float(logdet), n, np.transpose(end_means, (1, 0, 2)), end_covs, work)
 
 

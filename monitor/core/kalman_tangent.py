@@ -149,7 +149,7 @@ def profile_gradient(
     n_dir = len(tangents.transition)
     df, db = _first(tangents.transition), _first(tangents.input_gain)  # (2, 2, P), (2, P)
     lengths = layout.lengths.astype(np.intp)
-    n_sess, t_max, n = len(lengths), wk.a.shape[1], out.n_obs
+    n_sess, t_max, n = len(lengths), len(wk.h_m), out.n_obs
     v = np.r_[1.0, prof.coef]
     s, k, m, gain, p_inf = wk.s_inf, wk.k_inf, wk.m, wk.gain, wk.p_inf
 
@@ -188,42 +188,41 @@ def profile_gradient(
     dsums = np.transpose(dsums, (1, 3, 2, 0))
     dsums = (dsums + dsums.swapaxes(0, 1)) / s - sums[:, :, None] * (ds / s)[:, None]  # (5, 5, P, S)
 
-    # the data: innovations a of the steady filter from a zero start, and their tangent
-    a = wk.a
+    # the data: innovations a of the steady filter from a zero start, and their tangent, per length group
     sa, a_basis = wk.data_square, (wk.data_sums @ to_combined).T  # (S,), (5, S)
     tr_m, det_m, d_tr, d_det = _trace_det(m, dm)
     den = [1.0, -tr_m, det_m]
-    if padded.u_is_minus_y:
-        drives = [(padded.y, gain - bvec, dgain - db)]
-    else:
-        drives = [(padded.y, gain, dgain), (padded.u, bvec, db)]
-    bases = wk.phis + [lfilter([1.0], den, wk.h_psi, axis=-1)]  # x / den (kept by the filter), h_psi / den
-    weight = np.concatenate([_filter_coef_tangent(h, m, dm, vec, dvec) for _, vec, dvec in drives]
+    pairs = [(gain - bvec, dgain - db)] if padded.u_is_minus_y else [(gain, dgain), (bvec, db)]
+    weight = np.concatenate([_filter_coef_tangent(h, m, dm, vec, dvec) for vec, dvec in pairs]
                             + [np.stack([d_tr, -d_det], -1)], 1)  # (P, J)
-    lagged = np.zeros((2 * len(bases), n_sess, t_max))  # x / den and h_psi / den at lags 1 and 2
-    for i, base in enumerate(bases):
-        lagged[2 * i, :, 1:], lagged[2 * i + 1, :, 2:] = base[:, : t_max - 1], base[:, : t_max - 2]
-    lagged *= padded.valid  # da = -sum_j weight_j lagged_j
-    dsa = -2.0 * (weight @ np.einsum("jst,st->js", lagged, a)) / s - sa * (ds / s)[:, None]  # (P, S)
-    lagged_basis = one_core_matmul(lagged.reshape(-1, t_max), basis).reshape(len(lagged), n_sess, 5)
-    a_dbasis = one_core_matmul(a, dbasis.reshape(5 * n_dir, t_max).T).reshape(n_sess, 5, n_dir)
-    da_basis = (np.transpose(a_dbasis, (1, 2, 0)) - np.einsum("pj,jsi->ips", weight, lagged_basis)) / s
+    # psi_end = sum_t M^(T_g-1-t) vec x_t; its tangent's weights d(M^k) vec + M^k dvec, read backwards
+    end_weights = [dm_pow.cols(vec)[..., :t_max] + np.einsum("tab,bp->apt", wk.m_pow[:t_max], dvec)
+                   for vec, dvec in pairs]  # (2, P, T) each, by the power k
+    dsa, da_basis, dpsi = np.empty((n_dir, n_sess)), np.empty((5, n_dir, n_sess)), np.zeros((2 * n_dir, n_sess))
+    for grp, work in zip(padded.groups, wk.groups):
+        tg, rows, a = grp.t_max, grp.rows, work.a
+        bases = work.phis + [lfilter([1.0], den, work.h_psi, axis=-1)]  # x / den (kept by the filter), h_psi / den
+        lagged = np.zeros((2 * len(bases), len(rows), tg))  # x / den and h_psi / den at lags 1 and 2
+        for i, base in enumerate(bases):
+            lagged[2 * i, :, 1:], lagged[2 * i + 1, :, 2:] = base[:, : tg - 1], base[:, : tg - 2]
+        lagged *= grp.valid  # da = -sum_j weight_j lagged_j
+        dsa[:, rows] = -2.0 * (weight @ np.einsum("jst,st->js", lagged, a)) / s
+        lagged_basis = one_core_matmul(lagged.reshape(-1, tg), basis[:tg]).reshape(len(lagged), len(rows), 5)
+        a_dbasis = one_core_matmul(a, dbasis[..., :tg].reshape(5 * n_dir, tg).T).reshape(len(rows), 5, n_dir)
+        da_basis[:, :, rows] = (np.transpose(a_dbasis, (1, 2, 0))
+                                - np.einsum("pj,jsi->ips", weight, lagged_basis)) / s
+        rights = [grp.y_right] if padded.u_is_minus_y else [grp.y_right, grp.u_right]
+        for x, weights in zip(rights, end_weights):
+            dpsi[:, rows] += one_core_matmul(x, weights[..., tg - 1 :: -1].reshape(2 * n_dir, tg).T).T
+    dsa -= sa * (ds / s)[:, None]  # (P, S)
     da_basis -= a_basis[:, None] * (ds / s)[:, None]  # (5, P, S)
+    dpsi = dpsi.reshape(2, n_dir, n_sess)  # (2, P, S)
     # the combined column's sums: innovations a + coef . effects' innovations
     ah, ao = a_basis[1:3] + sums[0, 1:3], a_basis[3:5] + sums[0, 3:5]  # (2, S)
     dquad = dsa + 2.0 * da_basis[0] + dsums[0, 0]
     dah, dao = da_basis[1:3] + dsums[0, 1:3], da_basis[3:5] + dsums[0, 3:5]  # (2, P, S)
     hh, oh, oo = sums[1:3, 1:3], sums[3:5, 1:3], sums[3:5, 3:5]  # (2, 2, S)
     dhh, doh, doo = dsums[1:3, 1:3], dsums[3:5, 1:3], dsums[3:5, 3:5]  # (2, 2, P, S)
-
-    # end of each session's steady state of the data: psi_end = sum_t M^(T-1-t) vec x_t
-    back = wk.m_pow[t_max - 1 :: -1]
-    rights = [padded.y_right] if padded.u_is_minus_y else [padded.y_right, padded.u_right]
-    dpsi = 0.0
-    for x, (_, vec, dvec) in zip(rights, drives):
-        weights_t = dm_pow.cols(vec)[..., t_max - 1 :: -1] + np.einsum("tab,bp->apt", back, dvec)  # (2, P, T)
-        dpsi = dpsi + one_core_matmul(x, weights_t.reshape(2 * n_dir, t_max).T)
-    dpsi = np.transpose(dpsi.reshape(n_sess, 2, n_dir), (1, 2, 0))  # (2, P, S)
 
     # covariance chain: P0 -> X = P0 - P_inf, N = (I + X A)^-1, W = N X, E = P_inf + G W G', next P0 = D E D'
     brk, dbrk = _first(layout.breaks), _first(tangents.breaks)  # (2, 2, S), (2, 2, P, S)

@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from scipy.differentiate import jacobian
 from scipy.optimize import approx_fprime
 
 from monitor.core.consolidation_fit import default_starts
+from monitor.core.kalman import Layout, pad
 from monitor.core.consolidation_model import (
     ONE_RATE,
     TWO_RATE,
@@ -22,11 +25,16 @@ from monitor.core.consolidation_model import (
 TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
 
 
-def _prep(warmup: str = "model", drift: bool = True):
+def _prep(warmup: str = "model", drift: bool = True, groups: int = 1):
+    """A short animal; its sessions laid out for the filter in ``groups`` length groups."""
     rng = np.random.default_rng(11)
     lengths = np.array([2, 150, 1, 90, 3, 210, 40, 120])  # short sessions: the covariance never settles
     sim = simulate(TRUTH, lengths, rng.choice([10.0, 22.0, 48.0, 70.0], len(lengths)), rng, warmup=-0.2)
-    return prepare(sim.series, warmup=warmup, warmup_trials=1, drift=drift)
+    prep = prepare(sim.series, warmup=warmup, warmup_trials=1, drift=drift)
+    layout = Layout(prep.starts, prep.layout_lengths, np.tile(np.eye(2), (len(lengths), 1, 1)))
+    padded = {v: pad(layout, prep.y, prep.inputs[v], max_groups=groups, group_cost=0.0) for v in prep.padded}
+    assert all(len(p.groups) == groups for p in padded.values())
+    return replace(prep, padded=padded)
 
 
 def _loglike(prep, variant: str, two_rate: bool):
@@ -42,10 +50,11 @@ def _vectorised(func):
     return call
 
 
+@pytest.mark.parametrize("groups", [1, 3])
 @pytest.mark.parametrize("variant", ["error", "outcome"])
 @pytest.mark.parametrize("two_rate", [True, False])
-def test_gradient_matches_scipy_differentiate(variant, two_rate):
-    prep = _prep()
+def test_gradient_matches_scipy_differentiate(variant, two_rate, groups):
+    prep = _prep(groups=groups)
     starts = default_starts(two_rate, 3, np.random.default_rng(2))
     ll = _loglike(prep, variant, two_rate)
     for theta in starts:

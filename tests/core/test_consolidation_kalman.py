@@ -10,6 +10,7 @@ from monitor.core.kalman import (
     StateSpace,
     chain_solve,
     kalman_filter,
+    length_groups,
     loglike,
     one_core_matmul,
     pad,
@@ -71,15 +72,18 @@ def _our_two_rate_case(rng, lengths, two_rate=True):
     return model, Layout(starts, lengths, breaks), y, u, effects
 
 
+@pytest.mark.parametrize("groups", [1, 3])
 @pytest.mark.parametrize("two_rate", [True, False])
-def test_our_model_with_breaks_matches_statsmodels(two_rate):
+def test_our_model_with_breaks_matches_statsmodels(two_rate, groups):
     rng = np.random.default_rng(7)
     lengths = np.array([1, 3, 250, 40, 2, 600, 17, 90])  # short sessions: the covariance never settles
     model, layout, y, u, effects = _our_two_rate_case(rng, lengths, two_rate)
     n = len(y)
     offset, warm = -0.3, 0.15
     pos = np.concatenate([np.arange(k) for k in lengths])
-    ours = kalman_filter(model, layout, y, u, effects, pad(layout, y, u))
+    padded = pad(layout, y, u, max_groups=groups, group_cost=0.0)  # sessions in 1 or 3 length groups
+    assert len(padded.groups) == groups
+    ours = kalman_filter(model, layout, y, u, effects, padded)
     coef = np.array([1.0, offset, warm])
     ours_ll = -0.5 * (n * np.log(2 * np.pi) + ours.logdet + coef @ ours.gram @ coef)
 
@@ -105,6 +109,14 @@ def test_our_model_with_breaks_matches_statsmodels(two_rate):
         ref_cov = f @ ref.filtered_state_cov[:, :, t] @ f.T + model.state_cov
         np.testing.assert_allclose(means[k], ref_mean, atol=1e-10)
         np.testing.assert_allclose(ours.end_covs[k], ref_cov, atol=1e-12)
+
+
+def test_length_groups_put_a_long_session_apart():
+    lengths = np.r_[np.full(30, 50), 3000, np.full(10, 60)]
+    groups = length_groups(lengths)
+    assert sorted(np.concatenate(groups).tolist()) == list(range(len(lengths)))  # every session once
+    assert [30] in [g.tolist() for g in groups]  # the long session in a group of its own
+    assert len(length_groups(np.full(75, 400))) == 1  # equal sessions: one group, no padding
 
 
 def test_profiled_effects_are_the_likelihood_maximum():
