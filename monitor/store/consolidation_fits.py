@@ -8,7 +8,8 @@ finite interval: interval, target and rewarded (the rig's outcome) per
 trial; per session the break = this session's start minus the previous
 session's end in hours (23 h when unknown or not positive) and the excluded
 flag. `refit_animal` fits it with `estimate_consolidation` from the cached
-fit's `warm_start` and saves params (the warm start, and the live filter's
+fit's `warm_start` and saves params (the warm start, whether the fit came from
+it, and the live filter's
 state after the last session with that session's end, so the window can
 follow new trials without a refit), the §5 block and its
 trajectory with the data fingerprint taken before reading, so a fit of data
@@ -123,7 +124,8 @@ def refit_animal(db: str | Path | sqlite3.Connection, animal: str, progress: Pro
             block = consolidation_block(result)
             if block["session"] is None:   # no session estimated (e.g. too few trials): the last index
                 block["session"] = last
-            params = {"warm_start": result.warm_start, "evaluations": result.evaluations}
+            params = {"warm_start": result.warm_start, "evaluations": result.evaluations,
+                      "from_cache": result.from_cache}
             live = live_filter(series, result)
             if live is not None:   # the filter at the end of the last session: new trials go on from here
                 params["live"] = {**filter_state(live), "ended_at": last_end}

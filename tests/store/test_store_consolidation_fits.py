@@ -1,0 +1,53 @@
+"""The refit after a new session starts from the fit the store cached after the session before.
+
+A simulated animal (mock_rig's demo animal that plateaus) is imported without
+fits; its first fit is a fresh search. Then one more session is imported and
+the animal refitted, as at a check-out: that fit must come from the cached
+optima (fewer likelihood evaluations), reach at least the likelihood a fresh
+search reaches on the same data, and be saved as current.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+
+import pytest
+
+from mock_rig.demo import STAGES, prepare_demo
+from monitor.app.cli import main
+from monitor.core.consolidation import estimate_consolidation
+from monitor.store.consolidation_fits import refit_animal, store_series
+from monitor.store.fits import cached_block, latest_fit
+
+
+@pytest.fixture(scope="module")
+def animal(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("cohort")
+    stages = (STAGES[0][:2] + (1,), STAGES[1][:2] + (1,), STAGES[2])  # the third animal as in the demo
+    return next(d for d in prepare_demo(folder / "history", stages=stages) if d.animal.name == STAGES[2][1]), folder
+
+
+def import_sessions(db, animal, files) -> None:
+    assert main(["import", *map(str, files), "--protocol", str(animal.protocol_path), "--db", str(db),
+                 "--no-fit"]) == 0
+
+
+def test_the_refit_after_a_new_session_starts_from_the_cached_fit(animal, capsys):
+    demo, folder = animal
+    db = folder / "store.sqlite3"
+    import_sessions(db, demo, demo.session_files[:-1])
+    first = refit_animal(db, demo.animal.name)
+    with sqlite3.connect(db) as conn:
+        cold = latest_fit(conn, demo.animal.name)["params"]
+    assert first["status"] != "too few trials" and cold["from_cache"] is False
+
+    import_sessions(db, demo, demo.session_files[-1:])  # the next session, as at a check-out
+    block = refit_animal(db, demo.animal.name)
+    with sqlite3.connect(db) as conn:
+        warm = latest_fit(conn, demo.animal.name)["params"]
+        assert cached_block(conn, demo.animal.name, None)["current"]
+        series, last, _ = store_series(conn, demo.animal.name)
+    assert warm["from_cache"] is True and warm["evaluations"] < cold["evaluations"]
+    assert block["session"] == last == len(demo.session_files)
+    fresh = estimate_consolidation(series)  # a fresh search on the same data, for comparison
+    assert block["comparison"]["two_rate_loglike"] >= fresh.two_rate.loglike - 0.5
