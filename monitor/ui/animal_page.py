@@ -111,6 +111,7 @@ class HistogramPanel(QWidget):
         layout.addLayout(top)
         layout.addWidget(self.plot, 1)
         self._state: TodayState | None = None
+        self._log_shown: bool | None = None   # the scale the axis shows (None: not drawn yet)
         self.ranges = RangeKeeper(self.plot)
 
     def set_state(self, state: TodayState) -> None:
@@ -123,13 +124,17 @@ class HistogramPanel(QWidget):
             return
         log = self.log_bins.isChecked()
         data = state.log if log else state.linear
-        bottom = self.plot.getPlotItem().getAxis("bottom")
-        bottom.setLabel("interval (ms, log scale)" if log else "interval (ms)")
-        bottom.setTicks([[(math.log10(v), f"{v:g}") for v in LOG_TICKS_MS]] if log else None)
+        changed_scale = log != self._log_shown
+        if changed_scale:   # relabelling an axis repaints it: only when the scale changes
+            bottom = self.plot.getPlotItem().getAxis("bottom")
+            bottom.setLabel("interval (ms, log scale)" if log else "interval (ms)")
+            bottom.setTicks([[(math.log10(v), f"{v:g}") for v in LOG_TICKS_MS]] if log else None)
         self.today.setData(data.edges_ms, data.today)
         lo, hi = float(data.edges_ms[0]), float(data.edges_ms[-1])
         self.ranges.set_x(*((math.log10(lo), math.log10(hi)) if log else (lo, hi)))
-        self.plot.getPlotItem().setLogMode(x=log, y=False)   # after the range: no 10**1500 on the way
+        if changed_scale:
+            self.plot.getPlotItem().setLogMode(x=log, y=False)   # after the range: no 10**1500 on the way
+            self._log_shown = log
         peak = max(float(np.max(data.today, initial=0)),
                    float(np.max(data.previous, initial=0)) if data.previous is not None else 0.0)
         self.ranges.set_y(0.0, nice_ceiling(peak * 1.05))
@@ -181,7 +186,9 @@ class RollingPanel(QWidget):
         x = np.asarray(state.trial_index, dtype=float)
         self.ranges.set_x(0.0, nice_ceiling(float(x[-1]) * 1.05) if len(x) else 1.0)
         self.rate.setData(x, 100 * np.asarray(state.rolling_rate, dtype=float))
+        self.low.blockSignals(True)   # the band redraws its outline once, when the high edge follows
         self.low.setData(x, 100 * np.asarray(state.rolling_low, dtype=float))
+        self.low.blockSignals(False)
         self.high.setData(x, 100 * np.asarray(state.rolling_high, dtype=float))
         level = f"{100 * state.interval_level:.0f} %"
         self.title.setText(f"Rolling hit rate, last {state.rolling_size} trials (band: {level} interval)")

@@ -15,6 +15,7 @@ import pyqtgraph as pg
 import math
 
 from PySide6.QtGui import QColor, QFont
+from PySide6.QtWidgets import QGraphicsItem
 
 from monitor.ui.theme import colour, plot_colours
 
@@ -34,6 +35,7 @@ def make_plot(x_label: str, y_label: str) -> pg.PlotWidget:
         axis.setTextPen(pg.mkPen(foreground))
         axis.setStyle(tickFont=tick_font, hideOverlappingLabels=18)   # the last tick's label may overhang
         axis.setLabel(text, **LABEL_STYLE)
+        axis.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
     item.setContentsMargins(0, 4, 18, 0)   # room for that overhang at the right
     item.showGrid(x=False, y=True, alpha=0.15)
     item.setMenuEnabled(False)

@@ -81,6 +81,20 @@ def test_log_bins_toggle_switches_bins_and_axis(page):
     np.testing.assert_array_equal(page.histogram.today.getData()[1], today.linear.today)
 
 
+def test_a_new_trial_keeps_the_log_axis_and_redraws_the_band_between_both_edges(page):
+    page.histogram.log_bins.setChecked(True)
+    base = page.book.state("cedar")
+    later = replace(base.today, **{k: v for k, v in vars(sample.today_state(np.random.default_rng(5), trials=420)).items()
+                                   if k in ("trial_index", "rolling_rate", "rolling_low", "rolling_high")})
+    page.book.update(replace(base, today=later))
+    assert axis_label(page.histogram.plot, "bottom") == "interval (ms, log scale)"   # not relabelled linear
+    assert page.histogram.plot.getPlotItem().getAxis("bottom").logMode
+    band = page.rolling.band.path().boundingRect()   # the band's outline spans both new edges
+    assert band.top() == pytest.approx(100 * float(np.min(later.rolling_low)))
+    assert band.bottom() == pytest.approx(100 * float(np.max(later.rolling_high)))
+    assert band.right() == pytest.approx(float(later.trial_index[-1]))
+
+
 def test_rolling_rate_is_drawn_with_its_band_and_todays_counts(page):
     today = page.book.state("cedar").today
     x, y = page.rolling.rate.getData()
