@@ -164,16 +164,6 @@ def one_core_matmul(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.concatenate([x[i : i + rows] @ y for i in range(0, x.shape[0], rows)], axis=-2)
 
 
-def session_sums(left: np.ndarray, right: np.ndarray, lengths: np.ndarray) -> np.ndarray:
-    """sum over t < L_s of left[k, t] right[t, j] for every session: (S, K, J).
-
-    One matrix product per stretch between distinct session lengths, then a cumulative sum.
-    """
-    edges, where = np.unique(lengths, return_inverse=True)
-    parts = [left[:, lo:hi] @ right[lo:hi] for lo, hi in zip(np.r_[0, edges[:-1]], edges)]
-    return np.cumsum(np.stack(parts), 0)[where]
-
-
 def _powers(m: np.ndarray, count: int) -> np.ndarray:
     """M**t for t = 0..count-1 as (count, 2, 2), by the Cayley-Hamilton recurrence."""
     from scipy.signal import lfilter

@@ -30,7 +30,6 @@ from monitor.core.kalman import (
     StateSpace,
     chain_solve,
     one_core_matmul,
-    session_sums,
     steady_response,
 )
 
@@ -134,6 +133,16 @@ def _filter_coef_tangent(h: np.ndarray, m: np.ndarray, dm: np.ndarray, vec: np.n
     return np.stack([h @ dvec, h @ (np.einsum("abp,b->ap", dadj0, vec) + adj0 @ dvec)], -1)
 
 
+def _session_sums(left: np.ndarray, right: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """sum over t < L_s of left[k, t] right[t, j] for every session: (S, K, J).
+
+    One matrix product per stretch between distinct session lengths, then a cumulative sum.
+    """
+    edges, where = np.unique(lengths, return_inverse=True)
+    parts = [left[:, lo:hi] @ right[lo:hi] for lo, hi in zip(np.r_[0, edges[:-1]], edges)]
+    return np.cumsum(np.stack(parts), 0)[where]
+
+
 def profile_gradient(
     model: StateSpace, layout: Layout, padded: Padded, out: FilterOutput, prof: Profiled, tangents: Tangents
 ) -> np.ndarray:
@@ -184,7 +193,7 @@ def profile_gradient(
     to_combined = np.zeros((len(prof.coef) + 4, 5))  # [effects, H M^t, O~] -> [coef . effects, H M^t, O~]
     to_combined[: len(prof.coef), 0], to_combined[len(prof.coef) :, 1:] = prof.coef, np.eye(4)
     sums = np.moveaxis(to_combined.T @ wk.shared_sums @ to_combined, 0, -1)  # (5, 5, S); einsum did it 10x slower
-    dsums = session_sums(dbasis.reshape(5 * n_dir, t_max), basis, lengths).reshape(n_sess, 5, n_dir, 5)
+    dsums = _session_sums(dbasis.reshape(5 * n_dir, t_max), basis, lengths).reshape(n_sess, 5, n_dir, 5)
     dsums = np.transpose(dsums, (1, 3, 2, 0))
     dsums = (dsums + dsums.swapaxes(0, 1)) / s - sums[:, :, None] * (ds / s)[:, None]  # (5, 5, P, S)
 
