@@ -4,17 +4,17 @@ Rule: the profile log-likelihood (offset, warm-up size and noise scale profiled
 out exactly) is maximised over the transformed parameters by L-BFGS-B with
 exact gradients (forward-mode tangents of the filter, ``kalman_tangent``), from
 several starts (a warm start from a cached fit first when given); the best
-optimum is kept.  Two shortcuts save
-evaluations without changing which optimum wins: a run that comes within
-``JOIN_DISTANCE`` of an optimum already found stops (it is converging onto it),
-and raced starts (a few steps each) far behind the best go no further.  A run's evaluations are
-capped at twice its steps plus five (line searches that keep failing are not converging).  A fit is "converged" when the
-optimiser reports success and the curvature (a forward-difference Hessian) is
-that of a maximum; otherwise the reason is kept.  Parameter uncertainty is the
-Laplace approximation N(theta_hat, H^-1) on the transformed scale; flat
-directions get a floor curvature so that their draws spread over the whole
-range (wide, never falsely narrow).  Every likelihood evaluation checks the
-cancel callback.
+optimum is kept.  Two shortcuts save evaluations without changing which
+optimum wins: a run that comes within ``JOIN_DISTANCE`` of an optimum already
+found stops (it is converging onto it), and raced starts (a few steps each) far
+behind the best go no further.  A run's evaluations are capped at twice its
+steps plus five (line searches that keep failing are not converging).  A fit
+is "converged" when the optimiser reports success and the curvature (a
+forward-difference Hessian) is that of a maximum; otherwise the reason is
+kept.  Parameter uncertainty is the Laplace approximation N(theta_hat, H^-1)
+on the transformed scale; flat directions get a floor curvature so that their
+draws spread over the whole range (wide, never falsely narrow).  Every
+likelihood evaluation checks the cancel callback.
 """
 from __future__ import annotations
 

@@ -16,9 +16,10 @@ session whose prior covariance is the steady one; the mean recursion is then a
 second-order linear filter that ``scipy.signal.lfilter`` runs on all sessions of
 a length group at once (sessions are grouped by length, so that one long
 session does not pad every other session's row to its length).  The session's
-true prior covariance P_inf + dP is corrected for exactly with the determinant lemma and the Woodbury identity (2x2 algebra per session),
-and each session's means are affine in its start mean, so only short loops over
-sessions are sequential.  The covariance need not settle within a session (it
+true prior covariance P_inf + dP is corrected for exactly with the determinant
+lemma and the Woodbury identity (2x2 algebra per session), and each session's
+means are affine in its start mean, so only short loops over sessions are
+sequential.  The covariance need not settle within a session (it
 does not when the slow state's noise is small); the result equals the plain
 trial-by-trial filter to rounding.  A one-state model is the two-state one with
 the second state held at zero (zero row/column in F, B, Q and the initial
