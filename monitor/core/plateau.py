@@ -84,10 +84,15 @@ class ChangePoint(NamedTuple):
 
 
 def _log_odds(k: np.ndarray, n: np.ndarray, p: np.ndarray) -> np.ndarray:
-    from scipy.stats import binom  # lazy
+    """log10(P(X <= k) / P(X >= k)) for X ~ Binomial(n, p), from the regularised incomplete beta
+    function (scipy.special; scipy.stats would cost the commands two seconds of import)."""
+    from scipy.special import bdtr, bdtrc  # lazy
 
+    k = np.asarray(k, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
-        value = (binom.logcdf(k, n, p) - binom.logsf(k - 1, n, p)) / LN10
+        at_most = bdtr(k, n, p)
+        at_least = np.where(k >= 1, bdtrc(np.maximum(k - 1, 0), n, p), 1.0)
+        value = (np.log(at_most) - np.log(at_least)) / LN10
     return np.where(np.isnan(value), 0.0, value)
 
 
@@ -233,14 +238,14 @@ def change_point(curve: LearningCurve, crit: float, sessions: int) -> PlateauRes
 # -- slope over the last W sessions --------------------------------------------
 
 def _slope(x: np.ndarray, y: np.ndarray, confidence: float) -> tuple[float, float, float]:
-    from scipy.stats import t as student  # lazy
+    from scipy.special import stdtrit  # lazy: the t quantile without scipy.stats's import
 
     xm = x - x.mean()
     sxx = float(xm @ xm)
     slope = float(xm @ (y - y.mean())) / sxx
     resid = y - y.mean() - slope * xm
     se = math.sqrt(float(resid @ resid) / (len(x) - 2) / sxx)
-    half = float(student.ppf(0.5 + confidence / 2, len(x) - 2)) * se
+    half = float(stdtrit(len(x) - 2, 0.5 + confidence / 2)) * se
     return slope, slope - half, slope + half
 
 
@@ -413,15 +418,19 @@ def _logistic(value: float) -> float:
     return e / (1.0 + e)
 
 
-def _posterior_mode(state: float, prior_var: float, hits: float, total: float, mu: float) -> float:
+def _posterior_mode(state: float, prior_var: float, hits: float, total: float, mu: float,
+                    start: float | None = None) -> float:
     """The root of g(x) = x - state - prior_var * (hits - total * logistic(mu + x)): safeguarded Newton.
 
     g rises strictly (g' = 1 + prior_var * total * p (1 - p) >= 1) and its root lies in
     [state + prior_var * (hits - total), state + prior_var * hits], so a Newton step that leaves
     the bracket is replaced by bisection (plain Newton overshoots on large blocks and diverges).
+    A step below the tolerance ends the search before the bracket test: a converged step lands
+    on a bracket end, and bisecting from there would restart the search. `start` is a first
+    guess (the previous EM iteration's mode); the bracket keeps it safe.
     """
     low, high = state + prior_var * (hits - total), state + prior_var * hits
-    guess = min(max(state, low), high)
+    guess = min(max(state if start is None else start, low), high)
     for _ in range(200):
         p = _logistic(mu + guess)
         value = guess - state - prior_var * (hits - total * p)
@@ -431,6 +440,8 @@ def _posterior_mode(state: float, prior_var: float, hits: float, total: float, m
             low = guess
         step = value / (1 + prior_var * total * p * (1 - p))
         candidate = guess - step
+        if abs(step) < 1e-12:
+            return candidate
         if not low < candidate < high:
             candidate = 0.5 * (low + high)
         if abs(candidate - guess) < 1e-12 or high - low < 1e-12:
@@ -468,7 +479,7 @@ def state_space_curve(outcomes: Sequence[bool] | np.ndarray, chance: float, bloc
         for k in range(steps):
             pv = var + sigma2
             n, total = counts[k], totals[k]
-            guess = _posterior_mode(state, pv, n, total, mu)
+            guess = _posterior_mode(state, pv, n, total, mu, post[k] if iteration > 1 else None)
             p = _logistic(mu + guess)
             state, var = guess, 1.0 / (1.0 / pv + total * p * (1 - p))
             post[k], post_v[k], prior_v[k] = state, var, pv

@@ -319,3 +319,53 @@ def test_long_series_from_a_low_baseline_stays_finite():
     outcomes = np.r_[np.zeros(300), rng.random(22000) < 0.7]
     fit = state_space_curve(outcomes, 0.01)
     assert np.all(np.isfinite(fit.p_mode)) and fit.p_mode[-1] > 0.6
+
+
+@pytest.mark.parametrize("start_offset", [None, -3.0, 0.0, 2.5, 40.0])
+def test_posterior_mode_from_any_start_equals_brentq(start_offset):
+    """A warm start anywhere (even outside the bracket) reaches the root scipy.optimize.brentq finds,
+    and a step that converges onto a bracket end ends the search instead of bisecting again."""
+    from scipy.optimize import brentq
+
+    from monitor.core.plateau import _logistic, _posterior_mode
+
+    mu, state, prior_var, hits, total = math.log(0.1 / 0.9), 1.0, 0.087, 2.0, 2
+    root = brentq(lambda x: x - state - prior_var * (hits - total * _logistic(mu + x)), -5, 5, xtol=1e-14)
+    start = None if start_offset is None else root + start_offset
+    assert _posterior_mode(state, prior_var, hits, total, mu, start) == pytest.approx(root, abs=1e-9)
+
+
+def test_log_odds_equals_scipy_binomial():
+    """The change-point score log10(P(X <= k) / P(X >= k)) from scipy.special's incomplete beta
+    equals scipy.stats.binom's logcdf and logsf (reference library), k = 0 and k = n included."""
+    from scipy.stats import binom
+
+    from monitor.core.plateau import LN10, _log_odds
+
+    rng = np.random.default_rng(3)
+    n = rng.integers(1, 400, 500).astype(float)
+    k = np.floor(rng.random(500) * (n + 1))
+    p = rng.uniform(0.02, 0.98, 500)
+    with np.errstate(divide="ignore"):
+        ref = (binom.logcdf(k, n, p) - binom.logsf(k - 1, n, p)) / LN10
+    mine = _log_odds(k, n, p)
+    finite = np.isfinite(ref)
+    assert finite.sum() > 450 and np.allclose(mine[finite], ref[finite], rtol=1e-9, atol=1e-9)
+    # where scipy.stats's tail underflows to an infinite score, ours is a finite one far past any criterion
+    assert np.all(np.sign(mine[~finite]) == np.sign(ref[~finite])) and np.all(np.abs(mine[~finite]) > 100)
+
+
+def test_slope_interval_uses_student_t():
+    """The slope rule's interval is the OLS slope +/- t(0.95, n - 2) * SE, as scipy.stats.linregress
+    and scipy.stats.t give it (reference library)."""
+    from scipy.stats import t as student
+
+    from monitor.core.plateau import _slope
+
+    x = np.arange(1.0, 9.0)
+    y = np.array([0.41, 0.45, 0.44, 0.52, 0.50, 0.55, 0.53, 0.58])
+    ref = linregress(x, y)
+    half = student.ppf(0.95, len(x) - 2) * ref.stderr
+    value, low, high = _slope(x, y, 0.90)
+    assert value == pytest.approx(ref.slope) and low == pytest.approx(ref.slope - half)
+    assert high == pytest.approx(ref.slope + half)

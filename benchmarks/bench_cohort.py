@@ -1,0 +1,142 @@
+"""Benchmark: cohort-scale commands beside a plain yardstick, on one simulated cohort.
+
+Rule: every figure is printed beside the yardstick measured in the same run
+and their ratio, so a slow or busy machine shows up in both. The cohort is
+`python -m mock_rig history --animals 8 --days 30 --seed 11` (2 x 6 with
+--quick). The yardstick is the simplest honest way to put the same files into
+SQLite: read each file, split its lines, insert one row per line (WAL,
+synchronous=FULL, one transaction per file). The commands are run as a user
+runs them (`python -m monitor.app ...` in a child process), one after another:
+import without fits, import with fits (a second database), events and trials
+CSV, the whole cohort's report, and NWB when pynwb is installed. Run:
+    python benchmarks/bench_cohort.py [--quick] [--keep DIR]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import sqlite3
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def yardstick(files: list[Path], db: Path) -> tuple[float, int]:
+    """Seconds and rows for the plain read-split-insert of `files` into a fresh SQLite file."""
+    started = time.perf_counter()
+    conn = sqlite3.connect(db, isolation_level=None)
+    conn.execute("PRAGMA journal_mode=WAL")
+    conn.execute("PRAGMA synchronous=FULL")
+    conn.execute("CREATE TABLE lines (file TEXT, line INTEGER, t INTEGER, word TEXT, args TEXT)")
+    rows = 0
+    for path in files:
+        batch = []
+        for number, line in enumerate(path.read_text(encoding="ascii", errors="replace").splitlines(), 1):
+            if not line or line.startswith("#"):
+                continue
+            parts = line.split(None, 2)
+            if len(parts) < 2 or not parts[0].isdigit():
+                continue
+            batch.append((path.name, number, int(parts[0]), parts[1], parts[2] if len(parts) > 2 else None))
+        conn.execute("BEGIN")
+        conn.executemany("INSERT INTO lines VALUES (?, ?, ?, ?, ?)", batch)
+        conn.execute("COMMIT")
+        rows += len(batch)
+    conn.close()
+    return time.perf_counter() - started, rows
+
+
+def rigside(*argv: str) -> float:
+    """Seconds one `rigside` command takes in a child process; its failure ends the benchmark."""
+    env = {**os.environ, "QT_QPA_PLATFORM": "offscreen",
+           "PYTHONPATH": os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")]))}
+    started = time.perf_counter()
+    done = subprocess.run([sys.executable, "-m", "monitor.app", *argv], cwd=ROOT, env=env,
+                          capture_output=True, text=True)
+    seconds = time.perf_counter() - started
+    if done.returncode != 0:
+        last = (done.stderr.strip().splitlines() or ["no error text"])[-1]
+        raise RuntimeError(f"rigside {' '.join(argv[:2])} exited {done.returncode}: {last}")
+    return seconds
+
+
+def import_cohort(history: Path, db: Path, fit: bool) -> float:
+    """Seconds to import every animal of `history` into `db` (one command per animal, as a lab runs it)."""
+    total = 0.0
+    for protocol in sorted(history.glob("*.protocol.toml")):
+        animal = protocol.name.removesuffix(".protocol.toml")
+        files = sorted(str(p) for p in history.glob(f"{animal}_s*.rsw"))
+        total += rigside("import", *files, "--protocol", str(protocol), "--db", str(db),
+                         *(() if fit else ("--no-fit",)))
+    return total
+
+
+def figures(quick: bool = False, keep: Path | None = None) -> list[tuple[str, float, str, str]]:
+    """Table lines for `python -m benchmarks`: (label, value, unit, detail)."""
+    animals, days = (2, 6) if quick else (8, 30)
+    folder = Path(tempfile.mkdtemp(prefix="bench_cohort_")) if keep is None else keep
+    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        history = folder / "history"
+        subprocess.run([sys.executable, "-m", "mock_rig", "history", "--animals", str(animals), "--days", str(days),
+                        "--seed", "11", "--out", str(history)], cwd=ROOT, check=True, capture_output=True)
+        files = sorted(history.glob("*.rsw"))
+        lines = sum(p.read_bytes().count(b"\n") for p in files)
+        yard_s, yard_rows = yardstick(files, folder / "yardstick.sqlite")
+        cohort = f"{animals} animals x {days} days, {len(files)} files, {lines:,} lines"
+        out: list[tuple[str, float, str, str]] = [
+            ("cohort yardstick: read, split, insert (WAL, FULL, a transaction per file)", yard_s, "s",
+             f"{cohort}; {yard_rows:,} rows, {yard_rows / yard_s:,.0f} rows/s")]
+
+        db = folder / "cohort.sqlite"
+        import_s = import_cohort(history, db, fit=False)
+        out.append(("cohort import --no-fit", import_s, "s",
+                    f"{import_s / yard_s:.1f} x the yardstick (goal <= 2); {lines / import_s:,.0f} lines/s"))
+        fitted_s = import_cohort(history, folder / "fitted.sqlite", fit=True)
+        out.append(("cohort import with fits", fitted_s, "s", f"{fitted_s / yard_s:.1f} x the yardstick (goal <= 4)"))
+
+        with sqlite3.connect(db) as conn:
+            events = conn.execute("SELECT count(*) FROM events").fetchone()[0]
+            trials = conn.execute("SELECT count(*) FROM trials").fetchone()[0]
+        csv_s = rigside("export", "events", "--db", str(db), "--csv", str(folder / "events.csv"))
+        out.append(("cohort events CSV", csv_s, "s", f"{events:,} rows, {events / csv_s:,.0f} rows/s incl. start-up "
+                                                     "(goal >= 300000 rows/s)"))
+        trials_s = rigside("export", "trials", "--db", str(db), "--csv", str(folder / "trials.csv"))
+        out.append(("cohort trials CSV", trials_s, "s", f"{trials:,} rows, {trials / trials_s:,.0f} rows/s"))
+        report_s = rigside("report", "--db", str(db), "--json")
+        out.append(("cohort report --json", report_s, "s", "goal <= 1 s, including the interpreter's start"))
+        try:
+            import pynwb  # noqa: F401  (optional extra)
+        except ImportError:
+            out.append(("cohort NWB export", float("nan"), "s", "not available: pynwb is not installed"))
+        else:
+            nwb_dir = folder / "nwb"
+            nwb_s = rigside("export", "--db", str(db), "--nwb", str(nwb_dir))
+            nwb_bytes = sum(p.stat().st_size for p in nwb_dir.rglob("*.nwb"))
+            out.append(("cohort NWB export", nwb_s, "s",
+                        f"{nwb_s / yard_s:.1f} x the yardstick (goal <= 3); NWB / database size "
+                        f"{nwb_bytes / db.stat().st_size:.2f} (goal <= 1.5)"))
+        return out
+    finally:
+        if keep is None:
+            shutil.rmtree(folder, ignore_errors=True)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="2 animals x 6 days instead of 8 x 30")
+    parser.add_argument("--keep", type=Path, help="work in this folder and keep it (default: a temporary one)")
+    args = parser.parse_args()
+    for label, value, unit, detail in figures(args.quick, args.keep):
+        print(f"{label}: {value:.2f} {unit}")
+        print(f"    {detail}")
+
+
+if __name__ == "__main__":
+    main()
