@@ -88,7 +88,8 @@ def _log_odds(k: np.ndarray, n: np.ndarray, p: np.ndarray) -> np.ndarray:
     function (scipy.special; scipy.stats would cost the commands two seconds of import)."""
     from scipy.special import bdtr, bdtrc  # lazy
 
-    k = np.asarray(k, dtype=float)
+    k = np.rint(k).astype(np.int64)  # counts: bdtr wants integer arguments
+    n = np.rint(n).astype(np.int64)
     with np.errstate(divide="ignore", invalid="ignore"):
         at_most = bdtr(k, n, p)
         at_least = np.where(k >= 1, bdtrc(np.maximum(k - 1, 0), n, p), 1.0)
@@ -456,7 +457,12 @@ def state_space_curve(outcomes: Sequence[bool] | np.ndarray, chance: float, bloc
     fitted by EM (random-walk variance and start state), with the nonlinear
     forward filter and fixed-interval smoother of that paper. Steps are single
     trials, or blocks of `block` trials (binomial counts) when the series is
-    longer than MAX_STEPS. A given `sigma2` is used as it is (start state 0, no EM)."""
+    longer than MAX_STEPS. A given `sigma2` is used as it is (start state 0, no EM).
+
+    Plain EM creeps towards its fixed point (hundreds of passes when the
+    variance is small), so its steps are extrapolated by SQUAREM (Varadhan &
+    Roland 2008, Scand J Stat 35:335), which reaches the same fixed point;
+    `max_iter` counts filter-smoother passes, extrapolated or not."""
     from statistics import NormalDist
 
     x = np.asarray(outcomes, dtype=float)
@@ -464,25 +470,48 @@ def state_space_curve(outcomes: Sequence[bool] | np.ndarray, chance: float, bloc
     starts = np.arange(0, len(x), size)
     counts = np.add.reduceat(x, starts).tolist() if len(x) else []
     totals = np.diff(np.append(starts, len(x))).tolist()
-    steps = len(counts)
     mu = math.log(chance / (1 - chance))
-    fixed = sigma2 is not None
-    sigma2, x0 = (sigma2 if fixed else 0.05 * size), 0.0
-    post = [0.0] * steps
-    post_v = [0.0] * steps
-    prior_v = [0.0] * steps
-    smooth = [0.0] * steps
-    smooth_v = [0.0] * steps
-    iteration = 0
-    for iteration in range(1, 2 if fixed else max_iter + 1):
+    em = _SmithEM(counts, totals, mu)
+    if sigma2 is not None:
+        em.run(sigma2, 0.0)
+        passes = 1
+    else:
+        sigma2, _, passes = em.fit(0.05 * size, max_iter, tol)
+    mean, sd = np.array(em.smooth), np.sqrt(np.maximum(np.array(em.smooth_v), 0.0))
+    z = NormalDist().inv_cdf(0.95)
+    logistic = np.vectorize(_logistic, otypes=[float])
+    norm = NormalDist()
+    above = np.array([1.0 - norm.cdf(-m / s) if s > 0 else float(m > 0) for m, s in zip(mean, sd, strict=True)])
+    return StateSpaceCurve(starts + 1, logistic(mu + mean), logistic(mu + mean - z * sd),
+                           logistic(mu + mean + z * sd), above, sigma2, passes)
+
+
+class _SmithEM:
+    """One filter-smoother pass of Smith et al. (2004) and the EM update it gives, kept with its arrays."""
+
+    def __init__(self, counts: list[float], totals: list[int], mu: float) -> None:
+        self.counts, self.totals, self.mu = counts, totals, mu
+        steps = len(counts)
+        self.post = [0.0] * steps
+        self.post_v = [0.0] * steps
+        self.prior_v = [0.0] * steps
+        self.smooth = [0.0] * steps
+        self.smooth_v = [0.0] * steps
+        self.warm = False
+
+    def run(self, sigma2: float, x0: float) -> tuple[float, float]:
+        """Filter and smooth with (sigma2, x0); return EM's next (sigma2, x0)."""
+        post, post_v, prior_v, smooth, smooth_v = self.post, self.post_v, self.prior_v, self.smooth, self.smooth_v
+        counts, totals, mu, steps = self.counts, self.totals, self.mu, len(self.counts)
         state, var = x0, sigma2
         for k in range(steps):
             pv = var + sigma2
-            n, total = counts[k], totals[k]
-            guess = _posterior_mode(state, pv, n, total, mu, post[k] if iteration > 1 else None)
+            total = totals[k]
+            guess = _posterior_mode(state, pv, counts[k], total, mu, post[k] if self.warm else None)
             p = _logistic(mu + guess)
             state, var = guess, 1.0 / (1.0 / pv + total * p * (1 - p))
             post[k], post_v[k], prior_v[k] = state, var, pv
+        self.warm = True
         smooth[-1], smooth_v[-1] = post[-1], post_v[-1]
         gains = [0.0] * steps
         for k in range(steps - 2, -1, -1):
@@ -490,8 +519,6 @@ def state_space_curve(outcomes: Sequence[bool] | np.ndarray, chance: float, bloc
             gains[k] = gain
             smooth[k] = post[k] + gain * (smooth[k + 1] - post[k])
             smooth_v[k] = post_v[k] + gain * gain * (smooth_v[k + 1] - prior_v[k + 1])
-        if fixed:
-            break
         gain0 = sigma2 / prior_v[0]  # the start state's prior variance is sigma2
         start = x0 + gain0 * (smooth[0] - x0)
         start_v = sigma2 + gain0 * gain0 * (smooth_v[0] - prior_v[0])
@@ -500,18 +527,40 @@ def state_space_curve(outcomes: Sequence[bool] | np.ndarray, chance: float, bloc
         for k in range(1, steps):
             total_sq += (smooth_v[k] + smooth[k] ** 2) - 2 * (gains[k - 1] * smooth_v[k] + smooth[k] * smooth[k - 1]) \
                 + (smooth_v[k - 1] + smooth[k - 1] ** 2)
-        new_sigma2 = max(total_sq / steps, 1e-10)
-        done = abs(new_sigma2 - sigma2) <= tol * sigma2 and abs(start - x0) <= tol * (1 + abs(x0))
-        sigma2, x0 = new_sigma2, start
-        if done:
-            break
-    mean, sd = np.array(smooth), np.sqrt(np.maximum(np.array(smooth_v), 0.0))
-    z = NormalDist().inv_cdf(0.95)
-    logistic = np.vectorize(_logistic, otypes=[float])
-    norm = NormalDist()
-    above = np.array([1.0 - norm.cdf(-m / s) if s > 0 else float(m > 0) for m, s in zip(mean, sd, strict=True)])
-    return StateSpaceCurve(starts + 1, logistic(mu + mean), logistic(mu + mean - z * sd),
-                           logistic(mu + mean + z * sd), above, sigma2, iteration)
+        return max(total_sq / steps, 1e-10), start
+
+    def fit(self, sigma2: float, max_passes: int, tol: float) -> tuple[float, float, int]:
+        """EM from (sigma2, 0) to its fixed point, SQUAREM-accelerated in (log sigma2, x0); (sigma2, x0, passes).
+
+        Converged when one plain pass moves sigma2 by at most tol * sigma2 and x0 by at most
+        tol * (1 + |x0|) (the plain EM's own test); the arrays are those of that last pass."""
+        passes = 0
+
+        def step(theta: tuple[float, float]) -> tuple[tuple[float, float], bool]:
+            nonlocal passes
+            passes += 1
+            s2, x0 = math.exp(theta[0]), theta[1]
+            new_s2, new_x0 = self.run(s2, x0)
+            done = abs(new_s2 - s2) <= tol * s2 and abs(new_x0 - x0) <= tol * (1 + abs(x0))
+            return (math.log(new_s2), new_x0), done
+
+        theta = (math.log(sigma2), 0.0)
+        while passes < max_passes:
+            one, done = step(theta)
+            if done or passes >= max_passes:
+                return math.exp(one[0]), one[1], passes
+            two, done = step(one)
+            if done or passes >= max_passes:
+                return math.exp(two[0]), two[1], passes
+            r = (one[0] - theta[0], one[1] - theta[1])
+            v = (two[0] - 2 * one[0] + theta[0], two[1] - 2 * one[1] + theta[1])
+            r_norm, v_norm = math.hypot(*r), math.hypot(*v)
+            alpha = max(min(-r_norm / v_norm, -1.0), -64.0) if v_norm > 0 else -1.0
+            theta = (theta[0] - 2 * alpha * r[0] + alpha * alpha * v[0],
+                     theta[1] - 2 * alpha * r[1] + alpha * alpha * v[1])
+            if not (math.isfinite(theta[0]) and math.isfinite(theta[1])) or theta[0] < math.log(1e-10):
+                theta = two
+        return math.exp(theta[0]), theta[1], passes
 
 
 def learning_trial(curve: LearningCurve, chance: float | None, level: float = 0.95) -> PlateauResult:

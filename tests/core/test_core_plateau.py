@@ -369,3 +369,23 @@ def test_slope_interval_uses_student_t():
     value, low, high = _slope(x, y, 0.90)
     assert value == pytest.approx(ref.slope) and low == pytest.approx(ref.slope - half)
     assert high == pytest.approx(ref.slope + half)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_accelerated_em_stops_at_the_em_fixed_point(seed):
+    """SQUAREM (Varadhan & Roland 2008) only extrapolates EM's steps: at the variance it returns,
+    one more plain EM pass of Smith et al. (2004) barely moves it, in far fewer passes than
+    plain EM needs (hundreds on a series like this)."""
+    from monitor.core.plateau import _SmithEM
+
+    rng = np.random.default_rng(seed)
+    n = 3000
+    outcomes = rng.random(n) < np.linspace(0.1, 0.6, n)
+    fit = state_space_curve(outcomes, 0.1)
+    assert fit.iterations < 60
+    counts = np.add.reduceat(outcomes.astype(float), np.arange(0, n, 3)).tolist()
+    em = _SmithEM(counts, [3] * len(counts), math.log(0.1 / 0.9))
+    sigma2, x0, _ = em.fit(0.15, 200, 1e-4)
+    assert sigma2 == pytest.approx(fit.sigma2)
+    next_sigma2, next_x0 = em.run(sigma2, x0)
+    assert next_sigma2 == pytest.approx(sigma2, rel=1e-3) and next_x0 == pytest.approx(x0, abs=1e-3)
