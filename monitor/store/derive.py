@@ -57,14 +57,21 @@ def _args(name: str, value: str | None) -> tuple[str, ...]:
 def derive(conn: sqlite3.Connection, session_id: int, events: Iterable[Event] | None = None
            ) -> tuple[list[Trial], dict[str, int], float | None] | None:
     """(trials, builder counts, water µL) of a session, computed and not stored; None without a protocol."""
-    from monitor.core.stats import LiveSession
-
     text, stage, rig = conn.execute("SELECT protocol_text, stage, rig FROM sessions WHERE id = ?",
                                     (session_id,)).fetchone()
     if not text:
         return None
-    live = LiveSession(protocol_of(text), stage, valve_ul_per_ms=valve_calibration(conn, rig))
-    for event in session_events(conn, session_id) if events is None else events:
+    return derive_events(text, stage, valve_calibration(conn, rig),
+                         session_events(conn, session_id) if events is None else events)
+
+
+def derive_events(protocol_text: str, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Event]
+                  ) -> tuple[list[Trial], dict[str, int], float | None]:
+    """(trials, builder counts, water µL) of one session's events under a protocol text; needs no database."""
+    from monitor.core.stats import LiveSession
+
+    live = LiveSession(protocol_of(protocol_text), stage, valve_ul_per_ms=valve_ul_per_ms)
+    for event in events:
         live.feed(event)
     live.finish()
     return live.trials, dict(live.builder.counts), live.stats.water_ul
@@ -88,14 +95,20 @@ def rebuild_trials(conn: sqlite3.Connection, session_id: int, events: Iterable[E
                      (session_id, time.time(), json.dumps({"no_protocol": 1}), malformed))
         return 0
     trials, counts, water = result
+    store_trials(conn, session_id, protocol_id, [trial_row(t) for t in trials], counts, water, malformed)
+    return len(trials)
+
+
+def store_trials(conn: sqlite3.Connection, session_id: int, protocol_id: int | None, rows: list[tuple],
+                 counts: dict[str, int], water_ul: float | None, malformed: int) -> None:
+    """Insert a session's derived trial rows (`trial_row`) and its build record, in the caller's transaction."""
     conn.executemany(f"INSERT INTO trials (session_id, {', '.join(TRIAL_COLUMNS)}) VALUES "
                      f"({', '.join('?' * (len(TRIAL_COLUMNS) + 1))})",
-                     [(session_id, *_row(t)) for t in trials])
+                     [(session_id, *row) for row in rows])
     conn.execute("INSERT INTO trial_builds (session_id, protocol_id, built_at, trials, counts, water_ul, malformed) "
                  "VALUES (?, ?, ?, ?, ?, ?, ?)",
-                 (session_id, protocol_id, time.time(), len(trials), json.dumps(counts, sort_keys=True), water,
+                 (session_id, protocol_id, time.time(), len(rows), json.dumps(counts, sort_keys=True), water_ul,
                   malformed))
-    return len(trials)
 
 
 def rebuild_missing(conn: sqlite3.Connection) -> int:
@@ -107,7 +120,8 @@ def rebuild_missing(conn: sqlite3.Connection) -> int:
     return len(ids)
 
 
-def _row(t: Trial) -> tuple:
+def trial_row(t: Trial) -> tuple:
+    """A trial as the values of TRIAL_COLUMNS."""
     interval = None if t.interval_ms != t.interval_ms else t.interval_ms  # nan -> NULL
     return (t.index, t.t_us, interval, t.target_ms, t.window_low_ms, t.window_high_ms, t.stage, t.outcome,
             int(t.rewarded), t.outcome_source, t.computed_outcome, t.segment)

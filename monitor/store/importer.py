@@ -29,7 +29,7 @@ from pathlib import Path
 from typing import Any
 
 from drivers.wire import Comment, Event, Header, Malformed, Record, WireDecoder
-from monitor.store.derive import rebuild_trials
+from monitor.store.derive import derive_events, store_trials, trial_row
 from monitor.store.records import ensure_animal, ensure_protocol
 from monitor.store.schema import FIRST_UNKNOWN_CODE
 
@@ -211,16 +211,41 @@ def _trailing_non_events(records: list[Record]) -> list[Record]:
     return out
 
 
-def import_file(conn: sqlite3.Connection, path: Path, data: bytes, *, protocol_text: str, protocol_name: str,
-                protocol_version: int, animal: str | None = None, mapping: Any = None,
-                mapping_text: str | None = None, gap_s: float = GAP_S) -> Imported:
-    """Store one file's sessions in the caller's transaction (BEGIN IMMEDIATE); see the module rule."""
-    digest = file_digest(data)
-    earlier = already_imported(conn, digest)
-    if earlier is not None:
-        when = datetime.fromtimestamp(earlier[1]).astimezone().isoformat(timespec="seconds")
-        raise ImportRefused(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
-                            "nothing was changed")
+@dataclass
+class ParsedSession:
+    """One session of a file, parsed and derived, ready to store (plain data: it crosses processes)."""
+
+    animal: str
+    label: str
+    start: datetime
+    rig: str | None
+    start_device_us: int | None
+    ended_at: float | None
+    events: list[tuple]  # (segment, line, t_us, raw_time, event word, value, wall)
+    raw: list[tuple]  # (line, byte offset, kind, reason, raw bytes)
+    malformed: int
+    trial_rows: list[tuple] | None  # derive.trial_row values; None without a protocol
+    counts: dict[str, int]
+    water_ul: float | None
+
+
+@dataclass
+class ParsedFile:
+    """One file's sessions and notices; `store_parsed` puts it in the store."""
+
+    path: str
+    digest: str
+    size: int
+    mapped: bool
+    sessions: list[ParsedSession]
+    notices: list[str]
+
+
+def parse_file(path: Path, data: bytes, *, protocol_text: str, animal: str | None = None, mapping: Any = None,
+               gap_s: float = GAP_S, calibrations: dict[str, float] | None = None) -> ParsedFile:
+    """Decode, split into sessions and derive the trials of one file, without the database (the module rule).
+
+    `calibrations` maps rig names to valve µL per ms (the store's rigs), for water from `valve` events."""
     if mapping is None:
         decoder: Any = WireDecoder()
     else:
@@ -235,28 +260,85 @@ def import_file(conn: sqlite3.Connection, path: Path, data: bytes, *, protocol_t
     for record in records:
         splitter.add(record)
     mtime = datetime.fromtimestamp(path.stat().st_mtime).astimezone() if path.exists() else datetime.now().astimezone()
-    sessions = splitter.finish(mtime)
+    sessions = [_parse_session(s, protocol_text, (calibrations or {}).get(s.rig or "import"))
+                for s in splitter.finish(mtime)]
+    return ParsedFile(str(path), file_digest(data), len(data), mapping is not None, sessions, splitter.notices)
 
-    now = time.time()
-    total_events = sum(s.events for s in sessions)
+
+def _parse_session(session: _Session, protocol_text: str, valve_ul_per_ms: float | None) -> ParsedSession:
+    assert session.start is not None
+    events, raw = [], []
+    for r in session.records:
+        kind = type(r)
+        if kind is Event:
+            events.append((r.segment, r.line, r.t_us, r.raw_time, r.name, " ".join(r.args) if r.args else None,
+                           r.wall_time))
+        elif kind is Malformed:
+            raw.append((r.line, r.offset, "malformed", r.reason, bytes(r.raw)))
+        elif kind is Header:
+            text = " ".join([f"# rigside-wire {r.version}", *(f"{k}={v}" for k, v in r.fields.items())])
+            raw.append((r.line, r.offset, "header", None, text.encode("ascii", "replace")))
+        elif kind is Comment:
+            raw.append((r.line, r.offset, "comment", None, r.text.encode("utf-8", "surrogateescape")))
+    trial_rows, counts, water = None, {"no_protocol": 1}, None
+    if protocol_text:  # imported sessions start with no stage: the protocol's own default
+        trials, counts, water = derive_events(protocol_text, None, valve_ul_per_ms,
+                                              (r for r in session.records if type(r) is Event))
+        trial_rows = [trial_row(t) for t in trials]
+    ended = session.last_wall.timestamp() if session.last_wall is not None else None
+    return ParsedSession(session.animal, session.label, session.start, session.rig, session.start_device_us, ended,
+                         events, raw, session.malformed, trial_rows, counts, water)
+
+
+def import_file(conn: sqlite3.Connection, path: Path, data: bytes, *, protocol_text: str, protocol_name: str,
+                protocol_version: int, animal: str | None = None, mapping: Any = None,
+                mapping_text: str | None = None, gap_s: float = GAP_S) -> Imported:
+    """Store one file's sessions in the caller's transaction (BEGIN IMMEDIATE); see the module rule."""
+    refuse_if_imported(conn, path, file_digest(data))
+    parsed = parse_file(path, data, protocol_text=protocol_text, animal=animal, mapping=mapping, gap_s=gap_s,
+                        calibrations=rig_calibrations(conn))
+    return store_parsed(conn, parsed, protocol_text=protocol_text, protocol_name=protocol_name,
+                        protocol_version=protocol_version, mapping_text=mapping_text)
+
+
+def refuse_if_imported(conn: sqlite3.Connection, path: Path, digest: str) -> None:
+    """Raise ImportRefused when the same bytes were imported before."""
+    earlier = already_imported(conn, digest)
+    if earlier is not None:
+        when = datetime.fromtimestamp(earlier[1]).astimezone().isoformat(timespec="seconds")
+        raise ImportRefused(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
+                            "nothing was changed")
+
+
+def rig_calibrations(conn: sqlite3.Connection) -> dict[str, float]:
+    """Valve calibrations (µL per ms) of the store's rigs that have one."""
+    return dict(conn.execute("SELECT name, valve_ul_per_ms FROM rigs WHERE valve_ul_per_ms IS NOT NULL"))
+
+
+def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text: str, protocol_name: str,
+                 protocol_version: int, mapping_text: str | None = None) -> Imported:
+    """Store a parsed file in the caller's transaction: its import row, sessions, events, raw lines, trials."""
+    refuse_if_imported(conn, Path(parsed.path), parsed.digest)
+    sessions = parsed.sessions
+    total_events = sum(len(s.events) for s in sessions)
     total_malformed = sum(s.malformed for s in sessions)
     import_id = conn.execute(
         "INSERT INTO imports (path, sha256, size, format, mapping_text, imported_at, sessions, events, malformed) "
         "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-        (str(path), digest, len(data), "wire" if mapping is None else "mapped", mapping_text, now, len(sessions),
-         total_events, total_malformed)).lastrowid
+        (parsed.path, parsed.digest, parsed.size, "mapped" if parsed.mapped else "wire", mapping_text, time.time(),
+         len(sessions), total_events, total_malformed)).lastrowid
     protocol_id = ensure_protocol(conn, protocol_name, protocol_version, protocol_text)
     codes = dict(conn.execute("SELECT name, code FROM event_codes"))
     trials = 0
     for session in sessions:
         trials += _store_session(conn, session, import_id, protocol_id, protocol_name, protocol_version,
                                  protocol_text, codes)
-    if splitter.notices and sessions:
+    if parsed.notices and sessions:
         first = conn.execute("SELECT min(id) FROM sessions WHERE import_id = ?", (import_id,)).fetchone()[0]
         conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
-                         "VALUES (?, NULL, NULL, 'notice', ?, NULL)", [(first, n) for n in splitter.notices])
-    return Imported(str(path), len(sessions), total_events, total_malformed, trials,
-                    tuple(s.label for s in sessions), tuple(splitter.notices),
+                         "VALUES (?, NULL, NULL, 'notice', ?, NULL)", [(first, n) for n in parsed.notices])
+    return Imported(parsed.path, len(sessions), total_events, total_malformed, trials,
+                    tuple(s.label for s in sessions), tuple(parsed.notices),
                     tuple(sorted({s.animal for s in sessions})))
 
 
@@ -269,39 +351,30 @@ def _code(conn: sqlite3.Connection, codes: dict[str, int], name: str) -> int:
     return code
 
 
-def _store_session(conn: sqlite3.Connection, session: _Session, import_id: int, protocol_id: int,
+def _store_session(conn: sqlite3.Connection, session: ParsedSession, import_id: int, protocol_id: int,
                    protocol_name: str, protocol_version: int, protocol_text: str, codes: dict[str, int]) -> int:
-    assert session.start is not None
     animal_id = ensure_animal(conn, session.animal)
-    ended = session.last_wall.timestamp() if session.last_wall is not None else None
     session_id = conn.execute(
         "INSERT INTO sessions (source_id, animal, rig, protocol_name, protocol_version, protocol_text, started_at, "
         "ended_at, start_wall, animal_id, protocol_id, import_id, label, start_device_us) VALUES (NULL, ?, ?, ?, ?, "
         "?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (session.animal, session.rig or "import", protocol_name, protocol_version, protocol_text,
-         session.start.timestamp(), ended, session.start.isoformat(timespec="seconds"), animal_id, protocol_id,
-         import_id, session.label, session.start_device_us)).lastrowid
-    events, raw = [], []
-    for r in session.records:
-        kind = type(r)
-        if kind is Event:
-            events.append((session_id, r.segment, r.line, r.t_us, r.raw_time, _code(conn, codes, r.name),
-                           " ".join(r.args) if r.args else None, r.wall_time))
-        elif kind is Malformed:
-            raw.append((session_id, r.line, r.offset, "malformed", r.reason, bytes(r.raw)))
-        elif kind is Header:
-            text = " ".join([f"# rigside-wire {r.version}", *(f"{k}={v}" for k, v in r.fields.items())])
-            raw.append((session_id, r.line, r.offset, "header", None, text.encode("ascii", "replace")))
-        elif kind is Comment:
-            raw.append((session_id, r.line, r.offset, "comment", None, r.text.encode("utf-8", "surrogateescape")))
+         session.start.timestamp(), session.ended_at, session.start.isoformat(timespec="seconds"), animal_id,
+         protocol_id, import_id, session.label, session.start_device_us)).lastrowid
+    events = [(session_id, segment, line, t_us, raw_time, codes[name] if name in codes else _code(conn, codes, name),
+               value, wall) for segment, line, t_us, raw_time, name, value, wall in session.events]
     before = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
     conn.executemany("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
                      "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", events)
     after = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
-    if raw:
+    if session.raw:
         conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
-                         "VALUES (?, ?, ?, ?, ?, ?)", raw)
+                         "VALUES (?, ?, ?, ?, ?, ?)", [(session_id, *row) for row in session.raw])
     if events:
         conn.execute("UPDATE sessions SET first_event = ?, last_event = ? WHERE id = ?", (before + 1, after, session_id))
-    return rebuild_trials(conn, session_id, [r for r in session.records if type(r) is Event])
-
+    if session.trial_rows is None:
+        store_trials(conn, session_id, None, [], session.counts, None, session.malformed)
+        return 0
+    store_trials(conn, session_id, protocol_id, session.trial_rows, session.counts, session.water_ul,
+                 session.malformed)
+    return len(session.trial_rows)

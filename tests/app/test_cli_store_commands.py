@@ -304,3 +304,53 @@ def test_full_disk_during_import_stores_nothing_and_says_so(tmp_path, capsys, hi
     assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == 1
     conn.close()
     assert import_animal(capsys, db, out, "alder")[0] == 0  # with space again, the same files import
+
+
+def test_files_read_in_worker_processes_store_the_same_rows(tmp_path, capsys, history):
+    """--jobs 2 (files parsed in spawned processes, stored here in order) gives row for row the store
+    that --jobs 1 gives: events, raw lines, trials, trial builds and the report."""
+    out, _ = history
+    tables = {"events": "session_id, segment, line, t_us, raw_time, code, value, wall",
+              "raw_lines": "session_id, line, byte_offset, kind, reason, raw",
+              "trials": "session_id, idx, t_us, interval_ms, outcome, rewarded, computed_outcome",
+              "trial_builds": "session_id, trials, counts, water_ul, malformed"}
+    seen = []
+    for jobs in ("1", "2"):
+        db = tmp_path / f"jobs{jobs}.sqlite"
+        code, _, err = import_animal(capsys, db, out, "alder", "--no-fit", "--jobs", jobs)
+        assert code == 0, err
+        with sqlite3.connect(db) as conn:
+            rows = {t: conn.execute(f"SELECT {cols} FROM {t} ORDER BY {cols}").fetchall() for t, cols in tables.items()}
+        report = run_cli(capsys, "report", "--db", db, "--json")[1]
+        seen.append((rows, json.loads(report)))
+    assert seen[0][0]["events"] and seen[0][0]["trials"]
+    assert seen[0] == seen[1]
+
+
+def test_ctrl_c_during_import_keeps_finished_files_and_names_them(tmp_path, capsys, history, monkeypatch):
+    """Ctrl-C while the third file is being stored: that file is rolled back, the two before it stay,
+    exit 130 and one line naming how far it got; no traceback."""
+    import monitor.store.importer as importer
+
+    out, _ = history
+    real = importer.store_parsed
+    calls = []
+
+    def interrupted_on_third(conn, parsed, **kwargs):
+        calls.append(parsed.path)
+        result = real(conn, parsed, **kwargs)
+        if len(calls) == 3:
+            raise KeyboardInterrupt
+        return result
+
+    monkeypatch.setattr(importer, "store_parsed", interrupted_on_third)
+    db = tmp_path / "cut.sqlite"
+    code, _, err = import_animal(capsys, db, out, "alder", "--no-fit", "--jobs", "1")
+    files = sorted(out.glob("alder_s*.rsw"))
+    assert code == 130 and "Traceback" not in err
+    assert err.strip().splitlines()[-1].startswith(f"interrupted: 2 of {len(files)} files imported "
+                                                   f"(the last: {files[1].name})")
+    with sqlite3.connect(db) as conn:
+        assert [Path(p).name for (p,) in conn.execute("SELECT path FROM imports ORDER BY id")] == \
+            [f.name for f in files[:2]]
+        assert conn.execute("SELECT count(DISTINCT session_id) FROM events").fetchone()[0] == 2

@@ -4,27 +4,33 @@ Rule: every file is checked before anything is stored: each must be readable,
 and none may have been imported before (the same bytes, by SHA-256, under
 any name) or be given twice; otherwise one line names the file and exit 2.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
-file or none of it) with its trials derived; while another process holds the
+file or none of it) with its trials derived. Files are read, split and
+their trials derived in worker processes (`--jobs`, one per core) while
+this process stores them in the order given. While another process holds the
 write lock the import waits up to `--wait` seconds instead of failing. Then
 each imported animal's report entry is built once and cached, and (unless
 `--no-fit`) its consolidation model is refitted in a separate process and
 cached (monitor.store.consolidation_fits), one stderr line per animal. One
 progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1 session,
-5123 events, 0 malformed, 402 attempts`), a summary line to stdout. Sessions,
+5123 events, 0 malformed, 402 attempts`) below a progress bar on a terminal
+(not with `--quiet`), a summary line to stdout. Sessions,
 animals and times: monitor.store.importer and docs/store.md.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
+from typing import Any, Iterator
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
 
 WAIT_S = 60.0
+PARALLEL_BYTES = 4_000_000  # with --jobs 0, files adding up to less than this are read in this process
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -39,6 +45,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help=f"seconds to wait while another process writes the database (default {WAIT_S:g})")
     parser.add_argument("--no-fit", action="store_true",
                         help="skip refitting the consolidation model (the report then says \"not fitted\")")
+    parser.add_argument("--jobs", type=int, default=0,
+                        help="processes that read files side by side (default 0: one per core when the files add up "
+                             "to a few MB, else this process alone)")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -48,13 +58,16 @@ def run(args: argparse.Namespace) -> int:
 
     from monitor.app.commands.record import _read_protocol
     from monitor.store.db import StoreError, open_store
-    from monitor.store.importer import ImportRefused, already_imported, file_digest, import_file
+    from monitor.app.progress import Progress
+    from monitor.store.importer import ImportRefused, already_imported, file_digest, rig_calibrations, store_parsed
     from monitor.store.reporting import refresh_cache
 
     if not args.gap_hours > 0:
         raise UsageError(f"--gap-hours: must be above 0, got {args.gap_hours:g}")
     if not args.wait >= 0:
         raise UsageError(f"--wait: must be 0 or more, got {args.wait:g}")
+    if args.jobs < 0:
+        raise UsageError(f"--jobs: must be 0 (one per core) or more, got {args.jobs}")
     protocol = _read_protocol(args.protocol)
     mapping = mapping_text = None
     if args.mapping is not None:
@@ -97,27 +110,34 @@ def run(args: argparse.Namespace) -> int:
         started = time.monotonic()
         animals: set[str] = set()
         totals = [0, 0, 0, 0]
-        for number, (path, data) in enumerate(contents, start=1):
-            conn.execute("BEGIN IMMEDIATE")
+        parsed_files = _parse_all(contents, protocol["text"], args.animal, mapping, args.gap_hours * 3600.0,
+                                  rig_calibrations(conn), args.jobs)
+        interrupted = False
+        with Progress(len(contents), "file", "importing", quiet=args.quiet) as progress:
             try:
-                result = import_file(conn, path, data, protocol_text=protocol["text"],
-                                     protocol_name=protocol["name"], protocol_version=protocol["version"],
-                                     animal=args.animal, mapping=mapping, mapping_text=mapping_text,
-                                     gap_s=args.gap_hours * 3600.0)
-                conn.execute("COMMIT")
-            except BaseException:
-                if conn.in_transaction:
-                    conn.execute("ROLLBACK")
-                raise
-            imported += 1
-            animals.update(result.animals)
-            for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
-                totals[i] += value
-            print(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
-                  f"{result.events} events, {result.malformed} malformed, {result.trials} attempts", file=sys.stderr)
-            for notice in result.notices:
-                print(f"  {path.name}: {notice}", file=sys.stderr)
-        for animal in sorted(animals):  # the report's plateau rules cost ~1 s per animal: done once here
+                for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
+                    conn.execute("BEGIN IMMEDIATE")
+                    try:
+                        result = store_parsed(conn, parsed, protocol_text=protocol["text"],
+                                              protocol_name=protocol["name"], protocol_version=protocol["version"],
+                                              mapping_text=mapping_text)
+                        conn.execute("COMMIT")
+                    except BaseException:
+                        if conn.in_transaction:
+                            conn.execute("ROLLBACK")
+                        raise
+                    imported += 1
+                    progress.advance()
+                    animals.update(result.animals)
+                    for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
+                        totals[i] += value
+                    progress.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
+                                 f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
+                    for notice in result.notices:
+                        progress.say(f"  {path.name}: {notice}")
+            except KeyboardInterrupt:  # Ctrl-C: the file being stored was rolled back, the finished ones stay
+                interrupted = True
+        for animal in sorted(animals):  # the report entry is built once per animal, after its files
             conn.execute("BEGIN IMMEDIATE")
             try:
                 refresh_cache(conn, animal)
@@ -136,11 +156,47 @@ def run(args: argparse.Namespace) -> int:
                          "imported, the rest not)") from None
     finally:
         conn.close()
+    if interrupted:
+        rest = len(contents) - imported
+        last = f" (the last: {contents[imported - 1][0].name})" if imported else ""
+        print(f"interrupted: {imported} of {len(contents)} files imported{last}; the other {rest} were not touched "
+              "and can be imported by the same command with only those files", file=sys.stderr)
+        return 130
     if not args.no_fit:
         _refit(resolve_db(args.db), sorted(animals))
     print(f"imported {len(contents)} files: {_n(totals[0], 'session')}, {totals[1]} events, {totals[2]} malformed "
           f"lines, {totals[3]} attempts (trials, lone, premature, omitted) in {time.monotonic() - started:.1f} s")
     return 0
+
+
+def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: str | None, mapping: Any,
+               gap_s: float, calibrations: dict[str, float], jobs: int) -> Iterator[Any]:
+    """Each file parsed (decoded, split, trials derived), in the order given.
+
+    Several files are parsed side by side in worker processes (`jobs`, 0 = one per core) while this
+    process stores the ones already parsed; a single file, or one job, is parsed here."""
+    from monitor.store.importer import parse_file
+
+    options = {"protocol_text": protocol_text, "animal": animal, "mapping": mapping, "gap_s": gap_s,
+               "calibrations": calibrations}
+    if jobs == 0:  # a worker costs about half a second to start: worth it only for a few MB of files
+        jobs = os.cpu_count() or 1 if sum(len(data) for _, data in contents) >= PARALLEL_BYTES else 1
+    jobs = min(jobs, len(contents))
+    if jobs <= 1:
+        for path, data in contents:
+            yield parse_file(path, data, **options)
+        return
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn")) as pool:
+        futures = [pool.submit(parse_file, path, data, **options) for path, data in contents]
+        try:
+            for future in futures:
+                yield future.result()
+        finally:
+            for future in futures:
+                future.cancel()
 
 
 def _refit(db: Path, animals: list[str]) -> None:
