@@ -27,12 +27,12 @@ from datetime import date, datetime, timedelta
 from pathlib import Path
 from typing import Any, NamedTuple, Sequence
 
-from monitor.core.assignment import BlindingKey
-from monitor.core.care import CARE_SHEET_COLUMNS, CareConfig, DaySummary, care_sheet
-from monitor.core.decision_log import LogEntry, new_decision
-from monitor.core.eligibility import EligibilityRule
-from monitor.core.eligibility_figures import AnimalFigures
-from monitor.core.eligibility_verdict import Verdict
+from monitor.core.eligibility.assignment import BlindingKey
+from monitor.core.care.ledger import CARE_SHEET_COLUMNS, CareConfig, DaySummary, care_sheet
+from monitor.core.eligibility.decision_log import LogEntry, new_decision
+from monitor.core.eligibility.rules import EligibilityRule
+from monitor.core.eligibility.figures import AnimalFigures
+from monitor.core.eligibility.verdict import Verdict
 
 NO_RULE = "no eligibility rule"
 CARE_CAUTION = ("Advisory figures: the approved animal-use protocol, the animal-care committee and the veterinarian "
@@ -63,9 +63,9 @@ class Judgement(NamedTuple):
 def judge(conn: sqlite3.Connection, animal: str) -> Judgement | None:
     """The figures and verdict as of the animal's latest session; None when it has no session with a protocol."""
     from drivers.config import ConfigError, TomlFile
-    from monitor.core.eligibility import parse_eligibility
-    from monitor.core.eligibility_report import figures_from_report
-    from monitor.core.eligibility_verdict import evaluate
+    from monitor.core.eligibility.rules import parse_eligibility
+    from monitor.core.eligibility.from_report import figures_from_report
+    from monitor.core.eligibility.verdict import evaluate
     from monitor.store.derive import protocol_of
     from monitor.store.reporting import animal_entry
 

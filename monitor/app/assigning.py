@@ -22,8 +22,8 @@ from datetime import datetime
 from typing import NamedTuple, Sequence
 
 from monitor.app.animal_records import Judgement, record_decision
-from monitor.core.assignment import BLOCKS_METHOD, COHORT_METHOD, assign_cohort, assign_next, new_seed
-from monitor.core.decision_log import LogEntry
+from monitor.core.eligibility.assignment import BLOCKS_METHOD, COHORT_METHOD, assign_cohort, assign_next, new_seed
+from monitor.core.eligibility.decision_log import LogEntry
 from monitor.store.plans import Plan, add_plan, drawn_animals, find_plan
 
 RULE_WORD = {BLOCKS_METHOD: "blocks", COHORT_METHOD: "cohort"}   # the `[eligibility] assignment` word

@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from scipy.optimize import curve_fit
 from scipy.stats import linregress
 
-from monitor.core.plateau import (
+from monitor.core.session.plateau import (
     change_points,
     fit_exponential,
     fraction_point,
@@ -23,8 +23,8 @@ from monitor.core.plateau import (
     state_space_curve,
 )
 from monitor.core.protocol import parse_protocol
-from monitor.core.sessions import SessionInput, learning_curve
-from monitor.core.trials import Trial
+from monitor.core.session.summary import SessionInput, learning_curve
+from monitor.core.session.trials import Trial
 
 # REFERENCES.md, Gallistel, Fairhurst & Balsam 2004 check values [checked with an independent port]
 STEP = [0] * 30 + [1] * 30
@@ -282,7 +282,7 @@ def brute_candidates(series, origin=0):
 @settings(max_examples=200, deadline=None)
 @given(st.lists(st.booleans(), min_size=2, max_size=120), st.integers(0, 5))
 def test_hull_candidates_equal_the_literal_rule(series, origin):
-    from monitor.core.plateau import _RecordHull
+    from monitor.core.session.plateau import _RecordHull
 
     origin = min(origin, len(series) - 1)
     cum = [0] + np.cumsum(series, dtype=int).tolist()
@@ -301,7 +301,7 @@ def test_posterior_mode_equals_brentq(prior_var, hits, total, chance):
     scipy.optimize.brentq finds for the same equation; plain Newton went astray on large blocks."""
     from scipy.optimize import brentq
 
-    from monitor.core.plateau import _logistic, _posterior_mode
+    from monitor.core.session.plateau import _logistic, _posterior_mode
 
     mu, state = math.log(chance / (1 - chance)), 0.3
 
