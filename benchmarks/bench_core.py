@@ -18,11 +18,11 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from drivers.wire import Event, decode_all, encode_event
-from monitor.core.binomial import wilson
+from monitor.core.session.binomial import wilson
 from monitor.core.protocol import parse_protocol
-from monitor.core.report import SessionData, animal_report
-from monitor.core.stats import LiveSession
-from monitor.core.trials import build_trials
+from monitor.core.session.animal_report import SessionData, animal_report
+from monitor.core.session.live_stats import LiveSession
+from monitor.core.session.trials import build_trials
 
 PROTOCOL = """
 [protocol]

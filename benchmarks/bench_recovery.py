@@ -21,8 +21,8 @@ from collections import Counter
 import numpy as np
 
 from mock_rig.learner import OUTCOME_DRIVEN, Learner, LearnerParams, draw_params
-from monitor.core.consolidation import Options, estimate_consolidation
-from monitor.core.consolidation_model import TrialSeries
+from monitor.core.consolidation.analysis import Options, estimate_consolidation
+from monitor.core.consolidation.model import TrialSeries
 
 TARGET_MS = 650.0
 TOLERANCE = 0.2

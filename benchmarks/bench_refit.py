@@ -32,10 +32,10 @@ from dataclasses import dataclass  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-from monitor.core.consolidation import estimate_consolidation  # noqa: E402
-from monitor.core.consolidation_fit import default_starts, fit_model  # noqa: E402
-from monitor.core.consolidation_live import live_filter  # noqa: E402
-from monitor.core.consolidation_model import (  # noqa: E402
+from monitor.core.consolidation.analysis import estimate_consolidation  # noqa: E402
+from monitor.core.consolidation.fit import default_starts, fit_model  # noqa: E402
+from monitor.core.consolidation.live import live_filter  # noqa: E402
+from monitor.core.consolidation.model import (  # noqa: E402
     TWO_RATE,
     TrialSeries,
     evaluate,

@@ -21,18 +21,18 @@ veterinarian decide.
 from __future__ import annotations
 
 import csv
-import sqlite3
 from dataclasses import replace
 from datetime import date, datetime, timedelta
 from pathlib import Path
 from typing import Any, NamedTuple, Sequence
 
-from monitor.core.assignment import BlindingKey
-from monitor.core.care import CARE_SHEET_COLUMNS, CareConfig, DaySummary, care_sheet
-from monitor.core.decision_log import LogEntry, new_decision
-from monitor.core.eligibility import EligibilityRule
-from monitor.core.eligibility_figures import AnimalFigures
-from monitor.core.eligibility_verdict import Verdict
+from monitor.core.eligibility.assignment import BlindingKey
+from monitor.core.care.ledger import CARE_SHEET_COLUMNS, CareConfig, DaySummary, care_sheet
+from monitor.core.eligibility.decision_log import LogEntry, new_decision
+from monitor.core.eligibility.rules import EligibilityRule
+from monitor.core.eligibility.figures import AnimalFigures
+from monitor.core.eligibility.verdict import Verdict
+from monitor.store.connection import Connection
 
 NO_RULE = "no eligibility rule"
 CARE_CAUTION = ("Advisory figures: the approved animal-use protocol, the animal-care committee and the veterinarian "
@@ -60,12 +60,12 @@ class Judgement(NamedTuple):
         return group if self.blinding is None else self.blinding.group_of(group)
 
 
-def judge(conn: sqlite3.Connection, animal: str) -> Judgement | None:
+def judge(conn: Connection, animal: str) -> Judgement | None:
     """The figures and verdict as of the animal's latest session; None when it has no session with a protocol."""
     from drivers.config import ConfigError, TomlFile
-    from monitor.core.eligibility import parse_eligibility
-    from monitor.core.eligibility_report import figures_from_report
-    from monitor.core.eligibility_verdict import evaluate
+    from monitor.core.eligibility.rules import parse_eligibility
+    from monitor.core.eligibility.from_report import figures_from_report
+    from monitor.core.eligibility.verdict import evaluate
     from monitor.store.derive import protocol_of
     from monitor.store.reporting import animal_entry
 
@@ -94,7 +94,7 @@ def judge(conn: sqlite3.Connection, animal: str) -> Judgement | None:
     return Judgement(figures, coded, evaluate(coded, figures), key)
 
 
-def _blinding(conn: sqlite3.Connection, rule: EligibilityRule) -> BlindingKey:
+def _blinding(conn: Connection, rule: EligibilityRule) -> BlindingKey:
     from monitor.app.blinding import BlindingError, cohort_key, database_path
 
     db = database_path(conn)
@@ -106,7 +106,7 @@ def _blinding(conn: sqlite3.Connection, rule: EligibilityRule) -> BlindingKey:
         raise RuleError(str(exc)) from None
 
 
-def record_decision(conn: sqlite3.Connection, judgement: Judgement, *, decision: str, operator: str, reason: str,
+def record_decision(conn: Connection, judgement: Judgement, *, decision: str, operator: str, reason: str,
                     group: str | None = None, group_code: str | None = None, blinded: bool = False,
                     planned_manipulation: str | None = None, planned_date: str | None = None,
                     assignment_method: str | None = None, assignment_seed: int | None = None,
@@ -133,7 +133,7 @@ def record_decision(conn: sqlite3.Connection, judgement: Judgement, *, decision:
     return append_decision(conn, entry)
 
 
-def care_day(conn: sqlite3.Connection, names: Sequence[str], day: date, config: CareConfig,
+def care_day(conn: Connection, names: Sequence[str], day: date, config: CareConfig,
              now: datetime) -> tuple[DaySummary, ...]:
     """Each named animal's care day (name order), judged at `now`; sessions older than a few days are skipped."""
     from monitor.store.care_log import animal_care

@@ -17,13 +17,13 @@ protocol, the animal-care committee and the veterinarian decide.
 
 from __future__ import annotations
 
-import sqlite3
 from datetime import datetime
 from typing import NamedTuple, Sequence
 
 from monitor.app.animal_records import Judgement, record_decision
-from monitor.core.assignment import BLOCKS_METHOD, COHORT_METHOD, assign_cohort, assign_next, new_seed
-from monitor.core.decision_log import LogEntry
+from monitor.core.eligibility.assignment import BLOCKS_METHOD, COHORT_METHOD, assign_cohort, assign_next, new_seed
+from monitor.core.eligibility.decision_log import LogEntry
+from monitor.store.connection import Connection
 from monitor.store.plans import Plan, add_plan, drawn_animals, find_plan
 
 RULE_WORD = {BLOCKS_METHOD: "blocks", COHORT_METHOD: "cohort"}   # the `[eligibility] assignment` word
@@ -45,7 +45,7 @@ class Draw(NamedTuple):
     blinded: bool
 
 
-def _plan(conn: sqlite3.Connection, j: Judgement) -> Plan:
+def _plan(conn: Connection, j: Judgement) -> Plan:
     """The cohort's plan, made and recorded now when it has none; AssignError when it cannot be used."""
     rule = j.rule
     if rule is None:
@@ -66,7 +66,7 @@ def _plan(conn: sqlite3.Connection, j: Judgement) -> Plan:
     return plan
 
 
-def _not_assigned(conn: sqlite3.Connection, animal: str) -> None:
+def _not_assigned(conn: Connection, animal: str) -> None:
     from monitor.store.decisions import entries
 
     done = [e for e in entries(conn, animal) if e.decision.decision == "assigned"]
@@ -76,7 +76,7 @@ def _not_assigned(conn: sqlite3.Connection, animal: str) -> None:
                           f"a correction is a new entry (rigside decide --corrects {done[-1].seq})")
 
 
-def draw_next(conn: sqlite3.Connection, j: Judgement) -> Draw:
+def draw_next(conn: Connection, j: Judgement) -> Draw:
     """The next animal's group under the cohort's blocks plan (the plan is recorded if new)."""
     animal = j.figures.animal
     _not_assigned(conn, animal)
@@ -89,7 +89,7 @@ def draw_next(conn: sqlite3.Connection, j: Judgement) -> Draw:
     return Draw(animal, plan.cohort, plan.method, plan.seed, position, group, plan.blinded)
 
 
-def record_draw(conn: sqlite3.Connection, j: Judgement, draw: Draw, *, operator: str, reason: str,
+def record_draw(conn: Connection, j: Judgement, draw: Draw, *, operator: str, reason: str,
                 planned_manipulation: str | None = None, planned_date: str | None = None) -> LogEntry:
     """Draw again inside this transaction and record it; AssignError if it is not the draw shown."""
     now = draw_next(conn, j)
@@ -101,7 +101,7 @@ def record_draw(conn: sqlite3.Connection, j: Judgement, draw: Draw, *, operator:
                            assignment_method=draw.method, assignment_seed=draw.seed)
 
 
-def assign_listed(conn: sqlite3.Connection, judgements: Sequence[Judgement], *, operator: str,
+def assign_listed(conn: Connection, judgements: Sequence[Judgement], *, operator: str,
                   reason: str) -> list[tuple[Draw, LogEntry]]:
     """Deal a listed set of a cohort's animals at once (cohort-sha256-v1) and record each."""
     cohorts = {j.rule.cohort_name if j.rule is not None else None for j in judgements}

@@ -1,6 +1,6 @@
 """Blinding keys: one secret per blinded cohort, in a key file beside the database, never in it.
 
-Rule: the secret behind a cohort's group codes (monitor.core.assignment
+Rule: the secret behind a cohort's group codes (monitor.core.eligibility.assignment
 `blinding_key`) is drawn once with `new_secret` the first time the cohort is
 judged, and written to `DB.blinding/COHORT-HASH.json` (folder 0700, file
 0600, created atomically: a second process reads the first one's file). It is
@@ -17,12 +17,12 @@ import hashlib
 import json
 import os
 import re
-import sqlite3
 from datetime import datetime
 from pathlib import Path
 from typing import Sequence
 
-from monitor.core.assignment import BlindingKey, blinding_key, new_secret
+from monitor.core.eligibility.assignment import BlindingKey, blinding_key, new_secret
+from monitor.store.connection import Connection
 
 KEY_FORMAT = "rigside blinding key 1"
 
@@ -31,7 +31,7 @@ class BlindingError(ValueError):
     """A blinding key that cannot be read, made, or does not fit the rule."""
 
 
-def database_path(conn: sqlite3.Connection) -> Path | None:
+def database_path(conn: Connection) -> Path | None:
     """The file behind the connection's main database (None for an in-memory one)."""
     for _, name, file in conn.execute("PRAGMA database_list"):
         if name == "main":

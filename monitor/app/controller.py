@@ -44,7 +44,7 @@ from monitor.app.pipeline import Fanout
 from monitor.app import views
 from monitor.core.alerts import AlertRules, plateau_alert, store_alert
 from monitor.core.protocol import Protocol, parse_protocol
-from monitor.core.stats import LiveSession
+from monitor.core.session.live_stats import LiveSession
 from monitor.store import db
 from monitor.store.writer import StoreWriter
 from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, RigSetup, TodayState

@@ -29,7 +29,7 @@ from pathlib import Path
 from drivers.wire import Event, Header, Malformed, decode_all
 from mock_rig import scenario
 from monitor.app import views
-from monitor.core.care import CareConfig
+from monitor.core.care.ledger import CareConfig
 from monitor.core.protocol import Protocol
 
 SECTIONS = {"today": 0, "curve": 1, "consolidation": 2, "sessions": 3}

@@ -33,10 +33,10 @@ from monitor.app.animal_records import Judgement, RuleError, care_day, care_line
 from monitor.app.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT, Raised
 from monitor.app.assigning import AssignError, Draw, draw_next, record_draw
-from monitor.core.assignment import BLOCKS_METHOD
-from monitor.core.care import CareConfig, DaySummary
-from monitor.core.decision_log import ChainCheck, LogEntry, rule_agrees
-from monitor.core.eligibility_verdict import Verdict, window_changes
+from monitor.core.eligibility.assignment import BLOCKS_METHOD
+from monitor.core.care.ledger import CareConfig, DaySummary
+from monitor.core.eligibility.decision_log import ChainCheck, LogEntry, rule_agrees
+from monitor.core.eligibility.verdict import Verdict, window_changes
 from monitor.store import db
 from monitor.ui.care_panel import CareEntry, CarePanel, CareRow, CareView, sheet_image
 from monitor.ui.decision_dialog import DECISIONS, DecisionDialog, DecisionRequest, DecisionView

@@ -31,8 +31,8 @@ from drivers.wire import Event, Malformed
 from monitor.app.pipeline import EngineBatch
 from monitor.core.alerts import LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
 from monitor.core.protocol import Protocol
-from monitor.core.rolling import RollingRate
-from monitor.core.stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot
+from monitor.core.session.rolling import RollingRate
+from monitor.core.session.live_stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot
 
 QUEUE_SIZE = 50_000   # batches; at 16 rigs this is minutes of backlog
 PUBLISH_S = 0.02      # snapshots at most 50 times a second per rig (the screen polls at ~20 Hz)

@@ -5,7 +5,7 @@ fitted session (monitor.store.consolidation_fits, "live"). When that
 animal's session runs, a copy of the filter starts the session with the break
 since the fitted session ended, and every completed trial of the protocol's
 final stage is fed to it once, in order: y = log(interval / target) and the
-rig's reward (monitor.core.consolidation_live, O(1) a trial). Trials come
+rig's reward (monitor.core.consolidation.live, O(1) a trial). Trials come
 from the engine's snapshot: its count of the stage's trials and the last
 intervals and outcomes it keeps; trials that arrived between two looks beyond
 what the snapshot keeps are counted as missed, and the text says so. The
@@ -21,8 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from monitor.core.consolidation_live import LiveFilter, LiveFraction, restore_filter
-from monitor.core.stats import LiveSnapshot
+from monitor.core.consolidation.live import LiveFilter, LiveFraction, restore_filter
+from monitor.core.session.live_stats import LiveSnapshot
 
 DEFAULT_BREAK_H = 23.0  # when the fitted session's end is unknown (as the fit itself assumes)
 

@@ -14,7 +14,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from monitor.core.care import CareConfig
+from monitor.core.care.ledger import CareConfig
 
 
 def default_settings_path() -> Path:
@@ -45,7 +45,7 @@ def care_config(path: Path | None) -> CareConfig:
     import tomllib
 
     from drivers.config import ConfigError, TomlFile
-    from monitor.core.care import parse_care
+    from monitor.core.care.ledger import parse_care
 
     try:
         doc = TomlFile(Path(path).read_text(encoding="utf-8"), str(path))

@@ -9,18 +9,18 @@ freed in time, is a `UsageError` naming `--db`, with nothing written.
 
 from __future__ import annotations
 
-import sqlite3
 from collections.abc import Callable
 from pathlib import Path
 from typing import TypeVar
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import resolve_db
+from monitor.store.connection import Busy, Connection
 
 T = TypeVar("T")
 
 
-def write_transaction(db: Path | None, wait_s: float, work: Callable[[sqlite3.Connection], T]) -> T:
+def write_transaction(db: Path | None, wait_s: float, work: Callable[[Connection], T]) -> T:
     """`work(conn)` in one write transaction of the store at `db` (the default store when None)."""
     from monitor.store.db import StoreError, open_store
 
@@ -39,7 +39,7 @@ def write_transaction(db: Path | None, wait_s: float, work: Callable[[sqlite3.Co
             if conn.in_transaction:
                 conn.execute("ROLLBACK")
             raise
-    except sqlite3.OperationalError as exc:
+    except Busy as exc:
         raise UsageError(f"--db: {path}: {exc} (waited {wait_s:g} s); nothing recorded") from None
     finally:
         conn.close()

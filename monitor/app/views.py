@@ -25,12 +25,12 @@ import numpy as np
 
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from monitor.app.engine import RigSnapshot
-from monitor.core.binomial import wilson
-from monitor.core.consolidation_model import TrialSeries
-from monitor.core.plateau import judge
+from monitor.core.session.binomial import wilson
+from monitor.core.consolidation.model import TrialSeries
+from monitor.core.session.plateau import judge
 from monitor.core.protocol import Protocol
-from monitor.core.sessions import BINARY_MEASURES, SessionInput, learning_curve, summarize
-from monitor.core.trials import Trial
+from monitor.core.session.summary import BINARY_MEASURES, SessionInput, learning_curve, summarize
+from monitor.core.session.trials import Trial
 from monitor.ui.models import (AnimalPageState, ConsolidationState, Connection, CurveState, HistogramData,
                                RigTileState, SessionRow, Severity, StartDrop, StatusState, StoreHealth, TodayState)
 
@@ -172,7 +172,7 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
     `fit` is the consolidation block of the store's cached fit (CONTRACTS.md section 5 with its
     "trajectory", "forecast" and "current"), or None: measures only.
     """
-    from monitor.core.consolidation_measures import since_plateau
+    from monitor.core.consolidation.measures import since_plateau
 
     inputs = [SessionInput(s.trials, s.start, s.malformed_lines, s.excluded, s.exclusion_reason, s.counts,
                            s.water_ul) for s in sessions]

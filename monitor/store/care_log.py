@@ -5,9 +5,9 @@ ISO 8601 time, who did it, and the amount (ml of a supplement, g of a
 weighing) or the text of a note; rows are only added. `animal_care` gathers an
 animal's records (the weight taken at each check-in counts as a weighing) and
 the water earned in each of its sessions
-(monitor.core.care_water over the stored events, with the rig's valve
-calibration and the protocol's reward size) into `monitor.core.care.AnimalCare`,
-so `day_summary` and `care_sheet` of monitor.core.care give the daily ledger
+(monitor.core.care.water over the stored events, with the rig's valve
+calibration and the protocol's reward size) into `monitor.core.care.ledger.AnimalCare`,
+so `day_summary` and `care_sheet` of monitor.core.care.ledger give the daily ledger
 and its alerts. Advisory: the approved protocol and the veterinarian decide.
 """
 
@@ -17,7 +17,7 @@ import sqlite3
 import time
 from datetime import datetime, timedelta
 
-from monitor.core.care import AnimalCare, CareConfig, HealthNote, Supplement, Weighing
+from monitor.core.care.ledger import AnimalCare, CareConfig, HealthNote, Supplement, Weighing
 from monitor.store.derive import protocol_of, session_events
 from monitor.store.records import RecordError, find_animal, valve_calibration
 
@@ -71,7 +71,7 @@ def add_note(conn: sqlite3.Connection, animal: str, *, at: str, by: str, text: s
 def animal_care(conn: sqlite3.Connection, animal: str, config: CareConfig,
                 since: datetime | None = None) -> AnimalCare:
     """Everything the care ledger needs for one animal, from the store (sessions started before `since` skipped)."""
-    from monitor.core.care_water import session_water
+    from monitor.core.care.water import session_water
 
     known = find_animal(conn, animal)
     if known is None:

@@ -34,8 +34,8 @@ from typing import Any
 
 import numpy as np
 
-from monitor.core.consolidation_model import TrialSeries
-from monitor.core.trials import Trial
+from monitor.core.consolidation.model import TrialSeries
+from monitor.core.session.trials import Trial
 from monitor.store.fits import FINISHED
 
 DEFAULT_BREAK_HOURS = 23.0
@@ -114,8 +114,8 @@ def refit_animal(db: str | Path | sqlite3.Connection, animal: str, progress: Pro
         if len(series.y) == 0:
             block = too_few_block(last, 0)
         else:
-            from monitor.core.consolidation import consolidation_block, estimate_consolidation
-            from monitor.core.consolidation_live import filter_state, live_filter
+            from monitor.core.consolidation.analysis import consolidation_block, estimate_consolidation
+            from monitor.core.consolidation.live import filter_state, live_filter
 
             warm = (cached or {}).get("params", {}).get("warm_start") or None
             result = estimate_consolidation(series, warm_start=warm, progress=progress, cancel=cancel)

@@ -1,4 +1,4 @@
-"""The decision log in the store: insert-only rows of the hash chain of monitor.core.decision_log.
+"""The decision log in the store: insert-only rows of the hash chain of monitor.core.eligibility.decision_log.
 
 Rule: an entry is appended in the caller's `BEGIN IMMEDIATE` transaction:
 the last entry (by insertion order) and, for a correction, the corrected one
@@ -16,7 +16,7 @@ from __future__ import annotations
 import sqlite3
 from typing import Sequence
 
-from monitor.core.decision_log import ChainCheck, Decision, Head, LogEntry, append, head, verify_chain
+from monitor.core.eligibility.decision_log import ChainCheck, Decision, Head, LogEntry, append, head, verify_chain
 
 # content field -> column (`group` is an SQL keyword)
 _COLUMNS = {"seq": "seq", "prev_hash": "prev_hash", "algorithm": "algorithm", "decision": "decision",

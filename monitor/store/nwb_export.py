@@ -9,7 +9,7 @@ and an events table `rig_events` (pynwb.event) with every event's word,
 value, clock segment, line and raw device counter. Times are seconds after
 `session_start_time` on the device clock: within a session, clock segments
 (board resets) continue from the last time seen, the same rule as the trial
-segmentation (monitor.core.trials). An excluded session is exported with its
+segmentation (monitor.core.session.trials). An excluded session is exported with its
 flag and reason in the session description and `notes`.
 """
 

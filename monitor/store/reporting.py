@@ -1,7 +1,7 @@
 """The report of CONTRACTS.md §5 from the store: stored trials in, plain JSON out.
 
 Rule: per animal, its sessions in time order (start, then id) are handed to
-`monitor.core.report.animal_report` as their stored trials (no event is
+`monitor.core.session.animal_report.animal_report` as their stored trials (no event is
 re-read, no model refitted), under the protocol of the animal's latest
 session; excluded sessions are listed, flagged, and left out of the curve by
 the core (a session recorded live whose trials were not derived yet is
@@ -76,7 +76,7 @@ def refresh_cache(conn: sqlite3.Connection, animal: str) -> None:
 
 def build_entry(conn: sqlite3.Connection, animal: str) -> dict[str, Any] | None:
     """The entry computed from the stored trials, without `consolidation`."""
-    from monitor.core.report import SessionData, animal_report
+    from monitor.core.session.animal_report import SessionData, animal_report
 
     rows = conn.execute(
         "SELECT s.id, s.start_wall, s.excluded, coalesce(s.exclusion_reason, ''), s.protocol_text, "

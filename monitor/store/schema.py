@@ -312,7 +312,7 @@ _NO_REPLAN = "an assignment plan is never changed: its seed was drawn once and r
 _V3 = (
     """CREATE TABLE assignment_plans (
         cohort TEXT PRIMARY KEY,        -- the eligibility rule's cohort (else the protocol's name)
-        method TEXT NOT NULL,           -- monitor.core.assignment: blocks-sha256-v1 | cohort-sha256-v1
+        method TEXT NOT NULL,           -- monitor.core.eligibility.assignment: blocks-sha256-v1 | cohort-sha256-v1
         seed INTEGER NOT NULL,          -- drawn once with new_seed()
         groups TEXT NOT NULL,           -- JSON list of the rule's group names, in the rule's order
         per_block INTEGER NOT NULL CHECK (per_block >= 1),

@@ -13,12 +13,12 @@ from monitor.app import cli
 from monitor.app.controller import Controller
 from monitor.app.eligibility_care import CLEARED_BY, care_row, decision_view
 from monitor.app.animal_records import Judgement
-from monitor.core.assignment import blinding_key
-from monitor.core.care import AnimalCare, CareConfig, Weighing, day_summary
-from monitor.core.care_water import session_water
-from monitor.core.eligibility import parse_eligibility
-from monitor.core.eligibility_figures import AnimalFigures
-from monitor.core.eligibility_verdict import evaluate
+from monitor.core.eligibility.assignment import blinding_key
+from monitor.core.care.ledger import AnimalCare, CareConfig, Weighing, day_summary
+from monitor.core.care.water import session_water
+from monitor.core.eligibility.rules import parse_eligibility
+from monitor.core.eligibility.figures import AnimalFigures
+from monitor.core.eligibility.verdict import evaluate
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
 from monitor.store.writer import StoreWriter

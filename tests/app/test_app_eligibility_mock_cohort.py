@@ -20,9 +20,9 @@ import pytest
 from drivers.config import TomlFile
 from mock_rig.demo import STAGES, prepare_demo
 from monitor.app.cli import main
-from monitor.core.eligibility import parse_eligibility
-from monitor.core.eligibility_report import figures_from_report
-from monitor.core.eligibility_verdict import IN_WINDOW, TRAINING, WINDOW_PASSED, evaluate
+from monitor.core.eligibility.rules import parse_eligibility
+from monitor.core.eligibility.from_report import figures_from_report
+from monitor.core.eligibility.verdict import IN_WINDOW, TRAINING, WINDOW_PASSED, evaluate
 
 RULE = """
 [eligibility]

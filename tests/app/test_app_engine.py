@@ -13,7 +13,7 @@ from drivers.wire import Event, WireDecoder, encode_event
 from monitor.app.engine import Engine, SessionPlan, link_of
 from monitor.app.pipeline import Fanout
 from monitor.core.protocol import parse_protocol
-from monitor.core.trials import build_trials
+from monitor.core.session.trials import build_trials
 
 PROTOCOL = parse_protocol("""
 [protocol]

@@ -12,8 +12,8 @@ import pytest
 
 from drivers.wire import decode_all
 from monitor.app.live_fraction import LiveFractions, live_text
-from monitor.core.consolidation_live import LiveSetup, LiveFilter, filter_state, restore_filter
-from monitor.core.stats import LiveSession
+from monitor.core.consolidation.live import LiveSetup, LiveFilter, filter_state, restore_filter
+from monitor.core.session.live_stats import LiveSession
 
 # the engine tests' two-press session of our own and their protocol (the same segmentation as the engine)
 _spec = spec_from_file_location("engine_streams_lf", Path(__file__).with_name("test_app_engine.py"))

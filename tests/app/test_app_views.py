@@ -13,7 +13,7 @@ from drivers.status import CONNECTED, LOST, READING, SILENT, STOPPED, WAITING, S
 from drivers.wire import Event, WireDecoder
 from monitor.app import views
 from monitor.app.engine import Engine, SessionPlan
-from monitor.core.trials import build_trials
+from monitor.core.session.trials import build_trials
 from monitor.ui.models import Connection, Severity, StoreHealth
 
 spec = importlib.util.spec_from_file_location("app_engine_streams", __file__.replace("test_app_views",

@@ -10,7 +10,7 @@ from collections import Counter
 import pytest
 from scipy.stats import chisquare
 
-from monitor.core.assignment import (BLOCKS_METHOD, COHORT_METHOD, assign_cohort, assign_next, block_sequence,
+from monitor.core.eligibility.assignment import (BLOCKS_METHOD, COHORT_METHOD, assign_cohort, assign_next, block_sequence,
                                      blinding_key, new_seed)
 
 ANIMALS = [f"rat{n:02d}" for n in range(1, 12)]

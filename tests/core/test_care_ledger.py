@@ -12,10 +12,10 @@ import pytest
 
 from drivers.config import ConfigError, TomlFile
 from drivers.wire import Event, decode_all, encode_event, encode_header
-from monitor.core.care import (ALERT, CARE_SHEET_COLUMNS, NOTICE, WARNING, AnimalCare, CareConfig, HealthNote,
+from monitor.core.care.ledger import (ALERT, CARE_SHEET_COLUMNS, NOTICE, WARNING, AnimalCare, CareConfig, HealthNote,
                                Supplement, Weighing, care_sheet, daily_minimum_ml, day_summary, parse_care,
                                percent_of_baseline)
-from monitor.core.care_water import session_water
+from monitor.core.care.water import session_water
 
 CET = timezone(timedelta(hours=1))
 DAY = date(2026, 3, 2)

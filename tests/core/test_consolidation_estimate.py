@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from monitor.core.consolidation import Options, consolidation_block, estimate_consolidation
-from monitor.core.consolidation_model import TrialSeries, simulate
+from monitor.core.consolidation.analysis import Options, consolidation_block, estimate_consolidation
+from monitor.core.consolidation.model import TrialSeries, simulate
 
 FAST = Options(starts=2, draws=16, state_draws=16)
 TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}

@@ -9,9 +9,9 @@ import pytest
 from scipy.differentiate import jacobian
 from scipy.optimize import approx_fprime
 
-from monitor.core.consolidation_fit import default_starts
-from monitor.core.kalman import Layout, pad
-from monitor.core.consolidation_model import (
+from monitor.core.consolidation.fit import default_starts
+from monitor.core.consolidation.kalman import Layout, pad
+from monitor.core.consolidation.model import (
     ONE_RATE,
     TWO_RATE,
     evaluate,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from monitor.core.kalman import (
+from monitor.core.consolidation.kalman import (
     Layout,
     StateSpace,
     chain_solve,

@@ -7,10 +7,10 @@ import json
 import numpy as np
 import pytest
 
-from monitor.core.consolidation import ConsolidationResult, Options, SessionEstimate, consolidation_block, estimate_consolidation
-from monitor.core.consolidation_fit import ModelFit
-from monitor.core.consolidation_live import LiveFilter, LiveSetup, filter_state, live_filter, restore_filter
-from monitor.core.consolidation_model import TWO_RATE, TrialSeries, evaluate, prepare, simulate, to_theta
+from monitor.core.consolidation.analysis import ConsolidationResult, Options, SessionEstimate, consolidation_block, estimate_consolidation
+from monitor.core.consolidation.fit import ModelFit
+from monitor.core.consolidation.live import LiveFilter, LiveSetup, filter_state, live_filter, restore_filter
+from monitor.core.consolidation.model import TWO_RATE, TrialSeries, evaluate, prepare, simulate, to_theta
 
 TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
 

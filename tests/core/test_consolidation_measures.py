@@ -5,14 +5,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from monitor.core.consolidation_measures import (
+from monitor.core.consolidation.measures import (
     outcome_sensitivity,
     session_summaries,
     since_plateau,
     start_drops,
     trend,
 )
-from monitor.core.consolidation_model import TrialSeries
+from monitor.core.consolidation.model import TrialSeries
 
 
 def _series(excluded=(False, False, False)) -> TrialSeries:

@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from monitor.core.consolidation_estimate import _quantiles_with_undefined, session_map
-from monitor.core.consolidation_model import RANGES, TWO_RATE, TrialSeries, prepare, to_natural, to_theta
-from monitor.core.kalman import StateSpace
+from monitor.core.consolidation.estimate import _quantiles_with_undefined, session_map
+from monitor.core.consolidation.model import RANGES, TWO_RATE, TrialSeries, prepare, to_natural, to_theta
+from monitor.core.consolidation.kalman import StateSpace
 
 # Smith, Ghazizadeh & Shadmehr 2006 parameters (REFERENCES.md, [memory])
 A_F, B_F, A_S, B_S = 0.92, 0.03, 0.996, 0.004

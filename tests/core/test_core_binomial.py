@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from scipy.stats import binomtest
 from statsmodels.stats.proportion import proportion_confint
 
-from monitor.core.binomial import clopper_pearson, wilson
+from monitor.core.session.binomial import clopper_pearson, wilson
 
 # ../shared/REFERENCES.md, "Binomial intervals for rolling hit rates" [checked: scipy 1.17.1, statsmodels 0.15.0]
 TABLE = [
@@ -57,8 +57,8 @@ def test_no_trials_and_bad_input():
 
 def test_live_path_does_not_import_scipy():
     # the recorder and the live view must start without paying scipy's import (STACK-NOTES.md: ~2 s)
-    code = ("import sys; from monitor.core.binomial import wilson; wilson(3, 10); "
-            "import monitor.core.report, monitor.core.plateau, monitor.core.stats, monitor.core.trials; "
+    code = ("import sys; from monitor.core.session.binomial import wilson; wilson(3, 10); "
+            "import monitor.core.session.animal_report, monitor.core.session.plateau, monitor.core.session.live_stats, monitor.core.session.trials; "
             "print('scipy' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "False"

@@ -9,8 +9,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from monitor.core.histogram import Histogram, IntervalHistograms, linear_edges, log_edges
-from monitor.core.rolling import RollingRate, RunningMedian, RunningMoments, WindowMedian
+from monitor.core.session.histogram import Histogram, IntervalHistograms, linear_edges, log_edges
+from monitor.core.session.rolling import RollingRate, RunningMedian, RunningMoments, WindowMedian
 
 values = st.lists(st.one_of(st.floats(-100, 3000, allow_nan=False), st.sampled_from([0.0, 50.0, 2000.0, 1250.0])),
                   max_size=300)

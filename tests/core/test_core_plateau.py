@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from scipy.optimize import curve_fit
 from scipy.stats import linregress
 
-from monitor.core.plateau import (
+from monitor.core.session.plateau import (
     change_points,
     fit_exponential,
     fraction_point,
@@ -23,8 +23,8 @@ from monitor.core.plateau import (
     state_space_curve,
 )
 from monitor.core.protocol import parse_protocol
-from monitor.core.sessions import SessionInput, learning_curve
-from monitor.core.trials import Trial
+from monitor.core.session.summary import SessionInput, learning_curve
+from monitor.core.session.trials import Trial
 
 # REFERENCES.md, Gallistel, Fairhurst & Balsam 2004 check values [checked with an independent port]
 STEP = [0] * 30 + [1] * 30
@@ -282,7 +282,7 @@ def brute_candidates(series, origin=0):
 @settings(max_examples=200, deadline=None)
 @given(st.lists(st.booleans(), min_size=2, max_size=120), st.integers(0, 5))
 def test_hull_candidates_equal_the_literal_rule(series, origin):
-    from monitor.core.plateau import _RecordHull
+    from monitor.core.session.plateau import _RecordHull
 
     origin = min(origin, len(series) - 1)
     cum = [0] + np.cumsum(series, dtype=int).tolist()
@@ -301,7 +301,7 @@ def test_posterior_mode_equals_brentq(prior_var, hits, total, chance):
     scipy.optimize.brentq finds for the same equation; plain Newton went astray on large blocks."""
     from scipy.optimize import brentq
 
-    from monitor.core.plateau import _logistic, _posterior_mode
+    from monitor.core.session.plateau import _logistic, _posterior_mode
 
     mu, state = math.log(chance / (1 - chance)), 0.3
 
@@ -327,7 +327,7 @@ def test_posterior_mode_from_any_start_equals_brentq(start_offset):
     and a step that converges onto a bracket end ends the search instead of bisecting again."""
     from scipy.optimize import brentq
 
-    from monitor.core.plateau import _logistic, _posterior_mode
+    from monitor.core.session.plateau import _logistic, _posterior_mode
 
     mu, state, prior_var, hits, total = math.log(0.1 / 0.9), 1.0, 0.087, 2.0, 2
     root = brentq(lambda x: x - state - prior_var * (hits - total * _logistic(mu + x)), -5, 5, xtol=1e-14)
@@ -340,7 +340,7 @@ def test_log_odds_equals_scipy_binomial():
     equals scipy.stats.binom's logcdf and logsf (reference library), k = 0 and k = n included."""
     from scipy.stats import binom
 
-    from monitor.core.plateau import LN10, _log_odds
+    from monitor.core.session.plateau import LN10, _log_odds
 
     rng = np.random.default_rng(3)
     n = rng.integers(1, 400, 500).astype(float)
@@ -360,7 +360,7 @@ def test_slope_interval_uses_student_t():
     and scipy.stats.t give it (reference library)."""
     from scipy.stats import t as student
 
-    from monitor.core.plateau import _slope
+    from monitor.core.session.plateau import _slope
 
     x = np.arange(1.0, 9.0)
     y = np.array([0.41, 0.45, 0.44, 0.52, 0.50, 0.55, 0.53, 0.58])
@@ -376,7 +376,7 @@ def test_accelerated_em_stops_at_the_em_fixed_point(seed):
     """SQUAREM (Varadhan & Roland 2008) only extrapolates EM's steps: at the variance it returns,
     one more plain EM pass of Smith et al. (2004) barely moves it, in far fewer passes than
     plain EM needs (hundreds on a series like this)."""
-    from monitor.core.plateau import _SmithEM
+    from monitor.core.session.plateau import _SmithEM
 
     rng = np.random.default_rng(seed)
     n = 3000

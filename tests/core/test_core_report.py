@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 
 from monitor.core.protocol import parse_protocol
-from monitor.core.report import SessionData, animal_report
-from monitor.core.sessions import SessionInput, summarize
-from monitor.core.trials import build_trials
+from monitor.core.session.animal_report import SessionData, animal_report
+from monitor.core.session.summary import SessionInput, summarize
+from monitor.core.session.trials import build_trials
 
 PROTOCOL = """
 [protocol]

@@ -9,10 +9,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from monitor.core.binomial import wilson
+from monitor.core.session.binomial import wilson
 from monitor.core.protocol import parse_protocol
-from monitor.core.sessions import figures
-from monitor.core.stats import LiveSession
+from monitor.core.session.summary import figures
+from monitor.core.session.live_stats import LiveSession
 
 PROTOCOL = """
 [protocol]

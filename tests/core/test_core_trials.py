@@ -9,7 +9,7 @@ from hypothesis import strategies as st
 
 from drivers.wire import Event, WireDecoder, decode_all
 from monitor.core.protocol import parse_protocol
-from monitor.core.trials import NOT_TRIALS, TrialBuilder, build_trials
+from monitor.core.session.trials import NOT_TRIALS, TrialBuilder, build_trials
 
 # BASIC: target 700 ms, tolerance 0.2 -> window [560, 840] ms, timeout 3000 ms
 

@@ -10,11 +10,11 @@ import json
 import pytest
 
 from drivers.config import TomlFile
-from monitor.core.decision_log import (DECISION_CSV_COLUMNS, GENESIS, Decision, Head, LogEntry, Snapshot, append,
+from monitor.core.eligibility.decision_log import (DECISION_CSV_COLUMNS, GENESIS, Decision, Head, LogEntry, Snapshot, append,
                                        canonical_json, digest, head, new_decision, verify_chain)
-from monitor.core.eligibility import parse_eligibility
-from monitor.core.eligibility_figures import AnimalFigures
-from monitor.core.eligibility_verdict import evaluate
+from monitor.core.eligibility.rules import parse_eligibility
+from monitor.core.eligibility.figures import AnimalFigures
+from monitor.core.eligibility.verdict import evaluate
 
 KEY = b"k" * 32
 RULE = parse_eligibility(*(lambda d: (d.data["eligibility"], d))(TomlFile(

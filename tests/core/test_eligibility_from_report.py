@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from monitor.core.eligibility import parse_eligibility
-from monitor.core.eligibility_figures import SessionForecast
-from monitor.core.eligibility_report import figures_from_report
-from monitor.core.eligibility_verdict import IN_WINDOW, REVIEW, evaluate
+from monitor.core.eligibility.rules import parse_eligibility
+from monitor.core.eligibility.figures import SessionForecast
+from monitor.core.eligibility.from_report import figures_from_report
+from monitor.core.eligibility.verdict import IN_WINDOW, REVIEW, evaluate
 
 RULE = parse_eligibility({"groups": {"early": {"max_sessions_since_plateau": 6, "max_interval_error": 0.2,
                                                "max_slow_fraction": 0.5}}})

@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from drivers.config import ConfigError, TomlFile
-from monitor.core.eligibility import parse_eligibility
+from monitor.core.eligibility.rules import parse_eligibility
 from monitor.core.protocol import parse_protocol
 
 DOCS = Path(__file__).resolve().parents[2] / "docs" / "eligibility.md"

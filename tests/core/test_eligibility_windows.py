@@ -10,9 +10,9 @@ from __future__ import annotations
 import pytest
 
 from drivers.config import TomlFile
-from monitor.core.eligibility import parse_eligibility
-from monitor.core.eligibility_figures import AnimalFigures, SessionForecast
-from monitor.core.eligibility_verdict import (IN_WINDOW, REVIEW, TRAINING, WAITING, WINDOW_PASSED, evaluate,
+from monitor.core.eligibility.rules import parse_eligibility
+from monitor.core.eligibility.figures import AnimalFigures, SessionForecast
+from monitor.core.eligibility.verdict import (IN_WINDOW, REVIEW, TRAINING, WAITING, WINDOW_PASSED, evaluate,
                                               window_changes)
 
 RULE_TEXT = """\

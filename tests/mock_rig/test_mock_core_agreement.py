@@ -9,7 +9,7 @@ import pytest
 from drivers.wire import Event, decode_all
 from mock_rig.__main__ import main
 from monitor.core.protocol import parse_protocol
-from monitor.core.trials import build_trials
+from monitor.core.session.trials import build_trials
 
 
 def core_counts(out, name, record, legacy):

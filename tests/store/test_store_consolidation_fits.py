@@ -15,7 +15,7 @@ import pytest
 
 from mock_rig.demo import STAGES, prepare_demo
 from monitor.app.cli import main
-from monitor.core.consolidation import estimate_consolidation
+from monitor.core.consolidation.analysis import estimate_consolidation
 from monitor.store.consolidation_fits import refit_animal, store_series
 from monitor.store.fits import cached_block, latest_fit
 

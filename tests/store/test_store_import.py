@@ -11,7 +11,7 @@ from drivers.mapping import parse_mapping
 from drivers.wire import decode_all, encode_event, encode_header
 from mock_rig.history import cohort, write_history
 from monitor.core.protocol import parse_protocol
-from monitor.core.report import SessionData, animal_report
+from monitor.core.session.animal_report import SessionData, animal_report
 from monitor.store.db import open_store
 from monitor.store.derive import rebuild_trials, session_events, stored_trials
 from monitor.store.importer import ImportRefused, import_file

@@ -10,7 +10,7 @@ from datetime import date, datetime, timedelta, timezone
 import pytest
 
 from drivers.wire import encode_event, encode_header
-from monitor.core.care import CareConfig, day_summary
+from monitor.core.care.ledger import CareConfig, day_summary
 from monitor.core.protocol import parse_protocol
 from monitor.store import db
 from monitor.store.care_log import add_note, add_supplement, add_weighing, animal_care

@@ -6,7 +6,7 @@ animal's baseline weight (the reference for percent of baseline). `sheet
 --day DATE` prints each animal's care day (water earned in sessions +
 supplements against the daily minimum, weight and percent of baseline, the
 alerts) and with `--csv FILE` writes the care sheet (CARE_SHEET_COLUMNS of
-monitor.core.care). Thresholds come from the `[care]` table of `--settings
+monitor.core.care.ledger). Thresholds come from the `[care]` table of `--settings
 FILE`, else of the user's default settings file (monitor.app.settings), else
 the defaults (keys and defaults: docs/care.md). Bad input: one
 line, exit 2. Advisory: the approved animal-use protocol, the animal-care

@@ -31,7 +31,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _heads(values: list[str]):
-    from monitor.core.decision_log import Head
+    from monitor.core.eligibility.decision_log import Head
 
     heads = []
     for value in values:
@@ -45,7 +45,7 @@ def _heads(values: list[str]):
 def run(args: argparse.Namespace) -> int:
     from monitor.app.commands.export import safe_cell
     from monitor.app.commands.report import open_readonly
-    from monitor.core.decision_log import DECISION_CSV_COLUMNS
+    from monitor.core.eligibility.decision_log import DECISION_CSV_COLUMNS
     from monitor.store.decisions import chain_head, entries, verify
 
     heads = _heads(args.head)

@@ -18,11 +18,11 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-from monitor.core.plateau import judge_all, learning_trial
+from monitor.core.session.plateau import judge_all, learning_trial
 from monitor.core.protocol import Protocol
-from monitor.core.sessions import SessionInput, learning_curve, summarize
-from monitor.core.stats import LiveSession
-from monitor.core.trials import Trial
+from monitor.core.session.summary import SessionInput, learning_curve, summarize
+from monitor.core.session.live_stats import LiveSession
+from monitor.core.session.trials import Trial
 
 
 class SessionData(NamedTuple):

@@ -23,8 +23,8 @@ from dataclasses import dataclass, replace
 from typing import Any, Mapping
 
 from drivers.config import ConfigError, TomlFile
-from monitor.core.assignment import BLOCKS_METHOD, COHORT_METHOD
-from monitor.core.eligibility_figures import SINCE_PLATEAU, TRANSPARENT_MEASURES
+from monitor.core.eligibility.assignment import BLOCKS_METHOD, COHORT_METHOD
+from monitor.core.eligibility.figures import SINCE_PLATEAU, TRANSPARENT_MEASURES
 
 SLOW = "slow_fraction"
 TRANSPARENT_FIGURES = SINCE_PLATEAU + TRANSPARENT_MEASURES
@@ -113,7 +113,7 @@ class EligibilityRule:
     warn_sessions: int = DEFAULT_WARN_SESSIONS
     protocol_name: str | None = None
     protocol_version: int | None = None
-    assignment: str = BLOCKS_METHOD     # how animals are drawn into the groups (monitor.core.assignment)
+    assignment: str = BLOCKS_METHOD     # how animals are drawn into the groups (monitor.core.eligibility.assignment)
     per_block: int = 1
     blinded: bool = False
 

@@ -23,7 +23,7 @@ from typing import Callable
 
 import numpy as np
 
-from monitor.core.consolidation_model import (
+from monitor.core.consolidation.model import (
     ONE_RATE,
     TWO_RATE,
     Evaluation,

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from monitor.core.consolidation_model import TrialSeries
+from monitor.core.consolidation.model import TrialSeries
 
 
 @dataclass(frozen=True)

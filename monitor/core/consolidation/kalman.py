@@ -24,7 +24,7 @@ does not when the slow state's noise is small); the result equals the plain
 trial-by-trial filter to rounding.  A one-state model is the two-state one with
 the second state held at zero (zero row/column in F, B, Q and the initial
 covariance).  The intermediates can be kept (``keep_work``) for the exact
-gradient of the profiled likelihood (:mod:`monitor.core.kalman_tangent`).
+gradient of the profiled likelihood (:mod:`monitor.core.consolidation.kalman_tangent`).
 """
 from __future__ import annotations
 
@@ -363,7 +363,7 @@ def kalman_filter(
     effect sizes b are v0 + sum b_e v_e.  Column 0 starts from ``init_mean``,
     the effect columns from zero.  ``padded`` (from :func:`pad`) saves laying
     out the same data again on every call; ``keep_work`` keeps the intermediates
-    (``FilterOutput.work``) for :mod:`monitor.core.kalman_tangent`.
+    (``FilterOutput.work``) for :mod:`monitor.core.consolidation.kalman_tangent`.
 
     Method: each session is filtered with the steady-state gain (an exact
     filter for a session whose prior covariance is the steady one), then

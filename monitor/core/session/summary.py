@@ -21,7 +21,7 @@ from typing import NamedTuple
 import numpy as np
 
 from monitor.core.protocol import BINARY_MEASURES, Protocol
-from monitor.core.trials import Trial
+from monitor.core.session.trials import Trial
 
 
 class SessionInput(NamedTuple):

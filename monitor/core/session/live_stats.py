@@ -21,10 +21,10 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-from monitor.core.histogram import HistogramSnapshot, IntervalHistograms, linear_edges, log_edges
+from monitor.core.session.histogram import HistogramSnapshot, IntervalHistograms, linear_edges, log_edges
 from monitor.core.protocol import Protocol
-from monitor.core.rolling import RollingRate, RunningMedian, RunningMoments, WindowMedian
-from monitor.core.trials import Trial, TrialBuilder
+from monitor.core.session.rolling import RollingRate, RunningMedian, RunningMoments, WindowMedian
+from monitor.core.session.trials import Trial, TrialBuilder
 
 DEFAULT_WINDOW = 100  # trials in the rolling figures
 LINEAR_BINS = 60

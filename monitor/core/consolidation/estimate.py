@@ -17,9 +17,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from monitor.core.consolidation_fit import ModelFit, draw_thetas
-from monitor.core.consolidation_model import ONE_RATE, TWO_RATE, Prepared, evaluate, state_space, to_natural
-from monitor.core.kalman import StateSpace
+from monitor.core.consolidation.fit import ModelFit, draw_thetas
+from monitor.core.consolidation.model import ONE_RATE, TWO_RATE, Prepared, evaluate, state_space, to_natural
+from monitor.core.consolidation.kalman import StateSpace
 
 QUANTILES = (0.05, 0.95)
 

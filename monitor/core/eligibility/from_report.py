@@ -17,7 +17,7 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
-from monitor.core.eligibility_figures import AnimalFigures, SessionForecast
+from monitor.core.eligibility.figures import AnimalFigures, SessionForecast
 
 MEASURE_KEYS = {"hit_rate": "hit_rate", "fixed_window_fraction": "fixed_window_fraction",
                 "interval_error": "median_abs_log_error", "cv": "cv"}

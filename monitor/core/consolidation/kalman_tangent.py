@@ -1,4 +1,4 @@
-"""Exact gradient of the profiled log-likelihood of :func:`monitor.core.kalman.kalman_filter`.
+"""Exact gradient of the profiled log-likelihood of :func:`monitor.core.consolidation.kalman.kalman_filter`.
 
 Rule: forward-mode differentiation (tangent propagation) of the steady-gain /
 Woodbury filter along P parameter directions at once, every step vectorised
@@ -12,7 +12,7 @@ steady filter is differentiated through its coefficients,
 d(h) = (d num x - d den h) / den, so the lagged signals x / den and h / den
 (two or three passes over the data, whatever P is) carry every direction; the
 session chains' tangents are block-bidiagonal solves
-(:func:`monitor.core.kalman.chain_solve`).  The design H, the observation
+(:func:`monitor.core.consolidation.kalman.chain_solve`).  The design H, the observation
 variance R and the initial mean are held fixed.  Checked against scipy's
 numerical derivatives (tests/core/test_consolidation_gradient.py).
 """
@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from monitor.core.kalman import (
+from monitor.core.consolidation.kalman import (
     FilterOutput,
     Layout,
     Padded,

@@ -21,8 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from monitor.core.consolidation import ConsolidationResult, Options
-from monitor.core.consolidation_model import RUNNING_MEAN_TRIALS, TrialSeries, effect_rows, evaluate, prepare, state_space
+from monitor.core.consolidation.analysis import ConsolidationResult, Options
+from monitor.core.consolidation.model import RUNNING_MEAN_TRIALS, TrialSeries, effect_rows, evaluate, prepare, state_space
 
 
 @dataclass(frozen=True)

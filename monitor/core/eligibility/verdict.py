@@ -24,8 +24,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from monitor.core.eligibility import DISPLAY, GROWING, Bound, EligibilityRule, GroupRule, format_figure
-from monitor.core.eligibility_figures import AnimalFigures
+from monitor.core.eligibility.rules import DISPLAY, GROWING, Bound, EligibilityRule, GroupRule, format_figure
+from monitor.core.eligibility.figures import AnimalFigures
 
 OPEN, PASSED, UNKNOWN, NOT_PLATEAUED, NOT_YET = "open", "passed", "unknown", "not plateaued", "not yet"
 TRAINING, WAITING, IN_WINDOW, WINDOW_PASSED, REVIEW = (

@@ -25,8 +25,8 @@ from dataclasses import dataclass, field
 from datetime import date, datetime
 from typing import Any, Mapping, Sequence
 
-from monitor.core.eligibility_figures import AnimalFigures
-from monitor.core.eligibility_verdict import NOT_YET, OPEN, Verdict
+from monitor.core.eligibility.figures import AnimalFigures
+from monitor.core.eligibility.verdict import NOT_YET, OPEN, Verdict
 
 FORMAT = "rigside-decision 1"
 DECISIONS = ("eligible", "assigned", "deferred", "excluded")

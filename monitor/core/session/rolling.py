@@ -17,7 +17,7 @@ import math
 from bisect import bisect_left, insort
 from collections import deque
 
-from monitor.core.binomial import wilson
+from monitor.core.session.binomial import wilson
 
 
 class RollingRate:

@@ -28,9 +28,9 @@ from typing import Callable
 
 import numpy as np
 
-from monitor.core.consolidation_estimate import Forecast, forecast, slow_fractions
-from monitor.core.consolidation_fit import JOINED, Cancelled, ModelFit, default_starts, fit_model, with_curvature
-from monitor.core.consolidation_model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
+from monitor.core.consolidation.estimate import Forecast, forecast, slow_fractions
+from monitor.core.consolidation.fit import JOINED, Cancelled, ModelFit, default_starts, fit_model, with_curvature
+from monitor.core.consolidation.model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
 
 CAVEAT = ("Model-based slow-state fraction of a fitted behavioural model; not proof that the behaviour "
           "no longer depends on a brain area. Advisory only: read it with the transparent measures.")

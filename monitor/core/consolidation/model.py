@@ -21,8 +21,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from monitor.core.kalman import Layout, Padded, Profiled, StateSpace, kalman_filter, pad, profile_effects
-from monitor.core.kalman_tangent import Tangents, profile_gradient
+from monitor.core.consolidation.kalman import Layout, Padded, Profiled, StateSpace, kalman_filter, pad, profile_effects
+from monitor.core.consolidation.kalman_tangent import Tangents, profile_gradient
 
 VARIANTS = ("error", "outcome")
 RUNNING_MEAN_TRIALS = 20.0  # time constant of the running mean the outcome variant compares with

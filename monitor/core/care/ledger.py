@@ -24,7 +24,7 @@ from datetime import date, datetime, time, timedelta
 from typing import Any, Sequence
 
 from drivers.config import ConfigError, TomlFile
-from monitor.core.care_water import SessionWater
+from monitor.core.care.water import SessionWater
 
 NOTICE, WARNING, ALERT = "notice", "warning", "alert"
 _HHMM = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)$")

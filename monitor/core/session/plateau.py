@@ -31,7 +31,7 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from monitor.core.protocol import BINARY_MEASURES, HIGHER_IS_BETTER, PlateauRule, Protocol
-from monitor.core.sessions import LearningCurve
+from monitor.core.session.summary import LearningCurve
 
 LN10 = math.log(10.0)
 

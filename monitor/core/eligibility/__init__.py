@@ -1,0 +1,1 @@
+"""Eligibility: the rule, an animal's figures, the verdict, random assignment and the decision log."""

@@ -1,0 +1,15 @@
+"""The store's connection and error types, named for callers outside the store.
+
+Rule: only monitor/store imports sqlite3. Code outside the store that holds a
+connection or catches the store's low-level failures uses these names:
+`Connection` (an open store) and `Busy` (the lock was not freed in time, or
+the file could not be opened for writing). They are sqlite3's own classes, so
+nothing is wrapped.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+
+Connection = sqlite3.Connection
+Busy = sqlite3.OperationalError
