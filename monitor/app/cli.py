@@ -20,7 +20,7 @@ from monitor.app.errors import UsageError
 
 COMMANDS: dict[str, tuple[str, str]] = {
     "window": ("monitor.app.commands.window", "the window for this PC's rigs (also plain `rigside`)"),
-    "demo": ("monitor.app.commands.demo", "simulated rigs on pseudo-terminals and the full window"),
+    "demo": ("monitor.app.commands.demo", "simulated rigs through the real serial path and the full window"),
     "record": ("monitor.app.commands.record", "headless acquisition from one source into the store"),
     "import": ("monitor.app.commands.import_files", "import recorded session files"),
     "report": ("monitor.app.commands.report", "per-animal summary"),
