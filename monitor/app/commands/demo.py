@@ -1,7 +1,8 @@
 """`rigside demo`: simulated rigs through the real serial path (ptys or local sockets), the store and the window.
 
-Rule: this module only parses and checks the options (bad values exit 2 with
-one line); `monitor.app.demo.run` does the work and imports Qt itself.
+Rule: this module only parses and checks the options and the display (bad
+values, no display or missing system libraries exit 2 with one line);
+`monitor.app.demo.run` does the work and imports Qt itself.
 """
 
 from __future__ import annotations
@@ -58,7 +59,12 @@ def run(args: argparse.Namespace) -> int:
             history = ()
         if len(history) != 4 or min(history) < 1:
             raise UsageError(f"--history: four whole numbers of sessions, each at least 1, got {args.history!r}")
+    from monitor.app.first_run import display_problem
     from monitor.app.settings import care_config, settings_path
+
+    problem = display_problem(headless=args.headless)
+    if problem:
+        raise UsageError(problem)
 
     try:
         care = care_config(settings_path(args.settings))
