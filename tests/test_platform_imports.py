@@ -123,7 +123,7 @@ def test_demo_runs_live_through_socket_urls_without_posix_modules(tmp_path):
                          "--folder", str(folder), "--history", "1,2,3,4", "--no-fit")
     assert result.returncode == 0, result.stderr[-3000:]
     assert png_size(shot) == (1366, 768)
-    # the tiles' figure: trials today per box, from the window's snapshots at the end
+    # the tiles' figure: trials today per box, as the window's tiles showed it at the end
     line = next(s for s in result.stderr.splitlines() if "trials per box" in s)
     tiles = dict((box, int(n)) for box, n in re.findall(r"(box\d) (\d+)", line))
     assert sorted(tiles) == ["box1", "box2", "box3", "box4"] and min(tiles.values()) > 0, line

@@ -256,7 +256,7 @@ def _run(options: DemoOptions, folder: Path, inspect) -> int:
         stop_rigs(rigs)
         window.deleteLater()  # leave no top-level window behind in a host application (tests)
         QCoreApplication.sendPostedEvents(None, QEvent.Type.DeferredDelete)
-    totals = {name: (rig.snapshot.live.trials if rig.snapshot and rig.snapshot.live else 0)
-              for name, rig in controller.rigs.items()}
-    print("rigside demo: trials per box: " + ", ".join(f"{k} {v}" for k, v in totals.items()), file=sys.stderr)
+    tiles = {name: controller.board.state(name) for name in controller.board.rigs()}   # what the tiles showed
+    print("rigside demo: trials per box: " + ", ".join(f"{name} {state.trials_today if state else 0}"
+                                                       for name, state in tiles.items()), file=sys.stderr)
     return 0 if stored else 1
