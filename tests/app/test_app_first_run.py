@@ -5,8 +5,10 @@ from __future__ import annotations
 
 import ctypes.util
 import os
+import re
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 
@@ -80,3 +82,13 @@ def test_demo_on_a_display_names_what_this_machine_lacks(tmp_path):
         assert f"sudo apt install {' '.join(lacking)})" in result.stderr
     else:
         assert "no X server answers on DISPLAY=:97" in result.stderr
+
+
+def test_the_readme_and_install_page_list_exactly_the_libraries_checked():
+    # the lists a new lab member installs from must be the ones the check names (and vice versa)
+    root = Path(__file__).resolve().parents[2]
+    checked = set(BASE.values()) | set(XCB.values())
+    for doc in ("README.md", "docs/install.md"):
+        text = root.joinpath(doc).read_text(encoding="utf-8")
+        section = text[text.index("libegl1"):text.index("libxkbcommon-x11-0") + len("libxkbcommon-x11-0")]
+        assert set(re.findall(r"lib[a-z0-9.+-]*[a-z0-9]", section)) == checked, doc
