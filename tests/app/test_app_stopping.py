@@ -7,12 +7,15 @@ from __future__ import annotations
 
 import os
 import signal
+import sqlite3
+import subprocess
 import sys
 import threading
 import time
 
 import pytest
 
+from drivers.wire import encode_event, encode_header
 from monitor.app import stopping
 from monitor.app.stopping import StopRequests, stop_signals
 
@@ -86,3 +89,52 @@ def test_ctrl_c_and_ctrl_break_are_left_to_python():
     stops = StopRequests(lambda: None)
     assert stops.console_event(stopping.CTRL_C_EVENT) is False
     assert stops.console_event(stopping.CTRL_BREAK_EVENT) is False
+
+
+PROTOCOL = """
+[protocol]
+name = "two-press 650 ms"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+
+[plateau]
+rule = "consecutive_sessions"
+min_hit_rate = 0.5
+sessions = 3
+"""
+
+
+def stored(db) -> int:
+    try:
+        with sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=5) as conn:
+            return conn.execute("SELECT count(*) FROM events").fetchone()[0]
+    except sqlite3.OperationalError:
+        return 0                                     # not created yet
+
+
+@pytest.mark.skipif(not hasattr(signal, "SIGHUP"), reason="SIGHUP is POSIX")
+def test_closing_the_terminal_stops_record_with_everything_stored(tmp_path):
+    log, db = tmp_path / "box1.rsw", tmp_path / "store.sqlite3"
+    log.write_bytes(encode_header(fw="t") + b"".join(encode_event(i * 1000, "lick") for i in range(200)))
+    (tmp_path / "p.toml").write_text(PROTOCOL)
+    proc = subprocess.Popen([sys.executable, "-m", "monitor.app", "record", "--source", f"file:{log}", "--rig", "box1",
+                             "--animal", "heron", "--protocol", str(tmp_path / "p.toml"), "--db", str(db)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        first = proc.stderr.readline()               # the recorder says where it reads from once it runs
+        assert "byte 0" in first, first
+        deadline = time.monotonic() + 60
+        while stored(db) < 200 and time.monotonic() < deadline:
+            time.sleep(0.1)
+        proc.send_signal(signal.SIGHUP)              # what a closing terminal sends its programs
+        out, err = proc.communicate(timeout=60)
+    finally:
+        proc.kill()
+    assert proc.returncode == 0, err
+    with sqlite3.connect(db) as conn:                # read with plain sqlite3, not the store's code
+        events = conn.execute("SELECT count(*) FROM events").fetchone()[0]
+        open_sessions = conn.execute("SELECT count(*) FROM sessions WHERE ended_at IS NULL").fetchone()[0]
+    assert events == 200 and open_sessions == 0         # the session was ended: a clean stop, not a kill
+    assert "recorded 200 events" in out
