@@ -5,6 +5,7 @@ number from wincon.h), since kernel32 exists only there."""
 
 from __future__ import annotations
 
+import contextlib
 import os
 import signal
 import sqlite3
@@ -108,7 +109,7 @@ sessions = 3
 
 def stored(db) -> int:
     try:
-        with sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=5) as conn:
+        with contextlib.closing(sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=5)) as conn:
             return conn.execute("SELECT count(*) FROM events").fetchone()[0]
     except sqlite3.OperationalError:
         return 0                                     # not created yet
