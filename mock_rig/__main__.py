@@ -2,7 +2,9 @@
 
 Rule: each subcommand is a thin wrapper over the module API (history, live,
 demo); bad arguments print a one-line error naming the argument and exit 2
-(argparse's convention); Ctrl-C stops live boxes cleanly with exit 0.
+(argparse's convention); Ctrl-C stops live boxes cleanly with exit 0. Nothing
+here needs a POSIX-only module: a pty is asked for only with `--out pty`
+(the default where the platform has ptys, else `socket`).
 """
 
 from __future__ import annotations
@@ -16,7 +18,7 @@ from mock_rig import scenario
 from mock_rig.faults import KINDS, parse_fault
 from mock_rig.history import cohort, write_history
 from mock_rig.live import LiveRig, stop_rigs
-from mock_rig.outputs import FileOutput, PtyOutput, StreamOutput
+from mock_rig.outputs import FileOutput, PtyOutput, SocketOutput, StreamOutput, pty_available
 from mock_rig.rig import BoardConfig, wrap_soon
 from mock_rig.tasks import JOYSTICK_HOLD, TWO_PRESS
 
@@ -68,10 +70,11 @@ def build_parser() -> argparse.ArgumentParser:
     _variants(hist)
 
     live = sub.add_parser("live", help="run one simulated box in real time or faster")
-    live.add_argument("--out", default="pty", help="pty | stdout | file:PATH (default pty)")
+    live.add_argument("--out", default=None,
+                      help="pty | socket[:PORT] | stdout | file:PATH (default pty, or socket where there are no ptys)")
     live.add_argument("--link", type=Path, help="pty only: keep this symlink pointing at the device")
     live.add_argument("--no-wait", action="store_true",
-                      help="pty only: start at once instead of booting when a reader opens the port")
+                      help="pty or socket: start at once instead of booting when a reader opens the port")
     live.add_argument("--speed", type=_positive(float), default=1.0, help="times faster than real time")
     live.add_argument("--seed", type=int, default=1)
     live.add_argument("--animal", type=int, default=0, help="index of the cohort animal (default 0)")
@@ -85,12 +88,14 @@ def build_parser() -> argparse.ArgumentParser:
                       metavar="KIND@START[:SECONDS]", help=f"schedule a fault; kinds: {', '.join(KINDS)}")
     _variants(live)
 
-    demo = sub.add_parser("demo", help="four demo animals with history, live on ptys")
+    demo = sub.add_parser("demo", help="four demo animals with history, live on ptys (sockets where there are none)")
     demo.add_argument("--out", type=Path, required=True, help="directory for the history files")
     demo.add_argument("--links", type=Path, help="directory for per-animal device symlinks")
     demo.add_argument("--speed", type=_positive(float), default=10.0)
     demo.add_argument("--seconds", type=_positive(float), help="stop after this many seconds")
     demo.add_argument("--seed", type=int, default=7)
+    demo.add_argument("--via", choices=("auto", "pty", "socket"), default="auto",
+                      help="pty, socket (socket://127.0.0.1:PORT) or auto: a pty where there are ptys (default)")
     return parser
 
 
@@ -109,13 +114,24 @@ def cmd_history(args) -> int:
 
 
 def _output(args, parser):
-    if args.out == "pty":
+    out = args.out or ("pty" if pty_available() else "socket")
+    if out == "pty":
+        if not pty_available():
+            parser.error("argument --out: this platform has no pseudo-terminals; use socket[:PORT]")
         return PtyOutput(link=args.link, wait_for_open=not args.no_wait)
-    if args.out == "stdout":
+    if out == "socket" or out.startswith("socket:"):
+        port = out[7:] or "0"
+        if not port.isdigit() or int(port) > 65535:
+            parser.error(f"argument --out: expected socket:PORT with PORT 0-65535, got {out!r}")
+        try:
+            return SocketOutput(int(port), wait_for_open=not args.no_wait)
+        except OSError as exc:
+            parser.error(f"argument --out: cannot listen on 127.0.0.1:{port}: {exc.strerror or exc}")
+    if out == "stdout":
         return StreamOutput()
-    if args.out.startswith("file:") and len(args.out) > 5:
-        return FileOutput(args.out[5:])
-    parser.error(f"argument --out: expected pty, stdout or file:PATH, got {args.out!r}")
+    if out.startswith("file:") and len(out) > 5:
+        return FileOutput(out[5:])
+    parser.error(f"argument --out: expected pty, socket[:PORT], stdout or file:PATH, got {out!r}")
 
 
 def cmd_live(args, parser) -> int:
@@ -126,8 +142,8 @@ def cmd_live(args, parser) -> int:
     animal.board = BoardConfig(fw=animal.board.fw, wrap=args.wrap, legacy=args.legacy,
                                counter_start_us=start, rig_name=animal.board.rig_name)
     output = _output(args, parser)
-    if isinstance(output, PtyOutput):
-        where = f" (symlink {args.link})" if args.link else ""
+    if isinstance(output, (PtyOutput, SocketOutput)):
+        where = f" (symlink {args.link})" if args.link and isinstance(output, PtyOutput) else ""
         print(f"{animal.name}: device {output.device}{where}", file=sys.stderr, flush=True)
     rig = LiveRig(animal, output, speed=args.speed, faults=tuple(args.fault),
                   sessions=args.sessions or None)
@@ -137,8 +153,12 @@ def cmd_live(args, parser) -> int:
 def cmd_demo(args) -> int:
     from mock_rig.demo import prepare_demo, start_demo
 
+    if args.via == "pty" and not pty_available():
+        print("python -m mock_rig demo: error: argument --via: this platform has no pseudo-terminals; "
+              "use socket", file=sys.stderr)
+        return 2
     prepared = prepare_demo(args.out, args.seed)
-    rigs = start_demo(prepared, args.links, args.speed)
+    rigs = start_demo(prepared, args.links, args.speed, via=args.via)
     for d, rig in zip(prepared, rigs):
         print(f"{d.animal.name} ({d.label}): {rig.output.device} protocol {d.protocol_path}",
               flush=True)

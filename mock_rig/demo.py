@@ -5,7 +5,8 @@ label stays true) and a fixed number of weekday sessions of history ending
 the weekday before `today`: naive (1 session), learning (8), plateaued but not
 yet consolidated (20), consolidated (75). `prepare_demo` writes their session
 files, protocol files and truth.json; `start_demo` puts each on its own
-simulated box (a pty in a thread) continuing from where its history ended.
+simulated box (a pty in a thread, or a local socket where there are no ptys)
+continuing from where its history ended.
 """
 
 from __future__ import annotations
@@ -122,8 +123,8 @@ def prepare_demo(
 
 
 def start_demo(
-    prepared: list[DemoAnimal], link_dir: str | Path | None = None, speed: float = 10.0
+    prepared: list[DemoAnimal], link_dir: str | Path | None = None, speed: float = 10.0, via: str = "auto"
 ) -> list[LiveRig]:
-    """Start one simulated box per demo animal on a pty; stop them with `stop_rigs`."""
+    """Start one simulated box per demo animal (`via`: see `start_rigs`); stop them with `stop_rigs`."""
     return start_rigs([d.animal for d in prepared], str(link_dir) if link_dir else None,
-                      speed=speed, sessions=None)
+                      speed=speed, sessions=None, via=via)

@@ -4,7 +4,7 @@ Rule: a `LiveRig` runs in its own thread. Simulated time runs `speed` times
 faster than the monotonic clock from the moment the box boots, and each line
 goes out when its time comes (device counter values are simulated time, so
 intervals stay true at any speed). The box boots, and sends its header, when
-the output is ready (a pty: once a reader opens it). Faults land at once
+the output is ready (a pty or socket: once a reader opens it). Faults land at once
 (`inject`) or on a schedule. Unplug, silence and reset drop the rest of the
 trial in progress; after an unplug the box waits, up to `drain_timeout`, for
 the reader to take what was sent, so `output.sent` stays what the reader got.
@@ -24,7 +24,7 @@ import numpy as np
 
 from mock_rig.faults import Fault
 from mock_rig.history import Animal
-from mock_rig.outputs import Output, PtyOutput
+from mock_rig.outputs import Output, PtyOutput, SocketOutput, pty_available
 from mock_rig.rig import Board
 from mock_rig.tasks import Session
 
@@ -242,12 +242,12 @@ class LiveRig:
                 self._emit(line)
 
     def _drain(self) -> None:
-        """Give the reader up to `drain_timeout` to take what was sent (a pty loses unread bytes).
+        """Give the reader up to `drain_timeout` to take what was sent (a pty or socket loses unread bytes).
 
         Then wait `SETTLE_S` more: a reader blocked in a timed read holds bytes it
         has taken but not yet returned, and pyserial drops them if the port dies then.
         """
-        if isinstance(self.output, PtyOutput) and self.output.plugged:
+        if isinstance(self.output, (PtyOutput, SocketOutput)) and self.output.plugged:
             deadline = time.monotonic() + self.drain_timeout
             while self.output.unread() and time.monotonic() < deadline:
                 self.output.pump()
@@ -272,16 +272,26 @@ def start_rigs(
     speed: float = 1.0,
     sessions: int | None = None,
     record: bool = False,
+    via: str = "auto",
 ) -> list[LiveRig]:
-    """Start one simulated box per animal on its own pty, in threads; stop them with stop_rigs.
+    """Start one simulated box per animal, in threads; stop them with stop_rigs.
 
-    With `link_dir`, each box keeps a symlink `link_dir/<animal>` pointing at its
-    current device (a re-plug moves it). Each rig's `output.device` is the path.
+    `via` is "pty", "socket" (a local TCP port, for pyserial's socket:// URL) or
+    "auto" (a pty where the platform has them, else a socket). With `link_dir`,
+    each pty box keeps a symlink `link_dir/<animal>` pointing at its current
+    device (a re-plug moves it). Each rig's `output.device` is what a reader opens.
     """
+    if via not in ("auto", "pty", "socket"):
+        raise ValueError(f"via: expected auto, pty or socket, got {via!r}")
+    use_pty = via == "pty" or (via == "auto" and pty_available())
     rigs = []
     for animal in animals:
-        link = Path(link_dir) / animal.name if link_dir else None
-        output = PtyOutput(link=link, record=record)
+        output: Output
+        if use_pty:
+            link = Path(link_dir) / animal.name if link_dir else None
+            output = PtyOutput(link=link, record=record)
+        else:
+            output = SocketOutput(record=record)
         rigs.append(LiveRig(animal, output, speed=speed, sessions=sessions).start())
     return rigs
 

@@ -1,35 +1,46 @@
-"""Where a simulated box's bytes go: a pseudo-terminal, a growing file or stdout.
+"""Where a simulated box's bytes go: a pseudo-terminal, a local TCP socket, a growing file or stdout.
 
-Rule: outputs take whole lines and never block the simulation. A pty master is
-written non-blocking through a backlog of whole lines (a master blocks once
-~17 KB are unread); past `backlog_limit` bytes, whole lines are dropped and
-counted, never half a line. `sent` logs each line once it is fully written
-(when `record` is on), per connection, so tests can compare what a reader got
-with what the box sent. An unplug closes the master (unread bytes are lost,
-as with a real cable) and removes the symlink; a re-plug opens a new pty and
-points the symlink at it (the old device name is held until then, so the new
-device has a new name, as a re-plugged board often does). The box boots when a reader opens the port: the
-slave's line speed starts at a sentinel that any serial open changes (an
-Arduino-style board resets on open). A file output appends like acquisition
-code does, flushing per line or per burst.
+Rule: outputs take whole lines and never block the simulation. A pty master
+and a socket are written non-blocking through a backlog of whole lines (a
+master blocks once ~17 KB are unread); past `backlog_limit` bytes, whole lines
+are dropped and counted, never half a line. `sent` logs each line once it is
+fully written (when `record` is on), per connection, so tests can compare what
+a reader got with what the box sent. An unplug closes the master (unread bytes
+are lost, as with a real cable) and removes the symlink; a re-plug opens a new
+pty and points the symlink at it (the old device name is held until then, so
+the new device has a new name, as a re-plugged board often does). The box
+boots when a reader opens the port: the slave's line speed starts at a
+sentinel that any serial open changes (an Arduino-style board resets on open).
+The pty calls are POSIX-only and live in `mock_rig.ptys`, imported only when a
+pty is made. Where there are no ptys (Windows), a `SocketOutput` serves
+`socket://127.0.0.1:PORT`, which pyserial opens through the same `Serial` API
+as a COM port: the box boots shortly after a reader connects, an unplug closes
+the connection and stops listening, a re-plug listens on the same port again.
+A file output appends like acquisition code does, flushing per line or per
+burst.
 """
 
 from __future__ import annotations
 
-import fcntl
 import os
-import pty
-import struct
+import socket
 import sys
-import termios
 import threading
 import time
-import tty
 from collections import deque
 from pathlib import Path
 from typing import BinaryIO, Protocol
 
-SENTINEL_SPEED = termios.B50
+SOCKET_BOOT_S = 0.2  # after a reader connects, before the box sends its header (a reset board boots)
+
+
+def pty_available() -> bool:
+    """True where pseudo-terminals can be made (POSIX; not Windows)."""
+    try:
+        import mock_rig.ptys  # noqa: F401  (the platform seam: POSIX-only modules)
+    except ImportError:
+        return False
+    return hasattr(os, "ttyname")
 
 
 class Output(Protocol):
@@ -109,17 +120,14 @@ class PtyOutput(_Base):
         return self.devices[-1] if self.plugged and self.devices else None
 
     def _open_pty(self) -> None:
-        master, slave = pty.openpty()
-        tty.setraw(slave)
-        attrs = termios.tcgetattr(slave)
-        attrs[4] = attrs[5] = SENTINEL_SPEED
-        termios.tcsetattr(slave, termios.TCSANOW, attrs)
-        fcntl.fcntl(master, fcntl.F_SETFL, fcntl.fcntl(master, fcntl.F_GETFL) | os.O_NONBLOCK)
+        from mock_rig import ptys
+
+        master, slave, name = ptys.open_pty()
         if self._slave >= 0:  # the old device's name was held until now: the new one differs
             os.close(self._slave)
         self._master, self._slave = master, slave
         self._opened = not self.wait_for_open
-        self.devices.append(os.ttyname(slave))
+        self.devices.append(name)
         if self.link is not None:
             self.link.parent.mkdir(parents=True, exist_ok=True)
             temp = self.link.with_name(self.link.name + ".new")
@@ -132,8 +140,9 @@ class PtyOutput(_Base):
         if not self.plugged:
             return False
         if not self._opened:
-            speeds = termios.tcgetattr(self._slave)[4:6]
-            self._opened = speeds != [SENTINEL_SPEED, SENTINEL_SPEED]
+            from mock_rig import ptys
+
+            self._opened = ptys.was_opened(self._slave)
         return self._opened
 
     @property
@@ -145,8 +154,9 @@ class PtyOutput(_Base):
         """Bytes written to the master that no reader has taken yet, backlog included."""
         if not self.plugged:
             return 0
-        waiting = struct.unpack("i", fcntl.ioctl(self._slave, termios.FIONREAD, b"\0" * 4))[0]
-        return waiting + self._backlog_bytes - self._partial
+        from mock_rig import ptys
+
+        return ptys.unread(self._slave) + self._backlog_bytes - self._partial
 
     def write(self, line: bytes) -> None:
         with self._lock:
@@ -204,6 +214,144 @@ class PtyOutput(_Base):
         if self._slave >= 0:
             os.close(self._slave)
             self._slave = -1
+
+
+class SocketOutput(_Base):
+    """A box on a local TCP port, read as `socket://127.0.0.1:PORT` by pyserial (no pty needed)."""
+
+    def __init__(
+        self,
+        port: int = 0,
+        host: str = "127.0.0.1",
+        wait_for_open: bool = True,
+        backlog_limit: int = 1 << 20,
+        record: bool = False,
+    ) -> None:
+        super().__init__(record)
+        self.host = host
+        self.wait_for_open = wait_for_open
+        self.backlog_limit = backlog_limit
+        self._lock = threading.Lock()
+        self._backlog: deque[bytes] = deque()
+        self._backlog_bytes = 0
+        self._partial = 0
+        self._conn: socket.socket | None = None
+        self._booted_at: float | None = None
+        self._listener: socket.socket | None = None
+        self._listen(port)
+        self.port = self._listener.getsockname()[1] if self._listener else port
+
+    @property
+    def url(self) -> str:
+        """What a reader opens: pyserial's URL for this box."""
+        return f"socket://{self.host}:{self.port}"
+
+    @property
+    def device(self) -> str | None:
+        """The URL while plugged in (None while unplugged), like a pty's device path."""
+        return self.url if self.plugged else None
+
+    def _listen(self, port: int) -> None:
+        listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        if os.name == "posix":  # re-plug on the same port while the old connection is in TIME_WAIT
+            listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        listener.bind((self.host, port))
+        listener.listen(1)
+        listener.setblocking(False)
+        self._listener = listener
+
+    def _accept(self) -> None:
+        """Take a waiting reader; a newer one replaces the old (a port reopened after a fault)."""
+        if self._listener is None:
+            return
+        try:
+            conn, _ = self._listener.accept()
+        except (BlockingIOError, InterruptedError):
+            return
+        except OSError:
+            return
+        conn.setblocking(False)
+        if self._conn is not None:
+            self._conn.close()
+            self.sent.append([])
+        self._conn = conn
+        self._booted_at = time.monotonic() + SOCKET_BOOT_S
+
+    def ready(self) -> bool:
+        """Plugged, a reader connected and the box booted (or not waiting for a reader)."""
+        if not self.plugged:
+            return False
+        with self._lock:
+            self._accept()
+        if not self.wait_for_open:
+            return True
+        return self._conn is not None and self._booted_at is not None and time.monotonic() >= self._booted_at
+
+    @property
+    def backlog_bytes(self) -> int:
+        """Bytes waiting in the backlog for the socket to take them."""
+        return self._backlog_bytes - self._partial
+
+    def unread(self) -> int:
+        """Bytes the box said but the socket has not taken yet."""
+        return self.backlog_bytes if self.plugged else 0
+
+    def write(self, line: bytes) -> None:
+        with self._lock:
+            if not self.plugged or self._backlog_bytes + len(line) > self.backlog_limit:
+                self.lines_dropped += 1
+                return
+            self._backlog.append(line)
+            self._backlog_bytes += len(line)
+        self.pump()
+
+    def pump(self) -> None:
+        with self._lock:
+            self._accept()
+            while self._backlog and self._conn is not None:
+                line = self._backlog[0]
+                try:
+                    n = self._conn.send(line[self._partial:])
+                except (BlockingIOError, InterruptedError):
+                    return
+                except OSError:  # the reader went away: wait for the next one
+                    self._conn.close()
+                    self._conn = None
+                    return
+                self._partial += n
+                if self._partial < len(line):
+                    return
+                self._backlog.popleft()
+                self._backlog_bytes -= len(line)
+                self._partial = 0
+                self._log(line)
+
+    def unplug(self) -> None:
+        """Pull the cable: drop the connection and stop listening (a reader's reconnect fails)."""
+        with self._lock:
+            if not self.plugged:
+                return
+            self.plugged = False
+            self.lines_dropped += len(self._backlog)
+            self._backlog.clear()
+            self._backlog_bytes = self._partial = 0
+            for sock in (self._conn, self._listener):
+                if sock is not None:
+                    sock.close()
+            self._conn = self._listener = None
+            self._booted_at = None
+
+    def replug(self) -> None:
+        """Plug back in: listen on the same port again."""
+        with self._lock:
+            if self.plugged:
+                return
+            self._listen(self.port)
+            self.plugged = True
+            self.sent.append([])
+
+    def close(self) -> None:
+        self.unplug()
 
 
 class FileOutput(_Base):

@@ -42,3 +42,14 @@ def test_non_editable_install_ships_packages_and_icons():
     svgs = [f for f in files if f.parts[0] == "icons" and f.suffix == ".svg"]
     assert svgs and all(f.locate().is_file() for f in svgs)
     assert any(f.name == "wire.py" and f.parts[0] == "drivers" for f in files)
+
+
+def test_the_distribution_carries_the_licence_and_both_entry_points():
+    dist = _installed()
+    # core metadata 2.4 (PEP 639): License-Expression and License-File, the file under .dist-info/licenses
+    assert dist.metadata["License-Expression"] == "MIT"
+    assert dist.metadata.get_all("License-File") == ["LICENSE"]
+    assert "MIT License" in (dist.read_text("licenses/LICENSE") or "")
+    scripts = {(e.group, e.name): e.value for e in dist.entry_points}
+    assert scripts[("console_scripts", "rigside")] == "monitor.app.cli:main"
+    assert scripts[("gui_scripts", "rigside-window")] == "monitor.app.launcher:main"   # no console on Windows

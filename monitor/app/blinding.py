@@ -3,7 +3,11 @@
 Rule: the secret behind a cohort's group codes (monitor.core.eligibility.assignment
 `blinding_key`) is drawn once with `new_secret` the first time the cohort is
 judged, and written to `DB.blinding/COHORT-HASH.json` (folder 0700, file
-0600, created atomically: a second process reads the first one's file). It is
+0600, created atomically: a second process reads the first one's file; on
+file systems without hard links, such as FAT or some network shares, it is
+created exclusively instead). On Windows the modes do nothing: the file
+takes the folder's access rights, so keep the database in the user's own
+folders (the default) or a share only the blind holders can read. It is
 kept out of the database so that a copied database, `rigside log export`, the
 report and the NWB files carry codes only. The file also holds the group
 names the codes were made for; a rule whose groups differ is refused, since a
@@ -93,7 +97,21 @@ def _create(path: Path, cohort: str, groups: tuple[str, ...]) -> None:
             os.link(draft, path)              # atomic, and refuses when another process made it first
         except FileExistsError:
             pass
+        except OSError:                       # no hard links (FAT, exFAT, some network shares)
+            _create_exclusively(path, text)
         finally:
             draft.unlink()
     except OSError as exc:
         raise BlindingError(f"cannot write the blinding key {path} ({exc.strerror or exc})") from None
+
+
+def _create_exclusively(path: Path, text: str) -> None:
+    """Write `path` only if nobody has (O_EXCL); a reader racing the write may see it short."""
+    try:
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+    except FileExistsError:
+        return
+    with os.fdopen(fd, "w", encoding="utf-8") as out:
+        out.write(text)
+        out.flush()
+        os.fsync(out.fileno())

@@ -5,7 +5,8 @@ Rule: this module only parses. Each subcommand lives in its own module of
 those modules import their heavy dependencies (Qt, scipy, the store) inside
 `run`, so `rigside record` never loads Qt or scipy. Bad input anywhere gives
 one line `rigside CMD: error: ...` on stderr and exit code 2. Plain
-`rigside`, with no command, opens the window (`rigside window`).
+`rigside`, with no command, opens the window (`rigside window`); `rigside
+--version` prints the installed version.
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ from monitor.app.errors import UsageError
 
 COMMANDS: dict[str, tuple[str, str]] = {
     "window": ("monitor.app.commands.window", "the window for this PC's rigs (also plain `rigside`)"),
-    "demo": ("monitor.app.commands.demo", "simulated rigs on pseudo-terminals and the full window"),
+    "demo": ("monitor.app.commands.demo", "simulated rigs through the real serial path and the full window"),
     "record": ("monitor.app.commands.record", "headless acquisition from one source into the store"),
     "import": ("monitor.app.commands.import_files", "import recorded session files"),
     "report": ("monitor.app.commands.report", "per-animal summary"),
@@ -42,6 +43,7 @@ class OneLineParser(argparse.ArgumentParser):
 
 def build_parser() -> argparse.ArgumentParser:
     parser = OneLineParser(prog="rigside", description="Training monitor for operant boxes.")
+    parser.add_argument("--version", action="version", version=f"rigside {installed_version()}")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=OneLineParser)
     for name, (module_name, help_text) in COMMANDS.items():
         module = _command_module(module_name)
@@ -51,6 +53,16 @@ def build_parser() -> argparse.ArgumentParser:
         module.add_arguments(command)
         command.set_defaults(_module=module)
     return parser
+
+
+def installed_version() -> str:
+    """rigside's version as installed (pip's metadata)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("rigside")
+    except PackageNotFoundError:
+        return "(not installed: run from a source folder)"
 
 
 def _command_module(module_name: str):

@@ -14,7 +14,7 @@ the cached fit. Check-in closes the rig's
 session and starts a new one (the engine first, then the Fanout); check-out
 ends it. Before any check-in a rig's events are kept in a session with no
 animal (animal ''). `close()` stops the sources, ends open sessions and
-flushes the writer; SIGINT/SIGTERM call it.
+flushes the writer; every platform's stop requests call it (monitor.app.stopping).
 """
 
 from __future__ import annotations
@@ -22,7 +22,6 @@ from __future__ import annotations
 import contextlib
 import json
 import queue
-import signal
 import sqlite3
 import sys
 import threading
@@ -41,6 +40,7 @@ from monitor.app.alerting import AlertCentre, AlertStore, TableAlertStore
 from monitor.app.engine import Engine, RaisedAlert, RigSnapshot, SessionPlan
 from monitor.app.live_fraction import LiveFractions, live_text, session_start_wall
 from monitor.app.pipeline import Fanout
+from monitor.app.stopping import StopRequests
 from monitor.app import views
 from monitor.core.alerts import AlertRules, plateau_alert, store_alert
 from monitor.core.protocol import Protocol, parse_protocol
@@ -267,7 +267,7 @@ class Controller(QObject):
         self.painted: list[tuple[str, float]] = []    # (rig, reader stamp) of tile states handed to the board
         self.refresh_seconds: list[float] = []
         self.closed = False
-        self._previous_handlers: dict[int, Any] = {}
+        self._stops: StopRequests | None = None
         self.timer = QTimer(self)
         self.timer.setInterval(refresh_ms)
         self.timer.timeout.connect(self.refresh)
@@ -309,13 +309,13 @@ class Controller(QObject):
         self.records.attach(window)
 
     def install_signal_handlers(self, app: QApplication) -> None:
-        """SIGINT/SIGTERM: close cleanly (the 20 Hz timer lets Python run the handler promptly)."""
-        def handler(signum, frame) -> None:
+        """Every platform's stop requests (monitor.app.stopping) close cleanly (the 20 Hz timer lets
+        Python run the handler promptly)."""
+        def handler() -> None:
             self.close()
             app.quit()
             QTimer.singleShot(0, app.quit)    # also when the event loop has not started yet
-        for sig in (signal.SIGINT, signal.SIGTERM):
-            self._previous_handlers[sig] = signal.signal(sig, handler)
+        self._stops = StopRequests(handler).install()
 
     def close(self) -> bool:
         """Stop the sources, end sessions, flush the store; True when every row was stored."""
@@ -323,8 +323,8 @@ class Controller(QObject):
             return True
         self.closed = True
         self.timer.stop()
-        for sig, previous in self._previous_handlers.items():
-            signal.signal(sig, previous)
+        if self._stops is not None:
+            self._stops.restore()
         self.cancel_jobs()
         for rig in self.rigs.values():
             rig.source.stop()
@@ -336,7 +336,10 @@ class Controller(QObject):
         except Exception:  # noqa: BLE001 - the events matter more than the end times
             pass
         self.engine.stop()
-        return self.writer.stop()
+        stored = self.writer.stop()
+        if self._stops is not None:
+            self._stops.finished()           # a console close (Windows) may end the process now
+        return stored
 
     # --- rigs ------------------------------------------------------------------------------
     def add_rig(self, spec: RigSpec, start: bool = True,

@@ -2,12 +2,14 @@
 
 Rule: the demo cohort of mock_rig (naive, learning, plateaued but not
 consolidated, consolidated, with weeks of generated history) is written into
-the demo folder (a fresh temporary one unless `--folder`), each animal goes
-live on its own pseudo-terminal behind a symlink and is read by the real
-`SerialSource`, through the Fanout into a fresh demo database (unless `--db`)
-and the engine, and each animal is checked in to its box. Without ptys
-(Windows), or with `--files`, each box appends to a log file read by the real
-`FileTail`. History: the generated session files are imported into the demo
+the demo folder (a fresh temporary one unless `--folder`, removed at the
+end), each animal goes live on its own pseudo-terminal behind a symlink and
+is read by the real `SerialSource`, through the Fanout into a fresh demo
+database (unless `--db`) and the engine, and each animal is checked in to its
+box. Without ptys (Windows), or with `--sockets`, each box listens on a local
+TCP port and the same `SerialSource` opens `socket://127.0.0.1:PORT` through
+pyserial, as it opens a COM port; with `--files` each box appends to a log
+file read by the real `FileTail`. History: the generated session files are imported into the demo
 database with the store's importer in a worker job (progress in the status
 bar), and animal pages read their history from the store once it is done;
 where the store has no importer, the parts are computed from the files
@@ -19,6 +21,7 @@ offscreen platform, sizes the window 1366×768 and saves `window.grab()` to
 from __future__ import annotations
 
 import os
+import shutil
 import sys
 import threading
 import tempfile
@@ -49,6 +52,7 @@ class DemoOptions:
     animal: str | None = None
     section: str = "today"
     files: bool = False
+    sockets: bool = False
     fit: bool = True
     wait_history: float = 0.0
     history: tuple[int, ...] | None = None   # sessions of history per animal (default: mock_rig's 1, 8, 20, 75)
@@ -152,12 +156,25 @@ def run(options: DemoOptions, inspect=None) -> int:
     """
     if options.headless:
         os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    temporary = options.folder is None
+    folder = options.folder or Path(tempfile.mkdtemp(prefix="rigside-demo-"))
+    try:
+        return _run(options, folder, inspect)
+    finally:
+        if temporary:
+            shutil.rmtree(folder, ignore_errors=True)
+            if folder.exists():
+                print(f"rigside demo: could not remove {folder}; delete it by hand", file=sys.stderr)
+
+
+def _run(options: DemoOptions, folder: Path, inspect) -> int:
+    """The demo in `folder` (see `run`)."""
     from PySide6.QtCore import QCoreApplication, QEvent, QSettings, QTimer
     from PySide6.QtWidgets import QApplication
 
     from mock_rig.demo import STAGES, prepare_demo, start_demo
     from mock_rig.live import LiveRig, stop_rigs
-    from mock_rig.outputs import FileOutput
+    from mock_rig.outputs import FileOutput, pty_available
     from monitor.app.controller import Controller, RigSpec, StoreHistory, load_protocol, wait_for
     from monitor.app.discovery import discover_devices
     from monitor.core.alerts import AlertRules
@@ -165,7 +182,6 @@ def run(options: DemoOptions, inspect=None) -> int:
     from monitor.ui.main_window import MainWindow
     from monitor.ui.models import CheckIn
 
-    folder = options.folder or Path(tempfile.mkdtemp(prefix="rigside-demo-"))
     folder.mkdir(parents=True, exist_ok=True)
     db_path = options.db or folder / "demo.sqlite3"
     print(f"rigside demo: files in {folder}, database {db_path}", file=sys.stderr)
@@ -188,18 +204,18 @@ def run(options: DemoOptions, inspect=None) -> int:
                         discover_devices=discover_devices,
                         protocols=lambda: [str(d.protocol_path) for d in prepared])
     controller.attach(window, care=options.care)
-    use_files = options.files or not hasattr(os, "openpty")
-    if use_files:
+    if options.files:
         rigs = []
         for d in prepared:
             path = folder / f"{d.animal.board.rig_name}.rsw"
             rigs.append(LiveRig(d.animal, FileOutput(path), speed=options.speed, sessions=None).start())
             controller.add_rig(RigSpec(d.animal.board.rig_name, "file", str(path), d.protocol_path), start=False)
     else:
-        rigs = start_demo(prepared, link_dir=folder / "dev", speed=options.speed)
-        for d in prepared:
-            controller.add_rig(RigSpec(d.animal.board.rig_name, "serial", str(folder / "dev" / d.animal.name),
-                                       d.protocol_path), start=False)
+        via = "socket" if options.sockets or not pty_available() else "pty"
+        rigs = start_demo(prepared, link_dir=folder / "dev", speed=options.speed, via=via)
+        for d, rig in zip(prepared, rigs):   # a pty behind its symlink, or socket://127.0.0.1:PORT
+            port = str(folder / "dev" / d.animal.name) if via == "pty" else str(rig.output.device)
+            controller.add_rig(RigSpec(d.animal.board.rig_name, "serial", port, d.protocol_path), start=False)
     window.resize(1366, 768)
     window.show()
     controller.start()
@@ -240,7 +256,7 @@ def run(options: DemoOptions, inspect=None) -> int:
         stop_rigs(rigs)
         window.deleteLater()  # leave no top-level window behind in a host application (tests)
         QCoreApplication.sendPostedEvents(None, QEvent.Type.DeferredDelete)
-    totals = {name: (rig.snapshot.live.trials if rig.snapshot and rig.snapshot.live else 0)
-              for name, rig in controller.rigs.items()}
-    print("rigside demo: trials per box: " + ", ".join(f"{k} {v}" for k, v in totals.items()), file=sys.stderr)
+    tiles = {name: controller.board.state(name) for name in controller.board.rigs()}   # what the tiles showed
+    print("rigside demo: trials per box: " + ", ".join(f"{name} {state.trials_today if state else 0}"
+                                                       for name, state in tiles.items()), file=sys.stderr)
     return 0 if stored else 1

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import csv
 import os
-import pty
 import select
 import signal
 import sqlite3
@@ -12,7 +11,6 @@ import subprocess
 import sys
 import threading
 import time
-import tty
 from pathlib import Path
 
 import pytest
@@ -127,6 +125,9 @@ def test_sigkill_while_the_file_grows_stores_every_line_exactly_once(tmp_path):
 
 class Board:
     def __init__(self) -> None:
+        import pty  # POSIX only: imported here so the module collects on Windows
+        import tty
+
         self.master, self.slave = pty.openpty()
         tty.setraw(self.master)
         self.name = os.ttyname(self.slave)

@@ -9,11 +9,9 @@ with a timeout (a pty master blocks once ~17 KB are unread).
 from __future__ import annotations
 
 import os
-import pty
 import select
 import threading
 import time
-import tty
 
 import pytest
 import serial
@@ -39,6 +37,9 @@ class FakeBoard:
     """The device end of a pty: write with a timeout, unplug by closing the master."""
 
     def __init__(self) -> None:
+        import pty  # POSIX only: imported here so the module collects on Windows
+        import tty
+
         self.master, self.slave = pty.openpty()
         tty.setraw(self.master)
         self.name = os.ttyname(self.slave)

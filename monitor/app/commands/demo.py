@@ -1,7 +1,8 @@
-"""`rigside demo`: simulated rigs on pseudo-terminals, the real serial path, the store and the full window.
+"""`rigside demo`: simulated rigs through the real serial path (ptys or local sockets), the store and the window.
 
-Rule: this module only parses and checks the options (bad values exit 2 with
-one line); `monitor.app.demo.run` does the work and imports Qt itself.
+Rule: this module only parses and checks the options and the display (bad
+values, no display or missing system libraries exit 2 with one line);
+`monitor.app.demo.run` does the work and imports Qt itself.
 """
 
 from __future__ import annotations
@@ -26,7 +27,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--section", choices=("today", "curve", "consolidation", "sessions"), default="today",
                         help="the animal page's section to show (default today)")
     parser.add_argument("--files", action="store_true",
-                        help="boxes write log files read by the file source (what happens without ptys)")
+                        help="boxes write log files read by the file source")
+    parser.add_argument("--sockets", action="store_true",
+                        help="boxes listen on local TCP ports read through socket:// (what happens without ptys)")
     parser.add_argument("--no-fit", action="store_true", help="do not fit the consolidation model")
     parser.add_argument("--history", metavar="N,N,N,N",
                         help="sessions of generated history of alder, birch, cedar, damson (default 1,8,20,75)")
@@ -44,6 +47,8 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("--screenshot needs --seconds (the picture is taken at the end)")
     if args.headless and args.seconds is None:
         raise UsageError("--headless needs --seconds (there is no window to close)")
+    if args.files and args.sockets:
+        raise UsageError("--files and --sockets: choose one")
     if args.animal is not None and args.animal not in ("alder", "birch", "cedar", "damson"):
         raise UsageError(f"--animal: the demo animals are alder, birch, cedar and damson, not {args.animal!r}")
     history = None
@@ -54,7 +59,12 @@ def run(args: argparse.Namespace) -> int:
             history = ()
         if len(history) != 4 or min(history) < 1:
             raise UsageError(f"--history: four whole numbers of sessions, each at least 1, got {args.history!r}")
+    from monitor.app.first_run import display_problem
     from monitor.app.settings import care_config, settings_path
+
+    problem = display_problem(headless=args.headless)
+    if problem:
+        raise UsageError(problem)
 
     try:
         care = care_config(settings_path(args.settings))
@@ -65,5 +75,6 @@ def run(args: argparse.Namespace) -> int:
 
     return run_demo(DemoOptions(speed=args.speed, seconds=args.seconds, headless=args.headless,
                                 screenshot=args.screenshot, db=args.db, folder=args.folder, seed=args.seed,
-                                animal=args.animal, section=args.section, files=args.files, fit=not args.no_fit,
+                                animal=args.animal, section=args.section, files=args.files, sockets=args.sockets,
+                                fit=not args.no_fit,
                                 wait_history=args.wait_history, history=history, care=care))

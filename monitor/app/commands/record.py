@@ -1,8 +1,9 @@
 """`rigside record`: headless acquisition from one source into the store.
 
 Rule: one source (a serial device or a growing file), one session, one store
-writer; runs until SIGINT/SIGTERM or `--seconds`, then stops the source,
-commits everything it read, closes the session and exits 0. A serial PATH may
+writer; runs until a stop request (Ctrl-C, SIGTERM, a closed console:
+monitor.app.stopping) or `--seconds`, then stops the source, commits
+everything it read, closes the session and exits 0. A serial PATH may
 be a symlink, a COM name or a pyserial URL; after an unplug it is opened again
 by that path (or found by `--usb-serial`). A file the store has never seen is
 read from byte 0, a file it has seen resumes at its stored offset. State
@@ -15,7 +16,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import signal
 import sys
 import threading
 import time
@@ -100,21 +100,23 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
         source = SerialSource(where, sink, usb_serial=args.usb_serial, baudrate=args.baud, decoder=factory(),
                               wait_for_header=not args.no_reset and args.mapping is None)
 
+    from monitor.app.stopping import StopRequests
+
     stop = threading.Event()
-    previous = {sig: signal.signal(sig, lambda *_: stop.set()) for sig in (signal.SIGINT, signal.SIGTERM)}
+    stops = StopRequests(stop.set).install()
     deadline = None if args.seconds is None else time.monotonic() + args.seconds
     try:
         source.start()
         last_state = _watch(source, writer, stop, deadline)
     finally:
         source.stop()
-        for sig, handler in previous.items():
-            signal.signal(sig, handler)
+        stops.restore()
     try:
         writer.call(lambda c: db.end_session(c, session_id))
     except Exception as exc:  # noqa: BLE001 - the events matter more than the end time
         print(f"rigside record: could not mark the session ended: {exc}", file=sys.stderr)
     stored = writer.stop()
+    stops.finished()                    # a console close (Windows) may end the process now
     status, wstatus = source.status(), writer.status()
     print(f"recorded {status.events} events, {status.malformed} malformed lines, {status.gaps} gaps "
           f"into {writer.path} (session {session_id})")

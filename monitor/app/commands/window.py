@@ -5,9 +5,10 @@ directory's rigs.toml; monitor.app.rig_list), the data go to the store
 (`--db`); a rig added from the window's "Add rig" dialog is appended to the
 list, so the window opens with it tomorrow. A bad rig list or protocol file
 is refused before any window opens: one line naming the file, line and key,
-exit 2. Each rig's source starts at once (its events are kept, in a session
+exit 2; so is a PC with no display or without the system libraries Qt
+needs (monitor.app.first_run). Each rig's source starts at once (its events are kept, in a session
 with no animal, until someone checks an animal in). The window's geometry and
-layout are saved between runs. SIGINT/SIGTERM and closing the window stop
+layout are saved between runs. Every platform's stop requests and closing the window stop
 the sources, end open sessions and flush the store; exit 0 when everything
 received was stored, 1 otherwise. `--seconds N` closes after N seconds
 (scripts and tests; with `--screenshot FILE` the window is saved first).
@@ -54,6 +55,11 @@ def run(args: argparse.Namespace) -> int:
         care = care_config(settings_path(args.settings))      # the lab's [care] thresholds
     except ValueError as exc:
         raise UsageError(f"--settings: {exc}") from None
+    from monitor.app.first_run import display_problem
+
+    problem = display_problem(headless=False)
+    if problem:
+        raise UsageError(problem)
     return open_window(resolve_db(args.db), rigs_path, specs, args.seconds, args.screenshot, care)
 
 
