@@ -152,12 +152,12 @@ def _trials_table(trials: list, spans: list[tuple[int, int]], shift_us: int):
         "segment": np.array([t.segment for t in trials], dtype=np.uint32)}
     for name in ("target_ms", "window_low_ms", "window_high_ms"):
         data[name] = np.array([getattr(t, name) for t in trials], dtype=np.float64)
-    for name in ("outcome", "outcome_source", "computed_outcome", "stage"):
-        data[name] = [_text(str(getattr(t, name))) for t in trials]
     described = {"start_time": "trial start (the rig's trial_start, else the first press), s",
                  "stop_time": "trial end (the rig's outcome, else the last press, else the press timeout), s"}
     described.update({name: f"{text}{', ' + unit if unit else ''}" for name, unit, text in TRIAL_FIELDS})
     columns = [VectorData(name=name, description=described[name], data=_gz(values)) for name, values in data.items()]
+    for name in ("outcome", "outcome_source", "computed_outcome", "stage"):
+        columns.extend(_categorical(name, described[name], [_text(str(getattr(t, name))) for t in trials]))
     return TimeIntervals(name="trials", description="trials from trial start to trial end; lone presses, premature "
                          "presses and omissions are rows with their outcome", columns=columns, id=_ids(len(trials)))
 
