@@ -4,7 +4,7 @@ Rule: an animal's record holds what a shared data file needs to say about the
 subject (SUBJECT_FIELDS: lab id, cohort, species as a binomial name or an
 NCBI taxonomy link, sex F/M/U/O as NWB codes it, date of birth or an age in
 days stated on a date, strain, genotype, supplier, baseline weight and its
-date, notes). `add_animal` refuses a name already recorded with any subject
+date, notes). `add_animal` refuses a name already added or holding any subject
 field (an animal first seen in a session file is a bare row and may be added
 over); `edit_animal` changes only the fields given; `retire_animal` marks an
 animal out of training. Each change writes one `animal_changes` row per field
@@ -24,7 +24,7 @@ from monitor.store.records import SEXES, RecordError, iso_local
 
 SUBJECT_FIELDS = ("lab_id", "cohort", "species", "sex", "date_of_birth", "age_days", "age_date", "strain",
                   "genotype", "supplier", "baseline_weight_g", "baseline_weight_date", "notes")
-# What a data file must say about a subject: one of the age fields is enough (REQUIRED_ONE_OF).
+# What a data file must say about a subject, besides its age (date of birth or age in days).
 REQUIRED = ("species", "sex", "strain", "genotype")
 _AGE = ("date_of_birth", "age_days")
 _BINOMIAL = re.compile(r"^[A-Z][a-z]+ [a-z]+( [a-z]+)?$")
@@ -100,7 +100,8 @@ def add_animal(conn: sqlite3.Connection, name: str, by: str, **fields: Any) -> i
     known = get_animal(conn, name)
     at = iso_local(time.time())
     if known is not None:
-        if any(known[k] is not None for k in SUBJECT_FIELDS) or known["retired_at"]:
+        logged = conn.execute("SELECT 1 FROM animal_changes WHERE animal_id = ?", (known["id"],)).fetchone()
+        if logged or known["retired_at"] or any(known[k] is not None for k in SUBJECT_FIELDS):
             raise RecordError(f"animal: {name!r} is already recorded; change it with `rigside animal edit`")
         animal_id = int(known["id"])
     else:
@@ -167,10 +168,10 @@ def list_animals(conn: sqlite3.Connection) -> list[dict[str, Any]]:
 def missing_fields(record: dict[str, Any] | None) -> list[str]:
     """The subject fields a shared data file needs that the record lacks (species, sex, age, strain, genotype)."""
     record = record or {}
-    missing = [k for k in REQUIRED if not record.get(k)]
+    missing = [k for k in REQUIRED[:2] if not record.get(k)]
     if all(record.get(k) is None for k in _AGE):
-        missing.insert(2, "date_of_birth or age")
-    return missing
+        missing.append("date_of_birth or age")
+    return missing + [k for k in REQUIRED[2:] if not record.get(k)]
 
 
 def changes_of(conn: sqlite3.Connection, name: str) -> list[dict[str, Any]]:
