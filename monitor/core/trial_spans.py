@@ -7,8 +7,8 @@ earlier trial began at); otherwise at its first press or crossing. It ends at
 the rig's `outcome` for it (the first one at or after its last press and no
 later than the next trial's first press); without one, at its last press
 (first press + interval); a lone press or an omission without an outcome
-ends when the protocol stopped waiting for a press: `timeout_us` after it
-began. A span is never shorter than 1 µs (the device clock's resolution), so
+ends when the protocol stopped waiting for a press: `timeout_us` after the
+press (or the omitted trial's start). A span is never shorter than 1 µs (the device clock's resolution), so
 no trial has start = stop.
 """
 
@@ -40,6 +40,6 @@ def trial_spans(trials: Sequence[Trial], starts_us: Sequence[int], outcomes_us: 
         elif last_press > trial.t_us:
             end = round(last_press)
         else:
-            end = round(begin + timeout_us(trial))
+            end = round(trial.t_us + timeout_us(trial))
         spans.append((begin, max(end, begin + 1)))
     return spans

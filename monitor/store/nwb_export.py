@@ -210,7 +210,8 @@ def _subject(record: dict | None, animal: str, start: datetime, weight_g: float 
         age = f"P{(start.date() - born).days}D"
     elif record.get("age_days") is not None:
         stated = date.fromisoformat(record["age_date"]) if record.get("age_date") else start.date()
-        age = f"P{record['age_days'] + (start.date() - stated).days}D"
+        days = record["age_days"] + (start.date() - stated).days
+        age = f"P{days}D" if days >= 0 else None  # an age stated after the session can put it before birth
     about = [f"{k.replace('_', ' ')} {record[k]}" for k in ("lab_id", "cohort", "supplier") if record.get(k)]
     if record.get("baseline_weight_g"):
         about.append(f"baseline weight {record['baseline_weight_g']:g} g"

@@ -174,3 +174,33 @@ def test_rewritten_export_replaces_files_whole(tmp_path, capsys, history):
     assert set(first) == {p.name for p in target.iterdir()}
     with pynwb.NWBHDF5IO(str(target / "sub-birch_ses-001_behavior.nwb"), "r") as io:
         assert io.read().subject.species == "Rattus norvegicus"
+
+
+def test_a_rig_without_outcomes_still_gives_spans_the_checker_accepts(tmp_path, capsys):
+    """Older firmware sends no outcome: lone presses end when the protocol stops waiting (its trial_timeout_ms)."""
+    import tomllib
+
+    out = tmp_path / "h"
+    write_history(out, cohort(1, seed=4, legacy=True), days=1)
+    db = tmp_path / "store.sqlite3"
+    protocol = out / "alder.protocol.toml"
+    assert run_cli(capsys, "import", *sorted(out.glob("alder_s*.rsw")), "--protocol", protocol, "--db", db,
+                   "--no-fit")[0] == 0
+    run_animal_script(capsys, out / "animals.sh", db, "alder")
+    assert run_cli(capsys, "export", "--db", db, "--nwb", tmp_path / "nwb")[0] == 0
+    path = tmp_path / "nwb" / "sub-alder_ses-001_behavior.nwb"
+    levels = inspector_levels(path)  # nwbinspector, DANDI configuration
+    assert not levels & {"CRITICAL", "BEST_PRACTICE_VIOLATION"}, levels
+    document = tomllib.loads(protocol.read_text())  # the protocol file as written, read by tomllib
+    stages = {s["name"]: s for s in document.get("stages", [])}
+    with pynwb.NWBHDF5IO(str(path), "r") as io:
+        trials = io.read().trials.to_dataframe()
+    assert (trials["outcome_source"] == "computed").all() and (trials["stop_time"] > trials["start_time"]).all()
+    lone = trials[trials["outcome"] == "lone"]
+    assert len(lone) > 0
+    for _, row in lone.iterrows():
+        stage = stages.get(row["stage"], {})
+        # docs/protocol.md: a stage's timeout, else [protocol] trial_timeout_ms, else 3 x the target
+        timeout_ms = stage.get("trial_timeout_ms", document["protocol"].get("trial_timeout_ms", 3 * row["target_ms"]))
+        timeout_s = timeout_ms / 1000
+        assert row["stop_time"] - row["first_press_time"] == pytest.approx(timeout_s, abs=2e-6)
