@@ -4,8 +4,9 @@ Rule: reads and writes go through the controller's worker jobs and its single
 store writer (monitor.store.animals, one transaction each), never on the GUI
 thread. A refused value comes back as the store's one-line reason and is shown
 in the window; nothing is half-written. An animal added here joins the
-check-in list at once (the controller's `recorded_animals`), so a new name
-typed at check-in can be added and checked in without leaving the dialog flow.
+check-in list at once (the controller's `recorded_animals`): a new name typed
+at check-in closes that dialog, opens this window with the name filled in,
+and once saved the name is offered at the next check-in.
 """
 
 from __future__ import annotations
@@ -89,6 +90,9 @@ class AnimalRecordsSide:
             if added:
                 self.controller.recorded_animals.add(name)
                 self.controller._refresh_roster()
+                main = self.controller.window
+                if main is not None:
+                    main.statusBar().showMessage(f"{name} added: check it in with Rigs → Check in", 15000)
             self.refresh(select=name)
             self.show_history(name)
 

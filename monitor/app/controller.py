@@ -245,6 +245,7 @@ class Controller(QObject):
         self.window = None
         self.records = None          # eligibility and care (monitor/app/eligibility_care.py) once a window attaches
         self.recorded_animals: set[str] = set()  # added in the animals window this run (offered at check-in)
+        self.animal_records = None   # the animals window's side (monitor/app/animal_window.py) once a window attaches
         self.open_pages: set[str] = set()
         self.history_parts: dict[str, views.HistoryParts] = {}
         self.fits: dict[str, Any] = {}

@@ -117,7 +117,7 @@ class CheckInDialog(RecordDialog):
         self.check_out_button = QPushButton("Check out the animal in this box")
         self.check_out_button.clicked.connect(self.check_out)
         self.new_animal_button = QPushButton("Add as a new animal…")
-        self.new_animal_button.clicked.connect(lambda: self.new_animal.emit(self.animal.currentText().strip()))
+        self.new_animal_button.clicked.connect(self._add_new_animal)
         self.add_row("Box", self.rig)
         self.form.addRow(self.occupant)
         self.add_row("Animal", self.animal)
@@ -144,6 +144,12 @@ class CheckInDialog(RecordDialog):
         self.check_out_button.setEnabled(occupant is not None)
         name = self.animal.currentText().strip()
         self.new_animal_button.setVisible(bool(name) and name not in self.roster.animals)
+
+    def _add_new_animal(self) -> None:
+        """Close, and ask for the animals window with the typed name (check in again once it is added)."""
+        name = self.animal.currentText().strip()
+        self.reject()
+        self.new_animal.emit(name)
 
     def problems(self) -> list[str]:
         return check_in_problems(self.roster, self.animal.currentText(), self.rig.currentText(),

@@ -69,4 +69,4 @@ def test_check_in_offers_to_add_an_unknown_name(qtbot):
     assert not dialog.new_animal_button.isHidden()
     with qtbot.waitSignal(dialog.new_animal) as sent:
         dialog.new_animal_button.click()
-    assert sent.args == ["cedar"]
+    assert sent.args == ["cedar"] and dialog.result() == dialog.DialogCode.Rejected  # closed: nothing checked in
