@@ -79,3 +79,31 @@ def test_csvs_across_a_daylight_saving_change(tmp_path, capsys):
         assert set(pressed["session_time_s"]) <= presses and len(pressed) == 2
     assert trials.groupby("session")["outcome"].agg(list).to_dict() == {1: ["hit", "lone", "omission"],
                                                                       2: ["hit", "lone", "omission"]}
+
+
+def test_a_csv_export_that_fails_midway_leaves_the_earlier_file_whole(tmp_path, capsys, monkeypatch):
+    from monitor.app.commands import export
+    from monitor.store.db import open_store
+
+    write_history(tmp_path / "h", cohort(1, seed=1), days=1)
+    db = tmp_path / "store.sqlite3"
+    assert run_cli(capsys, "import", *sorted((tmp_path / "h").glob("alder_s*.rsw")), "--protocol",
+                   tmp_path / "h" / "alder.protocol.toml", "--db", db, "--no-fit")[0] == 0
+    target = tmp_path / "events.csv"
+    target.write_text("the earlier export\n")
+    calls = []
+
+    def failing(value):
+        calls.append(value)
+        if len(calls) > 500:
+            raise OSError(28, "No space left on device")
+        return value
+
+    monkeypatch.setattr(export, "safe_cell", failing)
+    conn = open_store(db, readonly=True)
+    try:
+        with pytest.raises(OSError):
+            export.write_events_csv(conn, target)
+    finally:
+        conn.close()
+    assert target.read_text() == "the earlier export\n" and sorted(p.name for p in tmp_path.glob("*.part")) == []
