@@ -9,7 +9,9 @@ field (an animal first seen in a session file is a bare row and may be added
 over); `edit_animal` changes only the fields given; `retire_animal` marks an
 animal out of training. Each change writes one `animal_changes` row per field
 (old -> new as text, who, when, in this PC's time zone with its offset), in
-the caller's transaction. Bad values raise `RecordError` naming the field.
+the caller's transaction; fields set elsewhere (records.ensure_animal: the care
+baseline, the demo) are logged the same way. Bad values raise `RecordError`
+naming the field.
 """
 
 from __future__ import annotations
@@ -100,7 +102,8 @@ def add_animal(conn: sqlite3.Connection, name: str, by: str, **fields: Any) -> i
     known = get_animal(conn, name)
     at = iso_local(time.time())
     if known is not None:
-        logged = conn.execute("SELECT 1 FROM animal_changes WHERE animal_id = ?", (known["id"],)).fetchone()
+        logged = conn.execute("SELECT 1 FROM animal_changes WHERE animal_id = ? AND field = 'created'",
+                              (known["id"],)).fetchone()
         if logged or known["retired_at"] or any(known[k] is not None for k in SUBJECT_FIELDS):
             raise RecordError(f"animal: {name!r} is already recorded; change it with `rigside animal edit`")
         animal_id = int(known["id"])
@@ -132,6 +135,13 @@ def _write(conn: sqlite3.Connection, animal_id: int, old: dict[str, Any], new: d
         return
     conn.execute(f"UPDATE animals SET {', '.join(f'{k} = ?' for k in new)} WHERE id = ?",
                  (*new.values(), animal_id))
+    log_changes(conn, animal_id, old, new, by, at)
+
+
+def log_changes(conn: sqlite3.Connection, animal_id: int, old: dict[str, Any], new: dict[str, Any], by: str,
+                at: str | None = None) -> None:
+    """One change-log row per field of `new` (old -> new), by `by`, at `at` (default now)."""
+    at = at or iso_local(time.time())
     for key, value in new.items():
         _log(conn, animal_id, key, old.get(key), value, by, at)
 

@@ -84,3 +84,15 @@ def test_species_accepted_here_is_what_the_nwb_checker_accepts(conn):
         except RecordError:
             accepted = False
         assert accepted == ok, species
+
+
+def test_fields_set_outside_the_records_window_are_logged_too(conn):
+    ensure_animal(conn, "dove")  # a bare row: nothing to log
+    assert changes_of(conn, "dove") == []
+    ensure_animal(conn, "dove", baseline_weight_g=301.0)  # the care baseline sets it this way
+    ensure_animal(conn, "dove", baseline_weight_g=301.0)  # unchanged: no row
+    ensure_animal(conn, "dove", by="Kim, Bo", baseline_weight_g=305.0)
+    assert [(c["field"], c["old"], c["new"], c["by"]) for c in changes_of(conn, "dove")] == [
+        ("baseline_weight_g", None, "301", "rigside"), ("baseline_weight_g", "301", "305", "Kim, Bo")]
+    with pytest.raises(RecordError, match="already recorded"):  # it holds a field now: edit, not add
+        add_animal(conn, "dove", "ana", species="Rattus norvegicus")
