@@ -4,7 +4,6 @@ count time from the same origin."""
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import pytest
 
