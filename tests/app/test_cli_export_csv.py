@@ -4,7 +4,6 @@ count time from the same origin."""
 
 from __future__ import annotations
 
-
 import pytest
 
 from mock_rig.history import cohort, write_history
