@@ -239,7 +239,8 @@ def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_di
     operator = conn.execute("SELECT operator FROM checkins WHERE session_id = ?", (session_id,)).fetchone()
     stages = sorted({t.stage for t in trials} | ({stage} if stage else set()))
     flag = f" EXCLUDED: {reason}" if excluded else ""
-    described = (f"{animal} in {rig}, session {number}: protocol {name!r} version {version}"
+    described = (f"{animal} in {rig}, session {number}: "
+                 f"{f'protocol {name!r} version {version}' if name else 'no protocol'}"
                  f"{', stage ' + ', '.join(stages) if stages else ''}, {len(trials)} trial records{flag}")
     conditions = conditions_of(conn, session_id)
     nwb = NWBFile(
@@ -288,8 +289,14 @@ def export_nwb(conn: sqlite3.Connection, out_dir: Path, settings: dict | None = 
         if missing:
             result.warnings.append(f"{animal}: subject record lacks {', '.join(missing)} "
                                    f"(exported without; add with `rigside animal edit {animal} ...`)")
+    labels: dict[str, str] = {}
     for done, (session_id, animal) in enumerate(sessions, start=1):
         counts[animal] = counts.get(animal, 0) + 1
+        first = labels.setdefault(subject_label(animal), animal)
+        if first != animal:
+            result.failed.append(f"{animal} session {counts[animal]} (its file name would be {first}'s: "
+                                 f"sub-{subject_label(animal)}; rename one of them)")
+            continue
         try:
             path = write_session(conn, session_id, counts[animal], out_dir, settings)
         except Exception as exc:  # noqa: BLE001 - one session's fault must not stop the others

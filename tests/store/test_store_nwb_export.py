@@ -210,3 +210,17 @@ def test_a_rig_without_outcomes_still_gives_spans_the_checker_accepts(tmp_path, 
         timeout_ms = stage.get("trial_timeout_ms", document["protocol"].get("trial_timeout_ms", 3 * row["target_ms"]))
         timeout_s = timeout_ms / 1000
         assert row["stop_time"] - row["first_press_time"] == pytest.approx(timeout_s, abs=2e-6)
+
+
+def test_two_names_that_give_one_file_name_are_not_mixed(tmp_path):
+    from monitor.store.nwb_export import export_nwb
+
+    conn = open_store(tmp_path / "store.sqlite3")
+    for animal in ("oak 1", "oak-1"):  # both would be sub-oak-1 (DANDI labels: letters, digits, "-")
+        records.check_in(conn, animal=animal, rig="box1", operator="Kim, Bo", protocol_id=None)
+    result = export_nwb(conn, tmp_path / "nwb")
+    conn.close()
+    assert [p.name for p in result.written] == ["sub-oak-1_ses-001_behavior.nwb"]
+    assert len(result.failed) == 1 and result.failed[0].startswith("oak-1 session 1")
+    with pynwb.NWBHDF5IO(str(result.written[0]), "r") as io:
+        assert "rigside name oak 1" in io.read().subject.description
