@@ -54,3 +54,29 @@ def test_add_from_the_window_then_a_refusal_in_place(qtbot, tmp_path):
     assert window.error.text().startswith("species: expected a binomial name")
     assert get_animal(conn, "cedar")["species"] == "Rattus norvegicus"
     conn.close()
+
+
+def test_retire_and_edit_from_the_window(qtbot, tmp_path, monkeypatch):
+    from PySide6.QtWidgets import QInputDialog
+
+    conn = open_store(tmp_path / "store.sqlite3")
+    controller = Controller(conn)
+    side = AnimalRecordsSide(controller)
+    window = side.open("")
+    qtbot.addWidget(window)
+    window.start_new("elm")
+    window.operator.setText("Kim, Bo")
+    window.inputs["sex"].setCurrentIndex(window.inputs["sex"].findData("F"))
+    window.save_button.click()
+    window.table.selectRow(0)
+    assert window.name.text() == "elm" and window.save_button.text() == "Save changes"
+    window.inputs["strain"].setText("Wistar")
+    window.save_button.click()
+    assert get_animal(conn, "elm")["strain"] == "Wistar"
+    monkeypatch.setattr(QInputDialog, "getText", lambda *a, **k: ("moved to another study", True))
+    window.table.selectRow(0)
+    window.retire_button.click()
+    assert get_animal(conn, "elm")["retired_reason"] == "moved to another study"
+    assert window.table.item(0, 8).text().startswith("retired ")
+    assert [c["field"] for c in changes_of(conn, "elm")][-3:] == ["strain", "retired_at", "retired_reason"]
+    conn.close()
