@@ -11,14 +11,18 @@ change in log(interval / naive interval) carried by each state, and
 `consolidation` = slow / (fast + slow), in [0, 1]. Stages advance between
 sessions when a session meets the stage's criterion. On request, a
 `NAME.trials.csv` per animal gives the latent states trial by trial.
+`animals.sh` holds one `rigside animal add` line per animal with its subject
+record (SUBJECT: species, sex, date of birth, strain, genotype, ...), to run
+with the database as its argument.
 """
 
 from __future__ import annotations
 
 import json
 import math
+import shlex
 from dataclasses import dataclass, field
-from datetime import date, datetime
+from datetime import date, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -190,9 +194,35 @@ def write_history(
     for animal in animals:
         train(animal, session_days, out, trial_truth)
         (out / f"{animal.name}.protocol.toml").write_text(protocol_toml(animal.protocol))
+    (out / "animals.sh").write_text(animals_script(animals, first_day))
     truth = truth_document(animals)
     (out / "truth.json").write_text(json.dumps(truth, indent=1))
     return truth
+
+
+SUBJECT = {"species": "Rattus norvegicus", "strain": "Long-Evans", "genotype": "wild type",
+           "supplier": "in-house colony"}
+BIRTH_DAYS_BEFORE = 70  # the cohort was born this many days before the first training day (plus the animal's index)
+BASELINE_G = (335.0, 410.0)  # baseline weights of females and males before water restriction, g
+
+
+def subject_record(index: int, name: str, first_day: date = scenario.FIRST_DAY) -> dict:
+    """The subject record of the cohort's `index`-th animal (options of `rigside animal add`)."""
+    sex = "F" if index % 2 == 0 else "M"
+    born = first_day - timedelta(days=BIRTH_DAYS_BEFORE + index)
+    return {"name": name, "lab-id": f"R{index + 1:03d}", "cohort": scenario.COHORT, **SUBJECT, "sex": sex,
+            "date-of-birth": born.isoformat(), "baseline-weight-g": f"{BASELINE_G[index % 2]:g}",
+            "baseline-weight-date": (first_day - timedelta(days=7)).isoformat()}
+
+
+def animals_script(animals: list[Animal], first_day: date = scenario.FIRST_DAY) -> str:
+    """`animals.sh`: one `rigside animal add` line per animal; run it as `sh animals.sh DB`."""
+    lines = ["#!/bin/sh", "# the cohort's subject records: sh animals.sh DATABASE", 'DB="${1:?give the database}"']
+    for index, animal in enumerate(animals):
+        record = subject_record(index, animal.name, first_day)
+        options = " ".join(f"--{k} {shlex.quote(v)}" for k, v in record.items() if k != "name")
+        lines.append(f'rigside animal add {shlex.quote(animal.name)} {options} --db "$DB"')
+    return "\n".join(lines) + "\n"
 
 
 def truth_document(animals: list[Animal]) -> dict:

@@ -29,6 +29,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "decide": ("monitor.app.commands.decide", "record a person's eligibility decision"),
     "assign": ("monitor.app.commands.assign", "draw an animal's group at random and record it; reveal a blinding key"),
     "log": ("monitor.app.commands.log", "check the decision log"),
+    "animal": ("monitor.app.commands.animal", "subject records: add, edit, retire, list animals (changes logged)"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
 }
 

@@ -244,6 +244,8 @@ class Controller(QObject):
         self.rigs: dict[str, _Rig] = {}
         self.window = None
         self.records = None          # eligibility and care (monitor/app/eligibility_care.py) once a window attaches
+        self.recorded_animals: set[str] = set()  # added in the animals window this run (offered at check-in)
+        self.animal_records = None   # the animals window's side (monitor/app/animal_window.py) once a window attaches
         self.open_pages: set[str] = set()
         self.history_parts: dict[str, views.HistoryParts] = {}
         self.fits: dict[str, Any] = {}
@@ -307,6 +309,10 @@ class Controller(QObject):
 
         self.records = DecisionsAndCare(self, care)
         self.records.attach(window)
+        from monitor.app.animal_window import AnimalRecordsSide
+
+        self.animal_records = AnimalRecordsSide(self)
+        self.animal_records.attach(window)
 
     def install_signal_handlers(self, app: QApplication) -> None:
         """Every platform's stop requests (monitor.app.stopping) close cleanly (the 20 Hz timer lets
@@ -404,7 +410,8 @@ class Controller(QObject):
         self.run_job(f"adding {setup.name}", lambda job: self._register(spec), self._start_rig)
 
     def roster(self) -> Roster:
-        animals = sorted(set(self.protocols) | {r.animal for r in self.rigs.values() if r.animal})
+        animals = sorted(set(self.protocols) | {r.animal for r in self.rigs.values() if r.animal}
+                         | self.recorded_animals)
         stages = sorted({s.name for p in [*self.protocols.values(), *(r.protocol for r in self.rigs.values())]
                          for s in p.protocol.stages})
         usual = {a: tuple(sorted({row.rig for row in parts.sessions if row.rig}))

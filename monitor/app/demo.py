@@ -116,6 +116,7 @@ def importer_available() -> bool:
 def import_history(controller, prepared, done: threading.Event) -> None:
     """Import every demo session file into the store, in a worker job; set `done` at the end."""
     from monitor.store.importer import ImportRefused, import_file
+    from mock_rig.history import subject_record
     from monitor.store.records import ensure_animal
 
     files = [(d, path) for d in prepared for path in d.session_files]
@@ -123,9 +124,11 @@ def import_history(controller, prepared, done: threading.Event) -> None:
     def work(job) -> int:
         count = 0
         try:
-            for d in prepared:      # the cohort's records: a baseline weight for the care day's percentage
-                controller.writer.call(lambda c, name=d.animal.name: ensure_animal(
-                    c, name, cohort=scenario.COHORT, species="Rattus norvegicus", baseline_weight_g=BASELINE_WEIGHT_G))
+            for k, d in enumerate(prepared):  # the cohort's subject records; the baseline for the care day's percentage
+                subject = subject_record(k, d.animal.name)
+                controller.writer.call(lambda c, name=d.animal.name, r=subject: ensure_animal(
+                    c, name, cohort=scenario.COHORT, species=r["species"], strain=r["strain"], sex=r["sex"],
+                    date_of_birth=r["date-of-birth"], genotype=r["genotype"], baseline_weight_g=BASELINE_WEIGHT_G))
             for k, (d, path) in enumerate(files):
                 job.progress(k / len(files), f"{path.name}")
                 text = d.protocol_path.read_text(encoding="utf-8")

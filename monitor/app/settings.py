@@ -54,3 +54,30 @@ def care_config(path: Path | None) -> CareConfig:
         raise ValueError(f"cannot read {path} ({exc.strerror or exc})") from None
     except (ConfigError, tomllib.TOMLDecodeError) as exc:
         raise ValueError(str(exc)) from None
+
+
+EXPORT_KEYS = {"institution": str, "lab": str, "experiment_description": str, "keywords": list}
+
+
+def export_settings(path: Path | None) -> dict:
+    """The `[export]` table of a settings file (NWB file metadata: EXPORT_KEYS); ValueError names file and key."""
+    if path is None:
+        return {}
+    import tomllib
+
+    from drivers.config import ConfigError, TomlFile
+
+    try:
+        doc = TomlFile(Path(path).read_text(encoding="utf-8"), str(path))
+        table = doc.data.get("export", {})
+        for key, value in table.items():
+            kind = EXPORT_KEYS.get(key)
+            if kind is None:
+                raise doc.error("export", key, f"unknown key (expected one of: {', '.join(EXPORT_KEYS)})")
+            if not isinstance(value, kind) or (kind is list and not all(isinstance(v, str) for v in value)):
+                raise doc.error("export", key, "expected a list of texts" if kind is list else "expected a text")
+        return dict(table)
+    except OSError as exc:
+        raise ValueError(f"cannot read {path} ({exc.strerror or exc})") from None
+    except (ConfigError, tomllib.TOMLDecodeError) as exc:
+        raise ValueError(str(exc)) from None

@@ -9,8 +9,9 @@ check-in opens a session for (animal, rig) with the operator, the weight
 before, the stage and protocol version in force, and a warning when the rig
 is not one of the animal's usual boxes; a check-out closes it. Conditions
 (surgery, inactivation, infusion, ...) attach to sessions. An excluded session
-keeps its data but is left out of curves and fits, with its reason. Bad values
-raise `RecordError` naming the field.
+keeps its data but is left out of curves and fits, with its reason. A subject
+field that `ensure_animal` changes is written to the animal's change log.
+Bad values raise `RecordError` naming the field.
 """
 
 from __future__ import annotations
@@ -24,6 +25,7 @@ from typing import Any, NamedTuple, Sequence
 ANIMAL_FIELDS = ("cohort", "species", "strain", "sex", "date_of_birth", "genotype", "usual_boxes",
                  "baseline_weight_g")
 SEXES = ("F", "M", "U", "O")  # NWB's subject sex codes
+AUTOMATIC = "rigside"  # who a change is logged as when no person is named (care baseline, the demo)
 
 
 class RecordError(ValueError):
@@ -64,8 +66,13 @@ def _check_animal_fields(fields: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
-def ensure_animal(conn: sqlite3.Connection, name: str, **fields: Any) -> int:
-    """The id of animal `name`, created on first use; given fields are stored (None leaves one as it is)."""
+def ensure_animal(conn: sqlite3.Connection, name: str, by: str = AUTOMATIC, **fields: Any) -> int:
+    """The id of animal `name`, created on first use; given fields are stored (None leaves one as it is).
+
+    A field that changes is logged in the animal's change log (monitor.store.animals) as made by `by`.
+    """
+    from monitor.store.animals import log_changes
+
     if not isinstance(name, str) or not name.strip():
         raise RecordError("animal: a name is needed")
     values = {k: v for k, v in _check_animal_fields(fields).items() if v is not None}
@@ -74,10 +81,16 @@ def ensure_animal(conn: sqlite3.Connection, name: str, **fields: Any) -> int:
         cols = ["name", "created_at", *values]
         cur = conn.execute(f"INSERT INTO animals ({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})",
                            (name, time.time(), *values.values()))
+        log_changes(conn, int(cur.lastrowid), {k: None for k in values}, values, by)
         return int(cur.lastrowid)
     if values:
-        conn.execute(f"UPDATE animals SET {', '.join(f'{k} = ?' for k in values)} WHERE id = ?",
-                     (*values.values(), row[0]))
+        old = dict(zip(values, conn.execute(f"SELECT {', '.join(values)} FROM animals WHERE id = ?",
+                                            (row[0],)).fetchone()))
+        changed = {k: v for k, v in values.items() if old[k] != v}
+        if changed:
+            conn.execute(f"UPDATE animals SET {', '.join(f'{k} = ?' for k in changed)} WHERE id = ?",
+                         (*changed.values(), row[0]))
+            log_changes(conn, int(row[0]), old, changed, by)
     return int(row[0])
 
 

@@ -28,6 +28,10 @@ as it was: no index.
 Version 3 (random assignment): assignment_plans, one row per cohort (method,
 seed, groups, per_block, blinded), insert-only like the decisions: a plan is
 never changed once its seed is drawn.
+
+Subject records: animals gain lab id, supplier, age (days, stated on a date),
+the baseline weight's date, notes and retirement; `animal_changes` logs every
+change of a record (field, old -> new, who, when), rows only added.
 """
 
 from __future__ import annotations
@@ -325,11 +329,40 @@ _V3 = (
         BEGIN SELECT RAISE(ABORT, '{_NO_REPLAN}'); END""",
 )
 
+_NO_REWRITE = "the animal change log is append-only"
+
+_SUBJECTS = (
+    "ALTER TABLE animals ADD COLUMN lab_id TEXT",
+    "ALTER TABLE animals ADD COLUMN supplier TEXT",
+    "ALTER TABLE animals ADD COLUMN age_days INTEGER CHECK (age_days IS NULL OR age_days >= 0)",
+    "ALTER TABLE animals ADD COLUMN age_date TEXT",           # ISO date on which age_days was stated
+    "ALTER TABLE animals ADD COLUMN baseline_weight_date TEXT",  # ISO date of the baseline weighing
+    "ALTER TABLE animals ADD COLUMN notes TEXT",
+    "ALTER TABLE animals ADD COLUMN retired_at TEXT",         # ISO 8601 with UTC offset; NULL: in training
+    "ALTER TABLE animals ADD COLUMN retired_reason TEXT",
+    """CREATE TABLE animal_changes (
+        id INTEGER PRIMARY KEY,
+        animal_id INTEGER NOT NULL REFERENCES animals(id),
+        field TEXT NOT NULL,            -- a column of animals ('created' when the record was added)
+        old TEXT,                       -- the value before, as text; NULL when empty
+        new TEXT,
+        by TEXT NOT NULL,
+        at TEXT NOT NULL                -- ISO 8601 with UTC offset
+    )""",
+    "CREATE INDEX animal_changes_by_animal ON animal_changes (animal_id, id)",
+    f"""CREATE TRIGGER animal_changes_no_update BEFORE UPDATE ON animal_changes
+        BEGIN SELECT RAISE(ABORT, '{_NO_REWRITE}'); END""",
+    f"""CREATE TRIGGER animal_changes_no_delete BEFORE DELETE ON animal_changes
+        BEGIN SELECT RAISE(ABORT, '{_NO_REWRITE}'); END""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
               "care log, fits, alerts", _V2),
     Migration("assignment plans", _V3),
+    Migration("subject records: lab id, supplier, age, baseline date, notes, retirement; animal change log",
+              _SUBJECTS),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

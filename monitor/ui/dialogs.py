@@ -85,6 +85,7 @@ class CheckInDialog(RecordDialog):
 
     checked_in = Signal(object)     # CheckIn
     checked_out = Signal(str)       # rig
+    new_animal = Signal(str)        # a name not in the list: open the animals window to add it
 
     def __init__(self, roster: Roster, rig: str | None = None, operator: str = "",
                  parent: QWidget | None = None) -> None:
@@ -115,9 +116,12 @@ class CheckInDialog(RecordDialog):
         self.occupant = plain_label()
         self.check_out_button = QPushButton("Check out the animal in this box")
         self.check_out_button.clicked.connect(self.check_out)
+        self.new_animal_button = QPushButton("Add as a new animal…")
+        self.new_animal_button.clicked.connect(self._add_new_animal)
         self.add_row("Box", self.rig)
         self.form.addRow(self.occupant)
         self.add_row("Animal", self.animal)
+        self.form.addRow(self.new_animal_button)
         self.add_row("Operator", self.operator)
         self.add_row("Weight", self.weight)
         self.add_row("Stage", self.stage)
@@ -138,6 +142,14 @@ class CheckInDialog(RecordDialog):
         occupant = self.roster.occupied.get(rig)
         self.occupant.setText(f"{occupant} is checked in here." if occupant else "This box is free.")
         self.check_out_button.setEnabled(occupant is not None)
+        name = self.animal.currentText().strip()
+        self.new_animal_button.setVisible(bool(name) and name not in self.roster.animals)
+
+    def _add_new_animal(self) -> None:
+        """Close, and ask for the animals window with the typed name (check in again once it is added)."""
+        name = self.animal.currentText().strip()
+        self.reject()
+        self.new_animal.emit(name)
 
     def problems(self) -> list[str]:
         return check_in_problems(self.roster, self.animal.currentText(), self.rig.currentText(),

@@ -41,6 +41,7 @@ SHORTCUTS = {
     "decide": "Ctrl+D",
     "decisions": "Ctrl+Shift+D",
     "care": "Ctrl+J",
+    "animal_records": "Ctrl+Shift+A",
 }
 
 
@@ -61,6 +62,7 @@ class MainWindow(QMainWindow):
     decision_requested = Signal(str)       # animal ('' when no page is open): open the decision dialog
     history_requested = Signal(str)        # animal: show its logged decisions
     care_requested = Signal()              # open the care window (the day's water ledger)
+    animals_requested = Signal(str)        # open the animals window ('' or a new animal's name)
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
                  roster: Roster | None = None, discover_devices: Callable[[], Sequence[SerialDevice]] = tuple,
@@ -134,6 +136,7 @@ class MainWindow(QMainWindow):
         animals.addAction(self._action("decisions", "Decision &history…",
                                        lambda: self.history_requested.emit(self.current_animal())))
         animals.addAction(self._action("care", "&Care today…", self.care_requested.emit))
+        animals.addAction(self._action("animal_records", "Animal &records…", lambda: self.animals_requested.emit("")))
         alerts = self.menuBar().addMenu("A&lerts")
         alerts.addAction(self._action("acknowledge", "&Acknowledge", self.alert_panel.acknowledge_selected,
                                       "acknowledge"))
@@ -222,6 +225,7 @@ class MainWindow(QMainWindow):
                                parent=self)
         dialog.checked_in.connect(self.checked_in)
         dialog.checked_out.connect(self.checked_out)
+        dialog.new_animal.connect(self.animals_requested)
         return self._show(dialog)
 
     def open_check_out(self) -> CheckInDialog:

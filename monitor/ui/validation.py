@@ -26,7 +26,7 @@ def check_in_problems(roster: Roster, animal: str, rig: str, operator: str, weig
     if not animal.strip():
         problems.append("Animal: choose which animal goes into the box.")
     elif roster.animals and animal not in roster.animals:
-        problems.append(f"Animal: {animal!r} is not in this cohort; add it first or pick one from the list.")
+        problems.append(f"Animal: {animal!r} is not in this cohort; add it as a new animal first or pick one from the list.")
     if not rig.strip():
         problems.append("Box: choose the box the animal is in.")
     elif roster.rigs and rig not in roster.rigs:

@@ -138,7 +138,7 @@ def test_export_trials_csv_and_nwb(tmp_path, capsys, history):
     assert code == 0, err
     files = sorted(nwb_dir.glob("*.nwb"))
     assert len(files) == len(sessions)
-    with pynwb.NWBHDF5IO(str(nwb_dir / "alder_session1.nwb"), "r") as io:  # read back with pynwb itself
+    with pynwb.NWBHDF5IO(str(nwb_dir / "sub-alder_ses-001_behavior.nwb"), "r") as io:  # read back with pynwb itself
         nwb = io.read()
         assert nwb.subject.subject_id == "alder" and nwb.subject.species == "Rattus norvegicus"
         assert nwb.subject.sex == "F" and nwb.subject.genotype == "=cmd()"
@@ -149,11 +149,11 @@ def test_export_trials_csv_and_nwb(tmp_path, capsys, history):
         assert int((trials["outcome"] == "hit").sum()) == first["hits"]
         assert {"interval_ms", "outcome", "target_ms", "window_low_ms", "window_high_ms", "stage"} <= set(trials)
         presses = events[events["event"] == "lever_down"]["timestamp"].to_numpy()
-        # a completed trial starts at its first press: each start is a press time in the events table
+        # a completed trial's first press is a press time in the events table
         done = trials[trials["outcome"].isin(["hit", "miss"])]
-        assert set(done["start_time"].round(6)) <= set(presses.round(6))
+        assert set(done["first_press_time"].round(6)) <= set(presses.round(6))
         assert nwb.session_start_time.isoformat() == first["start"]
-    with pynwb.NWBHDF5IO(str(nwb_dir / "alder_session2.nwb"), "r") as io:
+    with pynwb.NWBHDF5IO(str(nwb_dir / "sub-alder_ses-002_behavior.nwb"), "r") as io:
         assert "EXCLUDED: @cable loose" in io.read().session_description
 
 

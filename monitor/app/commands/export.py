@@ -1,16 +1,22 @@
 """`rigside export events|trials --db DB --csv FILE` and `rigside export --db DB --nwb DIR`.
 
 Rule: events: a header row, then one row per event in the order it was
-stored, with the columns `animal`, `session`, `rig`, `segment`, `line`,
+stored (EVENT_COLUMNS): `animal`, `session`, `rig`, `segment`, `line`,
 `device_time` (the counter as the rig sent it), `t_us` (unwrapped device time
-in µs within the segment), `event`, `value`. Trials: one row per derived
-trial (TRIAL_CSV_COLUMNS), sessions in time order, excluded sessions included
-with their flag. The store is opened read-only and streamed, so exporting
-never holds a whole table in memory and never blocks recording. A cell that
-begins with = + - @ (or a tab or carriage return) and is not a number gets a
-leading apostrophe, so a spreadsheet shows it instead of running it. NWB:
-one file per session (monitor.store.nwb_export; needs the `nwb` extra), a
-progress line per file on stderr.
+in µs within the segment), `session_time_s` (seconds after the session's
+start on the device clock: the trials CSV's origin, monitor.store.session_time),
+`wall_time` (ISO 8601 with the session's UTC offset), `event`, `value`.
+Trials: one row per derived trial (TRIAL_CSV_COLUMNS, units in
+docs/export.md), sessions in time order, excluded sessions included with
+their flag. The store is opened read-only and streamed, so exporting never
+holds a whole table in memory and never blocks recording. A CSV is written
+under a temporary name and renamed when complete. A cell that begins with
+= + - @ (or a tab or carriage return) and is not a number gets a leading
+apostrophe, so a spreadsheet shows it instead of running it. NWB: one file
+per session (monitor.store.nwb_export; needs the `nwb` extra), a progress
+line per file and a warning line per animal with an incomplete subject
+record on stderr; sessions that fail are named in one error line (exit 1)
+after the others are written.
 """
 
 from __future__ import annotations
@@ -22,16 +28,19 @@ from pathlib import Path
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
+from monitor.app.settings import add_settings_argument, export_settings, settings_path
 
-EVENT_COLUMNS = ("animal", "session", "rig", "segment", "line", "device_time", "t_us", "event", "value")
+EVENT_COLUMNS = ("animal", "session", "rig", "segment", "line", "device_time", "t_us", "session_time_s",
+                 "wall_time", "event", "value")
 TRIAL_CSV_COLUMNS = ("animal", "session", "session_start", "rig", "label", "excluded", "trial", "t_us",
+                     "session_time_s",
                      "interval_ms", "outcome", "rewarded", "outcome_source", "computed_outcome", "target_ms",
                      "window_low_ms", "window_high_ms", "stage", "segment")
 _NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 _EVENTS_SQL = """
-SELECT s.animal, e.session_id, s.rig, e.segment, e.line, e.raw_time, e.t_us, c.name, e.value
+SELECT s.animal, e.session_id, s.rig, e.segment, e.line, e.raw_time, e.t_us, c.name, e.value, s.start_wall
 FROM events AS e
 JOIN sessions AS s ON s.id = e.session_id
 JOIN event_codes AS c ON c.code = e.code
@@ -52,6 +61,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser)
     parser.add_argument("--csv", type=Path, help="CSV file to write")
     parser.add_argument("--nwb", type=Path, help="directory for NWB files")
+    add_settings_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -92,37 +102,83 @@ def _export_nwb(args: argparse.Namespace) -> int:
         raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
     from monitor.store.nwb_export import export_nwb
 
+    try:
+        settings = export_settings(settings_path(args.settings))
+    except ValueError as exc:
+        raise UsageError(f"--settings: {exc}") from None
     conn = _open(args)
     try:
-        paths = export_nwb(conn, args.nwb, lambda i, n, p: print(f"[{i}/{n}] {p.name}", file=sys.stderr))
+        result = export_nwb(conn, args.nwb, settings, lambda i, n, p: print(f"[{i}/{n}] {p.name}", file=sys.stderr))
     except OSError as exc:
         raise UsageError(f"--nwb: cannot write into {args.nwb} ({exc.strerror or exc})") from None
     finally:
         conn.close()
-    print(f"exported {len(paths)} sessions to {args.nwb}")
+    for line in result.warnings:
+        print(f"rigside export: warning: {line}", file=sys.stderr)
+    print(f"exported {len(result.written)} sessions to {args.nwb}")
+    if result.failed:
+        print(f"rigside export: error: {len(result.failed)} sessions not written: {'; '.join(result.failed)}",
+              file=sys.stderr)
+        return 1
     return 0
+
+
+def _atomic(path: Path):
+    """Open `path`'s temporary twin for writing; rename it to `path` when the block ends without error."""
+    import contextlib
+    import os
+
+    @contextlib.contextmanager
+    def writing():
+        part = path.with_name(path.name + ".part")
+        try:
+            with open(part, "w", newline="", encoding="utf-8") as out:
+                yield out
+            os.replace(part, path)
+        finally:
+            part.unlink(missing_ok=True)
+    return writing()
 
 
 def write_events_csv(conn, path: Path) -> int:
     """Stream every event to `path`; return the number of rows written."""
+    from datetime import datetime
+
+    from monitor.store.session_time import SessionClock, start_shift_us, wall_clock
+
+    clocks: dict[int, tuple[SessionClock, int, datetime]] = {}
     count = 0
-    with open(path, "w", newline="", encoding="utf-8") as out:
+    with _atomic(path) as out:
         writer = csv.writer(out)
         writer.writerow(EVENT_COLUMNS)
-        for row in conn.execute(_EVENTS_SQL):
-            writer.writerow([safe_cell(v) for v in row])
+        for animal, session, rig, segment, line, raw, t_us, event, value, start_wall in conn.execute(_EVENTS_SQL):
+            known = clocks.get(session)
+            if known is None:
+                known = clocks[session] = (SessionClock(), start_shift_us(conn, session, t_us),
+                                           datetime.fromisoformat(start_wall))
+            clock, shift, start = known
+            seconds = (shift + clock.relative(t_us, segment)) / 1e6
+            writer.writerow([safe_cell(v) for v in (animal, session, rig, segment, line, raw, t_us,
+                                                    f"{seconds:.6f}", wall_clock(start, seconds), event, value)])
             count += 1
     return count
 
 
 def write_trials_csv(conn, path: Path) -> int:
     """Stream every derived trial to `path`; return the number of rows written."""
+    from monitor.store.session_time import start_shift_us
+
+    shifts: dict[int, int] = {}
     count = 0
-    with open(path, "w", newline="", encoding="utf-8") as out:
+    with _atomic(path) as out:
         writer = csv.writer(out)
         writer.writerow(TRIAL_CSV_COLUMNS)
         for row in conn.execute(_TRIALS_SQL):
-            writer.writerow([safe_cell(v) for v in row])
+            session = row[1]
+            if session not in shifts:
+                shifts[session] = start_shift_us(conn, session)
+            seconds = f"{(shifts[session] + row[7]) / 1e6:.6f}"
+            writer.writerow([safe_cell(v) for v in (*row[:8], seconds, *row[8:])])
             count += 1
     return count
 

@@ -1,0 +1,73 @@
+"""Trial spans from the rig's own framing: a worked session in the wire format's example (CONTRACTS.md section 1)
+and a rig without framing, checked against the segmentation's own trials."""
+
+from __future__ import annotations
+
+from drivers.wire import WireDecoder
+from monitor.core.protocol import parse_protocol
+from monitor.core.session.trial_spans import trial_spans
+from monitor.core.session.trials import TrialBuilder
+
+PROTOCOL = parse_protocol("""
+[protocol]
+name = "two-press 650 ms"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+trial_timeout_ms = 3000
+""", "<test>")
+
+# the wire format's own example session (CONTRACTS.md section 1), then a lone press and an omission
+FRAMED = b"""# rigside-wire 1 clock=us wrap=32 fw=box-v3 start=2026-03-02T09:14:03+01:00
+1048576 trial_start
+1048900 lever_down
+1049702 lever_up
+1712004 lever_down
+1712998 lever_up
+1713000 outcome hit
+1713500 reward 30
+2000000 trial_start
+2100000 lever_down
+2200000 lever_up
+5100000 outcome lone
+6000000 trial_start
+9000000 outcome omission
+"""
+
+UNFRAMED = b"""# rigside-wire 1 clock=us wrap=32 fw=old-v1
+1000000 lever_down
+1100000 lever_up
+1700000 lever_down
+1800000 lever_up
+9000000 lever_down
+9100000 lever_up
+20000000 lever_down
+"""
+
+
+def spans_of(data: bytes) -> tuple[list, list[tuple[int, int]]]:
+    events = [r for r in WireDecoder().feed(data) if hasattr(r, "name")]
+    builder = TrialBuilder(PROTOCOL)
+    trials, origin = [], events[0].t_us
+    for event in events:
+        trials.extend(builder.feed(event))
+    trials.extend(builder.flush())
+    starts = [e.t_us - origin for e in events if e.name == "trial_start"]
+    outcomes = [e.t_us - origin for e in events if e.name == "outcome"]
+    return trials, trial_spans(trials, starts, outcomes, lambda t: 3_000_000)
+
+
+def test_framed_trials_run_from_trial_start_to_the_rigs_outcome():
+    trials, spans = spans_of(FRAMED)
+    assert [t.outcome for t in trials] == ["hit", "lone", "omission"]
+    origin = 1048576  # µs of the first event: times are session-relative
+    assert spans == [(0, 1713000 - origin), (2000000 - origin, 5100000 - origin), (6000000 - origin, 9000000 - origin)]
+
+
+def test_unframed_trials_end_at_the_second_press_or_the_timeout():
+    trials, spans = spans_of(UNFRAMED)
+    assert [t.outcome for t in trials] == ["hit", "lone", "lone"]
+    # 600 ms pair (a hit of the 650 ms +-20 % window); lone presses end trial_timeout_ms (3 s) after the press
+    assert spans == [(0, 700000), (8000000, 11000000), (19000000, 22000000)]
+    assert all(end > begin for begin, end in spans)
