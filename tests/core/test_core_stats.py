@@ -94,6 +94,11 @@ def test_incremental_equals_from_scratch(events, items):
         assert snap.licks == ref["licks"]
         assert (snap.rolling_hits, snap.rolling_trials) == ref["rolling"]
         assert (snap.rolling_low, snap.rolling_high) == wilson(ref["rolling"][0], ref["rolling"][1])
+        series = live.stats.rate_series()  # one point per completed trial, the last one the snapshot's
+        assert len(series.trial) == snap.trials and not series.rate.flags.writeable
+        if snap.trials:
+            assert same(series.rate[-1], snap.rolling_hit_rate)
+            assert (series.low[-1], series.high[-1]) == (snap.rolling_low, snap.rolling_high)
         for mine, theirs in ((snap.median_interval_ms, ref["median"]), (snap.rolling_median_ms, ref["rolling_median"]),
                              (snap.cv, ref["cv"]), (snap.fixed_window_fraction, ref["fwf"]),
                              (snap.median_abs_log_error, ref["mae"]), (snap.water_ul, ref["water"])):
@@ -118,3 +123,15 @@ def test_stage_change_restarts_interval_figures_but_not_totals(events):
     assert snap.stage == "b" and snap.trials == 2 and snap.stage_trials == 1
     assert snap.median_interval_ms == 1000.0 and snap.target_ms == 1000.0
     assert snap.recent_intervals_ms.tolist() == [1000.0] and not snap.recent_intervals_ms.flags.writeable
+
+
+def test_the_rolling_hit_rate_series_restarts_with_the_stage(events):
+    protocol = parse_protocol(PROTOCOL + '[[stages]]\nname = "a"\n[[stages]]\nname = "b"\ntarget_ms = 1000\n', "s.toml")
+    live = LiveSession(protocol, window=WINDOW)
+    for e in events((0, "lever_down"), (700, "lever_down"), (5000, "param", "stage", "b"),
+                    (6000, "lever_down"), (7500, "lever_down"), (9000, "lick")):
+        live.feed(e)
+    series = live.stats.rate_series()
+    # a hit in stage a, then a miss in b (1500 ms, outside 800-1200): b's rate is its one miss alone, not 1/2
+    assert series.trial.tolist() == [1.0, 2.0] and series.rate.tolist() == [1.0, 0.0]
+    assert (series.low[-1], series.high[-1]) == wilson(0, 1)
