@@ -93,10 +93,6 @@ class PlateauRule:
     min_sessions: int = 5
     chance: float | None = None
 
-    @property
-    def higher_is_better(self) -> bool:
-        return HIGHER_IS_BETTER[self.measure]
-
 
 @dataclass(frozen=True, slots=True)
 class Protocol:
