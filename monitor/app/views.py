@@ -170,7 +170,7 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
                   fit: Mapping[str, Any] | None = None) -> HistoryParts:
     """Learning curve, consolidation panel and session table from an animal's past sessions.
 
-    `fit` is the consolidation block of the store's cached fit (CONTRACTS.md section 5 with its
+    `fit` is the consolidation block of the store's cached fit (the report's block with its
     "trajectory", "forecast" and "current"), or None: measures only.
     """
     from monitor.core.consolidation.measures import since_plateau

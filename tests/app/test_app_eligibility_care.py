@@ -50,7 +50,7 @@ min_hit_rate = 0.0
 def app(qapp, tmp_path):
     start = datetime.now().astimezone().replace(hour=0, minute=5, second=0, microsecond=0)
     data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
-    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (issue 9 check values), each confirmed by a lick
+    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
         t = 1000 + 4000 * k
         data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
         data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")
@@ -79,7 +79,7 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     records = controller.records
     qtbot.waitUntil(lambda: "heron" in records.verdicts and "heron" in records.summaries, timeout=20000)
     assert records.verdicts["heron"].state == "in window: any hit rate"
-    assert records.summaries["heron"].earned_ml == pytest.approx(1.2)     # 40 x 30 µL (issue 9 check values)
+    assert records.summaries["heron"].earned_ml == pytest.approx(1.2)     # 40 x 30 µL (hand arithmetic)
     assert "window opened" in kinds(controller) and "weight missing" in kinds(controller)
     # the page shows both lines
     page = window.open_animal("heron")
@@ -91,7 +91,7 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     records.update()
     qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
     assert len(kinds(controller)) == count
-    # care records through the window: baseline 25.0 g, weight 21.3 g -> 85.2 % (issue 9 check values)
+    # care records through the window: baseline 25.0 g, weight 21.3 g -> 85.2 % (hand arithmetic)
     records.open_care()
     panel = records.care_panel
     assert isinstance(panel, CarePanel)
@@ -164,7 +164,7 @@ def test_blinded_decisions_show_codes_and_compare_with_the_real_group():
 
 
 def test_care_row_check_values():
-    # valve 25 ms at 1.2 µL/ms = 30 µL; 21.3 g against a 25.0 g baseline = 85.2 % (issue 9 check values)
+    # valve 25 ms at 1.2 µL/ms = 30 µL; 21.3 g against a 25.0 g baseline = 85.2 % (hand arithmetic)
     now = datetime.now().astimezone()
     events = [Event(1_000_000, "valve", ("25",), "1000", 0, 1, 0, 0), Event(1_100_000, "lick", (), "1100", 0, 2, 0, 0)]
     water = session_water(events, ul_per_ms=1.2, reward_ul=None, max_valve_ms=250, lick_window_ms=2000,

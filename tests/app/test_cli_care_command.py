@@ -41,7 +41,7 @@ def db(tmp_path, capsys):
     today = datetime.now().astimezone()
     start = today.replace(hour=9, minute=0, second=0, microsecond=0)
     data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
-    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (issue 9's check value), each confirmed by a lick
+    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
         t = 1000 + 4000 * k
         data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
         data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")

@@ -211,7 +211,7 @@ def _trials_via(data: bytes, mode: str, protocol):
 
 
 def test_three_ways_same_trials(basic, stream):
-    # whole input, byte by byte, and a trailing partial line (h11's three ways; DESIGN.md)
+    # whole input, byte by byte, and a trailing partial line (three ways, common practice for sans-I/O parsers)
     data = stream((0, "trial_start"), (100, "lever_down"), (800, "lever_down"), (801, "outcome", "hit"),
                   (1900, "trial_start"), (2000, "lever_down"), (2600, "lever_down"))
     whole = _trials_via(data, "whole", basic)

@@ -1,4 +1,4 @@
-"""Figures read from a per-animal report (CONTRACTS.md §5 shape) feed the rule as documented."""
+"""Figures read from a per-animal report (the shape of animal_report) feed the rule as documented."""
 
 from __future__ import annotations
 

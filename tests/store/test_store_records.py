@@ -188,7 +188,7 @@ def test_care_log_feeds_the_daily_ledger(tmp_path):
     assert care.sessions[0].earned_ul == 4 * 30 and care.sessions[0].unconfirmed == 0
     summary = day_summary(care, date(2026, 3, 2), CareConfig(),
                           now=datetime(2026, 3, 2, 18, 0, tzinfo=timezone(timedelta(hours=1))))
-    # issue 9's check value: 21.3 g against a 25.0 g baseline = 85.2 %
+    # hand arithmetic: 21.3 g against a 25.0 g baseline = 85.2 %
     assert summary.percent_of_baseline == pytest.approx(85.2)
     assert summary.total_ml == pytest.approx(0.12 + 0.5)
     assert summary.notes == ("coat scruffy",)
@@ -203,7 +203,7 @@ def test_the_weight_taken_at_check_in_is_a_weighing_of_the_day(tmp_path):
     assert [(w.grams, w.by) for w in care.weighings] == [(21.3, "ana")]
     summary = day_summary(care, date(2026, 3, 2), CareConfig(),
                           now=datetime(2026, 3, 2, 18, 0, tzinfo=timezone.utc))
-    # issue 9's check value: 21.3 g against a 25.0 g baseline = 85.2 %
+    # hand arithmetic: 21.3 g against a 25.0 g baseline = 85.2 %
     assert summary.percent_of_baseline == pytest.approx(85.2)
 
 

@@ -1,4 +1,4 @@
-"""The per-animal report of CONTRACTS.md §5, built from a protocol and sessions.
+"""The per-animal report (`rigside report`), built from a protocol and sessions.
 
 Rule: pure. `animal_report` takes the protocol and, per session in time
 order, either its events (segmented here with the live `LiveSession`, so the
@@ -87,7 +87,7 @@ def _fixed_window_drops(protocol: Protocol, inputs: Sequence[SessionInput]) -> d
 
 def animal_report(animal: str, protocol: Protocol, sessions: Sequence[SessionData],
                   valve_ul_per_ms: float | None = None) -> dict[str, Any]:
-    """The report entry of one animal (CONTRACTS.md §5 without `consolidation`)."""
+    """The report entry of one animal (without `consolidation`)."""
     inputs = [_session_input(protocol, data, valve_ul_per_ms) for data in sessions]
     drops = _fixed_window_drops(protocol, inputs)
     rows = []
