@@ -7,8 +7,6 @@ from datetime import datetime
 
 import pytest
 
-from drivers.wire import encode_event, encode_header
-from monitor.app import cli
 from monitor.app.controller import Controller
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
@@ -16,16 +14,10 @@ from monitor.store.writer import StoreWriter
 from monitor.ui.decision_dialog import DecisionDialog
 from monitor.ui.decision_history import DecisionHistory
 from monitor.ui.main_window import MainWindow
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store, rewarded_session
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
-
+PROTOCOL = protocol_toml(reward_ul=30, extra="""
 [eligibility]
 cohort = "shore"
 blinded = true
@@ -39,20 +31,13 @@ min_hit_rate = 0.0
 label = "saline"
 plateau = false
 min_hit_rate = 0.0
-"""
+""")
 
 
 @pytest.fixture
 def app(qapp, tmp_path):
-    data = encode_header(clock="ms", start=datetime.now().astimezone().replace(microsecond=0).isoformat())
-    for k in range(5):
-        t = 1000 + 4000 * k
-        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down") + encode_event(t + 700, "reward")
-    (tmp_path / "heron_s01.rsw").write_bytes(data)
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    db = tmp_path / "store.sqlite3"
-    assert cli.main(["import", str(tmp_path / "heron_s01.rsw"), "--protocol", str(tmp_path / "p.toml"),
-                     "--db", str(db), "--no-fit"]) == 0
+    start = datetime.now().astimezone().replace(microsecond=0)
+    db = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 5)}, PROTOCOL, "--no-fit")
     writer = StoreWriter(db)
     writer.start()
     controller = Controller(writer, alert_store=None, fit_consolidation=False)

@@ -8,8 +8,7 @@ from datetime import datetime
 import pytest
 from PySide6.QtGui import QImage
 
-from drivers.wire import Event, encode_event, encode_header
-from monitor.app import cli
+from drivers.wire import Event
 from monitor.app.controller import Controller
 from monitor.app.eligibility_care import CLEARED_BY, care_row, decision_view
 from monitor.app.animal_records import Judgement
@@ -26,16 +25,10 @@ from monitor.ui.care_panel import CareEntry, CarePanel
 from monitor.ui.decision_dialog import DecisionDialog
 from monitor.ui.decision_history import DecisionHistory
 from monitor.ui.main_window import MainWindow
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store, rewarded_session
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
-
+PROTOCOL = protocol_toml(reward_ul=30, extra="""
 [eligibility]
 cohort = "shore"
 
@@ -43,22 +36,14 @@ cohort = "shore"
 label = "any hit rate"
 plateau = false
 min_hit_rate = 0.0
-"""
+""")
 
 
 @pytest.fixture
 def app(qapp, tmp_path):
     start = datetime.now().astimezone().replace(hour=0, minute=5, second=0, microsecond=0)
-    data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
-    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
-        t = 1000 + 4000 * k
-        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
-        data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")
-    (tmp_path / "heron_s01.rsw").write_bytes(data)
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    db = tmp_path / "store.sqlite3"
-    assert cli.main(["import", str(tmp_path / "heron_s01.rsw"), "--protocol", str(tmp_path / "p.toml"),
-                     "--db", str(db)]) == 0
+    # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
+    db = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 40, licks=True)}, PROTOCOL)
     writer = StoreWriter(db)
     writer.start()
     controller = Controller(writer, alert_store=None, fit_consolidation=False)

@@ -7,19 +7,12 @@ from datetime import datetime
 
 import pytest
 
-from drivers.wire import encode_event, encode_header
 from monitor.app import cli
 from monitor.app.commands import care
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store, rewarded_session
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
-"""
+PROTOCOL = protocol_toml(reward_ul=30)
 
 
 def rigside_care(capsys, *args) -> tuple[int, str, str]:
@@ -40,16 +33,8 @@ def rigside_care(capsys, *args) -> tuple[int, str, str]:
 def db(tmp_path, capsys):
     today = datetime.now().astimezone()
     start = today.replace(hour=9, minute=0, second=0, microsecond=0)
-    data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
-    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
-        t = 1000 + 4000 * k
-        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
-        data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")
-    path = tmp_path / "heron_s01.rsw"
-    path.write_bytes(data)
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    store = tmp_path / "store.sqlite3"
-    assert cli.main(["import", str(path), "--protocol", str(tmp_path / "p.toml"), "--db", str(store)]) == 0
+    # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
+    store = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 40, licks=True)}, PROTOCOL)
     capsys.readouterr()
     return store
 

@@ -113,25 +113,25 @@ def test_incremental_equals_from_scratch(events, items):
         assert same(summary.fixed_window_fraction, snap.fixed_window_fraction)
 
 
-def test_stage_change_restarts_interval_figures_but_not_totals(events):
+def two_stages(events, second_ms: float) -> LiveSession:
+    """A 700 ms trial in stage a, then one of `second_ms` in stage b (target 1000 ms, window 800-1200)."""
     protocol = parse_protocol(PROTOCOL + '[[stages]]\nname = "a"\n[[stages]]\nname = "b"\ntarget_ms = 1000\n', "s.toml")
     live = LiveSession(protocol, window=WINDOW)
     for e in events((0, "lever_down"), (700, "lever_down"), (5000, "param", "stage", "b"),
-                    (6000, "lever_down"), (7000, "lever_down"), (9000, "lick")):
+                    (6000, "lever_down"), (6000 + second_ms, "lever_down"), (9000, "lick")):
         live.feed(e)
-    snap = live.snapshot()
+    return live
+
+
+def test_stage_change_restarts_interval_figures_but_not_totals(events):
+    snap = two_stages(events, 1000).snapshot()
     assert snap.stage == "b" and snap.trials == 2 and snap.stage_trials == 1
     assert snap.median_interval_ms == 1000.0 and snap.target_ms == 1000.0
     assert snap.recent_intervals_ms.tolist() == [1000.0] and not snap.recent_intervals_ms.flags.writeable
 
 
 def test_the_rolling_hit_rate_series_restarts_with_the_stage(events):
-    protocol = parse_protocol(PROTOCOL + '[[stages]]\nname = "a"\n[[stages]]\nname = "b"\ntarget_ms = 1000\n', "s.toml")
-    live = LiveSession(protocol, window=WINDOW)
-    for e in events((0, "lever_down"), (700, "lever_down"), (5000, "param", "stage", "b"),
-                    (6000, "lever_down"), (7500, "lever_down"), (9000, "lick")):
-        live.feed(e)
-    series = live.stats.rate_series()
+    series = two_stages(events, 1500).stats.rate_series()
     # a hit in stage a, then a miss in b (1500 ms, outside 800-1200): b's rate is its one miss alone, not 1/2
     assert series.trial.tolist() == [1.0, 2.0] and series.rate.tolist() == [1.0, 0.0]
     assert (series.low[-1], series.high[-1]) == wilson(0, 1)

@@ -21,22 +21,9 @@ from monitor.store.records import (RecordError, add_condition, check_in, check_o
                                    ensure_protocol, ensure_rig, exclude_session, find_animal)
 from monitor.store.reporting import build_entry, refresh_cache, report
 from monitor.store.schema import MIGRATIONS, SCHEMA_VERSION
+from fixtures.protocols import protocol_toml
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
-
-[plateau]
-rule = "consecutive_sessions"
-min_hit_rate = 0.5
-sessions = 2
-min_trials = 5
-"""
+PROTOCOL = protocol_toml(reward_ul=30, plateau_sessions=2, min_trials=5)
 
 
 def store(tmp_path):
