@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import csv
+import shutil
 from datetime import datetime
+from pathlib import Path
 
 import pytest
 
@@ -29,14 +31,24 @@ def rigside_care(capsys, *args) -> tuple[int, str, str]:
     return code, out.out, out.err
 
 
-@pytest.fixture
-def db(tmp_path, capsys):
+@pytest.fixture(scope="module")
+def imported(tmp_path_factory) -> Path:
+    """The store after one imported session today, made once per module."""
     today = datetime.now().astimezone()
     start = today.replace(hour=9, minute=0, second=0, microsecond=0)
     # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
-    store = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 40, licks=True)}, PROTOCOL)
+    folder = tmp_path_factory.mktemp("care")
+    return imported_store(folder, {"heron_s01.rsw": rewarded_session(start, 40, licks=True)}, PROTOCOL)
+
+
+@pytest.fixture
+def db(imported, tmp_path, capsys) -> Path:
+    """A fresh copy of the imported store (its files and the key beside it) for each test."""
+    for path in imported.parent.iterdir():
+        if path.is_file() and path.name.startswith(imported.name):
+            shutil.copy2(path, tmp_path / path.name)
     capsys.readouterr()
-    return store
+    return tmp_path / imported.name
 
 
 def test_care_log_and_sheet(tmp_path, capsys, db):

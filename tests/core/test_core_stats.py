@@ -105,7 +105,7 @@ def test_incremental_equals_from_scratch(events, items):
             assert same(mine, theirs)
         assert np.array_equal(snap.linear.today, ref["hist"])
     live.finish()
-    # the session summary (sessions.figures, numpy batch) agrees with the live figures at the end
+    # the session summary (session.summary.figures, numpy batch) agrees with the live figures at the end
     snap, summary = live.snapshot(), figures(live.trials, (600.0, 800.0))
     assert summary.trials == snap.trials and summary.hits == snap.hits
     if summary.median_interval_ms is not None:
