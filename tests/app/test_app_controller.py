@@ -16,6 +16,8 @@ from monitor.ui.models import CheckIn, Severity
 from fixtures.protocols import protocol_toml
 from fixtures.sessions import session_bytes
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 PROTOCOL_TEXT = protocol_toml(plateau_sessions=3, min_trials=5)
 
 

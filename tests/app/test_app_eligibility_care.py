@@ -28,6 +28,8 @@ from monitor.ui.main_window import MainWindow
 from fixtures.protocols import protocol_toml
 from fixtures.stores import imported_store, rewarded_session
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 PROTOCOL = protocol_toml(reward_ul=30, extra="""
 [eligibility]
 cohort = "shore"

@@ -133,6 +133,7 @@ def test_history_leaves_out_excluded_sessions():
     assert not parts.plateau_reached
 
 
+@pytest.mark.slow
 def test_views_load_no_qt():
     import subprocess
 

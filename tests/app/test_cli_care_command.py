@@ -14,6 +14,8 @@ from monitor.app.commands import care
 from fixtures.protocols import protocol_toml
 from fixtures.stores import imported_store, rewarded_session
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 PROTOCOL = protocol_toml(reward_ul=30)
 
 

@@ -18,6 +18,8 @@ from monitor.app.cli import main
 from fixtures.protocols import protocol_toml
 from fixtures.stores import imported_store
 
+pytestmark = pytest.mark.slow  # a store made through the command line, checked by subprocesses
+
 PROTOCOL = protocol_toml()
 
 

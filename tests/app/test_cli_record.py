@@ -21,6 +21,8 @@ from drivers.wire import encode_event, encode_header
 from fixtures.protocols import protocol_toml
 from fixtures.sessions import wait_for
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 PROTOCOL = protocol_toml(version=3, plateau_sessions=3)
 
 

@@ -17,6 +17,8 @@ from mock_rig.history import cohort
 from monitor.app.cli import main
 from monitor.store.db import open_store
 
+pytestmark = pytest.mark.slow  # subprocesses and a simulated history: seconds per test
+
 ELIGIBILITY = """
 [eligibility]
 cohort = "orchard"

@@ -15,7 +15,8 @@ from pathlib import Path
 import pytest
 
 
-pytestmark = pytest.mark.skipif(not hasattr(os, "openpty"), reason="pseudo-terminals are POSIX only")
+pytestmark = [pytest.mark.skipif(not hasattr(os, "openpty"), reason="pseudo-terminals are POSIX only"),
+              pytest.mark.slow]  # a headless window run each: seconds per test
 
 
 def png_size(path: Path) -> tuple[int, int]:

@@ -28,6 +28,7 @@ def test_published_table(k, n, exact, score):
     assert wilson(k, n) == pytest.approx(score, abs=1e-10)
 
 
+@pytest.mark.slow
 @settings(max_examples=200, deadline=None)
 @given(st.integers(1, 400).flatmap(lambda n: st.tuples(st.integers(0, n), st.just(n))),
        st.sampled_from([0.8, 0.9, 0.95, 0.99]))

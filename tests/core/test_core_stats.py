@@ -79,6 +79,7 @@ def sessions(draw):
     return items
 
 
+@pytest.mark.slow
 @settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(items=sessions())
 def test_incremental_equals_from_scratch(events, items):

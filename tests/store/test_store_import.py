@@ -17,6 +17,8 @@ from monitor.store.importer import ImportRefused, import_file
 from monitor.store.reporting import report
 from fixtures.protocols import protocol_toml
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 PROTOCOL = protocol_toml(version=2, plateau_sessions=3)
 
 
