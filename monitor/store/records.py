@@ -19,7 +19,7 @@ import json
 import sqlite3
 import time
 from datetime import date, datetime
-from typing import Any, NamedTuple, Sequence
+from typing import Any, NamedTuple
 
 ANIMAL_FIELDS = ("cohort", "species", "strain", "sex", "date_of_birth", "genotype", "usual_boxes",
                  "baseline_weight_g")
