@@ -7,15 +7,13 @@ from datetime import datetime
 
 import pytest
 
-from monitor.app.controller import Controller
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
-from monitor.store.writer import StoreWriter
 from monitor.ui.decision_dialog import DecisionDialog
 from monitor.ui.decision_history import DecisionHistory
-from monitor.ui.main_window import MainWindow
 from fixtures.protocols import protocol_toml
 from fixtures.stores import imported_store, rewarded_session
+from fixtures.windows import window_over
 
 pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
@@ -40,15 +38,8 @@ min_hit_rate = 0.0
 def app(qapp, tmp_path):
     start = datetime.now().astimezone().replace(microsecond=0)
     db = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 5)}, PROTOCOL, "--no-fit")
-    writer = StoreWriter(db)
-    writer.start()
-    controller = Controller(writer, alert_store=None, fit_consolidation=False)
-    window = MainWindow(controller.board, controller.book, controller.alert_book)
-    controller.attach(window)
-    controller.start()
-    yield controller, window, db
-    controller.close()
-    window.close()
+    with window_over(db) as (controller, window):
+        yield controller, window, db
 
 
 def test_the_dialog_draws_a_code_at_random_and_records_it(app, qtbot, tmp_path):

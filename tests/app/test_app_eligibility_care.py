@@ -9,7 +9,6 @@ import pytest
 from PySide6.QtGui import QImage
 
 from drivers.wire import Event
-from monitor.app.controller import Controller
 from monitor.app.eligibility_care import CLEARED_BY, care_row, decision_view
 from monitor.app.animal_records import Judgement
 from monitor.core.eligibility.assignment import blinding_key
@@ -20,13 +19,12 @@ from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.eligibility.verdict import evaluate
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
-from monitor.store.writer import StoreWriter
 from monitor.ui.care_panel import CareEntry, CarePanel
 from monitor.ui.decision_dialog import DecisionDialog
 from monitor.ui.decision_history import DecisionHistory
-from monitor.ui.main_window import MainWindow
 from fixtures.protocols import protocol_toml
 from fixtures.stores import imported_store, rewarded_session
+from fixtures.windows import window_over
 
 pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
@@ -46,15 +44,8 @@ def app(qapp, tmp_path):
     start = datetime.now().astimezone().replace(hour=0, minute=5, second=0, microsecond=0)
     # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
     db = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 40, licks=True)}, PROTOCOL)
-    writer = StoreWriter(db)
-    writer.start()
-    controller = Controller(writer, alert_store=None, fit_consolidation=False)
-    window = MainWindow(controller.board, controller.book, controller.alert_book)
-    controller.attach(window)
-    controller.start()
-    yield controller, window, db
-    controller.close()
-    window.close()
+    with window_over(db) as (controller, window):
+        yield controller, window, db
 
 
 def kinds(controller) -> list[str]:
