@@ -1,4 +1,4 @@
-"""Benchmark: `python -m mock_rig history` for 8 animals x 30 days (the issue's figure).
+"""Benchmark: `python -m mock_rig history` for 8 animals x 30 days.
 
 Prints wall time, sessions, trials, lines and bytes written, for the default
 cohort (and with --animals/--days/--repeat as given). Run:

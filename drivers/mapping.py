@@ -1,6 +1,6 @@
 """A lab's own delimited line format, read through a TOML mapping file.
 
-Rule: the mapping (CONTRACTS.md section 2) turns each data line into the same
+Rule: the mapping (docs/mapping.md) turns each data line into the same
 records the wire decoder makes, with the same line splitting, positions and
 malformed-line handling (`drivers.wire.LineDecoder`). Codes the mapping does
 not list become events under the lab's own code, kept and counted as unknown.

@@ -1,4 +1,4 @@
-"""Writes a simulated protocol as the training-protocol TOML of CONTRACTS.md §3.
+"""Writes a simulated protocol as the training-protocol TOML of docs/protocol.md.
 
 Rule: the `[protocol]` and `[plateau]` tables carry the contract's keys,
 describing the final stage (plateau is judged there), plus `reward_ul` (and

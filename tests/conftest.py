@@ -1,4 +1,10 @@
-"""Shared test set-up: Qt offscreen, and the `--long` switch for reliability runs."""
+"""Shared test set-up: Qt offscreen, the shared fixtures, the `--long` switch and the `slow` marker.
+
+Shared fixtures and helpers live in tests/fixtures/ (importable as `fixtures.*`:
+pyproject.toml puts tests/ on the path): protocol TOML (`fixtures.protocols`),
+simulated sessions and histories, and `wait_for` (`fixtures.sessions`),
+stores made through `rigside import` (`fixtures.stores`).
+"""
 
 from __future__ import annotations
 
@@ -7,6 +13,8 @@ import os
 import pytest
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+pytest_plugins = ["fixtures.protocols", "fixtures.sessions", "fixtures.stores"]
 
 
 def pytest_addoption(parser: pytest.Parser) -> None:

@@ -1,4 +1,4 @@
-"""Package boundaries of DESIGN.md: the import-linter contracts in pyproject.toml hold.
+"""Package boundaries (DEVELOPERS.md): the import-linter contracts in pyproject.toml hold.
 
 The contracts (core pure and its areas independent, drivers and the simulator
 apart from the monitor, a plain ui, Qt only in ui and app, sqlite3 only in the

@@ -39,6 +39,7 @@ def test_ci_makes_a_fresh_venv():
     assert "rm -rf .venv" in script
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("tests, expected", [
     ("def test_ok():\n    assert True\n", 0),
     ("def test_broken():\n    assert False\n", 1),

@@ -1,8 +1,8 @@
 """The installed distribution carries the three packages and the icons.
 
 setuptools' automatic discovery refuses our flat layout, so the packages are
-listed by hand and icons/ ships as package data (../shared/STACK-NOTES.md,
-"Packaging"); only a non-editable install (what .ci/run does) proves it.
+listed by hand and icons/ ships as package data (DEVELOPERS.md, "Pins and
+traps"); only a non-editable install (what .ci/run does) proves it.
 """
 
 from __future__ import annotations
@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import sysconfig
 from importlib.metadata import Distribution, distributions
+from pathlib import Path
 
 import pytest
 
@@ -42,6 +43,12 @@ def test_non_editable_install_ships_packages_and_icons():
     svgs = [f for f in files if f.parts[0] == "icons" and f.suffix == ".svg"]
     assert svgs and all(f.locate().is_file() for f in svgs)
     assert any(f.name == "wire.py" and f.parts[0] == "drivers" for f in files)
+    # every package of the checkout (a folder with __init__.py) is installed, sub-packages included
+    root = Path(__file__).resolve().parents[1]
+    packages = {p.parent.relative_to(root).as_posix() for top in ("drivers", "mock_rig", "monitor")
+                for p in (root / top).rglob("__init__.py")}
+    installed = {f.parent.as_posix() for f in files if f.name == "__init__.py"}
+    assert packages <= installed, sorted(packages - installed)
 
 
 def test_the_distribution_carries_the_licence_and_both_entry_points():

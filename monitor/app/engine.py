@@ -5,9 +5,9 @@ Fanout, which puts them on `Engine.queue` without waiting (a full queue costs
 the display a batch, never the store). The engine thread wakes once every
 `publish_s` (not once per batch: fewer turns of the GIL taken from the GUI
 thread), takes every queued batch, feeds each event to the rig's `LiveSession`
-(O(1) per event) and to its alert rules, appends the rolling hit rate after
-each completed trial to append-only arrays, and publishes one immutable
-`RigSnapshot` per rig that changed into a latest-value slot. The GUI thread's
+(O(1) per event; it keeps the rolling hit rate after each completed trial in
+append-only arrays, `LiveStats.rate_series`) and to its alert rules, and
+publishes one immutable `RigSnapshot` per rig that changed into a latest-value slot. The GUI thread's
 timer calls `take_snapshots()` and `take_alerts()`; neither ever waits for the
 engine beyond a short lock, and the engine never touches Qt. Sessions are
 opened and closed by control messages (`open_session`, `close_session`) that
@@ -24,15 +24,12 @@ import threading
 import time
 from typing import Any, Callable, NamedTuple
 
-import numpy as np
-
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from drivers.wire import Event, Malformed
 from monitor.app.pipeline import EngineBatch
 from monitor.core.alerts import LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
 from monitor.core.protocol import Protocol
-from monitor.core.session.rolling import RollingRate
-from monitor.core.session.live_stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot
+from monitor.core.session.live_stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot, RateSeries
 
 QUEUE_SIZE = 50_000   # batches; at 16 rigs this is minutes of backlog
 PUBLISH_S = 0.02      # snapshots at most 50 times a second per rig (the screen polls at ~20 Hz)
@@ -50,15 +47,6 @@ class SessionPlan(NamedTuple):
     valve_ul_per_ms: float | None = None
     previous_intervals: dict[str, tuple[float, ...]] | None = None
     started: float = 0.0  # host monotonic seconds
-
-
-class RateSeries(NamedTuple):
-    """Rolling hit rate after each completed trial of the session (read-only arrays, same length)."""
-
-    trial: np.ndarray
-    rate: np.ndarray
-    low: np.ndarray
-    high: np.ndarray
 
 
 class RigSnapshot(NamedTuple):
@@ -88,52 +76,12 @@ class RaisedAlert(NamedTuple):
     wall: float
 
 
-class _Series:
-    """Append-only buffers; a published view of the first n entries never changes afterwards."""
-
-    def __init__(self) -> None:
-        self._data = np.empty((4, 256))
-        self.count = 0
-
-    def append(self, trial: int, rate: float, low: float, high: float) -> None:
-        if self.count == self._data.shape[1]:
-            grown = np.empty((4, 2 * self.count))
-            grown[:, :self.count] = self._data
-            self._data = grown
-        self._data[:, self.count] = (trial, rate, low, high)
-        self.count += 1
-
-    def view(self) -> RateSeries:
-        parts = []
-        for row in self._data[:, :self.count]:
-            part = row.view()
-            part.flags.writeable = False
-            parts.append(part)
-        return RateSeries(*parts)
-
-
 class _Session:
     def __init__(self, plan: SessionPlan, window: int) -> None:
         self.plan = plan
         self.live = LiveSession(plan.protocol, plan.stage, window=window, valve_ul_per_ms=plan.valve_ul_per_ms,
                                 previous_intervals=dict(plan.previous_intervals or {}))
-        self.rolling = RollingRate(window)
-        self.stage = self.live.builder.stage
-        self.series = _Series()
-        self.completed = 0
         self.ended = False
-
-    def add(self, trials: list) -> None:
-        for trial in trials:
-            if trial.stage != self.stage:      # the live figures restart at a stage change
-                self.stage = trial.stage
-                self.rolling = RollingRate(self.rolling.size)
-            if not trial.completed:
-                continue
-            self.completed += 1
-            self.rolling.add(trial.rewarded)
-            low, high = self.rolling.interval()
-            self.series.append(self.completed, self.rolling.rate, low, high)
 
 
 class _Rig:
@@ -285,7 +233,7 @@ class Engine:
         session = state.session
         if session is None or session.ended:
             return
-        session.add(session.live.finish())
+        session.live.finish()
         session.ended = True
         state.watch.session(False, self._clock())
         self._by_session.pop(session.plan.session_id, None)
@@ -312,7 +260,7 @@ class Engine:
                 events += 1
                 raised += watch.event(record.name, record.args, record.t_us, now)
                 if session is not None:
-                    session.add(session.live.feed(record))
+                    session.live.feed(record)
             elif isinstance(record, Malformed):
                 state.malformed += 1
         if item.batch.records:
@@ -363,7 +311,7 @@ class Engine:
                 started=session.plan.started if session else None,
                 ended=session.ended if session else False,
                 live=session.live.snapshot() if session else None,
-                series=session.series.view() if session else None,
+                series=session.live.stats.rate_series() if session else None,
                 disagreements=len(session.live.builder.disagreements) if session else 0,
                 events=state.events, malformed=state.malformed, last_event_at=state.last_event_at,
                 newest_stamp=state.newest_stamp)

@@ -28,6 +28,7 @@ from monitor.app.engine import RigSnapshot
 from monitor.core.session.binomial import wilson
 from monitor.core.consolidation.model import TrialSeries
 from monitor.core.session.plateau import judge
+from monitor.core.session.start_drop import start_drops
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import BINARY_MEASURES, SessionInput, learning_curve, summarize
 from monitor.core.session.trials import Trial
@@ -169,7 +170,7 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
                   fit: Mapping[str, Any] | None = None) -> HistoryParts:
     """Learning curve, consolidation panel and session table from an animal's past sessions.
 
-    `fit` is the consolidation block of the store's cached fit (CONTRACTS.md section 5 with its
+    `fit` is the consolidation block of the store's cached fit (the report's block with its
     "trajectory", "forecast" and "current"), or None: measures only.
     """
     from monitor.core.consolidation.measures import since_plateau
@@ -210,30 +211,11 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
                         tuple(s.session_id for s in sessions))
 
 
-def newcombe_difference(k1: int, n1: int, k2: int, n2: int, confidence: float = 0.95) -> tuple[float, float, float]:
-    """p1 - p2 and its hybrid-score interval from the two Wilson intervals (Newcombe 1998, method 10)."""
-    p1, p2 = k1 / n1, k2 / n2
-    l1, u1 = wilson(k1, n1, confidence)
-    l2, u2 = wilson(k2, n2, confidence)
-    d = p1 - p2
-    return d, d - math.sqrt((p1 - l1) ** 2 + (u2 - p2) ** 2), d + math.sqrt((u1 - p1) ** 2 + (p2 - l2) ** 2)
-
-
-def hit_rate_drops(protocol: Protocol, sessions: Sequence[HistorySession], warmup: int = 5,
-                   window: int = 20) -> tuple[StartDrop, ...]:
-    """Per session: hit rate of the previous session's last `window` final-stage trials minus that of this
-    session's `window` trials after the first `warmup` (warm-up set apart); with a 95 % interval."""
+def hit_rate_drops(protocol: Protocol, sessions: Sequence[HistorySession]) -> tuple[StartDrop, ...]:
+    """The start-of-session drops of the final stage's hit rate (monitor.core.session.start_drop)."""
     final = protocol.final_stage.name
-    kept = [(index, [t.rewarded for t in s.trials if t.completed and t.stage == final])
-            for index, s in enumerate(sessions, start=1) if not s.excluded]
-    kept = [(index, hits) for index, hits in kept if hits]
-    drops = []
-    for (_, before), (index, now) in zip(kept[:-1], kept[1:]):
-        end, start = before[-window:], now[warmup:warmup + window]
-        if end and start:
-            d, low, high = newcombe_difference(sum(end), len(end), sum(start), len(start))
-            drops.append(StartDrop(index, d, low, high, warmup))
-    return tuple(drops)
+    return start_drops([(index, [t.rewarded for t in s.trials if t.completed and t.stage == final])
+                        for index, s in enumerate(sessions, start=1) if not s.excluded])
 
 
 def _latest_error(protocol: Protocol, sessions: Sequence[HistorySession]) -> tuple[float | None, float | None]:

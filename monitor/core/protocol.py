@@ -1,4 +1,4 @@
-"""Training protocols (TOML, CONTRACTS.md §3) parsed into frozen values.
+"""Training protocols (TOML, docs/protocol.md) parsed into frozen values.
 
 Rule: `parse_protocol(text, path)` is pure and refuses any unknown, missing or
 wrong key with a `ConfigError` naming file:line and key. `[protocol]` holds the
@@ -92,10 +92,6 @@ class PlateauRule:
     fraction: float = 0.9
     min_sessions: int = 5
     chance: float | None = None
-
-    @property
-    def higher_is_better(self) -> bool:
-        return HIGHER_IS_BETTER[self.measure]
 
 
 @dataclass(frozen=True, slots=True)

@@ -11,7 +11,7 @@ flag. `refit_animal` fits it with `estimate_consolidation` from the cached
 fit's `warm_start` and saves params (the warm start, whether the fit came from
 it, and the live filter's
 state after the last session with that session's end, so the window can
-follow new trials without a refit), the §5 block and its
+follow new trials without a refit), the report's consolidation block and its
 trajectory with the data fingerprint taken before reading, so a fit of data
 that changed meanwhile is stored as not current. A series with no
 final-stage trial is saved as "too few trials" (estimate 0, interval

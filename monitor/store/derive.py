@@ -149,11 +149,3 @@ def trials_by_session(conn: sqlite3.Connection, session_ids: list[int]) -> dict[
                             f"({marks}) ORDER BY session_id, idx", session_ids):
         out[row[0]].append(_trial(row[1:]))
     return out
-
-
-def rebuild_all(conn: sqlite3.Connection) -> int:
-    """Rebuild the trials of every session; return the number of sessions."""
-    ids = [r[0] for r in conn.execute("SELECT id FROM sessions ORDER BY id")]
-    for session_id in ids:
-        rebuild_trials(conn, session_id)
-    return len(ids)

@@ -4,7 +4,7 @@ Rule: a fit is stored with the fingerprint of the data it was fitted to
 (`data_fingerprint`: the animal's included sessions, in time order, with the
 time their trials were last derived; a session still being recorded is left
 out), its parameters, the report's
-consolidation block (CONTRACTS.md §5) and its per-session estimates, all JSON.
+consolidation block (`consolidation_block`) and its per-session estimates, all JSON.
 Reading never refits: `cached_block` gives the newest fit's block with
 `"current"` (its fingerprint equals the data's now) added; an animal with no
 fit yet gets NOT_FITTED for its last session, estimate 0 with the interval

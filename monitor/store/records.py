@@ -20,7 +20,7 @@ import json
 import sqlite3
 import time
 from datetime import date, datetime
-from typing import Any, NamedTuple, Sequence
+from typing import Any, NamedTuple
 
 ANIMAL_FIELDS = ("cohort", "species", "strain", "sex", "date_of_birth", "genotype", "usual_boxes",
                  "baseline_weight_g")
@@ -240,10 +240,3 @@ def _aware(name: str, text: str) -> datetime:
 def iso_local(epoch: float) -> str:
     """Epoch seconds as ISO 8601 in this PC's time zone, with its offset."""
     return datetime.fromtimestamp(epoch).astimezone().isoformat(timespec="seconds")
-
-
-def sessions_of(conn: sqlite3.Connection, animal: str) -> Sequence[tuple]:
-    """(id, started_at, start_wall, excluded, exclusion_reason, protocol_text, protocol_version, rig) in time order."""
-    return conn.execute(
-        "SELECT id, started_at, start_wall, excluded, exclusion_reason, protocol_text, protocol_version, rig "
-        "FROM sessions WHERE animal = ? ORDER BY started_at, id", (animal,)).fetchall()

@@ -1,4 +1,4 @@
-"""The report of CONTRACTS.md §5 from the store: stored trials in, plain JSON out.
+"""The per-animal report from the store: stored trials in, plain JSON out.
 
 Rule: per animal, its sessions in time order (start, then id) are handed to
 `monitor.core.session.animal_report.animal_report` as their stored trials (no event is

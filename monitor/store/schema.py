@@ -9,14 +9,14 @@ with its version bump, so a crash leaves the old version or the new one.
 A file with a newer version, another application's id, or tables but no
 version is refused by `monitor.store.db`, never changed.
 
-Version 1 (the live-sources issue): sources, sessions, event_codes, events
+Version 1 (live sources): sources, sessions, event_codes, events
 (the lean hot table: no index, no raw text), raw_lines (only what an event row
 cannot reproduce), gaps, file_offsets (a file source's resume position, written
 in the same transaction as its events) and clock_samples (host receive time of
 serial batches, for device-to-host alignment). Times named `*_at` are host
 wall-clock seconds since the epoch (REAL); `*_wall` are ISO 8601 text.
 
-Version 2 (the store issue): rigs (name bound to a USB serial or port, valve
+Version 2 (the animal store): rigs (name bound to a USB serial or port, valve
 calibration), animals (what NWB's subject asks for, usual boxes, baseline
 weight), protocols (unique name and version), imports (content hash: a file is
 imported once), session columns (animal, protocol, stage, exclusion, event rowid
@@ -133,7 +133,7 @@ _V1 = (
     )""",
 )
 
-# Version 2 (the store issue): who, where, under which protocol, what was done,
+# Version 2 (the animal store): who, where, under which protocol, what was done,
 # the derived trials, the decision log, the care log, cached fits and alerts.
 _APPEND_ONLY = "decisions are append-only: a correction is a new entry (rigside decide --corrects SEQ)"
 

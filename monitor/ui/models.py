@@ -18,6 +18,8 @@ from enum import Enum
 
 import numpy as np
 
+from monitor.core.session.start_drop import StartDrop
+
 
 class Connection(Enum):
     """A rig's connection state: a word, a shape and an Okabe–Ito colour name."""
@@ -142,17 +144,6 @@ class CurveState:
     plateau_session: int | None = None
     plateau_word: str = "not reached"
     plateau_reason: str = ""
-
-
-@dataclass(frozen=True)
-class StartDrop:
-    """Drop in performance at one session's start, warm-up trials set apart."""
-
-    session: int
-    drop: float                      # end of previous session minus start of this one
-    low: float
-    high: float
-    warmup_trials: int
 
 
 @dataclass(frozen=True, eq=False)

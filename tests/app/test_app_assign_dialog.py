@@ -7,25 +7,17 @@ from datetime import datetime
 
 import pytest
 
-from drivers.wire import encode_event, encode_header
-from monitor.app import cli
-from monitor.app.controller import Controller
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
-from monitor.store.writer import StoreWriter
 from monitor.ui.decision_dialog import DecisionDialog
 from monitor.ui.decision_history import DecisionHistory
-from monitor.ui.main_window import MainWindow
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store, rewarded_session
+from fixtures.windows import window_over
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
+PROTOCOL = protocol_toml(reward_ul=30, extra="""
 [eligibility]
 cohort = "shore"
 blinded = true
@@ -39,29 +31,15 @@ min_hit_rate = 0.0
 label = "saline"
 plateau = false
 min_hit_rate = 0.0
-"""
+""")
 
 
 @pytest.fixture
 def app(qapp, tmp_path):
-    data = encode_header(clock="ms", start=datetime.now().astimezone().replace(microsecond=0).isoformat())
-    for k in range(5):
-        t = 1000 + 4000 * k
-        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down") + encode_event(t + 700, "reward")
-    (tmp_path / "heron_s01.rsw").write_bytes(data)
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    db = tmp_path / "store.sqlite3"
-    assert cli.main(["import", str(tmp_path / "heron_s01.rsw"), "--protocol", str(tmp_path / "p.toml"),
-                     "--db", str(db), "--no-fit"]) == 0
-    writer = StoreWriter(db)
-    writer.start()
-    controller = Controller(writer, alert_store=None, fit_consolidation=False)
-    window = MainWindow(controller.board, controller.book, controller.alert_book)
-    controller.attach(window)
-    controller.start()
-    yield controller, window, db
-    controller.close()
-    window.close()
+    start = datetime.now().astimezone().replace(microsecond=0)
+    db = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 5)}, PROTOCOL, "--no-fit")
+    with window_over(db) as (controller, window):
+        yield controller, window, db
 
 
 def test_the_dialog_draws_a_code_at_random_and_records_it(app, qtbot, tmp_path):

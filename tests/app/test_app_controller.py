@@ -3,11 +3,9 @@
 from __future__ import annotations
 
 import datetime as dt
-import importlib.util
 import json
 import sqlite3
 import threading
-from pathlib import Path
 
 import pytest
 
@@ -15,25 +13,12 @@ from monitor.app.controller import Controller, RigSpec
 from monitor.store.writer import StoreWriter
 from monitor.ui.main_window import MainWindow
 from monitor.ui.models import CheckIn, Severity
+from fixtures.protocols import protocol_toml
+from fixtures.sessions import session_bytes
 
-spec = importlib.util.spec_from_file_location("app_engine_streams_c", Path(__file__).with_name("test_app_engine.py"))
-streams = importlib.util.module_from_spec(spec)
-spec.loader.exec_module(streams)
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
-PROTOCOL_TEXT = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-
-[plateau]
-rule = "consecutive_sessions"
-min_hit_rate = 0.5
-sessions = 3
-min_trials = 5
-"""
+PROTOCOL_TEXT = protocol_toml(plateau_sessions=3, min_trials=5)
 
 
 class RecordingAlertStore:
@@ -80,7 +65,7 @@ def test_check_in_trials_reach_the_tile_and_check_out_ends_the_session(rig, qtbo
     qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
     intervals = [650, 700, 1000, 640, 300, 655]
     with log.open("ab") as fh:
-        fh.write(streams.session_bytes(intervals, valve_ms=900))
+        fh.write(session_bytes(intervals, valve_ms=900))
     qtbot.waitUntil(lambda: (controller.board.state("box 1") or None) is not None
                     and controller.board.state("box 1").trials_today == 6, timeout=10000)
     tile = controller.board.state("box 1")
@@ -112,7 +97,7 @@ def test_history_comes_from_the_store_when_the_page_opens(rig, qtbot):
     controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
     qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
     with log.open("ab") as fh:
-        fh.write(streams.session_bytes([650, 660, 640, 1000, 655]))
+        fh.write(session_bytes([650, 660, 640, 1000, 655]))
     qtbot.waitUntil(lambda: controller.board.state("box 1").trials_today == 5, timeout=10000)
     qtbot.waitUntil(lambda: controller.writer.status().committed_events > 0 and
                     controller.writer.status().pending_rows == 0, timeout=10000)
@@ -153,7 +138,7 @@ def test_check_out_refits_in_a_child_process_and_unchanged_data_are_not_refitted
     controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
     qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
     with log.open("ab") as fh:
-        fh.write(streams.session_bytes([650, 660, 640, 1000, 655]))
+        fh.write(session_bytes([650, 660, 640, 1000, 655]))
     qtbot.waitUntil(lambda: controller.board.state("box 1").trials_today == 5, timeout=10000)
     controller.check_out("box 1")
     qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)

@@ -8,9 +8,7 @@ from datetime import datetime
 import pytest
 from PySide6.QtGui import QImage
 
-from drivers.wire import Event, encode_event, encode_header
-from monitor.app import cli
-from monitor.app.controller import Controller
+from drivers.wire import Event
 from monitor.app.eligibility_care import CLEARED_BY, care_row, decision_view
 from monitor.app.animal_records import Judgement
 from monitor.core.eligibility.assignment import blinding_key
@@ -21,21 +19,16 @@ from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.eligibility.verdict import evaluate
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
-from monitor.store.writer import StoreWriter
 from monitor.ui.care_panel import CareEntry, CarePanel
 from monitor.ui.decision_dialog import DecisionDialog
 from monitor.ui.decision_history import DecisionHistory
-from monitor.ui.main_window import MainWindow
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store, rewarded_session
+from fixtures.windows import window_over
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
+PROTOCOL = protocol_toml(reward_ul=30, extra="""
 [eligibility]
 cohort = "shore"
 
@@ -43,31 +36,16 @@ cohort = "shore"
 label = "any hit rate"
 plateau = false
 min_hit_rate = 0.0
-"""
+""")
 
 
 @pytest.fixture
 def app(qapp, tmp_path):
     start = datetime.now().astimezone().replace(hour=0, minute=5, second=0, microsecond=0)
-    data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
-    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (issue 9 check values), each confirmed by a lick
-        t = 1000 + 4000 * k
-        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
-        data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")
-    (tmp_path / "heron_s01.rsw").write_bytes(data)
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    db = tmp_path / "store.sqlite3"
-    assert cli.main(["import", str(tmp_path / "heron_s01.rsw"), "--protocol", str(tmp_path / "p.toml"),
-                     "--db", str(db)]) == 0
-    writer = StoreWriter(db)
-    writer.start()
-    controller = Controller(writer, alert_store=None, fit_consolidation=False)
-    window = MainWindow(controller.board, controller.book, controller.alert_book)
-    controller.attach(window)
-    controller.start()
-    yield controller, window, db
-    controller.close()
-    window.close()
+    # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
+    db = imported_store(tmp_path, {"heron_s01.rsw": rewarded_session(start, 40, licks=True)}, PROTOCOL)
+    with window_over(db) as (controller, window):
+        yield controller, window, db
 
 
 def kinds(controller) -> list[str]:
@@ -79,7 +57,7 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     records = controller.records
     qtbot.waitUntil(lambda: "heron" in records.verdicts and "heron" in records.summaries, timeout=20000)
     assert records.verdicts["heron"].state == "in window: any hit rate"
-    assert records.summaries["heron"].earned_ml == pytest.approx(1.2)     # 40 x 30 µL (issue 9 check values)
+    assert records.summaries["heron"].earned_ml == pytest.approx(1.2)     # 40 x 30 µL (hand arithmetic)
     assert "window opened" in kinds(controller) and "weight missing" in kinds(controller)
     # the page shows both lines
     page = window.open_animal("heron")
@@ -91,7 +69,7 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     records.update()
     qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
     assert len(kinds(controller)) == count
-    # care records through the window: baseline 25.0 g, weight 21.3 g -> 85.2 % (issue 9 check values)
+    # care records through the window: baseline 25.0 g, weight 21.3 g -> 85.2 % (hand arithmetic)
     records.open_care()
     panel = records.care_panel
     assert isinstance(panel, CarePanel)
@@ -164,7 +142,7 @@ def test_blinded_decisions_show_codes_and_compare_with_the_real_group():
 
 
 def test_care_row_check_values():
-    # valve 25 ms at 1.2 µL/ms = 30 µL; 21.3 g against a 25.0 g baseline = 85.2 % (issue 9 check values)
+    # valve 25 ms at 1.2 µL/ms = 30 µL; 21.3 g against a 25.0 g baseline = 85.2 % (hand arithmetic)
     now = datetime.now().astimezone()
     events = [Event(1_000_000, "valve", ("25",), "1000", 0, 1, 0, 0), Event(1_100_000, "lick", (), "1100", 0, 2, 0, 0)]
     water = session_water(events, ul_per_ms=1.2, reward_ul=None, max_valve_ms=250, lick_window_ms=2000,

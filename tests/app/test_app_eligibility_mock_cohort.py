@@ -24,6 +24,8 @@ from monitor.core.eligibility.rules import parse_eligibility
 from monitor.core.eligibility.from_report import figures_from_report
 from monitor.core.eligibility.verdict import IN_WINDOW, TRAINING, WINDOW_PASSED, evaluate
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 RULE = """
 [eligibility]
 cohort = "orchard-26a"

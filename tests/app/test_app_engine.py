@@ -9,26 +9,14 @@ import pytest
 from statsmodels.stats.proportion import proportion_confint
 
 from drivers.status import READING, WAITING, Batch, SourceStatus
-from drivers.wire import Event, WireDecoder, encode_event
+from drivers.wire import Event, WireDecoder
 from monitor.app.engine import Engine, SessionPlan, link_of
 from monitor.app.pipeline import Fanout
-from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import build_trials
+from fixtures.protocols import two_press
+from fixtures.sessions import session_bytes
 
-PROTOCOL = parse_protocol("""
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-
-[plateau]
-rule = "consecutive_sessions"
-min_hit_rate = 0.5
-sessions = 3
-min_trials = 5
-""", "test.toml")
+PROTOCOL = two_press(plateau_sessions=3, min_trials=5)
 
 
 class Writer:
@@ -41,25 +29,6 @@ class Writer:
 
 def status(state=READING, gap_since=None) -> SourceStatus:
     return SourceStatus(state, 0, 0, 0, 0, 0.0, gap_since, 0, None, None, None)
-
-
-def session_bytes(intervals_ms, start_ms=1000, rig_outcomes=True, valve_ms=30) -> bytes:
-    """A two-press session of our own: one trial per interval, 3 s apart."""
-    out = [b"# rigside-wire 1 clock=us wrap=32\n"]
-    t = start_ms
-    for interval in intervals_ms:
-        us = t * 1000
-        second = us + int(interval * 1000)
-        out += [encode_event(us - 100_000, "trial_start"), encode_event(us, "lever_down"),
-                encode_event(us + 50_000, "lever_up"), encode_event(second, "lever_down"),
-                encode_event(second + 50_000, "lever_up")]
-        if rig_outcomes:
-            word = "hit" if abs(interval - 650) <= 130 else "miss"
-            out.append(encode_event(second + 60_000, "outcome", word))
-            if word == "hit":
-                out.append(encode_event(second + 70_000, "valve", str(valve_ms)))
-        t += 3000
-    return b"".join(out)
 
 
 def drain(engine: Engine) -> None:

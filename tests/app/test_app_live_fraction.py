@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import json
 import math
-from importlib.util import module_from_spec, spec_from_file_location
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -14,11 +12,9 @@ from drivers.wire import decode_all
 from monitor.app.live_fraction import LiveFractions, live_text
 from monitor.core.consolidation.live import LiveSetup, LiveFilter, filter_state, restore_filter
 from monitor.core.session.live_stats import LiveSession
+from fixtures.protocols import two_press
+from fixtures.sessions import session_bytes
 
-# the engine tests' two-press session of our own and their protocol (the same segmentation as the engine)
-_spec = spec_from_file_location("engine_streams_lf", Path(__file__).with_name("test_app_engine.py"))
-streams = module_from_spec(_spec)
-_spec.loader.exec_module(streams)
 PARAMS = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
 
 
@@ -31,7 +27,8 @@ def cached_state(ended_at: float) -> dict:
 
 def live_session(intervals: list[float]) -> tuple[LiveSession, list]:
     """A LiveSession and the events of a two-press session of our own."""
-    return LiveSession(streams.PROTOCOL), [r for r in decode_all(streams.session_bytes(intervals)) if hasattr(r, "name")]
+    protocol = two_press(plateau_sessions=3, min_trials=5)
+    return LiveSession(protocol), [r for r in decode_all(session_bytes(intervals)) if hasattr(r, "name")]
 
 
 def by_hand(cached: dict, hours: float, intervals: list[float]) -> LiveFilter:

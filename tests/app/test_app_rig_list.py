@@ -15,6 +15,8 @@ from drivers.wire import encode_event, encode_header
 from monitor.app.rig_list import append_rig, read_rigs
 from monitor.ui.models import RigSetup
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 PROTOCOL = """[protocol]
 name = "two-press 650 ms"
 version = 1

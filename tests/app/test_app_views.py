@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import importlib.util
 import sys
 
 import numpy as np
@@ -15,12 +14,10 @@ from monitor.app import views
 from monitor.app.engine import Engine, SessionPlan
 from monitor.core.session.trials import build_trials
 from monitor.ui.models import Connection, Severity, StoreHealth
+from fixtures.protocols import two_press
+from fixtures.sessions import session_bytes
 
-spec = importlib.util.spec_from_file_location("app_engine_streams", __file__.replace("test_app_views",
-                                                                                      "test_app_engine"))
-streams = importlib.util.module_from_spec(spec)
-spec.loader.exec_module(streams)
-PROTOCOL, session_bytes = streams.PROTOCOL, streams.session_bytes
+PROTOCOL = two_press(plateau_sessions=3, min_trials=5)
 
 
 def status(state, silent_s=0.0, gap_since=None):
@@ -136,6 +133,7 @@ def test_history_leaves_out_excluded_sessions():
     assert not parts.plateau_reached
 
 
+@pytest.mark.slow
 def test_views_load_no_qt():
     import subprocess
 

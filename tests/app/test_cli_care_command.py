@@ -3,23 +3,20 @@
 from __future__ import annotations
 
 import csv
+import shutil
 from datetime import datetime
+from pathlib import Path
 
 import pytest
 
-from drivers.wire import encode_event, encode_header
 from monitor.app import cli
 from monitor.app.commands import care
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store, rewarded_session
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
-"""
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
+PROTOCOL = protocol_toml(reward_ul=30)
 
 
 def rigside_care(capsys, *args) -> tuple[int, str, str]:
@@ -36,22 +33,24 @@ def rigside_care(capsys, *args) -> tuple[int, str, str]:
     return code, out.out, out.err
 
 
-@pytest.fixture
-def db(tmp_path, capsys):
+@pytest.fixture(scope="module")
+def imported(tmp_path_factory) -> Path:
+    """The store after one imported session today, made once per module."""
     today = datetime.now().astimezone()
     start = today.replace(hour=9, minute=0, second=0, microsecond=0)
-    data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
-    for k in range(40):  # 40 rewards x 30 µL = 1.2 mL (issue 9's check value), each confirmed by a lick
-        t = 1000 + 4000 * k
-        data += encode_event(t, "lever_down") + encode_event(t + 650, "lever_down")
-        data += encode_event(t + 700, "reward") + encode_event(t + 800, "lick")
-    path = tmp_path / "heron_s01.rsw"
-    path.write_bytes(data)
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    store = tmp_path / "store.sqlite3"
-    assert cli.main(["import", str(path), "--protocol", str(tmp_path / "p.toml"), "--db", str(store)]) == 0
+    # 40 rewards x 30 µL = 1.2 mL (hand arithmetic), each confirmed by a lick
+    folder = tmp_path_factory.mktemp("care")
+    return imported_store(folder, {"heron_s01.rsw": rewarded_session(start, 40, licks=True)}, PROTOCOL)
+
+
+@pytest.fixture
+def db(imported, tmp_path, capsys) -> Path:
+    """A fresh copy of the imported store (its files and the key beside it) for each test."""
+    for path in imported.parent.iterdir():
+        if path.is_file() and path.name.startswith(imported.name):
+            shutil.copy2(path, tmp_path / path.name)
     capsys.readouterr()
-    return store
+    return tmp_path / imported.name
 
 
 def test_care_log_and_sheet(tmp_path, capsys, db):

@@ -15,27 +15,20 @@ import pytest
 
 from drivers.wire import encode_event, encode_header
 from monitor.app.cli import main
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-"""
+pytestmark = pytest.mark.slow  # a store made through the command line, checked by subprocesses
+
+PROTOCOL = protocol_toml()
 
 
 @pytest.fixture(scope="module")
 def logged(tmp_path_factory) -> Path:
     """A store with one animal's session and four decisions made through `rigside decide`."""
     root = tmp_path_factory.mktemp("log")
-    (root / "p.toml").write_text(PROTOCOL)
-    session = root / "heron_s01.rsw"
-    session.write_bytes(encode_header(start="2026-03-02T09:00:00+01:00") + encode_event(10, "lever_down")
-                        + encode_event(650_010, "lever_down"))
-    db = root / "store.sqlite3"
-    assert main(["import", str(session), "--protocol", str(root / "p.toml"), "--db", str(db)]) == 0
+    session = encode_header(start="2026-03-02T09:00:00+01:00") + encode_event(10, "lever_down")
+    db = imported_store(root, {"heron_s01.rsw": session + encode_event(650_010, "lever_down")}, PROTOCOL)
     for i, decision in enumerate(("deferred", "deferred", "eligible", "excluded")):
         assert main(["decide", "--db", str(db), "--animal", "heron", "--decision", decision, "--operator", "ana",
                      "--reason", f"reason {i + 1}"]) == 0

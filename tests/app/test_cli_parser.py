@@ -1,4 +1,4 @@
-"""The `rigside` command line: subcommands per CONTRACTS.md section 4, one-line errors, exit 2."""
+"""The `rigside` command line: subcommands per docs/cli.md, one-line errors, exit 2."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ def run_cli(*args: str) -> subprocess.CompletedProcess:
 
 
 def test_contract_commands_are_declared():
-    # CONTRACTS.md section 4's commands (plus `care`, from the care issue); more may be added, none dropped
+    # the documented commands (docs/cli.md); more may be added, none dropped
     assert set(COMMANDS) >= {"demo", "record", "import", "report", "export", "decide", "log", "care"}
 
 

@@ -16,28 +16,12 @@ from pathlib import Path
 import pytest
 
 from drivers.wire import encode_event, encode_header
+from fixtures.protocols import protocol_toml
+from fixtures.sessions import wait_for
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 3
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
-[plateau]
-rule = "consecutive_sessions"
-min_hit_rate = 0.5
-sessions = 3
-"""
-
-
-def wait_for(condition, timeout: float = 20.0, what: str = "condition") -> None:
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for {what}")
-        time.sleep(0.02)
+PROTOCOL = protocol_toml(version=3, plateau_sessions=3)
 
 
 def cli(*args: str, timeout: float = 60) -> subprocess.CompletedProcess:

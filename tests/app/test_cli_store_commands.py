@@ -13,9 +13,11 @@ from pathlib import Path
 
 import pytest
 
-from mock_rig.history import cohort, write_history
+from mock_rig.history import cohort
 from monitor.app.cli import main
 from monitor.store.db import open_store
+
+pytestmark = pytest.mark.slow  # subprocesses and a simulated history: seconds per test
 
 ELIGIBILITY = """
 [eligibility]
@@ -26,13 +28,6 @@ label = "plateaued, early"
 min_sessions_since_plateau = 0
 max_sessions_since_plateau = 50
 """
-
-
-@pytest.fixture(scope="module")
-def history(tmp_path_factory) -> tuple[Path, dict]:
-    out = tmp_path_factory.mktemp("history")
-    truth = write_history(out, cohort(2, seed=1), days=6)
-    return out, truth
 
 
 def run_cli(capsys, *args: str) -> tuple[int, str, str]:
@@ -63,8 +58,8 @@ def digest(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def test_import_report_and_reimport_refusal(tmp_path, capsys, history):
-    out, truth = history
+def test_import_report_and_reimport_refusal(tmp_path, capsys, mock_history):
+    out, truth = mock_history
     db = tmp_path / "store.sqlite3"
     fitted = {"alder": (), "birch": ("--no-fit",)}  # import refits in a child process unless told not to
     for animal in truth["animals"]:
@@ -110,9 +105,9 @@ def test_bad_input_is_one_line_and_exit_2(tmp_path, capsys, args, names):
     assert code == 2 and one_line(err) and names in err, err
 
 
-def test_export_trials_csv_and_nwb(tmp_path, capsys, history):
+def test_export_trials_csv_and_nwb(tmp_path, capsys, mock_history):
     pynwb = pytest.importorskip("pynwb")
-    out, truth = history
+    out, truth = mock_history
     db = tmp_path / "store.sqlite3"
     assert import_animal(capsys, db, out, "alder", first=2)[0] == 0
     sessions = truth["animals"]["alder"]["sessions"][:2]
@@ -157,8 +152,8 @@ def test_export_trials_csv_and_nwb(tmp_path, capsys, history):
         assert "EXCLUDED: @cable loose" in io.read().session_description
 
 
-def test_decide_records_figures_and_verdict_and_log_verifies(tmp_path, capsys, history):
-    out, _ = history
+def test_decide_records_figures_and_verdict_and_log_verifies(tmp_path, capsys, mock_history):
+    out, _ = mock_history
     protocol = tmp_path / "alder.protocol.toml"
     protocol.write_text((out / "alder.protocol.toml").read_text() + ELIGIBILITY)
     db = tmp_path / "store.sqlite3"
@@ -198,8 +193,8 @@ def test_decide_records_figures_and_verdict_and_log_verifies(tmp_path, capsys, h
     assert [(r["seq"], r["decision"], r["corrects"]) for r in rows] == [("1", "eligible", ""), ("2", "deferred", "1")]
 
 
-def test_corrupt_or_newer_database_is_refused_and_left_untouched(tmp_path, capsys, history):
-    out, _ = history
+def test_corrupt_or_newer_database_is_refused_and_left_untouched(tmp_path, capsys, mock_history):
+    out, _ = mock_history
     corrupt = tmp_path / "corrupt.sqlite3"
     corrupt.write_bytes(b"SQLite format 3\x00" + b"\x07" * 4000)
     newer = tmp_path / "newer.sqlite3"
@@ -229,8 +224,8 @@ open(sys.argv[3], "w").write("released")
 """
 
 
-def test_import_waits_for_a_lock_held_by_another_process(tmp_path, capsys, history):
-    out, _ = history
+def test_import_waits_for_a_lock_held_by_another_process(tmp_path, capsys, mock_history):
+    out, _ = mock_history
     db = tmp_path / "store.sqlite3"
     assert import_animal(capsys, db, out, "birch", first=1)[0] == 0  # the file exists at the current version
     released = tmp_path / "released"
@@ -248,8 +243,8 @@ def test_import_waits_for_a_lock_held_by_another_process(tmp_path, capsys, histo
     assert sqlite3.connect(db).execute("SELECT count(DISTINCT animal) FROM sessions").fetchone()[0] == 2
 
 
-def test_import_gives_up_with_one_line_when_the_lock_outlasts_wait(tmp_path, capsys, history):
-    out, _ = history
+def test_import_gives_up_with_one_line_when_the_lock_outlasts_wait(tmp_path, capsys, mock_history):
+    out, _ = mock_history
     db = tmp_path / "store.sqlite3"
     assert import_animal(capsys, db, out, "birch", first=1)[0] == 0
     released = tmp_path / "released"
@@ -265,8 +260,8 @@ def test_import_gives_up_with_one_line_when_the_lock_outlasts_wait(tmp_path, cap
     assert sqlite3.connect(db).execute("SELECT count(*) FROM sessions WHERE animal = 'alder'").fetchone()[0] == 0
 
 
-def test_concurrent_decide_processes_each_take_their_own_seq(tmp_path, capsys, history):
-    out, _ = history
+def test_concurrent_decide_processes_each_take_their_own_seq(tmp_path, capsys, mock_history):
+    out, _ = mock_history
     db = tmp_path / "store.sqlite3"
     assert import_animal(capsys, db, out, "alder")[0] == 0
     procs = [subprocess.Popen([sys.executable, "-m", "monitor.app", "decide", "--db", str(db), "--animal", "alder",
@@ -281,8 +276,8 @@ def test_concurrent_decide_processes_each_take_their_own_seq(tmp_path, capsys, h
     assert seqs == [1, 2, 3, 4]
 
 
-def test_full_disk_during_import_stores_nothing_and_says_so(tmp_path, capsys, history, monkeypatch):
-    out, _ = history
+def test_full_disk_during_import_stores_nothing_and_says_so(tmp_path, capsys, mock_history, monkeypatch):
+    out, _ = mock_history
     db = tmp_path / "store.sqlite3"
     assert import_animal(capsys, db, out, "birch", first=1)[0] == 0
     from monitor.store import db as store_db

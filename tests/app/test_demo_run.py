@@ -15,6 +15,7 @@ from pathlib import Path
 import pytest
 
 
+pytestmark = pytest.mark.slow  # a headless window run each: seconds per test
 
 
 def png_size(path: Path) -> tuple[int, int]:

@@ -1,6 +1,6 @@
 """Water ledger: session water from rig events, daily totals, weights and care alerts.
 
-Check values are the issue's hand arithmetic (40 x 30 µL = 1.2 mL; 25 ms x 1.2 µL/ms = 30 µL;
+Check values are hand arithmetic (40 x 30 µL = 1.2 mL; 25 ms x 1.2 µL/ms = 30 µL;
 21.3 g / 25.0 g = 85.2 %); default thresholds are common practice (REFERENCES.md, water restriction).
 """
 
@@ -42,12 +42,12 @@ def test_forty_rewards_of_30_ul_make_1_2_ml():
         lines += [encode_event(t, "reward", 30), encode_event(t + 300_000, "lick")]
     w = water(lines)
     assert w.deliveries == 40 and w.unconfirmed == 0 and w.licks == 40
-    assert w.earned_ml == pytest.approx(1.2)  # issue check value: 40 x 30 µL = 1.2 mL
+    assert w.earned_ml == pytest.approx(1.2)  # hand arithmetic: 40 x 30 µL = 1.2 mL
 
 
 def test_valve_time_times_calibration():
     w = water([encode_event(1000, "valve", 25), encode_event(200_000, "lick")])
-    assert w.earned_ul == pytest.approx(30.0)  # issue check value: 25 ms x 1.2 µL/ms = 30 µL
+    assert w.earned_ul == pytest.approx(30.0)  # hand arithmetic: 25 ms x 1.2 µL/ms = 30 µL
     assert water([encode_event(1000, "valve", 25)], ul_per_ms=None).unknown_volume == 1
 
 
@@ -75,7 +75,7 @@ def test_long_valve_openings_are_listed():
 
 
 def test_percent_of_baseline_check_value():
-    assert percent_of_baseline(21.3, 25.0) == pytest.approx(85.2)  # issue check value
+    assert percent_of_baseline(21.3, 25.0) == pytest.approx(85.2)  # hand arithmetic
 
 
 def session(ml: float, end: datetime, lines=None, name="s1"):

@@ -8,6 +8,8 @@ import pytest
 from monitor.core.consolidation.analysis import Options, consolidation_block, estimate_consolidation
 from monitor.core.consolidation.model import TrialSeries, simulate
 
+pytestmark = pytest.mark.slow  # model fits on simulated animals: seconds per test
+
 FAST = Options(starts=2, draws=16, state_draws=16)
 TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
 

@@ -28,6 +28,7 @@ def test_a_run_that_reaches_a_known_optimum_stops_there(prep):
     assert np.max(np.abs(joined.theta - full.theta)) < 0.3
 
 
+@pytest.mark.slow
 def test_race_keeps_the_best_and_never_loses_to_the_plain_multistart(prep):
     starts = default_starts(False, 4, np.random.default_rng(1))
     plain = fit_model(prep, "error", False, starts, 2, 150, None, False)

@@ -50,6 +50,7 @@ def _vectorised(func):
     return call
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("groups", [1, 3])
 @pytest.mark.parametrize("variant", ["error", "outcome"])
 @pytest.mark.parametrize("two_rate", [True, False])

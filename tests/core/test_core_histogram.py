@@ -16,6 +16,7 @@ values = st.lists(st.one_of(st.floats(-100, 3000, allow_nan=False), st.sampled_f
                   max_size=300)
 
 
+@pytest.mark.slow
 @settings(max_examples=200, deadline=None)
 @given(values, st.integers(1, 80))
 def test_linear_bins_equal_numpy_histogram(data, bins):
@@ -28,6 +29,7 @@ def test_linear_bins_equal_numpy_histogram(data, bins):
     assert h.outside == sum(1 for v in data if not 0.0 <= v <= 2000.0)
 
 
+@pytest.mark.slow
 @settings(max_examples=200, deadline=None)
 @given(values, st.integers(1, 80))
 def test_log_bins_equal_numpy_histogram(data, bins):
@@ -57,6 +59,7 @@ def test_today_against_previous_sessions():
     assert hist.snapshot().previous[1] == 4 and hist.snapshot().today.sum() == 0
 
 
+@pytest.mark.slow
 @settings(max_examples=200, deadline=None)
 @given(st.lists(st.floats(0.001, 1e5), min_size=1, max_size=300), st.integers(1, 40))
 def test_running_figures_equal_numpy(data, size):

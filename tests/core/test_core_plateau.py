@@ -255,6 +255,7 @@ def _sessions_of(series, size=40):
                           for t, o in zip(_trials(0, size), chunk, strict=True)]) for chunk in chunks]
 
 
+@pytest.mark.slow
 def test_learning_trial_marks_above_chance():
     protocol = parse_protocol(PROTOCOL, "p.toml")
     result = learning_trial(learning_curve(protocol, _sessions_of(STEP_UP)), chance=0.2)
@@ -279,6 +280,7 @@ def brute_candidates(series, origin=0):
     return out
 
 
+@pytest.mark.slow
 @settings(max_examples=200, deadline=None)
 @given(st.lists(st.booleans(), min_size=2, max_size=120), st.integers(0, 5))
 def test_hull_candidates_equal_the_literal_rule(series, origin):
@@ -312,6 +314,7 @@ def test_posterior_mode_equals_brentq(prior_var, hits, total, chance):
     assert _posterior_mode(state, prior_var, hits, total, mu) == pytest.approx(root, abs=1e-9)
 
 
+@pytest.mark.slow
 def test_long_series_from_a_low_baseline_stays_finite():
     """A first session with no hit puts chance at its 0.01 floor; 22,000 later trials at ~70 %
     overflowed the old Newton step (seen on a demo animal's 75 sessions)."""

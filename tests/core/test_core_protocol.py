@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from drivers.config import ConfigError
-from monitor.core.protocol import parse_protocol
+from monitor.core.protocol import HIGHER_IS_BETTER, parse_protocol
 
 CONTRACT_EXAMPLE = """
 [protocol]
@@ -35,7 +35,7 @@ def test_contract_example_parses_as_written():
     assert stage.window_low_ms == pytest.approx(520) and stage.window_high_ms == pytest.approx(780)
     assert stage.trial_timeout_ms == 3000
     assert p.plateau.rule == "consecutive_sessions" and p.plateau.threshold == 0.5 and p.plateau.sessions == 3
-    assert p.plateau.measure == "hit_rate" and p.plateau.higher_is_better
+    assert p.plateau.measure == "hit_rate" and HIGHER_IS_BETTER[p.plateau.measure]
 
 
 def test_window_ms_and_default_timeout():

@@ -1,4 +1,4 @@
-"""The per-animal report (CONTRACTS.md §5) and per-session summaries, from events to JSON."""
+"""The per-animal report and per-session summaries, from events to JSON."""
 
 from __future__ import annotations
 

@@ -79,6 +79,7 @@ def sessions(draw):
     return items
 
 
+@pytest.mark.slow
 @settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(items=sessions())
 def test_incremental_equals_from_scratch(events, items):
@@ -94,13 +95,18 @@ def test_incremental_equals_from_scratch(events, items):
         assert snap.licks == ref["licks"]
         assert (snap.rolling_hits, snap.rolling_trials) == ref["rolling"]
         assert (snap.rolling_low, snap.rolling_high) == wilson(ref["rolling"][0], ref["rolling"][1])
+        series = live.stats.rate_series()  # one point per completed trial, the last one the snapshot's
+        assert len(series.trial) == snap.trials and not series.rate.flags.writeable
+        if snap.trials:
+            assert same(series.rate[-1], snap.rolling_hit_rate)
+            assert (series.low[-1], series.high[-1]) == (snap.rolling_low, snap.rolling_high)
         for mine, theirs in ((snap.median_interval_ms, ref["median"]), (snap.rolling_median_ms, ref["rolling_median"]),
                              (snap.cv, ref["cv"]), (snap.fixed_window_fraction, ref["fwf"]),
                              (snap.median_abs_log_error, ref["mae"]), (snap.water_ul, ref["water"])):
             assert same(mine, theirs)
         assert np.array_equal(snap.linear.today, ref["hist"])
     live.finish()
-    # the session summary (sessions.figures, numpy batch) agrees with the live figures at the end
+    # the session summary (session.summary.figures, numpy batch) agrees with the live figures at the end
     snap, summary = live.snapshot(), figures(live.trials, (600.0, 800.0))
     assert summary.trials == snap.trials and summary.hits == snap.hits
     if summary.median_interval_ms is not None:
@@ -108,13 +114,25 @@ def test_incremental_equals_from_scratch(events, items):
         assert same(summary.fixed_window_fraction, snap.fixed_window_fraction)
 
 
-def test_stage_change_restarts_interval_figures_but_not_totals(events):
+def two_stages(events, second_ms: float) -> LiveSession:
+    """A 700 ms trial in stage a, then one of `second_ms` in stage b (target 1000 ms, window 800-1200)."""
     protocol = parse_protocol(PROTOCOL + '[[stages]]\nname = "a"\n[[stages]]\nname = "b"\ntarget_ms = 1000\n', "s.toml")
     live = LiveSession(protocol, window=WINDOW)
     for e in events((0, "lever_down"), (700, "lever_down"), (5000, "param", "stage", "b"),
-                    (6000, "lever_down"), (7000, "lever_down"), (9000, "lick")):
+                    (6000, "lever_down"), (6000 + second_ms, "lever_down"), (9000, "lick")):
         live.feed(e)
-    snap = live.snapshot()
+    return live
+
+
+def test_stage_change_restarts_interval_figures_but_not_totals(events):
+    snap = two_stages(events, 1000).snapshot()
     assert snap.stage == "b" and snap.trials == 2 and snap.stage_trials == 1
     assert snap.median_interval_ms == 1000.0 and snap.target_ms == 1000.0
     assert snap.recent_intervals_ms.tolist() == [1000.0] and not snap.recent_intervals_ms.flags.writeable
+
+
+def test_the_rolling_hit_rate_series_restarts_with_the_stage(events):
+    series = two_stages(events, 1500).stats.rate_series()
+    # a hit in stage a, then a miss in b (1500 ms, outside 800-1200): b's rate is its one miss alone, not 1/2
+    assert series.trial.tolist() == [1.0, 2.0] and series.rate.tolist() == [1.0, 0.0]
+    assert (series.low[-1], series.high[-1]) == wilson(0, 1)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import pytest
 import math
 
 from hypothesis import HealthCheck, given, settings
@@ -211,7 +212,7 @@ def _trials_via(data: bytes, mode: str, protocol):
 
 
 def test_three_ways_same_trials(basic, stream):
-    # whole input, byte by byte, and a trailing partial line (h11's three ways; DESIGN.md)
+    # whole input, byte by byte, and a trailing partial line (three ways, common practice for sans-I/O parsers)
     data = stream((0, "trial_start"), (100, "lever_down"), (800, "lever_down"), (801, "outcome", "hit"),
                   (1900, "trial_start"), (2000, "lever_down"), (2600, "lever_down"))
     whole = _trials_via(data, "whole", basic)
@@ -243,6 +244,7 @@ def event_lists(draw):
     return items
 
 
+@pytest.mark.slow
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(items=event_lists())
 def test_any_stream_gives_consistent_records(basic, events, items):
@@ -291,6 +293,7 @@ def reference_pairs(segments, timeout_ms):
     return out
 
 
+@pytest.mark.slow
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(gaps=st.lists(st.lists(st.integers(1, 5000), max_size=25), min_size=1, max_size=4))
 def test_incremental_pairing_equals_a_batch_reading(basic, events, gaps):

@@ -1,11 +1,15 @@
-"""Figures read from a per-animal report (CONTRACTS.md §5 shape) feed the rule as documented."""
+"""Figures read from a per-animal report (the shape of animal_report) feed the rule as documented."""
 
 from __future__ import annotations
+
+import pytest
 
 from monitor.core.eligibility.rules import parse_eligibility
 from monitor.core.eligibility.figures import SessionForecast
 from monitor.core.eligibility.from_report import figures_from_report
-from monitor.core.eligibility.verdict import IN_WINDOW, REVIEW, evaluate
+from monitor.core.eligibility.verdict import IN_WINDOW, NOT_YET, REVIEW, WAITING, evaluate
+from monitor.core.session.animal_report import SessionData, animal_report
+from monitor.core.session.trials import Trial
 
 RULE = parse_eligibility({"groups": {"early": {"max_sessions_since_plateau": 6, "max_interval_error": 0.2,
                                                "max_slow_fraction": 0.5}}})
@@ -44,7 +48,31 @@ def test_consolidation_from_the_latest_session_is_used_and_a_stale_one_is_marked
     assert evaluate(RULE, stale).kind == REVIEW  # an old fit never opens a window
 
 
-def test_extra_measures_and_forecasts_pass_through():
-    f = figures_from_report(report(9, 8), extra_measures={"start_drop": 0.05},
-                            forecast={"early": SessionForecast(closes_in=(1, 3))})
+def test_start_drop_and_forecasts_pass_through():
+    rows = report(9, 8)
+    rows["sessions"][-1]["start_drop"] = 0.05
+    f = figures_from_report(rows, forecast={"early": SessionForecast(closes_in=(1, 3))})
     assert f.measures["start_drop"] == 0.05 and f.forecast["early"].closes_in == (1, 3)
+
+
+def _trial(index: int, interval_ms: float) -> Trial:
+    word = "hit" if 560 <= interval_ms <= 840 else "miss"
+    return Trial(index, index * 2_000_000, interval_ms, 700.0, 560.0, 840.0, "main", word, word == "hit",
+                 "computed", word, 0)
+
+
+def test_a_rule_bounding_the_start_drop_gives_a_verdict(basic):
+    # session 1 ends 20/20 inside the fixed window (560-840 ms); session 2: 5 warm-up trials, then 10/20 inside
+    first = [_trial(i, 700.0) for i in range(1, 31)]
+    second = [_trial(i, 400.0) for i in range(1, 6)] + [_trial(5 + i, 700.0 if i % 2 else 1000.0) for i in range(1, 21)]
+    entry = animal_report("heron", basic, [SessionData(trials=first), SessionData(trials=second)])
+    assert entry["sessions"][0]["start_drop"] is None
+    assert entry["sessions"][1]["start_drop"] == pytest.approx(1.0 - 10 / 20)  # hand count
+    figures = figures_from_report(entry)
+    assert figures.measures["start_drop"] == pytest.approx(0.5)
+    lenient = parse_eligibility({"groups": {"g": {"plateau": False, "max_start_drop": 0.6}}})
+    strict = parse_eligibility({"groups": {"g": {"plateau": False, "max_start_drop": 0.2}}})
+    assert evaluate(lenient, figures).kind == IN_WINDOW
+    judged = evaluate(strict, figures)
+    assert [g.state for g in judged.groups] == [NOT_YET]  # judged on the figure, not "unknown"
+    assert judged.kind == WAITING

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import os
-import time
 from pathlib import Path
 
 import pytest
@@ -12,14 +11,7 @@ from drivers.mapping import MappedDecoder, parse_mapping
 from drivers.status import LOST, READING, Batch
 from drivers.tail import FileTail
 from drivers.wire import Event, Malformed, decode_all, encode_event, encode_header
-
-
-def wait_for(condition, timeout: float = 10.0, what: str = "condition") -> None:
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for {what}")
-        time.sleep(0.01)
+from fixtures.sessions import wait_for
 
 
 class Collect:

@@ -223,6 +223,7 @@ LINE_PIECES = st.sampled_from(
 )
 
 
+@pytest.mark.slow
 @settings(max_examples=300, deadline=None)
 @given(st.lists(st.lists(LINE_PIECES, max_size=4).map(b"".join), max_size=40), st.lists(st.integers(0, 40), max_size=10))
 def test_line_shaped_input_never_raises_and_is_accounted_for(lines, chunks):

@@ -21,6 +21,7 @@ def core_counts(out, name, record, legacy):
     return len(completed), sum(t.rewarded for t in completed), outcomes, builder
 
 
+@pytest.mark.slow
 def test_core_counts_equal_truth_when_the_rig_judges_two_press_and_joystick(tmp_path):
     main(["history", "--animals", "2", "--days", "5", "--seed", "4", "--out", str(tmp_path / "p")])
     main(["history", "--animals", "1", "--days", "3", "--seed", "4", "--out", str(tmp_path / "j"),

@@ -18,6 +18,7 @@ def history(tmp_path_factory):
     return out
 
 
+@pytest.mark.slow
 def test_history_files_and_names(history):
     truth = json.loads((history / "truth.json").read_text())
     names = sorted(truth["animals"])
@@ -30,6 +31,7 @@ def test_history_files_and_names(history):
         assert (history / f"{name}.protocol.toml").exists()
 
 
+@pytest.mark.slow
 def test_session_files_header_and_truth_counts(history):
     truth = json.loads((history / "truth.json").read_text())
     for name, animal in truth["animals"].items():

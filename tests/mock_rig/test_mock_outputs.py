@@ -29,6 +29,7 @@ def test_file_output_appends_what_was_sent(tmp_path):
     assert isinstance(records[1], Header)
 
 
+@pytest.mark.slow
 def test_stream_output_and_scheduled_silence_leave_a_device_time_gap():
     stream = io.BytesIO()
     output = StreamOutput(stream, record=True)
@@ -41,6 +42,7 @@ def test_stream_output_and_scheduled_silence_leave_a_device_time_gap():
     assert sum(isinstance(r, Header) for r in decode_all(stream.getvalue())) == 1  # no reset
 
 
+@pytest.mark.slow
 def test_stuck_lever_and_open_valve_in_a_live_box():
     stream = io.BytesIO()
     output = StreamOutput(stream)
@@ -82,6 +84,7 @@ def test_fault_spec_parsing():
         parse_fault("unplug")
 
 
+@pytest.mark.slow
 def test_live_cli_to_file_with_wrap_soon_and_garbage(tmp_path, capsys):
     path = tmp_path / "live.rsw"
     code = main(["live", "--out", f"file:{path}", "--speed", "300", "--seconds", "1.5",
@@ -118,6 +121,7 @@ def test_demo_api_starts_and_stops_rigs_on_ptys(tmp_path):
     assert not (tmp_path / "links" / "alder").exists()
 
 
+@pytest.mark.slow
 def test_demo_history_labels_are_true(tmp_path):
     prepared = prepare_demo(tmp_path)
     by_label = {d.label: d.animal.sessions for d in prepared}

@@ -5,6 +5,7 @@ import os
 import threading
 import time
 
+import pytest
 import serial
 
 from drivers.serial import SerialSource
@@ -12,6 +13,8 @@ from drivers.wire import Event, Header, Malformed, WireDecoder
 from mock_rig.history import cohort
 from mock_rig.live import LiveRig
 from mock_rig.outputs import PtyOutput, wait_until
+
+pytestmark = pytest.mark.slow  # real pseudo-terminals with timed reads: about a second per test
 
 
 def key(record):

@@ -104,6 +104,7 @@ def stored_lines(path: Path) -> tuple[dict[int, int], dict[int, bytes]]:
     return events, raw
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("lines", [pytest.param(10_000, id="short"),
                                    pytest.param(1_000_000, id="long", marks=pytest.mark.long)])
 def test_fuzzed_lines_are_each_stored_once_as_event_or_raw_row(tmp_path, lines):

@@ -54,6 +54,7 @@ class GrowingLog:
         return self.lines
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("kills", [pytest.param(3, id="short"),
                                    pytest.param(20, id="long", marks=[pytest.mark.long, pytest.mark.timeout(1800)])])
 def test_sigkilled_recorder_stores_every_line_once(tmp_path, recorder, kit, kills):

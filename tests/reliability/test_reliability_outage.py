@@ -34,6 +34,7 @@ print("released", flush=True)
 """
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("outage_s", [pytest.param(2.0, id="short"),
                                       pytest.param(10.0, id="long", marks=pytest.mark.long)])
 def test_events_are_held_through_a_locked_store_and_written_afterwards(tmp_path, boards, recorder, kit, outage_s):

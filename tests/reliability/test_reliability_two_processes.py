@@ -37,6 +37,7 @@ def grow(path, lines: int, seed: int, done: threading.Event) -> None:
     done.set()
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("lines", [pytest.param(10_000, id="short"),
                                    pytest.param(100_000, id="long", marks=[pytest.mark.long,
                                                                           pytest.mark.timeout(1800)])])

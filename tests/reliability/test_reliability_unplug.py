@@ -26,6 +26,7 @@ pytestmark = pytest.mark.skipif(os.name != "posix", reason="pseudo-terminals are
 EVENTS_PER_CYCLE = 200
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("cycles", [pytest.param(5, id="short"),
                                     pytest.param(100, id="long", marks=[pytest.mark.long, pytest.mark.timeout(1800)])])
 def test_unplug_replug_cycles_lose_and_duplicate_nothing(tmp_path, boards, kit, cycles):

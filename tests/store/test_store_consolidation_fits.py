@@ -19,6 +19,8 @@ from monitor.core.consolidation.analysis import estimate_consolidation
 from monitor.store.consolidation_fits import refit_animal, store_series
 from monitor.store.fits import cached_block, latest_fit
 
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
+
 
 @pytest.fixture(scope="module")
 def animal(tmp_path_factory):

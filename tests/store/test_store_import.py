@@ -9,34 +9,17 @@ import pytest
 
 from drivers.mapping import parse_mapping
 from drivers.wire import decode_all, encode_event, encode_header
-from mock_rig.history import cohort, write_history
 from monitor.core.protocol import parse_protocol
 from monitor.core.session.animal_report import SessionData, animal_report
 from monitor.store.db import open_store
 from monitor.store.derive import rebuild_trials, session_events, stored_trials
 from monitor.store.importer import ImportRefused, import_file
 from monitor.store.reporting import report
+from fixtures.protocols import protocol_toml
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 2
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
+pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
-[plateau]
-rule = "consecutive_sessions"
-min_hit_rate = 0.5
-sessions = 3
-"""
-
-
-@pytest.fixture(scope="module")
-def history(tmp_path_factory) -> tuple[Path, dict]:
-    out = tmp_path_factory.mktemp("history")
-    truth = write_history(out, cohort(2, seed=1), days=6)
-    return out, truth
+PROTOCOL = protocol_toml(version=2, plateau_sessions=3)
 
 
 def do_import(conn, path: Path, protocol_text: str, **kwargs):
@@ -59,8 +42,8 @@ def import_history(conn, out: Path, truth: dict) -> None:
             do_import(conn, path, text)
 
 
-def test_history_import_matches_the_simulators_truth(tmp_path, history):
-    out, truth = history
+def test_history_import_matches_the_simulators_truth(tmp_path, mock_history):
+    out, truth = mock_history
     conn = open_store(tmp_path / "store.sqlite3")
     import_history(conn, out, truth)
     document = report(conn)
@@ -79,8 +62,8 @@ def test_history_import_matches_the_simulators_truth(tmp_path, history):
     assert events == lines
 
 
-def test_report_from_stored_trials_equals_the_report_from_events(tmp_path, history):
-    out, truth = history
+def test_report_from_stored_trials_equals_the_report_from_events(tmp_path, mock_history):
+    out, truth = mock_history
     conn = open_store(tmp_path / "store.sqlite3")
     import_history(conn, out, truth)
     animal = sorted(truth["animals"])[0]
@@ -96,8 +79,8 @@ def test_report_from_stored_trials_equals_the_report_from_events(tmp_path, histo
     assert from_events["plateau"] == stored["plateau"]
 
 
-def test_trials_rebuild_gives_the_same_rows(tmp_path, history):
-    out, truth = history
+def test_trials_rebuild_gives_the_same_rows(tmp_path, mock_history):
+    out, truth = mock_history
     conn = open_store(tmp_path / "store.sqlite3")
     import_history(conn, out, truth)
     before = stored_trials(conn, 1)
@@ -111,8 +94,8 @@ def test_trials_rebuild_gives_the_same_rows(tmp_path, history):
     assert len(before) == len(after)
 
 
-def test_reimport_of_the_same_bytes_is_refused_and_changes_nothing(tmp_path, history):
-    out, _ = history
+def test_reimport_of_the_same_bytes_is_refused_and_changes_nothing(tmp_path, mock_history):
+    out, _ = mock_history
     conn = open_store(tmp_path / "store.sqlite3")
     path = sorted(out.glob("*_s01.rsw"))[0]
     do_import(conn, path, PROTOCOL, animal="heron")

@@ -21,22 +21,9 @@ from monitor.store.records import (RecordError, add_condition, check_in, check_o
                                    ensure_protocol, ensure_rig, exclude_session, find_animal)
 from monitor.store.reporting import build_entry, refresh_cache, report
 from monitor.store.schema import MIGRATIONS, SCHEMA_VERSION
+from fixtures.protocols import protocol_toml
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
-
-[plateau]
-rule = "consecutive_sessions"
-min_hit_rate = 0.5
-sessions = 2
-min_trials = 5
-"""
+PROTOCOL = protocol_toml(reward_ul=30, plateau_sessions=2, min_trials=5)
 
 
 def store(tmp_path):
@@ -188,7 +175,7 @@ def test_care_log_feeds_the_daily_ledger(tmp_path):
     assert care.sessions[0].earned_ul == 4 * 30 and care.sessions[0].unconfirmed == 0
     summary = day_summary(care, date(2026, 3, 2), CareConfig(),
                           now=datetime(2026, 3, 2, 18, 0, tzinfo=timezone(timedelta(hours=1))))
-    # issue 9's check value: 21.3 g against a 25.0 g baseline = 85.2 %
+    # hand arithmetic: 21.3 g against a 25.0 g baseline = 85.2 %
     assert summary.percent_of_baseline == pytest.approx(85.2)
     assert summary.total_ml == pytest.approx(0.12 + 0.5)
     assert summary.notes == ("coat scruffy",)
@@ -203,7 +190,7 @@ def test_the_weight_taken_at_check_in_is_a_weighing_of_the_day(tmp_path):
     assert [(w.grams, w.by) for w in care.weighings] == [(21.3, "ana")]
     summary = day_summary(care, date(2026, 3, 2), CareConfig(),
                           now=datetime(2026, 3, 2, 18, 0, tzinfo=timezone.utc))
-    # issue 9's check value: 21.3 g against a 25.0 g baseline = 85.2 %
+    # hand arithmetic: 21.3 g against a 25.0 g baseline = 85.2 %
     assert summary.percent_of_baseline == pytest.approx(85.2)
 
 

@@ -15,14 +15,7 @@ from drivers.wire import WireDecoder, encode_event, encode_header
 from monitor.store import db
 from monitor.store.schema import APPLICATION_ID, MIGRATIONS, SCHEMA_VERSION, Migration
 from monitor.store.writer import HOLDING, OK, OVERFLOW, StoreWriter
-
-
-def wait_for(condition, timeout: float = 10.0, what: str = "condition") -> None:
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for {what}")
-        time.sleep(0.01)
+from fixtures.sessions import wait_for
 
 
 def digest(path: Path) -> str:

@@ -106,6 +106,7 @@ def test_rolling_rate_is_drawn_with_its_band_and_todays_counts(page):
         assert page.figures[key].value.text() == str(getattr(today, key))
 
 
+@pytest.mark.slow
 def test_learning_curve_marks_stages_criterion_and_plateau_with_reason(page):
     curve = page.book.state("cedar").curve
     x, y = page.curve.points.getData()

@@ -64,6 +64,7 @@ def clipped_labels(window) -> list[str]:
 
 
 # --- model -> UI ---------------------------------------------------------------
+@pytest.mark.slow
 def test_window_is_1366_by_768_and_nothing_is_clipped(qtbot):
     window = make_window(qtbot)
     window.show()
@@ -106,6 +107,7 @@ def test_advisory_caution_is_shown_beside_care_and_consolidation_figures(qtbot):
     assert page.care_advisory.text() == ADVISORY and page.consolidation.advisory.text() == ADVISORY
 
 
+@pytest.mark.slow
 def test_plots_follow_a_dark_palette(qtbot):
     window = make_window(qtbot)
     page = window.open_animal("cedar")

@@ -1,4 +1,4 @@
-"""`rigside report --db DB [--animal NAME] --json`: the per-animal summary of CONTRACTS.md §5.
+"""`rigside report --db DB [--animal NAME] --json`: the per-animal summary (docs/cli.md).
 
 Rule: read-only and fast: stored trials and the cached consolidation fit,
 never a refit (monitor.store.reporting). An animal the store does not know is
@@ -18,7 +18,7 @@ from monitor.app.paths import add_db_argument, resolve_db
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser)
     parser.add_argument("--animal", help="only this animal (default: every animal)")
-    parser.add_argument("--json", action="store_true", help="print the report as JSON (CONTRACTS.md §5)")
+    parser.add_argument("--json", action="store_true", help="print the report as JSON")
 
 
 def open_readonly(db):

@@ -1,7 +1,7 @@
 """Daily water ledger and care alerts for animals on water restriction (advisory).
 
 Rule: a care day is the local calendar date of each record's own timestamp
-(aware datetimes). Per animal and day: water earned in sessions (care_water)
+(aware datetimes). Per animal and day: water earned in sessions (care.water)
 plus supplements = total, against the daily minimum of the `[care]` table
 (ml/day, or ml/kg/day × the latest weight on or before the day, or the larger
 of the two when both are set); owed = minimum − total when positive. Weight is

@@ -58,9 +58,6 @@ class Assignment:
     groups: tuple[str, ...]
     animals: Mapping[str, str]  # animal -> group (read-only)
 
-    def members(self, group: str) -> tuple[str, ...]:
-        return tuple(sorted(a for a, g in self.animals.items() if g == group))
-
 
 def _check(groups: Sequence[str]) -> tuple[str, ...]:
     names = tuple(groups)

@@ -74,10 +74,6 @@ class Bound:
             return f"≥ {format_figure(self.low)}"
         return f"≤ {format_figure(self.high)}"
 
-    def describe(self) -> str:
-        """'CV ≤ 0.25', 'sessions since plateau 2 to 6'."""
-        return f"{DISPLAY[self.figure]} {self.needs()}"
-
 
 @dataclass(frozen=True, slots=True)
 class SlowBound:

@@ -11,7 +11,7 @@ makes sure there are some). The animal's state, in plain words: "training",
 "waiting for a window", "in window: LABEL", "window passed" or "needs review"
 (figures from another protocol version, or a window blocked only by figures
 that cannot be judged), with a one-sentence reason. Forecasts are ranges of
-sessions (see eligibility_figures); exact ones come from the since-plateau
+sessions (see eligibility.figures); exact ones come from the since-plateau
 bounds, model ones from `figures.forecast`. `window_changes(previous,
 current)` lists the alerts: windows that opened or closed, and windows
 closing (or opening) within `warn_sessions`, each once per change; only the

@@ -1,4 +1,4 @@
-"""The per-animal report of CONTRACTS.md §5, built from a protocol and sessions.
+"""The per-animal report (`rigside report`), built from a protocol and sessions.
 
 Rule: pure. `animal_report` takes the protocol and, per session in time
 order, either its events (segmented here with the live `LiveSession`, so the
@@ -6,8 +6,11 @@ report and the live view count alike) or its trial records, plus what the
 store knows (start time text, malformed-line count, exclusion flag). Sessions
 are indexed from 1. Plateau is judged on the learning curve of the final
 stage with the protocol's measure, rule and min_trials; the other rules that
-apply and the above-chance marker are given beside it. The `consolidation`
-key is left to the caller. Every value is a plain JSON type.
+apply and the above-chance marker are given beside it. Each session's
+`start_drop` is the start-of-session drop of the final stage's fixed-window
+fraction against the previous included session (None for the first, for an
+excluded session or without trials). The `consolidation` key is left to the
+caller. Every value is a plain JSON type.
 """
 
 from __future__ import annotations
@@ -22,6 +25,7 @@ from monitor.core.session.plateau import judge_all, learning_trial
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import SessionInput, learning_curve, summarize
 from monitor.core.session.live_stats import LiveSession
+from monitor.core.session.start_drop import start_drops
 from monitor.core.session.trials import Trial
 
 
@@ -71,10 +75,21 @@ def _result(result) -> dict[str, Any]:
             "reason": result.reason, "figures": plain(result.figures)}
 
 
+def _fixed_window_drops(protocol: Protocol, inputs: Sequence[SessionInput]) -> dict[int, float]:
+    """Session index -> start-of-session drop of the final stage's fixed-window fraction (included sessions)."""
+    final = protocol.final_stage.name
+    low, high = protocol.fixed_window(final)
+    flags = [(index, [low <= t.interval_ms <= high for t in s.trials
+                      if t.completed and t.stage == final and math.isfinite(t.interval_ms)])
+             for index, s in enumerate(inputs, start=1) if not s.excluded]
+    return {d.session: d.drop for d in start_drops(flags)}
+
+
 def animal_report(animal: str, protocol: Protocol, sessions: Sequence[SessionData],
                   valve_ul_per_ms: float | None = None) -> dict[str, Any]:
-    """The report entry of one animal (CONTRACTS.md §5 without `consolidation`)."""
+    """The report entry of one animal (without `consolidation`)."""
     inputs = [_session_input(protocol, data, valve_ul_per_ms) for data in sessions]
+    drops = _fixed_window_drops(protocol, inputs)
     rows = []
     for index, session in enumerate(inputs, start=1):
         summary = summarize(protocol, session, index)
@@ -97,6 +112,7 @@ def animal_report(animal: str, protocol: Protocol, sessions: Sequence[SessionDat
             "inter_trial": summary.inter_trial,
             "fixed_window_fraction": f.fixed_window_fraction,
             "median_abs_log_error": f.median_abs_log_error,
+            "start_drop": drops.get(index),
             "disagreements": summary.disagreements,
             "water_ul": summary.water_ul,
             "excluded": summary.excluded,

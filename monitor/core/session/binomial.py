@@ -1,10 +1,11 @@
 """Confidence intervals for a proportion k/n (rolling and session hit rates).
 
 Rule: `wilson` is the closed-form Wilson score interval (no scipy: the live
-path and the recorder must not pay scipy's import); `clopper_pearson` is the
-exact interval from beta quantiles and imports scipy only when called. With
-no trials (n = 0) both return the whole range (0, 1). Bounds are clipped to
+path and the recorder must not pay scipy's import). With no trials (n = 0) it
+returns the whole range (0, 1). Bounds are clipped to
 [0, 1]; k = 0 gives a lower bound of exactly 0 and k = n an upper bound of 1.
+`newcombe_difference` is the interval of a difference of two proportions built
+from their two Wilson intervals (Newcombe's hybrid score, method 10).
 """
 
 from __future__ import annotations
@@ -42,14 +43,12 @@ def wilson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
     return low, high
 
 
-def clopper_pearson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Exact (Clopper-Pearson) interval; imports scipy on first use."""
-    _check(k, n, confidence)
-    if n == 0:
-        return 0.0, 1.0
-    from scipy.stats import beta  # lazy: keeps scipy out of start-up
-
-    alpha = 1 - confidence
-    low = 0.0 if k == 0 else float(beta.ppf(alpha / 2, k, n - k + 1))
-    high = 1.0 if k == n else float(beta.ppf(1 - alpha / 2, k + 1, n - k))
-    return low, high
+def newcombe_difference(k1: int, n1: int, k2: int, n2: int, confidence: float = 0.95) -> tuple[float, float, float]:
+    """p1 - p2 and its hybrid-score interval from the two Wilson intervals (Newcombe 1998, method 10)."""
+    if n1 == 0 or n2 == 0:
+        raise ValueError(f"need trials on both sides, got n1={n1}, n2={n2}")
+    p1, p2 = k1 / n1, k2 / n2
+    l1, u1 = wilson(k1, n1, confidence)
+    l2, u2 = wilson(k2, n2, confidence)
+    d = p1 - p2
+    return d, d - math.sqrt((p1 - l1) ** 2 + (u2 - p2) ** 2), d + math.sqrt((u1 - p1) ** 2 + (p2 - l2) ** 2)

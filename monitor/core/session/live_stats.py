@@ -10,7 +10,10 @@ median absolute log error) describe the stage in force and restart when the
 stage changes, so stages never mix silently. Only completed trials with an
 interval enter the interval figures. Water: a `reward UL` event adds UL, a bare
 `reward` adds the protocol's reward_ul, a `valve MS` event adds MS x the
-calibration (µL/ms) when one is given. `LiveSession` wires a builder to it.
+calibration (µL/ms) when one is given. After each completed trial the rolling
+hit rate and its interval are appended to an append-only series
+(`rate_series()`: a published view never changes afterwards), the one source
+of the rolling hit rate over the session. `LiveSession` wires a builder to it.
 """
 
 from __future__ import annotations
@@ -62,6 +65,39 @@ class LiveSnapshot(NamedTuple):
     log: HistogramSnapshot
     recent_intervals_ms: np.ndarray  # the last `window` stage intervals, oldest first
     recent_hits: np.ndarray
+
+
+class RateSeries(NamedTuple):
+    """Rolling hit rate after each completed trial of the session (read-only arrays, same length)."""
+
+    trial: np.ndarray
+    rate: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+
+
+class _RateTrace:
+    """Append-only buffers; a published view of the first n entries never changes afterwards."""
+
+    def __init__(self) -> None:
+        self._data = np.empty((4, 256))
+        self.count = 0
+
+    def append(self, trial: int, rate: float, low: float, high: float) -> None:
+        if self.count == self._data.shape[1]:
+            grown = np.empty((4, 2 * self.count))
+            grown[:, :self.count] = self._data
+            self._data = grown
+        self._data[:, self.count] = (trial, rate, low, high)
+        self.count += 1
+
+    def view(self) -> RateSeries:
+        parts = []
+        for row in self._data[:, :self.count]:
+            part = row.view()
+            part.flags.writeable = False
+            parts.append(part)
+        return RateSeries(*parts)
 
 
 class _StageFigures:
@@ -132,6 +168,7 @@ class LiveStats:
         first = first or protocol.stages[0]
         self._rules = (first.target_ms, first.window_low_ms, first.window_high_ms)
         self._stage = self._new_stage(stage or first.name)
+        self._trace = _RateTrace()
 
     def _new_stage(self, name: str) -> _StageFigures:
         return _StageFigures(name, self.protocol.fixed_window(name), self.window, self._linear, self._log,
@@ -153,6 +190,12 @@ class LiveStats:
             self._stage = self._new_stage(trial.stage)
         if trial.completed:
             self._stage.add(trial)
+            rolling = self._stage.rolling
+            self._trace.append(self.trials, rolling.rate, *rolling.interval())
+
+    def rate_series(self) -> RateSeries:
+        """The rolling hit rate after each completed trial so far (the stage's, restarted at a stage change)."""
+        return self._trace.view()
 
     def add_event(self, event: Any) -> None:
         """Licks, rewards and valve openings (other events are ignored here)."""

@@ -30,7 +30,7 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-from monitor.core.protocol import BINARY_MEASURES, HIGHER_IS_BETTER, PlateauRule, Protocol
+from monitor.core.protocol import BINARY_MEASURES, HIGHER_IS_BETTER, RULES, PlateauRule, Protocol
 from monitor.core.session.summary import LearningCurve
 
 LN10 = math.log(10.0)
@@ -382,8 +382,7 @@ def judge(rule: PlateauRule, curve: LearningCurve, name: str | None = None) -> P
 def judge_all(protocol: Protocol, curve: LearningCurve) -> dict[str, PlateauResult]:
     """Every rule that applies to the curve, the protocol's own first."""
     rule = protocol.plateau
-    names = [rule.rule] + [n for n in ("consecutive_sessions", "change_point", "slope", "asymptote_fraction")
-                           if n != rule.rule]
+    names = [rule.rule] + [n for n in RULES if n != rule.rule]
     out: dict[str, PlateauResult] = {}
     for name in names:
         own = name == rule.rule

@@ -1,0 +1,45 @@
+"""Start-of-session drop: how much worse a session starts than the previous one ended.
+
+Rule: for a yes/no figure per trial (a hit, or an interval inside the fixed
+window), given per session in time order (the caller leaves excluded sessions
+out; sessions with no trials are skipped): the proportion over the previous
+session's last `window` trials minus the proportion over this session's
+`window` trials after its first `warmup` (the warm-up is set apart, it is its
+own phenomenon). Positive = worse at the start. The 95 % interval of the
+difference is Newcombe's hybrid score interval (`binomial.newcombe_difference`).
+A session with no trial after its warm-up has no drop.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+from monitor.core.session.binomial import newcombe_difference
+
+WARMUP_TRIALS = 5
+WINDOW_TRIALS = 20
+
+
+@dataclass(frozen=True)
+class StartDrop:
+    """Drop in performance at one session's start, warm-up trials set apart."""
+
+    session: int
+    drop: float  # end of previous session minus start of this one
+    low: float
+    high: float
+    warmup_trials: int
+
+
+def start_drops(sessions: Sequence[tuple[int, Sequence[bool]]], warmup: int = WARMUP_TRIALS,
+                window: int = WINDOW_TRIALS) -> tuple[StartDrop, ...]:
+    """One drop per session after the first that has trials; `sessions` is (index, per-trial yes/no)."""
+    kept = [(index, list(flags)) for index, flags in sessions if len(flags)]
+    drops = []
+    for (_, before), (index, now) in zip(kept[:-1], kept[1:]):
+        end, start = before[-window:], now[warmup:warmup + window]
+        if end and start:
+            d, low, high = newcombe_difference(sum(end), len(end), sum(start), len(start))
+            drops.append(StartDrop(index, d, low, high, warmup))
+    return tuple(drops)
