@@ -152,6 +152,11 @@ class SerialSource:
             self._thread.join(timeout)
 
     @property
+    def ever_opened(self) -> bool:
+        """Was the port opened at least once?"""
+        return self._opens > 0
+
+    @property
     def alive(self) -> bool:
         return self._thread is not None and self._thread.is_alive()
 

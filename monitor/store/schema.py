@@ -28,6 +28,9 @@ as it was: no index.
 Version 3 (random assignment): assignment_plans, one row per cohort (method,
 seed, groups, per_block, blinded), insert-only like the decisions: a plan is
 never changed once its seed is drawn.
+
+Source locks: one row per source being recorded, naming the process that
+records it (monitor.store.source_locks).
 """
 
 from __future__ import annotations
@@ -325,11 +328,23 @@ _V3 = (
         BEGIN SELECT RAISE(ABORT, '{_NO_REPLAN}'); END""",
 )
 
+_SOURCE_LOCKS = (
+    """CREATE TABLE source_locks (
+        resource TEXT PRIMARY KEY,      -- monitor.store.source_locks.resource_key: kind and real path
+        holder TEXT NOT NULL,           -- what records it: "rigside record", "the rigside window"
+        host TEXT NOT NULL,
+        pid INTEGER NOT NULL,
+        taken_at REAL NOT NULL,
+        heartbeat_at REAL NOT NULL      -- refreshed by the holder's store writer
+    )""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
               "care log, fits, alerts", _V2),
     Migration("assignment plans", _V3),
+    Migration("source locks: one recorder per source", _SOURCE_LOCKS),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

@@ -113,3 +113,17 @@ def test_window_refuses_a_bad_rig_list_in_one_line(tmp_path):
     assert done.returncode == 2 and len(done.stderr.strip().splitlines()) == 1
     assert "rigs.toml:1" in done.stderr and "protocol" in done.stderr
     assert not (tmp_path / "lab.sqlite3").exists()
+
+
+def test_a_serial_rig_that_does_not_reset_keeps_reset_false_and_reads_without_a_header(tmp_path):
+    path = tmp_path / "rigs.toml"
+    append_rig(path, RigSetup("box-08", "serial", "/dev/ttyACM8", None, None, None, str(tmp_path / "p.toml"),
+                              reset=False))
+    append_rig(path, RigSetup("box-09", "serial", "/dev/ttyACM9", None, None, None, str(tmp_path / "p.toml")))
+    eight, nine = read_rigs(path)
+    assert "reset = false" in path.read_text()
+    assert (eight.wait_for_header, nine.wait_for_header) == (False, True)
+    path.write_text(path.read_text().replace("reset = false", 'reset = "no"'))
+    with pytest.raises(ConfigError) as caught:
+        read_rigs(path)
+    assert caught.value.key == "[[rig]] reset"
