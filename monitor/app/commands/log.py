@@ -7,7 +7,8 @@ entry and why. `--head SEQ:HASH` (repeatable) also checks heads printed
 earlier by `log head`, which catches entries deleted from the end or a
 rewritten log; keep them somewhere else (a lab notebook, an e-mail).
 `export --csv FILE` writes one row per entry (DECISION_CSV_COLUMNS, cells
-escaped as in every rigside CSV). Read-only.
+escaped as in every rigside CSV). `verify` first runs SQLite's quick_check
+over the whole file: a damaged database is refused (exit 2). Read-only.
 """
 
 from __future__ import annotations
@@ -51,7 +52,7 @@ def run(args: argparse.Namespace) -> int:
     heads = _heads(args.head)
     if args.action == "export" and args.csv is None:
         raise UsageError("--csv: give the CSV file to write")
-    conn = open_readonly(args.db)
+    conn = open_readonly(args.db, check=args.action == "verify")  # verify checks the whole file first
     try:
         if args.action == "verify":
             result = verify(conn, heads=heads)
