@@ -29,7 +29,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "export": ("monitor.app.commands.export", "events or trials to CSV, or everything to NWB"),
     "decide": ("monitor.app.commands.decide", "record a person's eligibility decision"),
     "assign": ("monitor.app.commands.assign", "draw an animal's group at random and record it; reveal a blinding key"),
-    "log": ("monitor.app.commands.log", "check the decision log"),
+    "log": ("monitor.app.commands.log", "check the decision log and the care log"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
     "backup": ("monitor.app.commands.backup", "a consistent copy of the database, also while recording runs"),
 }

@@ -31,6 +31,11 @@ never changed once its seed is drawn.
 
 Source locks: one row per source being recorded, naming the process that
 records it (monitor.store.source_locks).
+
+Care chain: care_log entries gain `replaces`/`action` (a void or a
+correction is a new entry), `reason`, `confirmed`, and a hash chain
+(`prev_hash`, `hash`, monitor.core.care_chain); triggers refuse UPDATE and
+DELETE, like the decisions.
 """
 
 from __future__ import annotations
@@ -339,12 +344,37 @@ _SOURCE_LOCKS = (
     )""",
 )
 
+_CARE_NO_CHANGE = "the care log is append-only: void or correct an entry with a new one"
+
+
+def _chain_care_log(conn: sqlite3.Connection) -> None:
+    """Hash-chain the care entries already there, in insertion order."""
+    from monitor.store.care_log import chain_existing
+
+    chain_existing(conn)
+
+
+_CARE_CHAIN = (
+    "ALTER TABLE care_log ADD COLUMN replaces INTEGER REFERENCES care_log(id)",  # the entry voided or corrected
+    "ALTER TABLE care_log ADD COLUMN action TEXT CHECK (action IN ('void', 'correct'))",
+    "ALTER TABLE care_log ADD COLUMN reason TEXT",      # why it was voided, corrected or confirmed
+    "ALTER TABLE care_log ADD COLUMN confirmed TEXT",   # a person's reason for a value outside the usual
+    "ALTER TABLE care_log ADD COLUMN prev_hash TEXT",
+    "ALTER TABLE care_log ADD COLUMN hash TEXT",
+    _chain_care_log,
+    f"""CREATE TRIGGER care_log_no_update BEFORE UPDATE ON care_log
+        BEGIN SELECT RAISE(ABORT, '{_CARE_NO_CHANGE}'); END""",
+    f"""CREATE TRIGGER care_log_no_delete BEFORE DELETE ON care_log
+        BEGIN SELECT RAISE(ABORT, '{_CARE_NO_CHANGE}'); END""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
               "care log, fits, alerts", _V2),
     Migration("assignment plans", _V3),
     Migration("source locks: one recorder per source", _SOURCE_LOCKS),
+    Migration("care log: void and correct, confirmations, hash chain, append-only", _CARE_CHAIN),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 
