@@ -13,6 +13,7 @@ is documented in docs/protocol.md.
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass, field
 from typing import Any
@@ -135,10 +136,14 @@ class Protocol:
 
 
 def _positive(value: float) -> str | None:
+    if not math.isfinite(value):
+        return "must be a finite number"
     return None if value > 0 else "must be > 0"
 
 
 def _not_negative(value: float) -> str | None:
+    if not math.isfinite(value):
+        return "must be a finite number"
     return None if value >= 0 else "must be >= 0"
 
 

@@ -304,3 +304,20 @@ def test_full_disk_during_import_stores_nothing_and_says_so(tmp_path, capsys, hi
     assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == 1
     conn.close()
     assert import_animal(capsys, db, out, "alder")[0] == 0  # with space again, the same files import
+
+
+def test_an_interrupted_import_resumes_with_skip_imported_naming_what_was_skipped(tmp_path, capsys, history):
+    out, _ = history
+    files = sorted(out.glob("alder_s*.rsw"))[:3]
+    db = tmp_path / "resume.sqlite3"
+    protocol = out / "alder.protocol.toml"
+    code, _, _ = run_cli(capsys, "import", files[0], "--protocol", protocol, "--db", db, "--no-fit")
+    assert code == 0  # as if the first command stopped after its first file
+    code, _, err = run_cli(capsys, "import", *files, "--protocol", protocol, "--db", db, "--no-fit")
+    assert code == 2 and one_line(err) and "--skip-imported" in err
+    code, stdout, err = run_cli(capsys, "import", *files, "--protocol", protocol, "--db", db, "--no-fit",
+                                "--skip-imported")
+    assert code == 0 and f"skipped {files[0]}: already imported" in err and "imported 2 files" in stdout
+    conn = sqlite3.connect(db)
+    assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == 3
+    conn.close()

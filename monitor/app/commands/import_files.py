@@ -3,6 +3,8 @@
 Rule: every file is checked before anything is stored: each must be readable,
 and none may have been imported before (the same bytes, by SHA-256, under
 any name) or be given twice; otherwise one line names the file and exit 2.
+With `--skip-imported` files imported before are skipped instead, each named
+on stderr, so an interrupted import resumes with the same command.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived; while another process holds the
 write lock the import waits up to `--wait` seconds instead of failing. Then
@@ -39,6 +41,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help=f"seconds to wait while another process writes the database (default {WAIT_S:g})")
     parser.add_argument("--no-fit", action="store_true",
                         help="skip refitting the consolidation model (the report then says \"not fitted\")")
+    parser.add_argument("--skip-imported", action="store_true",
+                        help="skip files already imported (named on stderr) instead of refusing the whole command; "
+                             "resumes an interrupted import")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -89,11 +94,16 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError(f"--db: {exc}") from None
     imported = 0
     try:
+        skipped = []
         for path, data in contents:
             earlier = already_imported(conn, file_digest(data))
             if earlier is not None:
-                raise UsageError(f"FILE: {path} was already imported (same content as {earlier[0]}); "
-                                 "nothing imported")
+                if not args.skip_imported:
+                    raise UsageError(f"FILE: {path} was already imported (same content as {earlier[0]}); "
+                                     "nothing imported (--skip-imported imports the rest)")
+                skipped.append(path)
+                print(f"skipped {path}: already imported (same content as {earlier[0]})", file=sys.stderr)
+        contents = [(path, data) for path, data in contents if path not in skipped]
         started = time.monotonic()
         animals: set[str] = set()
         totals = [0, 0, 0, 0]
@@ -133,11 +143,13 @@ def run(args: argparse.Namespace) -> int:
     except sqlite3.OperationalError as exc:
         waited = f"waited {args.wait:g} s; " if "locked" in str(exc) or "busy" in str(exc) else ""
         raise UsageError(f"--db: {resolve_db(args.db)}: {exc} ({waited}{imported} of {len(contents)} files "
-                         "imported, the rest not)") from None
+                         "imported, the rest not: run the same command with --skip-imported to import them)") from None
     finally:
         conn.close()
-    if not args.no_fit:
+    if not args.no_fit and animals:
         _refit(resolve_db(args.db), sorted(animals))
+    if skipped:
+        print(f"skipped {len(skipped)} already imported", file=sys.stderr)
     print(f"imported {len(contents)} files: {_n(totals[0], 'session')}, {totals[1]} events, {totals[2]} malformed "
           f"lines, {totals[3]} attempts (trials, lone, premature, omitted) in {time.monotonic() - started:.1f} s")
     return 0
