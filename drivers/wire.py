@@ -209,6 +209,7 @@ class LineDecoder:
     def __init__(self, line: int = 0, offset: int = 0) -> None:
         self._buf = b""
         self._overflow = 0  # bytes of an over-long line seen beyond the kept part
+        self._cr_last = False  # that line's last byte so far is a '\r'
         self.line = line  # lines completed so far
         self.offset = offset  # byte offset of the first byte not yet in a record
 
@@ -223,13 +224,9 @@ class LineDecoder:
         if not data:
             return out
         if self._overflow:
-            cut = data.find(b"\n")
-            if cut < 0:
-                self._overflow += len(data)
+            data = self._feed_overflow(data, out)
+            if data is None:
                 return out
-            self._overflow += cut + 1
-            self._emit_overlong(out)
-            data = data[cut + 1 :]
         data = self._buf + data if self._buf else data
         decode = self._decode_line
         if b"\r" in data and (data.count(b"\r") != data.count(b"\r\n") or data[-1:] == b"\r"):
@@ -247,9 +244,28 @@ class LineDecoder:
         if len(rest) > cap + 1:  # +1 leaves room for a '\r' before '\n'
             self._buf = rest[:cap]
             self._overflow = len(rest) - cap
+            self._cr_last = rest[-1:] == b"\r"
         else:
             self._buf = rest
         return out
+
+    def _feed_overflow(self, data: bytes, out: list[Record]) -> bytes | None:
+        """Skip the rest of an over-long line up to its end; the bytes after it, or None when none."""
+        if self._cr_last:  # the line's last byte so far was '\r': a '\n' may complete it
+            self._cr_last = False
+            if data[:1] == b"\n":
+                self._overflow += 1
+                data = data[1:]
+            self._emit_overlong(out)
+            return data
+        end = _LINE_END.search(data)
+        if end is None or (end.group() == b"\r" and end.end() == len(data)):
+            self._overflow += len(data)
+            self._cr_last = end is not None
+            return None
+        self._overflow += end.end()
+        self._emit_overlong(out)
+        return data[end.end():]
 
     def _feed_with_lone_cr(self, data: bytes, out: list[Record]) -> bytes:
         """Split at `\\n`, `\\r\\n` and a lone `\\r`; a final `\\r` waits for the next byte."""
@@ -269,7 +285,8 @@ class LineDecoder:
         """End of stream: an unterminated last line becomes a malformed record."""
         out: list[Record] = []
         if self._overflow:
-            self._emit_overlong(out, terminated=False)
+            self._emit_overlong(out, terminated=self._cr_last)
+            self._cr_last = False
         elif self._buf[-1:] == b"\r":  # ended by a lone CR that nothing followed
             raw, self._buf = self._buf, b""
             record = self._decode_line(raw, len(raw))
@@ -305,7 +322,7 @@ class LineDecoder:
         """
         if state.get("kind") != self.kind:
             raise ValueError(f"saved reading state is for a {state.get('kind')} decoder, not {self.kind}")
-        self._buf, self._overflow = b"", 0
+        self._buf, self._overflow, self._cr_last = b"", 0, False
         self.line, self.offset = int(state["line"]), int(state["offset"])
 
     def _position(self, size: int) -> tuple[int, int]:
