@@ -40,7 +40,7 @@ class Writer:
 
 
 def status(state=READING, gap_since=None) -> SourceStatus:
-    return SourceStatus(state, 0, 0, 0, 0, 0.0, gap_since, 0, None, None, None)
+    return SourceStatus(state, 0, 0, 0, 0.0, gap_since, 0, None, None, None)
 
 
 def session_bytes(intervals_ms, start_ms=1000, rig_outcomes=True, valve_ms=30) -> bytes:

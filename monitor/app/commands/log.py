@@ -3,7 +3,8 @@
 Rule: `verify` reads every entry in insertion order and checks order, links,
 hashes and corrections (monitor.store.decisions.verify), and the care log's
 chain the same way (monitor.store.care_log.verify); exit 0 with
-"N entries, chain intact" and "M care entries, chain intact", or exit 1 with one
+"N entries, chain intact" (and "M care entries, chain intact" when there
+are any), or exit 1 with one
 line naming the first broken entry of each broken log and why. `--head SEQ:HASH` (repeatable) also checks heads printed
 earlier by `log head`, which catches entries deleted from the end or a
 rewritten log; keep them somewhere else (a lab notebook, an e-mail).
@@ -64,7 +65,8 @@ def run(args: argparse.Namespace) -> int:
                 print(f"rigside log verify: BROKEN: {'; '.join(broken)}", file=sys.stderr)
                 return 1
             print(result.message)
-            print(care.message)
+            if care.entries:
+                print(care.message)
             return 0
         if args.action == "head":
             mark = chain_head(conn)
