@@ -74,6 +74,7 @@ class WriterStatus(NamedTuple):
     last_commit_at: float | None
     diverted_events: int = 0  # events SQLite could not take, kept as malformed lines instead
     unstored_rows: int = 0  # rows that could not be stored at all
+    file_lost: bool = False  # the database file was deleted or replaced: what was committed went with it
 
     @property
     def text(self) -> str:
@@ -169,6 +170,7 @@ class StoreWriter:
         self._last_error: str | None = None
         self._last_commit: float | None = None
         self._diverted = self._unstored = 0
+        self._file_lost = False
         self._held_locks: list[str] = []  # source lock keys held (writer thread only)
         self._identity: tuple[int, int] | None = None
 
@@ -212,7 +214,8 @@ class StoreWriter:
     def status(self) -> WriterStatus:
         with self._lock:
             return WriterStatus(self._state, self._pending, self._committed, self._dropped, self._commits,
-                                self._last_error, self._last_commit, self._diverted, self._unstored)
+                                self._last_error, self._last_commit, self._diverted, self._unstored,
+                                self._file_lost)
 
     def hold_source(self, key: str, holder: str) -> str | None:
         """Take the lock on source `key` for this process (see source_locks.acquire); held until stop."""
@@ -295,10 +298,13 @@ class StoreWriter:
         """The database file must still be the one opened; else stop (raises, the state turns failed)."""
         try:
             st = os.stat(self.path)
+            problem = "" if (st.st_dev, st.st_ino) == self._identity else "replaced by another file"
         except FileNotFoundError:
-            raise RuntimeError(f"the database file {self.path} was deleted while recording") from None
-        if (st.st_dev, st.st_ino) != self._identity:
-            raise RuntimeError(f"the database file {self.path} was replaced by another file while recording")
+            problem = "deleted"
+        if problem:
+            with self._lock:
+                self._file_lost = True
+            raise RuntimeError(f"the database file {self.path} was {problem} while recording")
 
     def _locks(self, conn: sqlite3.Connection, step: Callable[[sqlite3.Connection, list[str]], None]) -> None:
         """Heartbeat or release the held source locks in a short transaction; a busy store is tried later."""
@@ -474,6 +480,7 @@ class StoreWriter:
         return failed
 
     def _commit(self, conn: sqlite3.Connection, row_by_row: bool = False) -> None:
+        self._check_identity()  # never commit into a file that is gone: a stat costs microseconds
         gaps = list(self._gaps)
         for (source_id, session_id), loss in self._losses.items():
             gaps.append((source_id, session_id, loss.start, loss.end,

@@ -118,6 +118,7 @@ def test_deleting_the_database_while_recording_stops_the_recorder_with_exit_1(tm
     out, err = proc.communicate(timeout=30)
     assert proc.returncode == 1, err
     assert "deleted" in err and "recording stopped" in err
+    assert "100 of 100 events read were not stored" in err and out.startswith("recorded 0 events")
 
 
 def test_backup_while_recording_is_a_consistent_copy_holding_what_the_wal_holds(tmp_path):

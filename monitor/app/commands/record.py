@@ -161,35 +161,37 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
         for sig, handler in previous.items():
             signal.signal(sig, handler)
     removed = False
-    try:
-        writer.call(lambda c: db.end_session(c, session_id))
-        removed = writer.call(lambda c: _drop_if_empty(c, session_id))
-    except Exception as exc:  # noqa: BLE001 - the events matter more than the end time
-        print(f"rigside record: could not close the session: {exc}", file=sys.stderr)
+    problems: list[str] = []
+    unclosed = ""
+    if writer.status().state != FAILED:
+        try:
+            writer.call(lambda c: db.end_session(c, session_id))
+            removed = writer.call(lambda c: _drop_if_empty(c, session_id))
+        except Exception as exc:  # noqa: BLE001 - the events matter more than the end time: not a failure
+            unclosed = f"could not close the session ({exc})"
     writer.stop()
     status, wstatus = source.status(), writer.status()
-    not_stored = status.events - wstatus.committed_events - wstatus.diverted_events
+    # a deleted or replaced database file took every row committed into it along
+    not_stored = status.events if wstatus.file_lost else status.events - wstatus.committed_events - \
+        wstatus.diverted_events
     where_to = "no session kept: nothing was received" if removed else f"session {session_id}"
-    print(f"recorded {wstatus.committed_events} events, {status.malformed + wstatus.diverted_events} malformed "
+    stored = 0 if wstatus.file_lost else wstatus.committed_events
+    print(f"recorded {stored} events, {status.malformed + wstatus.diverted_events} malformed "
           f"lines, {status.gaps} gaps into {writer.path} ({where_to})")
-    failed = False
     if wstatus.state == FAILED:
-        print(f"rigside record: error: the store writer stopped ({wstatus.last_error}); recording stopped",
-              file=sys.stderr)
-        failed = True
+        problems.append(f"the store writer stopped ({wstatus.last_error}); recording stopped")
     if not_stored > 0 or wstatus.unstored_rows:
-        print(f"rigside record: error: {not_stored} of {status.events} events read were not stored"
-              + (f", {wstatus.unstored_rows} other rows not stored" if wstatus.unstored_rows else "")
-              + (f" ({wstatus.last_error})" if wstatus.last_error else ""), file=sys.stderr)
-        failed = True
+        problems.append(f"{not_stored} of {status.events} events read were not stored"
+                        + (f", {wstatus.unstored_rows} other rows not stored" if wstatus.unstored_rows else "")
+                        + (f" ({wstatus.last_error})" if wstatus.last_error and wstatus.state != FAILED else ""))
     if not getattr(source, "ever_opened", True):
-        print(f"rigside record: error: {args.source} never opened ({status.last_error or status.text})",
-              file=sys.stderr)
-        failed = True
+        problems.append(f"{args.source} never opened ({status.last_error or status.text})")
     if status.state == LOST or last_state == LOST:
-        print(f"rigside record: error: {status.text}", file=sys.stderr)
-        failed = True
-    return 1 if failed else 0
+        problems.append(status.text)
+    if problems or unclosed:  # one line, however many things went wrong
+        print(f"rigside record: {'error: ' if problems else ''}{'; '.join(problems + [unclosed][:bool(unclosed)])}",
+              file=sys.stderr)
+    return 1 if problems else 0
 
 
 def _watch(source: Any, writer: Any, stop: threading.Event, deadline: float | None) -> str:
