@@ -188,9 +188,9 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
         problems.append(f"{args.source} never opened ({status.last_error or status.text})")
     if status.state == LOST or last_state == LOST:
         problems.append(status.text)
-    if problems or unclosed:  # one line, however many things went wrong
-        print(f"rigside record: {'error: ' if problems else ''}{'; '.join(problems + [unclosed][:bool(unclosed)])}",
-              file=sys.stderr)
+    said = problems + ([unclosed] if unclosed else [])
+    if said:  # one line, however many things went wrong
+        print(f"rigside record: {'error: ' if problems else ''}{'; '.join(said)}", file=sys.stderr)
     return 1 if problems else 0
 
 
