@@ -5,8 +5,10 @@ URL) is recorded into a store by one process at a time. `acquire` runs in the
 caller's `BEGIN IMMEDIATE` transaction, so two processes starting at once are
 served in turn: the second is refused with `SourceBusy` naming the holder
 (what it is, host, process id, since when). A lock is stale, and is taken over
-with a notice, when its heartbeat is older than `STALE_S` or, on the same
-POSIX host, its process no longer exists (a recorder killed with SIGKILL). The
+with a notice, when on the same POSIX host its process no longer exists (a
+recorder killed with SIGKILL) or has not refreshed it for `REUSED_S` (its id
+now belongs to another program), or, from another host or on Windows, when
+its heartbeat is older than `STALE_S`. The
 holder's store writer refreshes the heartbeat every `HEARTBEAT_S` and releases
 its locks when it stops.
 """
@@ -20,7 +22,8 @@ import time
 from datetime import datetime
 
 HEARTBEAT_S = 5.0
-STALE_S = 30.0  # six missed heartbeats: the holder is gone (or its host cannot reach the file)
+STALE_S = 30.0  # six missed heartbeats: a holder on another host is gone (or cannot reach the file)
+REUSED_S = 600.0  # a live process on this host that has not beaten for this long is not the holder
 
 
 class SourceBusy(Exception):
@@ -60,12 +63,15 @@ def acquire(conn: sqlite3.Connection, key: str, holder: str, now: float | None =
     if row is not None:
         other, host, pid, taken_at, beat = row
         alive = _alive(host, pid)
-        stale = now - beat > STALE_S or alive is False
+        silent = now - beat
+        # same host: the process decides (a writer kept off the file by a long lock is still the holder);
+        # its id reused by another program after a crash shows as a heartbeat silent for REUSED_S
+        stale = alive is False or silent > (REUSED_S if alive else STALE_S)
         if not stale:
             since = datetime.fromtimestamp(taken_at).astimezone().isoformat(timespec="seconds")
             raise SourceBusy(f"{key.partition(':')[2]} is being recorded into this database by {other} "
                              f"(process {pid} on {host}, since {since}); stop it first")
-        why = "its process has ended" if alive is False else f"no sign of life for {now - beat:.0f} s"
+        why = "its process has ended" if alive is False else f"no sign of life for {silent:.0f} s"
         notice = f"took over the lock of {other} (process {pid} on {host}): {why}"
         conn.execute("DELETE FROM source_locks WHERE resource = ?", (key,))
     conn.execute("INSERT INTO source_locks (resource, holder, host, pid, taken_at, heartbeat_at) "

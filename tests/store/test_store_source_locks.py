@@ -63,3 +63,12 @@ def test_a_lock_without_heartbeat_is_stale_and_a_fresh_one_holds(conn):
     heartbeat(conn, ["serial:/dev/ttyACM0"], now + 50)
     release(conn, ["serial:/dev/ttyACM0", "serial:/dev/ttyACM1"])  # only our own lock goes
     assert conn.execute("SELECT resource FROM source_locks").fetchall() == [("serial:/dev/ttyACM1",)]
+
+
+def test_a_live_holder_on_this_host_keeps_its_lock_through_a_long_silence(conn):
+    now = time.time()  # e.g. another process held the database's write lock for a minute
+    conn.execute("INSERT INTO source_locks VALUES ('file:/lab/b.rsw', 'rigside record', ?, ?, ?, ?)",
+                 (socket.gethostname(), os.getpid(), now - 90, now - 90))
+    with pytest.raises(SourceBusy):
+        acquire(conn, "file:/lab/b.rsw", "the rigside window", now)
+    assert "no sign of life" in acquire(conn, "file:/lab/b.rsw", "rigside record", now + source_locks.REUSED_S)
