@@ -5,7 +5,8 @@ ISO 8601 time, who did it, and the amount (ml of a supplement, g of a
 weighing) or the text of a note; rows are only added, each hash-chained to
 the one before (monitor.core.care_chain) in the caller's transaction, and
 triggers refuse UPDATE and DELETE. A weighing or supplement is judged against
-the species' plausibility limits (monitor.core.care_limits): refused, or
+the species' plausibility limits, narrowed by the `[care_limits]` of the
+protocol of the animal's latest session (monitor.core.care_limits): refused, or
 stored only with a person's `confirmed` reason. An entry is voided or
 corrected by a new entry naming it (`replaces`, `action`, `reason`, who);
 the original stays, and the ledger reads only entries neither voided nor
@@ -26,7 +27,8 @@ from datetime import datetime, timedelta
 
 from monitor.core.care import AnimalCare, CareConfig, HealthNote, Supplement, Weighing
 from monitor.core.care_chain import GENESIS, CareChainCheck, care_hash, verify_care_chain
-from monitor.core.care_limits import Concern, limits_for, supplement_concerns, weighing_concerns
+from monitor.core.care_limits import (CareLimits, Concern, limits_for, supplement_concerns, weighing_concerns,
+                                      with_protocol)
 from monitor.store.derive import protocol_of, session_events
 from monitor.store.records import RecordError, find_animal, valve_calibration
 
@@ -107,16 +109,21 @@ def _judged(kind: str, concerns: list[Concern], confirmed: str | None) -> str | 
     return confirmed.strip() if asks and confirmed else None
 
 
-def _species(conn: sqlite3.Connection, animal: str) -> str | None:
-    known = find_animal(conn, animal)
-    return known.species if known else None
+def _limits(conn: sqlite3.Connection, animal_id: int) -> CareLimits:
+    """The animal's species limits, narrowed by the `[care_limits]` of its latest session's protocol."""
+    species = conn.execute("SELECT species FROM animals WHERE id = ?", (animal_id,)).fetchone()
+    limits = limits_for(species[0] if species else None)
+    row = conn.execute("SELECT protocol_text FROM sessions WHERE animal = (SELECT name FROM animals WHERE id = ?) "
+                       "AND protocol_text IS NOT NULL ORDER BY started_at DESC, id DESC LIMIT 1",
+                       (animal_id,)).fetchone()
+    return with_protocol(limits, protocol_of(row[0]).care_limits) if row else limits
 
 
 def add_supplement(conn: sqlite3.Connection, animal: str, *, at: str, ml: float, by: str, note: str = "",
                    confirmed: str | None = None) -> int:
     if not ml > 0:
         raise RecordError(f"ml: a supplement is more than 0 ml, got {ml!r}")
-    concerns = supplement_concerns(float(ml), limits_for(_species(conn, animal)))
+    concerns = supplement_concerns(float(ml), _limits(conn, _animal_id(conn, animal)))
     return _add(conn, animal, "supplement", at, by, float(ml), note or None, concerns, confirmed)
 
 
@@ -132,7 +139,7 @@ def add_weighing(conn: sqlite3.Connection, animal: str, *, at: str, grams: float
         stamp = datetime.fromisoformat(when)
         if stamp <= moment and (last is None or stamp >= last[0]):
             last = (stamp, amount)
-    concerns = weighing_concerns(float(grams), limits_for(_species(conn, animal)), moment, last)
+    concerns = weighing_concerns(float(grams), _limits(conn, _animal_id(conn, animal)), moment, last)
     return _add(conn, animal, "weight", at, by, float(grams), None, concerns, confirmed)
 
 
@@ -179,16 +186,15 @@ def correct_entry(conn: sqlite3.Connection, entry: int, *, by: str, reason: str,
     moment = _at(at)
     amount = old_amount if amount is None else float(amount)
     text = old_text if text is None else text
-    species = conn.execute("SELECT species FROM animals WHERE id = ?", (animal_id,)).fetchone()[0]
     concerns: list[Concern] = []
     if kind == "weight":
         if not amount > 0:
             raise RecordError(f"grams: a weight is more than 0 g, got {amount!r}")
-        concerns = weighing_concerns(amount, limits_for(species), moment)
+        concerns = weighing_concerns(amount, _limits(conn, animal_id), moment)
     elif kind == "supplement":
         if not amount > 0:
             raise RecordError(f"ml: a supplement is more than 0 ml, got {amount!r}")
-        concerns = supplement_concerns(amount, limits_for(species))
+        concerns = supplement_concerns(amount, _limits(conn, animal_id))
     elif not text or not text.strip():
         raise RecordError("text: a health note needs its text")
     return _insert(conn, animal_id=animal_id, kind=kind, at=at, amount=amount, by=by, text=text, replaces=entry,

@@ -107,3 +107,35 @@ def test_the_care_sheet_covers_an_animal_known_only_from_its_sessions(tmp_path, 
     code, out, err = care(capsys, "sheet", "--db", path)
     assert code == 0, err
     assert out.startswith("zed ")
+
+
+def test_a_protocol_narrows_the_usual_ranges_for_its_animals(tmp_path, capsys):
+    from monitor.core.protocol import parse_protocol
+
+    protocol = ('[protocol]\nname = "p"\nversion = 1\ntask = "two_press"\ntarget_ms = 650\ntolerance = 0.2\n'
+                '[care_limits]\nweight_g = [250, 450]\nmax_supplement_ml = 8\n')
+    assert parse_protocol(protocol).care_limits == {"weight_g": (250.0, 450.0), "max_supplement_ml": 8.0}
+    path = tmp_path / "store.sqlite3"
+    conn = open_store(path)
+    ensure_animal(conn, "heron", species="rat")
+    source = store_db.register_source(conn, "file", "/x.rsw", "box1")
+    store_db.start_session(conn, source, "heron", "box1", "p", 1, protocol)
+    conn.close()
+    code, _, err = care(capsys, "weigh", "--db", path, "--animal", "heron", "--grams", 200, "--by", "ana")
+    assert code == 2 and "usual 250-450 g of a rat under this protocol" in err  # the rat's own range allows 200
+    code, _, err = care(capsys, "supplement", "--db", path, "--animal", "heron", "--ml", 10, "--by", "ana")
+    assert code == 2 and "usual 8 ml" in err
+    assert care(capsys, "supplement", "--db", path, "--animal", "heron", "--ml", 6, "--by", "ana")[0] == 0
+
+
+@pytest.mark.parametrize("table, key", [("weight_g = [450, 250]", "weight_g"),
+                                        ("max_supplement_ml = -1", "max_supplement_ml"), ("max_reward = 3", "max_reward")])
+def test_a_bad_care_limits_table_names_its_key(table, key):
+    from drivers.config import ConfigError
+    from monitor.core.protocol import parse_protocol
+
+    text = ('[protocol]\nname = "p"\nversion = 1\ntask = "two_press"\ntarget_ms = 650\ntolerance = 0.2\n'
+            f'[care_limits]\n{table}\n')
+    with pytest.raises(ConfigError) as caught:
+        parse_protocol(text, "p.toml")
+    assert key in str(caught.value) and "p.toml:8" in str(caught.value)
