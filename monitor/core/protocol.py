@@ -382,10 +382,10 @@ def parse_protocol(text: str, path: str = "<protocol>") -> Protocol:
 
 
 def _read_care_limits(toml: TomlFile) -> dict[str, Any]:
-    """`[care_limits]`: this protocol's usual weight range (g) and largest usual supplement (ml)."""
+    """`[care_limits]`: this protocol's usual weight range (g), largest usual supplement (ml) and reward (µL)."""
     if "care_limits" not in toml.data:
         return {}
-    toml.check_keys("care_limits", {"weight_g", "max_supplement_ml"})
+    toml.check_keys("care_limits", {"weight_g", "max_supplement_ml", "max_reward_ul"})
     out: dict[str, Any] = {}
     weight = toml.get("care_limits", "weight_g", list, None, _weight_range)
     if weight is not None:
@@ -393,6 +393,9 @@ def _read_care_limits(toml: TomlFile) -> dict[str, Any]:
     supplement = toml.get("care_limits", "max_supplement_ml", (int, float), None, _positive)
     if supplement is not None:
         out["max_supplement_ml"] = float(supplement)
+    reward = toml.get("care_limits", "max_reward_ul", (int, float), None, _positive)
+    if reward is not None:
+        out["max_reward_ul"] = float(reward)
     return out
 
 

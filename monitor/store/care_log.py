@@ -245,9 +245,11 @@ def animal_care(conn: sqlite3.Connection, animal: str, config: CareConfig,
         if since is not None and start.tzinfo is not None and start < since:
             continue
         end = start + timedelta(seconds=(ended_at or started_at) - started_at)
-        reward_ul = protocol_of(text).reward_ul if text else None
+        protocol = protocol_of(text) if text else None
         sessions.append(session_water(session_events(conn, session_id), ul_per_ms=valve_calibration(conn, rig),
-                                      reward_ul=reward_ul, max_valve_ms=config.max_valve_ms,
-                                      lick_window_ms=config.lick_window_ms, session=str(session_id), end=end))
+                                      reward_ul=protocol.reward_ul if protocol else None,
+                                      max_valve_ms=config.max_valve_ms, lick_window_ms=config.lick_window_ms,
+                                      session=str(session_id), end=end,
+                                      max_reward_ul=protocol.care_limits.get("max_reward_ul") if protocol else None))
     return AnimalCare(animal, known.baseline_weight_g if known else None, tuple(sessions), tuple(supplements), tuple(weighings),
                       tuple(notes))

@@ -113,8 +113,9 @@ def test_a_protocol_narrows_the_usual_ranges_for_its_animals(tmp_path, capsys):
     from monitor.core.protocol import parse_protocol
 
     protocol = ('[protocol]\nname = "p"\nversion = 1\ntask = "two_press"\ntarget_ms = 650\ntolerance = 0.2\n'
-                '[care_limits]\nweight_g = [250, 450]\nmax_supplement_ml = 8\n')
-    assert parse_protocol(protocol).care_limits == {"weight_g": (250.0, 450.0), "max_supplement_ml": 8.0}
+                '[care_limits]\nweight_g = [250, 450]\nmax_supplement_ml = 8\nmax_reward_ul = 60\n')
+    assert parse_protocol(protocol).care_limits == {"weight_g": (250.0, 450.0), "max_supplement_ml": 8.0,
+                                                    "max_reward_ul": 60.0}
     path = tmp_path / "store.sqlite3"
     conn = open_store(path)
     ensure_animal(conn, "heron", species="rat")
