@@ -22,9 +22,10 @@ stops the writer: that commit is redone row by row, an event row that fails is
 kept as a malformed line ("could not be stored") and any row that still fails
 is counted in `unstored_rows`. The writer holds its sources' locks
 (monitor.store.source_locks), refreshes them, and releases them when it stops.
-Every `IDENTITY_S` it checks that the database file is still the one it
-opened; a deleted or replaced file ends it (state "failed"), since what it
-wrote would go nowhere anyone can read.
+Before every commit, and every `IDENTITY_S` besides, it checks that the
+database file is still the one it opened; a deleted or replaced file ends it
+(state "failed", `file_lost`), since what it wrote would go nowhere anyone
+can read.
 """
 
 from __future__ import annotations
