@@ -69,7 +69,7 @@ class SyntheticBoard:
         self.thread.join(2)
 
     def status(self) -> SourceStatus:
-        return SourceStatus(READING, self.sent, 0, 0, 0, 0.0, None, 0, None, None, None)
+        return SourceStatus(READING, self.sent, 0, 0, 0.0, None, 0, None, None, None)
 
     def _trial(self, t_us: int) -> tuple[list[bytes], int]:
         interval = int(650_000 * np.exp(self.rng.normal(0, 0.2)))

@@ -13,18 +13,19 @@ from __future__ import annotations
 class Unwrapper:
     """Turns a wrapping counter into a monotonic-ish 64-bit count."""
 
-    __slots__ = ("_bits", "_period", "_half", "_mask", "_last_raw", "_total")
+    __slots__ = ("_bits", "_period", "_half", "_mask", "_last_raw", "_total", "_bound")
 
-    def __init__(self, wrap_bits: int = 32) -> None:
+    def __init__(self, wrap_bits: int = 32, bound: int | None = None) -> None:
         self._bits = wrap_bits
+        self._bound = bound  # |count| must stay below this; a step past it is refused (None returned)
         self._period = 1 << wrap_bits if wrap_bits else 0
         self._half = self._period >> 1
         self._mask = self._period - 1
         self._last_raw: int | None = None
         self._total = 0
 
-    def __call__(self, raw: int) -> int:
-        """The unwrapped count for the next raw counter value."""
+    def __call__(self, raw: int) -> int | None:
+        """The unwrapped count for the next raw counter value; None (state unchanged) past the bound."""
         if not self._period:
             return raw
         last = self._last_raw
@@ -35,9 +36,12 @@ class Unwrapper:
         step = (raw - last) & self._mask
         if step >= self._half:
             step -= self._period
+        total = self._total + step
+        if self._bound is not None and not -self._bound < total < self._bound:
+            return None
         self._last_raw = raw
-        self._total += step
-        return self._total
+        self._total = total
+        return total
 
     @property
     def state(self) -> tuple[int, int] | None:

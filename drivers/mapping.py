@@ -91,6 +91,8 @@ def load_mapping(path: str | Path) -> Mapping:
 
 
 def _check_delimiter(value: str) -> str | None:
+    if value in ("\n", "\r"):
+        return "a line end cannot separate fields: expected a single character such as \";\" or \"whitespace\""
     if value == "whitespace" or len(value) == 1:
         return None
     return 'expected a single character or "whitespace"'
@@ -143,7 +145,7 @@ class MappedDecoder(LineDecoder):
         self._index = {role: int(col) for role, col in state["index"].items()}
         self._clocks = {}
         for animal, session, segment, unwrap_state in state["clocks"]:
-            unwrap = Unwrapper(self.mapping.wrap_bits)
+            unwrap = Unwrapper(self.mapping.wrap_bits, int(MAX_TIME_US // self._factor))
             unwrap.restore(unwrap_state)
             self._clocks[(animal, session)] = (int(segment), unwrap)
 
@@ -216,7 +218,13 @@ class MappedDecoder(LineDecoder):
         animal, session = field("animal") or None, field("session") or None
         segment, unwrap = self._clock(animal, session)
         raw_time = int(ticks)
-        t_us = unwrap(raw_time) * self._factor if isinstance(ticks, int) else round(ticks * self._factor)
+        if isinstance(ticks, int):
+            unwrapped = unwrap(raw_time)
+            if unwrapped is None:
+                return self._malformed(raw, f"device time {raw_time} puts the unwrapped clock beyond 2^62 us", size)
+            t_us = unwrapped * self._factor
+        else:
+            t_us = round(ticks * self._factor)
         line, offset = self._position(size)
         return Event(t_us, name, args, raw_time, segment, line, offset, size, wall_iso, animal, session)
 
@@ -251,6 +259,6 @@ class MappedDecoder(LineDecoder):
         key = (animal, session)
         clock = self._clocks.get(key)
         if clock is None:
-            clock = (len(self._clocks) + 1, Unwrapper(self.mapping.wrap_bits))
+            clock = (len(self._clocks) + 1, Unwrapper(self.mapping.wrap_bits, int(MAX_TIME_US // self._factor)))
             self._clocks[key] = clock
         return clock

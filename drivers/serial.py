@@ -6,12 +6,16 @@ record reaches the sink in order, in `Batch`es, from this thread only.
 closed at once, a gap opens, and the configured path (which may be a
 `/dev/serial/by-id/...` symlink, a COM name or a pyserial URL) is tried again
 every `retry_s`, then the device with the configured USB serial number, found
-with `serial.tools.list_ports`. Boards reset when the port opens, so after each
-open the bytes before the board's header line are discarded (counted); if no
-header comes within `header_wait_s` the held bytes are read from their first
-complete line instead (a board that does not reset). A board that resets in
-the middle of a line sends its header glued to the cut line: the cut part is
-kept as a malformed record and the header read as a header. Any other exception —
+with `serial.tools.list_ports`. Every byte received goes to the decoder as it
+arrives, exactly as a file's bytes do (one reading of the bytes for both
+paths): nothing is held or dropped while waiting for a header. Boot noise
+becomes malformed lines (kept, counted); a header glued to a line cut short by
+a reset is split off by the decoder. Each reopen starts a new clock segment
+with the last known clock (the board's counter may have restarted); a header,
+when one comes, starts its own. A rig whose board resets when the port opens
+(`wait_for_header`, the default) is expected to send its header within
+`header_wait_s`; if none comes, a notice says so (set `reset = false` for
+boards that do not reset). Any other exception —
 one raised by the sink included — ends the reader with the state
 "connection lost" and the error; it is never swallowed. On POSIX ports are
 opened with `exclusive=True`. `import serial` here is pyserial (absolute
@@ -29,16 +33,14 @@ from typing import Callable, NamedTuple
 import serial
 from serial.tools import list_ports
 
-from drivers.clock import Unwrapper
 from drivers.status import (CONNECTED, LOST, STOPPED, WAITING, Batch, BatchSink, Gap, SourceStatus,
                             StatusBoard)
-from drivers.wire import HEADER_TAG, LineDecoder, Record, WireDecoder
+from drivers.wire import Header, LineDecoder, Record, WireDecoder
 
 DEFAULT_BAUD = 115200
 RETRY_S = 0.2  # how often a missing device is looked for (contract: back within 2 s)
 READ_TIMEOUT_S = 0.1  # longest a read blocks: bounds stop latency and idle wake-ups
-HEADER_WAIT_S = 3.0  # after an open, how long to wait for the board's header line
-HUNT_LIMIT = 64 * 1024  # bytes held while waiting for the header (~5 s at 115200 baud)
+HEADER_WAIT_S = 3.0  # after an open, how long a resetting board may take to send its header line
 
 PortOpener = Callable[[str], serial.SerialBase]
 
@@ -129,9 +131,7 @@ class SerialSource:
         self._opens = 0
         self._gap_start: float | None = None
         self._gap_reason = ""
-        self._hunting = False
-        self._held = b""
-        self._hunt_deadline = 0.0
+        self._header_due: float | None = None  # monotonic time a resetting board's header is expected by
 
     # --- control (any thread) -------------------------------------------------
 
@@ -150,6 +150,11 @@ class SerialSource:
                 pass
         if self._thread is not None:
             self._thread.join(timeout)
+
+    @property
+    def ever_opened(self) -> bool:
+        """Was the port opened at least once?"""
+        return self._opens > 0
 
     @property
     def alive(self) -> bool:
@@ -180,10 +185,12 @@ class SerialSource:
             except (serial.SerialException, OSError) as exc:
                 self._unplugged(exc)
                 continue
-            if self._hunting:
-                data = self._hunt(data)
             if data:
-                self._deliver(self._decode(data))
+                self._deliver(self.decoder.feed(data))
+            if self._header_due is not None and time.monotonic() > self._header_due:
+                self._header_due = None
+                self.board.notice(f"no header line within {self.header_wait_s:g} s of opening: the board "
+                                  "may not reset when the port opens (set reset = false for this rig)")
 
     def _read(self) -> bytes:
         assert self._port is not None
@@ -227,54 +234,21 @@ class SerialSource:
             gaps = (Gap(self._gap_start, now, self._gap_reason),)
             self._gap_start = None
             self.board.gap_ended(gaps[0])
-        if self.wait_for_header:
-            self._hunting, self._held = True, b""
-            self._hunt_deadline = time.monotonic() + self.header_wait_s
-        elif self._opens > 1:
+        if self._opens > 1:
             self._new_segment()
+        if self.wait_for_header:
+            self._header_due = time.monotonic() + self.header_wait_s
         if gaps:
             self._sink(Batch([], now, gaps=gaps))
 
     def _new_segment(self) -> None:
-        """A reconnect without a header: the board's counter may have restarted."""
-        decoder = self.decoder
-        if isinstance(decoder, WireDecoder):
-            decoder.segment += 1
-            decoder.unwrapper = Unwrapper(decoder.wrap)
-
-    def _hunt(self, data: bytes) -> bytes:
-        """Hold bytes until the header line; return what the decoder may have."""
-        held = self._held + data
-        at = held.find(HEADER_TAG)  # boot noise need not end in a newline: the tag starts the header
-        if at >= 0:
-            self._stop_hunting(at)
-            return held[at:]
-        if time.monotonic() < self._hunt_deadline and len(held) < HUNT_LIMIT:
-            self._held = held
-            return b""
-        cut = held.find(b"\n")
-        if cut < 0 and len(held) < HUNT_LIMIT:
-            self._held = held
-            return b""
-        cut = len(held) if cut < 0 else cut + 1
-        self._stop_hunting(cut)
-        self.board.notice(f"no header line within {self.header_wait_s:g} s of opening: reading without it")
-        self._new_segment()
-        return held[cut:]
-
-    def _stop_hunting(self, discarded: int) -> None:
-        self._hunting, self._held = False, b""
-        if discarded:
-            self.board.discarded(discarded)
-
-    def _decode(self, data: bytes) -> list[Record]:
-        """Feed the decoder; a header glued to a line cut short by a reset starts its own line."""
-        at = data.find(HEADER_TAG)
-        if at < 0 or (data[at - 1 : at] in (b"\n", b"\r") if at else not self.decoder.pending):
-            return self.decoder.feed(data)
-        return self.decoder.feed(data[:at]) + self.decoder.close() + self.decoder.feed(data[at:])
+        """A reconnect: the board's counter may have restarted; the last known clock goes on."""
+        if isinstance(self.decoder, WireDecoder):
+            self.decoder.new_segment()
 
     def _deliver(self, records: list[Record]) -> None:
+        if self._header_due is not None and any(type(r) is Header for r in records):
+            self._header_due = None
         if records:
             self.board.count(records)
             self._sink(Batch(records, self._wall()))
@@ -286,7 +260,7 @@ class SerialSource:
         self._gap_start, self._gap_reason = self._wall(), f"unplugged: {type(exc).__name__}: {exc}"
         self.board.gap_started(self._gap_start, f"{type(exc).__name__}: {exc}")
         self.board.set_state(WAITING)
-        self._hunting, self._held = False, b""
+        self._header_due = None
         self._deliver_unfinished()
 
     def _deliver_unfinished(self) -> None:
@@ -296,8 +270,6 @@ class SerialSource:
             self._sink(Batch(records, self._wall()))
 
     def _finish(self) -> None:
-        if self._hunting:
-            self._stop_hunting(len(self._held))  # still waiting for a header: counted as discarded
         self._deliver_unfinished()
         if self._gap_start is not None:
             now = self._wall()

@@ -73,7 +73,6 @@ class SourceStatus(NamedTuple):
     events: int
     malformed: int
     other_lines: int  # headers and comments
-    discarded_bytes: int  # serial: bytes before the board's header after an open
     silent_s: float | None  # seconds since data last arrived, while open
     gap_since: float | None  # host wall time the open gap started, if disconnected
     gaps: int  # gaps closed so far
@@ -101,7 +100,7 @@ class StatusBoard:
         self._clock = clock
         self._lock = threading.Lock()
         self._state = STARTING
-        self._events = self._malformed = self._other = self._discarded = 0
+        self._events = self._malformed = self._other = 0
         self._gaps = 0
         self._last_data: float | None = None
         self._gap_since: float | None = None
@@ -138,10 +137,6 @@ class StatusBoard:
         if self._state in (CONNECTED, SILENT):
             self._state = READING
 
-    def discarded(self, nbytes: int) -> None:
-        with self._lock:
-            self._discarded += nbytes
-
     def gap_started(self, when: float, error: str | None) -> None:
         with self._lock:
             if self._gap_since is None:
@@ -174,7 +169,7 @@ class StatusBoard:
                 elif state == SILENT:
                     state = READING
             return SourceStatus(
-                state, self._events, self._malformed, self._other, self._discarded, silent_s,
+                state, self._events, self._malformed, self._other, silent_s,
                 self._gap_since, self._gaps, self._last_gap, self._last_error,
                 self._last_notice,
             )

@@ -88,6 +88,7 @@ class FileTail:
         self._notices: list[str] = []
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
+        self._ever_opened = False
 
     # --- control -----------------------------------------------------------
 
@@ -100,6 +101,11 @@ class FileTail:
         self._stop.set()
         if self._thread is not None:
             self._thread.join(timeout)
+
+    @property
+    def ever_opened(self) -> bool:
+        """Was the file opened at least once?"""
+        return self._ever_opened
 
     @property
     def alive(self) -> bool:
@@ -159,6 +165,7 @@ class FileTail:
             return False
         st = os.fstat(fh.fileno())
         self._fh, self._identity, self._print = fh, (st.st_dev, st.st_ino), None
+        self._ever_opened = True
         resume, self._resume = self._resume, None
         start = 0
         if resume is not None:

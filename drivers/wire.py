@@ -106,10 +106,24 @@ EVENT_SPECS: dict[str, tuple[int, int, tuple[int, ...]]] = {
     "note": (1, 1, ()),
 }
 KNOWN_EVENTS = frozenset(EVENT_SPECS)
+# What a numeric argument can be on a real rig, (event, argument index) -> (low, high, unit); past
+# these a line is malformed (kept and counted), never a figure: a one-drop reward of 3e6 uL would
+# hide a water deficit. Rodent rewards are tens of uL, a valve opens for tens of ms (common practice).
+ARG_LIMITS: dict[tuple[str, int], tuple[float, float, str]] = {
+    ("lever_down", 0): (0, 255, "lever number"),
+    ("lever_up", 0): (0, 255, "lever number"),
+    ("lick", 0): (0, 255, "port number"),
+    ("reward", 0): (0, 1000, "uL"),
+    ("valve", 0): (0, 10_000, "ms"),
+    ("cue", 1): (0, 86_400_000, "ms"),
+    ("joystick", 0): (-360, 360, "degrees"),
+    ("joystick", 1): (-360, 360, "degrees"),
+}
 OUTCOME_WORDS = ("hit", "miss", "premature", "lone", "omission")
 
 
 _NEED_ARGS = frozenset(name for name, (low, _, _) in EVENT_SPECS.items() if low > 0)
+_LINE_END = re.compile(rb"\r\n|\r|\n")
 _NAME_CACHE: dict[bytes, str | None] = {}
 _NAME_CACHE_MAX = 4096  # garbage can invent endless words: stop caching past this
 
@@ -151,8 +165,13 @@ def check_args(name: str, args: list[bytes]) -> str | None:
         want = str(low) if low == high else f"{low}-{high}"
         return f"{name} takes {want} argument(s), got {len(args)}"
     for i in numeric:
-        if i < len(args) and not _NUM.match(args[i]):
-            return f"{name} argument {i + 1} must be a number, got {args[i].decode('ascii', 'replace')!r}"
+        if i < len(args):
+            if not _NUM.match(args[i]):
+                return f"{name} argument {i + 1} must be a number, got {args[i].decode('ascii', 'replace')!r}"
+            low_v, high_v, unit = ARG_LIMITS.get((name, i), (-1e15, 1e15, ""))
+            if not low_v <= float(args[i]) <= high_v:
+                return (f"{name} argument {i + 1} is {args[i].decode('ascii')}: outside {low_v:g}-{high_v:g}"
+                        f"{' ' + unit if unit else ''}, not a real value")
     return None
 
 
@@ -190,6 +209,7 @@ class LineDecoder:
     def __init__(self, line: int = 0, offset: int = 0) -> None:
         self._buf = b""
         self._overflow = 0  # bytes of an over-long line seen beyond the kept part
+        self._cr_last = False  # that line's last byte so far is a '\r'
         self.line = line  # lines completed so far
         self.offset = offset  # byte offset of the first byte not yet in a record
 
@@ -204,32 +224,73 @@ class LineDecoder:
         if not data:
             return out
         if self._overflow:
-            cut = data.find(b"\n")
-            if cut < 0:
-                self._overflow += len(data)
+            data = self._feed_overflow(data, out)
+            if data is None:
                 return out
-            self._overflow += cut + 1
-            self._emit_overlong(out)
-            data = data[cut + 1 :]
         data = self._buf + data if self._buf else data
-        lines = data.split(b"\n")
-        rest = lines.pop()
         decode = self._decode_line
-        for raw in lines:
-            out.append(decode(raw, len(raw) + 1))
+        if b"\r" in data and (data.count(b"\r") != data.count(b"\r\n") or data[-1:] == b"\r"):
+            rest = self._feed_with_lone_cr(data, out)
+        else:
+            lines = data.split(b"\n")
+            rest = lines.pop()
+            for raw in lines:
+                record = decode(raw, len(raw) + 1)
+                if type(record) is list:
+                    out.extend(record)
+                else:
+                    out.append(record)
         cap = self.max_line
         if len(rest) > cap + 1:  # +1 leaves room for a '\r' before '\n'
             self._buf = rest[:cap]
             self._overflow = len(rest) - cap
+            self._cr_last = rest[-1:] == b"\r"
         else:
             self._buf = rest
         return out
+
+    def _feed_overflow(self, data: bytes, out: list[Record]) -> bytes | None:
+        """Skip the rest of an over-long line up to its end; the bytes after it, or None when none."""
+        if self._cr_last:  # the line's last byte so far was '\r': a '\n' may complete it
+            self._cr_last = False
+            if data[:1] == b"\n":
+                self._overflow += 1
+                data = data[1:]
+            self._emit_overlong(out)
+            return data
+        end = _LINE_END.search(data)
+        if end is None or (end.group() == b"\r" and end.end() == len(data)):
+            self._overflow += len(data)
+            self._cr_last = end is not None
+            return None
+        self._overflow += end.end()
+        self._emit_overlong(out)
+        return data[end.end():]
+
+    def _feed_with_lone_cr(self, data: bytes, out: list[Record]) -> bytes:
+        """Split at `\\n`, `\\r\\n` and a lone `\\r`; a final `\\r` waits for the next byte."""
+        start = 0
+        for end in _LINE_END.finditer(data):
+            cut = end.end()
+            if cut == len(data) and data[-1:] == b"\r":
+                break  # `\r` last: a `\n` may follow in the next read
+            raw = data[start:cut]
+            # a lone CR stays on the line as in the CRLF case; the size counts it once
+            record = self._decode_line(raw[:-1] if raw[-1:] == b"\n" else raw, len(raw))
+            out.extend(record) if type(record) is list else out.append(record)
+            start = cut
+        return data[start:]
 
     def close(self) -> list[Record]:
         """End of stream: an unterminated last line becomes a malformed record."""
         out: list[Record] = []
         if self._overflow:
-            self._emit_overlong(out, terminated=False)
+            self._emit_overlong(out, terminated=self._cr_last)
+            self._cr_last = False
+        elif self._buf[-1:] == b"\r":  # ended by a lone CR that nothing followed
+            raw, self._buf = self._buf, b""
+            record = self._decode_line(raw, len(raw))
+            out.extend(record) if type(record) is list else out.append(record)
         elif self._buf:
             raw = self._buf
             self._buf = b""
@@ -261,7 +322,7 @@ class LineDecoder:
         """
         if state.get("kind") != self.kind:
             raise ValueError(f"saved reading state is for a {state.get('kind')} decoder, not {self.kind}")
-        self._buf, self._overflow = b"", 0
+        self._buf, self._overflow, self._cr_last = b"", 0, False
         self.line, self.offset = int(state["line"]), int(state["offset"])
 
     def _position(self, size: int) -> tuple[int, int]:
@@ -275,7 +336,8 @@ class LineDecoder:
         line, offset = self._position(size)
         return Malformed(raw, reason, line, offset, size)
 
-    def _decode_line(self, raw: bytes, size: int) -> Record:
+    def _decode_line(self, raw: bytes, size: int) -> Record | list[Record]:
+        """One line's record (a list when one physical line holds two, e.g. a glued header)."""
         raise NotImplementedError
 
 
@@ -287,13 +349,19 @@ class WireDecoder(LineDecoder):
     def __init__(self, line: int = 0, offset: int = 0, segment: int = 0) -> None:
         super().__init__(line, offset)
         self.segment = segment
+        self._segment_due = False
         self._set_clock(DEFAULT_CLOCK, DEFAULT_WRAP)
 
     def _set_clock(self, clock: str, wrap: int) -> None:
         self.clock, self.wrap = clock, wrap
         self._unit = CLOCK_UNITS_US[clock]
         self._limit = (1 << wrap) if wrap else 0
-        self.unwrapper = Unwrapper(wrap)
+        self.unwrapper = Unwrapper(wrap, MAX_TIME_US // self._unit)
+
+    def new_segment(self) -> None:
+        """A reconnect: the next event starts a new clock segment with the clock in force,
+        unless a header comes first (it starts its own)."""
+        self._segment_due = True
 
     def state(self) -> dict[str, Any]:
         return {**super().state(), "segment": self.segment, "clock": self.clock, "wrap": self.wrap,
@@ -305,11 +373,16 @@ class WireDecoder(LineDecoder):
         self._set_clock(state["clock"], int(state["wrap"]))
         self.unwrapper.restore(state["unwrap"])
 
-    def _decode_line(self, raw: bytes, size: int) -> Record:
+    def _decode_line(self, raw: bytes, size: int) -> Record | list[Record]:
         content = raw[:-1] if raw[-1:] == b"\r" else raw
         if len(content) > MAX_LINE:
             return self._malformed(raw[:MAX_LINE], self._overlong(size), size)
         raw = content
+        at = raw.find(HEADER_TAG, 1)
+        if at > 0 and not _is_note(raw[:at]):  # a board reset cut a line short and sent its header after it
+            cut = self._malformed(raw[:at], "line cut short by a board reset (its header follows)", at)
+            rest = self._decode_line(raw[at:], size - at)
+            return [cut, *rest] if type(rest) is list else [cut, rest]
         if not raw.isascii():
             return self._malformed(raw, "not ASCII", size)
         self.line += 1
@@ -339,7 +412,14 @@ class WireDecoder(LineDecoder):
             problem, args = _parse_args(name, parts[2])
             if problem:
                 return Malformed(raw, problem, line, offset, size)
-        return Event(self.unwrapper(raw_time) * self._unit, name, args, raw_time, self.segment, line, offset, size)
+        if self._segment_due:
+            self._segment_due = False
+            self.segment += 1
+            self.unwrapper = Unwrapper(self.wrap, MAX_TIME_US // self._unit)
+        ticks = self.unwrapper(raw_time)
+        if ticks is None:
+            return Malformed(raw, f"TIME {raw_time} puts the unwrapped clock beyond 2^62 us", line, offset, size)
+        return Event(ticks * self._unit, name, args, raw_time, self.segment, line, offset, size)
 
     def _decode_comment(self, raw: bytes, line: int, offset: int, size: int) -> Record:
         text = raw.decode("ascii")
@@ -349,9 +429,16 @@ class WireDecoder(LineDecoder):
         if isinstance(parsed, str):
             return Malformed(raw, parsed, line, offset, size)
         version, clock, wrap, fields = parsed
+        self._segment_due = False
         self.segment += 1
         self._set_clock(clock, wrap)
         return Header(version, clock, wrap, fields, self.segment, line, offset, size)
+
+
+def _is_note(prefix: bytes) -> bool:
+    """Does a line starting with `prefix` carry a note (whose text is kept verbatim, `#` and all)?"""
+    parts = prefix.split(None, 2)
+    return len(parts) >= 2 and parts[0].isdigit() and parts[1] == b"note"
 
 
 def decode_all(data: bytes) -> list[Record]:

@@ -4,7 +4,9 @@ Rule: this module only parses. Each subcommand lives in its own module of
 `monitor.app.commands` exposing `add_arguments(parser)` and `run(args) -> int`;
 those modules import their heavy dependencies (Qt, scipy, the store) inside
 `run`, so `rigside record` never loads Qt or scipy. Bad input anywhere gives
-one line `rigside CMD: error: ...` on stderr and exit code 2. Plain
+one line `rigside CMD: error: ...` on stderr and exit code 2; a damaged
+database found mid-command is exit 2 too, and any other fault one line and
+exit 1 (the traceback only with RIGSIDE_TRACEBACK=1), never a traceback. Plain
 `rigside`, with no command, opens the window (`rigside window`); `rigside
 --version` prints the installed version.
 """
@@ -28,9 +30,10 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "export": ("monitor.app.commands.export", "events or trials to CSV, or everything to NWB"),
     "decide": ("monitor.app.commands.decide", "record a person's eligibility decision"),
     "assign": ("monitor.app.commands.assign", "draw an animal's group at random and record it; reveal a blinding key"),
-    "log": ("monitor.app.commands.log", "check the decision log"),
+    "log": ("monitor.app.commands.log", "check the decision log and the care log"),
     "animal": ("monitor.app.commands.animal", "subject records: add, edit, retire, list animals (changes logged)"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
+    "backup": ("monitor.app.commands.backup", "a consistent copy of the database, also while recording runs"),
 }
 
 
@@ -82,7 +85,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args._module.run(args) or 0)
     except UsageError as exc:
-        sys.stderr.write(f"rigside {args.command}: error: {exc}\n")
+        text = str(exc).replace("\r", " ").replace("\n", " ")  # one line, whatever a file or library said
+        sys.stderr.write(f"rigside {args.command}: error: {text}\n")
         return 2
     except KeyboardInterrupt:
         return 130
@@ -90,6 +94,31 @@ def main(argv: Sequence[str] | None = None) -> int:
         # the reader went away (`rigside report --json | head`): no traceback; Python's documented recipe
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 1
+    except Exception as exc:  # noqa: BLE001 - every failure is one line (RIGSIDE_TRACEBACK=1 shows the trace)
+        if os.environ.get("RIGSIDE_TRACEBACK"):
+            raise
+        return _fault(args.command, exc)
+
+
+def _fault(command: str, exc: Exception) -> int:
+    """One stderr line for an error no command caught: 2 for a damaged or unusable database, else 1."""
+    from monitor.store.connection import Busy, DatabaseError
+    from monitor.store.db import StoreError
+
+    if isinstance(exc, StoreError):
+        sys.stderr.write(f"rigside {command}: error: --db: {' '.join(str(exc).split())}\n")
+        return 2
+    if isinstance(exc, Busy) and ("readonly" in str(exc) or "unable to open" in str(exc)):
+        sys.stderr.write(f"rigside {command}: error: --db: cannot use the database ({exc}): check that the "
+                         "file and its folder exist and can be written\n")
+        return 2
+    if isinstance(exc, DatabaseError) and not isinstance(exc, Busy):
+        sys.stderr.write(f"rigside {command}: error: --db: the database is damaged or unreadable ({exc}); "
+                         "restore it from a backup (docs/store.md)\n")
+        return 2
+    text = " ".join(str(exc).split()) or "no message"
+    sys.stderr.write(f"rigside {command}: error: {type(exc).__name__}: {text}\n")
+    return 1
 
 
 if __name__ == "__main__":

@@ -366,6 +366,9 @@ class Controller(QObject):
         """The store side of adding a rig (any thread): source row, idle session, resume point."""
         protocol = load_protocol(spec.protocol_path)
         key = str(Path(spec.path).resolve()) if spec.kind == "file" else spec.path
+        from monitor.store.source_locks import resource_key  # one recorder per source: refused if busy
+
+        self.writer.hold_source(resource_key(spec.kind, spec.path), "the rigside window")
         source_id = self.writer.call(lambda c: db.register_source(
             c, spec.kind, key, spec.name, spec.usb_serial, str(spec.mapping_path) if spec.mapping_path else None))
         if store_v2():   # the rig's binding and valve calibration (the water ledger converts valve time with it)
@@ -406,7 +409,7 @@ class Controller(QObject):
 
     def _rig_from_setup(self, setup: RigSetup) -> None:
         spec = RigSpec(setup.name, setup.source, setup.path, Path(setup.protocol_path), setup.serial_number,
-                       Path(setup.mapping_path) if setup.mapping_path else None, setup.valve_ul_per_ms)
+                       Path(setup.mapping_path) if setup.mapping_path else None, setup.valve_ul_per_ms, setup.reset)
         self.run_job(f"adding {setup.name}", lambda job: self._register(spec), self._start_rig)
 
     def roster(self) -> Roster:

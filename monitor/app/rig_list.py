@@ -2,7 +2,9 @@
 
 Rule: one `[[rig]]` table per rig, in the order they were added:
 `name`, `source` ("serial" | "file"), `path`, `protocol` (file path), and
-optionally `usb_serial`, `mapping` (file path) and `valve_ul_per_ms`.
+optionally `usb_serial`, `mapping` (file path), `valve_ul_per_ms` and
+`reset` (serial: false for a board that does not restart when the port opens,
+so no header is expected; default true).
 Relative paths are relative to the file's folder. `read_rigs` refuses a bad
 file with a `ConfigError` naming the file, line and key (a rig twice, a
 missing key, a value of the wrong kind, a calibration out of range); a
@@ -23,7 +25,7 @@ from monitor.ui.models import RigSetup
 from monitor.ui.validation import RIG_NAME, VALVE_RANGE_UL_PER_MS
 
 REQUIRED = ("name", "source", "path", "protocol")
-OPTIONAL = ("usb_serial", "mapping", "valve_ul_per_ms")
+OPTIONAL = ("usb_serial", "mapping", "valve_ul_per_ms", "reset")
 
 
 def default_rigs_path() -> Path:
@@ -87,6 +89,8 @@ def _spec(file: str, block: list[tuple[int, str]], table: dict, folder: Path, se
     for key in ("usb_serial", "mapping"):
         if key in table and not isinstance(table[key], str):
             raise fail(key, "expected text")
+    if not isinstance(table.get("reset", True), bool):
+        raise fail("reset", f"true or false, not {table['reset']!r}")
     valve = table.get("valve_ul_per_ms")
     if valve is not None:
         low, high = VALVE_RANGE_UL_PER_MS
@@ -100,7 +104,7 @@ def _spec(file: str, block: list[tuple[int, str]], table: dict, folder: Path, se
     path = table["path"] if table["source"] == "serial" else str(local(table["path"]))
     mapping = local(table["mapping"]) if table.get("mapping") else None
     return RigSpec(name, table["source"], path, local(table["protocol"]), table.get("usb_serial") or None,
-                   mapping, float(valve) if valve is not None else None)
+                   mapping, float(valve) if valve is not None else None, table.get("reset", True))
 
 
 def append_rig(path: Path, setup: RigSetup) -> None:
@@ -113,6 +117,8 @@ def append_rig(path: Path, setup: RigSetup) -> None:
         fields["mapping"] = setup.mapping_path
     if setup.valve_ul_per_ms is not None:
         fields["valve_ul_per_ms"] = setup.valve_ul_per_ms
+    if setup.source == "serial" and not setup.reset:
+        fields["reset"] = False
     # a JSON string of printable text is a valid TOML basic string
     body = "".join(f"{key} = {json.dumps(value, ensure_ascii=False)}\n" for key, value in fields.items())
     path.parent.mkdir(parents=True, exist_ok=True)

@@ -13,6 +13,7 @@ is documented in docs/protocol.md.
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass, field
 from typing import Any
@@ -27,7 +28,7 @@ BINARY_MEASURES = ("hit_rate", "fixed_window_fraction")
 DEFAULT_STAGE = "main"
 TIMEOUT_TARGETS = 3.0  # default trial_timeout_ms = 3 x target_ms
 
-_TOP_TABLES = {"protocol", "stages", "session", "plateau", "eligibility"}
+_TOP_TABLES = {"protocol", "stages", "session", "plateau", "eligibility", "care_limits"}
 _STAGE_KEYS = {"target_ms", "tolerance", "window_ms", "adaptive", "iti_ms", "premature_ms",
                "min_hold_ms", "trial_timeout_ms"}
 _PROTOCOL_KEYS = _STAGE_KEYS | {"name", "version", "task", "threshold_deg", "reward_ul", "hit_words"}
@@ -109,6 +110,7 @@ class Protocol:
     plateau: PlateauRule
     eligibility: dict[str, Any] = field(default_factory=dict)
     path: str = "<protocol>"
+    care_limits: dict[str, Any] = field(default_factory=dict)  # checked here, applied by core.care_limits
 
     @property
     def final_stage(self) -> Stage:
@@ -131,10 +133,14 @@ class Protocol:
 
 
 def _positive(value: float) -> str | None:
+    if not math.isfinite(value):
+        return "must be a finite number"
     return None if value > 0 else "must be > 0"
 
 
 def _not_negative(value: float) -> str | None:
+    if not math.isfinite(value):
+        return "must be a finite number"
     return None if value >= 0 else "must be >= 0"
 
 
@@ -354,6 +360,7 @@ def parse_protocol(text: str, path: str = "<protocol>") -> Protocol:
             built.append(_read_stage(src, stage_name, base, "trial_timeout_ms" in top.values))
         stages = tuple(built)
     eligibility = toml.table("eligibility", required=False)
+    care_limits = _read_care_limits(toml)
     return Protocol(
         name=name,
         version=version,
@@ -366,4 +373,30 @@ def parse_protocol(text: str, path: str = "<protocol>") -> Protocol:
         plateau=_read_plateau(toml),
         eligibility=dict(eligibility),
         path=path,
+        care_limits=care_limits,
     )
+
+
+def _read_care_limits(toml: TomlFile) -> dict[str, Any]:
+    """`[care_limits]`: this protocol's usual weight range (g), largest usual supplement (ml) and reward (µL)."""
+    if "care_limits" not in toml.data:
+        return {}
+    toml.check_keys("care_limits", {"weight_g", "max_supplement_ml", "max_reward_ul"})
+    out: dict[str, Any] = {}
+    weight = toml.get("care_limits", "weight_g", list, None, _weight_range)
+    if weight is not None:
+        out["weight_g"] = (float(weight[0]), float(weight[1]))
+    supplement = toml.get("care_limits", "max_supplement_ml", (int, float), None, _positive)
+    if supplement is not None:
+        out["max_supplement_ml"] = float(supplement)
+    reward = toml.get("care_limits", "max_reward_ul", (int, float), None, _positive)
+    if reward is not None:
+        out["max_reward_ul"] = float(reward)
+    return out
+
+
+def _weight_range(value: list) -> str | None:
+    if len(value) != 2 or not all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+                                  for v in value) or not 0 < value[0] < value[1]:
+        return "expected [low, high] in grams, 0 < low < high"
+    return None

@@ -2,8 +2,9 @@
 
 Rule: only monitor/store imports sqlite3. Code outside the store that holds a
 connection or catches the store's low-level failures uses these names:
-`Connection` (an open store) and `Busy` (the lock was not freed in time, or
-the file could not be opened for writing). They are sqlite3's own classes, so
+`Connection` (an open store), `Busy` (the lock was not freed in time, or
+the file could not be opened for writing) and `DatabaseError` (any failure
+of the file, a damaged one included). They are sqlite3's own classes, so
 nothing is wrapped.
 """
 
@@ -13,3 +14,4 @@ import sqlite3
 
 Connection = sqlite3.Connection
 Busy = sqlite3.OperationalError
+DatabaseError = sqlite3.DatabaseError

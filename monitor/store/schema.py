@@ -32,6 +32,13 @@ never changed once its seed is drawn.
 Subject records: animals gain lab id, supplier, age (days, stated on a date),
 the baseline weight's date, notes and retirement; `animal_changes` logs every
 change of a record (field, old -> new, who, when), rows only added.
+Source locks: one row per source being recorded, naming the process that
+records it (monitor.store.source_locks).
+
+Care chain: care_log entries gain `replaces`/`action` (a void or a
+correction is a new entry), `reason`, `confirmed`, and a hash chain
+(`prev_hash`, `hash`, monitor.core.care.chain); triggers refuse UPDATE and
+DELETE, like the decisions.
 """
 
 from __future__ import annotations
@@ -356,6 +363,41 @@ _SUBJECTS = (
         BEGIN SELECT RAISE(ABORT, '{_NO_REWRITE}'); END""",
 )
 
+_SOURCE_LOCKS = (
+    """CREATE TABLE source_locks (
+        resource TEXT PRIMARY KEY,      -- monitor.store.source_locks.resource_key: kind and real path
+        holder TEXT NOT NULL,           -- what records it: "rigside record", "the rigside window"
+        host TEXT NOT NULL,
+        pid INTEGER NOT NULL,
+        taken_at REAL NOT NULL,
+        heartbeat_at REAL NOT NULL      -- refreshed by the holder's store writer
+    )""",
+)
+
+_CARE_NO_CHANGE = "the care log is append-only: void or correct an entry with a new one"
+
+
+def _chain_care_log(conn: sqlite3.Connection) -> None:
+    """Hash-chain the care entries already there, in insertion order."""
+    from monitor.store.care_log import chain_existing
+
+    chain_existing(conn)
+
+
+_CARE_CHAIN = (
+    "ALTER TABLE care_log ADD COLUMN replaces INTEGER REFERENCES care_log(id)",  # the entry voided or corrected
+    "ALTER TABLE care_log ADD COLUMN action TEXT CHECK (action IN ('void', 'correct'))",
+    "ALTER TABLE care_log ADD COLUMN reason TEXT",      # why it was voided, corrected or confirmed
+    "ALTER TABLE care_log ADD COLUMN confirmed TEXT",   # a person's reason for a value outside the usual
+    "ALTER TABLE care_log ADD COLUMN prev_hash TEXT",
+    "ALTER TABLE care_log ADD COLUMN hash TEXT",
+    _chain_care_log,
+    f"""CREATE TRIGGER care_log_no_update BEFORE UPDATE ON care_log
+        BEGIN SELECT RAISE(ABORT, '{_CARE_NO_CHANGE}'); END""",
+    f"""CREATE TRIGGER care_log_no_delete BEFORE DELETE ON care_log
+        BEGIN SELECT RAISE(ABORT, '{_CARE_NO_CHANGE}'); END""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
@@ -363,6 +405,8 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("assignment plans", _V3),
     Migration("subject records: lab id, supplier, age, baseline date, notes, retirement; animal change log",
               _SUBJECTS),
+    Migration("source locks: one recorder per source", _SOURCE_LOCKS),
+    Migration("care log: void and correct, confirmations, hash chain, append-only", _CARE_CHAIN),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

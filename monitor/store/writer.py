@@ -17,12 +17,21 @@ them): `backlogged` tells their readers to pause. Anything else (schema,
 session rows, queries) runs on the writer's connection through `call()`, in
 order with the batches. Codes of unknown event words are settled inside each
 commit against the file, since another process (an import) may have added
-words meanwhile.
+words meanwhile. A row SQLite cannot take (an integer past 64 bits, say) never
+stops the writer: that commit is redone row by row, an event row that fails is
+kept as a malformed line ("could not be stored") and any row that still fails
+is counted in `unstored_rows`. The writer holds its sources' locks
+(monitor.store.source_locks), refreshes them, and releases them when it stops.
+Before every commit, and every `IDENTITY_S` besides, it checks that the
+database file is still the one it opened; a deleted or replaced file ends it
+(state "failed", `file_lost`), since what it wrote would go nowhere anyone
+can read.
 """
 
 from __future__ import annotations
 
 import json
+import os
 import queue
 import sqlite3
 import threading
@@ -33,6 +42,7 @@ from typing import Any, Callable, NamedTuple, TypeVar
 
 from drivers.status import Batch, FilePosition
 from drivers.wire import Comment, Event, Header, Malformed
+from monitor.store import source_locks
 from monitor.store.db import SYNCHRONOUS, open_store
 from monitor.store.schema import FIRST_UNKNOWN_CODE
 
@@ -47,6 +57,10 @@ CHECKPOINT_S = 30.0
 MAX_PENDING_ROWS = 500_000
 WRITER_BUSY_MS = 250  # the writer's own wait for a lock: short, it retries while still draining
 CALL_BUSY_S = 5.0  # how long a call() keeps trying while another process holds the lock
+IDENTITY_S = 1.0  # how often the writer checks that its database file is still there and the same
+# errors that mean "this row", not "the database": the commit is redone row by row
+_ROW_ERRORS = (OverflowError, ValueError, TypeError, sqlite3.IntegrityError, sqlite3.InterfaceError,
+               sqlite3.ProgrammingError, sqlite3.DataError)
 
 _STOP = object()
 
@@ -59,6 +73,9 @@ class WriterStatus(NamedTuple):
     commits: int
     last_error: str | None
     last_commit_at: float | None
+    diverted_events: int = 0  # events SQLite could not take, kept as malformed lines instead
+    unstored_rows: int = 0  # rows that could not be stored at all
+    file_lost: bool = False  # the database file was deleted or replaced: what was committed went with it
 
     @property
     def text(self) -> str:
@@ -69,6 +86,26 @@ class WriterStatus(NamedTuple):
         if self.state == FAILED:
             return f"STORE WRITER FAILED: {self.last_error}"
         return self.state
+
+
+_EVENTS_SQL = ("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
+               "VALUES (?, ?, ?, ?, ?, ?, ?, ?)")
+_RAW_SQL = "INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) VALUES (?, ?, ?, ?, ?, ?)"
+_GAPS_SQL = "INSERT INTO gaps (source_id, session_id, start_at, end_at, reason) VALUES (?, ?, ?, ?, ?)"
+_SAMPLES_SQL = "INSERT INTO clock_samples (session_id, segment, t_us, received_at) VALUES (?, ?, ?, ?)"
+
+
+def _insert_all(sql: str, rows: list[tuple], conn: sqlite3.Connection) -> list[tuple[tuple, str]]:
+    conn.executemany(sql, rows)
+    return []
+
+
+def _as_raw_line(event_row: tuple, names: dict[int, str], why: str) -> tuple:
+    """An event row SQLite refused, as a malformed raw line that keeps what it said."""
+    session_id, _segment, line, t_us, raw_time, code, value, _wall = event_row
+    text = f"{raw_time} {names.get(code, code)}" + (f" {value}" if value else "")
+    return (session_id, line if isinstance(line, int) and abs(line) < 1 << 63 else None, None, "malformed",
+            f"could not be stored ({why}); device time {t_us}", text.encode("ascii", "replace"))
 
 
 def _is_busy(exc: sqlite3.OperationalError) -> bool:
@@ -133,6 +170,10 @@ class StoreWriter:
         self._committed = self._dropped = self._commits = 0
         self._last_error: str | None = None
         self._last_commit: float | None = None
+        self._diverted = self._unstored = 0
+        self._file_lost = False
+        self._held_locks: list[str] = []  # source lock keys held (writer thread only)
+        self._identity: tuple[int, int] | None = None
 
     # --- any thread ---------------------------------------------------------
 
@@ -174,13 +215,25 @@ class StoreWriter:
     def status(self) -> WriterStatus:
         with self._lock:
             return WriterStatus(self._state, self._pending, self._committed, self._dropped, self._commits,
-                                self._last_error, self._last_commit)
+                                self._last_error, self._last_commit, self._diverted, self._unstored,
+                                self._file_lost)
+
+    def hold_source(self, key: str, holder: str) -> str | None:
+        """Take the lock on source `key` for this process (see source_locks.acquire); held until stop."""
+        def take(conn: sqlite3.Connection) -> str | None:
+            notice = source_locks.acquire(conn, key, holder)
+            self._held_locks.append(key)
+            return notice
+
+        return self.call(take)
 
     # --- writer thread ----------------------------------------------------------
 
     def _run(self) -> None:
         try:
             conn = open_store(self.path, busy_timeout_ms=self._busy_ms, synchronous=self._synchronous)
+            st = os.stat(self.path)
+            self._identity = (st.st_dev, st.st_ino)
             self._codes = dict(conn.execute("SELECT name, code FROM event_codes"))
             self._next_code = max([FIRST_UNKNOWN_CODE - 1, *self._codes.values()]) + 1
         except BaseException as exc:  # noqa: BLE001 - handed to start()'s caller
@@ -198,9 +251,10 @@ class StoreWriter:
     def _serve(self, conn: sqlite3.Connection) -> None:
         next_try = 0.0
         next_checkpoint = time.monotonic() + self.checkpoint_s
+        next_identity = next_beat = time.monotonic()
         while True:
             now = time.monotonic()
-            due = next_checkpoint
+            due = min(next_checkpoint, next_identity, next_beat if self._held_locks else next_checkpoint)
             if self._first_pending is not None:
                 due = min(due, max(self._first_pending + self.commit_interval_s, next_try))
                 # rows wait for a commit: let batches gather for a while instead of waking for each one
@@ -234,11 +288,42 @@ class StoreWriter:
             if now >= next_checkpoint:
                 self._checkpoint(conn, "PASSIVE")
                 next_checkpoint = now + self.checkpoint_s
+            if now >= next_identity:
+                self._check_identity()
+                next_identity = now + IDENTITY_S
+            if self._held_locks and now >= next_beat:
+                self._locks(conn, source_locks.heartbeat)
+                next_beat = now + source_locks.HEARTBEAT_S
+
+    def _check_identity(self) -> None:
+        """The database file must still be the one opened; else stop (raises, the state turns failed)."""
+        try:
+            st = os.stat(self.path)
+            problem = "" if (st.st_dev, st.st_ino) == self._identity else "replaced by another file"
+        except FileNotFoundError:
+            problem = "deleted"
+        if problem:
+            with self._lock:
+                self._file_lost = True
+            raise RuntimeError(f"the database file {self.path} was {problem} while recording")
+
+    def _locks(self, conn: sqlite3.Connection, step: Callable[[sqlite3.Connection, list[str]], None]) -> None:
+        """Heartbeat or release the held source locks in a short transaction; a busy store is tried later."""
+        try:
+            conn.execute("BEGIN IMMEDIATE")
+            step(conn, self._held_locks)
+            conn.execute("COMMIT")
+        except sqlite3.Error as exc:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            self._set_error(f"source lock: {exc}")
 
     def _drain_for_stop(self, conn: sqlite3.Connection) -> None:
         deadline = self._stop_deadline
         while not self._commit_if_possible(conn) and time.monotonic() < deadline:
             time.sleep(min(self.retry_s, max(0.0, deadline - time.monotonic())))
+        if self._held_locks:
+            self._locks(conn, source_locks.release)
         self._checkpoint(conn, "TRUNCATE")
         with self._lock:
             if self._state == OK:
@@ -366,7 +451,12 @@ class StoreWriter:
         if self._first_pending is None and not self._losses:
             return True
         try:
-            self._commit(conn)
+            try:
+                self._commit(conn)
+            except _ROW_ERRORS:
+                if conn.in_transaction:
+                    conn.execute("ROLLBACK")
+                self._commit(conn, row_by_row=True)
         except sqlite3.Error as exc:
             if conn.in_transaction:
                 try:
@@ -379,7 +469,19 @@ class StoreWriter:
             return False
         return True
 
-    def _commit(self, conn: sqlite3.Connection) -> None:
+    @staticmethod
+    def _insert_each(sql: str, rows: list[tuple], conn: sqlite3.Connection) -> list[tuple[tuple, str]]:
+        """Insert rows one at a time; return the rows that failed, each with why."""
+        failed = []
+        for row in rows:
+            try:
+                conn.execute(sql, row)
+            except _ROW_ERRORS as exc:
+                failed.append((row, f"{type(exc).__name__}: {exc}"))
+        return failed
+
+    def _commit(self, conn: sqlite3.Connection, row_by_row: bool = False) -> None:
+        self._check_identity()  # never commit into a file that is gone: a stat costs microseconds
         gaps = list(self._gaps)
         for (source_id, session_id), loss in self._losses.items():
             gaps.append((source_id, session_id, loss.start, loss.end,
@@ -388,17 +490,15 @@ class StoreWriter:
         if self._new_codes:
             self._settle_codes(conn)
             conn.executemany("INSERT INTO event_codes (code, name, known) VALUES (?, ?, 0)", self._new_codes)
-        conn.executemany("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
-                         "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", self._events)
-        if self._raw:
-            conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
-                             "VALUES (?, ?, ?, ?, ?, ?)", self._raw)
+        insert = self._insert_each if row_by_row else _insert_all
+        diverted = insert(_EVENTS_SQL, self._events, conn)
+        names = {code: name for name, code in self._codes.items()} if diverted else {}
+        raw = self._raw + [_as_raw_line(row, names, why) for row, why in diverted]
+        unstored = len(insert(_RAW_SQL, raw, conn)) if raw else 0
         if gaps:
-            conn.executemany("INSERT INTO gaps (source_id, session_id, start_at, end_at, reason) "
-                             "VALUES (?, ?, ?, ?, ?)", gaps)
-        if self._samples:
-            conn.executemany("INSERT INTO clock_samples (session_id, segment, t_us, received_at) "
-                             "VALUES (?, ?, ?, ?)", self._samples)
+            unstored += len(insert(_GAPS_SQL, gaps, conn))
+        if self._samples:  # derived from the events (clock alignment): one SQLite refuses is just left out
+            insert(_SAMPLES_SQL, self._samples, conn)
         now = time.time()
         for source_id, pos in self._offsets.items():
             conn.execute(
@@ -410,7 +510,7 @@ class StoreWriter:
                 (source_id, pos.offset, pos.identity[0], pos.identity[1], pos.fingerprint, pos.prefix_len,
                  json.dumps(pos.decoder), now))
         conn.execute("COMMIT")
-        committed = len(self._events)
+        committed = len(self._events) - len(diverted)
         for rows in (self._events, self._raw, self._gaps, self._samples, self._new_codes):
             rows.clear()
         self._offsets.clear()
@@ -418,6 +518,8 @@ class StoreWriter:
         self._first_pending = None
         with self._lock:
             self._committed += committed
+            self._diverted += len(diverted)
+            self._unstored += unstored
             self._commits += 1
             self._pending = 0
             self._last_commit = now

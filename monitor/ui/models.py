@@ -291,3 +291,4 @@ class RigSetup:
     mapping_path: str | None = None
     valve_ul_per_ms: float | None = None
     protocol_path: str = ""
+    reset: bool = True               # serial: the board resets (and sends its header) when the port opens

@@ -17,6 +17,7 @@ from typing import Callable, Sequence
 from PySide6.QtCore import Signal
 from PySide6.QtWidgets import (
     QButtonGroup,
+    QCheckBox,
     QComboBox,
     QDoubleSpinBox,
     QFileDialog,
@@ -73,6 +74,8 @@ class SetupDialog(RecordDialog):
         self.valve.setSingleStep(0.01)
         self.valve.setSuffix(" µL/ms")
         self.valve.setSpecialValueText("not calibrated")
+        self.reset = QCheckBox("the board restarts when the port opens (most Arduino-style boards)")
+        self.reset.setChecked(True)
         self.protocol = QComboBox()
         self.protocol.setEditable(True)
         self.protocol.addItems(list(protocols))
@@ -83,6 +86,7 @@ class SetupDialog(RecordDialog):
         self.add_row("Name", self.name)
         self.add_row("Source", source)
         self.add_row("Device", self.device)
+        self.add_row("Restarts", self.reset)
         self.add_row("Log file", self._with_browse(self.file_path, "Choose the rig's log file"))
         self.add_row("Mapping", self._with_browse(self.mapping, "Choose a mapping file", "TOML (*.toml)"))
         self.add_row("Valve calibration", self.valve)
@@ -112,6 +116,7 @@ class SetupDialog(RecordDialog):
     def _refresh(self) -> None:
         serial = self.use_serial.isChecked()
         self.device.setEnabled(serial and bool(self.devices))
+        self.reset.setEnabled(serial)
         self.file_path.setEnabled(not serial)
 
     def setup(self) -> RigSetup:
@@ -124,7 +129,8 @@ class SetupDialog(RecordDialog):
             source, path, serial_number = "file", self.file_path.text().strip(), None
         return RigSetup(name=self.name.text().strip(), source=source, path=path, serial_number=serial_number,
                         mapping_path=self.mapping.text().strip() or None,
-                        valve_ul_per_ms=self.valve.value() or None, protocol_path=self.protocol.currentText().strip())
+                        valve_ul_per_ms=self.valve.value() or None, protocol_path=self.protocol.currentText().strip(),
+                        reset=self.reset.isChecked() or source != "serial")
 
     def problems(self) -> list[str]:
         return rig_setup_problems(self.setup(), self.existing, self.exists)

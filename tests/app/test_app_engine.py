@@ -28,7 +28,7 @@ class Writer:
 
 
 def status(state=READING, gap_since=None) -> SourceStatus:
-    return SourceStatus(state, 0, 0, 0, 0, 0.0, gap_since, 0, None, None, None)
+    return SourceStatus(state, 0, 0, 0, 0.0, gap_since, 0, None, None, None)
 
 
 def drain(engine: Engine) -> None:

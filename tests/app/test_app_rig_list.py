@@ -115,3 +115,40 @@ def test_window_refuses_a_bad_rig_list_in_one_line(tmp_path):
     assert done.returncode == 2 and len(done.stderr.strip().splitlines()) == 1
     assert "rigs.toml:1" in done.stderr and "protocol" in done.stderr
     assert not (tmp_path / "lab.sqlite3").exists()
+
+
+def test_a_serial_rig_that_does_not_reset_keeps_reset_false_and_reads_without_a_header(tmp_path):
+    path = tmp_path / "rigs.toml"
+    append_rig(path, RigSetup("box-08", "serial", "/dev/ttyACM8", None, None, None, str(tmp_path / "p.toml"),
+                              reset=False))
+    append_rig(path, RigSetup("box-09", "serial", "/dev/ttyACM9", None, None, None, str(tmp_path / "p.toml")))
+    eight, nine = read_rigs(path)
+    assert "reset = false" in path.read_text()
+    assert (eight.wait_for_header, nine.wait_for_header) == (False, True)
+    path.write_text(path.read_text().replace("reset = false", 'reset = "no"'))
+    with pytest.raises(ConfigError) as caught:
+        read_rigs(path)
+    assert caught.value.key == "[[rig]] reset"
+
+
+def test_window_refuses_a_rig_another_process_records_into_the_same_database(tmp_path):
+    (tmp_path / "p.toml").write_text(PROTOCOL)
+    log = tmp_path / "box1.rsw"
+    log.write_bytes(encode_header(fw="test") + b"".join(encode_event(t * 1000, "lever_down") for t in range(7)))
+    db = tmp_path / "lab.sqlite3"
+    recorder = subprocess.Popen([sys.executable, "-m", "monitor.app", "record", "--source", f"file:{log}", "--rig",
+                                 "box-01", "--animal", "heron", "--new-animal", "--protocol", str(tmp_path / "p.toml"),
+                                 "--db", str(db), "--seconds", "60"], stderr=subprocess.PIPE, text=True)
+    try:
+        assert "reading from byte 0" in recorder.stderr.readline()  # the lock is taken before this line
+        (tmp_path / "rigs.toml").write_text('[[rig]]\nname = "box-01"\nsource = "file"\npath = "box1.rsw"\n'
+                                            'protocol = "p.toml"\n')
+        done = rigside("window", "--rigs", str(tmp_path / "rigs.toml"), "--db", str(db), "--seconds", "3",
+                       home=tmp_path)
+    finally:
+        recorder.terminate()
+        recorder.communicate(timeout=30)
+    assert done.returncode == 2 and len(done.stderr.strip().splitlines()) == 1, done.stderr
+    assert "being recorded into this database by rigside record" in done.stderr
+    with sqlite3.connect(db) as conn:  # each line once: the window stored nothing of it
+        assert conn.execute("SELECT count(*) FROM events").fetchone()[0] == 7

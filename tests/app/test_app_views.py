@@ -21,7 +21,7 @@ PROTOCOL = two_press(plateau_sessions=3, min_trials=5)
 
 
 def status(state, silent_s=0.0, gap_since=None):
-    return SourceStatus(state, 0, 0, 0, 0, silent_s, gap_since, 0, None, "boom" if state == LOST else None, None)
+    return SourceStatus(state, 0, 0, 0, silent_s, gap_since, 0, None, "boom" if state == LOST else None, None)
 
 
 @pytest.mark.parametrize("state, silent, in_session, word", [

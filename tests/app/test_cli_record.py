@@ -31,8 +31,8 @@ def cli(*args: str, timeout: float = 60) -> subprocess.CompletedProcess:
 def record_args(tmp_path: Path, source: str, *extra: str) -> list[str]:
     protocol = tmp_path / "p.toml"
     protocol.write_text(PROTOCOL)
-    return ["record", "--source", source, "--rig", "box1", "--animal", "heron", "--protocol", str(protocol),
-            "--db", str(tmp_path / "store.sqlite3"), *extra]
+    return ["record", "--source", source, "--rig", "box1", "--animal", "heron", "--new-animal",
+            "--protocol", str(protocol), "--db", str(tmp_path / "store.sqlite3"), *extra]
 
 
 def stored_times(db: Path) -> list[int]:

@@ -301,10 +301,10 @@ def test_full_disk_during_import_stores_nothing_and_says_so(tmp_path, capsys, mo
     assert import_animal(capsys, db, out, "alder")[0] == 0  # with space again, the same files import
 
 
-def test_files_read_in_worker_processes_store_the_same_rows(tmp_path, capsys, history):
+def test_files_read_in_worker_processes_store_the_same_rows(tmp_path, capsys, mock_history):
     """--jobs 2 (files parsed in spawned processes, stored here in order) gives row for row the store
     that --jobs 1 gives: events, raw lines, trials, trial builds and the report."""
-    out, _ = history
+    out, _ = mock_history
     tables = {"events": "session_id, segment, line, t_us, raw_time, code, value, wall",
               "raw_lines": "session_id, line, byte_offset, kind, reason, raw",
               "trials": "session_id, idx, t_us, interval_ms, outcome, rewarded, computed_outcome",
@@ -322,12 +322,12 @@ def test_files_read_in_worker_processes_store_the_same_rows(tmp_path, capsys, hi
     assert seen[0] == seen[1]
 
 
-def test_ctrl_c_during_import_keeps_finished_files_and_names_them(tmp_path, capsys, history, monkeypatch):
+def test_ctrl_c_during_import_keeps_finished_files_and_names_them(tmp_path, capsys, mock_history, monkeypatch):
     """Ctrl-C while the third file is being stored: that file is rolled back, the two before it stay,
     exit 130 and one line naming how far it got; no traceback."""
     import monitor.store.importer as importer
 
-    out, _ = history
+    out, _ = mock_history
     real = importer.store_parsed
     calls = []
 
@@ -349,3 +349,20 @@ def test_ctrl_c_during_import_keeps_finished_files_and_names_them(tmp_path, caps
         assert [Path(p).name for (p,) in conn.execute("SELECT path FROM imports ORDER BY id")] == \
             [f.name for f in files[:2]]
         assert conn.execute("SELECT count(DISTINCT session_id) FROM events").fetchone()[0] == 2
+
+
+def test_an_interrupted_import_resumes_with_skip_imported_naming_what_was_skipped(tmp_path, capsys, mock_history):
+    out, _ = mock_history
+    files = sorted(out.glob("alder_s*.rsw"))[:3]
+    db = tmp_path / "resume.sqlite3"
+    protocol = out / "alder.protocol.toml"
+    code, _, _ = run_cli(capsys, "import", files[0], "--protocol", protocol, "--db", db, "--no-fit")
+    assert code == 0  # as if the first command stopped after its first file
+    code, _, err = run_cli(capsys, "import", *files, "--protocol", protocol, "--db", db, "--no-fit")
+    assert code == 2 and one_line(err) and "--skip-imported" in err
+    code, stdout, err = run_cli(capsys, "import", *files, "--protocol", protocol, "--db", db, "--no-fit",
+                                "--skip-imported")
+    assert code == 0 and f"skipped {files[0]}: already imported" in err and "imported 2 files" in stdout
+    conn = sqlite3.connect(db)
+    assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == 3
+    conn.close()

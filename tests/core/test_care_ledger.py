@@ -181,3 +181,11 @@ def test_care_table_errors_name_file_line_and_key():
 def test_times_need_an_offset():
     with pytest.raises(ValueError):
         Supplement(datetime(2026, 3, 2, 10), 0.5, "ana")
+
+
+def test_a_reward_above_the_protocols_limit_is_an_unknown_volume_not_water():
+    # 2 x 30 uL counted, the 900 uL line is not: 60 uL (arithmetic)
+    lines = [encode_event(10, "reward", 30), encode_event(20, "reward", 900), encode_event(30, "reward", 30)]
+    water = session_water(events(lines), ul_per_ms=None, reward_ul=30, max_valve_ms=250, lick_window_ms=2000,
+                          max_reward_ul=60)
+    assert water.earned_ul == 60 and water.unknown_volume == 1 and water.deliveries == 3

@@ -139,3 +139,12 @@ def test_docs_example_parses():
     p = parse_protocol(blocks[0], "docs/protocol.md")
     assert len(p.stages) >= 2 and p.plateau.measure in ("hit_rate", "fixed_window_fraction",
                                                         "median_abs_log_error", "cv")
+
+
+@pytest.mark.parametrize("key, value", [("tolerance", "inf"), ("tolerance", "nan"), ("target_ms", "inf")])
+def test_a_number_that_is_not_finite_is_refused(key, value):
+    # TOML's inf and nan are floats (toml.io, v1.0.0: "Float"); no window or target can be infinite
+    text = '[protocol]\nname="x"\nversion=1\ntask="two_press"\ntarget_ms=650\ntolerance=0.2\n'
+    text = text.replace(f"{key}=650" if key == "target_ms" else f"{key}=0.2", f"{key}={value}")
+    with pytest.raises(ConfigError, match="finite"):
+        parse_protocol(text, "p.toml")

@@ -107,24 +107,26 @@ def running(source: SerialSource):
     return source
 
 
-def test_loop_url_data_split_across_reads_and_boot_noise_discarded():
+def test_loop_url_header_tag_split_across_reads_and_boot_noise_kept():
     port = serial.serial_for_url("loop://", timeout=0.05)  # pyserial's own loopback handler
     sink = Collect()
     source = running(SerialSource("loop://", sink, opener=lambda path: port))
     try:
         wait_for(lambda: source.status().state == CONNECTED, what="open")
         port.write(b"\x00\xffboot noise 12 lev")  # what a resetting board sends before its header
-        port.write(encode_header(fw="loop")[:9])
-        wait_for(lambda: source._held, what="held bytes")  # the reader has the first part
+        port.write(encode_header(fw="loop")[:9])  # the header's tag cut in two reads
+        wait_for(lambda: source.decoder.pending > 20, what="the first part read")
         port.write(encode_header(fw="loop")[9:] + lines(3)[:20])
         wait_for(lambda: len(sink.events) >= 1, what="first event")
         port.write(lines(3)[20:])
         wait_for(lambda: len(sink.events) == 3, what="three events")
     finally:
         source.stop()
-    assert isinstance(sink.records[0], Header) and sink.records[0].fields["fw"] == "loop"
+    noise, header = sink.records[:2]
+    assert isinstance(noise, Malformed) and noise.raw == b"\x00\xffboot noise 12 lev"  # kept, not dropped
+    assert isinstance(header, Header) and header.fields["fw"] == "loop"
     assert [e.raw_time for e in sink.events] == [1000, 1250, 1500]
-    assert source.status().discarded_bytes == len(b"\x00\xffboot noise 12 lev")
+    assert source.status().malformed == 1
 
 
 def test_pty_line_split_across_reads(board):
@@ -291,19 +293,19 @@ def test_the_port_is_opened_exclusively(board):
         held.close()
 
 
-def test_no_header_after_open_reads_the_held_lines_after_the_wait(board):
+def test_no_header_after_open_keeps_every_line_and_says_so(board):
     dev = board()
     sink = Collect()
     source = running(SerialSource(dev.name, sink, header_wait_s=0.2))
     try:
         wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(b"ut line\n" + lines(3))  # a board that did not reset: first line was cut by the open
-        wait_for(lambda: len(sink.events) == 3, what="held lines read")
+        wait_for(lambda: len(sink.events) == 3, what="lines read")
+        wait_for(lambda: source.status().last_notice, what="the notice")
     finally:
         source.stop()
-    assert source.status().discarded_bytes == len(b"ut line\n")
-    assert "no header" in source.status().last_notice
-
+    assert sink.records[0].raw == b"ut line"  # the cut line is kept as malformed, the first whole line read
+    assert "no header" in source.status().last_notice and "reset = false" in source.status().last_notice
 
 
 def test_socket_url_disconnect_is_an_unplug_and_the_source_reconnects():

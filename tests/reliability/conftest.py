@@ -120,8 +120,8 @@ class Recorder:
         self.protocol.write_text(PROTOCOL)
 
     def args(self, source: str, rig: str = "box1", *extra: str) -> list[str]:
-        return [sys.executable, "-m", "monitor.app", "record", "--source", source, "--rig", rig, "--animal",
-                f"animal-{rig}", "--protocol", str(self.protocol), "--db", str(self.db), *extra]
+        return [sys.executable, "-m", "monitor.app", "record", "--source", source, "--rig", rig, "--new-animal",
+                "--animal", f"animal-{rig}", "--protocol", str(self.protocol), "--db", str(self.db), *extra]
 
 
 @pytest.fixture

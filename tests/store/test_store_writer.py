@@ -261,3 +261,37 @@ def test_a_writer_fault_is_loud_and_calls_fail_fast(writer):
     assert w.status().text.startswith("STORE WRITER FAILED: TypeError")
     with pytest.raises(RuntimeError, match="not running"):
         w.call(lambda c: None)
+
+
+def test_one_row_sqlite_cannot_take_is_kept_as_a_malformed_line_and_the_writer_goes_on(writer, tmp_path):
+    w = writer()
+    source_id, session_id = setup_session(w)
+    good = batch_of(3)
+    bad_event = good.records[0]._replace(t_us=1 << 63, line=99)  # past SQLite's 64-bit INTEGER (sqlite.org: datatype3)
+    w.submit(Batch([*good.records, bad_event], time.time()), source_id=source_id, session_id=session_id, live=True)
+    w.submit(batch_of(2, start=10), source_id=source_id, session_id=session_id, live=True)
+    wait_for(lambda: w.status().committed_events == 5, what="the good rows")
+    status = w.status()
+    assert status.state == OK and status.diverted_events == 1 and status.unstored_rows == 0
+    rows = read(tmp_path / "store.sqlite3", "SELECT line, reason, raw FROM raw_lines WHERE kind = 'malformed'")
+    assert len(rows) == 1 and rows[0][0] == 99 and "could not be stored" in rows[0][1]
+    assert rows[0][2].startswith(b"0 lever_down")
+
+
+def test_a_deleted_database_file_stops_the_writer_loudly(writer, tmp_path):
+    w = writer()
+    setup_session(w)
+    for suffix in ("", "-wal", "-shm"):
+        Path(f"{tmp_path / 'store.sqlite3'}{suffix}").unlink(missing_ok=True)
+    wait_for(lambda: w.status().state == "failed", what="the writer to notice")
+    assert "deleted" in w.status().last_error
+
+
+def test_a_replaced_database_file_stops_the_writer_loudly(writer, tmp_path):
+    w = writer()
+    setup_session(w)
+    other = tmp_path / "other.sqlite3"
+    db.open_store(other).close()
+    other.replace(tmp_path / "store.sqlite3")
+    wait_for(lambda: w.status().state == "failed", what="the writer to notice")
+    assert "replaced" in w.status().last_error

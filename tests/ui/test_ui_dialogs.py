@@ -95,3 +95,14 @@ def test_setup_with_a_log_file_and_no_devices(qtbot):
     setup = added.args[0]
     assert (setup.source, setup.path, setup.mapping_path, setup.valve_ul_per_ms) == (
         "file", "/lab/box07.log", "/lab/map.toml", None)
+
+
+def test_setup_says_whether_the_board_restarts_when_the_port_opens(qtbot):
+    dialog = SetupDialog(DEVICES, protocols=["/lab/p.toml"], exists=lambda p: True)
+    qtbot.addWidget(dialog)
+    dialog.name.setText("box-06")
+    assert dialog.reset.isChecked() and dialog.setup().reset
+    dialog.reset.setChecked(False)
+    assert dialog.setup().reset is False
+    dialog.use_file.setChecked(True)
+    assert not dialog.reset.isEnabled() and dialog.setup().reset  # a file has no board to restart

@@ -3,6 +3,8 @@
 Rule: every file is checked before anything is stored: each must be readable,
 and none may have been imported before (the same bytes, by SHA-256, under
 any name) or be given twice; otherwise one line names the file and exit 2.
+With `--skip-imported` files imported before are skipped instead, each named
+on stderr, so an interrupted import resumes with the same command.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived. Files are read, split and
 their trials derived in worker processes (`--jobs`, one per core) while
@@ -49,6 +51,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="processes that read files side by side (default 0: one per core when the files add up "
                              "to a few MB, else this process alone)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
+    parser.add_argument("--skip-imported", action="store_true",
+                        help="skip files already imported (named on stderr) instead of refusing the whole command; "
+                             "resumes an interrupted import")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -57,8 +62,8 @@ def run(args: argparse.Namespace) -> int:
     from drivers.config import ConfigError
 
     from monitor.app.commands.record import _read_protocol
-    from monitor.store.db import StoreError, open_store
     from monitor.app.progress import Progress
+    from monitor.store.db import StoreError, open_store
     from monitor.store.importer import ImportRefused, already_imported, file_digest, rig_calibrations, store_parsed
     from monitor.store.reporting import refresh_cache
 
@@ -102,11 +107,16 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError(f"--db: {exc}") from None
     imported = 0
     try:
+        skipped = []
         for path, data in contents:
             earlier = already_imported(conn, file_digest(data))
             if earlier is not None:
-                raise UsageError(f"FILE: {path} was already imported (same content as {earlier[0]}); "
-                                 "nothing imported")
+                if not args.skip_imported:
+                    raise UsageError(f"FILE: {path} was already imported (same content as {earlier[0]}); "
+                                     "nothing imported (--skip-imported imports the rest)")
+                skipped.append(path)
+                print(f"skipped {path}: already imported (same content as {earlier[0]})", file=sys.stderr)
+        contents = [(path, data) for path, data in contents if path not in skipped]
         started = time.monotonic()
         animals: set[str] = set()
         totals = [0, 0, 0, 0]
@@ -153,17 +163,19 @@ def run(args: argparse.Namespace) -> int:
     except sqlite3.OperationalError as exc:
         waited = f"waited {args.wait:g} s; " if "locked" in str(exc) or "busy" in str(exc) else ""
         raise UsageError(f"--db: {resolve_db(args.db)}: {exc} ({waited}{imported} of {len(contents)} files "
-                         "imported, the rest not)") from None
+                         "imported, the rest not: run the same command with --skip-imported to import them)") from None
     finally:
         conn.close()
     if interrupted:
         rest = len(contents) - imported
         last = f" (the last: {contents[imported - 1][0].name})" if imported else ""
         print(f"interrupted: {imported} of {len(contents)} files imported{last}; the other {rest} were not touched "
-              "and can be imported by the same command with only those files", file=sys.stderr)
+              "and are imported by the same command with --skip-imported", file=sys.stderr)
         return 130
-    if not args.no_fit:
+    if not args.no_fit and animals:
         _refit(resolve_db(args.db), sorted(animals))
+    if skipped:
+        print(f"skipped {len(skipped)} already imported", file=sys.stderr)
     print(f"imported {len(contents)} files: {_n(totals[0], 'session')}, {totals[1]} events, {totals[2]} malformed "
           f"lines, {totals[3]} attempts (trials, lone, premature, omitted) in {time.monotonic() - started:.1f} s")
     return 0

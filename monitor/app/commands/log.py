@@ -1,13 +1,16 @@
 """`rigside log verify|head|export --db DB`: check, anchor and export the decision log.
 
 Rule: `verify` reads every entry in insertion order and checks order, links,
-hashes and corrections (monitor.store.decisions.verify); exit 0 with
-"N entries, chain intact", or exit 1 with one line naming the first broken
-entry and why. `--head SEQ:HASH` (repeatable) also checks heads printed
+hashes and corrections (monitor.store.decisions.verify), and the care log's
+chain the same way (monitor.store.care_log.verify); exit 0 with
+"N entries, chain intact" (and "M care entries, chain intact" when there
+are any), or exit 1 with one
+line naming the first broken entry of each broken log and why. `--head SEQ:HASH` (repeatable) also checks heads printed
 earlier by `log head`, which catches entries deleted from the end or a
 rewritten log; keep them somewhere else (a lab notebook, an e-mail).
 `export --csv FILE` writes one row per entry (DECISION_CSV_COLUMNS, cells
-escaped as in every rigside CSV). Read-only.
+escaped as in every rigside CSV). `verify` first runs SQLite's quick_check
+over the whole file: a damaged database is refused (exit 2). Read-only.
 """
 
 from __future__ import annotations
@@ -46,19 +49,24 @@ def run(args: argparse.Namespace) -> int:
     from monitor.app.commands.export import safe_cell
     from monitor.app.commands.report import open_readonly
     from monitor.core.eligibility.decision_log import DECISION_CSV_COLUMNS
+    from monitor.store.care_log import verify as care_chain
     from monitor.store.decisions import chain_head, entries, verify
 
     heads = _heads(args.head)
     if args.action == "export" and args.csv is None:
         raise UsageError("--csv: give the CSV file to write")
-    conn = open_readonly(args.db)
+    conn = open_readonly(args.db, check=args.action == "verify")  # verify checks the whole file first
     try:
         if args.action == "verify":
             result = verify(conn, heads=heads)
-            if not result.ok:
-                print(f"rigside log verify: BROKEN: {result.message}", file=sys.stderr)
+            care = care_chain(conn)
+            broken = [r.message for r in (result, care) if not r.ok]
+            if broken:
+                print(f"rigside log verify: BROKEN: {'; '.join(broken)}", file=sys.stderr)
                 return 1
             print(result.message)
+            if care.entries:
+                print(care.message)
             return 0
         if args.action == "head":
             mark = chain_head(conn)

@@ -7,9 +7,14 @@ everything it read, closes the session and exits 0. A serial PATH may
 be a symlink, a COM name or a pyserial URL; after an unplug it is opened again
 by that path (or found by `--usb-serial`). A file the store has never seen is
 read from byte 0, a file it has seen resumes at its stored offset. State
-changes are printed to stderr as they happen. Exit 1 when the reader ended on
-an error ("connection lost") or rows could not be stored. Never imports Qt or
-scipy.
+changes are printed to stderr as they happen. Refused (exit 2, one line): a
+source another process records into the same store (its lock names it), an
+animal the store does not know unless `--new-animal`. It stops at once when
+the store writer stops (a deleted or replaced database file, a fault), and
+says how many events were read but not stored. "recorded N events" counts
+rows stored. Exit 1 when the source never opened, the reader ended on an
+error ("connection lost"), or anything read was not stored; a session that
+received nothing is removed. Never imports Qt or scipy.
 """
 
 from __future__ import annotations
@@ -41,7 +46,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--usb-serial", help="serial: also look for the device by this USB serial number")
     parser.add_argument("--baud", type=int, default=115200, help="serial: baud rate (default 115200)")
     parser.add_argument("--no-reset", action="store_true",
-                        help="serial: the board does not reset when the port opens; do not wait for its header")
+                        help="serial: the board does not reset when the port opens; expect no header")
+    parser.add_argument("--new-animal", action="store_true",
+                        help="add --animal to the store if it is not there yet (otherwise refused)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -57,6 +64,7 @@ def run(args: argparse.Namespace) -> int:
     import sqlite3
 
     from monitor.store import db
+    from monitor.store.source_locks import SourceBusy, resource_key
     from monitor.store.writer import StoreWriter
 
     writer = StoreWriter(resolve_db(args.db))
@@ -65,13 +73,19 @@ def run(args: argparse.Namespace) -> int:
     except db.StoreError as exc:
         raise UsageError(f"--db: {exc}") from None
     try:
+        notice = writer.hold_source(resource_key(kind, where), "rigside record")
+        if notice:
+            print(f"rigside record: {notice}", file=sys.stderr)
+        writer.call(lambda c: _known_animal(c, args.animal, args.new_animal))
         source_id = writer.call(lambda c: db.register_source(
             c, kind, key, args.rig, args.usb_serial, str(args.mapping) if args.mapping else None))
         resume = writer.call(lambda c: db.file_position(c, source_id), transaction=False) if kind == "file" else None
         if resume is not None:
             _check_resume(resume.decoder, factory, where)
-        session_id = writer.call(lambda c: db.start_session(
-            c, source_id, args.animal, args.rig, protocol["name"], protocol["version"], protocol["text"]))
+        session_id = writer.call(lambda c: _start_session(c, source_id, args, protocol))
+    except SourceBusy as exc:
+        writer.stop()
+        raise UsageError(f"--source: {exc}") from None
     except sqlite3.Error as exc:
         writer.stop()
         raise UsageError(f"--db: {writer.path}: {exc}") from None
@@ -81,10 +95,46 @@ def run(args: argparse.Namespace) -> int:
     return _record(args, kind, where, factory, writer, source_id, session_id, resume)
 
 
+def _known_animal(conn: Any, animal: str, create: bool) -> None:
+    """Refuse an animal the store does not know, unless it may be created."""
+    from monitor.store.records import ensure_animal, find_animal
+
+    if find_animal(conn, animal) is None:
+        if not create:
+            raise UsageError(f"--animal: no animal {animal!r} in the store (a typo?); "
+                             "give --new-animal to add it")
+        ensure_animal(conn, animal)
+
+
+def _start_session(conn: Any, source_id: int, args: argparse.Namespace, protocol: dict[str, Any]) -> int:
+    from monitor.store import db
+    from monitor.store.records import ensure_protocol, find_animal
+
+    session_id = db.start_session(conn, source_id, args.animal, args.rig, protocol["name"], protocol["version"],
+                                  protocol["text"])
+    animal = find_animal(conn, args.animal)
+    protocol_id = ensure_protocol(conn, protocol["name"], protocol["version"], protocol["text"])
+    conn.execute("UPDATE sessions SET animal_id = ?, protocol_id = ? WHERE id = ?",
+                 (animal.id if animal else None, protocol_id, session_id))
+    return session_id
+
+
+def _drop_if_empty(conn: Any, session_id: int) -> bool:
+    """Remove a session that received nothing (no event, no line); True when removed."""
+    if conn.execute("SELECT 1 FROM events WHERE session_id = ? UNION ALL SELECT 1 FROM raw_lines "
+                    "WHERE session_id = ? AND kind != 'notice' LIMIT 1", (session_id, session_id)).fetchone():
+        return False
+    for table in ("raw_lines", "gaps", "clock_samples"):
+        conn.execute(f"DELETE FROM {table} WHERE session_id = ?", (session_id,))
+    conn.execute("DELETE FROM sessions WHERE id = ?", (session_id,))
+    return True
+
+
 def _record(args, kind, where, factory, writer, source_id, session_id, resume) -> int:
     from drivers.status import LOST
     from monitor.app.pipeline import Fanout
     from monitor.store import db
+    from monitor.store.writer import FAILED
 
     sink = Fanout(writer, source_id=source_id, session_id=session_id, live=kind == "serial")
     if kind == "file":
@@ -111,27 +161,45 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
     finally:
         source.stop()
         stops.restore()
-    try:
-        writer.call(lambda c: db.end_session(c, session_id))
-    except Exception as exc:  # noqa: BLE001 - the events matter more than the end time
-        print(f"rigside record: could not mark the session ended: {exc}", file=sys.stderr)
-    stored = writer.stop()
+    removed = False
+    problems: list[str] = []
+    unclosed = ""
+    if writer.status().state != FAILED:
+        try:
+            writer.call(lambda c: db.end_session(c, session_id))
+            removed = writer.call(lambda c: _drop_if_empty(c, session_id))
+        except Exception as exc:  # noqa: BLE001 - the events matter more than the end time: not a failure
+            unclosed = f"could not close the session ({exc})"
+    writer.stop()
     stops.finished()                    # a console close (Windows) may end the process now
     status, wstatus = source.status(), writer.status()
-    print(f"recorded {status.events} events, {status.malformed} malformed lines, {status.gaps} gaps "
-          f"into {writer.path} (session {session_id})")
-    if not stored:
-        print(f"rigside record: error: {wstatus.pending_rows} rows could not be stored: {wstatus.last_error}",
-              file=sys.stderr)
+    # a deleted or replaced database file took every row committed into it along
+    not_stored = status.events if wstatus.file_lost else status.events - wstatus.committed_events - \
+        wstatus.diverted_events
+    where_to = "no session kept: nothing was received" if removed else f"session {session_id}"
+    stored = 0 if wstatus.file_lost else wstatus.committed_events
+    print(f"recorded {stored} events, {status.malformed + wstatus.diverted_events} malformed "
+          f"lines, {status.gaps} gaps into {writer.path} ({where_to})")
+    if wstatus.state == FAILED:
+        problems.append(f"the store writer stopped ({wstatus.last_error}); recording stopped")
+    if not_stored > 0 or wstatus.unstored_rows:
+        problems.append(f"{not_stored} of {status.events} events read were not stored"
+                        + (f", {wstatus.unstored_rows} other rows not stored" if wstatus.unstored_rows else "")
+                        + (f" ({wstatus.last_error})" if wstatus.last_error and wstatus.state != FAILED else ""))
+    if not getattr(source, "ever_opened", True):
+        problems.append(f"{args.source} never opened ({status.last_error or status.text})")
     if status.state == LOST or last_state == LOST:
-        print(f"rigside record: error: {status.text}", file=sys.stderr)
-        return 1
-    return 0 if stored and wstatus.dropped_events == 0 else 1
+        problems.append(status.text)
+    said = problems + ([unclosed] if unclosed else [])
+    if said:  # one line, however many things went wrong
+        print(f"rigside record: {'error: ' if problems else ''}{'; '.join(said)}", file=sys.stderr)
+    return 1 if problems else 0
 
 
 def _watch(source: Any, writer: Any, stop: threading.Event, deadline: float | None) -> str:
-    """Wait for a signal or the deadline, printing each change of state; return the last state."""
+    """Wait for a signal, the deadline or a failed store writer, printing each change; return the last state."""
     from drivers.status import LOST
+    from monitor.store.writer import FAILED
 
     shown: tuple = (None, None, 0)
     while True:
@@ -144,6 +212,8 @@ def _watch(source: Any, writer: Any, stop: threading.Event, deadline: float | No
             store = "" if wstatus.state == "ok" else f"; store: {wstatus.text}"
             print(f"rigside record: {status.text}{store}", file=sys.stderr)
         shown = now
+        if wstatus.state == FAILED:
+            return wstatus.state
         if status.state == LOST or stop.is_set() or (deadline is not None and time.monotonic() >= deadline):
             return status.state
         wait = POLL_STATUS_S if deadline is None else min(POLL_STATUS_S, deadline - time.monotonic())

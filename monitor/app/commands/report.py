@@ -21,12 +21,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true", help="print the report as JSON")
 
 
-def open_readonly(db):
-    """A read-only connection, or a one-line UsageError naming --db."""
+def open_readonly(db, check: bool = False):
+    """A read-only connection (after SQLite's quick_check when `check`), or a one-line UsageError naming --db."""
     from monitor.store.db import StoreError, open_store
 
     try:
-        return open_store(resolve_db(db), readonly=True)
+        return open_store(resolve_db(db), readonly=True, check=check)
     except StoreError as exc:
         raise UsageError(f"--db: {exc}") from None
 

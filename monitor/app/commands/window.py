@@ -86,8 +86,14 @@ def open_window(db_path: Path, rigs_path: Path, specs: list, seconds: float | No
                         protocols=lambda: protocols)
     controller.attach(window, care=care)
     window.rig_added.connect(lambda setup: append_rig(rigs_path, setup))
+    from monitor.store.source_locks import SourceBusy
+
     for spec in specs:
-        controller.add_rig(spec)
+        try:
+            controller.add_rig(spec)
+        except SourceBusy as exc:
+            controller.close()
+            raise UsageError(f"rig {spec.name}: {exc}") from None
     print(f"rigside: {len(specs)} rigs from {rigs_path}, database {db_path}", file=sys.stderr)
     window.show()
     controller.start()

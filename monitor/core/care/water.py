@@ -4,7 +4,8 @@ Rule: each `reward UL` adds UL µL; a bare `reward` adds the protocol's reward
 size (`reward_ul`); `valve MS` adds MS × the rig's calibration (µL/ms), the
 same rule as the live statistics (a rig should report a drop once, as one or
 the other). A delivery whose volume cannot be known (bad number, no reward
-size, no calibration) is counted, never guessed. Licks confirm: a delivery
+size, no calibration, or more than the protocol's `max_reward_ul`) is
+counted, never guessed. Licks confirm: a delivery
 with no lick within `lick_window_ms` after it (same clock segment) counts as
 unconfirmed. A valve opened longer than `max_valve_ms` is listed. Device time
 only; pure.
@@ -51,7 +52,7 @@ def _number(text: str) -> float | None:
 
 def session_water(events: Iterable[Event], *, ul_per_ms: float | None, reward_ul: float | None,
                   max_valve_ms: float, lick_window_ms: float, session: str = "",
-                  end: datetime | None = None) -> SessionWater:
+                  end: datetime | None = None, max_reward_ul: float | None = None) -> SessionWater:
     """Sum a session's deliveries and check them against licks and the valve limit."""
     earned = 0.0
     unknown = 0
@@ -70,7 +71,7 @@ def session_water(events: Iterable[Event], *, ul_per_ms: float | None, reward_ul
                 if value is not None and value > max_valve_ms:
                     long_valves.append(value)
                 volume = None if value is None or ul_per_ms is None else value * ul_per_ms
-            if volume is None:
+            if volume is None or (max_reward_ul is not None and volume > max_reward_ul):
                 unknown += 1
             else:
                 earned += volume

@@ -1,0 +1,64 @@
+"""A consistent copy of the store while it is in use: SQLite's online backup API.
+
+Rule: the copy is taken from one read snapshot (`Connection.backup` in a single
+step), so a recorder or the window may go on writing meanwhile (WAL: readers
+and the writer do not block each other), and it includes what is still in the
+write-ahead log, which a plain file copy would miss. It is written under a
+temporary name beside the target, checked with `quick_check`, and only then
+renamed to the target, so a target name never holds half a copy. An existing
+target is never overwritten.
+"""
+
+from __future__ import annotations
+
+import os
+import sqlite3
+from pathlib import Path
+from typing import NamedTuple
+
+from monitor.store.db import StoreError, open_store
+
+
+class BackupResult(NamedTuple):
+    path: Path
+    bytes: int
+    sessions: int
+    events: int
+
+
+def backup_store(source: Path, target: Path) -> BackupResult:
+    """Copy the store at `source` to the new file `target`; StoreError names what went wrong."""
+    if target.exists():
+        raise StoreError(f"{target}: already exists; a backup never overwrites a file (choose a new name)")
+    if target.resolve() == source.resolve():
+        raise StoreError(f"{target}: is the database itself")
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StoreError(f"{target}: cannot create the folder {target.parent} ({exc.strerror or exc})") from None
+    partial = target.with_name(target.name + ".partial")
+    conn = open_store(source, readonly=True)
+    try:
+        partial.unlink(missing_ok=True)
+        copy = sqlite3.connect(partial)
+        try:
+            conn.backup(copy)  # pages=-1: the whole file from one snapshot
+            copy.execute("PRAGMA journal_mode = DELETE")  # one self-contained file
+            check = [row[0] for row in copy.execute("PRAGMA quick_check(3)")]
+            if check != ["ok"]:
+                raise StoreError(f"{source}: the copy fails SQLite's check ({'; '.join(check)[:200]}); "
+                                 "the database itself is damaged")
+            sessions = copy.execute("SELECT count(*) FROM sessions").fetchone()[0]
+            events = copy.execute("SELECT count(*) FROM events").fetchone()[0]
+        finally:
+            copy.close()
+        os.replace(partial, target)
+    except sqlite3.Error as exc:
+        raise StoreError(f"{target}: the backup failed ({exc}); nothing was written under that name") from None
+    except OSError as exc:
+        raise StoreError(f"{target}: the backup failed ({exc.strerror or exc}); nothing was written under that "
+                         "name") from None
+    finally:
+        conn.close()
+        partial.unlink(missing_ok=True)
+    return BackupResult(target, target.stat().st_size, sessions, events)
