@@ -28,6 +28,10 @@ as it was: no index.
 Version 3 (random assignment): assignment_plans, one row per cohort (method,
 seed, groups, per_block, blinded), insert-only like the decisions: a plan is
 never changed once its seed is drawn.
+
+Lab sync: lab_sync (this PC's lab identity and the last sync's state, key ->
+value) and lab_bookmarks (the lab's bookmarks as last seen, for "rows
+waiting" while the server is away); monitor.store.lab_sync writes both.
 """
 
 from __future__ import annotations
@@ -325,11 +329,23 @@ _V3 = (
         BEGIN SELECT RAISE(ABORT, '{_NO_REPLAN}'); END""",
 )
 
+_LAB_SYNC = (
+    """CREATE TABLE lab_sync (
+        key TEXT PRIMARY KEY,           -- pc_uuid, pc_name, last_sync_at, unreachable_since, last_error
+        value TEXT NOT NULL
+    )""",
+    """CREATE TABLE lab_bookmarks (
+        tbl TEXT PRIMARY KEY,           -- a table synced by rowid (events, decisions, care_log, ...)
+        last_rowid INTEGER NOT NULL     -- the lab holds every row up to here (as of the last sync)
+    )""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
               "care log, fits, alerts", _V2),
     Migration("assignment plans", _V3),
+    Migration("lab sync: this PC's lab identity and bookmarks", _LAB_SYNC),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

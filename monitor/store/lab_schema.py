@@ -1,0 +1,117 @@
+"""The lab database on PostgreSQL: reaching it, and creating or upgrading its schema with Alembic.
+
+Rule: the lab is named by a libpq URL (`postgresql://user@host/db`, with
+`?options=-csearch_path%3DNAME` to keep it in a schema of its own). Its
+schema is the chain of Alembic revisions in `lab_migrations/versions`, run
+without an env.py straight on one psycopg connection, recorded in the table
+`lab_schema_version`; only `upgrade` changes it (`rigside lab init`).
+Readers and the sync refuse a database that is not at this rigside's head
+revision, with a one-line `LabError`. A server that does not answer, or
+refuses the connection, is a `LabUnreachable` naming the URL without any
+password.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from urllib.parse import urlsplit, urlunsplit
+
+VERSION_TABLE = "lab_schema_version"
+_SCRIPTS = Path(__file__).with_name("lab_migrations")
+CONNECT_TIMEOUT_S = 5
+
+
+class LabError(Exception):
+    """The lab database cannot be used as it is; the message says why in one line."""
+
+
+class LabUnreachable(LabError):
+    """The lab server did not answer (or refused the connection)."""
+
+
+def shown(url: str) -> str:
+    """The URL without its password, for messages."""
+    parts = urlsplit(url)
+    if parts.password is None:
+        return url
+    host = parts.hostname or ""
+    netloc = f"{parts.username}@{host}" + (f":{parts.port}" if parts.port else "")
+    return urlunsplit((parts.scheme, netloc, parts.path, parts.query, parts.fragment))
+
+
+def check_url(url: str) -> str:
+    """The URL if it names a PostgreSQL database, else a LabError saying what is expected."""
+    if not isinstance(url, str) or urlsplit(url).scheme not in ("postgresql", "postgres"):
+        raise LabError(f"expected a URL postgresql://user@host/database, got {url!r}")
+    return url
+
+
+def connect(url: str):
+    """A psycopg connection to the lab (not autocommit), or LabUnreachable."""
+    import psycopg
+
+    try:
+        return psycopg.connect(check_url(url), connect_timeout=CONNECT_TIMEOUT_S)
+    except psycopg.OperationalError as exc:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise LabUnreachable(f"lab server {shown(url)} unreachable: {reason}") from None
+
+
+def _script():
+    from alembic.script import ScriptDirectory
+
+    return ScriptDirectory(str(_SCRIPTS), version_locations=[str(_SCRIPTS / "versions")])
+
+
+def head_revision() -> str:
+    return _script().get_current_head()
+
+
+def current_revision(conn) -> str | None:
+    """The revision the database is at (None: never initialised)."""
+    exists = conn.execute("SELECT to_regclass(%s) IS NOT NULL", (VERSION_TABLE,)).fetchone()[0]
+    if not exists:
+        return None
+    row = conn.execute(f"SELECT version_num FROM {VERSION_TABLE}").fetchone()
+    return None if row is None else row[0]
+
+
+def require_current(conn, url: str) -> None:
+    """LabError unless the lab's schema is at this rigside's head revision."""
+    current = current_revision(conn)
+    if current is None:
+        raise LabError(f"{shown(url)} has no rigside lab schema: run `rigside lab init --lab URL` once")
+    if current != head_revision():
+        raise LabError(f"{shown(url)} is at lab schema {current}, this rigside needs {head_revision()}: "
+                       "run `rigside lab init --lab URL` (a newer server schema needs a newer rigside)")
+
+
+def upgrade(url: str) -> tuple[str | None, str]:
+    """Bring the lab's schema to the head revision in one transaction; return (before, after)."""
+    import psycopg
+    import sqlalchemy
+    from alembic.operations import Operations
+    from alembic.runtime.migration import MigrationContext
+
+    script = _script()
+    check_url(url)
+    engine = sqlalchemy.create_engine("postgresql+psycopg://", creator=lambda: connect(url),
+                                      poolclass=sqlalchemy.pool.NullPool)
+    try:
+        with engine.begin() as connection:
+            context = MigrationContext.configure(
+                connection, opts={"version_table": VERSION_TABLE, "transactional_ddl": True,
+                                  "fn": lambda rev, _ctx: script._upgrade_revs("head", rev)})
+            before = context.get_current_revision()
+            if before is not None and before not in {r.revision for r in script.walk_revisions()}:
+                raise LabError(f"{shown(url)} is at lab schema {before}, newer than this rigside knows: "
+                               "upgrade rigside")
+            with Operations.context(context):
+                context.run_migrations()
+            return before, context.get_current_revision() or before or ""
+    except (sqlalchemy.exc.OperationalError, psycopg.OperationalError) as exc:
+        raise LabUnreachable(f"lab server {shown(url)}: {' '.join(str(exc).split())[:300]}") from None
+    except sqlalchemy.exc.DBAPIError as exc:
+        raise LabError(f"{shown(url)}: cannot create the lab schema ({' '.join(str(exc.orig).split())})") from None
+    finally:
+        engine.dispose()
