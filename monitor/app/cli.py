@@ -16,7 +16,7 @@ import os
 import sys
 from typing import Sequence
 
-from monitor.app.errors import UsageError
+from monitor.app.errors import Fault, UsageError
 
 COMMANDS: dict[str, tuple[str, str]] = {
     "window": ("monitor.app.commands.window", "the window for this PC's rigs (also plain `rigside`)"),
@@ -29,6 +29,8 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "assign": ("monitor.app.commands.assign", "draw an animal's group at random and record it; reveal a blinding key"),
     "log": ("monitor.app.commands.log", "check the decision log"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
+    "lab": ("monitor.app.commands.lab", "the lab database: create or upgrade it, show what it holds, this PC's sync"),
+    "sync": ("monitor.app.commands.sync", "push everything new in this PC's store to the lab database"),
 }
 
 
@@ -71,6 +73,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except UsageError as exc:
         sys.stderr.write(f"rigside {args.command}: error: {exc}\n")
         return 2
+    except Fault as exc:
+        sys.stderr.write(f"rigside {args.command}: {exc}\n")
+        return 1
     except KeyboardInterrupt:
         return 130
     except BrokenPipeError:

@@ -54,3 +54,35 @@ def care_config(path: Path | None) -> CareConfig:
         raise ValueError(f"cannot read {path} ({exc.strerror or exc})") from None
     except (ConfigError, tomllib.TOMLDecodeError) as exc:
         raise ValueError(str(exc)) from None
+
+
+LAB_ENV = "RIGSIDE_LAB"
+
+
+def lab_url(given: str | None, settings: Path | None = None) -> str | None:
+    """The lab database's URL: `--lab`, else $RIGSIDE_LAB, else `[lab] url` of the settings file, else None.
+
+    A settings file that cannot be read, or whose `[lab] url` is not text, is a ValueError naming it.
+    """
+    import os
+
+    if given:
+        return given
+    if os.environ.get(LAB_ENV):
+        return os.environ[LAB_ENV]
+    path = settings_path(settings)
+    if path is None:
+        return None
+    import tomllib
+
+    from drivers.config import ConfigError, TomlFile
+    try:
+        doc = TomlFile(Path(path).read_text(encoding="utf-8"), str(path))
+    except OSError as exc:
+        raise ValueError(f"cannot read {path} ({exc.strerror or exc})") from None
+    except (ConfigError, tomllib.TOMLDecodeError) as exc:
+        raise ValueError(str(exc)) from None
+    url = doc.data.get("lab", {}).get("url")
+    if url is not None and not isinstance(url, str):
+        raise ValueError(str(doc.error("lab", "url", f"expected the lab's URL as text, got {url!r}")))
+    return url or None

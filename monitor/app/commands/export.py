@@ -10,7 +10,10 @@ never holds a whole table in memory and never blocks recording. A cell that
 begins with = + - @ (or a tab or carriage return) and is not a number gets a
 leading apostrophe, so a spreadsheet shows it instead of running it. NWB:
 one file per session (monitor.store.nwb_export; needs the `nwb` extra), a
-progress line per file on stderr.
+progress line per file on stderr. `--lab URL` exports events or trials from
+the lab database (monitor.store.lab_read: a scratch copy of every PC's rows,
+exported by the same code; session ids of PCs after the first are shifted by
+PC number x 10^9).
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ import re
 from pathlib import Path
 
 from monitor.app.errors import UsageError
+from monitor.app.lab_access import add_lab_argument, lab_call
 from monitor.app.paths import add_db_argument, resolve_db
 
 EVENT_COLUMNS = ("animal", "session", "rig", "segment", "line", "device_time", "t_us", "event", "value")
@@ -52,6 +56,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser)
     parser.add_argument("--csv", type=Path, help="CSV file to write")
     parser.add_argument("--nwb", type=Path, help="directory for NWB files")
+    add_lab_argument(parser, reader=True)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -63,6 +68,8 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("what: say what to export: events or trials (with --csv FILE), or --nwb DIR")
     if args.csv is None:
         raise UsageError("--csv: give the CSV file to write")
+    if args.lab is not None:
+        return _export_lab(args)
     conn = _open(args)
     try:
         rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
@@ -81,6 +88,22 @@ def _open(args: argparse.Namespace):
         return open_store(resolve_db(args.db), readonly=True)
     except StoreError as exc:
         raise UsageError(f"--db: {exc}") from None
+
+
+def _export_lab(args: argparse.Namespace) -> int:
+    import tempfile
+
+    from monitor.store.lab_read import with_copy
+    with tempfile.TemporaryDirectory(prefix="rigside-lab-") as directory:
+        conn = lab_call(lambda: with_copy(args.lab, directory, events="all" if args.what == "events" else "unbuilt"))
+        try:
+            rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
+        except OSError as exc:
+            raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
+        finally:
+            conn.close()
+    print(f"exported {rows} {args.what} from the lab to {args.csv}")
+    return 0
 
 
 def _export_nwb(args: argparse.Namespace) -> int:
