@@ -46,10 +46,19 @@ def check_url(url: str) -> str:
     return url
 
 
+def lab_driver():
+    """psycopg, or a LabError saying how to install the `lab` extra."""
+    try:
+        import alembic  # noqa: F401 - the lab's schema tool comes with the same extra
+        import psycopg
+    except ImportError:
+        raise LabError("the lab database needs psycopg and alembic: pip install 'rigside[lab]'") from None
+    return psycopg
+
+
 def connect(url: str):
     """A psycopg connection to the lab (not autocommit), or LabUnreachable."""
-    import psycopg
-
+    psycopg = lab_driver()
     try:
         return psycopg.connect(check_url(url), connect_timeout=CONNECT_TIMEOUT_S)
     except psycopg.OperationalError as exc:
@@ -88,7 +97,7 @@ def require_current(conn, url: str) -> None:
 
 def upgrade(url: str) -> tuple[str | None, str]:
     """Bring the lab's schema to the head revision in one transaction; return (before, after)."""
-    import psycopg
+    psycopg = lab_driver()
     import sqlalchemy
     from alembic.operations import Operations
     from alembic.runtime.migration import MigrationContext

@@ -31,7 +31,7 @@ import uuid
 from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable
 
-from monitor.store.lab_schema import LabError, LabUnreachable, connect, require_current, shown
+from monitor.store.lab_schema import LabError, LabUnreachable, connect, lab_driver, require_current, shown
 
 BULK = "events"                       # its own typed table on the server
 DERIVED = "trials"                    # replaced per session with its trial build
@@ -310,8 +310,7 @@ def sync(conn: sqlite3.Connection, url: str, *, pc_name: str | None = None, chun
     LabUnreachable when the server does not answer or the connection drops (the local store
     records since when); SyncRefused for data the lab cannot take; LabError for a lab not set up.
     """
-    import psycopg
-
+    psycopg = lab_driver()
     began = time.monotonic()
     ident, name = pc_identity(conn, pc_name)
     try:
