@@ -17,6 +17,7 @@ from pathlib import Path
 from urllib.parse import urlsplit, urlunsplit
 
 VERSION_TABLE = "lab_schema_version"
+HEAD = "lab_0001"  # the newest revision in lab_migrations/versions (a test checks it against Alembic's head)
 _SCRIPTS = Path(__file__).with_name("lab_migrations")
 CONNECT_TIMEOUT_S = 5
 
@@ -47,12 +48,13 @@ def check_url(url: str) -> str:
 
 
 def lab_driver():
-    """psycopg, or a LabError saying how to install the `lab` extra."""
-    try:
-        import alembic  # noqa: F401 - the lab's schema tool comes with the same extra
-        import psycopg
-    except ImportError:
-        raise LabError("the lab database needs psycopg and alembic: pip install 'rigside[lab]'") from None
+    """psycopg, or a LabError saying how to install the `lab` extra (psycopg and Alembic)."""
+    from importlib.util import find_spec
+
+    if find_spec("psycopg") is None or find_spec("alembic") is None:
+        raise LabError("the lab database needs psycopg and alembic: pip install 'rigside[lab]'")
+    import psycopg
+
     return psycopg
 
 
@@ -73,6 +75,7 @@ def _script():
 
 
 def head_revision() -> str:
+    """Alembic's head of the revision files (loads Alembic; readers compare with HEAD instead)."""
     return _script().get_current_head()
 
 
@@ -90,8 +93,8 @@ def require_current(conn, url: str) -> None:
     current = current_revision(conn)
     if current is None:
         raise LabError(f"{shown(url)} has no rigside lab schema: run `rigside lab init --lab URL` once")
-    if current != head_revision():
-        raise LabError(f"{shown(url)} is at lab schema {current}, this rigside needs {head_revision()}: "
+    if current != HEAD:
+        raise LabError(f"{shown(url)} is at lab schema {current}, this rigside needs {HEAD}: "
                        "run `rigside lab init --lab URL` (a newer server schema needs a newer rigside)")
 
 

@@ -96,6 +96,7 @@ def do_sync(db: Path, url: str, name: str, **kw) -> lab_sync.SyncResult:
 
 
 def test_alembic_init_creates_the_schema_once(lab_url):
+    assert lab_schema.head_revision() == lab_schema.HEAD  # Alembic's own view of the revision files
     assert lab_schema.upgrade(lab_url) == (None, lab_schema.head_revision())
     assert lab_schema.upgrade(lab_url) == (lab_schema.head_revision(), lab_schema.head_revision())
     with psycopg.connect(lab_url) as pg:
