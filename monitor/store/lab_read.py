@@ -68,13 +68,15 @@ class Lab:
     # --- what the lab holds ---------------------------------------------------------------------
 
     def pcs(self) -> list[dict[str, Any]]:
-        """Every PC: number, name, last sync (ISO 8601), animals, sessions and events it sent."""
+        """Every PC: number, name, last sync (ISO 8601), animals, sessions, events it sent, rigs (named in its
+        rig list or its sessions)."""
         rows = self.pg.execute(
             "SELECT p.id, p.name, p.last_sync, "
             "(SELECT count(*) FROM pc_animals AS m WHERE m.pc_id = p.id), "
             "(SELECT count(*) FROM records AS r WHERE r.pc_id = p.id AND r.tbl = 'sessions'), "
             "(SELECT coalesce(last_rowid, 0) FROM bookmarks AS b WHERE b.pc_id = p.id AND b.tbl = 'events'), "
-            "(SELECT array_agg(DISTINCT r.data->>'name') FROM records AS r WHERE r.pc_id = p.id AND r.tbl = 'rigs') "
+            "(SELECT array_agg(DISTINCT coalesce(r.data->>'name', r.data->>'rig')) FROM records AS r "
+            "WHERE r.pc_id = p.id AND r.tbl IN ('rigs', 'sessions')) "
             "FROM pcs AS p ORDER BY p.id").fetchall()
         return [{"pc": r[0], "name": r[1], "last_sync": None if r[2] is None else r[2].isoformat(),
                  "animals": r[3], "sessions": r[4], "events_up_to": r[5] or 0, "rigs": sorted(r[6] or [])}
