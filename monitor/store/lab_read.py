@@ -23,17 +23,17 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterator
 
+from monitor.store.derive import TRIAL_COLUMNS
 from monitor.store.lab_schema import LabError, connect, require_current
 from monitor.store.lab_sync import decode_value
 
 ID_SHIFT = 10 ** 9
-_ID_COLUMNS = ("id", "session_id", "first_event", "last_event", "source_id", "import_id", "checkin_id")
+_ID_COLUMNS = ("id", "session_id", "first_event", "last_event", "source_id", "import_id")
 _UNIQUE_BY_NAME = ("protocols", "rigs", "imports", "sources", "assignment_plans", "event_codes")
 _NOT_COPIED = ("lab_sync", "lab_bookmarks", "file_offsets", "decisions", "raw_lines", "clock_samples")
 _EVENT_SQL = ("SELECT rid, session_id, segment, line, t_us, raw_time, code, value, wall FROM events "
               "WHERE pc_id = %s AND session_id = ANY(%s) ORDER BY rid")
-_TRIAL_COLUMNS = ("session_id", "idx", "t_us", "interval_ms", "target_ms", "window_low_ms", "window_high_ms", "stage",
-                  "outcome", "rewarded", "outcome_source", "computed_outcome", "segment")
+_TRIAL_COLUMNS = ("session_id", *TRIAL_COLUMNS)
 
 
 @dataclass(frozen=True)
@@ -95,9 +95,6 @@ class Lab:
         out = [LabAnimal(aid, name, lab_id, name if counts[name] == 1 else f"{name}@{lab_id}", tuple(where))
                for (aid, name, lab_id), where in places.items()]
         return sorted(out, key=lambda a: a.shown)
-
-    def animal(self, shown: str) -> LabAnimal | None:
-        return next((a for a in self.animals() if a.shown == shown), None)
 
     # --- scratch copies ---------------------------------------------------------------------------
 

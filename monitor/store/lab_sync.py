@@ -31,6 +31,7 @@ import uuid
 from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable
 
+from monitor.store.derive import TRIAL_COLUMNS
 from monitor.store.lab_schema import LabError, LabUnreachable, connect, lab_driver, require_current, shown
 
 BULK = "events"                       # its own typed table on the server
@@ -39,8 +40,6 @@ APPEND_ONLY = ("decisions", "care_log", "raw_lines", "clock_samples", "fits", "a
 LOCAL_ONLY = ("file_offsets", "lab_sync", "lab_bookmarks", "sqlite_sequence", "sqlite_stat1")
 CHUNK_ROWS = 50_000
 _EVENT_COLUMNS = ("session_id", "segment", "line", "t_us", "raw_time", "code", "value", "wall")
-_TRIAL_COLUMNS = ("idx", "t_us", "interval_ms", "target_ms", "window_low_ms", "window_high_ms", "stage", "outcome",
-                  "rewarded", "outcome_source", "computed_outcome", "segment")
 _LOCK_SPACE = 0x52534431  # advisory lock namespace ("RSD1")
 
 
@@ -256,10 +255,10 @@ def _replace_trials(pg, conn: sqlite3.Connection, pc: int, sessions: set[str]) -
         return 0
     pg.execute("DELETE FROM trials WHERE pc_id = %s AND session_id = ANY(%s)", (pc, ids))
     sent = 0
-    with pg.cursor().copy(f"COPY trials (pc_id, session_id, {', '.join(_TRIAL_COLUMNS)}) FROM STDIN") as copy:
+    with pg.cursor().copy(f"COPY trials (pc_id, session_id, {', '.join(TRIAL_COLUMNS)}) FROM STDIN") as copy:
         for start in range(0, len(ids), 500):
             part = ids[start:start + 500]
-            for row in conn.execute(f"SELECT session_id, {', '.join(_TRIAL_COLUMNS)} FROM trials WHERE session_id "
+            for row in conn.execute(f"SELECT session_id, {', '.join(TRIAL_COLUMNS)} FROM trials WHERE session_id "
                                     f"IN ({', '.join('?' * len(part))}) ORDER BY session_id, idx", part):
                 copy.write_row((pc, *row))
                 sent += 1

@@ -138,6 +138,23 @@ def test_one_more_session_sends_only_its_rows(pcs, lab_url, tmp_path):
                                                             "(SELECT max(id) FROM sessions)")
 
 
+def test_a_changed_row_is_sent_again_and_the_lab_report_follows(pcs, lab_url):
+    from monitor.store.records import exclude_session
+
+    lab_schema.upgrade(lab_url)
+    do_sync(pcs["pc2"], lab_url, "pc2")
+    conn = open_store(pcs["pc2"])
+    conn.execute("BEGIN IMMEDIATE")
+    exclude_session(conn, 2, "cable unplugged half-way", "kim")
+    conn.execute("COMMIT")
+    local = report(conn, "cedar")
+    conn.close()
+    result = do_sync(pcs["pc2"], lab_url, "pc2")
+    assert result.sent["sessions"] == 1 and result.total == 1
+    lab = lab_read.report(lab_url, "cedar")
+    assert lab == local and lab["animals"][0]["sessions"][1]["excluded"] is True
+
+
 def test_kill_9_mid_sync_then_resume_sends_each_event_once(pcs, lab_url):
     lab_schema.upgrade(lab_url)
     do_sync(pcs["pc2"], lab_url, "pc2")
