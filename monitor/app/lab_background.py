@@ -7,7 +7,8 @@ file); without one the status bar says "lab: not set" and nothing runs. Every
 thread or the live path; one at a time, and a sync still running when the
 window closes is killed (the next one resumes where it stopped). After each
 run the state is read from the local store (monitor.store.lab_sync.sync_status)
-and said in words. The lab view reads `rigside lab show --json` the same way.
+and said in words. The lab view reads `rigside lab show --json`, and an
+animal's report `rigside report --lab URL --animal NAME`, the same way.
 """
 
 from __future__ import annotations
@@ -58,6 +59,7 @@ class LabLink(QObject):
         self.window, self.db_path, self.settings_file, self.url = window, db_path, settings_file, url
         self.sync_process: QProcess | None = None
         self.show_process: QProcess | None = None
+        self.report_process: QProcess | None = None
         self.view: LabWindow | None = None
         self.label = plain_label(wrap=False)
         self.label.setObjectName("lab_state")
@@ -118,6 +120,7 @@ class LabLink(QObject):
             self.view.url_saved.connect(self.save_url)
             self.view.sync_requested.connect(self.sync_now)
             self.view.refresh_requested.connect(self.read_lab)
+            self.view.animal_requested.connect(self.read_animal)
             self.view.finished.connect(self._view_closed)
         self.refresh_state()
         self.view.show()
@@ -156,6 +159,16 @@ class LabLink(QObject):
         else:
             self.view.show_message(err.strip() or f"rigside lab show ended with {code}")
 
+    def read_animal(self, animal: str) -> None:
+        if not self.url or self.report_process is not None:
+            return
+        self.report_process = self._run(["report", "--lab", self.url, "--animal", animal], self._reported)
+
+    def _reported(self, code: int, out: str, err: str) -> None:
+        self.report_process = None
+        if self.view is not None:
+            self.view.show_animal(out if code == 0 else err.strip())
+
     def _run(self, args: list[str], done) -> QProcess:
         process = QProcess(self)
         process.finished.connect(lambda code, _status: done(
@@ -167,7 +180,7 @@ class LabLink(QObject):
     def stop(self) -> None:
         """Stop the timer; kill a sync still running (the next one resumes where it stopped)."""
         self.timer.stop()
-        for process in (self.sync_process, self.show_process):
+        for process in (self.sync_process, self.show_process, self.report_process):
             if process is not None and process.state() != QProcess.ProcessState.NotRunning:
                 process.kill()
                 process.waitForFinished(3000)

@@ -17,6 +17,7 @@ from PySide6.QtWidgets import (
     QFormLayout,
     QHBoxLayout,
     QLineEdit,
+    QPlainTextEdit,
     QPushButton,
     QTableWidget,
     QTableWidgetItem,
@@ -36,11 +37,12 @@ class LabWindow(QDialog):
     url_saved = Signal(str)
     sync_requested = Signal()
     refresh_requested = Signal()
+    animal_requested = Signal(str)         # the lab's name of an animal: show its report
 
     def __init__(self, url: str, parent: QWidget | None = None) -> None:
         super().__init__(parent)
         self.setWindowTitle("Lab database")
-        self.resize(760, 520)
+        self.resize(760, 680)
         self.url = QLineEdit(url)
         self.url.setPlaceholderText("postgresql://user@host/database")
         save = QPushButton("Save for this PC")
@@ -63,6 +65,11 @@ class LabWindow(QDialog):
         buttons.addStretch(1)
         self.pcs = _table(PC_COLUMNS)
         self.animals = _table(ANIMAL_COLUMNS)
+        self.animals.cellDoubleClicked.connect(
+            lambda row, _col: self.animal_requested.emit(self.animals.item(row, 0).text()))
+        self.animal_report = QPlainTextEdit()
+        self.animal_report.setReadOnly(True)
+        self.animal_report.setPlaceholderText("Double-click an animal for its report from the lab.")
         self.message = plain_label()
         layout = QVBoxLayout(self)
         layout.addLayout(form)
@@ -71,6 +78,7 @@ class LabWindow(QDialog):
         layout.addWidget(self.pcs, 1)
         layout.addWidget(plain_label("Animals in the lab (read-only)"))
         layout.addWidget(self.animals, 1)
+        layout.addWidget(self.animal_report, 1)
         layout.addWidget(self.message)
 
     def show_state(self, text: str) -> None:
@@ -83,6 +91,10 @@ class LabWindow(QDialog):
         _fill(self.animals, [(a["animal"], a["lab_id"] or "-", ", ".join(a["pcs"]))
                              for a in document.get("animals", [])])
         self.message.setText("")
+
+    def show_animal(self, text: str) -> None:
+        """An animal's report as `rigside report --lab` prints it (sessions, plateau, slow-state fraction)."""
+        self.animal_report.setPlainText(text)
 
     def show_message(self, text: str) -> None:
         self.message.setText(text)

@@ -69,11 +69,14 @@ def test_background_sync_and_the_lab_view(qtbot, store, lab_url, tmp_path):
     view.url_saved.emit(lab_url)  # "Save for this PC": written to the settings file, then a sync starts
     assert lab_url_in(tmp_path / "settings.toml") == lab_url
     qtbot.waitUntil(lambda: link.sync_process is None and link.label.text().startswith("lab: synced"),
-                    timeout=60_000)
+                    timeout=120_000)
     assert link.label.text().endswith(", 0 waiting")
     link.read_lab()
-    qtbot.waitUntil(lambda: view.pcs.rowCount() == 1, timeout=60_000)
+    qtbot.waitUntil(lambda: view.pcs.rowCount() == 1, timeout=120_000)
     assert view.animals.item(0, 0).text() == "alder" and view.pcs.item(0, 4).text() == "1"
+    view.animals.cellDoubleClicked.emit(0, 0)
+    qtbot.waitUntil(lambda: "alder:" in view.animal_report.toPlainText(), timeout=120_000)
+    assert "2 sessions" in view.animal_report.toPlainText()
     SHOTS.mkdir(exist_ok=True)
     view.grab().save(str(SHOTS / "lab-view.png"))
     window.grab().save(str(SHOTS / "lab-status.png"))
