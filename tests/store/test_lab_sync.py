@@ -23,7 +23,9 @@ from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
 from monitor.store import lab_read, lab_schema, lab_sync
 from monitor.store.db import open_store
+from monitor.store.care_log import add_supplement, add_weighing
 from monitor.store.decisions import append_decision
+from monitor.store.records import check_in, check_out
 from monitor.core.decision_log import Decision
 from monitor.store.reporting import report
 
@@ -58,6 +60,10 @@ def stores(tmp_path_factory) -> dict[str, Path]:
     for reason in ("not yet: plateau just reached", "still waiting"):
         append_decision(conn, Decision(decision="deferred", animal="alder", operator="kim", reason=reason,
                                        time="2026-02-10T10:00:00+01:00"))
+    session, _ = check_in(conn, animal="birch", rig="box-02", operator="kim", protocol_id=None, weight_before_g=301.5)
+    check_out(conn, session)
+    add_weighing(conn, "alder", at="2026-02-10T09:00:00+01:00", grams=298.0, by="kim")
+    add_supplement(conn, "alder", at="2026-02-10T17:00:00+01:00", ml=2.5, by="kim")
     conn.execute("COMMIT")
     conn.close()
     return dbs
@@ -112,7 +118,7 @@ def test_two_pcs_synced_then_resynced_change_nothing(pcs, lab_url):
         for table in ("events", "trials"):
             assert lab_count(lab_url, f"SELECT count(*) FROM {table} WHERE pc_id = %s", number) == \
                 local_count(pcs[pc], f"SELECT count(*) FROM {table}")
-        for table in ("sessions", "decisions", "trial_builds", "animals"):
+        for table in ("sessions", "decisions", "trial_builds", "animals", "care_log", "checkins", "protocols"):
             assert lab_count(lab_url, "SELECT count(*) FROM records WHERE pc_id = %s AND tbl = %s", number, table) \
                 == local_count(pcs[pc], f"SELECT count(*) FROM {table}")
     total = lab_count(lab_url, "SELECT count(*) FROM events")
@@ -153,6 +159,38 @@ def test_a_changed_row_is_sent_again_and_the_lab_report_follows(pcs, lab_url):
     assert result.sent["sessions"] == 1 and result.total == 1
     lab = lab_read.report(lab_url, "cedar")
     assert lab == local and lab["animals"][0]["sessions"][1]["excluded"] is True
+
+
+def test_a_sync_while_the_store_is_being_written_sends_every_row_once(pcs, lab_url):
+    """Rows keep arriving (as from the window's writer) while a sync runs; a second sync catches the rest."""
+    import threading
+
+    lab_schema.upgrade(lab_url)
+    stop = threading.Event()
+
+    def record() -> None:
+        writer = sqlite3.connect(pcs["pc2"], isolation_level=None, timeout=30)
+        while not stop.is_set():
+            writer.execute("BEGIN IMMEDIATE")
+            writer.execute("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
+                           "SELECT session_id, segment, line, t_us, raw_time, code, value, wall FROM events "
+                           "WHERE rowid <= 200")
+            writer.execute("COMMIT")
+        writer.close()
+
+    before = local_count(pcs["pc2"], "SELECT count(*) FROM events")
+    thread = threading.Thread(target=record)
+    thread.start()
+    try:
+        do_sync(pcs["pc2"], lab_url, "pc2", chunk_rows=2000)
+    finally:
+        stop.set()
+        thread.join()
+    do_sync(pcs["pc2"], lab_url, "pc2")
+    local = local_count(pcs["pc2"], "SELECT count(*) FROM events")
+    assert local > before and lab_count(lab_url, "SELECT count(*) FROM events") == local
+    assert lab_count(lab_url, "SELECT count(DISTINCT rid) FROM events") == local
+    assert lab_count(lab_url, "SELECT max(rid) FROM events") == local_count(pcs["pc2"], "SELECT max(rowid) FROM events")
 
 
 def test_kill_9_mid_sync_then_resume_sends_each_event_once(pcs, lab_url):
@@ -281,8 +319,10 @@ def test_entries_are_insert_only_on_the_server_and_tampering_is_found(pcs, lab_u
     do_sync(pcs["pc2"], lab_url, "pc2")
     with psycopg.connect(lab_url) as pg:
         for statement in ("UPDATE records SET data = jsonb_set(data, '{reason}', '\"ready\"') WHERE tbl = 'decisions'",
-                          "DELETE FROM records WHERE tbl = 'decisions'"):
-            with pytest.raises(psycopg.errors.RaiseException, match="insert-only"):
+                          "DELETE FROM records WHERE tbl = 'decisions'",
+                          "UPDATE records SET data = jsonb_set(data, '{amount}', '5') WHERE tbl = 'care_log'",
+                          "DELETE FROM records WHERE tbl = 'care_log'", "TRUNCATE records"):
+            with pytest.raises(psycopg.errors.RaiseException, match="insert-only"):  # PostgreSQL's trigger
                 pg.execute(statement)
             pg.rollback()
     assert rigside("log", "verify", "--lab", lab_url) == 0
