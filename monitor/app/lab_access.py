@@ -3,8 +3,9 @@
 Rule: `rigside lab init` and `rigside sync` take the URL from `--lab`, else
 $RIGSIDE_LAB, else `[lab] url` in the settings file (monitor.app.settings);
 readers (`report`, `export`, `log verify`) use the lab only when `--lab` is
-given. A server that does not answer is a runtime fault (`Fault`: one line
-on stderr, exit 1). A lab not set up, a malformed URL or data the
+given. A server that does not answer, or fails a statement (any psycopg
+error that reaches here), is a runtime fault (`Fault`: one line on stderr,
+exit 1). A lab not set up, a malformed URL or data the
 lab refuses is bad input: a `UsageError` naming `--lab` (exit 2).
 """
 
@@ -41,7 +42,7 @@ def resolve_lab(given: str | None, settings: Path | None = None) -> str:
 
 
 def lab_call(work: Callable[[], T]) -> T:
-    """`work()`, with an unreachable lab as a Fault and other lab faults as a UsageError naming --lab."""
+    """`work()`, with an unreachable or failing lab as a Fault and other lab faults as a UsageError naming --lab."""
     from monitor.store.lab_schema import LabError, LabUnreachable
 
     try:
@@ -50,3 +51,7 @@ def lab_call(work: Callable[[], T]) -> T:
         raise Fault(str(exc)) from None
     except LabError as exc:
         raise UsageError(f"--lab: {exc}") from None
+    except Exception as exc:
+        if not type(exc).__module__.startswith("psycopg"):
+            raise
+        raise Fault(f"the lab database failed: {' '.join(str(exc).split())}") from None

@@ -43,7 +43,7 @@ def shown(url: str) -> str:
 def check_url(url: str) -> str:
     """The URL if it names a PostgreSQL database, else a LabError saying what is expected."""
     if not isinstance(url, str) or urlsplit(url).scheme not in ("postgresql", "postgres"):
-        raise LabError(f"expected a URL postgresql://user@host/database, got {url!r}")
+        raise LabError(f"expected a URL postgresql://user@host/database, got {shown(url) if isinstance(url, str) else url!r}")
     return url
 
 

@@ -84,6 +84,7 @@ def test_bad_input_is_one_line_and_exit_2(capsys, store, lab_url, tmp_path, monk
         (("sync", "--db", store, "--lab", lab_url), "run `rigside lab init --lab URL` once"),  # never initialised
         (("report", "--lab", lab_url), "no rigside lab schema"),
         (("log", "head", "--lab", lab_url), "only `log verify`"),
+        (("sync", "--db", tmp_path / "typo.sqlite3", "--lab", lab_url), "no such database"),
     ]
     bad = tmp_path / "bad.toml"
     bad.write_text("[lab]\nurl = 5\n", encoding="utf-8")
@@ -102,3 +103,15 @@ def test_an_unreachable_lab_is_exit_1_without_a_traceback(tmp_path, store):
                               text=True, timeout=120)
         assert done.returncode == 1, (args, done.stderr)
         assert done.stderr.count("\n") == 1 and "Traceback" not in done.stderr and "secret" not in done.stderr
+
+
+def test_a_statement_the_lab_refuses_is_one_line_and_exit_1(capsys, store, lab_url):
+    """Rows the lab already holds under a lost bookmark: PostgreSQL's primary key refuses them, in one line."""
+    import psycopg
+
+    assert run_cli(capsys, "lab", "init", "--lab", lab_url)[0] == 0
+    assert run_cli(capsys, "sync", "--db", store, "--lab", lab_url)[0] == 0
+    with psycopg.connect(lab_url) as pg:
+        pg.execute("UPDATE bookmarks SET last_rowid = 0 WHERE tbl = 'events'")
+    code, _, err = run_cli(capsys, "sync", "--db", store, "--lab", lab_url)
+    assert code == 1 and err.count("\n") == 1 and "duplicate key" in err, err

@@ -4,7 +4,8 @@ Rule: exactly once, safe to re-run, resumable after a kill or a dropped
 connection (monitor.store.lab_sync). Prints one line: rows sent per kind and
 the time taken. The URL comes from `--lab`, $RIGSIDE_LAB or the settings
 file. An unreachable server: one line, exit 1, nothing lost (the next sync
-catches up). A lab that refuses the data (an animal name two PCs use without
+catches up), as is a statement the server fails. A missing --db file is
+refused (it would register an empty PC). A lab that refuses the data (an animal name two PCs use without
 lab ids telling them apart), or one not set up: one line, exit 2.
 """
 
@@ -36,8 +37,11 @@ def run(args: argparse.Namespace) -> int:
     url = resolve_lab(args.lab, args.settings)
     if args.chunk_rows is not None and args.chunk_rows < 1:
         raise UsageError(f"--chunk-rows: expected a positive number, got {args.chunk_rows}")
+    path = resolve_db(args.db)
+    if not path.is_file():  # a mistyped path must not register an empty PC in the lab
+        raise UsageError(f"--db: {path}: no such database")
     try:
-        conn = open_store(resolve_db(args.db))
+        conn = open_store(path)
     except StoreError as exc:
         raise UsageError(f"--db: {exc}") from None
 
