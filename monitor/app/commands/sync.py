@@ -3,10 +3,10 @@
 Rule: exactly once, safe to re-run, resumable after a kill or a dropped
 connection (monitor.store.lab_sync). Prints one line: rows sent per kind and
 the time taken. The URL comes from `--lab`, $RIGSIDE_LAB or the settings
-file. An unreachable server: one line, exit 1, nothing lost (the next sync
-catches up), as is a statement the server fails. A missing --db file is
-refused (it would register an empty PC). A lab that refuses the data (an animal name two PCs use without
-lab ids telling them apart), or one not set up: one line, exit 2.
+file. An unreachable server, or a statement the server fails: one line,
+exit 1, nothing lost (the next sync catches up). A missing --db file (it
+would register an empty PC), a lab not set up, or data the lab refuses (an
+animal name two PCs use without lab ids telling them apart): one line, exit 2.
 """
 
 from __future__ import annotations
