@@ -128,6 +128,29 @@ def test_two_pcs_synced_then_resynced_change_nothing(pcs, lab_url):
     assert lab_count(lab_url, "SELECT count(*) FROM events") == total
 
 
+def test_two_pcs_syncing_at_the_same_time(pcs, lab_url):
+    from concurrent.futures import ThreadPoolExecutor
+
+    lab_schema.upgrade(lab_url)
+    with ThreadPoolExecutor(2) as pool:
+        results = list(pool.map(lambda pc: do_sync(pcs[pc], lab_url, pc, chunk_rows=3000), ("pc1", "pc2")))
+    assert sorted(r.pc_number for r in results) == [1, 2]
+    for result, pc in zip(results, ("pc1", "pc2")):
+        assert lab_count(lab_url, "SELECT count(*) FROM events WHERE pc_id = %s", result.pc_number) == \
+            local_count(pcs[pc], "SELECT count(*) FROM events")
+    assert lab_count(lab_url, "SELECT count(*) FROM animals") == 4  # alder, birch, cedar, damson: once each
+
+
+def test_a_second_sync_of_the_same_pc_waits_its_turn(pcs, lab_url):
+    lab_schema.upgrade(lab_url)
+    do_sync(pcs["pc2"], lab_url, "pc2")
+    with psycopg.connect(lab_url, autocommit=True) as other:  # as if another sync of pc2 were running
+        other.execute("SELECT pg_advisory_lock(%s, 1)", (0x52534431,))
+        with pytest.raises(lab_schema.LabError, match="another sync of pc2"):
+            do_sync(pcs["pc2"], lab_url, "pc2")
+    assert do_sync(pcs["pc2"], lab_url, "pc2").total == 0
+
+
 def test_one_more_session_sends_only_its_rows(pcs, lab_url, tmp_path):
     lab_schema.upgrade(lab_url)
     do_sync(pcs["pc2"], lab_url, "pc2")
