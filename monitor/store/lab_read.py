@@ -262,6 +262,27 @@ def scratch_store(directory: str) -> sqlite3.Connection:
     return open_store(Path(directory) / "lab-copy.sqlite3", synchronous="OFF")
 
 
+def copy_to(url: str, path: Path, animal: str | None = None) -> list[str]:
+    """A local store file at `path` (which must not exist) holding the lab's animals (or one), events and all;
+    written under a temporary name and renamed when complete. Returns the animals copied."""
+    import os
+
+    with Lab(url) as lab:
+        chosen = [a for a in lab.animals() if animal is None or a.shown == animal]
+        if animal is not None and not chosen:
+            raise LabError(f"no animal {animal!r} in the lab")
+        with tempfile.TemporaryDirectory(prefix="rigside-lab-", dir=path.parent) as directory:
+            out = scratch_store(directory)
+            try:
+                lab.copy_animals(out, chosen, events="all")
+                out.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                out.execute("PRAGMA journal_mode = DELETE")
+            finally:
+                out.close()
+            os.replace(Path(directory) / "lab-copy.sqlite3", path)
+    return [a.shown for a in chosen]
+
+
 def report(url: str, animal: str | None = None) -> dict[str, Any]:
     """CONTRACTS.md §5 for the lab: one animal (its shown name) or every lab animal."""
     from monitor.store.reporting import animal_entry

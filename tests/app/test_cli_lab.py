@@ -61,6 +61,15 @@ def test_init_sync_show_status_and_report(capsys, store, lab_url, tmp_path, monk
     assert code == 0 and json.loads(out) == local
     code, _, err = run_cli(capsys, "report", "--lab", lab_url, "--animal", "nobody")
     assert code == 2 and err.count("\n") == 1 and "no animal 'nobody'" in err
+    copy = tmp_path / "lab-copy.sqlite3"
+    code, out, _ = run_cli(capsys, "lab", "copy", "--lab", lab_url, "--to", copy)
+    assert code == 0 and "copied 1 animals" in out
+    assert json.loads(run_cli(capsys, "report", "--db", copy, "--json")[1]) == local  # any local command reads it
+    assert run_cli(capsys, "export", "events", "--db", copy, "--csv", tmp_path / "copy.csv")[0] == 0
+    assert run_cli(capsys, "export", "events", "--db", store, "--csv", tmp_path / "local.csv")[0] == 0
+    assert (tmp_path / "copy.csv").read_bytes() == (tmp_path / "local.csv").read_bytes()
+    code, _, err = run_cli(capsys, "lab", "copy", "--lab", lab_url, "--to", copy)
+    assert code == 2 and "nothing is overwritten" in err
 
 
 def test_the_url_comes_from_the_environment_then_the_settings_file(capsys, store, lab_url, tmp_path, monkeypatch):
