@@ -39,7 +39,8 @@ def status_text(state: dict[str, Any] | None, running: bool, url: str | None) ->
     if state.get("unreachable_since"):
         return f"lab: unreachable since {_clock(state['unreachable_since'])}, {waiting}"
     if state.get("last_error"):
-        return f"lab: not synced ({state['last_error']}), {waiting}"
+        why = state["last_error"] if len(state["last_error"]) <= 80 else state["last_error"][:79] + "…"
+        return f"lab: not synced ({why}), {waiting}"
     if state.get("last_sync_at"):
         return f"lab: synced {_clock(state['last_sync_at'])}, {waiting}"
     return f"lab: never synced, {waiting}"

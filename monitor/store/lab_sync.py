@@ -321,6 +321,9 @@ def sync(conn: sqlite3.Connection, url: str, *, pc_name: str | None = None, chun
         message = f"lab server {shown(url)}: connection lost during the sync ({' '.join(str(exc).split())})"
         _note_unreachable(conn, message)
         raise LabUnreachable(message) from None
+    except LabError as exc:  # refused or not set up: the server answered, the state says why
+        _write_state(conn, {"unreachable_since": None, "last_error": str(exc)})
+        raise
     result.seconds = time.monotonic() - began
     return result
 

@@ -24,6 +24,10 @@ def test_status_words():
     assert status_text(state, False, "postgresql://x/y") == "lab: unreachable since 2026-03-02 09:10 UTC, 12 waiting"
     state.update(unreachable_since=None, last_error=None, rows_waiting=0)
     assert status_text(state, False, "postgresql://x/y") == "lab: synced 2026-03-02 08:00 UTC, 0 waiting"
+    state.update(last_error="animal 'alder' is on room-b and on room-a, and no lab id tells them apart: give it a "
+                            "lab id on each PC", rows_waiting=40)
+    text = status_text(state, False, "postgresql://x/y")
+    assert text.startswith("lab: not synced (animal 'alder' is on room-b") and text.endswith("…), 40 waiting")
 
 
 def test_the_settings_file_keeps_everything_else(tmp_path, monkeypatch):

@@ -308,6 +308,9 @@ def test_same_name_on_two_pcs_is_refused_until_lab_ids_tell_them_apart(pcs, lab_
         do_sync(pcs["pc3"], lab_url, "room-b")
     assert "'alder'" in str(refused.value) and "room-a" in str(refused.value) and "room-b" in str(refused.value)
     assert lab_count(lab_url, "SELECT count(*) FROM records WHERE pc_id = 2") == 0  # nothing of room-b was taken
+    conn = open_store(pcs["pc3"])
+    assert "room-a" in lab_sync.sync_status(conn)["last_error"]  # what the window's status bar says
+    conn.close()
     set_lab_id(pcs["pc1"], "alder", "RT-101")
     set_lab_id(pcs["pc3"], "alder", "RT-205")
     do_sync(pcs["pc1"], lab_url, "room-a")
