@@ -12,9 +12,10 @@ animal name two PCs use without lab ids telling them apart): one line, exit 2.
 from __future__ import annotations
 
 import argparse
+import sqlite3
 import sys
 
-from monitor.app.errors import UsageError
+from monitor.app.errors import Fault, UsageError
 from monitor.app.lab_access import add_lab_argument, lab_call, resolve_lab
 from monitor.app.paths import add_db_argument, resolve_db
 from monitor.app.settings import add_settings_argument
@@ -56,5 +57,7 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         return lab_call(work)
+    except sqlite3.OperationalError as exc:  # the local store stayed locked past its busy timeout
+        raise Fault(f"--db: {path}: {exc}; nothing was lost, sync again later") from None
     finally:
         conn.close()
