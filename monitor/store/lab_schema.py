@@ -59,13 +59,22 @@ def lab_driver():
 
 
 def connect(url: str):
-    """A psycopg connection to the lab (not autocommit), or LabUnreachable."""
+    """A psycopg connection to the lab (not autocommit, TCP keepalives on both ends), or LabUnreachable."""
     psycopg = lab_driver()
     try:
-        return psycopg.connect(check_url(url), connect_timeout=CONNECT_TIMEOUT_S)
+        conn = psycopg.connect(check_url(url), connect_timeout=CONNECT_TIMEOUT_S, keepalives=1,
+                               keepalives_idle=30, keepalives_interval=10, keepalives_count=3)
     except psycopg.OperationalError as exc:
         reason = " ".join(str(exc).split()) or type(exc).__name__
         raise LabUnreachable(f"lab server {shown(url)} unreachable: {reason}") from None
+    try:  # the server, too, lets go of a client the network lost within about a minute
+        for name, value in (("idle", 30), ("interval", 10), ("count", 3)):
+            conn.execute(f"SET tcp_keepalives_{name} = {value}")
+        conn.commit()
+        return conn
+    except psycopg.OperationalError as exc:
+        conn.close()
+        raise LabUnreachable(f"lab server {shown(url)}: {' '.join(str(exc).split())}") from None
 
 
 def _script():
