@@ -124,3 +124,22 @@ def test_a_statement_the_lab_refuses_is_one_line_and_exit_1(capsys, store, lab_u
         pg.execute("UPDATE bookmarks SET last_rowid = 0 WHERE tbl = 'events'")
     code, _, err = run_cli(capsys, "sync", "--db", store, "--lab", lab_url)
     assert code == 1 and err.count("\n") == 1 and "duplicate key" in err, err
+
+
+def test_nwb_from_the_lab(capsys, store, lab_url, tmp_path):
+    pytest.importorskip("pynwb")
+    from pynwb import NWBHDF5IO  # reference: pynwb reads the files back
+
+    assert run_cli(capsys, "lab", "init", "--lab", lab_url)[0] == 0
+    assert run_cli(capsys, "sync", "--db", store, "--lab", lab_url)[0] == 0
+    code, out, err = run_cli(capsys, "export", "--nwb", tmp_path / "lab-nwb", "--lab", lab_url)
+    assert code == 0 and "exported 2 sessions" in out, err
+    assert run_cli(capsys, "export", "--nwb", tmp_path / "local-nwb", "--db", store)[0] == 0
+    lab_files = sorted(p.name for p in (tmp_path / "lab-nwb").iterdir())
+    assert lab_files == sorted(p.name for p in (tmp_path / "local-nwb").iterdir())
+    for name in lab_files:
+        with NWBHDF5IO(str(tmp_path / "lab-nwb" / name), "r") as lab_io, \
+                NWBHDF5IO(str(tmp_path / "local-nwb" / name), "r") as local_io:
+            lab_nwb, local_nwb = lab_io.read(), local_io.read()
+            assert len(lab_nwb.trials) == len(local_nwb.trials) > 0
+            assert lab_nwb.subject.subject_id == local_nwb.subject.subject_id

@@ -10,10 +10,10 @@ never holds a whole table in memory and never blocks recording. A cell that
 begins with = + - @ (or a tab or carriage return) and is not a number gets a
 leading apostrophe, so a spreadsheet shows it instead of running it. NWB:
 one file per session (monitor.store.nwb_export; needs the `nwb` extra), a
-progress line per file on stderr. `--lab URL` exports events or trials from
-the lab database (monitor.store.lab_read: a scratch copy of every PC's rows,
-exported by the same code; session ids of PCs after the first are shifted by
-PC number x 10^9).
+progress line per file on stderr. `--lab URL` exports events, trials or NWB
+from the lab database (monitor.store.lab_read: a scratch copy of every PC's
+rows, exported by the same code; session ids of PCs after the first are
+shifted by PC number x 10^9).
 """
 
 from __future__ import annotations
@@ -63,7 +63,7 @@ def run(args: argparse.Namespace) -> int:
     if args.nwb is not None:
         if args.what is not None or args.csv is not None:
             raise UsageError("--nwb: exports everything; give it without events/trials and --csv")
-        return _export_nwb(args)
+        return _export_lab(args) if args.lab is not None else _export_nwb(args)
     if args.what is None:
         raise UsageError("what: say what to export: events or trials (with --csv FILE), or --nwb DIR")
     if args.csv is None:
@@ -95,7 +95,10 @@ def _export_lab(args: argparse.Namespace) -> int:
 
     from monitor.store.lab_read import with_copy
     with tempfile.TemporaryDirectory(prefix="rigside-lab-") as directory:
-        conn = lab_call(lambda: with_copy(args.lab, directory, events="all" if args.what == "events" else "unbuilt"))
+        conn = lab_call(lambda: with_copy(args.lab, directory, events="unbuilt" if args.what == "trials" else "all"))
+        if args.nwb is not None:
+            conn.close()
+            return _export_nwb(args, Path(directory) / "lab-copy.sqlite3")
         try:
             rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
         except OSError as exc:
@@ -106,16 +109,18 @@ def _export_lab(args: argparse.Namespace) -> int:
     return 0
 
 
-def _export_nwb(args: argparse.Namespace) -> int:
+def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
+    """NWB files from the store at --db, or from `copy` (the lab's rows in a scratch store)."""
     import sys
 
     try:
         import pynwb  # noqa: F401 - checked before anything is written
     except ImportError:
         raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
+    from monitor.store.db import open_store
     from monitor.store.nwb_export import export_nwb
 
-    conn = _open(args)
+    conn = _open(args) if copy is None else open_store(copy, readonly=True)
     try:
         paths = export_nwb(conn, args.nwb, lambda i, n, p: print(f"[{i}/{n}] {p.name}", file=sys.stderr))
     except OSError as exc:
