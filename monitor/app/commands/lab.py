@@ -5,8 +5,8 @@ schema) and upgrades an older one (monitor.store.lab_schema, Alembic); it is
 safe to run again. `show` is the read-only view of the lab: every PC, its
 rigs and animals, its last sync; `--json` prints it as a document. `copy
 --to FILE [--animal NAME]` writes a local store holding the lab's animals (or
-one), events and all, for any local command (the window, NWB export, the
-care sheet); an existing FILE is never overwritten. `status`
+one), events and all, for any local command (report, the care sheet, ...);
+an existing FILE is never overwritten. `status`
 reads only this PC's store: the last sync, rows waiting, and since when the
 server has been unreachable. Faults as in monitor.app.lab_access.
 """
