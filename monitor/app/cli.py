@@ -19,7 +19,7 @@ import os
 import sys
 from typing import Sequence
 
-from monitor.app.errors import UsageError
+from monitor.app.errors import Fault, UsageError
 
 COMMANDS: dict[str, tuple[str, str]] = {
     "window": ("monitor.app.commands.window", "the window for this PC's rigs (also plain `rigside`)"),
@@ -34,6 +34,8 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "animal": ("monitor.app.commands.animal", "subject records: add, edit, retire, list animals (changes logged)"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
     "backup": ("monitor.app.commands.backup", "a consistent copy of the database, also while recording runs"),
+    "lab": ("monitor.app.commands.lab", "the lab database: create or upgrade it, show what it holds, this PC's sync"),
+    "sync": ("monitor.app.commands.sync", "push everything new in this PC's store to the lab database"),
 }
 
 
@@ -88,6 +90,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         text = str(exc).replace("\r", " ").replace("\n", " ")  # one line, whatever a file or library said
         sys.stderr.write(f"rigside {args.command}: error: {text}\n")
         return 2
+    except Fault as exc:
+        sys.stderr.write(f"rigside {args.command}: {exc}\n")
+        return 1
     except KeyboardInterrupt:
         return 130
     except BrokenPipeError:

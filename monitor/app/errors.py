@@ -8,3 +8,7 @@ a bug or a fault and keeps its traceback.
 
 class UsageError(Exception):
     """Bad input: the message names the bad argument or file and what to fix."""
+
+
+class Fault(Exception):
+    """A runtime fault outside the input (e.g. a server that does not answer): one line, exit 1."""

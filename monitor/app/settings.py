@@ -56,6 +56,68 @@ def care_config(path: Path | None) -> CareConfig:
         raise ValueError(str(exc)) from None
 
 
+LAB_ENV = "RIGSIDE_LAB"
+
+
+def lab_url(given: str | None, settings: Path | None = None) -> str | None:
+    """The lab database's URL: `--lab`, else $RIGSIDE_LAB, else `[lab] url` of the settings file, else None.
+
+    A settings file that cannot be read, or whose `[lab] url` is not text, is a ValueError naming it.
+    """
+    import os
+
+    if given:
+        return given
+    if os.environ.get(LAB_ENV):
+        return os.environ[LAB_ENV]
+    path = settings_path(settings)
+    if path is None:
+        return None
+    import tomllib
+
+    from drivers.config import ConfigError, TomlFile
+    try:
+        doc = TomlFile(Path(path).read_text(encoding="utf-8"), str(path))
+    except OSError as exc:
+        raise ValueError(f"cannot read {path} ({exc.strerror or exc})") from None
+    except (ConfigError, tomllib.TOMLDecodeError) as exc:
+        raise ValueError(str(exc)) from None
+    url = doc.data.get("lab", {}).get("url")
+    if url is not None and not isinstance(url, str):
+        raise ValueError(str(doc.error("lab", "url", f"expected the lab's URL as text, got {url!r}")))
+    return url or None
+
+
+def set_lab_url(path: Path, url: str) -> None:
+    """Write `[lab] url` into the settings file (made if absent), the rest of the file left as it was.
+
+    An empty url removes the line. The new text is checked as TOML before it replaces the file."""
+    import json
+    import os
+    import re
+    import tomllib
+
+    text = path.read_text(encoding="utf-8") if path.is_file() else ""
+    lines = text.splitlines()
+    entry = [f"url = {json.dumps(url)}"] if url else []  # a JSON string is a TOML basic string
+    header = next((i for i, line in enumerate(lines) if re.match(r"^\s*\[\s*lab\s*\]\s*(#.*)?$", line)), None)
+    if header is None:
+        lines += ([""] if lines else []) + (["[lab]", *entry] if entry else [])
+    else:
+        end = next((i for i in range(header + 1, len(lines)) if re.match(r"^\s*\[", lines[i])), len(lines))
+        found = next((i for i in range(header + 1, end) if re.match(r"^\s*url\s*=", lines[i])), None)
+        if found is None:
+            lines[header + 1:header + 1] = entry
+        else:
+            lines[found:found + 1] = entry
+    new = "\n".join(lines) + "\n"
+    tomllib.loads(new)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    scratch = path.with_name(path.name + ".new")
+    scratch.write_text(new, encoding="utf-8")
+    os.replace(scratch, path)
+
+
 EXPORT_KEYS = {"institution": str, "lab": str, "experiment_description": str, "keywords": list}
 
 

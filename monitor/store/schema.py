@@ -39,6 +39,9 @@ Care chain: care_log entries gain `replaces`/`action` (a void or a
 correction is a new entry), `reason`, `confirmed`, and a hash chain
 (`prev_hash`, `hash`, monitor.core.care.chain); triggers refuse UPDATE and
 DELETE, like the decisions.
+Lab sync: lab_sync (this PC's lab identity and the last sync's state, key ->
+value) and lab_bookmarks (the lab's bookmarks as last seen, for "rows
+waiting" while the server is away); monitor.store.lab_sync writes both.
 """
 
 from __future__ import annotations
@@ -398,6 +401,17 @@ _CARE_CHAIN = (
         BEGIN SELECT RAISE(ABORT, '{_CARE_NO_CHANGE}'); END""",
 )
 
+_LAB_SYNC = (
+    """CREATE TABLE lab_sync (
+        key TEXT PRIMARY KEY,           -- pc_uuid, pc_name, last_sync_at, unreachable_since, last_error
+        value TEXT NOT NULL
+    )""",
+    """CREATE TABLE lab_bookmarks (
+        tbl TEXT PRIMARY KEY,           -- a table synced by rowid (events, decisions, care_log, ...)
+        last_rowid INTEGER NOT NULL     -- the lab holds every row up to here (as of the last sync)
+    )""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
@@ -407,6 +421,7 @@ MIGRATIONS: tuple[Migration, ...] = (
               _SUBJECTS),
     Migration("source locks: one recorder per source", _SOURCE_LOCKS),
     Migration("care log: void and correct, confirmations, hash chain, append-only", _CARE_CHAIN),
+    Migration("lab sync: this PC's lab identity and bookmarks", _LAB_SYNC),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

@@ -16,7 +16,10 @@ apostrophe, so a spreadsheet shows it instead of running it. NWB: one file
 per session (monitor.store.nwb_export; needs the `nwb` extra), a progress
 line per file and a warning line per animal with an incomplete subject
 record on stderr; sessions that fail are named in one error line (exit 1)
-after the others are written.
+after the others are written. `--lab URL` exports events, trials or NWB
+from the lab database (monitor.store.lab_read: a scratch copy of every PC's
+rows, exported by the same code; session ids of PCs after the first are
+shifted by PC number x 10^9).
 """
 
 from __future__ import annotations
@@ -27,6 +30,7 @@ import re
 from pathlib import Path
 
 from monitor.app.errors import UsageError
+from monitor.app.lab_access import add_lab_argument, lab_call
 from monitor.app.paths import add_db_argument, resolve_db
 from monitor.app.settings import add_settings_argument, export_settings, settings_path
 
@@ -62,17 +66,20 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--csv", type=Path, help="CSV file to write")
     parser.add_argument("--nwb", type=Path, help="directory for NWB files")
     add_settings_argument(parser)
+    add_lab_argument(parser, reader=True)
 
 
 def run(args: argparse.Namespace) -> int:
     if args.nwb is not None:
         if args.what is not None or args.csv is not None:
             raise UsageError("--nwb: exports everything; give it without events/trials and --csv")
-        return _export_nwb(args)
+        return _export_lab(args) if args.lab is not None else _export_nwb(args)
     if args.what is None:
         raise UsageError("what: say what to export: events or trials (with --csv FILE), or --nwb DIR")
     if args.csv is None:
         raise UsageError("--csv: give the CSV file to write")
+    if args.lab is not None:
+        return _export_lab(args)
     conn = _open(args)
     try:
         rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
@@ -93,20 +100,42 @@ def _open(args: argparse.Namespace):
         raise UsageError(f"--db: {exc}") from None
 
 
-def _export_nwb(args: argparse.Namespace) -> int:
+def _export_lab(args: argparse.Namespace) -> int:
+    import tempfile
+
+    from monitor.store.lab_read import with_copy
+    with tempfile.TemporaryDirectory(prefix="rigside-lab-") as directory:
+        # every event: the trials CSV counts session time from the first event (monitor.store.session_time)
+        conn = lab_call(lambda: with_copy(args.lab, directory, events="all"))
+        if args.nwb is not None:
+            conn.close()
+            return _export_nwb(args, Path(directory) / "lab-copy.sqlite3")
+        try:
+            rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
+        except OSError as exc:
+            raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
+        finally:
+            conn.close()
+    print(f"exported {rows} {args.what} from the lab to {args.csv}")
+    return 0
+
+
+def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
+    """NWB files from the store at --db, or from `copy` (the lab's rows in a scratch store)."""
     import sys
 
     try:
         import pynwb  # noqa: F401 - checked before anything is written
     except ImportError:
         raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
+    from monitor.store.db import open_store
     from monitor.store.nwb_export import export_nwb
 
     try:
         settings = export_settings(settings_path(args.settings))
     except ValueError as exc:
         raise UsageError(f"--settings: {exc}") from None
-    conn = _open(args)
+    conn = _open(args) if copy is None else open_store(copy, readonly=True)
     try:
         result = export_nwb(conn, args.nwb, settings, lambda i, n, p: print(f"[{i}/{n}] {p.name}", file=sys.stderr))
     except OSError as exc:

@@ -11,6 +11,8 @@ rewritten log; keep them somewhere else (a lab notebook, an e-mail).
 `export --csv FILE` writes one row per entry (DECISION_CSV_COLUMNS, cells
 escaped as in every rigside CSV). `verify` first runs SQLite's quick_check
 over the whole file: a damaged database is refused (exit 2). Read-only.
+`verify --lab URL` checks every PC's chain in the lab database (a line per
+PC; exit 1 with one line naming every broken PC).
 """
 
 from __future__ import annotations
@@ -21,6 +23,7 @@ import sys
 from pathlib import Path
 
 from monitor.app.errors import UsageError
+from monitor.app.lab_access import add_lab_argument, lab_call
 from monitor.app.paths import add_db_argument
 
 
@@ -31,6 +34,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="verify: a head printed earlier by `rigside log head` (repeatable)")
     parser.add_argument("--csv", type=Path, help="export: the CSV file to write")
     parser.add_argument("--animal", help="export: only this animal's entries")
+    add_lab_argument(parser, reader=True)
 
 
 def _heads(values: list[str]):
@@ -55,6 +59,10 @@ def run(args: argparse.Namespace) -> int:
     heads = _heads(args.head)
     if args.action == "export" and args.csv is None:
         raise UsageError("--csv: give the CSV file to write")
+    if args.lab is not None:
+        if args.action != "verify" or heads:
+            raise UsageError("--lab: only `log verify` (without --head) reads the lab")
+        return _verify_lab(args.lab)
     conn = open_readonly(args.db, check=args.action == "verify")  # verify checks the whole file first
     try:
         if args.action == "verify":
@@ -84,4 +92,20 @@ def run(args: argparse.Namespace) -> int:
     except OSError as exc:
         raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
     print(f"exported {len(rows)} decisions to {args.csv}")
+    return 0
+
+
+def _verify_lab(url: str) -> int:
+    """Every PC's chain in the lab: one line each; exit 1 if any is broken."""
+    from monitor.store.lab_read import verify_chains
+
+    results = lab_call(lambda: list(verify_chains(url)))
+    broken = [f"{pc}: {result.message}" for pc, result in results if not result.ok]
+    if broken:
+        print(f"rigside log verify: BROKEN on {'; '.join(broken)}", file=sys.stderr)
+        return 1
+    for pc, result in results:
+        print(f"{pc}: {result.message}")
+    if not results:
+        print("the lab holds no PC's log yet")
     return 0

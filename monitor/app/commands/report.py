@@ -4,6 +4,8 @@ Rule: read-only and fast: stored trials and the cached consolidation fit,
 never a refit (monitor.store.reporting). An animal the store does not know is
 refused (one line, exit 2). Without `--json` a short table per animal is
 printed for a person; `--json` prints the contract's document on stdout.
+`--lab URL` reads the lab database instead (monitor.store.lab_read: the same
+report code over a copy of the animal's rows).
 """
 
 from __future__ import annotations
@@ -12,6 +14,7 @@ import argparse
 import json
 
 from monitor.app.errors import UsageError
+from monitor.app.lab_access import add_lab_argument, lab_call
 from monitor.app.paths import add_db_argument, resolve_db
 
 
@@ -19,6 +22,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser)
     parser.add_argument("--animal", help="only this animal (default: every animal)")
     parser.add_argument("--json", action="store_true", help="print the report as JSON")
+    add_lab_argument(parser, reader=True)
 
 
 def open_readonly(db, check: bool = False):
@@ -41,6 +45,10 @@ def known_animal(conn, name: str) -> None:
 def run(args: argparse.Namespace) -> int:
     from monitor.store.reporting import report
 
+    if args.lab is not None:
+        from monitor.store.lab_read import report as lab_report
+        document = lab_call(lambda: lab_report(args.lab, args.animal))
+        return _print(document, args.json)
     conn = open_readonly(args.db)
     try:
         if args.animal is not None:
@@ -48,7 +56,11 @@ def run(args: argparse.Namespace) -> int:
         document = report(conn, args.animal)
     finally:
         conn.close()
-    if args.json:
+    return _print(document, args.json)
+
+
+def _print(document: dict, as_json: bool) -> int:
+    if as_json:
         print(json.dumps(document, indent=1))
         return 0
     for entry in document["animals"]:

@@ -22,7 +22,7 @@ from pathlib import Path
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
-from monitor.app.settings import add_settings_argument, care_config, settings_path
+from monitor.app.settings import add_settings_argument, care_config, default_settings_path, lab_url, settings_path
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -53,6 +53,7 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError(f"--rigs: {rigs_path}: {exc}") from None
     try:
         care = care_config(settings_path(args.settings))      # the lab's [care] thresholds
+        lab = (args.settings or default_settings_path(), lab_url(None, args.settings))  # the lab database, if set
     except ValueError as exc:
         raise UsageError(f"--settings: {exc}") from None
     from monitor.app.first_run import display_problem
@@ -60,12 +61,14 @@ def run(args: argparse.Namespace) -> int:
     problem = display_problem(headless=False)
     if problem:
         raise UsageError(problem)
-    return open_window(resolve_db(args.db), rigs_path, specs, args.seconds, args.screenshot, care)
+    return open_window(resolve_db(args.db), rigs_path, specs, args.seconds, args.screenshot, care, lab=lab)
 
 
 def open_window(db_path: Path, rigs_path: Path, specs: list, seconds: float | None, screenshot: Path | None,
-                care=None) -> int:
-    """Build the window on the store and the rigs, run it until closed; the exit code."""
+                care=None, lab: tuple[Path, str | None] | None = None) -> int:
+    """Build the window on the store and the rigs, run it until closed; the exit code.
+
+    `lab`: (settings file, lab URL or None) for the background sync and the lab view."""
     from PySide6.QtCore import QCoreApplication, QEvent, QSettings, QTimer
     from PySide6.QtWidgets import QApplication
 
@@ -85,6 +88,10 @@ def open_window(db_path: Path, rigs_path: Path, specs: list, seconds: float | No
                         settings=QSettings("rigside", "rigside"), discover_devices=discover_devices,
                         protocols=lambda: protocols)
     controller.attach(window, care=care)
+    link = None
+    if lab is not None:
+        from monitor.app.lab_background import LabLink
+        link = LabLink(window, db_path, *lab)
     window.rig_added.connect(lambda setup: append_rig(rigs_path, setup))
     from monitor.store.source_locks import SourceBusy
 
@@ -110,6 +117,8 @@ def open_window(db_path: Path, rigs_path: Path, specs: list, seconds: float | No
     try:
         app.exec()
     finally:
+        if link is not None:
+            link.stop()
         stored = controller.close()
         window.deleteLater()
         QCoreApplication.sendPostedEvents(None, QEvent.Type.DeferredDelete)

@@ -1,0 +1,1 @@
+"""Alembic revisions of the lab database, one file per step, never edited once shipped."""
