@@ -10,6 +10,10 @@ _ = object()
 
 # -- used by a framework: numpy array flags, Qt overrides, signal handler arguments
 _.writeable
+down_revision  # monitor/store/lab_migrations: Alembic reads a revision file's module variables
+branch_labels
+depends_on
+_.itersize  # monitor/store/lab_read.py: psycopg's server-side cursor reads it
 CTRL_C_EVENT  # monitor/app/stopping.py: the table of wincon.h's console events, read whole
 CTRL_BREAK_EVENT
 _.sizeHint
@@ -38,6 +42,7 @@ difference
 correction_slope
 
 # -- still to wire into the program or remove
+head_revision  # monitor/store/lab_schema.py: Alembic's own head, checked against HEAD by the tests
 _._bits  # drivers/clock.py
 _.failure  # drivers/serial.py, drivers/tail.py
 _.opened_path  # drivers/serial.py

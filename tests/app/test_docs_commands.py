@@ -152,13 +152,15 @@ def demo_store(tmp_path_factory):
 def runnable() -> list[str]:
     """Concrete commands of RUN_AS_WRITTEN, imports first (the later lines use what they store).
 
-    A bare mention such as `rigside care` names a command in prose and is left to the --help check.
+    A bare mention such as `rigside care` names a command in prose and is left to the --help check, and
+    so is a line that reads a lab's own PostgreSQL server (`--lab URL`; the lab tests run those).
     """
     out = []
     for command in all_commands():
         path, _, _, placeholders = resolve(command)
         mention = shlex.split(command) == ["rigside", *path] and len(path) == 1
-        if path and path[0] in RUN_AS_WRITTEN and not placeholders and not mention:
+        lab = "--lab" in shlex.split(command)
+        if path and path[0] in RUN_AS_WRITTEN and not placeholders and not mention and not lab:
             out.append(command)
     return sorted(out, key=lambda c: (shlex.split(c)[1] != "import", c))
 

@@ -12,7 +12,6 @@ animal name two PCs use without lab ids telling them apart): one line, exit 2.
 from __future__ import annotations
 
 import argparse
-import sqlite3
 import sys
 
 from monitor.app.errors import Fault, UsageError
@@ -32,6 +31,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from monitor.store.connection import Busy
     from monitor.store.db import StoreError, open_store
     from monitor.store.lab_sync import CHUNK_ROWS, sync
 
@@ -57,7 +57,7 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         return lab_call(work)
-    except sqlite3.OperationalError as exc:  # the local store stayed locked past its busy timeout
+    except Busy as exc:  # the local store stayed locked past its busy timeout
         raise Fault(f"--db: {path}: {exc}; nothing was lost, sync again later") from None
     finally:
         conn.close()
