@@ -1,0 +1,109 @@
+"""Effects validated on simulated animals (mock_rig's manipulations): coverage, cohort trend, controls.
+
+The simulated truth is the hit rate each session's latent states predict
+(mock_rig.manipulations.expected_hit_rate); an effect's truth is the
+manipulated session's minus the mean of its baseline sessions'.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from mock_rig import scenario
+from mock_rig.learner import draw_params
+from mock_rig.manipulations import ManipulatedLearner, expected_hit_rate, finish, start
+from mock_rig.tasks import Session
+from monitor.core.effects import SessionTrials, animal_effect
+from monitor.core.effects_cohort import Point, group_table, trend
+from monitor.core.trials import Trial
+
+ANIMALS = 40
+PROTOCOL = replace(scenario.two_press_protocol(650), max_trials=300, max_minutes=30.0)
+
+
+def _session(learner: ManipulatedLearner, rng: np.random.Generator, index: int) -> tuple[SessionTrials, float]:
+    """One final-stage session as the box judged it (its outcome words), and its latent hit rate."""
+    box = Session(PROTOCOL, len(PROTOCOL.stages) - 1, learner, rng)
+    trials: list[Trial] = []
+    while (chunk := box.next_chunk()) is not None:
+        downs = [t for t, name, _ in chunk if name == "lever_down"]
+        words = [args[0] for _, name, args in chunk if name == "outcome"]
+        if not words:
+            continue
+        word = words[0]
+        timed = len(downs) >= 2 and word in ("hit", "miss", "premature")
+        trials.append(Trial(len(trials) + 1, downs[0] if downs else 0,
+                            (downs[1] - downs[0]) / 1000.0 if timed else math.nan, box.stage.target_ms,
+                            box.low_ms, box.high_ms, box.stage.name, word, word == "hit", "rig", word, 0))
+    truth = expected_hit_rate(learner.record, box.low_ms, box.high_ms, learner.params.naive_ms)
+    return SessionTrials(index, trials, (box.now - box.start_us) / 60e6), truth
+
+
+def _animal(seed: int, fraction: float, kind: str) -> tuple[float, float, object]:
+    """(slow fraction at the end of the last baseline session, true hit-rate effect, estimated effect)."""
+    rng = np.random.default_rng([seed, 23])
+    params = draw_params(rng)
+    learned = math.log(650 / params.naive_ms)
+    learner = ManipulatedLearner(params, rng, x_fast=(1 - fraction) * learned, x_slow=fraction * learned,
+                                 practice=20000)
+    sessions, truths = [], []
+    stage = 0.0
+    for index in range(1, 5):
+        learner.start_session(23.0)
+        start(learner, kind if index == 4 else None)
+        session, truth = _session(learner, rng, index)
+        finish(learner)
+        sessions.append(session)
+        truths.append(truth)
+        if index == 3:
+            stage = learner.consolidation()
+    effect = animal_effect(sessions[3], sessions[:3], seed=seed)
+    return stage, truths[3] - float(np.mean(truths[:3])), effect
+
+
+@pytest.fixture(scope="module")
+def tested() -> list[tuple[float, float, object]]:
+    return [_animal(k, 0.1 + 0.85 * k / (ANIMALS - 1), "inactivate_fast") for k in range(ANIMALS)]
+
+
+@pytest.fixture(scope="module")
+def controls() -> list[tuple[float, float, object]]:
+    return [_animal(1000 + k, 0.1 + 0.85 * k / (ANIMALS - 1), "vehicle") for k in range(ANIMALS)]
+
+
+def test_interval_covers_the_simulated_effect_in_most_animals(tested):
+    covered = 0
+    for _, truth, effect in tested:
+        e = effect.vs_baseline["hit_rate"]
+        covered += e.low <= truth <= e.high
+    # 95 % intervals: at least 90 % of the cohort covered (the acceptance line; binomial(40, 0.95) falls
+    # below 36 with probability ~0.05, so a correct interval passes this nearly always)
+    assert covered >= 0.9 * ANIMALS, f"{covered}/{ANIMALS} intervals cover the simulated effect"
+
+
+def test_the_effect_is_real_where_the_fast_state_carried_much(tested):
+    early = [effect for stage, _, effect in tested if stage < 0.7]
+    assert early and all(e.vs_baseline["hit_rate"].high < 0 for e in early)
+
+
+def test_cohort_trend_recovers_the_simulated_dependence(tested):
+    xs = [stage for stage, _, _ in tested]
+    estimated = [effect.vs_baseline["hit_rate"].effect for _, _, effect in tested]
+    true_line = trend(xs, [truth for _, truth, _ in tested])
+    fitted = trend(xs, estimated)
+    assert true_line is not None and fitted is not None
+    assert true_line.slope > 0 and fitted.slope_low > 0          # the sign: later, a smaller drop
+    assert fitted.slope_low <= true_line.slope <= fitted.slope_high  # the size, within the trend's interval
+
+
+def test_a_control_shows_no_effect_beyond_chance(controls):
+    beyond = sum(bool(effect.vs_baseline["hit_rate"].excludes_zero) for _, _, effect in controls)
+    # binomial(40, 0.05): P(X >= 7) ~ 0.004 (scipy.stats.binom.sf(6, 40, 0.05)); learning still moves a little
+    assert beyond <= 6, f"{beyond}/{ANIMALS} control intervals exclude 0"
+    rows = group_table([Point(f"a{i}", "vehicle", "control", s, None, None,
+                              e.vs_baseline["hit_rate"].effect, None, None) for i, (s, _, e) in enumerate(controls)])
+    assert len(rows) == 1 and rows[0].low <= 0 <= rows[0].high
