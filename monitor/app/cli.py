@@ -29,6 +29,8 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "assign": ("monitor.app.commands.assign", "draw an animal's group at random and record it; reveal a blinding key"),
     "log": ("monitor.app.commands.log", "check the decision log"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
+    "manipulation": ("monitor.app.commands.manipulation", "record, list or withdraw manipulations; unblind a cohort"),
+    "effects": ("monitor.app.commands.effects", "each manipulation's effect against the stage at which it was made"),
 }
 
 
