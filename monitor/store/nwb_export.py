@@ -10,7 +10,8 @@ value, clock segment, line and raw device counter. Times are seconds after
 `session_start_time` on the device clock: within a session, clock segments
 (board resets) continue from the last time seen, the same rule as the trial
 segmentation (monitor.core.trials). An excluded session is exported with its
-flag and reason in the session description and `notes`.
+flag and reason in the session description and `notes`. Manipulations in
+force get an intervals table (monitor.store.nwb_manipulations).
 """
 
 from __future__ import annotations
@@ -23,6 +24,7 @@ from typing import Callable, Iterable, Iterator
 
 from drivers.wire import Event
 from monitor.store.derive import session_events, stored_trials
+from monitor.store.nwb_manipulations import add_manipulations
 
 _SAFE = re.compile(r"[^A-Za-z0-9_.-]")
 TRIAL_FIELDS = (("interval_ms", "inter-press interval or hold time, ms (NaN when none)"),
@@ -126,6 +128,7 @@ def write_session(conn: sqlite3.Connection, session_id: int, out_dir: Path) -> P
                       stage=t.stage, segment=t.segment)
     if events:
         nwb.add_events_table(_events_table(events, shift_us))
+    add_manipulations(nwb, conn, session_id)
     path = out_dir / f"{_SAFE.sub('_', animal)}_session{session_id}.nwb"
     with NWBHDF5IO(str(path), "w") as io:
         io.write(nwb)

@@ -173,6 +173,8 @@ def test_list_verifies_the_chain_and_withdraw_appends(capsys, recorded, tmp_path
     db, _, _ = recorded
     code, out, _ = rigside(capsys, "manipulation", "list", "--db", db, "--json")
     assert code == 0 and json.loads(out)["chain"] == "ok" and len(json.loads(out)["entries"]) == 3
+    spare = tmp_path / "spare.sqlite3"          # withdraw on a copy: the other tests keep every entry
+    spare.write_bytes(Path(db).read_bytes())
     copy = tmp_path / "tampered.sqlite3"
     copy.write_bytes(Path(db).read_bytes())
     conn = sqlite3.connect(copy)
@@ -182,11 +184,31 @@ def test_list_verifies_the_chain_and_withdraw_appends(capsys, recorded, tmp_path
     conn.close()
     code, out, err = rigside(capsys, "manipulation", "list", "--db", copy)
     assert code == 1 and "entry 1" in err and len(err.strip().splitlines()) == 1
-    code, out, _ = rigside(capsys, "manipulation", "withdraw", "--seq", 2, "--operator", "kim", "--reason",
-                           "wrong day", "--db", copy)
-    assert code == 0 or code == 2   # the tampered copy still accepts an append; the chain check is list's job
     code, out, err = rigside(capsys, "manipulation", "withdraw", "--seq", 2, "--operator", "kim", "--reason",
-                             "wrong day", "--db", db)
+                             "wrong day", "--db", spare)
     assert code == 0, err
-    result = _effects(capsys, db)
+    result = _effects(capsys, spare)
     assert [r["role"] for r in result["manipulations"] if r["animal"] == "alder"] == ["test"]
+    code, out, err = rigside(capsys, "manipulation", "withdraw", "--seq", 4, "--operator", "kim", "--reason",
+                             "twice", "--db", spare)
+    assert code == 2 and "--seq" in err
+
+
+def test_nwb_carries_the_manipulations_as_an_intervals_table(capsys, recorded, tmp_path):
+    pynwb = pytest.importorskip("pynwb")
+    db, _, _ = recorded
+    conn = sqlite3.connect(db)
+    ids = [r[0] for r in conn.execute("SELECT id FROM sessions WHERE animal = 'alder' ORDER BY started_at")]
+    conn.close()
+    code, _, err = rigside(capsys, "export", "--db", db, "--nwb", tmp_path)
+    assert code == 0, err
+    with pynwb.NWBHDF5IO(str(tmp_path / f"alder_session{ids[9]}.nwb"), "r") as io:   # read back with pynwb
+        table = io.read().intervals["manipulations"].to_dataframe()
+        assert list(table["what"]) == ["muscimol M1"] and list(table["duration"]) == ["acute"]
+        assert table["group"].iloc[0].startswith("G-") and table["stage_session"].iloc[0] == 9
+        assert table["stop_time"].iloc[0] > 60
+    with pynwb.NWBHDF5IO(str(tmp_path / f"alder_session{ids[11]}.nwb"), "r") as io:
+        table = io.read().intervals["manipulations"].to_dataframe()
+        assert sorted(table["role"]) == ["control", "control session of"]
+    with pynwb.NWBHDF5IO(str(tmp_path / f"alder_session{ids[8]}.nwb"), "r") as io:
+        assert "manipulations" not in io.read().intervals
