@@ -272,24 +272,33 @@ def effects(conn: sqlite3.Connection, cohort: str | None = None) -> dict[str, An
         trends[measure] = {}
         for role in ("test", "control"):
             fitted = trend([p.x for p in points if p.role == role], [p.y for p in points if p.role == role])
-            trends[measure][role] = None if fitted is None else fitted.to_dict()
+            trends[measure][role] = None if fitted is None else {**fitted.to_dict(), "line": _line(fitted)}
         tables[measure] = [r.to_dict() for r in group_table(points)]
     return {"advisory": ADVISORY, "x": X_MEASURE, "manipulations": rows, "trend": trends, "groups": tables,
             "unblinded": sorted(c for c in cohorts if c in opened)}
 
 
+def _line(fitted) -> dict[str, list[float]]:
+    """The fitted line and its interval at x = 0, 0.05, ..., 1 (for the cohort plot)."""
+    grid = [i / 20 for i in range(21)]
+    fit, low, high = fitted.line(grid)
+    return {"x": grid, "fit": [float(v) for v in fit], "low": [float(v) for v in low], "high": [float(v) for v in high]}
+
+
 def cohort_points(rows: list[dict[str, Any]], measure: str) -> list:
-    """The cohort plot's points of one measure: x the slow-state fraction at the time, y the effect."""
+    """Points of one measure: x the slow-state fraction at the time (nan: not known), y the effect."""
     from monitor.core.effects_cohort import Point
 
     points = []
     for r in rows:
         est = ((r.get("effect") or {}).get("vs_baseline") or {}).get(measure) or {}
         stage = r["stage"]
-        if est.get("effect") is None or stage.get(X_MEASURE) is None:
+        if est.get("effect") is None:
             continue
-        points.append(Point(r["animal"], r["group"], r["role"], stage[X_MEASURE], stage.get("slow_low"),
-                            stage.get("slow_high"), est["effect"], est.get("low"), est.get("high")))
+        x = stage.get(X_MEASURE)
+        points.append(Point(r["animal"], r["group"], r["role"], float("nan") if x is None else x,
+                            stage.get("slow_low"), stage.get("slow_high"), est["effect"], est.get("low"),
+                            est.get("high")))
     return points
 
 
