@@ -307,6 +307,9 @@ class Controller(QObject):
 
         self.records = DecisionsAndCare(self, care)
         self.records.attach(window)
+        from monitor.app.effects_side import EffectsSide
+
+        EffectsSide(self).attach(window)
 
     def install_signal_handlers(self, app: QApplication) -> None:
         """SIGINT/SIGTERM: close cleanly (the 20 Hz timer lets Python run the handler promptly)."""

@@ -109,8 +109,12 @@ def assigned_group(conn: sqlite3.Connection, animal: str) -> tuple[str | None, s
 
 def record_manipulation(conn: sqlite3.Connection, *, animal: str, duration: str, role: str, what: str,
                         session: int, operator: str, reason: str, control_session: int | None = None,
-                        group: str | None = None, time: str | None = None) -> ManipulationEntry:
-    """Append a manipulation (caller holds BEGIN IMMEDIATE) and exclude its affected sessions."""
+                        group: str | None = None, time: str | None = None,
+                        refresh_report: bool = True) -> ManipulationEntry:
+    """Append a manipulation (caller holds BEGIN IMMEDIATE) and exclude its affected sessions.
+
+    `refresh_report` rebuilds the animal's cached report entry at once (the window leaves it to its next read).
+    """
     from monitor.store.manipulations import append_manipulation
     from monitor.store.records import exclude_session
     from monitor.store.reporting import refresh_cache
@@ -132,7 +136,8 @@ def record_manipulation(conn: sqlite3.Connection, *, animal: str, duration: str,
     for s in affected:
         if not s.get("excluded"):
             exclude_session(conn, s["session_id"], why, operator)
-    refresh_cache(conn, animal)          # the report reads the exclusions from its cache, not rebuilt on read
+    if refresh_report:
+        refresh_cache(conn, animal)      # else the report rebuilds the entry on its next read
     return logged
 
 

@@ -41,6 +41,8 @@ SHORTCUTS = {
     "decide": "Ctrl+D",
     "decisions": "Ctrl+Shift+D",
     "care": "Ctrl+J",
+    "manipulation": "Ctrl+M",
+    "effects": "Ctrl+Shift+E",
 }
 
 
@@ -61,6 +63,8 @@ class MainWindow(QMainWindow):
     decision_requested = Signal(str)       # animal ('' when no page is open): open the decision dialog
     history_requested = Signal(str)        # animal: show its logged decisions
     care_requested = Signal()              # open the care window (the day's water ledger)
+    manipulation_requested = Signal(str)   # animal ('' when no page is open): record a manipulation
+    effects_requested = Signal()           # open the cohort effects window
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
                  roster: Roster | None = None, discover_devices: Callable[[], Sequence[SerialDevice]] = tuple,
@@ -134,6 +138,9 @@ class MainWindow(QMainWindow):
         animals.addAction(self._action("decisions", "Decision &history…",
                                        lambda: self.history_requested.emit(self.current_animal())))
         animals.addAction(self._action("care", "&Care today…", self.care_requested.emit))
+        animals.addAction(self._action("manipulation", "Record a &manipulation…",
+                                       lambda: self.manipulation_requested.emit(self.current_animal())))
+        animals.addAction(self._action("effects", "Cohort &effects…", self.effects_requested.emit))
         alerts = self.menuBar().addMenu("A&lerts")
         alerts.addAction(self._action("acknowledge", "&Acknowledge", self.alert_panel.acknowledge_selected,
                                       "acknowledge"))
@@ -182,6 +189,7 @@ class MainWindow(QMainWindow):
             page.decision_requested.connect(self.decision_requested)
             page.history_requested.connect(self.history_requested)
             page.care_requested.connect(self.care_requested)
+            page.manipulation_requested.connect(self.manipulation_requested)
             self.pages[animal] = page
             self.tabs.addTab(page, animal)
             self.page_opened.emit(animal)
