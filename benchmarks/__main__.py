@@ -51,6 +51,7 @@ PLAN = (
     Plan("bench_refit", "refit at session end (30000 trials)", ("--maxiter=5",)),
     Plan("bench_memory", "memory growth, 16 rigs x 8 h accelerated"),
     Plan("bench_history", "simulator history"),
+    Plan("bench_effects", "effects on a simulated cohort"),
 )
 
 

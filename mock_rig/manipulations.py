@@ -166,3 +166,66 @@ def write_history(out: Path, animals: list, days: int, plans: dict[str, dict[int
                                                  "give, with the window in force at the session's end")
     out.joinpath("truth.json").write_text(json.dumps(truth, indent=1))
     return truth
+
+
+class BoxRecord(NamedTuple):
+    """One attempt as the box judged it (plain values; the analysis side makes its own records)."""
+
+    t_us: int
+    interval_ms: float  # nan when there is none
+    target_ms: float
+    window_low_ms: float
+    window_high_ms: float
+    stage: str
+    outcome: str  # hit | miss | premature | lone | omission
+
+
+class SimulatedSession(NamedTuple):
+    """A session's attempts, its length and the hit rate its latent states predict."""
+
+    records: list[BoxRecord]
+    minutes: float
+    expected_hit_rate: float | None
+
+
+def final_stage_session(learner: ManipulatedLearner, protocol, rng) -> SimulatedSession:
+    """One session of `protocol`'s final stage, run by the box without encoding bytes."""
+    from mock_rig.tasks import Session
+
+    box = Session(protocol, len(protocol.stages) - 1, learner, rng)
+    records: list[BoxRecord] = []
+    while (chunk := box.next_chunk()) is not None:
+        downs = [t for t, name, _ in chunk if name == "lever_down"]
+        words = [args[0] for _, name, args in chunk if name == "outcome"]
+        if not words:
+            continue
+        timed = len(downs) >= 2 and words[0] in ("hit", "miss", "premature")
+        records.append(BoxRecord(downs[0] if downs else 0, (downs[1] - downs[0]) / 1000.0 if timed else math.nan,
+                                 box.stage.target_ms, box.low_ms, box.high_ms, box.stage.name, str(words[0])))
+    expected = expected_hit_rate(learner.record, box.low_ms, box.high_ms, learner.params.naive_ms)
+    return SimulatedSession(records, (box.now - box.start_us) / 60e6, expected)
+
+
+def manipulated_animal(seed: int, fraction: float, kind: str, protocol, baseline: int = 3
+                       ) -> tuple[float, list[SimulatedSession]]:
+    """An animal at the plateau with `fraction` of its learned change in the slow state, trained `baseline`
+    daily final-stage sessions and then one session under `kind`; returns (the slow fraction at the end of
+    the last session before it, the sessions)."""
+    import numpy as np
+
+    from mock_rig.learner import draw_params
+
+    rng = np.random.default_rng([seed, 23])
+    params = draw_params(rng)
+    learned = math.log(protocol.final.target_ms / params.naive_ms)
+    learner = ManipulatedLearner(params, rng, x_fast=(1 - fraction) * learned, x_slow=fraction * learned,
+                                 practice=20000)
+    sessions, stage = [], 0.0
+    for index in range(1, baseline + 2):
+        learner.start_session(23.0)
+        start(learner, kind if index == baseline + 1 else None)
+        sessions.append(final_stage_session(learner, protocol, rng))
+        finish(learner)
+        if index == baseline:
+            stage = learner.consolidation()
+    return stage, sessions

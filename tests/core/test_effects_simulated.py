@@ -7,16 +7,13 @@ manipulated session's minus the mean of its baseline sessions'.
 
 from __future__ import annotations
 
-import math
 from dataclasses import replace
 
 import numpy as np
 import pytest
 
 from mock_rig import scenario
-from mock_rig.learner import draw_params
-from mock_rig.manipulations import ManipulatedLearner, expected_hit_rate, finish, start
-from mock_rig.tasks import Session
+from mock_rig.manipulations import manipulated_animal
 from monitor.core.effects import SessionTrials, animal_effect
 from monitor.core.effects_cohort import Point, group_table, trend
 from monitor.core.trials import Trial
@@ -25,42 +22,14 @@ ANIMALS = 40
 PROTOCOL = replace(scenario.two_press_protocol(650), max_trials=300, max_minutes=30.0)
 
 
-def _session(learner: ManipulatedLearner, rng: np.random.Generator, index: int) -> tuple[SessionTrials, float]:
-    """One final-stage session as the box judged it (its outcome words), and its latent hit rate."""
-    box = Session(PROTOCOL, len(PROTOCOL.stages) - 1, learner, rng)
-    trials: list[Trial] = []
-    while (chunk := box.next_chunk()) is not None:
-        downs = [t for t, name, _ in chunk if name == "lever_down"]
-        words = [args[0] for _, name, args in chunk if name == "outcome"]
-        if not words:
-            continue
-        word = words[0]
-        timed = len(downs) >= 2 and word in ("hit", "miss", "premature")
-        trials.append(Trial(len(trials) + 1, downs[0] if downs else 0,
-                            (downs[1] - downs[0]) / 1000.0 if timed else math.nan, box.stage.target_ms,
-                            box.low_ms, box.high_ms, box.stage.name, word, word == "hit", "rig", word, 0))
-    truth = expected_hit_rate(learner.record, box.low_ms, box.high_ms, learner.params.naive_ms)
-    return SessionTrials(index, trials, (box.now - box.start_us) / 60e6), truth
-
-
 def _animal(seed: int, fraction: float, kind: str) -> tuple[float, float, object]:
     """(slow fraction at the end of the last baseline session, true hit-rate effect, estimated effect)."""
-    rng = np.random.default_rng([seed, 23])
-    params = draw_params(rng)
-    learned = math.log(650 / params.naive_ms)
-    learner = ManipulatedLearner(params, rng, x_fast=(1 - fraction) * learned, x_slow=fraction * learned,
-                                 practice=20000)
-    sessions, truths = [], []
-    stage = 0.0
-    for index in range(1, 5):
-        learner.start_session(23.0)
-        start(learner, kind if index == 4 else None)
-        session, truth = _session(learner, rng, index)
-        finish(learner)
-        sessions.append(session)
-        truths.append(truth)
-        if index == 3:
-            stage = learner.consolidation()
+    stage, simulated = manipulated_animal(seed, fraction, kind, PROTOCOL)
+    sessions = [SessionTrials(i, [Trial(k, r.t_us, r.interval_ms, r.target_ms, r.window_low_ms, r.window_high_ms,
+                                        r.stage, r.outcome, r.outcome == "hit", "rig", r.outcome, 0)
+                                  for k, r in enumerate(s.records, start=1)], s.minutes)
+                for i, s in enumerate(simulated, start=1)]
+    truths = [s.expected_hit_rate for s in simulated]
     effect = animal_effect(sessions[3], sessions[:3], seed=seed)
     return stage, truths[3] - float(np.mean(truths[:3])), effect
 
