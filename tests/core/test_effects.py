@@ -148,3 +148,21 @@ def test_group_table_matches_scipy_t_interval():
     low, high = stats.t.interval(0.95, 2, loc=np.mean(ys), scale=stats.sem(ys))  # scipy.stats.t
     assert (rows[0].low, rows[0].high) == pytest.approx((low, high))
     assert rows[1].low is None
+
+
+def test_interval_error_bootstrap_agrees_with_scipy():
+    rng = np.random.default_rng(9)
+    test, base = _session(2, rng, p_hit=0.3), _session(1, rng, p_hit=0.7)
+    ours = compare([test], [base], resamples=20000, seed=2)["interval_error"]
+
+    def errors(s: SessionTrials) -> np.ndarray:
+        return np.array([abs(math.log(t.interval_ms / t.target_ms)) if t.completed else np.nan for t in s.trials])
+
+    def statistic(a, b, axis=-1):
+        return np.nanmedian(a, axis=axis) - np.nanmedian(b, axis=axis)
+
+    # scipy.stats.bootstrap, two samples resampled independently, numpy's nanmedian as the statistic
+    ref = stats.bootstrap((errors(test), errors(base)), statistic, n_resamples=20000, method="percentile",
+                          vectorized=True, rng=np.random.default_rng(6)).confidence_interval
+    assert ours.effect == pytest.approx(statistic(errors(test), errors(base)))
+    assert ours.low == pytest.approx(ref.low, abs=0.01) and ours.high == pytest.approx(ref.high, abs=0.01)
