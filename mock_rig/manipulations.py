@@ -229,3 +229,13 @@ def manipulated_animal(seed: int, fraction: float, kind: str, protocol, baseline
         if index == baseline:
             stage = learner.consolidation()
     return stage, sessions
+
+
+def parse_plan(text: str) -> tuple[str, int, str]:
+    """`ANIMAL:SESSION:KIND` (e.g. `alder:10:inactivate_fast`) -> (animal, session, kind); ValueError otherwise."""
+    parts = text.split(":")
+    if len(parts) != 3 or not parts[0] or not parts[1].isdigit() or int(parts[1]) < 1:
+        raise ValueError(f"expected ANIMAL:SESSION:KIND with SESSION from 1, got {text!r}")
+    if parts[2] not in KINDS:
+        raise ValueError(f"unknown manipulation {parts[2]!r} (known: {', '.join(KINDS)})")
+    return parts[0], int(parts[1]), parts[2]
