@@ -84,27 +84,19 @@ def cohort_of(conn: sqlite3.Connection, animal: str) -> tuple[str | None, bool]:
     from drivers.config import ConfigError, TomlFile
     from monitor.core.eligibility import parse_eligibility
     from monitor.store.derive import protocol_of
+    from monitor.store.manipulations import animal_cohort, latest_protocol_text
 
-    row = conn.execute("SELECT protocol_text FROM sessions WHERE animal = ? AND protocol_text IS NOT NULL "
-                       "ORDER BY started_at DESC, id DESC LIMIT 1", (animal,)).fetchone()
-    if row is not None:
-        protocol = protocol_of(row[0])
+    text = latest_protocol_text(conn, animal)
+    if text is not None:
+        protocol = protocol_of(text)
         try:
-            rule = parse_eligibility(protocol.eligibility, TomlFile(row[0], "<protocol in force>"),
+            rule = parse_eligibility(protocol.eligibility, TomlFile(text, "<protocol in force>"),
                                      protocol_name=protocol.name, protocol_version=protocol.version)
         except ConfigError:
             rule = None
         if rule is not None:
             return rule.cohort_name, rule.blinded
-    found = conn.execute("SELECT cohort FROM animals WHERE name = ?", (animal,)).fetchone()
-    return (found[0] if found else None), False
-
-
-def assigned_group(conn: sqlite3.Connection, animal: str) -> tuple[str | None, str | None]:
-    """(group, code) of the animal's latest `assigned` decision; (None, None) when it has none."""
-    row = conn.execute("SELECT group_name, group_code FROM decisions WHERE animal = ? AND decision = 'assigned' "
-                       "ORDER BY id DESC LIMIT 1", (animal,)).fetchone()
-    return (row[0], row[1]) if row else (None, None)
+    return animal_cohort(conn, animal), False
 
 
 def record_manipulation(conn: sqlite3.Connection, *, animal: str, duration: str, role: str, what: str,
@@ -115,7 +107,7 @@ def record_manipulation(conn: sqlite3.Connection, *, animal: str, duration: str,
 
     `refresh_report` rebuilds the animal's cached report entry at once (the window leaves it to its next read).
     """
-    from monitor.store.manipulations import append_manipulation
+    from monitor.store.manipulations import append_manipulation, assigned_group
     from monitor.store.records import exclude_session
     from monitor.store.reporting import refresh_cache
 
@@ -190,16 +182,15 @@ class _Animal:
 
     def __init__(self, conn: sqlite3.Connection, animal: str) -> None:
         from monitor.store.derive import derive, trials_by_session
+        from monitor.store.manipulations import report_sessions
 
-        rows = conn.execute("SELECT id, excluded, started_at, ended_at FROM sessions WHERE animal = ? AND "
-                            "protocol_text IS NOT NULL ORDER BY started_at, id", (animal,)).fetchall()
+        rows = report_sessions(conn, animal)
         trials = trials_by_session(conn, [r[0] for r in rows])
-        built = {r[0] for r in conn.execute("SELECT session_id FROM trial_builds")}
         self.sessions: list[dict[str, Any]] = []
         self.data: dict[int, tuple[list, float | None]] = {}
-        for index, (sid, excluded, started, ended) in enumerate(rows, start=1):
+        for index, (sid, excluded, started, ended, _, _, derived) in enumerate(rows, start=1):
             attempts = trials.get(sid, [])
-            if sid not in built:          # recorded live, not derived yet: derive in memory
+            if not derived:               # recorded live, not derived yet: derive in memory
                 fresh = derive(conn, sid)
                 attempts = fresh[0] if fresh is not None else []
             stages = tuple(dict.fromkeys(t.stage for t in attempts))

@@ -21,10 +21,11 @@ from monitor.store import db
 
 def session_choices(conn: Any, animal: str) -> list[tuple[int, str]]:
     """(report index, "N · start · stage") of the animal's sessions, in order."""
-    rows = conn.execute("SELECT s.start_wall, s.stage, s.excluded FROM sessions AS s WHERE s.animal = ? AND "
-                        "s.protocol_text IS NOT NULL ORDER BY s.started_at, s.id", (animal,)).fetchall()
+    from monitor.store.manipulations import report_sessions
+
     return [(i, f"{i} · {start[:16].replace('T', ' ')}" + (f" · {stage}" if stage else "")
-             + (" · excluded" if excluded else "")) for i, (start, stage, excluded) in enumerate(rows, start=1)]
+             + (" · excluded" if excluded else ""))
+            for i, (_, excluded, _, _, start, stage, _) in enumerate(report_sessions(conn, animal), start=1)]
 
 
 class EffectsSide(QObject):

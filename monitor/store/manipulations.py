@@ -7,7 +7,9 @@ monitor.core.manipulation_log's `append`, and inserted with every content
 field as a column, the canonical payload and the hash. Verification rebuilds
 each entry from its columns, so an edited column shows. An unblinding is one
 row per cohort (who, why, when); nothing updates or deletes either table
-(triggers refuse it).
+(triggers refuse it). The reads the effects need (an animal's report
+sessions, its cohort, its latest assignment, the protocol in force) are here
+too, so SQL stays in the store.
 """
 
 from __future__ import annotations
@@ -67,3 +69,32 @@ def unblinded(conn: sqlite3.Connection) -> dict[str, dict[str, str]]:
     """Unblinded cohorts: name -> who, why, when."""
     return {r[0]: {"operator": r[1], "reason": r[2], "time": r[3]}
             for r in conn.execute("SELECT cohort, operator, reason, time FROM unblindings")}
+
+
+def latest_protocol_text(conn: sqlite3.Connection, animal: str) -> str | None:
+    """The protocol text of the animal's latest session that has one."""
+    row = conn.execute("SELECT protocol_text FROM sessions WHERE animal = ? AND protocol_text IS NOT NULL "
+                       "ORDER BY started_at DESC, id DESC LIMIT 1", (animal,)).fetchone()
+    return None if row is None else row[0]
+
+
+def animal_cohort(conn: sqlite3.Connection, animal: str) -> str | None:
+    """The cohort named in the animal's record (None when none)."""
+    row = conn.execute("SELECT cohort FROM animals WHERE name = ?", (animal,)).fetchone()
+    return None if row is None else row[0]
+
+
+def assigned_group(conn: sqlite3.Connection, animal: str) -> tuple[str | None, str | None]:
+    """(group, code) of the animal's latest `assigned` decision; (None, None) when it has none."""
+    row = conn.execute("SELECT group_name, group_code FROM decisions WHERE animal = ? AND decision = 'assigned' "
+                       "ORDER BY id DESC LIMIT 1", (animal,)).fetchone()
+    return (row[0], row[1]) if row else (None, None)
+
+
+def report_sessions(conn: sqlite3.Connection, animal: str) -> list[tuple]:
+    """The sessions the report indexes (with a protocol, by start then id): (id, excluded, started_at,
+    ended_at, start_wall, stage, derived), `derived` = its trials are stored."""
+    return conn.execute(
+        "SELECT s.id, s.excluded, s.started_at, s.ended_at, s.start_wall, s.stage, b.session_id IS NOT NULL "
+        "FROM sessions AS s LEFT JOIN trial_builds AS b ON b.session_id = s.id "
+        "WHERE s.animal = ? AND s.protocol_text IS NOT NULL ORDER BY s.started_at, s.id", (animal,)).fetchall()
