@@ -152,6 +152,8 @@ def test_csv_has_a_row_per_manipulation_and_measure(capsys, recorded, tmp_path):
     assert len(rows) == 3 * 5
     assert {r["measure"] for r in rows} == {"hit_rate", "interval_error", "cv", "premature_rate",
                                             "trials_per_minute"}
+    code, printed, _ = rigside(capsys, "effects", "--db", db, "--cohort", "orchard", "--csv")   # stdout
+    assert code == 0 and list(csv.DictReader(printed.splitlines())) == rows
 
 
 def test_bad_input_is_one_line_and_writes_nothing(capsys, recorded):

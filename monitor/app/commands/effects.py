@@ -7,7 +7,7 @@ stage frozen when it was recorded, the trends of effect against slow-state
 fraction and the table by group. Group labels are codes until the cohort is
 unblinded (`rigside manipulation unblind`). `--json` prints one document on
 stdout; `--csv` writes one row per manipulation and measure to FILE, or to
-stdout when FILE is `-`. Bad input: one line, exit 2. Advisory figures.
+stdout when FILE is `-` or not given. Bad input: one line, exit 2. Advisory figures.
 """
 
 from __future__ import annotations
@@ -26,7 +26,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--cohort", help="only this cohort's manipulations")
     out = parser.add_mutually_exclusive_group(required=True)
     out.add_argument("--json", action="store_true", help="print the effects as JSON")
-    out.add_argument("--csv", metavar="FILE", help="write one row per manipulation and measure ('-': stdout)")
+    out.add_argument("--csv", metavar="FILE", nargs="?", const="-",
+                     help="write one row per manipulation and measure to FILE (no FILE or '-': stdout)")
 
 
 def run(args: argparse.Namespace) -> int:
