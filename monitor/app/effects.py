@@ -301,7 +301,7 @@ def cohort_points(rows: list[dict[str, Any]], measure: str) -> list:
 CSV_COLUMNS = ("seq", "animal", "cohort", "group", "role", "duration", "what", "time", "session",
                "control_session", "stage_session", "slow_estimate", "slow_low", "slow_high", "slow_status",
                "sessions_since_plateau", "trials_since_plateau", "measure", "baseline_sessions", "baseline",
-               "affected", "effect", "low", "high", "vs_control", "vs_control_low", "vs_control_high",
+               "baseline_range_low", "baseline_range_high", "affected", "effect", "low", "high", "vs_control", "vs_control_low", "vs_control_high",
                "recovered", "recovery_sessions", "error")
 
 
@@ -314,11 +314,13 @@ def csv_rows(result: dict[str, Any]) -> list[dict[str, Any]]:
         for measure in MEASURES:
             base = (eff.get("vs_baseline") or {}).get(measure) or {}
             ctl = (eff.get("vs_control") or {}).get(measure) or {}
+            spread = (eff.get("baseline_range") or {}).get(measure) or (None, None)
             row = {k: r.get(k) for k in ("seq", "animal", "cohort", "group", "role", "duration", "what", "time",
                                          "session", "control_session", "error")}
             row.update({"stage_session": stage.get("session"), "measure": measure,
                         "baseline_sessions": " ".join(map(str, eff.get("baseline_sessions", []))),
-                        "baseline": base.get("baseline"), "affected": base.get("affected"),
+                        "baseline": base.get("baseline"), "baseline_range_low": spread[0],
+                        "baseline_range_high": spread[1], "affected": base.get("affected"),
                         "effect": base.get("effect"), "low": base.get("low"), "high": base.get("high"),
                         "vs_control": ctl.get("effect"), "vs_control_low": ctl.get("low"),
                         "vs_control_high": ctl.get("high"), "recovered": rec.get("recovered"),

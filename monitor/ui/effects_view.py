@@ -7,7 +7,9 @@ effect against its baseline (its 95 % interval as a vertical bar); groups by
 colour and by label beside each point, tests as filled discs and controls as
 open squares, so neither colour nor shape alone carries the meaning. The
 tests' least-squares trend is drawn with its 95 % band, the controls' as a
-dashed line; a table gives each group's mean effect. Groups show as codes
+dashed line; one table gives each group's mean effect, another each
+manipulation (effect with its interval, the baseline sessions' range,
+against its control session, recovery). Groups show as codes
 until the cohort is unblinded, and the window says so. Manipulations without a
 slow-state estimate are in the table, not on the plot. Advisory wording.
 """
@@ -26,6 +28,7 @@ from PySide6.QtWidgets import (
     QComboBox,
     QHBoxLayout,
     QHeaderView,
+    QTabWidget,
     QTableWidget,
     QTableWidgetItem,
     QVBoxLayout,
@@ -41,6 +44,8 @@ MEASURE_NAMES = {"hit_rate": "hit rate", "interval_error": "interval error (medi
 GROUP_COLOURS = ("blue", "orange", "bluish_green", "reddish_purple", "vermillion", "sky_blue")
 ROLE_SYMBOL = {"test": "o", "control": "s"}
 TABLE_COLUMNS = ("group", "role", "animals", "mean effect", "95 % interval")
+EACH_COLUMNS = ("entry", "animal", "group", "role", "kind", "what", "session", "baseline sessions",
+                "effect [95 % interval]", "baseline sessions' range", "against its control session", "recovery")
 CAPTION = ("Each point is one manipulation: x = model-based slow-state fraction at the last session before it "
            "(horizontal bar: its interval), y = effect against its baseline sessions (vertical bar: 95 % "
            "interval). Filled discs: tests; open squares: controls. Line and band: the tests' least-squares "
@@ -51,6 +56,35 @@ CAPTION = ("Each point is one manipulation: x = model-based slow-state fraction 
 
 def _fmt(value: float | None, digits: int = 3) -> str:
     return "—" if value is None or not math.isfinite(value) else f"{value:+.{digits}f}"
+
+
+def _with_interval(estimate: dict[str, Any] | None) -> str:
+    if not estimate or estimate.get("effect") is None:
+        return "—"
+    if estimate.get("low") is None:
+        return _fmt(estimate["effect"])
+    return f"{_fmt(estimate['effect'])} [{_fmt(estimate['low'])}, {_fmt(estimate['high'])}]"
+
+
+def _range(values: list[float] | None) -> str:
+    return "" if not values else f"{values[0]:.3f} to {values[1]:.3f}"
+
+
+def _recovery(effect: dict[str, Any]) -> str:
+    r = effect.get("recovery")
+    if not r:
+        return ""
+    if r["recovered"]:
+        return f"back within the baseline at session {r['session']} ({r['sessions']} session(s))"
+    return f"not recovered ({r['followed']} session(s) followed)"
+
+
+def _table(columns: tuple[str, ...]) -> QTableWidget:
+    table = QTableWidget(0, len(columns))
+    table.setHorizontalHeaderLabels(columns)
+    table.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
+    table.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
+    return table
 
 
 class EffectsView(QWidget):
@@ -73,11 +107,12 @@ class EffectsView(QWidget):
         self.plot.setXRange(0, 1, padding=0.02)
         self.plot.getAxis("left").enableAutoSIPrefix(False)
         self.legend = self.plot.addLegend(offset=(-10, -10))
-        self.table = QTableWidget(0, len(TABLE_COLUMNS))
-        self.table.setHorizontalHeaderLabels(TABLE_COLUMNS)
-        self.table.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
-        self.table.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
-        self.table.setMaximumHeight(170)
+        self.table = _table(TABLE_COLUMNS)
+        self.each = _table(EACH_COLUMNS)
+        self.tables = QTabWidget()
+        self.tables.addTab(self.table, "By group")
+        self.tables.addTab(self.each, "Each manipulation")
+        self.tables.setMaximumHeight(200)
         top = QHBoxLayout()
         top.addWidget(plain_label("Measure", wrap=False))
         top.addWidget(self.measure)
@@ -86,7 +121,7 @@ class EffectsView(QWidget):
         layout.addLayout(top)
         layout.addWidget(self.plot, 1)
         layout.addWidget(self.note)
-        layout.addWidget(self.table)
+        layout.addWidget(self.tables)
         layout.addWidget(plain_label(CAPTION))
         self.foreground = foreground
         self.items: list[Any] = []
@@ -121,6 +156,7 @@ class EffectsView(QWidget):
         self.note.setText(f"{unplotted} manipulation(s) without a slow-state estimate: in the table, not on the plot."
                           if unplotted else "")
         self._fill_table(key)
+        self._fill_each(key)
 
     def _add(self, item: Any) -> None:
         self.plot.addItem(item)
@@ -194,3 +230,18 @@ class EffectsView(QWidget):
                      f"{_fmt(trend['slope_low'])} to {_fmt(trend['slope_high'])}")
             for j, text in enumerate(cells):
                 self.table.setItem(len(rows), j, QTableWidgetItem(text))
+
+    def _fill_each(self, key: str) -> None:
+        rows = self.document.get("manipulations", [])
+        self.each.setRowCount(len(rows))
+        for i, r in enumerate(rows):
+            effect = r.get("effect") or {}
+            cells = (str(r.get("seq", "")), r["animal"], str(r.get("group") or "no group"), r["role"],
+                     r.get("duration", ""), r.get("what", ""), str(r.get("session") or ""),
+                     " ".join(map(str, effect.get("baseline_sessions", []))) or r.get("error", ""),
+                     _with_interval((effect.get("vs_baseline") or {}).get(key)),
+                     _range((effect.get("baseline_range") or {}).get(key)),
+                     _with_interval((effect.get("vs_control") or {}).get(key)) if effect.get("vs_control") else "",
+                     _recovery(effect))
+            for j, text in enumerate(cells):
+                self.each.setItem(i, j, QTableWidgetItem(text))

@@ -150,6 +150,8 @@ def test_csv_has_a_row_per_manipulation_and_measure(capsys, recorded, tmp_path):
     assert code == 0, err
     rows = list(csv.DictReader(out.open()))
     assert len(rows) == 3 * 5
+    first = rows[0]
+    assert float(first["baseline_range_low"]) <= float(first["baseline"]) <= float(first["baseline_range_high"])
     assert {r["measure"] for r in rows} == {"hit_rate", "interval_error", "cv", "premature_rate",
                                             "trials_per_minute"}
     code, printed, _ = rigside(capsys, "effects", "--db", db, "--cohort", "orchard", "--csv")   # stdout

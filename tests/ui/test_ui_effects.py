@@ -23,7 +23,11 @@ def _document(coded: bool) -> dict:
         rows.append({"seq": i + 1, "animal": f"a{i}", "group": group, "group_shown_as": "code" if coded else "name",
                      "role": role, "duration": "acute",
                      "stage": {"slow_estimate": None if i == 11 else x, "slow_low": x - 0.1, "slow_high": x + 0.1},
-                     "effect": {"vs_baseline": {"hit_rate": {"effect": y, "low": y - 0.05, "high": y + 0.05}}}})
+                     "what": "muscimol" if role == "test" else "saline", "session": 10,
+                     "effect": {"baseline_sessions": [7, 8, 9], "baseline_range": {"hit_rate": [0.55, 0.61]},
+                                "vs_baseline": {"hit_rate": {"effect": y, "low": y - 0.05, "high": y + 0.05}},
+                                "recovery": {"recovered": False, "followed": 2, "session": None, "sessions": None}
+                                if i == 4 else None}})
         points.append(Point(f"a{i}", group, role, x, None, None, y, None, None))
     fitted = trend([p.x for p in points if p.role == "test"], [p.y for p in points if p.role == "test"])
     fit, low, high = fitted.line([0, 0.5, 1])
@@ -43,9 +47,13 @@ def test_cohort_view_draws_points_bars_trend_and_table(qtbot, tmp_path):
     assert view.table.item(4, 3).text().startswith("+0.")    # the simulated slope 0.6 is positive
     labels = [i for i in view.items if hasattr(i, "textItem")]
     assert len(labels) == 11 and all("G-" in i.textItem.toPlainText() for i in labels)
+    assert view.each.rowCount() == 12 and view.each.item(0, 8).text().startswith("-0.")
+    assert "[" in view.each.item(0, 8).text() and view.each.item(0, 9).text() == "0.550 to 0.610"
     view.grab().save(str(tmp_path / "effects.png"))
+    view.tables.setCurrentIndex(1)
+    view.grab().save(str(tmp_path / "effects-each.png"))
     view.measure.setCurrentIndex(1)      # a measure without data: no points, no crash
-    assert view.table.rowCount() == 0
+    assert view.table.rowCount() == 0 and view.each.item(0, 8).text() == "—"
 
 
 def test_cohort_view_shows_names_when_unblinded(qtbot):
