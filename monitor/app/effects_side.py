@@ -4,7 +4,8 @@ Rule: "Record a manipulation…" reads the animal's sessions (report indexes,
 start, stage) in a worker, shows the dialog, and stores a valid request
 through the store writer with monitor.app.effects' `record_manipulation` (the
 same function as `rigside manipulation add`). "Cohort effects…" computes
-`effects` from a read-only connection in a worker and shows the cohort view.
+`effects` for all cohorts and for each one from a read-only connection in a
+worker and shows the cohort view.
 Results and refusals go to the status bar; nothing here judges. Advisory.
 """
 
@@ -101,10 +102,15 @@ class EffectsSide(QObject):
         from monitor.app.effects import effects
         from monitor.ui.effects_view import EffectsView
 
-        def show(document: dict[str, Any]) -> None:
-            view = EffectsView(document, self._window())
+        def read(conn) -> tuple[dict[str, Any], dict[str, dict[str, Any]]]:
+            document = effects(conn)
+            names = sorted({r["cohort"] for r in document["manipulations"] if r.get("cohort")})
+            return document, {name: effects(conn, name) for name in names}
+
+        def show(documents: tuple[dict[str, Any], dict[str, dict[str, Any]]]) -> None:
+            view = EffectsView(documents[0], self._window(), cohorts=documents[1])
             view.setWindowFlag(Qt.WindowType.Window, True)
             view.resize(1100, 720)
             self._show(view)
 
-        self.controller.run_job("cohort effects", self._read(effects), show)
+        self.controller.run_job("cohort effects", self._read(read), show)

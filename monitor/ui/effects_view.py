@@ -11,7 +11,8 @@ dashed line; one table gives each group's mean effect, another each
 manipulation (effect with its interval, the baseline sessions' range,
 against its control session, recovery). Groups show as codes
 until the cohort is unblinded, and the window says so. Manipulations without a
-slow-state estimate are in the table, not on the plot. Advisory wording.
+slow-state estimate are in the table, not on the plot. With several cohorts,
+each has its own document (trend and table) to choose. Advisory wording.
 """
 
 from __future__ import annotations
@@ -43,6 +44,7 @@ MEASURE_NAMES = {"hit_rate": "hit rate", "interval_error": "interval error (medi
                  "trials_per_minute": "trials per minute"}
 GROUP_COLOURS = ("blue", "orange", "bluish_green", "reddish_purple", "vermillion", "sky_blue")
 ROLE_SYMBOL = {"test": "o", "control": "s"}
+ALL = "all cohorts"
 TABLE_COLUMNS = ("group", "role", "animals", "mean effect", "95 % interval")
 EACH_COLUMNS = ("entry", "animal", "group", "role", "kind", "what", "session", "baseline sessions",
                 "effect [95 % interval]", "baseline sessions' range", "against its control session", "recovery")
@@ -90,10 +92,16 @@ def _table(columns: tuple[str, ...]) -> QTableWidget:
 class EffectsView(QWidget):
     """The cohort plot, its trend and the table by group, for one measure at a time."""
 
-    def __init__(self, document: dict[str, Any], parent: QWidget | None = None) -> None:
+    def __init__(self, document: dict[str, Any], parent: QWidget | None = None,
+                 cohorts: dict[str, dict[str, Any]] | None = None) -> None:
         super().__init__(parent)
         self.setWindowTitle("Cohort effects")
         self.document = document
+        self.documents = {ALL: document, **(cohorts or {})}
+        self.cohort = QComboBox()
+        self.cohort.addItems(list(self.documents))
+        self.cohort.setVisible(len(self.documents) > 2)      # one cohort: the same as all
+        self.cohort.currentTextChanged.connect(self._choose)
         self.measure = QComboBox()
         for key, name in MEASURE_NAMES.items():
             self.measure.addItem(name, key)
@@ -114,6 +122,7 @@ class EffectsView(QWidget):
         self.tables.addTab(self.each, "Each manipulation")
         self.tables.setMaximumHeight(200)
         top = QHBoxLayout()
+        top.addWidget(self.cohort)
         top.addWidget(plain_label("Measure", wrap=False))
         top.addWidget(self.measure)
         top.addWidget(self.blinding, 1)
@@ -125,6 +134,10 @@ class EffectsView(QWidget):
         layout.addWidget(plain_label(CAPTION))
         self.foreground = foreground
         self.items: list[Any] = []
+        self.redraw()
+
+    def _choose(self, name: str) -> None:
+        self.document = self.documents[name]
         self.redraw()
 
     def groups(self) -> list[str]:

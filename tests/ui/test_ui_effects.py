@@ -56,11 +56,15 @@ def test_cohort_view_draws_points_bars_trend_and_table(qtbot, tmp_path):
     assert view.table.rowCount() == 0 and view.each.item(0, 8).text() == "—"
 
 
-def test_cohort_view_shows_names_when_unblinded(qtbot):
-    view = EffectsView(_document(coded=False))
+def test_cohort_view_shows_names_when_unblinded_and_one_cohort_at_a_time(qtbot):
+    other = _document(coded=True)
+    view = EffectsView(_document(coded=False), cohorts={"orchard": _document(coded=False), "shore": other})
     qtbot.addWidget(view)
     assert "names" in view.blinding.text()
     assert {view.table.item(r, 0).text() for r in range(4)} == {"early", "late"}
+    view.cohort.setCurrentText("shore")
+    assert view.document is other and "codes" in view.blinding.text()
+    assert EffectsView(other, cohorts={"shore": other}).cohort.isHidden() and not view.cohort.isHidden()
 
 
 def test_manipulation_dialog_refuses_contradictions_and_emits_a_request(qtbot):
