@@ -58,7 +58,8 @@ def store(tmp_path_factory) -> tuple[Path, dict]:
 def recorded(store) -> tuple[Path, dict, list[str]]:
     db, truth = store
     outs = []
-    for args in (("--animal", "alder", "--acute", "--what", "muscimol M1", "--session", 10, "--control-session", 12),
+    for args in (("--animal", "alder", "--acute", "--what", "muscimol M1", "--session", 10, "--control-session", 12,
+                  "--time", "2026-02-13T10:30:00+01:00"),
                  ("--animal", "alder", "--acute", "--control", "--what", "saline M1", "--session", 12),
                  ("--animal", "birch", "--lasting", "--what", "M1 lesion", "--session", 9)):
         code = cli.main(["manipulation", "add", *map(str, args), "--operator", "kim", "--reason", "as planned",
@@ -109,7 +110,9 @@ def test_effects_match_the_simulated_ones(capsys, recorded):
 def test_the_stage_is_frozen_at_the_last_session_before(capsys, recorded):
     db, truth, _ = recorded
     result = _effects(capsys, db)
-    stage = next(r["stage"] for r in result["manipulations"] if r["animal"] == "alder" and r["role"] == "test")
+    test = next(r for r in result["manipulations"] if r["animal"] == "alder" and r["role"] == "test")
+    stage = test["stage"]
+    assert test["time"] == "2026-02-13T10:30:00+01:00"
     assert stage["session"] == 9 and stage["slow_status"] is not None
     assert 0 <= stage["slow_low"] <= stage["slow_estimate"] <= stage["slow_high"] <= 1
     conn = sqlite3.connect(db)
@@ -164,7 +167,8 @@ def test_bad_input_is_one_line_and_writes_nothing(capsys, recorded):
     for args, option in ((("--animal", "alder", "--acute", "--session", 99), "--session"),
                          (("--animal", "nobody", "--acute", "--session", 1), "--animal"),
                          (("--animal", "alder", "--lasting", "--session", 5, "--control-session", 4),
-                          "--control-session")):
+                          "--control-session"),
+                         (("--animal", "alder", "--acute", "--session", 5, "--time", "yesterday"), "--time")):
         code, _, err = rigside(capsys, "manipulation", "add", *args, "--what", "x", "--operator", "kim",
                                "--reason", "r", "--db", db)
         assert code == 2 and len(err.strip().splitlines()) == 1 and option in err, err

@@ -1,7 +1,7 @@
 """`rigside manipulation add|list|withdraw|unblind`: the manipulation log.
 
 Rule: `add --animal NAME --acute|--lasting --what TEXT --session N [--control]
-[--control-session M] [--group NAME] --operator NAME --reason TEXT` appends a
+[--control-session M] [--group NAME] --operator NAME --reason TEXT [--time T]` appends a
 hash-chained entry with the stage frozen at the last session before session N
 (sessions are the report's indexes, from 1) and flags the affected sessions
 excluded, in one BEGIN IMMEDIATE transaction (monitor.app.effects); the group
@@ -41,6 +41,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add.add_argument("--group", help="the group (a code when blinded); default: the animal's assignment")
     add.add_argument("--operator", required=True)
     add.add_argument("--reason", required=True)
+    add.add_argument("--time", help="when it was made: ISO 8601 date-time with UTC offset (default now)")
     add.add_argument("--wait", type=float, default=30.0, help="seconds to wait for another writer (default 30)")
     listing = sub.add_parser("list", help="print the manipulation log")
     add_db_argument(listing)
@@ -60,7 +61,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     unblind.add_argument("--wait", type=float, default=30.0)
 
 
-_OPTIONS = (("control session", "--control-session"), ("session", "--session"), ("what", "--what"),
+_OPTIONS = (("time", "--time"), ("control session", "--control-session"), ("session", "--session"), ("what", "--what"),
             ("operator", "--operator"), ("reason", "--reason"), ("animal", "--animal"), ("withdraw", "--seq"),
             ("cohort", "--cohort"), ("stage", "--session"))
 
@@ -85,7 +86,8 @@ def _add(args: argparse.Namespace) -> int:
             return record_manipulation(conn, animal=args.animal, duration=args.duration,
                                        role="control" if args.control else "test", what=args.what,
                                        session=args.session, control_session=args.control_session,
-                                       group=args.group, operator=args.operator, reason=args.reason)
+                                       group=args.group, operator=args.operator, reason=args.reason,
+                                       time=args.time)
         except ValueError as exc:
             raise _usage(exc) from None
 
