@@ -12,7 +12,9 @@ from the first affected on), so curves and fits leave them out. `effects`
 computes, per manipulation in force, the effect against the baseline rule's
 sessions (monitor.core.effects), against an acute test's control session,
 and a lasting one's recovery; then per measure the trend of the tests' and of
-the controls' effects against the slow-state fraction and the table by group.
+the controls' effects against the slow-state fraction and the table by group
+(`trend`, `groups`; the same against the control sessions: `trend_vs_control`,
+`groups_vs_control`).
 Group labels stay codes until the cohort is unblinded (`unblind`, recorded in
 the store; the names come from the key file beside the database). Bad input
 raises ValueError naming the field. Advisory figures: the approved animal-use
@@ -261,17 +263,20 @@ def effects(conn: sqlite3.Connection, cohort: str | None = None) -> dict[str, An
             animals[m.animal] = _Animal(conn, m.animal)
         record.update(_one_effect(animals[m.animal], e, affected.get(m.animal, set()) - {m.session_id}))
         rows.append(record)
-    trends: dict[str, dict[str, Any]] = {}
-    tables: dict[str, list[dict[str, Any]]] = {}
-    for measure in MEASURES:
-        points = cohort_points(rows, measure)
-        trends[measure] = {}
-        for role in ("test", "control"):
-            fitted = trend([p.x for p in points if p.role == role], [p.y for p in points if p.role == role])
-            trends[measure][role] = None if fitted is None else {**fitted.to_dict(), "line": _line(fitted)}
-        tables[measure] = [r.to_dict() for r in group_table(points)]
-    return {"advisory": ADVISORY, "x": X_MEASURE, "manipulations": rows, "trend": trends, "groups": tables,
-            "unblinded": sorted(c for c in cohorts if c in opened)}
+    out: dict[str, Any] = {"advisory": ADVISORY, "x": X_MEASURE, "manipulations": rows}
+    for against, suffix in (("vs_baseline", ""), ("vs_control", "_vs_control")):
+        trends: dict[str, dict[str, Any]] = {}
+        tables: dict[str, list[dict[str, Any]]] = {}
+        for measure in MEASURES:
+            points = cohort_points(rows, measure, against)
+            trends[measure] = {}
+            for role in ("test", "control"):
+                fitted = trend([p.x for p in points if p.role == role], [p.y for p in points if p.role == role])
+                trends[measure][role] = None if fitted is None else {**fitted.to_dict(), "line": _line(fitted)}
+            tables[measure] = [r.to_dict() for r in group_table(points)]
+        out["trend" + suffix], out["groups" + suffix] = trends, tables
+    out["unblinded"] = sorted(c for c in cohorts if c in opened)
+    return out
 
 
 def _line(fitted) -> dict[str, list[float]]:
@@ -281,13 +286,14 @@ def _line(fitted) -> dict[str, list[float]]:
     return {"x": grid, "fit": [float(v) for v in fit], "low": [float(v) for v in low], "high": [float(v) for v in high]}
 
 
-def cohort_points(rows: list[dict[str, Any]], measure: str) -> list:
-    """Points of one measure: x the slow-state fraction at the time (nan: not known), y the effect."""
+def cohort_points(rows: list[dict[str, Any]], measure: str, against: str = "vs_baseline") -> list:
+    """Points of one measure: x the slow-state fraction at the time (nan: not known), y the effect
+    `against` its baseline (`vs_baseline`) or its control session (`vs_control`)."""
     from monitor.core.effects_cohort import Point
 
     points = []
     for r in rows:
-        est = ((r.get("effect") or {}).get("vs_baseline") or {}).get(measure) or {}
+        est = ((r.get("effect") or {}).get(against) or {}).get(measure) or {}
         stage = r["stage"]
         if est.get("effect") is None:
             continue

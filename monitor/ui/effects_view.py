@@ -1,9 +1,10 @@
 """The cohort effects window: each manipulation's effect against the stage at which it was made.
 
 Rule: fed the plain document of `rigside effects` (built by the app). One
-measure at a time: a point per manipulation at x = the slow-state fraction at
+measure at a time, against the baseline or (acute tests) against the control
+session: a point per manipulation at x = the slow-state fraction at
 the last session before it (its interval as a horizontal bar) and y = the
-effect against its baseline (its 95 % interval as a vertical bar); groups by
+effect (its 95 % interval as a vertical bar); groups by
 colour and by label beside each point, tests as filled discs and controls as
 open squares, so neither colour nor shape alone carries the meaning. The
 tests' least-squares trend is drawn with its 95 % band, the controls' as a
@@ -106,6 +107,10 @@ class EffectsView(QWidget):
         for key, name in MEASURE_NAMES.items():
             self.measure.addItem(name, key)
         self.measure.currentIndexChanged.connect(lambda _: self.redraw())
+        self.against = QComboBox()
+        self.against.addItem("against its baseline sessions", "vs_baseline")
+        self.against.addItem("against its control session (acute tests)", "vs_control")
+        self.against.currentIndexChanged.connect(lambda _: self.redraw())
         self.blinding = plain_label()
         self.note = plain_label()
         background, foreground = plot_colours()
@@ -125,6 +130,7 @@ class EffectsView(QWidget):
         top.addWidget(self.cohort)
         top.addWidget(plain_label("Measure", wrap=False))
         top.addWidget(self.measure)
+        top.addWidget(self.against)
         top.addWidget(self.blinding, 1)
         layout = QVBoxLayout(self)
         layout.addLayout(top)
@@ -135,6 +141,12 @@ class EffectsView(QWidget):
         self.foreground = foreground
         self.items: list[Any] = []
         self.redraw()
+
+    def _against(self) -> str:
+        return self.against.currentData() or "vs_baseline"
+
+    def _suffixed(self, key: str) -> str:
+        return key + ("_vs_control" if self._against() == "vs_control" else "")
 
     def _choose(self, name: str) -> None:
         self.document = self.documents[name]
@@ -154,7 +166,8 @@ class EffectsView(QWidget):
         coded = any(r.get("group_shown_as") == "code" for r in rows)
         self.blinding.setText("Groups are shown by their codes: the cohort is blinded." if coded else
                               "Group names shown (cohort unblinded or not blinded).")
-        self.plot.setLabel("left", f"effect on {MEASURE_NAMES[key]} (manipulated − baseline)")
+        other = "control session" if self._against() == "vs_control" else "baseline"
+        self.plot.setLabel("left", f"effect on {MEASURE_NAMES[key]} (manipulated − {other})")
         zero = pg.InfiniteLine(pos=0, angle=0, pen=pg.mkPen(self.foreground, width=1, style=Qt.PenStyle.DotLine))
         self._add(zero)
         colours = {g: QColor(OKABE_ITO[GROUP_COLOURS[i % len(GROUP_COLOURS)]]) for i, g in enumerate(self.groups())}
@@ -178,7 +191,7 @@ class EffectsView(QWidget):
     def _points(self, key: str) -> dict[tuple[str, str], list[dict[str, Any]]]:
         out: dict[tuple[str, str], list[dict[str, Any]]] = {}
         for r in self.document.get("manipulations", []):
-            est = ((r.get("effect") or {}).get("vs_baseline") or {}).get(key) or {}
+            est = ((r.get("effect") or {}).get(self._against()) or {}).get(key) or {}
             if est.get("effect") is None:
                 continue
             stage = r.get("stage") or {}
@@ -214,7 +227,7 @@ class EffectsView(QWidget):
 
     def _draw_trends(self, key: str) -> None:
         for role, style in (("test", Qt.PenStyle.SolidLine), ("control", Qt.PenStyle.DashLine)):
-            fitted = (self.document.get("trend", {}).get(key) or {}).get(role)
+            fitted = (self.document.get(self._suffixed("trend"), {}).get(key) or {}).get(role)
             if not fitted:
                 continue
             line = fitted["line"]
@@ -230,8 +243,8 @@ class EffectsView(QWidget):
                 self._add(pg.FillBetweenItem(low, high, brush=pg.mkBrush(band)))
 
     def _fill_table(self, key: str) -> None:
-        rows = self.document.get("groups", {}).get(key, [])
-        trend = (self.document.get("trend", {}).get(key) or {}).get("test")
+        rows = self.document.get(self._suffixed("groups"), {}).get(key, [])
+        trend = (self.document.get(self._suffixed("trend"), {}).get(key) or {}).get("test")
         self.table.setRowCount(len(rows) + (1 if trend else 0))
         for i, r in enumerate(rows):
             interval = "—" if r.get("low") is None else f"{_fmt(r['low'])} to {_fmt(r['high'])}"

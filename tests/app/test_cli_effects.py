@@ -90,6 +90,9 @@ def test_effects_match_the_simulated_ones(capsys, recorded):
     assert hit["high"] < 0                                  # removing the fast state's part costs hits
     assert hit["low"] <= _true_effect(truth, "alder", 10, [7, 8, 9]) <= hit["high"]
     assert eff["vs_control"]["hit_rate"]["high"] < 0 and eff["control_session"] == 12
+    against_control = result["groups_vs_control"]["hit_rate"]
+    assert [(g["role"], g["n"]) for g in against_control] == [("test", 1)]
+    assert against_control[0]["mean"] == pytest.approx(eff["vs_control"]["hit_rate"]["effect"])
     control = rows[("alder", "control")]["effect"]
     # the vehicle session's baseline skips session 10 (manipulated): 8, 9, 11
     assert control["baseline_sessions"] == [8, 9, 11]

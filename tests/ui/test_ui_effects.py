@@ -26,14 +26,19 @@ def _document(coded: bool) -> dict:
                      "what": "muscimol" if role == "test" else "saline", "session": 10,
                      "effect": {"baseline_sessions": [7, 8, 9], "baseline_range": {"hit_rate": [0.55, 0.61]},
                                 "vs_baseline": {"hit_rate": {"effect": y, "low": y - 0.05, "high": y + 0.05}},
+                                "vs_control": {"hit_rate": {"effect": y - 0.01, "low": y - 0.07, "high": y + 0.05}}
+                                if role == "test" and i < 6 else None,
                                 "recovery": {"recovered": False, "followed": 2, "session": None, "sessions": None}
                                 if i == 4 else None}})
         points.append(Point(f"a{i}", group, role, x, None, None, y, None, None))
     fitted = trend([p.x for p in points if p.role == "test"], [p.y for p in points if p.role == "test"])
     fit, low, high = fitted.line([0, 0.5, 1])
     line = {"x": [0, 0.5, 1], "fit": list(fit), "low": list(low), "high": list(high)}
+    tests = [p for p in points if p.role == "test" and int(p.animal[1:]) < 6]
     return {"manipulations": rows, "trend": {"hit_rate": {"test": {**fitted.to_dict(), "line": line}, "control": None}},
-            "groups": {"hit_rate": [r.to_dict() for r in group_table(points)]}}
+            "groups": {"hit_rate": [r.to_dict() for r in group_table(points)]},
+            "trend_vs_control": {"hit_rate": {"test": None, "control": None}},
+            "groups_vs_control": {"hit_rate": [r.to_dict() for r in group_table(tests)]}}
 
 
 def test_cohort_view_draws_points_bars_trend_and_table(qtbot, tmp_path):
@@ -52,6 +57,10 @@ def test_cohort_view_draws_points_bars_trend_and_table(qtbot, tmp_path):
     view.grab().save(str(tmp_path / "effects.png"))
     view.tables.setCurrentIndex(1)
     view.grab().save(str(tmp_path / "effects-each.png"))
+    view.against.setCurrentIndex(1)       # against the control sessions: the acute tests that have one
+    assert view.table.rowCount() == 2 and "control session" in view.plot.getAxis("left").labelText
+    assert sum(1 for i in view.items if hasattr(i, "textItem")) == 4
+    view.against.setCurrentIndex(0)
     view.measure.setCurrentIndex(1)      # a measure without data: no points, no crash
     assert view.table.rowCount() == 0 and view.each.item(0, 8).text() == "—"
 
