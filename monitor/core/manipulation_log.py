@@ -17,9 +17,10 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any, Mapping, Sequence
 
-from monitor.core.decision_log import GENESIS, _when, canonical_json, digest
+from monitor.core.decision_log import GENESIS, canonical_json, digest
 
 FORMAT = "rigside-manipulation 1"
 DURATIONS = ("acute", "lasting")
@@ -60,6 +61,15 @@ def _text(name: str, value: Any, required: bool = True) -> None:
         raise ValueError(f"{name} must be a non-empty text")
 
 
+def _moment(value: Any) -> None:
+    try:
+        aware = isinstance(value, str) and "T" in value and datetime.fromisoformat(value).tzinfo is not None
+    except ValueError:
+        aware = False
+    if not aware:
+        raise ValueError(f"time must be an ISO 8601 date-time with a UTC offset, got {value!r}")
+
+
 def new_manipulation(*, animal: str, duration: str, role: str, what: str, session_id: int, operator: str,
                      reason: str, time: str, stage: Mapping[str, Any], cohort: str | None = None,
                      control_session_id: int | None = None, group: str | None = None,
@@ -71,7 +81,7 @@ def new_manipulation(*, animal: str, duration: str, role: str, what: str, sessio
         raise ValueError(f"role must be one of {', '.join(ROLES)}, got {role!r}")
     for name, value in (("animal", animal), ("what", what), ("operator", operator), ("reason", reason)):
         _text(name, value)
-    _when("time", time)
+    _moment(time)
     if control_session_id is not None and (duration != "acute" or role != "test"):
         raise ValueError("control session: only an acute test names its control session")
     if control_session_id is not None and control_session_id == session_id:
