@@ -52,6 +52,7 @@ PLAN = (
     Plan("bench_memory", "memory growth, 16 rigs x 8 h accelerated"),
     Plan("bench_history", "simulator history"),
     Plan("bench_cohort", "cohort commands beside the yardstick"),
+    Plan("bench_effects", "effects on a simulated cohort"),
 )
 
 

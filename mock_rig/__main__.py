@@ -65,6 +65,8 @@ def build_parser() -> argparse.ArgumentParser:
     hist.add_argument("--seed", type=int, default=1)
     hist.add_argument("--out", type=Path, required=True, help="directory to write into")
     hist.add_argument("--task", choices=(TWO_PRESS, JOYSTICK_HOLD), default=TWO_PRESS)
+    hist.add_argument("--manipulate", type=_plan, action="append", default=[], metavar="ANIMAL:SESSION:KIND",
+                      help="a simulated manipulation (kinds: inactivate_fast, vehicle, lesion_fast, sham); repeatable")
     hist.add_argument("--trial-truth", action="store_true",
                       help="also write NAME.trials.csv: latent states per completed trial")
     _variants(hist)
@@ -103,10 +105,27 @@ def _base(args):
     return scenario.variant_params(args.drive, args.warmup, args.satiety, args.narrowing)
 
 
+def _plan(text: str):
+    from mock_rig.manipulations import parse_plan
+
+    try:
+        return parse_plan(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
 def cmd_history(args) -> int:
     started = time.perf_counter()
     animals = cohort(args.animals, args.seed, _base(args), legacy=args.legacy, task=args.task)
-    truth = write_history(args.out, animals, args.days, trial_truth=args.trial_truth)
+    if args.manipulate:
+        from mock_rig import manipulations
+
+        plans: dict[str, dict[int, str]] = {}
+        for animal, session, kind in args.manipulate:
+            plans.setdefault(animal, {})[session] = kind
+        truth = manipulations.write_history(args.out, animals, args.days, plans)
+    else:
+        truth = write_history(args.out, animals, args.days, trial_truth=args.trial_truth)
     sessions = sum(len(a["sessions"]) for a in truth["animals"].values())
     print(f"wrote {sessions} sessions of {len(animals)} animals to {args.out} "
           f"in {time.perf_counter() - started:.1f} s")

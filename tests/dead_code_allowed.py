@@ -31,6 +31,10 @@ p_low
 p_high
 detected_at
 date_of_birth
+x_low  # monitor/core/effects/cohort.py Point: the trend's points, passed whole
+x_high
+y_low
+y_high
 strain
 genotype
 median_abs_error

@@ -36,6 +36,8 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "backup": ("monitor.app.commands.backup", "a consistent copy of the database, also while recording runs"),
     "lab": ("monitor.app.commands.lab", "the lab database: create or upgrade it, show what it holds, this PC's sync"),
     "sync": ("monitor.app.commands.sync", "push everything new in this PC's store to the lab database"),
+    "manipulation": ("monitor.app.commands.manipulation", "record, list or withdraw manipulations; unblind a cohort"),
+    "effects": ("monitor.app.commands.effects", "each manipulation's effect against the stage at which it was made"),
 }
 
 

@@ -314,6 +314,10 @@ class Controller(QObject):
         self.animal_records = AnimalRecordsSide(self)
         self.animal_records.attach(window)
 
+        from monitor.app.effects_side import EffectsSide
+
+        EffectsSide(self).attach(window)
+
     def install_signal_handlers(self, app: QApplication) -> None:
         """Every platform's stop requests (monitor.app.stopping) close cleanly (the 20 Hz timer lets
         Python run the handler promptly)."""

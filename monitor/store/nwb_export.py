@@ -38,6 +38,7 @@ from monitor.store.animals import get_animal, missing_fields
 from monitor.store.derive import derive, protocol_of, session_events, stored_trials
 from monitor.store.records import conditions_of
 from monitor.store.session_time import relative_us, start_shift_us
+from monitor.store.nwb_manipulations import add_manipulations
 
 _ID = re.compile(r"[^A-Za-z0-9-]")
 TRIAL_FIELDS = (("first_press_time", "s", "first press or crossing of the trial (s after session start)"),
@@ -266,6 +267,7 @@ def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_di
             nwb.trials = _trials_table(trials, _spans(conn, session_id, trials, timed), shift_us)
         if timed:
             nwb.add_events_table(_events_table(timed, shift_us))
+        add_manipulations(nwb, conn, session_id)
         path = out_dir / file_name(animal, number)
         part = path.with_name(f".{path.stem}.partial.nwb")
         try:

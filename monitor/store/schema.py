@@ -42,6 +42,12 @@ DELETE, like the decisions.
 Lab sync: lab_sync (this PC's lab identity and the last sync's state, key ->
 value) and lab_bookmarks (the lab's bookmarks as last seen, for "rows
 waiting" while the server is away); monitor.store.lab_sync writes both.
+Manipulations (the effects issue's migration): manipulations, one row per
+recorded manipulation or its withdrawal (acute or lasting, test or control,
+the first affected session, an acute test's control session, the group or its
+code, the frozen stage at the time), hash-chained and insert-only like the
+decisions; unblindings, one insert-only row per cohort whose group labels a
+person chose to show.
 """
 
 from __future__ import annotations
@@ -412,6 +418,48 @@ _LAB_SYNC = (
     )""",
 )
 
+_MANIPULATIONS_APPEND_ONLY = "manipulations are append-only: a mistake is withdrawn by a new entry"
+_UNBLINDINGS_APPEND_ONLY = "an unblinding is never undone"
+
+_MANIPULATIONS = (
+    """CREATE TABLE manipulations (
+        id INTEGER PRIMARY KEY,         -- insertion order
+        seq INTEGER NOT NULL UNIQUE,    -- the entry's number in the chain, from 1
+        prev_hash TEXT NOT NULL,
+        animal TEXT NOT NULL,
+        cohort TEXT,
+        duration TEXT NOT NULL CHECK (duration IN ('acute', 'lasting')),
+        role TEXT NOT NULL CHECK (role IN ('test', 'control')),
+        what TEXT NOT NULL,             -- e.g. muscimol M1 0.5 ul, saline, lesion, sham surgery
+        session_id INTEGER NOT NULL REFERENCES sessions(id),   -- the first affected session
+        control_session_id INTEGER REFERENCES sessions(id),    -- an acute test's control session
+        group_name TEXT,                -- NULL when blinded (then group_code)
+        group_code TEXT,
+        operator TEXT NOT NULL,
+        reason TEXT NOT NULL,
+        time TEXT NOT NULL,             -- when it was made: ISO 8601 with UTC offset
+        stage TEXT NOT NULL,            -- canonical JSON: the stage at the last session before it
+        withdraws INTEGER,              -- seq of an earlier entry this one withdraws
+        payload TEXT NOT NULL,          -- the canonical text that was hashed
+        hash TEXT NOT NULL
+    )""",
+    f"""CREATE TRIGGER manipulations_no_update BEFORE UPDATE ON manipulations
+        BEGIN SELECT RAISE(ABORT, '{_MANIPULATIONS_APPEND_ONLY}'); END""",
+    f"""CREATE TRIGGER manipulations_no_delete BEFORE DELETE ON manipulations
+        BEGIN SELECT RAISE(ABORT, '{_MANIPULATIONS_APPEND_ONLY}'); END""",
+    "CREATE INDEX manipulations_by_animal ON manipulations (animal)",
+    """CREATE TABLE unblindings (
+        cohort TEXT PRIMARY KEY,
+        operator TEXT NOT NULL,
+        reason TEXT NOT NULL,
+        time TEXT NOT NULL              -- ISO 8601 with UTC offset
+    )""",
+    f"""CREATE TRIGGER unblindings_no_update BEFORE UPDATE ON unblindings
+        BEGIN SELECT RAISE(ABORT, '{_UNBLINDINGS_APPEND_ONLY}'); END""",
+    f"""CREATE TRIGGER unblindings_no_delete BEFORE DELETE ON unblindings
+        BEGIN SELECT RAISE(ABORT, '{_UNBLINDINGS_APPEND_ONLY}'); END""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
@@ -422,6 +470,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("source locks: one recorder per source", _SOURCE_LOCKS),
     Migration("care log: void and correct, confirmations, hash chain, append-only", _CARE_CHAIN),
     Migration("lab sync: this PC's lab identity and bookmarks", _LAB_SYNC),
+    Migration("manipulations and unblindings", _MANIPULATIONS),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

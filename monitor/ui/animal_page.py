@@ -467,6 +467,7 @@ class AnimalPage(QWidget):
     decision_requested = Signal(str)       # animal
     history_requested = Signal(str)        # animal
     care_requested = Signal()
+    manipulation_requested = Signal(str)   # animal
 
     def __init__(self, book: AnimalBook, animal: str, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -512,14 +513,17 @@ class AnimalPage(QWidget):
         self.sections.addTab(self.consolidation, "Consolidation")
         self.sections.addTab(self.sessions, "Sessions")
         self.record_buttons = {key: QPushButton(text) for key, text in (
-            ("decide", "Record a decision…"), ("decisions", "Decision history…"), ("care", "Care today…"))}
+            ("decide", "Record a decision…"), ("decisions", "Decision history…"), ("care", "Care today…"),
+            ("manipulation", "Record a manipulation…"))}
         self.record_buttons["decide"].clicked.connect(lambda: self.decision_requested.emit(self.animal))
         self.record_buttons["decisions"].clicked.connect(lambda: self.history_requested.emit(self.animal))
         self.record_buttons["care"].clicked.connect(self.care_requested.emit)
+        self.record_buttons["manipulation"].clicked.connect(lambda: self.manipulation_requested.emit(self.animal))
         eligibility = QHBoxLayout()
         eligibility.addWidget(self.eligibility_line, 1)
         eligibility.addWidget(self.record_buttons["decide"])
         eligibility.addWidget(self.record_buttons["decisions"])
+        eligibility.addWidget(self.record_buttons["manipulation"])
         care = QHBoxLayout()
         care.addWidget(self.care, 1)
         care.addWidget(self.record_buttons["care"])

@@ -42,6 +42,8 @@ SHORTCUTS = {
     "decisions": "Ctrl+Shift+D",
     "care": "Ctrl+J",
     "animal_records": "Ctrl+Shift+A",
+    "manipulation": "Ctrl+M",
+    "effects": "Ctrl+Shift+E",
 }
 
 
@@ -63,6 +65,8 @@ class MainWindow(QMainWindow):
     history_requested = Signal(str)        # animal: show its logged decisions
     care_requested = Signal()              # open the care window (the day's water ledger)
     animals_requested = Signal(str)        # open the animals window ('' or a new animal's name)
+    manipulation_requested = Signal(str)   # animal ('' when no page is open): record a manipulation
+    effects_requested = Signal()           # open the cohort effects window
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
                  roster: Roster | None = None, discover_devices: Callable[[], Sequence[SerialDevice]] = tuple,
@@ -137,6 +141,9 @@ class MainWindow(QMainWindow):
                                        lambda: self.history_requested.emit(self.current_animal())))
         animals.addAction(self._action("care", "&Care today…", self.care_requested.emit))
         animals.addAction(self._action("animal_records", "Animal &records…", lambda: self.animals_requested.emit("")))
+        animals.addAction(self._action("manipulation", "Record a &manipulation…",
+                                       lambda: self.manipulation_requested.emit(self.current_animal())))
+        animals.addAction(self._action("effects", "Cohort &effects…", self.effects_requested.emit))
         alerts = self.menuBar().addMenu("A&lerts")
         alerts.addAction(self._action("acknowledge", "&Acknowledge", self.alert_panel.acknowledge_selected,
                                       "acknowledge"))
@@ -185,6 +192,7 @@ class MainWindow(QMainWindow):
             page.decision_requested.connect(self.decision_requested)
             page.history_requested.connect(self.history_requested)
             page.care_requested.connect(self.care_requested)
+            page.manipulation_requested.connect(self.manipulation_requested)
             self.pages[animal] = page
             self.tabs.addTab(page, animal)
             self.page_opened.emit(animal)
