@@ -177,20 +177,10 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
     inputs = [SessionInput(s.trials, s.start, s.malformed_lines, s.excluded, s.exclusion_reason, s.counts,
                            s.water_ul) for s in sessions]
     summaries = [summarize(protocol, session, index) for index, session in enumerate(inputs, start=1)]
-    curve = learning_curve(protocol, inputs)
+    curve = learning_curve(protocol, inputs)          # the final stage's, as the plateau rule judges it
     result = judge(protocol.plateau, curve)
-    binary = curve.measure in BINARY_MEASURES
-    bounds = [wilson(int(np.sum(p.outcomes)), len(p.outcomes)) if binary and len(p.outcomes) else (math.nan,) * 2
-              for p in curve.points]
     plateau_session = result.session if result.reached else None
-    curve_state = CurveState(
-        session=np.array([p.session for p in curve.points], float),
-        measure=np.array([p.value for p in curve.points], float),
-        low=np.array([b[0] for b in bounds], float), high=np.array([b[1] for b in bounds], float),
-        stage=tuple(summaries[p.session - 1].stage or "" for p in curve.points),
-        measure_name=MEASURE_WORDS.get(curve.measure, curve.measure.replace("_", " ")),
-        criterion=protocol.plateau.threshold, plateau_session=plateau_session,
-        plateau_word="reached" if result.reached else "not reached", plateau_reason=result.reason)
+    curve_state = _curve_state(protocol, inputs, curve.measure, result, plateau_session)
     rows = tuple(SessionRow(
         index=s.index, start=sessions[s.index - 1].start, rig=sessions[s.index - 1].rig, stage=s.stage or "",
         trials=s.figures.trials, hits=s.figures.hits, hit_rate=s.figures.hit_rate,
@@ -208,6 +198,34 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
                 previous[t.stage] += (t.interval_ms,)
     return HistoryParts(curve_state, consolidation, rows, previous, result.reached, plateau_session, result.reason,
                         tuple(s.session_id for s in sessions))
+
+
+def stage_names(protocol: Protocol, sessions: Sequence[SessionInput]) -> tuple[str, ...]:
+    """Every stage with trials, the protocol's order first, then any other stage in the order it was met."""
+    seen = {t.stage for s in sessions for t in s.trials}
+    known = [s.name for s in protocol.stages if s.name in seen]
+    others = list(dict.fromkeys(t.stage for s in sessions for t in s.trials if t.stage not in known))
+    return tuple(known + others)
+
+
+def _curve_state(protocol: Protocol, inputs: Sequence[SessionInput], measure: str, result: Any,
+                 plateau_session: int | None) -> CurveState:
+    """Every kept session of every stage (one point per session and stage, even short ones), by stage."""
+    binary = measure in BINARY_MEASURES
+    points: list[tuple[int, str, float, float, float, int]] = []
+    for name in stage_names(protocol, inputs):
+        for p in learning_curve(protocol, inputs, stage=name, measure=measure, min_trials=1).points:
+            low, high = (wilson(int(np.sum(p.outcomes)), len(p.outcomes)) if binary and len(p.outcomes)
+                         else (math.nan, math.nan))
+            points.append((p.session, name, p.value, low, high, p.trials))
+    return CurveState(
+        session=np.array([p[0] for p in points], float), measure=np.array([p[2] for p in points], float),
+        low=np.array([p[3] for p in points], float), high=np.array([p[4] for p in points], float),
+        stage=tuple(p[1] for p in points), trials=tuple(p[5] for p in points),
+        measure_name=MEASURE_WORDS.get(measure, measure.replace("_", " ")),
+        criterion=protocol.plateau.threshold, plateau_session=plateau_session,
+        plateau_word="reached" if result.reached else "not reached", plateau_reason=result.reason,
+        final_stage=protocol.final_stage.name)
 
 
 def newcombe_difference(k1: int, n1: int, k2: int, n2: int, confidence: float = 0.95) -> tuple[float, float, float]:

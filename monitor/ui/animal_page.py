@@ -199,30 +199,48 @@ class RollingPanel(QWidget):
             self.now.setText("no trials yet")
 
 
+STAGE_SYMBOLS = ("t", "s", "d", "o", "star", "p", "h", "+")     # one shape per stage, in the protocol's order
+STAGE_COLOURS = ("orange", "sky_blue", "reddish_purple", "blue", "bluish_green", "vermillion", "yellow", "black")
+
+
 class CurvePanel(QWidget):
-    """The learning curve across sessions with its intervals, stages, criterion and plateau marked."""
+    """The learning curve: every kept session of every stage, each stage its own shape and legend label,
+    with intervals, the criterion and the plateau (judged in the final stage) marked."""
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
-        self.plot = make_plot("session (number)", "hit rate (%)")
+        self.plot = make_plot("session (the animal's own number)", "hit rate (%)")
         self.ranges = RangeKeeper(self.plot)
         self.ranges.set_y(0, 100)
+        self.legend = self.plot.getPlotItem().addLegend(offset=(-10, -10), labelTextColor=plot_colours()[1])
         self.errors = pg.ErrorBarItem(x=np.empty(0), y=np.empty(0), pen=pg.mkPen(colour("sky_blue"), width=2))
-        self.points = pg.PlotDataItem(pen=pg.mkPen(colour("blue"), width=2), symbol="o", symbolSize=7,
-                                      symbolBrush=colour("blue"))
         self.criterion = pg.InfiniteLine(angle=0, movable=False, label="criterion",
                                          labelOpts={"position": 0.05, "color": colour("vermillion")},
                                          pen=pg.mkPen(colour("vermillion"), width=1.5, style=Qt.PenStyle.DashLine))
         self.plateau = pg.InfiniteLine(angle=90, movable=False, label="plateau",
                                        labelOpts={"position": 0.92, "color": colour("bluish_green")},
                                        pen=pg.mkPen(colour("bluish_green"), width=2))
-        for item in (self.errors, self.points, self.criterion, self.plateau):
+        for item in (self.errors, self.criterion, self.plateau):
             self.plot.addItem(item)
+        self.stage_items: list[pg.PlotDataItem] = []     # one per stage, made once, reused
         self.stage_marks: list[pg.InfiniteLine] = []
+        self.empty = plain_label("No session with trials yet: the curve fills in as sessions end.")
         layout = QVBoxLayout(self)
         layout.setContentsMargins(0, 0, 0, 0)
-        layout.addWidget(_big(plain_label("Learning curve (excluded sessions left out)", wrap=False), 12))
+        layout.addWidget(_big(plain_label("Learning curve: every session of every stage, one shape per stage "
+                                          "(excluded sessions left out)", wrap=True), 12))
+        layout.addWidget(self.empty)
         layout.addWidget(self.plot, 1)
+
+    def _stage_item(self, index: int) -> pg.PlotDataItem:
+        while len(self.stage_items) <= index:
+            k = len(self.stage_items) % len(STAGE_SYMBOLS)
+            tint = colour(STAGE_COLOURS[k])
+            item = pg.PlotDataItem(pen=pg.mkPen(tint, width=2), symbol=STAGE_SYMBOLS[k], symbolSize=9,
+                                   symbolBrush=tint, symbolPen=pg.mkPen(plot_colours()[1], width=1))
+            self.plot.addItem(item)
+            self.stage_items.append(item)
+        return self.stage_items[index]
 
     def _stage_mark(self, index: int) -> pg.InfiniteLine:
         while len(self.stage_marks) <= index:
@@ -237,11 +255,23 @@ class CurvePanel(QWidget):
     def set_state(self, state: CurveState) -> None:
         x = np.asarray(state.session, dtype=float)
         y = 100 * np.asarray(state.measure, dtype=float)
+        self.empty.setVisible(not len(x))
         if len(x):
             self.ranges.set_x(0.0, float(x.max()) + 0.5)
-        self.points.setData(x, y)
         self.errors.setData(x=x, y=y, top=100 * np.asarray(state.high) - y, bottom=y - 100 * np.asarray(state.low))
         self.plot.getPlotItem().getAxis("left").setLabel(f"{state.measure_name} (%)")
+        names = list(dict.fromkeys(state.stage))
+        stages = np.asarray(state.stage, dtype=object)
+        self.legend.clear()
+        for i, name in enumerate(names):
+            item, mine = self._stage_item(i), stages == name
+            item.setData(x[mine], y[mine])
+            item.show()
+            final = " (plateau judged here)" if name == state.final_stage and len(names) > 1 else ""
+            self.legend.addItem(item, f"stage {name}{final}")
+        for item in self.stage_items[len(names):]:
+            item.setData([], [])
+            item.hide()
         if state.criterion is not None:
             self.criterion.setValue(100 * state.criterion)
             self.criterion.label.setFormat(f"criterion {100 * state.criterion:.0f} %")
@@ -254,8 +284,8 @@ class CurvePanel(QWidget):
             self.plateau.show()
         else:
             self.plateau.hide()
-        changes = [(x[i] - 0.5, state.stage[i]) for i in range(len(state.stage))
-                   if i == 0 or state.stage[i] != state.stage[i - 1]]
+        firsts = sorted((float(x[stages == name].min()), name) for name in names)
+        changes = [(where - 0.5, name) for where, name in firsts]
         for i, (where, name) in enumerate(changes):
             mark = self._stage_mark(i)
             mark.setValue(where)

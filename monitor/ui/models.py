@@ -142,6 +142,8 @@ class CurveState:
     plateau_session: int | None = None
     plateau_word: str = "not reached"
     plateau_reason: str = ""
+    trials: tuple[int, ...] = ()     # completed trials behind each point
+    final_stage: str = ""            # the stage the plateau is judged in
 
 
 @dataclass(frozen=True)

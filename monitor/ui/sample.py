@@ -110,7 +110,7 @@ def curve_state(rng: np.random.Generator, sessions: int = 24) -> CurveState:
     low, high = _wilson(np.round(rate * n), n)
     stage = tuple(STAGES[0] if i < 4 else STAGES[1] if i < 8 else STAGES[2] for i in range(sessions))
     return CurveState(session=s.astype(float), measure=rate, low=low, high=high, stage=stage, criterion=0.5,
-                      plateau_session=14, plateau_word="reached",
+                      plateau_session=14, plateau_word="reached", final_stage=STAGES[2],
                       plateau_reason="Hit rate was at or above 50 % in 3 consecutive final-stage sessions "
                                      "(14, 15, 16).")
 

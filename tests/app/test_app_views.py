@@ -13,6 +13,7 @@ from drivers.status import CONNECTED, LOST, READING, SILENT, STOPPED, WAITING, S
 from drivers.wire import Event, WireDecoder
 from monitor.app import views
 from monitor.app.engine import Engine, SessionPlan
+from monitor.core.protocol import parse_protocol
 from monitor.core.trials import build_trials
 from monitor.ui.models import Connection, Severity, StoreHealth
 
@@ -155,3 +156,60 @@ def test_start_of_session_drop_and_its_interval():
     assert drop.drop == pytest.approx(sum(before) / 20 - 9 / 20)
     low, high = confint_proportions_2indep(sum(before), 20, 9, 20, method="newcomb", compare="diff")  # statsmodels
     assert (drop.low, drop.high) == (pytest.approx(low), pytest.approx(high))
+
+
+STAGED = parse_protocol("""
+[protocol]
+name = "two-press 650 ms, shaped"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+
+[[stages]]
+name = "wide"
+tolerance = 0.5
+
+[[stages]]
+name = "final"
+
+[plateau]
+rule = "consecutive_sessions"
+min_hit_rate = 0.5
+sessions = 2
+min_trials = 5
+""")
+
+
+def staged_history(plan):
+    """Sessions of (stage, intervals): the trial builder is given the stage in force."""
+    out = []
+    for k, (stage, intervals) in enumerate(plan):
+        data = session_bytes(intervals, rig_outcomes=False)
+        trials, builder = build_trials(STAGED, [r for r in WireDecoder().feed(data) if isinstance(r, Event)], stage)
+        out.append(views.HistorySession(tuple(trials), start=f"2026-03-0{k + 1} 09:00", rig="box 1",
+                                        counts=dict(builder.counts)))
+    return out
+
+
+def test_learning_curve_shows_every_stage_and_judges_the_final_one():
+    # two shaping sessions (one with only 3 trials), then three final-stage sessions
+    sessions = staged_history([("wide", [650, 900, 1000, 300, 640]), ("wide", [650, 700, 900]),
+                               ("final", [650, 640, 900, 660, 1000]), ("final", [650, 640, 660, 700, 1000]),
+                               ("final", [650, 640, 660, 900, 1000])])
+    curve = views.history_parts(STAGED, sessions).curve
+    assert curve.stage == ("wide", "wide", "final", "final", "final")
+    assert list(curve.session) == [1, 2, 3, 4, 5]
+    # the shaping stage's window is 650 ± 50 %: 325-975 ms (hand count from the protocol)
+    assert list(curve.measure[:2]) == pytest.approx([3 / 5, 3 / 3])
+    assert curve.trials == (5, 3, 5, 5, 5)
+    assert curve.final_stage == "final"
+    # judged in the final stage only: sessions 3 (3/5) and 4 (4/5) both reach 0.5
+    assert (curve.plateau_word, curve.plateau_session) == ("reached", 3)
+
+
+def test_learning_curve_of_a_shaping_animal_is_not_empty():
+    sessions = staged_history([("wide", [650, 900, 1000, 300, 640])])
+    curve = views.history_parts(STAGED, sessions).curve
+    assert list(curve.session) == [1] and curve.stage == ("wide",)
+    assert curve.plateau_word == "not reached"

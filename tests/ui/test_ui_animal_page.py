@@ -108,11 +108,17 @@ def test_rolling_rate_is_drawn_with_its_band_and_todays_counts(page):
 
 def test_learning_curve_marks_stages_criterion_and_plateau_with_reason(page):
     curve = page.book.state("cedar").curve
-    x, y = page.curve.points.getData()
-    np.testing.assert_allclose(y, 100 * curve.measure)
+    drawn = [item.getData() for item in page.curve.stage_items if item.isVisible()]
+    x = np.concatenate([d[0] for d in drawn])
+    np.testing.assert_allclose(np.concatenate([d[1] for d in drawn]), 100 * curve.measure)
     assert 18.0 not in x                                       # the excluded session is left out
     shown = [m.label.format for m in page.curve.stage_marks if m.isVisible()]
     assert shown == ["shaping", "wide window", "final"]
+    # each stage its own shape and its own legend label (never colour alone)
+    symbols = [item.opts["symbol"] for item in page.curve.stage_items if item.isVisible()]
+    assert len(set(symbols)) == 3
+    legend = [label.text for _, label in page.curve.legend.items]
+    assert legend[0] == "stage shaping" and legend[2] == "stage final (plateau judged here)"
     assert page.curve.criterion.value() == pytest.approx(50.0)
     assert page.curve.plateau.value() == 14
     assert page.plateau_line.text() == f"Plateau: reached. {curve.plateau_reason}"
