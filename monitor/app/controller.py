@@ -36,6 +36,7 @@ from typing import Any, NamedTuple, Protocol as TypingProtocol
 from PySide6.QtCore import QObject, Qt, QTimer
 from PySide6.QtWidgets import QApplication, QLabel, QProgressBar, QPushButton
 
+from drivers.status import Batch
 from drivers.wire import Event, WireDecoder
 from monitor.app.alerting import AlertCentre, AlertStore, TableAlertStore
 from monitor.app.engine import Engine, RaisedAlert, RigSnapshot, SessionPlan
@@ -215,6 +216,12 @@ def _end_session(conn: sqlite3.Connection, session_id: int) -> None:
     derive.rebuild_trials(conn, session_id)
 
 
+def _stated_stage(rig: "_Rig") -> str | None:
+    """The stage the box itself last sent (`param stage`), before or during a session; None if it never did."""
+    params = rig.snapshot.params if rig.snapshot is not None else ()
+    return next((e.args[1] for e in reversed(params) if e.args[0] == "stage"), None)
+
+
 class _Rig:
     def __init__(self, spec: RigSpec, protocol: LoadedProtocol, source: Any, fanout: Fanout, source_id: int) -> None:
         self.spec, self.protocol, self.source, self.fanout, self.source_id = spec, protocol, source, fanout, source_id
@@ -254,6 +261,7 @@ class Controller(QObject):
         self._followed: dict[str, tuple | None] = {}  # animal -> (fraction, missed) of its session so far
         self._today: dict[str, tuple[int, TodayState | None]] = {}
         self._plateau: dict[str, bool] = {}
+        self.stored_stages: dict[str, str] = {}   # animal -> stage of its latest stored session
         self._store_failing = False
         self._status_shown = None
         self._inbox: queue.SimpleQueue[Callable[[], None]] = queue.SimpleQueue()
@@ -303,6 +311,7 @@ class Controller(QObject):
             window.statusBar().addPermanentWidget(widget)
             widget.hide()
         window.set_roster(self.roster())
+        self.load_stored_stages()
         from monitor.app.eligibility_care import DecisionsAndCare
 
         self.records = DecisionsAndCare(self, care)
@@ -401,20 +410,53 @@ class Controller(QObject):
         self.run_job(f"adding {setup.name}", lambda job: self._register(spec), self._start_rig)
 
     def roster(self) -> Roster:
-        animals = sorted(set(self.protocols) | {r.animal for r in self.rigs.values() if r.animal})
-        stages = sorted({s.name for p in [*self.protocols.values(), *(r.protocol for r in self.rigs.values())]
-                         for s in p.protocol.stages})
+        animals = sorted(set(self.protocols) | set(self.stored_stages)
+                         | {r.animal for r in self.rigs.values() if r.animal})
+        loaded = [*(r.protocol for r in self.rigs.values()), *self.protocols.values()]
+        stages = tuple(dict.fromkeys(s.name for p in loaded for s in p.protocol.stages))   # training order
         usual = {a: tuple(sorted({row.rig for row in parts.sessions if row.rig}))
                  for a, parts in self.history_parts.items()}
-        return Roster(animals=tuple(animals), rigs=tuple(self.rigs), stages=tuple(stages), usual_rigs=usual,
-                      occupied={n: r.animal for n, r in self.rigs.items() if r.animal}, operators=())
+        return Roster(animals=tuple(animals), rigs=tuple(self.rigs), stages=stages, usual_rigs=usual,
+                      occupied={n: r.animal for n, r in self.rigs.items() if r.animal}, operators=(),
+                      current_stage={**self.stored_stages, **self._history_stages()},
+                      first_stage={n: r.protocol.protocol.stages[0].name for n, r in self.rigs.items()},
+                      box_stage={n: s for n, r in self.rigs.items() if (s := _stated_stage(r)) is not None})
+
+    def _history_stages(self) -> dict[str, str]:
+        """Each loaded animal's stage at the end of its latest session with one."""
+        out = {}
+        for animal, parts in self.history_parts.items():
+            stage = next((row.stage for row in reversed(parts.sessions) if row.stage), None)
+            if stage:
+                out[animal] = stage
+        return out
+
+    def load_stored_stages(self) -> None:
+        """Read every animal's latest recorded stage from the store (worker), then refresh the roster."""
+        from monitor.store.roster import latest_stages
+
+        def work(job: Job) -> dict[str, str]:
+            conn = db.open_store(self.writer.path, readonly=True)
+            try:
+                return latest_stages(conn)
+            finally:
+                conn.close()
+
+        def done(found: dict[str, str]) -> None:
+            self.stored_stages = found
+            self._refresh_roster()
+
+        self.run_job("reading the animals' stages", work, done)
 
     # --- check-in, check-out ---------------------------------------------------------------------
     def check_in(self, record: CheckIn) -> None:
         """Start a session of `record.animal` in `record.rig` (the store call runs in a worker)."""
         rig = self.rigs[record.rig]
         loaded = self.protocols.get(record.animal, rig.protocol)
-        stage = record.stage if loaded.protocol.stage(record.stage) is not None else None
+        carried = rig.snapshot.params if rig.snapshot is not None else ()
+        stated = _stated_stage(rig)                      # the box is the witness of its own stage
+        stage = stated if stated is not None and loaded.protocol.stage(stated) is not None else record.stage
+        stage = stage if loaded.protocol.stage(stage) is not None else None
         previous = rig.session_id
 
         def work(job: Job) -> tuple[int, str | None]:
@@ -440,10 +482,16 @@ class Controller(QObject):
             if rig.session_id is not None:
                 self.engine.close_session(record.rig, rig.session_id)
             self.engine.open_session(SessionPlan(record.rig, session_id, record.animal, loaded.protocol, stage,
-                                                 rig.spec.valve_ul_per_ms, started=time.monotonic()))
+                                                 rig.spec.valve_ul_per_ms, started=time.monotonic(),
+                                                 carried=carried))
+            if carried:     # the parameters in force are part of the session's record too (stored first)
+                self.writer.submit(Batch(list(carried), time.time()), source_id=rig.source_id,
+                                   session_id=session_id, live=True)
             rig.fanout.session_id = session_id                 # after the engine knows the session
             rig.session_id, rig.animal = session_id, record.animal
             self.protocols.setdefault(record.animal, loaded)     # its history is read with this protocol
+            if stage is not None:
+                self.stored_stages[record.animal] = stage
             self._refresh_roster()
             self.load_history(record.animal)
 

@@ -126,9 +126,16 @@ class CheckInDialog(RecordDialog):
         self.body.insertWidget(3, self.check_out_button)
         self.animal.currentTextChanged.connect(self._refresh)
         self.rig.currentTextChanged.connect(self._refresh)
+        self.animal.currentTextChanged.connect(self._default_stage)
+        self.rig.currentTextChanged.connect(self._default_stage)
         if rig and rig in roster.occupied:
             self.animal.setCurrentText(roster.occupied[rig])
         self._refresh()
+        self._default_stage()
+
+    def _default_stage(self) -> None:
+        """The box's own stage, else the animal's current stage, else the protocol's first stage."""
+        self.stage.setCurrentText(self.roster.default_stage(self.animal.currentText(), self.rig.currentText()))
 
     def _refresh(self) -> None:
         rig = self.rig.currentText()

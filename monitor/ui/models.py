@@ -247,6 +247,16 @@ class Roster:
     usual_rigs: dict[str, tuple[str, ...]] = field(default_factory=dict)
     occupied: dict[str, str] = field(default_factory=dict)   # rig -> animal checked in
     operators: tuple[str, ...] = ()
+    current_stage: dict[str, str] = field(default_factory=dict)   # animal -> stage of its latest session
+    first_stage: dict[str, str] = field(default_factory=dict)     # rig -> its protocol's first stage
+    box_stage: dict[str, str] = field(default_factory=dict)       # rig -> the stage the box itself sent
+
+    def default_stage(self, animal: str, rig: str) -> str:
+        """Check-in's stage: what the box says, else the animal's current stage, else the protocol's first."""
+        for found in (self.box_stage.get(rig), self.current_stage.get(animal.strip()), self.first_stage.get(rig)):
+            if found and found in self.stages:
+                return found
+        return self.stages[0] if self.stages else ""
 
 
 @dataclass(frozen=True)

@@ -220,3 +220,45 @@ def test_alerts_go_to_the_stores_alerts_table(qapp, tmp_path, qtbot):
         assert controller.alerts.errors == []
     finally:
         controller.close()
+
+
+STAGED_TEXT = PROTOCOL_TEXT.replace("[plateau]", """[[stages]]
+name = "wide"
+tolerance = 0.5
+
+[[stages]]
+name = "final"
+
+[plateau]""")
+
+
+def test_params_sent_before_check_in_are_the_sessions_and_the_box_names_the_stage(rig, qtbot):
+    controller, window, log, store, db = rig
+    protocol = log.with_name("staged.toml")
+    protocol.write_text(STAGED_TEXT)
+    box2 = log.with_name("box2.rsw")
+    box2.write_bytes(streams.params_bytes(("stage", "final"), ("window_low_ms", "220"), ("window_high_ms", "660")))
+    controller.add_rig(RigSpec("box 2", "file", str(box2), protocol))
+    # nobody checked in yet: a new animal defaults to the protocol's first stage, unless the box said its own
+    qtbot.waitUntil(lambda: controller.rigs["box 2"].snapshot is not None
+                    and len(controller.rigs["box 2"].snapshot.params) == 3, timeout=10000)
+    roster = controller.roster()
+    assert roster.stages == ("main", "wide", "final")                  # training order, not alphabetical
+    assert roster.default_stage("newt", "box 2") == "final"            # what the box sent
+    assert roster.default_stage("newt", "box 1") == "main"             # the first stage of box 1's protocol
+    controller.check_in(CheckIn("newt", "box 2", "ana", 301.0, "wide"))
+    qtbot.waitUntil(lambda: controller.rigs["box 2"].session_id is not None, timeout=10000)
+    qtbot.waitUntil(lambda: (controller.board.state("box 2") or None) is not None
+                    and controller.board.state("box 2").window_low_ms == 220.0, timeout=10000)
+    assert controller.board.state("box 2").window_high_ms == 660.0
+    session_id = controller.rigs["box 2"].session_id
+    qtbot.waitUntil(lambda: controller.writer.status().pending_rows == 0, timeout=10000)
+    with sqlite3.connect(db) as conn:     # plain sqlite3: the session's own record holds the params in force
+        stored = conn.execute("SELECT c.name, e.value FROM events e JOIN event_codes c ON c.code = e.code "
+                              "WHERE e.session_id = ? ORDER BY e.rowid", (session_id,)).fetchall()
+        stage = conn.execute("SELECT stage FROM sessions WHERE id = ?", (session_id,)).fetchone()[0]
+    assert stored[:3] == [("param", "stage final"), ("param", "window_low_ms 220"), ("param", "window_high_ms 660")]
+    assert stage == "final"
+    controller.check_out("box 2")
+    # the animal's next check-in, in a box that says nothing, defaults to its current stage
+    assert controller.roster().default_stage("newt", "box 1") == "final"

@@ -95,3 +95,18 @@ def test_setup_with_a_log_file_and_no_devices(qtbot):
     setup = added.args[0]
     assert (setup.source, setup.path, setup.mapping_path, setup.valve_ul_per_ms) == (
         "file", "/lab/box07.log", "/lab/map.toml", None)
+
+
+def test_check_in_stage_defaults_to_the_box_then_the_animal_then_the_first_stage(qtbot):
+    from dataclasses import replace
+
+    roster = replace(ROSTER, stages=("shaping", "adaptive", "final"), current_stage={"alder": "final"},
+                     first_stage={"box-01": "shaping", "box-02": "shaping"}, box_stage={"box-02": "adaptive"})
+    dialog = CheckInDialog(roster, rig="box-01")
+    qtbot.addWidget(dialog)
+    dialog.animal.setCurrentText("birch")                 # a new animal: the protocol's first stage
+    assert dialog.stage.currentText() == "shaping"
+    dialog.animal.setCurrentText("alder")                 # an animal in training: its current stage
+    assert dialog.stage.currentText() == "final"
+    dialog.rig.setCurrentText("box-02")                   # a box that said its stage: the box's word
+    assert dialog.stage.currentText() == "adaptive"
