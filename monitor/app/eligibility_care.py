@@ -34,13 +34,14 @@ from monitor.app.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT, Raised
 from monitor.app.assigning import AssignError, Draw, draw_next, record_draw
 from monitor.core.assignment import BLOCKS_METHOD
-from monitor.core.care import CareConfig, DaySummary
+from monitor.core.care import NO_RECORD, RECORDED, RUNNING, CareConfig, DaySummary
 from monitor.core.decision_log import ChainCheck, LogEntry, rule_agrees
 from monitor.core.eligibility_verdict import Verdict, window_changes
 from monitor.store import db
-from monitor.ui.care_panel import CareEntry, CarePanel, CareRow, CareView, sheet_image
+from monitor.ui.care_panel import LEVELS, CareEntry, CarePanel, CareRow, CareView, sheet_image
 from monitor.ui.decision_dialog import DECISIONS, DecisionDialog, DecisionRequest, DecisionView
 from monitor.ui.decision_history import DecisionHistory, HistoryView
+from monitor.ui.models import CLEARED_BY
 
 CHECK_EVERY_MS = 300_000     # care alerts that depend on the clock (no fluid, end of day) are re-checked this often
 CARE_SEVERITY = {"notice": INFO, "warning": ATTENTION, "alert": URGENT}
@@ -49,7 +50,6 @@ WINDOW_KIND = {"opened": "window opened", "closing": "window closing", "opening"
                "closed": "window closed"}
 LEVEL_ORDER = ("alert", "warning", "notice")
 
-CLEARED_BY = "rigside (no longer true)"  # who "acknowledges" a care alert whose condition cleared by itself
 
 
 def _num(value: float | None, digits: int = 2, unit: str = "") -> str:
@@ -135,9 +135,15 @@ def eligibility_text(verdict: Verdict | None) -> str:
 
 
 def care_text(summary: DaySummary) -> str:
-    worst = next((level for level in LEVEL_ORDER if any(a.level == level for a in summary.alerts)), None)
-    alerts = f" — {len(summary.alerts)} care alert(s), worst: {worst}" if worst else " — no care alert"
-    return f"Care today: {care_line(summary)}{alerts}"
+    """The animal page's care line: the day's figures, or its state, and its alerts counted in plain words."""
+    if summary.state == NO_RECORD:
+        return "Care today: nothing recorded yet (no session, weighing or supplement)."
+    counts = [(LEVELS[level][0], sum(a.level == level for a in summary.alerts)) for level in LEVEL_ORDER]
+    words = ", ".join(f"{n} {word}" for word, n in counts if n)
+    total = len(summary.alerts)
+    alerts = f" — {total} care {'alert' if total == 1 else 'alerts'}: {words}" if total else " — no care alert"
+    running = " (a session is running: its water counts when it ends)" if summary.state == RUNNING else ""
+    return f"Care today: {care_line(summary)}{running}{alerts}"
 
 
 def care_row(s: DaySummary) -> CareRow:
@@ -149,13 +155,18 @@ def care_row(s: DaySummary) -> CareRow:
              _num(s.percent_of_baseline, 1),
              "none" if s.last_fluid is None else f"{s.last_fluid:%H:%M}" + (
                  "" if s.last_fluid.date() == s.day else f" {s.last_fluid:%d %b}"))
-    return CareRow(s.animal, level, cells, tuple((a.level, a.message) for a in s.alerts), s.notes)
+    return CareRow(s.animal, level, cells, tuple((a.level, a.message) for a in s.alerts), s.notes,
+                   "" if s.state == RECORDED else s.state)
 
 
 def thresholds_text(c: CareConfig) -> str:
+    species = ", ".join(f"{name} {figure:g}" for name, figure in c.species_ml_per_100g)
     minimum = " or ".join(p for p in (
         f"{c.daily_minimum_ml:g} ml/day" if c.daily_minimum_ml is not None else "",
-        f"{c.daily_minimum_ml_per_kg:g} ml/kg/day" if c.daily_minimum_ml_per_kg is not None else "") if p)
+        f"{c.daily_minimum_ml_per_kg:g} ml/kg/day" if c.daily_minimum_ml_per_kg is not None else "",
+        f"ml per 100 g body weight ({species}; other species {c.daily_minimum_ml_per_100g:g})"
+        if c.daily_minimum_ml_per_100g is not None else "") if p)
+    minimum = f"the larger of {minimum}" if " or " in minimum else minimum
     return (f"Minimum {minimum}, due by {c.end_of_day:%H:%M}; weight warning below {c.weight_warning_percent:g} % "
             f"and limit below {c.weight_limit_percent:g} % of baseline; alert after {c.no_fluid_hours:g} h without "
             "fluid (advisory thresholds)")

@@ -34,6 +34,9 @@ class Connection(Enum):
         self.colour = colour
 
 
+CLEARED_BY = "rigside (no longer true)"   # who "acknowledges" an alert whose condition cleared by itself
+
+
 class Severity(Enum):
     """How much an alert asks of a person; only URGENT makes a sound or a tray message."""
 

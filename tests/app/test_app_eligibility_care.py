@@ -173,3 +173,20 @@ def test_care_row_check_values():
     care = AnimalCare("heron", 25.0, (water,), (), (Weighing(now, 21.3, "ana"),))
     row = care_row(day_summary(care, now.date(), CareConfig(), now))
     assert row.cells[0] == "0.03" and row.cells[5] == "21.3" and row.cells[6] == "85.2"
+
+
+def test_a_day_with_nothing_recorded_reads_as_a_state_and_counts_in_words():
+    from datetime import timedelta
+
+    from monitor.app.eligibility_care import care_text
+
+    now = datetime.now().astimezone()
+    yesterday = now - timedelta(days=1)
+    care = AnimalCare("heron", 25.0, (), (), (Weighing(yesterday, 21.3, "ana"),))
+    summary = day_summary(care, now.date(), CareConfig(), now)
+    assert care_text(summary) == "Care today: nothing recorded yet (no session, weighing or supplement)."
+    row = care_row(summary)
+    assert row.state == "no record today" and [a[0] for a in row.alerts] in (["notice"], ["warning"])
+    weighed = AnimalCare("heron", 25.0, (), (), (Weighing(now, 21.3, "ana"),))
+    text = care_text(day_summary(weighed, now.date(), CareConfig(), now))
+    assert "worst" not in text and "care alert" in text and "alert(s)" not in text
