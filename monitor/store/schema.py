@@ -325,11 +325,31 @@ _V3 = (
         BEGIN SELECT RAISE(ABORT, '{_NO_REPLAN}'); END""",
 )
 
+_NO_REWRITE = "the session changes log is append-only"
+
+_SESSION_CHANGES = (
+    """CREATE TABLE session_changes (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER NOT NULL REFERENCES sessions(id),
+        change TEXT NOT NULL CHECK (change IN ('given', 'excluded', 'included')),
+        animal TEXT,                    -- who the session belongs to after the change
+        reason TEXT NOT NULL,
+        operator TEXT NOT NULL,
+        at TEXT NOT NULL                -- ISO 8601 with UTC offset
+    )""",
+    f"""CREATE TRIGGER session_changes_no_update BEFORE UPDATE ON session_changes
+        BEGIN SELECT RAISE(ABORT, '{_NO_REWRITE}'); END""",
+    f"""CREATE TRIGGER session_changes_no_delete BEFORE DELETE ON session_changes
+        BEGIN SELECT RAISE(ABORT, '{_NO_REWRITE}'); END""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
               "care log, fits, alerts", _V2),
     Migration("assignment plans", _V3),
+    Migration("session changes log: unattended runs given to an animal, exclusions and their undoing",
+              _SESSION_CHANGES),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

@@ -70,7 +70,7 @@ def test_version_1_file_migrates_to_the_newest_keeping_its_sessions(tmp_path):
     db.start_session(conn, source, "heron", "box1", "p", 1, "[protocol]")
     conn.close()
     conn = open_store(path)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 3
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == len(MIGRATIONS)
     assert conn.execute("SELECT animal, rig, excluded, animal_id FROM sessions").fetchall() == [("heron", "box1", 0, None)]
     assert conn.execute("SELECT count(*) FROM sqlite_master WHERE name = 'events_by_session'").fetchone()[0] == 0
     assert conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'index' AND tbl_name = 'events'"
