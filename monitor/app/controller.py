@@ -48,7 +48,7 @@ from monitor.core.protocol import Protocol, parse_protocol
 from monitor.core.stats import LiveSession
 from monitor.store import db
 from monitor.store.writer import StoreWriter
-from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, RigSetup, TodayState
+from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, RigSetup, TodayState, UnattendedGift
 from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
 
 REFRESH_MS = 50
@@ -298,6 +298,7 @@ class Controller(QObject):
         window.page_closed.connect(self.page_closed)
         window.exclusion_requested.connect(self.exclude)
         window.condition_requested.connect(self.add_condition)
+        window.unattended_given.connect(self.give_unattended)
         self.progress_label = QLabel()
         self.progress_label.setTextFormat(Qt.TextFormat.PlainText)
         self.progress_bar = QProgressBar()
@@ -517,6 +518,52 @@ class Controller(QObject):
         self.run_job(f"checking out {animal}", lambda job: self.writer.call(lambda c: _end_session(c, session_id)),
                      done)
 
+    def give_unattended(self, gift: UnattendedGift) -> None:
+        """Give a box's presses from while nobody was checked in to an animal (logged): the run is closed, a
+        fresh run of no animal takes the box's data from now, and the closed run's trials are derived."""
+        rig = self.rigs.get(gift.rig)
+        if rig is None or rig.idle_session_id is None:
+            return
+        if not store_v2():
+            self._say("Not given: this store keeps no records of that kind.")
+            return
+        old = rig.idle_session_id
+        loaded = self.protocols.get(gift.animal, rig.protocol)
+        stated = _stated_stage(rig)
+        stage = stated if stated is not None and loaded.protocol.stage(stated) is not None else \
+            self.roster().default_stage(gift.animal, gift.rig) or None
+
+        def fresh(job: Job) -> int:
+            return self.writer.call(lambda c: db.start_session(c, rig.source_id, NO_ANIMAL, gift.rig, None, None,
+                                                               None))
+
+        def switched(new: int) -> None:
+            rig.idle_session_id = new
+            if rig.session_id is None:
+                rig.fanout.session_id = new          # from here on the box's data go to the fresh run
+            self.engine.forget_unattended(gift.rig)
+            self.run_job(f"giving {gift.rig}'s trials to {gift.animal}", lambda job: self.writer.call(give), given)
+
+        def give(conn: sqlite3.Connection) -> int:
+            from monitor.store import records, session_changes
+
+            db.end_session(conn, old)
+            protocol_id = records.ensure_protocol(conn, loaded.protocol.name, loaded.protocol.version, loaded.text)
+            return session_changes.give_run(conn, old, animal=gift.animal, operator=gift.operator,
+                                            reason=gift.reason, protocol_id=protocol_id, stage=stage)
+
+        def given(trials: int) -> None:
+            self.protocols.setdefault(gift.animal, loaded)
+            self._say(f"{trials} trials from {gift.rig} given to {gift.animal} (logged).")
+            self.load_history(gift.animal, refresh=True)
+            self._refresh_roster()
+
+        self.run_job(f"closing {gift.rig}'s run", fresh, switched)
+
+    def _say(self, message: str) -> None:
+        if self.window is not None:
+            self.window.statusBar().showMessage(message, 15000)
+
     def _refresh_roster(self) -> None:
         if self.window is not None:
             self.window.set_roster(self.roster())
@@ -544,11 +591,12 @@ class Controller(QObject):
                      lambda _: self.load_history(animal, refresh=True))
 
     def exclude(self, record: Exclusion) -> None:
-        """Flag a session excluded with its reason (kept, left out of curves and fits)."""
-        from monitor.store import records as store_records
+        """Flag a session excluded with its reason (kept, left out of curves and fits), or count it again;
+        either is logged."""
+        from monitor.store.session_changes import set_excluded
 
-        self._record("exclusion", record.animal, record.session,
-                     lambda c, sid, who: store_records.exclude_session(c, sid, record.reason, who))
+        self._record("exclusion" if record.excluded else "undoing the exclusion", record.animal, record.session,
+                     lambda c, sid, who: set_excluded(c, sid, record.excluded, reason=record.reason, operator=who))
 
     def add_condition(self, record: ConditionRecord) -> None:
         from monitor.store import records as store_records

@@ -12,9 +12,10 @@ timer calls `take_snapshots()` and `take_alerts()`; neither ever waits for the
 engine beyond a short lock, and the engine never touches Qt. Sessions are
 opened and closed by control messages (`open_session`, `close_session`) that
 are applied before any batch of that session; a batch of no known session (no
-animal checked in) still counts as activity, and its events are counted as
-unattended. Each rig keeps the newest `param` event of each name whatever the
-session (a new header or `param stage` starts afresh); a session opens with
+animal checked in) still counts as activity, and its presses are counted as
+unattended (an alert once there are a few; reset when a run is given away).
+Each rig keeps the newest `param` event of each name whatever the session (a
+new header or `param stage` starts afresh); a session opens with
 those fed first (`SessionPlan.carried`), so a window the box sent before
 check-in is in force. A disagreement with the rig is alerted only while the
 window in force is known (the rig's own, or a fixed stage's). Alert rules that
@@ -34,7 +35,7 @@ import numpy as np
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from drivers.wire import Event, Header, Malformed
 from monitor.app.pipeline import EngineBatch
-from monitor.core.alerts import LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
+from monitor.core.alerts import ACTIVITY_EVENTS, LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
 from monitor.core.protocol import Protocol
 from monitor.core.rolling import RollingRate
 from monitor.core.stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot
@@ -85,7 +86,7 @@ class RigSnapshot(NamedTuple):
     newest_stamp: float           # reader stamp of the newest batch included (0: none)
     params: tuple[Event, ...] = ()   # the rig's newest `param` event of each name (any session or none)
     window_known: bool = False    # the window in force is the rig's own or a fixed stage's (not a guess)
-    unattended_events: int = 0    # events since the last session ended (or since start) with nobody checked in
+    unattended_events: int = 0    # presses, pushes, trial starts since the last session ended with nobody in
 
 
 class RaisedAlert(NamedTuple):
@@ -226,6 +227,10 @@ class Engine:
         """Follow `plan.session_id` from now; call before the Fanout switches to that session."""
         self._controls.append(("open", plan))
 
+    def forget_unattended(self, rig: str) -> None:
+        """The rig's unattended run was given away (or ended): count afresh."""
+        self._controls.append(("unattended", rig))
+
     def close_session(self, rig: str, session_id: int) -> None:
         self._controls.append(("close", (rig, session_id)))
 
@@ -308,6 +313,12 @@ class Engine:
                 self._by_session[plan.session_id] = state
                 state.watch.session(True, self._clock())
                 state.dirty = True
+            elif kind == "unattended":
+                state = self._rigs.get(value)
+                if state is not None:
+                    state.unattended = 0
+                    state.watch.forget_unattended()
+                    state.dirty = True
             elif kind == "close":
                 rig, session_id = value
                 state = self._rigs.get(rig)
@@ -345,6 +356,8 @@ class Engine:
             if isinstance(record, Event):
                 events += 1
                 state.remember(record)
+                if (session is None or session.ended) and record.name in ACTIVITY_EVENTS:
+                    state.unattended += 1
                 raised += watch.event(record.name, record.args, record.t_us, now)
                 if session is not None:
                     session.add(session.live.feed(record))
@@ -353,7 +366,7 @@ class Engine:
             elif isinstance(record, Malformed):
                 state.malformed += 1
         if session is None or session.ended:
-            state.unattended += events
+            raised += watch.unattended(state.unattended)
         if item.batch.records:
             raised += watch.malformed(state.malformed, now)
         if session is not None and session.window_known():

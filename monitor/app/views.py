@@ -5,7 +5,8 @@ takes plain values and returns the frozen view models of `monitor.ui.models`.
 Missing figures stay `None` (NaN in arrays), never 0. A rig's connection word
 comes from its source's state and whether a session runs: lost (reader ended),
 retrying (waiting for the device), quiet (session running, no event for
-`quiet_after_s`), live (session running), idle (connected, no session). The session
+`quiet_after_s`), live (session running), idle (connected, no session), running
+with nobody checked in (no session, but presses arrive). The session
 clock is in whole seconds, so a tile changes once a second at most when no
 trial arrives. Tile histograms are today's linear-bin counts of the stage in force; the rolling
 hit rate's band is the 95 % Wilson interval. History is summarised per
@@ -64,8 +65,12 @@ def tile_state(rig: str, snapshot: RigSnapshot | None, status: SourceStatus | No
                quiet_after_s: float = QUIET_AFTER_S) -> RigTileState:
     """One overview tile; `now` is host monotonic seconds (the session clock)."""
     in_session = snapshot is not None and snapshot.session_id is not None and not snapshot.ended
-    base = dict(rig=rig, connection=connection(status, in_session, quiet_after_s), source_text=source_text,
-                alert_count=alert_count, alert_severity=alert_severity)
+    word = connection(status, in_session, quiet_after_s)
+    unattended = snapshot.unattended_events if snapshot is not None and not in_session else 0
+    if unattended and word is Connection.IDLE and status is not None and status.state != STOPPED:
+        word = Connection.UNATTENDED
+    base = dict(rig=rig, connection=word, source_text=source_text, alert_count=alert_count,
+                alert_severity=alert_severity, unattended_presses=unattended)
     if snapshot is None or snapshot.live is None or not in_session:
         return RigTileState(animal=None if not in_session else snapshot.animal, **base)
     live = snapshot.live
@@ -74,7 +79,7 @@ def tile_state(rig: str, snapshot: RigSnapshot | None, status: SourceStatus | No
     seconds = float(math.floor(now - snapshot.started)) if snapshot.started is not None else None
     return RigTileState(
         animal=snapshot.animal, session_seconds=seconds, trials_today=live.trials,
-        hit_rate=_finite(live.rolling_hit_rate) if live.rolling_trials else None,
+        hit_rate=_finite(live.rolling_hit_rate) if live.rolling_trials else None, hit_window=live.rolling_trials,
         hit_low=_finite(live.rolling_low) if live.rolling_trials else None,
         hit_high=_finite(live.rolling_high) if live.rolling_trials else None,
         last_interval_ms=last,

@@ -15,10 +15,11 @@ import sqlite3
 from datetime import datetime
 from typing import NamedTuple
 
+from monitor.core.alerts import ACTIVITY_EVENTS
 from monitor.store import derive, records
 from monitor.store.records import RecordError
 
-ACTIVITY = ("lever_down", "joystick", "trial_start")   # what makes a run worth giving: presses or trials
+ACTIVITY = ACTIVITY_EVENTS   # what makes a run worth giving: presses, pushes or trials
 
 
 class UnattendedRun(NamedTuple):

@@ -423,11 +423,17 @@ class SessionTable(QWidget):
         header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
         header.setStretchLastSection(True)
         self.exclude_button = QPushButton("Flag exclusion…")
+        self.include_button = QPushButton("Undo exclusion…")
+        self.include_button.setToolTip("Count the selected excluded session again (a reason is asked and logged)")
+        self.include_button.setEnabled(False)
         self.condition_button = QPushButton("Add condition…")
         self.exclude_button.clicked.connect(lambda: self.open_exclusion())
+        self.include_button.clicked.connect(lambda: self.open_exclusion(undo=True))
         self.condition_button.clicked.connect(lambda: self.open_condition())
+        self.table.itemSelectionChanged.connect(self._selection_changed)
         buttons = QHBoxLayout()
         buttons.addWidget(self.exclude_button)
+        buttons.addWidget(self.include_button)
         buttons.addWidget(self.condition_button)
         buttons.addStretch(1)
         layout = QVBoxLayout(self)
@@ -453,6 +459,7 @@ class SessionTable(QWidget):
                 if c in (0, 4, 5, 6, 7, 8):
                     item.setTextAlignment(Qt.AlignmentFlag.AlignRight | Qt.AlignmentFlag.AlignVCenter)
         self.table.scrollToBottom()
+        self._selection_changed()
 
     def selected_session(self) -> int | None:
         rows = self.table.selectionModel().selectedRows()
@@ -465,12 +472,18 @@ class SessionTable(QWidget):
             if row.index == index:
                 self.table.selectRow(r)
 
-    def open_exclusion(self, session: int | None = None) -> ExclusionDialog | None:
-        """Open the exclusion dialog for `session` (default: the selected row)."""
+    def _selection_changed(self) -> None:
+        session = self.selected_session()
+        row = next((r for r in self._rows if r.index == session), None)
+        self.include_button.setEnabled(row is not None and row.excluded)
+        self.exclude_button.setEnabled(row is None or not row.excluded)
+
+    def open_exclusion(self, session: int | None = None, undo: bool = False) -> ExclusionDialog | None:
+        """Open the exclusion dialog for `session` (default: the selected row); `undo`: count it again."""
         session = session if session is not None else self.selected_session()
         if session is None:
             return None
-        dialog = ExclusionDialog(self.animal, session, self)
+        dialog = ExclusionDialog(self.animal, session, self, undo=undo)
         dialog.submitted.connect(self.exclusion_requested)
         return self._show(dialog)
 

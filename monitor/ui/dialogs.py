@@ -24,9 +24,10 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster
+from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, UnattendedGift
 from monitor.ui.theme import ADVISORY
-from monitor.ui.validation import check_in_problems, condition_problems, exclusion_problems, unusual_box_warning
+from monitor.ui.validation import (check_in_problems, condition_problems, exclusion_problems, gift_problems,
+                                  unusual_box_warning)
 
 
 def plain_label(text: str = "", wrap: bool = True) -> QLabel:
@@ -201,21 +202,71 @@ class ConditionDialog(RecordDialog):
 
 
 class ExclusionDialog(RecordDialog):
-    """Keep one session out of curves and fits; a reason is required."""
+    """Keep one session out of curves and fits, or count it again (`undo`); a reason is required either way."""
 
     submitted = Signal(object)      # Exclusion
 
-    def __init__(self, animal: str, session: int, parent: QWidget | None = None) -> None:
-        super().__init__(f"Exclude {animal}, session {session}", parent)
-        self.animal, self.session = animal, session
+    def __init__(self, animal: str, session: int, parent: QWidget | None = None, undo: bool = False) -> None:
+        super().__init__(f"Count {animal}'s session {session} again" if undo else
+                         f"Exclude {animal}, session {session}", parent)
+        self.animal, self.session, self.undo = animal, session, undo
         self.reason = QLineEdit()
-        self.reason.setPlaceholderText("e.g. lever stuck for 20 min")
+        self.reason.setPlaceholderText("e.g. the cable was fine after all" if undo else "e.g. lever stuck for 20 min")
         self.add_row("Reason", self.reason)
-        self.body.insertWidget(1, plain_label("The session stays in the store and in the table; it is kept out of "
-                                              "the learning curve, the plateau rule and the model fits."))
+        self.body.insertWidget(1, plain_label(
+            "The session goes back into the learning curve, the plateau rule and the model fits; the exclusion "
+            "and its undoing both stay in the log." if undo else
+            "The session stays in the store and in the table; it is kept out of the learning curve, the plateau "
+            "rule and the model fits."))
 
     def problems(self) -> list[str]:
-        return exclusion_problems(self.reason.text())
+        return exclusion_problems(self.reason.text(), self.undo)
 
     def emit_record(self) -> None:
-        self.submitted.emit(Exclusion(animal=self.animal, session=self.session, reason=self.reason.text().strip()))
+        self.submitted.emit(Exclusion(animal=self.animal, session=self.session, reason=self.reason.text().strip(),
+                                      excluded=not self.undo))
+
+
+class GiveDialog(RecordDialog):
+    """Give the presses a box sent while nobody was checked in to the animal that was in it."""
+
+    given = Signal(object)          # UnattendedGift
+
+    def __init__(self, roster: Roster, presses: dict[str, int], rig: str | None = None, operator: str = "",
+                 parent: QWidget | None = None) -> None:
+        super().__init__("Give unattended trials to an animal", parent)
+        self.presses = presses
+        self.rig = QComboBox()
+        self.rig.addItems([r for r in roster.rigs if presses.get(r)])
+        if rig and presses.get(rig):
+            self.rig.setCurrentText(rig)
+        self.animal = QComboBox()
+        self.animal.setEditable(True)
+        self.animal.addItems(list(roster.animals))
+        self.animal.setCurrentText("")
+        self.operator = QLineEdit(operator)
+        self.reason = QLineEdit()
+        self.reason.setPlaceholderText("e.g. checked in late: wren was in the box from 09:05")
+        self.count = plain_label()
+        self.add_row("Box", self.rig)
+        self.form.addRow(self.count)
+        self.add_row("Animal", self.animal)
+        self.add_row("Operator", self.operator)
+        self.add_row("Reason", self.reason)
+        self.body.insertWidget(1, plain_label("The box's run with nobody checked in is closed and becomes a session "
+                                              "of this animal; the change is logged with your name and reason."))
+        self.rig.currentTextChanged.connect(self._refresh)
+        self._refresh()
+
+    def _refresh(self) -> None:
+        n = self.presses.get(self.rig.currentText(), 0)
+        self.count.setText(f"{n} presses or trials kept from this box." if n else
+                           "No box has run with nobody checked in.")
+
+    def problems(self) -> list[str]:
+        return gift_problems(self.rig.currentText(), self.presses.get(self.rig.currentText(), 0),
+                             self.animal.currentText(), self.operator.text(), self.reason.text())
+
+    def emit_record(self) -> None:
+        self.given.emit(UnattendedGift(self.rig.currentText(), self.animal.currentText().strip(),
+                                       self.operator.text().strip(), self.reason.text().strip()))

@@ -21,7 +21,7 @@ from PySide6.QtWidgets import QMainWindow, QSplitter, QTabWidget, QToolBar, QWid
 from icons import icon_path
 from monitor.ui.alerts import AlertNotifier, AlertPanel
 from monitor.ui.animal_page import AnimalPage
-from monitor.ui.dialogs import CheckInDialog, plain_label
+from monitor.ui.dialogs import CheckInDialog, GiveDialog, plain_label
 from monitor.ui.models import Roster, SerialDevice, StatusState
 from monitor.ui.overview import OverviewPanel
 from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
@@ -41,6 +41,7 @@ SHORTCUTS = {
     "decide": "Ctrl+D",
     "decisions": "Ctrl+Shift+D",
     "care": "Ctrl+J",
+    "give": "Ctrl+G",
 }
 
 
@@ -61,6 +62,7 @@ class MainWindow(QMainWindow):
     decision_requested = Signal(str)       # animal ('' when no page is open): open the decision dialog
     history_requested = Signal(str)        # animal: show its logged decisions
     care_requested = Signal()              # open the care window (the day's water ledger)
+    unattended_given = Signal(object)      # UnattendedGift
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
                  roster: Roster | None = None, discover_devices: Callable[[], Sequence[SerialDevice]] = tuple,
@@ -123,6 +125,8 @@ class MainWindow(QMainWindow):
         rigs.addAction(self._action("next_rig", "&Next rig", lambda: self.overview.focus_next(1)))
         rigs.addAction(self._action("previous_rig", "&Previous rig", lambda: self.overview.focus_next(-1)))
         rigs.addAction(self._action("open_page", "Open animal &page", self.open_current))
+        rigs.addSeparator()
+        rigs.addAction(self._action("give", "&Give unattended trials…", self.open_give))
         rigs.addSeparator()
         rigs.addAction(self._action("add_rig", "&Add rig…", self.open_setup, "add-rig"))
         view = self.menuBar().addMenu("&View")
@@ -229,6 +233,13 @@ class MainWindow(QMainWindow):
         dialog.check_out_button.setDefault(True)
         dialog.check_out_button.setFocus()
         return dialog
+
+    def open_give(self) -> GiveDialog:
+        presses = {r: s.unattended_presses for r in self.board.rigs() if (s := self.board.state(r)) is not None}
+        dialog = GiveDialog(self.roster, presses, rig=self._current_rig(), operator=self.alert_panel.operator.text(),
+                            parent=self)
+        dialog.given.connect(self.unattended_given)
+        return self._show(dialog)
 
     def open_setup(self) -> SetupDialog:
         dialog = SetupDialog(self.discover_devices(), self.protocols(), existing=self.board.rigs(), parent=self)

@@ -27,6 +27,7 @@ class Connection(Enum):
     QUIET = ("quiet", "triangle", "orange")             # session running, no events for a while
     RETRYING = ("retrying", "diamond", "reddish_purple")  # lost, reopening the port or file
     LOST = ("lost", "cross", "vermillion")              # disconnected, not coming back by itself
+    UNATTENDED = ("running, nobody checked in", "square", "orange")   # presses arrive with no session
 
     def __init__(self, word: str, shape: str, colour: str) -> None:
         self.word = word
@@ -87,6 +88,8 @@ class RigTileState:
     alert_count: int = 0
     alert_severity: Severity | None = None
     source_text: str = ""                      # port or file path, shown as plain text
+    unattended_presses: int = 0                # presses or trials with nobody checked in (kept, can be given)
+    hit_window: int = 0                        # trials behind the rolling hit rate (at most the rolling size)
 
     def __post_init__(self) -> None:
         if self.hist_counts and len(self.hist_edges_ms) != len(self.hist_counts) + 1:
@@ -263,6 +266,16 @@ class Roster:
 
 
 @dataclass(frozen=True)
+class UnattendedGift:
+    """A person's statement: the presses this box sent with nobody checked in were this animal's."""
+
+    rig: str
+    animal: str
+    operator: str
+    reason: str
+
+
+@dataclass(frozen=True)
 class CheckIn:
     """A person's statement: this animal is in this box now."""
 
@@ -293,6 +306,7 @@ class Exclusion:
     animal: str
     session: int
     reason: str
+    excluded: bool = True            # False: undo an earlier exclusion (the reason says why)
 
 
 @dataclass(frozen=True)

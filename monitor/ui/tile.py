@@ -74,12 +74,14 @@ def tile_texts(state: RigTileState) -> TileTexts:
         window = "no window"
     return TileTexts(
         title=state.rig,
-        animal=state.animal or "no animal",
+        animal=state.animal or (f"nobody checked in: {state.unattended_presses} presses kept"
+                                if state.unattended_presses else "no animal"),
         state=state.connection.word,
         clock=clock_text(state.session_seconds),
         trials=f"{state.trials_today:d}",
         trials_caption="trials today",
-        hit_rate="hit " + percent(state.hit_rate),
+        hit_rate=(f"hit {percent(state.hit_rate)} (last {state.hit_window})" if state.hit_window
+                  else "hit " + percent(state.hit_rate)),
         hit_interval=interval_text(state.hit_low, state.hit_high),
         last_interval="last " + ms_text(state.last_interval_ms),
         window=window,

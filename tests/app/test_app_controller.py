@@ -262,3 +262,32 @@ def test_params_sent_before_check_in_are_the_sessions_and_the_box_names_the_stag
     controller.check_out("box 2")
     # the animal's next check-in, in a box that says nothing, defaults to its current stage
     assert controller.roster().default_stage("newt", "box 1") == "final"
+
+
+def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_afterwards(rig, qtbot):
+    from monitor.app.controller import store_v2
+    from monitor.ui.models import Connection, UnattendedGift
+
+    controller, window, log, store, db = rig
+    with log.open("ab") as fh:
+        fh.write(streams.session_bytes([650, 700, 640, 1000, 655]))
+    qtbot.waitUntil(lambda: (controller.board.state("box 1") or None) is not None
+                    and controller.board.state("box 1").connection is Connection.UNATTENDED, timeout=10000)
+    assert controller.board.state("box 1").unattended_presses == 15          # 5 trial starts + 10 presses
+    qtbot.waitUntil(lambda: any(a.kind == "nobody checked in" for a in controller.alert_book.alerts()), timeout=5000)
+    if not store_v2():
+        return
+    qtbot.waitUntil(lambda: controller.writer.status().pending_rows == 0, timeout=10000)
+    old = controller.rigs["box 1"].idle_session_id
+    controller.give_unattended(UnattendedGift("box 1", "newt", "ana", "checked in late"))
+    qtbot.waitUntil(lambda: ("newt", "box 1", 1) in sessions_in(db), timeout=10000)
+    qtbot.waitUntil(lambda: controller.board.state("box 1").connection is not Connection.UNATTENDED, timeout=10000)
+    with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+        assert conn.execute("SELECT count(*) FROM trials WHERE session_id = ?", (old,)).fetchone()[0] == 5
+        assert conn.execute("SELECT change, animal, operator, reason FROM session_changes WHERE session_id = ?",
+                            (old,)).fetchall() == [("given", "newt", "ana", "checked in late")]
+    assert controller.rigs["box 1"].idle_session_id != old
+    # the box's next data go to a fresh run of no animal
+    with log.open("ab") as fh:
+        fh.write(streams.session_bytes([650, 700], start_ms=60_000).split(b"\n", 1)[1])
+    qtbot.waitUntil(lambda: controller.board.state("box 1").unattended_presses == 6, timeout=10000)

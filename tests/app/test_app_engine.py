@@ -299,3 +299,26 @@ def test_no_disagreement_alert_while_the_window_is_a_guess():
     drain(engine)
     assert engine.take_snapshots()["box 1"].window_known
     assert [a.alert.kind for a in engine.take_alerts()] == ["disagreement"]
+
+
+def test_a_box_streaming_with_nobody_checked_in_is_counted_and_alerted_once():
+    engine = Engine(publish_s=0.0, check_s=0.0)
+    fanout = Fanout(Writer(), source_id=1, session_id=99, live=True, engine=engine.queue)    # no animal
+    engine.add_rig("box 1", 1, status)
+    decoder = WireDecoder()
+    fanout(Batch(decoder.feed(session_bytes([650.0, 700.0, 640.0], rig_outcomes=False)), time.time()))
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    assert snap.session_id is None and snap.unattended_events == 9      # 3 trial starts + 6 presses
+    assert [a.alert.kind for a in engine.take_alerts()] == ["nobody checked in"]
+    fanout(Batch(decoder.feed(session_bytes([650.0], start_ms=20_000).split(b"\n", 1)[1]), time.time()))
+    drain(engine)
+    assert engine.take_alerts() == []                                   # once per stretch
+    engine.forget_unattended("box 1")
+    drain(engine)
+    assert engine.take_snapshots()["box 1"].unattended_events == 0
+    engine.open_session(SessionPlan("box 1", 5, "wren", PROTOCOL, started=1.0))
+    fanout.session_id = 5
+    fanout(Batch(decoder.feed(session_bytes([650.0] * 4, start_ms=40_000).split(b"\n", 1)[1]), time.time()))
+    drain(engine)
+    assert engine.take_snapshots()["box 1"].unattended_events == 0 and engine.take_alerts() == []

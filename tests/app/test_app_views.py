@@ -213,3 +213,20 @@ def test_learning_curve_of_a_shaping_animal_is_not_empty():
     curve = views.history_parts(STAGED, sessions).curve
     assert list(curve.session) == [1] and curve.stage == ("wide",)
     assert curve.plateau_word == "not reached"
+
+
+def test_a_box_streaming_with_nobody_checked_in_has_its_own_tile_state():
+    engine = Engine(publish_s=0.0, check_s=1e9)
+    from monitor.app.pipeline import EngineBatch
+    from drivers.status import Batch
+    engine.add_rig("box 2", 1)
+    engine.step(0)
+    engine.queue.put(EngineBatch(1, 99, Batch(WireDecoder().feed(session_bytes([650, 700])), 0.0), 1.0))
+    engine.step(0)
+    snap = engine.take_snapshots()["box 2"]
+    tile = views.tile_state("box 2", snap, status(READING), now=5.0)
+    assert tile.connection is Connection.UNATTENDED and tile.unattended_presses == 6
+    assert tile.animal is None and tile.trials_today == 0
+    from monitor.ui.tile import tile_texts
+    assert tile_texts(tile).animal == "nobody checked in: 6 presses kept"
+    assert views.tile_state("box 2", None, status(READING), now=5.0).connection is Connection.IDLE

@@ -247,3 +247,19 @@ def test_eligibility_verdict_shows_with_the_advisory_and_hides_without(page):
     assert page.eligibility_line.isHidden() and page.care_advisory.isHidden()
     page.book.update(replace(state, care_text=""))
     assert not page.eligibility_line.isHidden() and not page.care_advisory.isHidden()
+
+
+def test_an_exclusion_is_undone_with_its_own_reason(page, qtbot):
+    excluded = next(r.index for r in page.book.state("cedar").sessions if r.excluded)
+    page.sessions.select_session(excluded)
+    assert page.sessions.include_button.isEnabled() and not page.sessions.exclude_button.isEnabled()
+    dialog = page.sessions.open_exclusion(undo=True)
+    with qtbot.assertNotEmitted(page.exclusion_requested):
+        assert not dialog.try_accept()
+    assert "counts again" in dialog.problem_line.text()
+    dialog.reason.setText("lever was fine")
+    with qtbot.waitSignal(page.exclusion_requested) as emitted:
+        assert dialog.try_accept()
+    assert emitted.args == [Exclusion(animal="cedar", session=excluded, reason="lever was fine", excluded=False)]
+    page.sessions.select_session(excluded - 1)
+    assert not page.sessions.include_button.isEnabled()

@@ -110,3 +110,21 @@ def test_check_in_stage_defaults_to_the_box_then_the_animal_then_the_first_stage
     assert dialog.stage.currentText() == "final"
     dialog.rig.setCurrentText("box-02")                   # a box that said its stage: the box's word
     assert dialog.stage.currentText() == "adaptive"
+
+
+def test_give_dialog_offers_only_boxes_that_ran_unattended_and_needs_a_reason(qtbot):
+    from monitor.ui.dialogs import GiveDialog
+    from monitor.ui.models import UnattendedGift
+
+    dialog = GiveDialog(ROSTER, {"box-02": 14}, rig="box-01", operator="R. Okafor")
+    qtbot.addWidget(dialog)
+    assert [dialog.rig.itemText(i) for i in range(dialog.rig.count())] == ["box-02"]
+    assert dialog.count.text() == "14 presses or trials kept from this box."
+    dialog.animal.setCurrentText("birch")
+    with qtbot.assertNotEmitted(dialog.given):
+        assert not dialog.try_accept()
+    assert "Reason" in dialog.problem_line.text()
+    dialog.reason.setText("checked in late")
+    with qtbot.waitSignal(dialog.given) as done:
+        assert dialog.try_accept()
+    assert done.args == [UnattendedGift("box-02", "birch", "R. Okafor", "checked in late")]
