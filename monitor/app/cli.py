@@ -4,7 +4,8 @@ Rule: this module only parses. Each subcommand lives in its own module of
 `monitor.app.commands` exposing `add_arguments(parser)` and `run(args) -> int`;
 those modules import their heavy dependencies (Qt, scipy, the store) inside
 `run`, so `rigside record` never loads Qt or scipy. Bad input anywhere gives
-one line `rigside CMD: error: ...` on stderr and exit code 2. Plain
+one line `rigside CMD: error: ...` on stderr and exit code 2; a runtime fault
+gives one line `rigside CMD: failed: ...` and exit code 1, never a traceback. Plain
 `rigside`, with no command, opens the window (`rigside window`).
 """
 
@@ -29,6 +30,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "assign": ("monitor.app.commands.assign", "draw an animal's group at random and record it; reveal a blinding key"),
     "log": ("monitor.app.commands.log", "check the decision log"),
     "care": ("monitor.app.commands.care", "care log: weights, supplements, notes, the daily care sheet"),
+    "unattended": ("monitor.app.commands.unattended", "a box's runs with nobody checked in; give one to an animal"),
 }
 
 
@@ -77,6 +79,17 @@ def main(argv: Sequence[str] | None = None) -> int:
         # the reader went away (`rigside report --json | head`): no traceback; Python's documented recipe
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 1
+    except Exception as exc:  # noqa: BLE001 - a runtime fault: one plain line, exit 1, never a traceback
+        sys.stderr.write(f"rigside {args.command}: failed: {plain_error(exc)}\n")
+        return 1
+
+
+def plain_error(exc: BaseException) -> str:
+    """An exception as a person reads it: an OS error's own words and its file, never "[Errno N]"."""
+    if isinstance(exc, OSError) and exc.strerror:
+        where = exc.filename if exc.filename is not None else ""
+        return f"{exc.strerror}: {where}" if where else exc.strerror
+    return str(exc).strip() or type(exc).__name__
 
 
 if __name__ == "__main__":

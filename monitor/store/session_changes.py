@@ -67,6 +67,13 @@ def unattended_runs(conn: sqlite3.Connection, rig: str | None = None) -> list[Un
     return [UnattendedRun(i, r, start, bool(ended), counts[i]) for i, r, start, ended in runs if counts.get(i)]
 
 
+def latest_protocol_id(conn: sqlite3.Connection, animal: str) -> int | None:
+    """The protocol of the animal's latest session that has one (None: no such session)."""
+    row = conn.execute("SELECT protocol_id FROM sessions WHERE animal = ? AND protocol_id IS NOT NULL "
+                       "ORDER BY started_at DESC, id DESC LIMIT 1", (animal,)).fetchone()
+    return None if row is None else int(row[0])
+
+
 def give_run(conn: sqlite3.Connection, session_id: int, *, animal: str, operator: str, reason: str,
              protocol_id: int, stage: str | None = None) -> int:
     """Give an ended unattended run to `animal` (logged); return the trials derived from it."""
