@@ -36,6 +36,7 @@ from monitor.app.assigning import AssignError, Draw, draw_next, record_draw
 from monitor.core.assignment import BLOCKS_METHOD
 from monitor.core.care import NO_RECORD, RECORDED, RUNNING, CareConfig, DaySummary
 from monitor.core.decision_log import ChainCheck, LogEntry, rule_agrees
+from monitor.core.eligibility import LABELS
 from monitor.core.eligibility_verdict import Verdict, window_changes
 from monitor.store import db
 from monitor.ui.care_panel import LEVELS, CareEntry, CarePanel, CareRow, CareView, sheet_image
@@ -66,14 +67,14 @@ def figure_lines(j: Judgement) -> tuple[tuple[str, str], ...]:
     return (("protocol", f"{f.protocol_name} v{f.protocol_version}"),
             ("latest session", "none" if f.session is None else str(f.session)),
             ("plateau", f"reached at session {f.plateau_session}" if f.plateau_reached else "not reached"),
-            ("sessions since plateau", "not available" if f.sessions_since_plateau is None
+            (LABELS["sessions_since_plateau"], "not available" if f.sessions_since_plateau is None
              else str(f.sessions_since_plateau)),
-            ("trials since plateau", "not available" if f.trials_since_plateau is None
+            (LABELS["trials_since_plateau"], "not available" if f.trials_since_plateau is None
              else str(f.trials_since_plateau)),
             ("hit rate (latest session)", percent(m.get("hit_rate"))),
             ("in fixed window", percent(m.get("fixed_window_fraction"))),
-            ("interval error (median |log ratio|)", _num(m.get("interval_error"))),
-            ("CV of intervals", _num(m.get("cv"))),
+            (LABELS["interval_error"], _num(m.get("interval_error"), 3)),
+            (LABELS["cv"], _num(m.get("cv"), 3)),
             ("slow-state fraction (model)", slow))
 
 

@@ -27,7 +27,8 @@ import numpy as np
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from monitor.app.engine import RigSnapshot
 from monitor.core.binomial import wilson
-from monitor.core.consolidation_model import TrialSeries
+from monitor.core.eligibility_figures import AnimalFigures
+from monitor.core.eligibility_report import figures_from_report
 from monitor.core.plateau import judge
 from monitor.core.protocol import Protocol
 from monitor.core.sessions import BINARY_MEASURES, SessionInput, learning_curve, summarize
@@ -163,13 +164,6 @@ class HistoryParts(NamedTuple):
     session_ids: tuple[int | None, ...] = ()   # the store's id of each row of `sessions`
 
 
-def consolidation_series(protocol: Protocol, sessions: Sequence[HistorySession]) -> TrialSeries:
-    """The final stage's completed trials as the consolidation estimator takes them (label = session index)."""
-    from monitor.store.consolidation_fits import build_series
-
-    return build_series(protocol.final_stage.name, [(s.trials, s.break_hours, s.excluded) for s in sessions])
-
-
 def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
                   fit: Mapping[str, Any] | None = None) -> HistoryParts:
     """Learning curve, consolidation panel and session table from an animal's past sessions.
@@ -177,8 +171,6 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
     `fit` is the consolidation block of the store's cached fit (CONTRACTS.md section 5 with its
     "trajectory", "forecast" and "current"), or None: measures only.
     """
-    from monitor.core.consolidation_measures import since_plateau
-
     inputs = [SessionInput(s.trials, s.start, s.malformed_lines, s.excluded, s.exclusion_reason, s.counts,
                            s.water_ul) for s in sessions]
     summaries = [summarize(protocol, session, index) for index, session in enumerate(inputs, start=1)]
@@ -191,10 +183,12 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
         trials=s.figures.trials, hits=s.figures.hits, hit_rate=s.figures.hit_rate,
         median_ms=s.figures.median_interval_ms, cv=s.figures.cv, excluded=s.excluded,
         exclusion_reason=s.exclusion_reason, conditions=sessions[s.index - 1].conditions) for s in summaries)
-    series = consolidation_series(protocol, sessions)
-    since = since_plateau(series, plateau_session)
+    figures = figures_from_report({"animal": "", "sessions": [dict(
+        index=s.index, trials=s.figures.trials, excluded=s.excluded, hit_rate=s.figures.hit_rate, cv=s.figures.cv,
+        fixed_window_fraction=s.figures.fixed_window_fraction, median_abs_log_error=s.figures.median_abs_log_error)
+        for s in summaries], "plateau": {"reached": result.reached, "session": plateau_session}})
     drops = hit_rate_drops(protocol, sessions)
-    consolidation = _consolidation_state(since, _latest_error(protocol, sessions), drops, fit)
+    consolidation = _consolidation_state(figures, drops, fit)
     previous: dict[str, tuple[float, ...]] = {}
     if sessions:
         for t in sessions[-1].trials:
@@ -259,29 +253,16 @@ def hit_rate_drops(protocol: Protocol, sessions: Sequence[HistorySession], warmu
     return tuple(drops)
 
 
-def _latest_error(protocol: Protocol, sessions: Sequence[HistorySession]) -> tuple[float | None, float | None]:
-    """Median |interval - target| (ms) and CV of the final stage in the latest session that has trials."""
-    final = protocol.final_stage.name
-    for session in reversed(sessions):
-        if session.excluded:
-            continue
-        done = [t for t in session.trials if t.completed and t.stage == final and math.isfinite(t.interval_ms)]
-        if len(done) >= 2:
-            intervals = np.array([t.interval_ms for t in done])
-            targets = np.array([t.target_ms for t in done])
-            cv = float(np.std(intervals, ddof=1) / np.mean(intervals))
-            return float(np.median(np.abs(intervals - targets))), cv
-    return None, None
-
-
-def _consolidation_state(since: Mapping[str, int | None], latest: tuple[float | None, float | None],
-                         drops: tuple[StartDrop, ...], fit: Mapping[str, Any] | None) -> ConsolidationState:
-    error_ms, cv = latest
+def _consolidation_state(figures: AnimalFigures, drops: tuple[StartDrop, ...],
+                         fit: Mapping[str, Any] | None) -> ConsolidationState:
+    """The transparent measures are the eligibility's own figures (one definition each), then the model."""
+    since = {"trials": figures.trials_since_plateau, "sessions": figures.sessions_since_plateau}
+    error, cv = figures.measures.get("interval_error"), figures.measures.get("cv")
     empty = np.zeros(0)
     rows = list(fit.get("trajectory") or ()) if fit is not None else []
     if not rows:
         why = "not fitted yet" if fit is None else f"{fit['status']}" + (f", {fit['reason']}" if fit.get("reason") else "")
-        return ConsolidationState(since["trials"], since["sessions"], error_ms, cv, drops, empty, empty, empty,
+        return ConsolidationState(since["trials"], since["sessions"], error, cv, drops, empty, empty, empty,
                                   empty, (), model_comparison=f"Model: {why}.")
     comparison = f"Model ({fit['status']}): {fit.get('reason', '')}."
     if fit.get("current") is False:
@@ -292,7 +273,7 @@ def _consolidation_state(since: Mapping[str, int | None], latest: tuple[float | 
     if forecast and fit["status"] == "estimated":
         low, high = forecast["sessions_low"], forecast["sessions_high"]
     return ConsolidationState(
-        since["trials"], since["sessions"], error_ms, cv, drops,
+        since["trials"], since["sessions"], error, cv, drops,
         session=np.array([r["session"] for r in rows], float), fraction=np.array([r["estimate"] for r in rows], float),
         fraction_low=np.array([r["low"] for r in rows], float), fraction_high=np.array([r["high"] for r in rows], float),
         status=tuple(r["status"] for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,

@@ -43,6 +43,13 @@ _GROUP_KEYS = ({"label", "plateau", "slow_fraction_basis", "slow_fraction_status
                | {f"{side}_{figure}" for side in ("min", "max") for figure in FIGURES})
 _BARE = re.compile(r"^[A-Za-z0-9_\-]+$")
 
+LABELS = {      # one definition per figure, with its unit, wherever a person reads it (window, report, logs)
+    "sessions_since_plateau": "Sessions since plateau (included sessions after the plateau session)",
+    "trials_since_plateau": "Trials since plateau (completed trials of those sessions)",
+    "interval_error": "Interval error, median |ln(interval ÷ target)| (latest session; 0 is on target)",
+    "cv": "CV of intervals, SD ÷ mean (latest session)",
+}
+
 DISPLAY = {
     "sessions_since_plateau": "sessions since plateau",
     "trials_since_plateau": "trials since plateau",

@@ -35,6 +35,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
+from monitor.core.eligibility import LABELS
 from monitor.ui.dialogs import ConditionDialog, ExclusionDialog, plain_label
 from monitor.ui.models import AnimalPageState, ConsolidationState, CurveState, SessionRow, TodayState
 from monitor.ui.owners import AnimalBook
@@ -302,9 +303,9 @@ class ConsolidationPanel(QWidget):
         super().__init__(parent)
         self.measures: dict[str, QLabel] = {}
         form = QFormLayout()
-        for key, caption in (("trials", "Trials since plateau"), ("sessions", "Sessions since plateau"),
-                             ("error", "Interval error, median |interval − target|"),
-                             ("cv", "CV of intervals (SD/mean)"),
+        for key, caption in (("trials", LABELS["trials_since_plateau"]),
+                             ("sessions", LABELS["sessions_since_plateau"]),
+                             ("error", LABELS["interval_error"]), ("cv", LABELS["cv"]),
                              ("drops", "Start-of-session drop\n(hit-rate points, 95 % interval)")):
             label = _big(plain_label(), 12 if key != "drops" else 11, bold=key != "drops")
             self.measures[key] = label
@@ -357,8 +358,8 @@ class ConsolidationPanel(QWidget):
         m = self.measures
         m["trials"].setText(DASH if state.trials_since_plateau is None else f"{state.trials_since_plateau:,}")
         m["sessions"].setText(DASH if state.sessions_since_plateau is None else str(state.sessions_since_plateau))
-        m["error"].setText(ms_text(state.interval_error_ms))
-        m["cv"].setText(_num(state.cv))
+        m["error"].setText(_num(state.interval_error, 3))
+        m["cv"].setText(_num(state.cv, 3))
         drops = state.start_drops[-4:]
         m["drops"].setText("\n".join(f"session {d.session}: {_points(d.drop)} ({_points(d.low)} to {_points(d.high)})"
                                      for d in drops) or DASH)

@@ -169,7 +169,7 @@ class ConsolidationState:
 
     trials_since_plateau: int | None
     sessions_since_plateau: int | None
-    interval_error_ms: float | None  # median |interval - target| in the latest session
+    interval_error: float | None     # median |ln(interval / target)| of the latest included session
     cv: float | None
     start_drops: tuple[StartDrop, ...]
     session: np.ndarray              # sessions with a fitted slow-state fraction

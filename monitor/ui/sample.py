@@ -124,7 +124,7 @@ def consolidation_state(rng: np.random.Generator, first: int = 14, last: int = 2
                             warmup_trials=10)
                   for i, d in zip(range(last - 4, last + 1), np.linspace(0.14, 0.05, 5) + rng.normal(0, 0.01, 5)))
     return ConsolidationState(
-        trials_since_plateau=3820, sessions_since_plateau=last - first, interval_error_ms=61.0, cv=0.19,
+        trials_since_plateau=3820, sessions_since_plateau=last - first, interval_error=0.094, cv=0.19,
         start_drops=drops, session=s, fraction=frac, fraction_low=np.clip(frac - width, 0, 1),
         fraction_high=np.clip(frac + width * 0.8, 0, 1), status=status,
         model_comparison="The two-rate model fits better than the one-rate model (ΔAIC 14).",

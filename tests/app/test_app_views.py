@@ -122,8 +122,9 @@ def test_history_curve_plateau_and_rows():
     assert parts.sessions[0].start == "2026-03-01 09:00" and parts.sessions[0].rig == "box 1"
     assert parts.consolidation.sessions_since_plateau == 2
     assert parts.consolidation.trials_since_plateau == 16
-    assert parts.consolidation.interval_error_ms == pytest.approx(np.median(np.abs([650.0] * 6 + [1000.0] * 4
-                                                                                   - np.full(10, 650.0))))
+    latest = np.array([650.0] * 6 + [1000.0] * 4)
+    assert parts.consolidation.interval_error == pytest.approx(np.median(np.abs(np.log(latest / 650.0))))  # numpy
+    assert parts.consolidation.cv == pytest.approx(np.std(latest, ddof=1) / np.mean(latest))              # numpy
     assert parts.previous_intervals["main"] == tuple([650.0] * 5 + [1000.0] * 4 + [650.0])
     assert "not fitted" in parts.consolidation.model_comparison
 
@@ -230,3 +231,21 @@ def test_a_box_streaming_with_nobody_checked_in_has_its_own_tile_state():
     from monitor.ui.tile import tile_texts
     assert tile_texts(tile).animal == "nobody checked in: 6 presses kept"
     assert views.tile_state("box 2", None, status(READING), now=5.0).connection is Connection.IDLE
+
+
+def test_the_page_and_the_eligibility_figures_share_one_definition_each():
+    # the consolidation panel's transparent measures are the eligibility's figures from the report's sessions
+    from monitor.core.eligibility_report import figures_from_report
+
+    sessions = history([[1, 0, 0, 0, 0], [1, 1, 1, 0, 0], [1, 0, 1, 0, 1, 0], [1, 1, 1, 1, 1, 0, 0, 0, 0, 1],
+                        [1, 1, 1, 1, 0]])
+    parts = views.history_parts(PROTOCOL, sessions)
+    assert parts.consolidation.sessions_since_plateau == 3      # sessions 3, 4 and 5 come after the plateau (2)
+    assert parts.consolidation.trials_since_plateau == 6 + 10 + 5
+    report_sessions = [{"index": k + 1, "trials": r.trials, "excluded": False, "cv": r.cv,
+                        "median_abs_log_error": None} for k, r in enumerate(parts.sessions)]
+    figures = figures_from_report({"animal": "wren", "sessions": report_sessions,
+                                   "plateau": {"reached": True, "session": parts.plateau_session}})
+    assert figures.sessions_since_plateau == parts.consolidation.sessions_since_plateau
+    assert figures.trials_since_plateau == parts.consolidation.trials_since_plateau
+    assert figures.measures["cv"] == parts.consolidation.cv

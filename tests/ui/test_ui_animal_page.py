@@ -128,7 +128,7 @@ def test_consolidation_shows_measures_first_then_model_with_interval_caveat_and_
     c = page.book.state("cedar").consolidation
     m = page.consolidation.measures
     assert m["trials"].text() == "3,820" and m["sessions"].text() == "10"
-    assert m["error"].text() == "61 ms" and m["cv"].text() == "0.19"
+    assert m["error"].text() == "0.094" and m["cv"].text() == "0.190"
     assert m["drops"].text().count("session ") == 4
     assert "warm-up" in page.consolidation.warmup_note.text()
     assert re.match(r"Session 24: 0\.\d\d \(90 % interval 0\.\d\d–0\.\d\d\), estimated",
