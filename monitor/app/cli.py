@@ -17,7 +17,7 @@ import os
 import sys
 from typing import Sequence
 
-from monitor.app.errors import UsageError
+from monitor.app.errors import UsageError, plain_error
 
 COMMANDS: dict[str, tuple[str, str]] = {
     "window": ("monitor.app.commands.window", "the window for this PC's rigs (also plain `rigside`)"),
@@ -82,14 +82,6 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # noqa: BLE001 - a runtime fault: one plain line, exit 1, never a traceback
         sys.stderr.write(f"rigside {args.command}: failed: {plain_error(exc)}\n")
         return 1
-
-
-def plain_error(exc: BaseException) -> str:
-    """An exception as a person reads it: an OS error's own words and its file, never "[Errno N]"."""
-    if isinstance(exc, OSError) and exc.strerror:
-        where = exc.filename if exc.filename is not None else ""
-        return f"{exc.strerror}: {where}" if where else exc.strerror
-    return str(exc).strip() or type(exc).__name__
 
 
 if __name__ == "__main__":

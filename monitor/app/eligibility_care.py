@@ -50,6 +50,7 @@ WINDOW_SEVERITY = {"opened": ATTENTION, "closing": ATTENTION, "opening": INFO, "
 WINDOW_KIND = {"opened": "window opened", "closing": "window closing", "opening": "window may open",
                "closed": "window closed"}
 LEVEL_ORDER = ("alert", "warning", "notice")
+STATE_KINDS = ("no_record_today", "session_running")   # what the store cannot judge yet: a state, never an alarm
 
 
 
@@ -126,7 +127,8 @@ def history_view(animal: str, entries: Sequence[LogEntry], check: ChainCheck) ->
         planned = " on ".join(p for p in (d.planned_manipulation, d.planned_date) if p)
         rows.append((str(e.seq), d.time, d.decision, d.group or d.group_code or "", d.operator, d.rule_state or "",
                      agrees, d.reason, planned, "" if d.corrects is None else f"entry {d.corrects}"))
-    text = (f"Decision log intact: {check.checked} entries, hash chain verified." if check.ok else
+    text = (f"Decision log intact: {check.checked} {'entry' if check.checked == 1 else 'entries'}, hash chain "
+            "verified." if check.ok else
             f"Decision log broken at entry {check.seq} ({check.kind}): {check.message}")
     return HistoryView(animal, tuple(rows), check.ok, text)
 
@@ -162,12 +164,12 @@ def care_row(s: DaySummary) -> CareRow:
 
 def thresholds_text(c: CareConfig) -> str:
     species = ", ".join(f"{name} {figure:g}" for name, figure in c.species_ml_per_100g)
-    minimum = " or ".join(p for p in (
-        f"{c.daily_minimum_ml:g} ml/day" if c.daily_minimum_ml is not None else "",
-        f"{c.daily_minimum_ml_per_kg:g} ml/kg/day" if c.daily_minimum_ml_per_kg is not None else "",
-        f"ml per 100 g body weight ({species}; other species {c.daily_minimum_ml_per_100g:g})"
-        if c.daily_minimum_ml_per_100g is not None else "") if p)
-    minimum = f"the larger of {minimum}" if " or " in minimum else minimum
+    parts = [p for p in (
+        f"{c.daily_minimum_ml:g} ml" if c.daily_minimum_ml is not None else "",
+        f"{c.daily_minimum_ml_per_kg:g} ml per kg body weight" if c.daily_minimum_ml_per_kg is not None else "",
+        f"ml per 100 g body weight ({species}, any other species {c.daily_minimum_ml_per_100g:g})"
+        if c.daily_minimum_ml_per_100g is not None else "") if p]
+    minimum = "per day " + (f"the larger of {' and '.join(parts)}" if len(parts) > 1 else "".join(parts))
     return (f"Minimum {minimum}, due by {c.end_of_day:%H:%M}; weight warning below {c.weight_warning_percent:g} % "
             f"and limit below {c.weight_limit_percent:g} % of baseline; alert after {c.no_fluid_hours:g} h without "
             "fluid (advisory thresholds)")
@@ -283,6 +285,8 @@ class DecisionsAndCare(QObject):
             before = self._raised.get(s.animal, {})
             now: dict[tuple, int] = {}
             for a in s.alerts:
+                if a.kind in STATE_KINDS:        # the day's state, shown on the page and the care window
+                    continue
                 key = (s.day, a.kind, a.level)
                 now[key] = before[key] if key in before else self._push(
                     s.animal, a.kind.replace("_", " "), CARE_SEVERITY[a.level], f"{s.animal}: {a.message}")

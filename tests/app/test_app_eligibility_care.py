@@ -144,7 +144,7 @@ def test_a_decision_against_the_rule_is_recorded_with_the_snapshot_shown(app, qt
     qtbot.waitUntil(lambda: isinstance(records.dialog, DecisionHistory), timeout=20000)
     history = records.dialog
     assert history.table.rowCount() == 1 and history.table.item(0, 6).text() == "no (both kept)"
-    assert history.chain.text().startswith("✔ Decision log intact: 1 entries")
+    assert history.chain.text().startswith("✔ Decision log intact: 1 entry")
 
 
 def test_blinded_decisions_show_codes_and_compare_with_the_real_group():

@@ -6,7 +6,8 @@ import importlib.util
 import sqlite3
 from pathlib import Path
 
-from monitor.app.cli import main, plain_error
+from monitor.app.cli import main
+from monitor.app.errors import plain_error
 from monitor.store.db import open_store
 
 spec = importlib.util.spec_from_file_location("store_records_cli", Path(__file__).parents[1] / "store" /
