@@ -3,8 +3,9 @@
 Rule: the window owns no data; it shows the RigBoard, AnimalBook and AlertBook
 it is given and turns a person's actions into signals carrying frozen records
 (check-in, check-out, new rig, exclusion, condition) for the app to store.
-Common actions have keyboard shortcuts; geometry and layout are saved to and
-restored from the QSettings passed in (GUI thread only); plots follow the
+Common actions have keyboard shortcuts; the window opens fitted to the current
+screen, and its layout (splitter, operator) is saved to and restored from the
+QSettings passed in (GUI thread only); plots follow the
 system palette when it changes; a store overflow or failure turns the status
 bar loud. Sized for 1366×768 and up.
 """
@@ -101,7 +102,7 @@ class MainWindow(QMainWindow):
         self.actions: dict[str, QAction] = {}
         self._build_actions()
         self.set_status(StatusState())
-        self.resize(1366, 768)
+        self.fit_to_screen()
         self._restore()
         hints = QGuiApplication.styleHints()
         if hints is not None:
@@ -280,11 +281,18 @@ class MainWindow(QMainWindow):
         self.settings.setValue("alerts/operator", self.alert_panel.operator.text())
         self.settings.sync()
 
+    def fit_to_screen(self) -> None:
+        """Open filling the current screen's available area (whatever size it had last time)."""
+        screen = self.screen() or QGuiApplication.primaryScreen()
+        if screen is None:
+            self.resize(1366, 768)
+            return
+        self.setGeometry(screen.availableGeometry())
+
     def _restore(self) -> None:
         if self.settings is None:
             return
-        for key, restore in (("window/geometry", self.restoreGeometry), ("window/state", self.restoreState),
-                             ("window/splitter", self.splitter.restoreState)):
+        for key, restore in (("window/state", self.restoreState), ("window/splitter", self.splitter.restoreState)):
             value = self.settings.value(key)
             if isinstance(value, QByteArray) and not value.isEmpty():
                 restore(value)
