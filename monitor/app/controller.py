@@ -48,7 +48,7 @@ from monitor.core.protocol import Protocol, parse_protocol
 from monitor.core.stats import LiveSession
 from monitor.store import db
 from monitor.store.writer import StoreWriter
-from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, RigSetup, TodayState, UnattendedGift
+from monitor.ui.models import CheckIn, CheckOut, ConditionRecord, Exclusion, Roster, RigSetup, TodayState, UnattendedGift
 from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
 
 REFRESH_MS = 50
@@ -202,15 +202,18 @@ class StoreHistory:
                     "JOIN event_codes c ON c.code = e.code WHERE e.session_id = ? ORDER BY e.rowid", (session_id,))]
 
 
-def _end_session(conn: sqlite3.Connection, session_id: int) -> None:
-    """Check out (store v2: the check-in record too, then derive the session's trials), else end it."""
+def _end_session(conn: sqlite3.Connection, session_id: int, operator: str = "") -> None:
+    """Check out (store v2: the check-in record too, with who did it, then derive the session's trials), else
+    end it."""
     if not store_v2():
         db.end_session(conn, session_id)
         return
-    from monitor.store import derive, records
+    from monitor.store import derive, records, session_changes
 
     try:
         records.check_out(conn, session_id)
+        if operator.strip():
+            session_changes.checked_out_by(conn, session_id, operator)
     except records.RecordError:           # a session opened without a check-in record
         db.end_session(conn, session_id)
     derive.rebuild_trials(conn, session_id)
@@ -498,7 +501,11 @@ class Controller(QObject):
 
         self.run_job(f"checking in {record.animal}", work, done)
 
-    def check_out(self, rig_name: str) -> None:
+    def check_out(self, request: CheckOut | str) -> None:
+        """End the session in a box (`request`: the confirmed CheckOut, or a box's name: the Operator field's
+        name is recorded then)."""
+        rig_name, operator = (request.rig, request.operator) if isinstance(request, CheckOut) else \
+            (request, self._operator())
         rig = self.rigs.get(rig_name)
         if rig is None or rig.session_id is None:
             return
@@ -515,8 +522,8 @@ class Controller(QObject):
             if animal:
                 self.load_history(animal, refresh=True)
 
-        self.run_job(f"checking out {animal}", lambda job: self.writer.call(lambda c: _end_session(c, session_id)),
-                     done)
+        self.run_job(f"checking out {animal}",
+                     lambda job: self.writer.call(lambda c: _end_session(c, session_id, operator)), done)
 
     def give_unattended(self, gift: UnattendedGift) -> None:
         """Give a box's presses from while nobody was checked in to an animal (logged): the run is closed, a

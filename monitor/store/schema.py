@@ -341,6 +341,7 @@ _SESSION_CHANGES = (
         BEGIN SELECT RAISE(ABORT, '{_NO_REWRITE}'); END""",
     f"""CREATE TRIGGER session_changes_no_delete BEFORE DELETE ON session_changes
         BEGIN SELECT RAISE(ABORT, '{_NO_REWRITE}'); END""",
+    "ALTER TABLE checkins ADD COLUMN checked_out_by TEXT",   # who checked the animal out (confirmed)
 )
 
 MIGRATIONS: tuple[Migration, ...] = (
@@ -348,7 +349,8 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
               "care log, fits, alerts", _V2),
     Migration("assignment plans", _V3),
-    Migration("session changes log: unattended runs given to an animal, exclusions and their undoing",
+    Migration("session changes log: unattended runs given to an animal, exclusions and their undoing; "
+              "who checked an animal out",
               _SESSION_CHANGES),
 )
 SCHEMA_VERSION = len(MIGRATIONS)

@@ -105,6 +105,13 @@ def set_excluded(conn: sqlite3.Connection, session_id: int, excluded: bool, *, r
     _log(conn, session_id, "excluded" if excluded else "included", animal, reason, operator)
 
 
+def checked_out_by(conn: sqlite3.Connection, session_id: int, operator: str) -> None:
+    """Record who checked the animal of a checked-in session out."""
+    if not operator or not operator.strip():
+        raise RecordError("operator: who checks the animal out is needed")
+    conn.execute("UPDATE checkins SET checked_out_by = ? WHERE session_id = ?", (operator.strip(), session_id))
+
+
 def changes_of(conn: sqlite3.Connection, session_id: int) -> list[tuple[str, str | None, str, str, str]]:
     """(change, animal, reason, operator, at) of one session, oldest first."""
     return conn.execute("SELECT change, animal, reason, operator, at FROM session_changes WHERE session_id = ? "

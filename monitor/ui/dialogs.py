@@ -24,7 +24,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, UnattendedGift
+from monitor.ui.models import CheckIn, CheckOut, ConditionRecord, Exclusion, Roster, UnattendedGift
 from monitor.ui.theme import ADVISORY
 from monitor.ui.validation import (check_in_problems, condition_problems, exclusion_problems, gift_problems,
                                   unusual_box_warning)
@@ -85,7 +85,7 @@ class CheckInDialog(RecordDialog):
     """Which animal is in which box, who put it there, its weight and the stage."""
 
     checked_in = Signal(object)     # CheckIn
-    checked_out = Signal(str)       # rig
+    checked_out = Signal(object)    # CheckOut (after the person confirmed it)
 
     def __init__(self, roster: Roster, rig: str | None = None, operator: str = "",
                  parent: QWidget | None = None) -> None:
@@ -114,7 +114,8 @@ class CheckInDialog(RecordDialog):
         self.warning.setStyleSheet("background: rgba(230, 159, 0, 70); color: palette(text); "
                                    "font-weight: bold; padding: 4px;")
         self.occupant = plain_label()
-        self.check_out_button = QPushButton("Check out the animal in this box")
+        self.check_out_button = QPushButton("Check out the animal in this box…")
+        self._confirming = False
         self.check_out_button.clicked.connect(self.check_out)
         self.add_row("Box", self.rig)
         self.form.addRow(self.occupant)
@@ -146,6 +147,8 @@ class CheckInDialog(RecordDialog):
         occupant = self.roster.occupied.get(rig)
         self.occupant.setText(f"{occupant} is checked in here." if occupant else "This box is free.")
         self.check_out_button.setEnabled(occupant is not None)
+        self._confirming = False
+        self.check_out_button.setText("Check out the animal in this box…")
 
     def problems(self) -> list[str]:
         return check_in_problems(self.roster, self.animal.currentText(), self.rig.currentText(),
@@ -156,11 +159,26 @@ class CheckInDialog(RecordDialog):
                                      operator=self.operator.currentText().strip(), weight_g=self.weight.value(),
                                      stage=self.stage.currentText()))
 
-    def check_out(self) -> None:
+    def check_out(self) -> bool:
+        """First press: ask to confirm (and for the operator); second press: emit the check-out."""
         rig = self.rig.currentText()
-        if rig in self.roster.occupied:
-            self.checked_out.emit(rig)
-            self.accept()
+        animal = self.roster.occupied.get(rig)
+        if animal is None:
+            return False
+        if not self.operator.currentText().strip():
+            self.problem_line.setText("✖ Operator: type your name to check the animal out.")
+            self.problem_line.show()
+            self.operator.setFocus()
+            return False
+        if not self._confirming:
+            self._confirming = True
+            self.check_out_button.setText(f"Confirm: check {animal} out of {rig} now")
+            self.problem_line.setText(f"▲ The session of {animal} in {rig} ends when you confirm.")
+            self.problem_line.show()
+            return False
+        self.checked_out.emit(CheckOut(rig, animal, self.operator.currentText().strip()))
+        self.accept()
+        return True
 
 
 class ConditionDialog(RecordDialog):

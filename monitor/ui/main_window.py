@@ -54,7 +54,7 @@ class MainWindow(QMainWindow):
     """The window a trainer keeps open on the rig PC all day."""
 
     checked_in = Signal(object)            # CheckIn
-    checked_out = Signal(str)              # rig
+    checked_out = Signal(object)           # CheckOut (confirmed, with the operator)
     rig_added = Signal(object)             # RigSetup
     exclusion_requested = Signal(object)   # Exclusion
     condition_requested = Signal(object)   # ConditionRecord

@@ -266,6 +266,15 @@ class Roster:
 
 
 @dataclass(frozen=True)
+class CheckOut:
+    """A person's confirmed statement: the animal in this box is out now."""
+
+    rig: str
+    animal: str
+    operator: str
+
+
+@dataclass(frozen=True)
 class UnattendedGift:
     """A person's statement: the presses this box sent with nobody checked in were this animal's."""
 

@@ -291,3 +291,19 @@ def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_af
     with log.open("ab") as fh:
         fh.write(streams.session_bytes([650, 700], start_ms=60_000).split(b"\n", 1)[1])
     qtbot.waitUntil(lambda: controller.board.state("box 1").unattended_presses == 6, timeout=10000)
+
+
+def test_check_out_records_who_confirmed_it(rig, qtbot):
+    from monitor.app.controller import store_v2
+    from monitor.ui.models import CheckOut
+
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    session_id = controller.rigs["box 1"].session_id
+    controller.check_out(CheckOut("box 1", "wren", "bo"))
+    qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
+    if store_v2():
+        with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+            assert conn.execute("SELECT operator, checked_out_by FROM checkins WHERE session_id = ?",
+                                (session_id,)).fetchone() == ("ana", "bo")

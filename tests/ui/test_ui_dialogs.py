@@ -5,7 +5,7 @@ from __future__ import annotations
 from PySide6.QtCore import Qt
 
 from monitor.ui.dialogs import CheckInDialog
-from monitor.ui.models import CheckIn, RigSetup, Roster, SerialDevice
+from monitor.ui.models import CheckIn, CheckOut, RigSetup, Roster, SerialDevice
 from monitor.ui.setup import SetupDialog, device_text
 
 ROSTER = Roster(animals=("alder", "birch", "cedar"), rigs=("box-01", "box-02", "box-03"),
@@ -49,9 +49,18 @@ def test_check_out_is_offered_only_for_an_occupied_box(qtbot):
     assert dialog.animal.currentText() == "cedar"               # the occupant is preselected
     assert dialog.occupant.text() == "cedar is checked in here."
     assert dialog.check_out_button.isEnabled()
+    with qtbot.assertNotEmitted(dialog.checked_out):
+        qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)     # no operator yet
+    assert "Operator" in dialog.problem_line.text()
+    dialog.operator.setCurrentText("R. Okafor")
+    with qtbot.assertNotEmitted(dialog.checked_out):
+        qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)     # asks to confirm first
+    assert dialog.check_out_button.text() == "Confirm: check cedar out of box-03 now"
     with qtbot.waitSignal(dialog.checked_out) as out:
         qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)
-    assert out.args == ["box-03"]
+    assert out.args == [CheckOut("box-03", "cedar", "R. Okafor")]
+    dialog = CheckInDialog(ROSTER, rig="box-03", operator="R. Okafor")
+    qtbot.addWidget(dialog)
     dialog.rig.setCurrentText("box-02")
     assert not dialog.check_out_button.isEnabled() and dialog.occupant.text() == "This box is free."
 

@@ -166,9 +166,11 @@ def test_check_out_from_the_animal_page_uses_its_box(qtbot):
     window.open_animal("cedar")
     dialog = window.open_check_out()
     assert dialog.rig.currentText() == "box-03"
+    dialog.operator.setCurrentText("R. Okafor")
+    qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)        # then confirm
     with qtbot.waitSignal(window.checked_out) as out:
         qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)
-    assert out.args == ["box-03"]
+    assert out.args[0].rig == "box-03" and out.args[0].operator == "R. Okafor"
 
 
 def test_next_rig_and_acknowledge_shortcuts(qtbot):
