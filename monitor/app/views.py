@@ -125,13 +125,17 @@ def store_health(state: str) -> StoreHealth:
 def status_state(statuses: Mapping[str, SourceStatus], writer_state: str, writer_text: str,
                  committed_events: int) -> StatusState:
     """The status bar: how many sources read, which are not, and the store writer."""
-    words = [f"{rig}: {status.text}" for rig, status in statuses.items()
-             if status.state in (LOST, WAITING, STOPPED)]
-    reading = len(statuses) - len(words)
-    sources = f"{reading} of {len(statuses)} sources reading" + (" — " + "; ".join(words) if words else "")
+    troubled = {rig: status for rig, status in statuses.items() if status.state in (LOST, WAITING, STOPPED)}
+    words = {LOST: "lost", WAITING: "retrying", STOPPED: "stopped"}
+    counts = [(word, sum(s.state == state for s in troubled.values())) for state, word in words.items()]
+    reading = len(statuses) - len(troubled)
+    sources = f"{reading} of {len(statuses)} sources reading" + \
+        ("; " + ", ".join(f"{n} {word}" for word, n in counts if n) if troubled else "")
+    detail = "\n".join(f"{rig}: {status.text}" for rig, status in troubled.items())
     health = store_health(writer_state)
     text = writer_text if health is not StoreHealth.SAVING else f"{committed_events} events saved"
-    return StatusState(sources_text=sources if statuses else "no sources", store=health, store_text=text)
+    return StatusState(sources_text=sources if statuses else "no sources", store=health, store_text=text,
+                       sources_detail=detail, sources_trouble=bool(troubled))
 
 
 # --- history ------------------------------------------------------------------------------

@@ -16,7 +16,7 @@ from typing import Callable, Sequence
 
 import pyqtgraph as pg
 from PySide6.QtCore import QByteArray, QEvent, QSettings, Qt, Signal
-from PySide6.QtGui import QAction, QCloseEvent, QGuiApplication, QIcon, QKeySequence
+from PySide6.QtGui import QAction, QCloseEvent, QFont, QGuiApplication, QIcon, QKeySequence
 from PySide6.QtWidgets import QMainWindow, QSplitter, QTabWidget, QToolBar, QWidget
 
 from icons import icon_path
@@ -27,7 +27,7 @@ from monitor.ui.models import Roster, SerialDevice, StatusState
 from monitor.ui.overview import OverviewPanel
 from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
 from monitor.ui.setup import SetupDialog
-from monitor.ui.theme import colour, plot_colours
+from monitor.ui.theme import colour, plain_tooltip, plot_colours
 
 SHORTCUTS = {
     "check_in": "Ctrl+I",
@@ -102,6 +102,9 @@ class MainWindow(QMainWindow):
         self.actions: dict[str, QAction] = {}
         self._build_actions()
         self.set_status(StatusState())
+        self._scaled = 1.0
+        self._base_fonts = [(w, w.font().pointSizeF()) for w in (self.alert_panel.list, self.alert_panel.summary,
+                                                                 self.sources_label, self.store_label)]
         self.fit_to_screen()
         self._restore()
         hints = QGuiApplication.styleHints()
@@ -155,7 +158,10 @@ class MainWindow(QMainWindow):
         self.roster = roster
 
     def set_status(self, status: StatusState) -> None:
-        self.sources_label.setText(status.sources_text)
+        self.sources_label.setText(("▲ " if status.sources_trouble else "") + status.sources_text)
+        self.sources_label.setToolTip(plain_tooltip(status.sources_detail) if status.sources_detail else "")
+        self.sources_label.setStyleSheet(f"color: {colour('vermillion').darker(120).name()}; font-weight: bold;"
+                                         if status.sources_trouble else "")
         store = status.store
         text = f"store: {store.word}" + (f" — {status.store_text}" if status.store_text else "")
         self.store_label.setText(("✖ " if store.loud else "● ") + text)
@@ -280,6 +286,24 @@ class MainWindow(QMainWindow):
         self.settings.setValue("window/splitter", self.splitter.saveState())
         self.settings.setValue("alerts/operator", self.alert_panel.operator.text())
         self.settings.sync()
+
+    def text_scale(self) -> float:
+        """How much larger the alert list and status bar are than at 1366 px wide (1 to 1.6)."""
+        return min(max(self.width() / 1366.0, 1.0), 1.6)
+
+    def _scale_text(self) -> None:
+        scale = self.text_scale()
+        if abs(scale - self._scaled) < 0.02:
+            return
+        self._scaled = scale
+        for widget, base in self._base_fonts:
+            font = QFont(widget.font())
+            font.setPointSizeF(base * scale)
+            widget.setFont(font)
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._scale_text()
 
     def fit_to_screen(self) -> None:
         """Open filling the current screen's available area (whatever size it had last time)."""

@@ -241,6 +241,8 @@ class StatusState:
     sources_text: str = "no sources"
     store: StoreHealth = StoreHealth.SAVING
     store_text: str = ""
+    sources_detail: str = ""          # every box that is not reading, one per line (the tooltip)
+    sources_trouble: bool = False     # some box is not reading: the text is marked
 
 
 @dataclass(frozen=True)

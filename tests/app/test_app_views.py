@@ -90,7 +90,8 @@ def test_today_state_carries_the_series_and_previous_session():
 
 def test_status_bar_words():
     bar = views.status_state({"a": status(READING), "b": status(WAITING, gap_since=1.0)}, "ok", "ok", 1234)
-    assert bar.sources_text.startswith("1 of 2 sources reading — b: waiting for device")
+    assert bar.sources_text == "1 of 2 sources reading; 1 retrying" and bar.sources_trouble
+    assert bar.sources_detail.startswith("b: waiting for device")
     assert (bar.store, bar.store_text) == (StoreHealth.SAVING, "1234 events saved")
     assert views.status_state({}, "failed", "STORE WRITER FAILED: disk", 0).store is StoreHealth.FAILED
     assert views.status_state({}, "overflow", "x", 0).store.loud

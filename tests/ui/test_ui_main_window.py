@@ -248,3 +248,15 @@ def test_the_windows_icons_are_our_svgs_and_render(qtbot):
     for name in ("rigside", "check-in", "check-out", "acknowledge", "add-rig"):
         assert not QIcon(str(icon_path(name))).pixmap(32, 32).isNull(), name
     assert all(not window.actions[key].icon().isNull() for key in ("check_in", "check_out", "acknowledge", "add_rig"))
+
+
+def test_alert_list_and_status_bar_grow_with_a_wide_window(qtbot):
+    window = make_window(qtbot, rigs=2)
+    window.resize(1366, 768)
+    window.show()
+    qtbot.waitExposed(window)
+    small = window.alert_panel.list.font().pointSizeF()
+    window.resize(1920, 1080)
+    QApplication.processEvents()
+    assert window.alert_panel.list.font().pointSizeF() == pytest.approx(small * 1920 / 1366, rel=0.01)
+    assert window.sources_label.font().pointSizeF() > small * 0.99
