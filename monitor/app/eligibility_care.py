@@ -37,8 +37,10 @@ from monitor.core.assignment import BLOCKS_METHOD
 from monitor.core.care import NO_RECORD, RECORDED, RUNNING, CareConfig, DaySummary
 from monitor.core.decision_log import ChainCheck, LogEntry, rule_agrees
 from monitor.core.eligibility import LABELS
+from monitor.core.eligibility_figures import AnimalFigures
 from monitor.core.eligibility_verdict import Verdict, window_changes
 from monitor.store import db
+from monitor.ui.cohort import CohortRow, CohortTable, CohortView
 from monitor.ui.care_panel import LEVELS, CareEntry, CarePanel, CareRow, CareView, sheet_image
 from monitor.ui.decision_dialog import DECISIONS, DecisionDialog, DecisionRequest, DecisionView
 from monitor.ui.decision_history import DecisionHistory, HistoryView
@@ -162,6 +164,38 @@ def care_row(s: DaySummary) -> CareRow:
                    "" if s.state == RECORDED else s.state)
 
 
+def cohort_row(animal: str, stage: str | None, f: AnimalFigures | None, verdict: Verdict | None,
+               care: DaySummary | None) -> CohortRow:
+    """One animal's row of the cohort table: text and sort key per column (missing figures sort last)."""
+    sessions = f.session if f is not None else None
+    if f is None:
+        plateau, plateau_key = "not judged yet", None
+    elif f.plateau_reached:
+        plateau, plateau_key = f"reached at session {f.plateau_session}", f.plateau_session
+    else:
+        plateau, plateau_key = "not reached", 10 ** 6
+    if f is None or f.slow_estimate is None:
+        slow, slow_key = "no fit yet", None
+    else:
+        slow = f"{f.slow_estimate:.2f} ({f.slow_low:.2f}–{f.slow_high:.2f}), {f.slow_status or 'no status'}"
+        slow_key = f.slow_estimate
+    state = verdict.state if verdict is not None and verdict.kind != "no eligibility rule" else "no rule"
+    if care is None or care.state == NO_RECORD:
+        water, water_key = "no record today", None
+    else:
+        minimum = "" if care.minimum_ml is None else f" of {care.minimum_ml:.2f}"
+        running = " (session running)" if care.state == RUNNING else ""
+        water, water_key = f"{care.total_ml:.2f}{minimum}{running}", care.total_ml
+    if care is None or care.weight_g is None:
+        weight, weight_key = "no weight", None
+    else:
+        percent = "" if care.percent_of_baseline is None else f" ({care.percent_of_baseline:.1f} %)"
+        weight, weight_key = f"{care.weight_g:.1f}{percent}", care.percent_of_baseline or care.weight_g
+    cells = (animal, stage or "not known", "none" if sessions is None else str(sessions), plateau, slow, state,
+             water, weight)
+    return CohortRow(cells, (animal, stage, sessions, plateau_key, slow_key, state, water_key, weight_key))
+
+
 def thresholds_text(c: CareConfig) -> str:
     species = ", ".join(f"{name} {figure:g}" for name, figure in c.species_ml_per_100g)
     parts = [p for p in (
@@ -185,6 +219,8 @@ class DecisionsAndCare(QObject):
         self.draws: dict[str, Draw] = {}     # animal -> the draw its open dialog shows
         self.verdicts: dict[str, Verdict] = {}
         self.summaries: dict[str, DaySummary] = {}
+        self.figures: dict[str, AnimalFigures] = {}    # animal -> the figures its verdict was judged on
+        self.cohort: CohortTable | None = None
         self._raised: dict[str, dict[tuple, int]] = {}   # animal -> (day, kind, level) -> alert id
         self._busy = False
         self._again: set[str] | None = None     # animals to judge once the running job is done (empty: all)
@@ -196,6 +232,7 @@ class DecisionsAndCare(QObject):
 
     # --- wiring ------------------------------------------------------------------------
     def attach(self, window) -> None:
+        window.cohort_requested.connect(self.open_cohort)
         window.decision_requested.connect(self.open_decision)
         window.history_requested.connect(self.open_history)
         window.care_requested.connect(self.open_care)
@@ -280,6 +317,7 @@ class DecisionsAndCare(QObject):
                     for change in window_changes(self.verdicts.get(name), j.verdict, j.rule.warn_sessions):
                         self._push(name, WINDOW_KIND[change.kind], WINDOW_SEVERITY[change.kind], change.message)
                 self.verdicts[name] = j.verdict
+                self.figures[name] = j.figures
         for s in summaries:
             self.summaries[s.animal] = s
             before = self._raised.get(s.animal, {})
@@ -294,6 +332,8 @@ class DecisionsAndCare(QObject):
                 if key not in now:
                     self.controller.alert_book.acknowledge(alert_id, CLEARED_BY)
             self._raised[s.animal] = now
+        if self.cohort is not None:
+            self.cohort.set_view(self.cohort_view())
         if panel is not None and self.care_panel is not None:
             self.care_panel.set_view(CareView(self.care_panel.view.day, tuple(care_row(s) for s in panel),
                                               thresholds_text(self.config)))
@@ -382,6 +422,25 @@ class DecisionsAndCare(QObject):
                                 lambda r: self._show(DecisionHistory(history_view(animal, *r), self._window())))
 
     # --- care -------------------------------------------------------------------------------
+    def cohort_view(self) -> CohortView:
+        """Every animal judged or cared for, one row each."""
+        stages = self.controller.roster().current_stage
+        names = sorted(set(self.figures) | set(self.summaries))
+        return CohortView(date.today(), tuple(cohort_row(n, stages.get(n), self.figures.get(n), self.verdicts.get(n),
+                                                         self.summaries.get(n)) for n in names))
+
+    def open_cohort(self) -> None:
+        if self.cohort is not None:
+            self.cohort.raise_()
+            return
+        table = CohortTable(self.cohort_view(), self._window())
+        table.refresh_requested.connect(lambda: self.update())
+        table.destroyed.connect(lambda: setattr(self, "cohort", None))
+        self.cohort = table
+        table.setAttribute(Qt.WidgetAttribute.WA_DeleteOnClose)
+        table.show()
+        self.update()
+
     def open_care(self) -> None:
         if self.care_panel is not None:
             self.care_panel.raise_()

@@ -43,6 +43,7 @@ SHORTCUTS = {
     "decisions": "Ctrl+Shift+D",
     "care": "Ctrl+J",
     "give": "Ctrl+G",
+    "cohort": "Ctrl+T",
 }
 
 
@@ -63,6 +64,7 @@ class MainWindow(QMainWindow):
     decision_requested = Signal(str)       # animal ('' when no page is open): open the decision dialog
     history_requested = Signal(str)        # animal: show its logged decisions
     care_requested = Signal()              # open the care window (the day's water ledger)
+    cohort_requested = Signal()            # open the cohort table
     unattended_given = Signal(object)      # UnattendedGift
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
@@ -142,6 +144,7 @@ class MainWindow(QMainWindow):
         animals.addAction(self._action("decisions", "Decision &history…",
                                        lambda: self.history_requested.emit(self.current_animal())))
         animals.addAction(self._action("care", "&Care today…", self.care_requested.emit))
+        animals.addAction(self._action("cohort", "Cohort &table…", self.cohort_requested.emit))
         alerts = self.menuBar().addMenu("A&lerts")
         alerts.addAction(self._action("acknowledge", "&Acknowledge", self.alert_panel.acknowledge_selected,
                                       "acknowledge"))
