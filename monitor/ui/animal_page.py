@@ -81,8 +81,20 @@ class Figure(QWidget):
 LOG_TICKS_MS = (20, 50, 100, 200, 500, 1000, 2000, 5000, 10000)
 
 
+def scaled_previous(today: np.ndarray, previous: np.ndarray | None) -> np.ndarray | None:
+    """The previous session's histogram scaled to today's total, so the two compare by shape (None: nothing
+    to compare: no previous session, or no trial today or then)."""
+    if previous is None:
+        return None
+    before, now = float(np.sum(previous)), float(np.sum(today))
+    if before <= 0 or now <= 0:
+        return None
+    return np.asarray(previous, float) * (now / before)
+
+
 class HistogramPanel(QWidget):
-    """Today's intervals against the window, the previous session overlaid; linear or log bins."""
+    """Today's intervals against the window, the previous session's shape overlaid (scaled to today's total,
+    its own counts on hover); linear or log bins."""
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -95,15 +107,19 @@ class HistogramPanel(QWidget):
                                                                             style=Qt.PenStyle.DashLine))
         self.previous = pg.PlotDataItem(stepMode="center", pen=pg.mkPen(colour("orange"), width=2,
                                                                         style=Qt.PenStyle.DashLine),
-                                        name="previous session")
+                                        name="previous session (shape, scaled to today's total)")
         self.today = pg.PlotDataItem(stepMode="center", fillLevel=0, brush=translucent("blue", 110),
                                      pen=pg.mkPen(colour("blue"), width=2), name="today")
         self.plot.getPlotItem().addLegend(offset=(-10, 10), labelTextColor=plot_colours()[1])
         for item in (self.region, self.target, self.previous, self.today):
             self.plot.addItem(item)
         self.window_text = plain_label(wrap=False)
+        self.hover = plain_label(wrap=False)
+        self.hover.setObjectName("bin_counts")
+        self.plot.scene().sigMouseMoved.connect(self._hovered)
         top = QHBoxLayout()
         top.addWidget(_big(plain_label("Intervals today", wrap=False), 12))
+        top.addWidget(self.hover)
         top.addStretch(1)
         top.addWidget(self.window_text)
         top.addWidget(self.log_bins)
@@ -136,11 +152,11 @@ class HistogramPanel(QWidget):
         if changed_scale:
             self.plot.getPlotItem().setLogMode(x=log, y=False)   # after the range: no 10**1500 on the way
             self._log_shown = log
-        peak = max(float(np.max(data.today, initial=0)),
-                   float(np.max(data.previous, initial=0)) if data.previous is not None else 0.0)
+        shape = scaled_previous(data.today, data.previous)
+        peak = max(float(np.max(data.today, initial=0)), float(np.max(shape, initial=0)) if shape is not None else 0.0)
         self.ranges.set_y(0.0, nice_ceiling(peak * 1.05))
-        if data.previous is not None:
-            self.previous.setData(data.edges_ms, data.previous)
+        if shape is not None:
+            self.previous.setData(data.edges_ms, shape)
         else:
             self.previous.setData([], [])
         to_axis = (lambda v: math.log10(v)) if log else (lambda v: v)
@@ -156,6 +172,27 @@ class HistogramPanel(QWidget):
             self.target.show()
         else:
             self.target.hide()
+
+
+    def bin_text(self, interval_ms: float) -> str:
+        """The counts of the bin holding `interval_ms`: today's and the previous session's own."""
+        state = self._state
+        if state is None:
+            return ""
+        data = state.log if self.log_bins.isChecked() else state.linear
+        edges = np.asarray(data.edges_ms, float)
+        k = int(np.searchsorted(edges, interval_ms, side="right")) - 1
+        if not 0 <= k < len(data.today):
+            return ""
+        before = "" if data.previous is None else f", previous session {int(data.previous[k])}"
+        return f"{edges[k]:.0f}–{edges[k + 1]:.0f} ms: today {int(data.today[k])}{before}"
+
+    def _hovered(self, position) -> None:
+        if not self.plot.sceneBoundingRect().contains(position):
+            self.hover.setText("")
+            return
+        x = self.plot.getPlotItem().vb.mapSceneToView(position).x()
+        self.hover.setText(self.bin_text(10 ** x if self.log_bins.isChecked() else x))
 
 
 class RollingPanel(QWidget):

@@ -48,7 +48,16 @@ def test_histogram_shows_todays_and_previous_counts_with_the_window(page):
     x, y = page.histogram.today.getData()
     np.testing.assert_array_equal(x, today.linear.edges_ms)   # stepMode="center": len(x) == len(y) + 1
     np.testing.assert_array_equal(y, today.linear.today)
-    np.testing.assert_array_equal(page.histogram.previous.getData()[1], today.linear.previous)
+    # the previous session is drawn as a shape: its counts scaled to today's total (numpy arithmetic)
+    scale = today.linear.today.sum() / today.linear.previous.sum()
+    np.testing.assert_allclose(page.histogram.previous.getData()[1], today.linear.previous * scale)
+    np.testing.assert_allclose(page.histogram.previous.getData()[1].sum(), today.linear.today.sum())
+    # its own counts on hover: the bin under the pointer, today's and the previous session's
+    k = int(np.argmax(today.linear.previous))
+    middle = (today.linear.edges_ms[k] + today.linear.edges_ms[k + 1]) / 2
+    assert page.histogram.bin_text(middle) == (f"{today.linear.edges_ms[k]:.0f}–{today.linear.edges_ms[k + 1]:.0f} "
+                                               f"ms: today {int(today.linear.today[k])}, previous session "
+                                               f"{int(today.linear.previous[k])}")
     assert page.histogram.region.getRegion() == (520.0, 780.0)
     assert page.histogram.target.value() == 650.0
     assert page.histogram.window_text.text() == "window 520–780 ms"
