@@ -119,7 +119,6 @@ class HistogramPanel(QWidget):
         self.plot.scene().sigMouseMoved.connect(self._hovered)
         top = QHBoxLayout()
         top.addWidget(_big(plain_label("Intervals today", wrap=False), 12))
-        top.addWidget(self.hover)
         top.addStretch(1)
         top.addWidget(self.window_text)
         top.addWidget(self.log_bins)
@@ -127,6 +126,7 @@ class HistogramPanel(QWidget):
         layout.setContentsMargins(0, 0, 0, 0)
         layout.addLayout(top)
         layout.addWidget(self.plot, 1)
+        layout.addWidget(self.hover)
         self._state: TodayState | None = None
         self._log_shown: bool | None = None   # the scale the axis shows (None: not drawn yet)
         self.ranges = RangeKeeper(self.plot)
@@ -346,7 +346,7 @@ class ConsolidationPanel(QWidget):
                              ("drops", "Start-of-session drop\n(hit-rate points, 95 % interval)")):
             label = _big(plain_label(), 12 if key != "drops" else 11, bold=key != "drops")
             self.measures[key] = label
-            form.addRow(plain_label(caption, wrap=False), label)
+            form.addRow(plain_label(caption, wrap=True), label)
         self.plot = make_plot("session (number)", "slow-state fraction (0–1)")
         self.ranges = RangeKeeper(self.plot)
         self.ranges.set_y(0, 1)
