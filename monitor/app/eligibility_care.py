@@ -21,6 +21,7 @@ veterinarian decide.
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 from datetime import date, datetime
 from pathlib import Path
 from typing import Any, Callable, Sequence
@@ -147,8 +148,10 @@ def care_text(summary: DaySummary) -> str:
     words = ", ".join(f"{n} {word}" for word, n in counts if n)
     total = len(summary.alerts)
     alerts = f" — {total} care {'alert' if total == 1 else 'alerts'}: {words}" if total else " — no care alert"
-    running = " (a session is running: its water counts when it ends)" if summary.state == RUNNING else ""
-    return f"Care today: {care_line(summary)}{running}{alerts}"
+    if summary.state == RUNNING:     # nothing is owed before the session's water is counted
+        return f"Care today: {care_line(replace(summary, owed_ml=None))} (a session is running: its water " \
+               f"counts when it ends){alerts}"
+    return f"Care today: {care_line(summary)}{alerts}"
 
 
 def care_row(s: DaySummary) -> CareRow:

@@ -282,8 +282,9 @@ class CurvePanel(QWidget):
 
     def _stage_mark(self, index: int) -> pg.InfiniteLine:
         while len(self.stage_marks) <= index:
+            height = 0.97 - 0.07 * (len(self.stage_marks) % 3)     # stages one session apart stay legible
             line = pg.InfiniteLine(angle=90, movable=False, label="",
-                                   labelOpts={"position": 0.97, "color": colour("reddish_purple"),
+                                   labelOpts={"position": height, "color": colour("reddish_purple"),
                                               "anchors": [(0, 0), (0, 0)]},
                                    pen=pg.mkPen(colour("reddish_purple"), width=1.5, style=Qt.PenStyle.DotLine))
             self.plot.addItem(line)
@@ -635,7 +636,8 @@ class AnimalPage(QWidget):
         if state.curve is not None and (old is None or old.curve is not state.curve):
             self.redraws["curve"] += 1
             self.curve.set_state(state.curve)
-            self.plateau_line.setText(f"Plateau: {state.curve.plateau_word}. {state.curve.plateau_reason}")
+            reason = state.curve.plateau_reason
+            self.plateau_line.setText(f"Plateau: {state.curve.plateau_word}. {reason[:1].upper()}{reason[1:]}")
         if state.consolidation is not None and (old is None or old.consolidation is not state.consolidation):
             self.redraws["consolidation"] += 1
             self.consolidation.set_state(state.consolidation)

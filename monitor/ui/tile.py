@@ -80,9 +80,9 @@ def tile_texts(state: RigTileState) -> TileTexts:
         clock=clock_text(state.session_seconds),
         trials=f"{state.trials_today:d}",
         trials_caption="trials today",
-        hit_rate=(f"hit {percent(state.hit_rate)} (last {state.hit_window})" if state.hit_window
-                  else "hit " + percent(state.hit_rate)),
-        hit_interval=interval_text(state.hit_low, state.hit_high),
+        hit_rate="hit " + percent(state.hit_rate),
+        hit_interval=(f"last {state.hit_window} · " if state.hit_window else "")
+        + interval_text(state.hit_low, state.hit_high),
         last_interval="last " + ms_text(state.last_interval_ms),
         window=window,
         badge=str(state.alert_count) if state.alert_count else "",

@@ -21,7 +21,7 @@ from monitor.app.cli import main
 REJECT = [re.compile(p) for p in (
     r"\b[a-z]+_[a-z0-9_]+\b",          # an identifier such as hit_rate or no_record_today
     r"[<>]=", r"\[Errno", r"Traceback", r"\b(Connection|Severity|StoreHealth)\.", r"\bNone\b",
-    r"\b1 (entries|sessions|trials|alerts|presses|rigs)\b", r"worst: ", r"not open yet")]
+    r"\b1 (entries|sessions|trials|alerts|presses|rigs)\b", r"worst: ", r"\w not open yet")]
 
 
 def internal(text: str) -> list[str]:
