@@ -157,7 +157,8 @@ def care_text(summary: DaySummary) -> str:
 def care_row(s: DaySummary) -> CareRow:
     level = next((lv for lv in LEVEL_ORDER if any(a.level == lv for a in s.alerts)), "")
     cells = (f"{s.total_ml:.2f}", _num(s.minimum_ml), f"{s.earned_ml:.2f}", f"{s.supplement_ml:.2f}",
-             f"{s.owed_ml:.2f}" if s.owed_ml else "0.00",
+             "after the session" if s.state == RUNNING else "–" if s.state == NO_RECORD
+             else f"{s.owed_ml:.2f}" if s.owed_ml else "0.00",
              "none" if s.weight_g is None else f"{s.weight_g:.1f}" + (
                  "" if s.weighed_on in (None, s.day) else f" ({s.weighed_on:%d %b})"),
              _num(s.percent_of_baseline, 1),
@@ -177,7 +178,7 @@ def cohort_row(animal: str, stage: str | None, f: AnimalFigures | None, verdict:
         plateau, plateau_key = f"reached at session {f.plateau_session}", f.plateau_session
     else:
         plateau, plateau_key = "not reached", 10 ** 6
-    if f is None or f.slow_estimate is None:
+    if f is None or f.slow_estimate is None or f.slow_status in (None, "not fitted"):
         slow, slow_key = "no fit yet", None
     else:
         slow = f"{f.slow_estimate:.2f} ({f.slow_low:.2f}–{f.slow_high:.2f}), {f.slow_status or 'no status'}"
