@@ -61,3 +61,14 @@ def test_a_missing_file_reads_as_words_not_an_errno():
     except OSError as exc:
         text = plain_error(exc)
     assert "[Errno" not in text and text == "No such file or directory: /nonexistent/rigs.toml"
+
+
+def test_the_text_report_names_each_sessions_stage_and_counts_in_words(tmp_path, capsys):
+    conn = open_store(tmp_path / "store.sqlite3")
+    records_tests.import_sessions(conn, tmp_path, "heron", [6])
+    conn.close()
+    code, out, err = run_cli(capsys, "report", "--db", tmp_path / "store.sqlite3")
+    lines = out.strip().splitlines()
+    assert code == 0 and "1 session;" in lines[0]
+    # the protocol has no [[stages]]: its one stage is "main" (docs/protocol.md); 6 of 10 trials at 650 ms hit
+    assert "stage main" in lines[1] and "hit rate 0.60" in lines[1] and "CV " in lines[1]
