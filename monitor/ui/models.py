@@ -27,7 +27,7 @@ class Connection(Enum):
     QUIET = ("quiet", "triangle", "orange")             # session running, no events for a while
     RETRYING = ("retrying", "diamond", "reddish_purple")  # lost, reopening the port or file
     LOST = ("lost", "cross", "vermillion")              # disconnected, not coming back by itself
-    UNATTENDED = ("running, nobody checked in", "square", "blue")   # presses arrive with no session
+    UNATTENDED = ("unattended", "square", "blue")   # presses arrive with no session
 
     def __init__(self, word: str, shape: str, colour: str) -> None:
         self.word = word

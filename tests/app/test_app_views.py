@@ -230,7 +230,8 @@ def test_a_box_streaming_with_nobody_checked_in_has_its_own_tile_state():
     assert tile.connection is Connection.UNATTENDED and tile.unattended_presses == 6
     assert tile.animal is None and tile.trials_today == 0
     from monitor.ui.tile import tile_texts
-    assert tile_texts(tile).animal == "nobody checked in: 6 presses kept"
+    texts = tile_texts(tile)
+    assert (texts.state, texts.trials, texts.trials_caption) == ("unattended", "6", "presses kept")
     assert views.tile_state("box 2", None, status(READING), now=5.0).connection is Connection.IDLE
 
 
