@@ -110,8 +110,8 @@ def draw_offer(j: Judgement, earlier: Sequence[LogEntry]) -> tuple[bool, str]:
     if any(e.decision.decision == "assigned" for e in earlier):
         return False, "No draw: this animal is already assigned (record a correction instead)."
     what = "group code" if j.blinding is not None else "group"
-    return True, (f"The {what} is drawn from cohort {rule.cohort_name!r}'s permuted blocks ({BLOCKS_METHOD}, "
-                  "seed recorded), never from the figures.")
+    return True, (f"The {what} is drawn at random from the permuted blocks of cohort \"{rule.cohort_name}\" "
+                  "(the seed is recorded), never from the figures.")
 
 
 def draw_text(draw: Draw) -> str:
