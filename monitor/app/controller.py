@@ -261,6 +261,7 @@ class Controller(QObject):
         self._reload: set[str] = set()          # animals whose data changed while their history was loading
         self.live_fractions = LiveFractions()   # this session's slow-state fraction from the cached fit
         self._live_panels: dict[str, tuple] = {}  # animal -> (history panel, fraction, panel with it)
+        self._measured_panels: dict[str, tuple] = {}  # animal -> (panel, figures, panel with those measures)
         self._followed: dict[str, tuple | None] = {}  # animal -> (fraction, missed) of its session so far
         self._today: dict[str, tuple[int, TodayState | None]] = {}
         self._plateau: dict[str, bool] = {}
@@ -748,10 +749,27 @@ class Controller(QObject):
                 self._today[animal] = (rig.snapshot.version, cached)
             today = cached
         care, eligibility = self.records.texts(animal) if self.records is not None else ("", "")
+        parts = self.history_parts.get(animal)
+        panel = self._live_panel(animal, rig, loaded) or (parts.consolidation if parts else None)
         self.book.update(views.page_state(animal, rig.spec.name if rig else None,
                                           loaded.protocol.name if loaded else "", today,
-                                          self.history_parts.get(animal), care, eligibility,
-                                          self._live_panel(animal, rig, loaded)))
+                                          parts, care, eligibility, self._measured(animal, panel)))
+
+    def _measured(self, animal: str, panel):
+        """The panel with the eligibility's own figures as its measures (the same session, the same definition
+        as the eligibility line), once the animal is judged; the same object until either changes."""
+        figures = self.records.figures.get(animal) if self.records is not None else None
+        if panel is None or figures is None:
+            return panel
+        before = self._measured_panels.get(animal)
+        if before is not None and before[0] is panel and before[1] is figures:
+            return before[2]
+        out = replace(panel, trials_since_plateau=figures.trials_since_plateau,
+                      sessions_since_plateau=figures.sessions_since_plateau,
+                      interval_error=figures.measures.get("interval_error"), cv=figures.measures.get("cv"),
+                      measures_session=figures.session)
+        self._measured_panels[animal] = (panel, figures, out)
+        return out
 
     def _follow(self, animal: str, rig: _Rig) -> None:
         """Feed the session's new trials to the animal's cached filter (every rig, page open or not)."""

@@ -144,14 +144,14 @@ def care_text(summary: DaySummary) -> str:
     """The animal page's care line: the day's figures, or its state, and its alerts counted in plain words."""
     if summary.state == NO_RECORD:
         return "Care today: nothing recorded yet (no session, weighing or supplement)."
-    counts = [(LEVELS[level][0], sum(a.level == level for a in summary.alerts)) for level in LEVEL_ORDER]
+    real = [a for a in summary.alerts if a.kind not in STATE_KINDS]      # the state is said in words
+    counts = [(LEVELS[level][0], sum(a.level == level for a in real)) for level in LEVEL_ORDER]
     words = ", ".join(f"{n} {word}" for word, n in counts if n)
-    total = len(summary.alerts)
-    alerts = f" — {total} care {'alert' if total == 1 else 'alerts'}: {words}" if total else " — no care alert"
+    tail = f" — {len(real)} care {'alert' if len(real) == 1 else 'alerts'}: {words}" if real else " — no care alert"
     if summary.state == RUNNING:     # nothing is owed before the session's water is counted
         return f"Care today: {care_line(replace(summary, owed_ml=None))} (a session is running: its water " \
-               f"counts when it ends){alerts}"
-    return f"Care today: {care_line(summary)}{alerts}"
+               f"counts when it ends){tail}"
+    return f"Care today: {care_line(summary)}{tail}"
 
 
 def care_row(s: DaySummary) -> CareRow:

@@ -358,6 +358,8 @@ class ConsolidationPanel(QWidget):
         self.marks = pg.ScatterPlotItem(size=9)
         for item in (self.low, self.high, self.band, self.fraction, self.marks):
             self.plot.addItem(item)
+        self.measures_of = plain_label()
+        self.measures_of.setObjectName("measures_of")
         self.estimate = _big(plain_label(), 12)
         self.live = plain_label()
         self.live.setObjectName("live_fraction")
@@ -376,6 +378,7 @@ class ConsolidationPanel(QWidget):
         left.addLayout(form)
         self.warmup_note = plain_label()
         left.addWidget(self.warmup_note)
+        left.addWidget(self.measures_of)
         left.addStretch(1)
         right = QVBoxLayout()
         right.addWidget(_big(plain_label("Model: slow-state fraction", wrap=False), 12))
@@ -398,6 +401,9 @@ class ConsolidationPanel(QWidget):
         m["sessions"].setText(DASH if state.sessions_since_plateau is None else str(state.sessions_since_plateau))
         m["error"].setText(_num(state.interval_error, 3))
         m["cv"].setText(_num(state.cv, 3))
+        self.measures_of.setText("" if state.measures_session is None else
+                                 f"Interval error and CV of session {state.measures_session}, the same figures "
+                                 "the eligibility rule judges.")
         drops = state.start_drops[-4:]
         m["drops"].setText("\n".join(f"session {d.session}: {_points(d.drop)} ({_points(d.low)} to {_points(d.high)})"
                                      for d in drops) or DASH)

@@ -182,6 +182,7 @@ class ConsolidationState:
     forecast_high: int | None = None
     forecast_level: float = 0.8
     live_text: str = ""              # this session's figure from the cached fit, not refitted ("" when none)
+    measures_session: int | None = None   # the session the interval error and CV are of (the animal's count)
     caveat: str = ("A model quantity of a fitted behavioural model, not proof that the "
                    "behaviour no longer depends on a brain area.")
 

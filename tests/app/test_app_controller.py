@@ -307,3 +307,23 @@ def test_check_out_records_who_confirmed_it(rig, qtbot):
         with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
             assert conn.execute("SELECT operator, checked_out_by FROM checkins WHERE session_id = ?",
                                 (session_id,)).fetchone() == ("ana", "bo")
+
+
+def test_the_pages_measures_are_the_eligibility_figures_once_judged(rig, qtbot):
+    from monitor.core.eligibility_figures import AnimalFigures
+
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    window.open_animal("wren")
+    qtbot.waitUntil(lambda: "wren" in controller.history_parts, timeout=20000)
+    figures = AnimalFigures(animal="wren", protocol_name="p", protocol_version=1, session=7, plateau_reached=True,
+                            plateau_session=3, sessions_since_plateau=4, trials_since_plateau=321,
+                            measures={"interval_error": 0.281, "cv": 0.229})
+    controller.records.figures["wren"] = figures
+    controller._push_page("wren")
+    shown = controller.book.state("wren").consolidation
+    assert (shown.interval_error, shown.cv, shown.sessions_since_plateau, shown.trials_since_plateau,
+            shown.measures_session) == (0.281, 0.229, 4, 321, 7)
+    controller._push_page("wren")
+    assert controller.book.state("wren").consolidation is shown           # unchanged: no redraw
