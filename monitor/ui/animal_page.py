@@ -348,7 +348,7 @@ class ConsolidationPanel(QWidget):
             label = _big(plain_label(), 12 if key != "drops" else 11, bold=key != "drops")
             self.measures[key] = label
             form.addRow(plain_label(caption, wrap=True), label)
-        self.plot = make_plot("session (number)", "slow-state fraction (0–1)")
+        self.plot = make_plot("session (the animal's own number)", "slow-state fraction (0–1)")
         self.ranges = RangeKeeper(self.plot)
         self.ranges.set_y(0, 1)
         self.low = pg.PlotDataItem(pen=pg.mkPen(None))
