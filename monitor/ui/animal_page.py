@@ -445,7 +445,7 @@ SESSION_COLUMNS = ("#", "start", "box", "stage", "trials", "hits", "hit rate", "
 def session_cells(row: SessionRow) -> tuple[str, ...]:
     """The table's text for one session, in SESSION_COLUMNS order."""
     return (str(row.index), row.start, row.rig, row.stage, str(row.trials), str(row.hits), percent(row.hit_rate),
-            ms_text(row.median_ms).replace(" ms", ""), _num(row.cv), "excluded" if row.excluded else "",
+            ms_text(row.median_ms).replace(" ms", ""), _num(row.cv, 3), "excluded" if row.excluded else "",
             row.exclusion_reason, row.conditions)
 
 
