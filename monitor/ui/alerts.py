@@ -52,9 +52,12 @@ def alert_text(alert: Alert) -> str:
     return "\n".join([head, alert.text, seen])
 
 
-def summary_text(open_alerts: list[Alert], resolved: int) -> str:
-    """One line over the list: how many open alerts and how urgent, and how many are resolved."""
+def summary_text(open_alerts: list[Alert], resolved: int, sources: str = "") -> str:
+    """One line over the list: how many open alerts and how urgent, and how many are resolved; never "all quiet"
+    while `sources` says some box is not reading."""
     tail = f"; {resolved} resolved (ticked)" if resolved else ""
+    if not open_alerts and sources:
+        return f"No open alerts{tail}, but {sources} (status bar)."
     if not open_alerts:
         return f"All quiet: no open alerts{tail}."
     counts = {s: sum(a.severity is s for a in open_alerts) for s in Severity}
@@ -107,6 +110,7 @@ class AlertPanel(QWidget):
         layout.addLayout(row)
         layout.addWidget(self.message)
         self._items: dict[int, QListWidgetItem] = {}
+        self._sources = ""
         self._icons = {word: severity_icon(word, shape) for word, shape in
                        ((s.word, s.shape) for s in Severity)}
         self._resolved_icon = severity_icon("info", RESOLVED_SHAPE)
@@ -116,6 +120,12 @@ class AlertPanel(QWidget):
         book.alert_added.connect(self._on_added)
         book.alert_changed.connect(self._on_changed)
         self._connected = True
+
+    def set_sources(self, trouble: str) -> None:
+        """Boxes not reading, in words ("" when every box reads): the summary never says all quiet then."""
+        if trouble != self._sources:
+            self._sources = trouble
+            self._refresh_summary()
 
     def item(self, alert_id: int) -> QListWidgetItem | None:
         return self._items.get(alert_id)
@@ -185,8 +195,10 @@ class AlertPanel(QWidget):
 
     def _refresh_summary(self) -> None:
         open_ = self.book.open_alerts()
-        self.summary.setText(summary_text(open_, len(self.book.alerts()) - len(open_)))
-        if not open_:
+        self.summary.setText(summary_text(open_, len(self.book.alerts()) - len(open_), self._sources))
+        if not open_ and self._sources:
+            self.summary.setStyleSheet(f"color: {colour(SEVERITY_COLOUR['attention']).darker(130).name()};")
+        elif not open_:
             self.summary.setStyleSheet("")
         else:
             worst = max(open_, key=lambda a: a.severity.rank).severity

@@ -162,6 +162,7 @@ class MainWindow(QMainWindow):
 
     def set_status(self, status: StatusState) -> None:
         self.sources_label.setText(("▲ " if status.sources_trouble else "") + status.sources_text)
+        self.alert_panel.set_sources(status.sources_text if status.sources_trouble else "")
         self.sources_label.setToolTip(plain_tooltip(status.sources_detail) if status.sources_detail else "")
         self.sources_label.setStyleSheet(f"color: {colour('vermillion').darker(120).name()}; font-weight: bold;"
                                          if status.sources_trouble else "")

@@ -260,3 +260,21 @@ def test_alert_list_and_status_bar_grow_with_a_wide_window(qtbot):
     QApplication.processEvents()
     assert window.alert_panel.list.font().pointSizeF() == pytest.approx(small * 1920 / 1366, rel=0.01)
     assert window.sources_label.font().pointSizeF() > small * 0.99
+
+
+def test_the_alert_summary_is_not_all_quiet_while_boxes_are_not_reading(qtbot):
+    from monitor.ui.alerts import AlertPanel
+    from monitor.ui.models import StatusState
+    from monitor.ui.owners import AlertBook
+
+    window = make_window(qtbot, rigs=2)
+    window.set_status(StatusState(sources_text="4 of 16 sources reading; 12 retrying", sources_detail="box-05: x",
+                                  sources_trouble=True))
+    assert window.sources_label.text().startswith("▲ 4 of 16")
+    assert window.alert_panel._sources == "4 of 16 sources reading; 12 retrying"
+    panel = AlertPanel(AlertBook())
+    qtbot.addWidget(panel)
+    panel.set_sources("4 of 16 sources reading; 12 retrying")
+    assert panel.summary.text() == "No open alerts, but 4 of 16 sources reading; 12 retrying (status bar)."
+    panel.set_sources("")
+    assert panel.summary.text() == "All quiet: no open alerts."
