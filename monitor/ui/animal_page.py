@@ -261,6 +261,7 @@ class CurvePanel(QWidget):
         for item in (self.errors, self.criterion, self.plateau):
             self.plot.addItem(item)
         self.stage_items: list[pg.PlotDataItem] = []     # one per stage, made once, reused
+        self._legend_entries: list[str] = []
         self.stage_marks: list[pg.InfiniteLine] = []
         self.empty = plain_label("No session with trials yet: the curve fills in as sessions end.")
         layout = QVBoxLayout(self)
@@ -301,13 +302,17 @@ class CurvePanel(QWidget):
         self.plot.getPlotItem().getAxis("left").setLabel(f"{state.measure_name} (%)")
         names = list(dict.fromkeys(state.stage))
         stages = np.asarray(state.stage, dtype=object)
-        self.legend.clear()
+        entries = [f"stage {name}" + (" (plateau judged here)" if name == state.final_stage and len(names) > 1
+                                      else "") for name in names]
+        if entries != self._legend_entries:        # the legend is rebuilt only when the stages change
+            self.legend.clear()
+            for i, entry in enumerate(entries):
+                self.legend.addItem(self._stage_item(i), entry)
+            self._legend_entries = entries
         for i, name in enumerate(names):
             item, mine = self._stage_item(i), stages == name
             item.setData(x[mine], y[mine])
             item.show()
-            final = " (plateau judged here)" if name == state.final_stage and len(names) > 1 else ""
-            self.legend.addItem(item, f"stage {name}{final}")
         for item in self.stage_items[len(names):]:
             item.setData([], [])
             item.hide()
