@@ -10,10 +10,11 @@ with nobody checked in (no session, but presses arrive). The session
 clock is in whole seconds, so a tile changes once a second at most when no
 trial arrives. Tile histograms are today's linear-bin counts of the stage in force; the rolling
 hit rate's band is the 95 % Wilson interval. History is summarised per
-session with the core's `summarize` and `learning_curve`; the plateau verdict
-is the protocol's own rule (`judge`); the consolidation panel shows the
-transparent measures first, then the fitted slow-state fraction when a fit is
-given.
+session with the core's `summarize` and `learning_curve`: the curve shows
+every session of every stage, the plateau verdict is the protocol's own rule
+(`judge`) on the final stage; the consolidation panel shows the transparent
+measures first — the eligibility's own figures (`figures_from_report`) — then
+the fitted slow-state fraction when a fit is given.
 """
 
 from __future__ import annotations
