@@ -5,8 +5,8 @@ takes plain values and returns the frozen view models of `monitor.ui.models`.
 Missing figures stay `None` (NaN in arrays), never 0. A rig's connection word
 comes from its source's state and whether a session runs: lost (reader ended),
 retrying (waiting for the device), quiet (session running, no event for
-`quiet_after_s`), live (session running), idle (connected, no session), running
-with nobody checked in (no session, but presses arrive). The session
+`quiet_after_s`), live (session running), idle (connected, no session), unattended
+(no session, but presses arrive). The session
 clock is in whole seconds, so a tile changes once a second at most when no
 trial arrives. Tile histograms are today's linear-bin counts of the stage in force; the rolling
 hit rate's band is the 95 % Wilson interval. History is summarised per

@@ -72,3 +72,19 @@ def test_the_text_report_names_each_sessions_stage_and_counts_in_words(tmp_path,
     assert code == 0 and "1 session;" in lines[0]
     # the protocol has no [[stages]]: its one stage is "main" (docs/protocol.md); 6 of 10 trials at 650 ms hit
     assert "stage main" in lines[1] and "hit rate 0.60" in lines[1] and "CV " in lines[1]
+
+
+def test_record_names_the_session_by_the_animals_own_count(tmp_path):
+    import subprocess
+    import sys
+
+    conn = open_store(tmp_path / "store.sqlite3")
+    records_tests.import_sessions(conn, tmp_path, "heron", [6, 7])          # sessions 1 and 2 of heron
+    conn.close()
+    (tmp_path / "p.toml").write_text(records_tests.PROTOCOL)
+    (tmp_path / "live.rsw").write_bytes(b"")
+    result = subprocess.run([sys.executable, "-m", "monitor.app", "record", "--source", f"file:{tmp_path / 'live.rsw'}",
+                             "--rig", "box1", "--animal", "heron", "--protocol", tmp_path / "p.toml", "--db",
+                             tmp_path / "store.sqlite3", "--seconds", "1"], capture_output=True, text=True, timeout=120)
+    assert result.returncode == 0, result.stderr
+    assert "(session 3 of heron)" in result.stdout

@@ -85,8 +85,10 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
     from drivers.status import LOST
     from monitor.app.pipeline import Fanout
     from monitor.store import db
+    from monitor.store.records import sessions_of
 
     sink = Fanout(writer, source_id=source_id, session_id=session_id, live=kind == "serial")
+    number = writer.call(lambda c: len(sessions_of(c, args.animal)), transaction=False)   # the animal's own count
     if kind == "file":
         from drivers.tail import FileTail
 
@@ -117,7 +119,7 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
     stored = writer.stop()
     status, wstatus = source.status(), writer.status()
     print(f"recorded {status.events} events, {status.malformed} malformed lines, {status.gaps} gaps "
-          f"into {writer.path} (session {session_id})")
+          f"into {writer.path} (session {number} of {args.animal})")
     if not stored:
         print(f"rigside record: error: {wstatus.pending_rows} rows could not be stored: {wstatus.last_error}",
               file=sys.stderr)
