@@ -1,11 +1,12 @@
 """Make the user guide's pictures (docs/screens/guide-*.png) from the headless demo, in one command.
 
 Rule: every picture comes from one run of `rigside demo --headless` (the real
-serial path, store, engine and window on the offscreen platform, 1366x768),
-never from hand-made states: the run imports the demo cohort's history, fits
-the consolidation model, checks the four demo animals in and lets them train
-for `--seconds`; then, before anything stops, it opens each screen the guide
-shows and saves `grab()` of it. A screen that does not appear in time is
+serial path, store, engine and window on the offscreen platform), never from
+hand-made states: the run imports the demo cohort's history, fits the
+consolidation model, checks the four demo animals in and lets them train for
+`--seconds`; then, before anything stops, it opens each screen the guide
+shows and saves `grab()` of it at 1366x768 (guide-NAME.png) and again at
+1920x1080 (guide-NAME-1920.png). A screen that does not appear in time is
 reported and the command exits 1, so a stale picture is never kept silently.
 
 Run after the README's install:  python docs/guide_screens.py [--seconds 40] [--out docs/screens]
@@ -22,23 +23,33 @@ from typing import Callable
 
 HERE = Path(__file__).resolve().parent
 ANIMAL = "cedar"  # the demo's "plateaued, not consolidated" animal (mock_rig/demo.py)
+SIZES = ((1366, 768, ""), (1920, 1080, "-1920"))   # the smallest laptop screen, then a common desktop one
 
 
 def shoot(out: Path, missing: list[str]) -> Callable:
     """The demo's inspect callback: open each screen, wait for it, save it."""
 
     def run(controller, window) -> None:
-        from PySide6.QtWidgets import QApplication, QWidget
+        from PySide6.QtWidgets import QApplication
 
         from monitor.app.controller import wait_for
-        from monitor.app.demo import SECTIONS
 
         app = QApplication.instance()
+        for width, height, suffix in SIZES:
+            window.resize(width, height)
+            app.processEvents()
+            shoot_all(controller, window, app, wait_for, suffix, (width, height))
+
+    def shoot_all(controller, window, app, wait_for, suffix: str, size: tuple[int, int]) -> None:
+        from PySide6.QtWidgets import QWidget
+
+        from monitor.app.demo import SECTIONS
 
         def save(widget: QWidget, name: str) -> None:
             app.processEvents()
-            widget.grab().save(str(out / f"guide-{name}.png"))
-            print(f"guide_screens: {out / f'guide-{name}.png'}", file=sys.stderr)
+            path = out / f"guide-{name}{suffix}.png"
+            widget.grab().save(str(path))
+            print(f"guide_screens: {path}", file=sys.stderr)
 
         def dialog(opener: Callable[[], object], owner, name: str, timeout: float = 30.0) -> None:
             before = getattr(owner, "dialog", None)
@@ -50,11 +61,11 @@ def shoot(out: Path, missing: list[str]) -> Callable:
             save(owner.dialog, name)
             owner.dialog.close()
 
-        window.resize(1366, 768)
         window.tabs.setCurrentIndex(0)
         save(window, "overview")
         dialog(window.open_setup, window, "add-rig")
         dialog(window.open_check_in, window, "check-in")
+        dialog(window.open_give, window, "give")
         page = window.open_animal(ANIMAL)
         history = wait_for(lambda: ANIMAL in controller.history_parts and ANIMAL in controller.fits, 300, app)
         if not history:
@@ -72,6 +83,15 @@ def shoot(out: Path, missing: list[str]) -> Callable:
             records.care_panel.close()
         else:
             missing.append("care")
+        records.open_cohort()
+        if wait_for(lambda: records.cohort is not None and records.cohort.isVisible(), 30, app):
+            wait_for(lambda: False, 2.0, app)  # the figures are read in a worker
+            records.cohort.resize(min(size[0], 1500), min(size[1], 640))
+            save(records.cohort, "cohort")
+            records.cohort.close()
+        else:
+            missing.append("cohort")
+        window.close_current_page()
         window.tabs.setCurrentIndex(0)
 
     return run

@@ -31,6 +31,7 @@ p_low
 p_high
 detected_at
 date_of_birth
+minimum_rule  # monitor/core/care/ledger.py DaySummary: shown whole in the care window
 x_low  # monitor/core/effects/cohort.py Point: the trend's points, passed whole
 x_high
 y_low

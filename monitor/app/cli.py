@@ -6,7 +6,8 @@ those modules import their heavy dependencies (Qt, scipy, the store) inside
 `run`, so `rigside record` never loads Qt or scipy. Bad input anywhere gives
 one line `rigside CMD: error: ...` on stderr and exit code 2; a damaged
 database found mid-command is exit 2 too, and any other fault one line and
-exit 1 (the traceback only with RIGSIDE_TRACEBACK=1), never a traceback. Plain
+exit 1 as `rigside CMD: failed: ...` (the traceback only with
+RIGSIDE_TRACEBACK=1), never a traceback. Plain
 `rigside`, with no command, opens the window (`rigside window`); `rigside
 --version` prints the installed version.
 """
@@ -19,7 +20,7 @@ import os
 import sys
 from typing import Sequence
 
-from monitor.app.errors import Fault, UsageError
+from monitor.app.errors import Fault, UsageError, plain_error
 
 COMMANDS: dict[str, tuple[str, str]] = {
     "window": ("monitor.app.commands.window", "the window for this PC's rigs (also plain `rigside`)"),
@@ -38,6 +39,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "sync": ("monitor.app.commands.sync", "push everything new in this PC's store to the lab database"),
     "manipulation": ("monitor.app.commands.manipulation", "record, list or withdraw manipulations; unblind a cohort"),
     "effects": ("monitor.app.commands.effects", "each manipulation's effect against the stage at which it was made"),
+    "unattended": ("monitor.app.commands.unattended", "a box's runs with nobody checked in; give one to an animal"),
 }
 
 
@@ -123,8 +125,7 @@ def _fault(command: str, exc: Exception) -> int:
         sys.stderr.write(f"rigside {command}: error: --db: the database is damaged or unreadable ({exc}); "
                          "restore it from a backup (docs/store.md)\n")
         return 2
-    text = " ".join(str(exc).split()) or "no message"
-    sys.stderr.write(f"rigside {command}: error: {type(exc).__name__}: {text}\n")
+    sys.stderr.write(f"rigside {command}: failed: {' '.join(plain_error(exc).split())}\n")
     return 1
 
 

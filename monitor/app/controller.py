@@ -35,6 +35,7 @@ from typing import Any, NamedTuple, Protocol as TypingProtocol
 from PySide6.QtCore import QObject, Qt, QTimer
 from PySide6.QtWidgets import QApplication, QLabel, QProgressBar, QPushButton
 
+from drivers.status import Batch
 from drivers.wire import Event, WireDecoder
 from monitor.app.alerting import AlertCentre, AlertStore, TableAlertStore
 from monitor.app.engine import Engine, RaisedAlert, RigSnapshot, SessionPlan
@@ -47,7 +48,7 @@ from monitor.core.protocol import Protocol, parse_protocol
 from monitor.core.session.live_stats import LiveSession
 from monitor.store import db
 from monitor.store.writer import StoreWriter
-from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster, RigSetup, TodayState
+from monitor.ui.models import CheckIn, CheckOut, ConditionRecord, Exclusion, Roster, RigSetup, TodayState, UnattendedGift
 from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
 
 REFRESH_MS = 50
@@ -201,18 +202,27 @@ class StoreHistory:
                     "JOIN event_codes c ON c.code = e.code WHERE e.session_id = ? ORDER BY e.rowid", (session_id,))]
 
 
-def _end_session(conn: sqlite3.Connection, session_id: int) -> None:
-    """Check out (store v2: the check-in record too, then derive the session's trials), else end it."""
+def _end_session(conn: sqlite3.Connection, session_id: int, operator: str = "") -> None:
+    """Check out (store v2: the check-in record too, with who did it, then derive the session's trials), else
+    end it."""
     if not store_v2():
         db.end_session(conn, session_id)
         return
-    from monitor.store import derive, records
+    from monitor.store import derive, records, session_changes
 
     try:
         records.check_out(conn, session_id)
+        if operator.strip():
+            session_changes.checked_out_by(conn, session_id, operator)
     except records.RecordError:           # a session opened without a check-in record
         db.end_session(conn, session_id)
     derive.rebuild_trials(conn, session_id)
+
+
+def _stated_stage(rig: "_Rig") -> str | None:
+    """The stage the box itself last sent (`param stage`), before or during a session; None if it never did."""
+    params = rig.snapshot.params if rig.snapshot is not None else ()
+    return next((e.args[1] for e in reversed(params) if e.args[0] == "stage"), None)
 
 
 class _Rig:
@@ -253,9 +263,11 @@ class Controller(QObject):
         self._reload: set[str] = set()          # animals whose data changed while their history was loading
         self.live_fractions = LiveFractions()   # this session's slow-state fraction from the cached fit
         self._live_panels: dict[str, tuple] = {}  # animal -> (history panel, fraction, panel with it)
+        self._measured_panels: dict[str, tuple] = {}  # animal -> (panel, figures, panel with those measures)
         self._followed: dict[str, tuple | None] = {}  # animal -> (fraction, missed) of its session so far
         self._today: dict[str, tuple[int, TodayState | None]] = {}
         self._plateau: dict[str, bool] = {}
+        self.stored_stages: dict[str, str] = {}   # animal -> stage of its latest stored session
         self._store_failing = False
         self._status_shown = None
         self._inbox: queue.SimpleQueue[Callable[[], None]] = queue.SimpleQueue()
@@ -292,6 +304,7 @@ class Controller(QObject):
         window.page_closed.connect(self.page_closed)
         window.exclusion_requested.connect(self.exclude)
         window.condition_requested.connect(self.add_condition)
+        window.unattended_given.connect(self.give_unattended)
         self.progress_label = QLabel()
         self.progress_label.setTextFormat(Qt.TextFormat.PlainText)
         self.progress_bar = QProgressBar()
@@ -305,6 +318,7 @@ class Controller(QObject):
             window.statusBar().addPermanentWidget(widget)
             widget.hide()
         window.set_roster(self.roster())
+        self.load_stored_stages()
         from monitor.app.eligibility_care import DecisionsAndCare
 
         self.records = DecisionsAndCare(self, care)
@@ -417,21 +431,53 @@ class Controller(QObject):
         self.run_job(f"adding {setup.name}", lambda job: self._register(spec), self._start_rig)
 
     def roster(self) -> Roster:
-        animals = sorted(set(self.protocols) | {r.animal for r in self.rigs.values() if r.animal}
-                         | self.recorded_animals)
-        stages = sorted({s.name for p in [*self.protocols.values(), *(r.protocol for r in self.rigs.values())]
-                         for s in p.protocol.stages})
+        animals = sorted(set(self.protocols) | set(self.stored_stages)
+                         | {r.animal for r in self.rigs.values() if r.animal} | self.recorded_animals)
+        loaded = [*(r.protocol for r in self.rigs.values()), *self.protocols.values()]
+        stages = tuple(dict.fromkeys(s.name for p in loaded for s in p.protocol.stages))   # training order
         usual = {a: tuple(sorted({row.rig for row in parts.sessions if row.rig}))
                  for a, parts in self.history_parts.items()}
-        return Roster(animals=tuple(animals), rigs=tuple(self.rigs), stages=tuple(stages), usual_rigs=usual,
-                      occupied={n: r.animal for n, r in self.rigs.items() if r.animal}, operators=())
+        return Roster(animals=tuple(animals), rigs=tuple(self.rigs), stages=stages, usual_rigs=usual,
+                      occupied={n: r.animal for n, r in self.rigs.items() if r.animal}, operators=(),
+                      current_stage={**self.stored_stages, **self._history_stages()},
+                      first_stage={n: r.protocol.protocol.stages[0].name for n, r in self.rigs.items()},
+                      box_stage={n: s for n, r in self.rigs.items() if (s := _stated_stage(r)) is not None})
+
+    def _history_stages(self) -> dict[str, str]:
+        """Each loaded animal's stage at the end of its latest session with one."""
+        out = {}
+        for animal, parts in self.history_parts.items():
+            stage = next((row.stage for row in reversed(parts.sessions) if row.stage), None)
+            if stage:
+                out[animal] = stage
+        return out
+
+    def load_stored_stages(self) -> None:
+        """Read every animal's latest recorded stage from the store (worker), then refresh the roster."""
+        from monitor.store.roster import latest_stages
+
+        def work(job: Job) -> dict[str, str]:
+            conn = db.open_store(self.writer.path, readonly=True)
+            try:
+                return latest_stages(conn)
+            finally:
+                conn.close()
+
+        def done(found: dict[str, str]) -> None:
+            self.stored_stages = found
+            self._refresh_roster()
+
+        self.run_job("reading the animals' stages", work, done)
 
     # --- check-in, check-out ---------------------------------------------------------------------
     def check_in(self, record: CheckIn) -> None:
         """Start a session of `record.animal` in `record.rig` (the store call runs in a worker)."""
         rig = self.rigs[record.rig]
         loaded = self.protocols.get(record.animal, rig.protocol)
-        stage = record.stage if loaded.protocol.stage(record.stage) is not None else None
+        carried = rig.snapshot.params if rig.snapshot is not None else ()
+        stated = _stated_stage(rig)                      # the box is the witness of its own stage
+        stage = stated if stated is not None and loaded.protocol.stage(stated) is not None else record.stage
+        stage = stage if loaded.protocol.stage(stage) is not None else None
         previous = rig.session_id
 
         def work(job: Job) -> tuple[int, str | None]:
@@ -457,16 +503,26 @@ class Controller(QObject):
             if rig.session_id is not None:
                 self.engine.close_session(record.rig, rig.session_id)
             self.engine.open_session(SessionPlan(record.rig, session_id, record.animal, loaded.protocol, stage,
-                                                 rig.spec.valve_ul_per_ms, started=time.monotonic()))
+                                                 rig.spec.valve_ul_per_ms, started=time.monotonic(),
+                                                 carried=carried))
+            if carried:     # the parameters in force are part of the session's record too (stored first)
+                self.writer.submit(Batch(list(carried), time.time()), source_id=rig.source_id,
+                                   session_id=session_id, live=True)
             rig.fanout.session_id = session_id                 # after the engine knows the session
             rig.session_id, rig.animal = session_id, record.animal
             self.protocols.setdefault(record.animal, loaded)     # its history is read with this protocol
+            if stage is not None:
+                self.stored_stages[record.animal] = stage
             self._refresh_roster()
             self.load_history(record.animal)
 
         self.run_job(f"checking in {record.animal}", work, done)
 
-    def check_out(self, rig_name: str) -> None:
+    def check_out(self, request: CheckOut | str) -> None:
+        """End the session in a box (`request`: the confirmed CheckOut, or a box's name: the Operator field's
+        name is recorded then)."""
+        rig_name, operator = (request.rig, request.operator) if isinstance(request, CheckOut) else \
+            (request, self._operator())
         rig = self.rigs.get(rig_name)
         if rig is None or rig.session_id is None:
             return
@@ -483,8 +539,54 @@ class Controller(QObject):
             if animal:
                 self.load_history(animal, refresh=True)
 
-        self.run_job(f"checking out {animal}", lambda job: self.writer.call(lambda c: _end_session(c, session_id)),
-                     done)
+        self.run_job(f"checking out {animal}",
+                     lambda job: self.writer.call(lambda c: _end_session(c, session_id, operator)), done)
+
+    def give_unattended(self, gift: UnattendedGift) -> None:
+        """Give a box's presses from while nobody was checked in to an animal (logged): the run is closed, a
+        fresh run of no animal takes the box's data from now, and the closed run's trials are derived."""
+        rig = self.rigs.get(gift.rig)
+        if rig is None or rig.idle_session_id is None:
+            return
+        if not store_v2():
+            self._say("Not given: this store keeps no records of that kind.")
+            return
+        old = rig.idle_session_id
+        loaded = self.protocols.get(gift.animal, rig.protocol)
+        stated = _stated_stage(rig)
+        stage = stated if stated is not None and loaded.protocol.stage(stated) is not None else \
+            self.roster().default_stage(gift.animal, gift.rig) or None
+
+        def fresh(job: Job) -> int:
+            return self.writer.call(lambda c: db.start_session(c, rig.source_id, NO_ANIMAL, gift.rig, None, None,
+                                                               None))
+
+        def switched(new: int) -> None:
+            rig.idle_session_id = new
+            if rig.session_id is None:
+                rig.fanout.session_id = new          # from here on the box's data go to the fresh run
+            self.engine.forget_unattended(gift.rig)
+            self.run_job(f"giving {gift.rig}'s trials to {gift.animal}", lambda job: self.writer.call(give), given)
+
+        def give(conn: sqlite3.Connection) -> int:
+            from monitor.store import records, session_changes
+
+            db.end_session(conn, old)
+            protocol_id = records.ensure_protocol(conn, loaded.protocol.name, loaded.protocol.version, loaded.text)
+            return session_changes.give_run(conn, old, animal=gift.animal, operator=gift.operator,
+                                            reason=gift.reason, protocol_id=protocol_id, stage=stage)
+
+        def given(trials: int) -> None:
+            self.protocols.setdefault(gift.animal, loaded)
+            self._say(f"{trials} trials from {gift.rig} given to {gift.animal} (logged).")
+            self.load_history(gift.animal, refresh=True)
+            self._refresh_roster()
+
+        self.run_job(f"closing {gift.rig}'s run", fresh, switched)
+
+    def _say(self, message: str) -> None:
+        if self.window is not None:
+            self.window.statusBar().showMessage(message, 15000)
 
     def _refresh_roster(self) -> None:
         if self.window is not None:
@@ -513,11 +615,12 @@ class Controller(QObject):
                      lambda _: self.load_history(animal, refresh=True))
 
     def exclude(self, record: Exclusion) -> None:
-        """Flag a session excluded with its reason (kept, left out of curves and fits)."""
-        from monitor.store import records as store_records
+        """Flag a session excluded with its reason (kept, left out of curves and fits), or count it again;
+        either is logged."""
+        from monitor.store.session_changes import set_excluded
 
-        self._record("exclusion", record.animal, record.session,
-                     lambda c, sid, who: store_records.exclude_session(c, sid, record.reason, who))
+        self._record("exclusion" if record.excluded else "undoing the exclusion", record.animal, record.session,
+                     lambda c, sid, who: set_excluded(c, sid, record.excluded, reason=record.reason, operator=who))
 
     def add_condition(self, record: ConditionRecord) -> None:
         from monitor.store import records as store_records
@@ -662,10 +765,27 @@ class Controller(QObject):
                 self._today[animal] = (rig.snapshot.version, cached)
             today = cached
         care, eligibility = self.records.texts(animal) if self.records is not None else ("", "")
+        parts = self.history_parts.get(animal)
+        panel = self._live_panel(animal, rig, loaded) or (parts.consolidation if parts else None)
         self.book.update(views.page_state(animal, rig.spec.name if rig else None,
                                           loaded.protocol.name if loaded else "", today,
-                                          self.history_parts.get(animal), care, eligibility,
-                                          self._live_panel(animal, rig, loaded)))
+                                          parts, care, eligibility, self._measured(animal, panel)))
+
+    def _measured(self, animal: str, panel):
+        """The panel with the eligibility's own figures as its measures (the same session, the same definition
+        as the eligibility line), once the animal is judged; the same object until either changes."""
+        figures = self.records.figures.get(animal) if self.records is not None else None
+        if panel is None or figures is None:
+            return panel
+        before = self._measured_panels.get(animal)
+        if before is not None and before[0] is panel and before[1] is figures:
+            return before[2]
+        out = replace(panel, trials_since_plateau=figures.trials_since_plateau,
+                      sessions_since_plateau=figures.sessions_since_plateau,
+                      interval_error=figures.measures.get("interval_error"), cv=figures.measures.get("cv"),
+                      measures_session=figures.session)
+        self._measured_panels[animal] = (panel, figures, out)
+        return out
 
     def _follow(self, animal: str, rig: _Rig) -> None:
         """Feed the session's new trials to the animal's cached filter (every rig, page open or not)."""

@@ -21,6 +21,7 @@ veterinarian decide.
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 from datetime import date, datetime
 from pathlib import Path
 from typing import Any, Callable, Sequence
@@ -34,13 +35,17 @@ from monitor.app.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT, Raised
 from monitor.app.assigning import AssignError, Draw, draw_next, record_draw
 from monitor.core.eligibility.assignment import BLOCKS_METHOD
-from monitor.core.care.ledger import CareConfig, DaySummary
+from monitor.core.care.ledger import NO_RECORD, RECORDED, RUNNING, CareConfig, DaySummary
 from monitor.core.eligibility.decision_log import ChainCheck, LogEntry, rule_agrees
+from monitor.core.eligibility.labels import LABELS
+from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.eligibility.verdict import Verdict, window_changes
 from monitor.store import db
-from monitor.ui.care_panel import CareEntry, CarePanel, CareRow, CareView, sheet_image
+from monitor.ui.cohort import CohortRow, CohortTable, CohortView
+from monitor.ui.care_panel import LEVELS, CareEntry, CarePanel, CareRow, CareView, sheet_image
 from monitor.ui.decision_dialog import DECISIONS, DecisionDialog, DecisionRequest, DecisionView
 from monitor.ui.decision_history import DecisionHistory, HistoryView
+from monitor.ui.models import CLEARED_BY
 
 CHECK_EVERY_MS = 300_000     # care alerts that depend on the clock (no fluid, end of day) are re-checked this often
 CARE_SEVERITY = {"notice": INFO, "warning": ATTENTION, "alert": URGENT}
@@ -48,8 +53,8 @@ WINDOW_SEVERITY = {"opened": ATTENTION, "closing": ATTENTION, "opening": INFO, "
 WINDOW_KIND = {"opened": "window opened", "closing": "window closing", "opening": "window may open",
                "closed": "window closed"}
 LEVEL_ORDER = ("alert", "warning", "notice")
+STATE_KINDS = ("no_record_today", "session_running")   # what the store cannot judge yet: a state, never an alarm
 
-CLEARED_BY = "rigside (no longer true)"  # who "acknowledges" a care alert whose condition cleared by itself
 
 
 def _num(value: float | None, digits: int = 2, unit: str = "") -> str:
@@ -66,14 +71,14 @@ def figure_lines(j: Judgement) -> tuple[tuple[str, str], ...]:
     return (("protocol", f"{f.protocol_name} v{f.protocol_version}"),
             ("latest session", "none" if f.session is None else str(f.session)),
             ("plateau", f"reached at session {f.plateau_session}" if f.plateau_reached else "not reached"),
-            ("sessions since plateau", "not available" if f.sessions_since_plateau is None
+            (LABELS["sessions_since_plateau"], "not available" if f.sessions_since_plateau is None
              else str(f.sessions_since_plateau)),
-            ("trials since plateau", "not available" if f.trials_since_plateau is None
+            (LABELS["trials_since_plateau"], "not available" if f.trials_since_plateau is None
              else str(f.trials_since_plateau)),
             ("hit rate (latest session)", percent(m.get("hit_rate"))),
             ("in fixed window", percent(m.get("fixed_window_fraction"))),
-            ("interval error (median |log ratio|)", _num(m.get("interval_error"))),
-            ("CV of intervals", _num(m.get("cv"))),
+            (LABELS["interval_error"], _num(m.get("interval_error"), 3)),
+            (LABELS["cv"], _num(m.get("cv"), 3)),
             ("slow-state fraction (model)", slow))
 
 
@@ -105,8 +110,8 @@ def draw_offer(j: Judgement, earlier: Sequence[LogEntry]) -> tuple[bool, str]:
     if any(e.decision.decision == "assigned" for e in earlier):
         return False, "No draw: this animal is already assigned (record a correction instead)."
     what = "group code" if j.blinding is not None else "group"
-    return True, (f"The {what} is drawn from cohort {rule.cohort_name!r}'s permuted blocks ({BLOCKS_METHOD}, "
-                  "seed recorded), never from the figures.")
+    return True, (f"The {what} is drawn at random from the permuted blocks of cohort \"{rule.cohort_name}\" "
+                  "(the seed is recorded), never from the figures.")
 
 
 def draw_text(draw: Draw) -> str:
@@ -125,7 +130,8 @@ def history_view(animal: str, entries: Sequence[LogEntry], check: ChainCheck) ->
         planned = " on ".join(p for p in (d.planned_manipulation, d.planned_date) if p)
         rows.append((str(e.seq), d.time, d.decision, d.group or d.group_code or "", d.operator, d.rule_state or "",
                      agrees, d.reason, planned, "" if d.corrects is None else f"entry {d.corrects}"))
-    text = (f"Decision log intact: {check.checked} entries, hash chain verified." if check.ok else
+    text = (f"Decision log intact: {check.checked} {'entry' if check.checked == 1 else 'entries'}, hash chain "
+            "verified." if check.ok else
             f"Decision log broken at entry {check.seq} ({check.kind}): {check.message}")
     return HistoryView(animal, tuple(rows), check.ok, text)
 
@@ -135,27 +141,73 @@ def eligibility_text(verdict: Verdict | None) -> str:
 
 
 def care_text(summary: DaySummary) -> str:
-    worst = next((level for level in LEVEL_ORDER if any(a.level == level for a in summary.alerts)), None)
-    alerts = f" — {len(summary.alerts)} care alert(s), worst: {worst}" if worst else " — no care alert"
-    return f"Care today: {care_line(summary)}{alerts}"
+    """The animal page's care line: the day's figures, or its state, and its alerts counted in plain words."""
+    if summary.state == NO_RECORD:
+        return "Care today: nothing recorded yet (no session, weighing or supplement)."
+    real = [a for a in summary.alerts if a.kind not in STATE_KINDS]      # the state is said in words
+    counts = [(LEVELS[level][0], sum(a.level == level for a in real)) for level in LEVEL_ORDER]
+    words = ", ".join(f"{n} {word}" for word, n in counts if n)
+    tail = f" — {len(real)} care {'alert' if len(real) == 1 else 'alerts'}: {words}" if real else " — no care alert"
+    if summary.state == RUNNING:     # nothing is owed before the session's water is counted
+        return f"Care today: {care_line(replace(summary, owed_ml=None))} (a session is running: its water " \
+               f"counts when it ends){tail}"
+    return f"Care today: {care_line(summary)}{tail}"
 
 
 def care_row(s: DaySummary) -> CareRow:
     level = next((lv for lv in LEVEL_ORDER if any(a.level == lv for a in s.alerts)), "")
     cells = (f"{s.total_ml:.2f}", _num(s.minimum_ml), f"{s.earned_ml:.2f}", f"{s.supplement_ml:.2f}",
-             f"{s.owed_ml:.2f}" if s.owed_ml else "0.00",
+             "after the session" if s.state == RUNNING else "–" if s.state == NO_RECORD
+             else f"{s.owed_ml:.2f}" if s.owed_ml else "0.00",
              "none" if s.weight_g is None else f"{s.weight_g:.1f}" + (
                  "" if s.weighed_on in (None, s.day) else f" ({s.weighed_on:%d %b})"),
              _num(s.percent_of_baseline, 1),
              "none" if s.last_fluid is None else f"{s.last_fluid:%H:%M}" + (
                  "" if s.last_fluid.date() == s.day else f" {s.last_fluid:%d %b}"))
-    return CareRow(s.animal, level, cells, tuple((a.level, a.message) for a in s.alerts), s.notes)
+    return CareRow(s.animal, level, cells, tuple((a.level, a.message) for a in s.alerts), s.notes,
+                   "" if s.state == RECORDED else s.state)
+
+
+def cohort_row(animal: str, stage: str | None, f: AnimalFigures | None, verdict: Verdict | None,
+               care: DaySummary | None) -> CohortRow:
+    """One animal's row of the cohort table: text and sort key per column (missing figures sort last)."""
+    sessions = f.session if f is not None else None
+    if f is None:
+        plateau, plateau_key = "not judged yet", None
+    elif f.plateau_reached:
+        plateau, plateau_key = f"reached at session {f.plateau_session}", f.plateau_session
+    else:
+        plateau, plateau_key = "not reached", 10 ** 6
+    if f is None or f.slow_estimate is None or f.slow_status in (None, "not fitted"):
+        slow, slow_key = "no fit yet", None
+    else:
+        slow = f"{f.slow_estimate:.2f} ({f.slow_low:.2f}–{f.slow_high:.2f}), {f.slow_status or 'no status'}"
+        slow_key = f.slow_estimate
+    state = verdict.state if verdict is not None and verdict.kind != "no eligibility rule" else "no rule"
+    if care is None or care.state == NO_RECORD:
+        water, water_key = "no record today", None
+    else:
+        minimum = "" if care.minimum_ml is None else f" of {care.minimum_ml:.2f}"
+        running = " (session running)" if care.state == RUNNING else ""
+        water, water_key = f"{care.total_ml:.2f}{minimum}{running}", care.total_ml
+    if care is None or care.weight_g is None:
+        weight, weight_key = "no weight", None
+    else:
+        percent = "" if care.percent_of_baseline is None else f" ({care.percent_of_baseline:.1f} %)"
+        weight, weight_key = f"{care.weight_g:.1f}{percent}", care.percent_of_baseline or care.weight_g
+    cells = (animal, stage or "not known", "none" if sessions is None else str(sessions), plateau, slow, state,
+             water, weight)
+    return CohortRow(cells, (animal, stage, sessions, plateau_key, slow_key, state, water_key, weight_key))
 
 
 def thresholds_text(c: CareConfig) -> str:
-    minimum = " or ".join(p for p in (
-        f"{c.daily_minimum_ml:g} ml/day" if c.daily_minimum_ml is not None else "",
-        f"{c.daily_minimum_ml_per_kg:g} ml/kg/day" if c.daily_minimum_ml_per_kg is not None else "") if p)
+    species = ", ".join(f"{name} {figure:g}" for name, figure in c.species_ml_per_100g)
+    parts = [p for p in (
+        f"{c.daily_minimum_ml:g} ml" if c.daily_minimum_ml is not None else "",
+        f"{c.daily_minimum_ml_per_kg:g} ml per kg body weight" if c.daily_minimum_ml_per_kg is not None else "",
+        f"ml per 100 g body weight ({species}, any other species {c.daily_minimum_ml_per_100g:g})"
+        if c.daily_minimum_ml_per_100g is not None else "") if p]
+    minimum = "per day " + (f"the larger of {' and '.join(parts)}" if len(parts) > 1 else "".join(parts))
     return (f"Minimum {minimum}, due by {c.end_of_day:%H:%M}; weight warning below {c.weight_warning_percent:g} % "
             f"and limit below {c.weight_limit_percent:g} % of baseline; alert after {c.no_fluid_hours:g} h without "
             "fluid (advisory thresholds)")
@@ -171,6 +223,8 @@ class DecisionsAndCare(QObject):
         self.draws: dict[str, Draw] = {}     # animal -> the draw its open dialog shows
         self.verdicts: dict[str, Verdict] = {}
         self.summaries: dict[str, DaySummary] = {}
+        self.figures: dict[str, AnimalFigures] = {}    # animal -> the figures its verdict was judged on
+        self.cohort: CohortTable | None = None
         self._raised: dict[str, dict[tuple, int]] = {}   # animal -> (day, kind, level) -> alert id
         self._busy = False
         self._again: set[str] | None = None     # animals to judge once the running job is done (empty: all)
@@ -182,6 +236,7 @@ class DecisionsAndCare(QObject):
 
     # --- wiring ------------------------------------------------------------------------
     def attach(self, window) -> None:
+        window.cohort_requested.connect(self.open_cohort)
         window.decision_requested.connect(self.open_decision)
         window.history_requested.connect(self.open_history)
         window.care_requested.connect(self.open_care)
@@ -266,11 +321,14 @@ class DecisionsAndCare(QObject):
                     for change in window_changes(self.verdicts.get(name), j.verdict, j.rule.warn_sessions):
                         self._push(name, WINDOW_KIND[change.kind], WINDOW_SEVERITY[change.kind], change.message)
                 self.verdicts[name] = j.verdict
+                self.figures[name] = j.figures
         for s in summaries:
             self.summaries[s.animal] = s
             before = self._raised.get(s.animal, {})
             now: dict[tuple, int] = {}
             for a in s.alerts:
+                if a.kind in STATE_KINDS:        # the day's state, shown on the page and the care window
+                    continue
                 key = (s.day, a.kind, a.level)
                 now[key] = before[key] if key in before else self._push(
                     s.animal, a.kind.replace("_", " "), CARE_SEVERITY[a.level], f"{s.animal}: {a.message}")
@@ -278,6 +336,8 @@ class DecisionsAndCare(QObject):
                 if key not in now:
                     self.controller.alert_book.acknowledge(alert_id, CLEARED_BY)
             self._raised[s.animal] = now
+        if self.cohort is not None:
+            self.cohort.set_view(self.cohort_view())
         if panel is not None and self.care_panel is not None:
             self.care_panel.set_view(CareView(self.care_panel.view.day, tuple(care_row(s) for s in panel),
                                               thresholds_text(self.config)))
@@ -366,6 +426,25 @@ class DecisionsAndCare(QObject):
                                 lambda r: self._show(DecisionHistory(history_view(animal, *r), self._window())))
 
     # --- care -------------------------------------------------------------------------------
+    def cohort_view(self) -> CohortView:
+        """Every animal judged or cared for, one row each."""
+        stages = self.controller.roster().current_stage
+        names = sorted(set(self.figures) | set(self.summaries))
+        return CohortView(date.today(), tuple(cohort_row(n, stages.get(n), self.figures.get(n), self.verdicts.get(n),
+                                                         self.summaries.get(n)) for n in names))
+
+    def open_cohort(self) -> None:
+        if self.cohort is not None:
+            self.cohort.raise_()
+            return
+        table = CohortTable(self.cohort_view(), self._window())
+        table.refresh_requested.connect(lambda: self.update())
+        table.destroyed.connect(lambda: setattr(self, "cohort", None))
+        self.cohort = table
+        table.setAttribute(Qt.WidgetAttribute.WA_DeleteOnClose)
+        table.show()
+        self.update()
+
     def open_care(self) -> None:
         if self.care_panel is not None:
             self.care_panel.raise_()

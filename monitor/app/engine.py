@@ -12,8 +12,14 @@ timer calls `take_snapshots()` and `take_alerts()`; neither ever waits for the
 engine beyond a short lock, and the engine never touches Qt. Sessions are
 opened and closed by control messages (`open_session`, `close_session`) that
 are applied before any batch of that session; a batch of no known session (no
-animal checked in) still counts as activity. Alert rules that depend on time
-and on the source's link are checked every `check_s`.
+animal checked in) still counts as activity, and its presses are counted as
+unattended (an alert once there are a few; reset when a run is given away).
+Each rig keeps the newest `param` event of each name whatever the session (a
+new header or `param stage` starts afresh); a session opens with
+those fed first (`SessionPlan.carried`), so a window the box sent before
+check-in is in force. A disagreement with the rig is alerted only while the
+window in force is known (the rig's own, or a fixed stage's). Alert rules that
+depend on time and on the source's link are checked every `check_s`.
 """
 
 from __future__ import annotations
@@ -25,9 +31,9 @@ import time
 from typing import Any, Callable, NamedTuple
 
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
-from drivers.wire import Event, Malformed
+from drivers.wire import Event, Header, Malformed
 from monitor.app.pipeline import EngineBatch
-from monitor.core.alerts import LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
+from monitor.core.alerts import ACTIVITY_EVENTS, LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
 from monitor.core.protocol import Protocol
 from monitor.core.session.live_stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot, RateSeries
 
@@ -47,6 +53,7 @@ class SessionPlan(NamedTuple):
     valve_ul_per_ms: float | None = None
     previous_intervals: dict[str, tuple[float, ...]] | None = None
     started: float = 0.0  # host monotonic seconds
+    carried: tuple[Event, ...] = ()  # the rig's `param` events in force from before the session, fed first
 
 
 class RigSnapshot(NamedTuple):
@@ -65,6 +72,9 @@ class RigSnapshot(NamedTuple):
     malformed: int
     last_event_at: float | None   # host monotonic
     newest_stamp: float           # reader stamp of the newest batch included (0: none)
+    params: tuple[Event, ...] = ()   # the rig's newest `param` event of each name (any session or none)
+    window_known: bool = False    # the window in force is the rig's own or a fixed stage's (not a guess)
+    unattended_events: int = 0    # presses, pushes, trial starts since the last session ended with nobody in
 
 
 class RaisedAlert(NamedTuple):
@@ -82,6 +92,17 @@ class _Session:
         self.live = LiveSession(plan.protocol, plan.stage, window=window, valve_ul_per_ms=plan.valve_ul_per_ms,
                                 previous_intervals=dict(plan.previous_intervals or {}))
         self.ended = False
+        for event in plan.carried:
+            self.live.feed(event)
+
+    def window_known(self) -> bool:
+        """The rig sent its window, or the stage in force has a fixed window in the protocol (rigside's
+        window is then not a guess, so a disagreement with the rig means something)."""
+        builder = self.live.builder
+        if builder.window_from_rig:
+            return True
+        stage = self.plan.protocol.stage(builder.stage)
+        return stage is not None and stage.adaptive is None
 
 
 class _Rig:
@@ -95,6 +116,18 @@ class _Rig:
         self.last_event_at: float | None = None
         self.newest_stamp = 0.0
         self.dirty = True
+        self.params: dict[str, Event] = {}
+        self.unattended = 0
+
+    def remember(self, record: Event | Header) -> None:
+        """Keep the newest `param` of each name (a stage change or a board's new header starts afresh)."""
+        if isinstance(record, Header):
+            self.params.clear()
+        elif record.name == "param" and len(record.args) >= 2:
+            if record.args[0] == "stage":
+                self.params.clear()
+            self.params.pop(record.args[0], None)
+            self.params[record.args[0]] = record
 
 
 def link_of(status: SourceStatus) -> str | None:
@@ -141,6 +174,10 @@ class Engine:
     def open_session(self, plan: SessionPlan) -> None:
         """Follow `plan.session_id` from now; call before the Fanout switches to that session."""
         self._controls.append(("open", plan))
+
+    def forget_unattended(self, rig: str) -> None:
+        """The rig's unattended run was given away (or ended): count afresh."""
+        self._controls.append(("unattended", rig))
 
     def close_session(self, rig: str, session_id: int) -> None:
         self._controls.append(("close", (rig, session_id)))
@@ -220,9 +257,16 @@ class Engine:
                 state = self._rigs.setdefault(plan.rig, _Rig(plan.rig, None, self.rules))
                 self._end(state)
                 state.session = _Session(plan, self.window)
+                state.unattended = 0
                 self._by_session[plan.session_id] = state
                 state.watch.session(True, self._clock())
                 state.dirty = True
+            elif kind == "unattended":
+                state = self._rigs.get(value)
+                if state is not None:
+                    state.unattended = 0
+                    state.watch.forget_unattended()
+                    state.dirty = True
             elif kind == "close":
                 rig, session_id = value
                 state = self._rigs.get(rig)
@@ -235,6 +279,7 @@ class Engine:
             return
         session.live.finish()
         session.ended = True
+        state.unattended = 0
         state.watch.session(False, self._clock())
         self._by_session.pop(session.plan.session_id, None)
         state.dirty = True
@@ -258,14 +303,21 @@ class Engine:
         for record in item.batch.records:
             if isinstance(record, Event):
                 events += 1
+                state.remember(record)
+                if (session is None or session.ended) and record.name in ACTIVITY_EVENTS:
+                    state.unattended += 1
                 raised += watch.event(record.name, record.args, record.t_us, now)
                 if session is not None:
                     session.live.feed(record)
+            elif isinstance(record, Header):
+                state.remember(record)
             elif isinstance(record, Malformed):
                 state.malformed += 1
+        if session is None or session.ended:
+            raised += watch.unattended(state.unattended)
         if item.batch.records:
             raised += watch.malformed(state.malformed, now)
-        if session is not None:
+        if session is not None and session.window_known():
             found = session.live.builder.disagreements
             if found:
                 _, rig_word, computed = found[-1]
@@ -314,7 +366,8 @@ class Engine:
                 series=session.live.stats.rate_series() if session else None,
                 disagreements=len(session.live.builder.disagreements) if session else 0,
                 events=state.events, malformed=state.malformed, last_event_at=state.last_event_at,
-                newest_stamp=state.newest_stamp)
+                newest_stamp=state.newest_stamp, params=tuple(state.params.values()),
+                window_known=session.window_known() if session else False, unattended_events=state.unattended)
         if fresh:
             with self._lock:
                 self._latest.update(fresh)

@@ -5,14 +5,16 @@ takes plain values and returns the frozen view models of `monitor.ui.models`.
 Missing figures stay `None` (NaN in arrays), never 0. A rig's connection word
 comes from its source's state and whether a session runs: lost (reader ended),
 retrying (waiting for the device), quiet (session running, no event for
-`quiet_after_s`), live (session running), idle (connected, no session). The session
+`quiet_after_s`), live (session running), idle (connected, no session), unattended
+(no session, but presses arrive). The session
 clock is in whole seconds, so a tile changes once a second at most when no
 trial arrives. Tile histograms are today's linear-bin counts of the stage in force; the rolling
 hit rate's band is the 95 % Wilson interval. History is summarised per
-session with the core's `summarize` and `learning_curve`; the plateau verdict
-is the protocol's own rule (`judge`); the consolidation panel shows the
-transparent measures first, then the fitted slow-state fraction when a fit is
-given.
+session with the core's `summarize` and `learning_curve`: the curve shows
+every session of every stage, the plateau verdict is the protocol's own rule
+(`judge`) on the final stage; the consolidation panel shows the transparent
+measures first — the eligibility's own figures (`figures_from_report`) — then
+the fitted slow-state fraction when a fit is given.
 """
 
 from __future__ import annotations
@@ -25,8 +27,9 @@ import numpy as np
 
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from monitor.app.engine import RigSnapshot
+from monitor.core.eligibility.figures import AnimalFigures
+from monitor.core.eligibility.from_report import figures_from_report
 from monitor.core.session.binomial import wilson
-from monitor.core.consolidation.model import TrialSeries
 from monitor.core.session.plateau import judge
 from monitor.core.session.start_drop import start_drops
 from monitor.core.protocol import Protocol
@@ -65,8 +68,12 @@ def tile_state(rig: str, snapshot: RigSnapshot | None, status: SourceStatus | No
                quiet_after_s: float = QUIET_AFTER_S) -> RigTileState:
     """One overview tile; `now` is host monotonic seconds (the session clock)."""
     in_session = snapshot is not None and snapshot.session_id is not None and not snapshot.ended
-    base = dict(rig=rig, connection=connection(status, in_session, quiet_after_s), source_text=source_text,
-                alert_count=alert_count, alert_severity=alert_severity)
+    word = connection(status, in_session, quiet_after_s)
+    unattended = snapshot.unattended_events if snapshot is not None and not in_session else 0
+    if unattended and word is Connection.IDLE and status is not None and status.state != STOPPED:
+        word = Connection.UNATTENDED
+    base = dict(rig=rig, connection=word, source_text=source_text, alert_count=alert_count,
+                alert_severity=alert_severity, unattended_presses=unattended)
     if snapshot is None or snapshot.live is None or not in_session:
         return RigTileState(animal=None if not in_session else snapshot.animal, **base)
     live = snapshot.live
@@ -75,7 +82,7 @@ def tile_state(rig: str, snapshot: RigSnapshot | None, status: SourceStatus | No
     seconds = float(math.floor(now - snapshot.started)) if snapshot.started is not None else None
     return RigTileState(
         animal=snapshot.animal, session_seconds=seconds, trials_today=live.trials,
-        hit_rate=_finite(live.rolling_hit_rate) if live.rolling_trials else None,
+        hit_rate=_finite(live.rolling_hit_rate) if live.rolling_trials else None, hit_window=live.rolling_trials,
         hit_low=_finite(live.rolling_low) if live.rolling_trials else None,
         hit_high=_finite(live.rolling_high) if live.rolling_trials else None,
         last_interval_ms=last,
@@ -120,13 +127,17 @@ def store_health(state: str) -> StoreHealth:
 def status_state(statuses: Mapping[str, SourceStatus], writer_state: str, writer_text: str,
                  committed_events: int) -> StatusState:
     """The status bar: how many sources read, which are not, and the store writer."""
-    words = [f"{rig}: {status.text}" for rig, status in statuses.items()
-             if status.state in (LOST, WAITING, STOPPED)]
-    reading = len(statuses) - len(words)
-    sources = f"{reading} of {len(statuses)} sources reading" + (" — " + "; ".join(words) if words else "")
+    troubled = {rig: status for rig, status in statuses.items() if status.state in (LOST, WAITING, STOPPED)}
+    words = {LOST: "lost", WAITING: "retrying", STOPPED: "stopped"}
+    counts = [(word, sum(s.state == state for s in troubled.values())) for state, word in words.items()]
+    reading = len(statuses) - len(troubled)
+    sources = f"{reading} of {len(statuses)} sources reading" + \
+        ("; " + ", ".join(f"{n} {word}" for word, n in counts if n) if troubled else "")
+    detail = "\n".join(f"{rig}: {status.text}" for rig, status in troubled.items())
     health = store_health(writer_state)
     text = writer_text if health is not StoreHealth.SAVING else f"{committed_events} events saved"
-    return StatusState(sources_text=sources if statuses else "no sources", store=health, store_text=text)
+    return StatusState(sources_text=sources if statuses else "no sources", store=health, store_text=text,
+                       sources_detail=detail, sources_trouble=bool(troubled))
 
 
 # --- history ------------------------------------------------------------------------------
@@ -159,13 +170,6 @@ class HistoryParts(NamedTuple):
     session_ids: tuple[int | None, ...] = ()   # the store's id of each row of `sessions`
 
 
-def consolidation_series(protocol: Protocol, sessions: Sequence[HistorySession]) -> TrialSeries:
-    """The final stage's completed trials as the consolidation estimator takes them (label = session index)."""
-    from monitor.store.consolidation_fits import build_series
-
-    return build_series(protocol.final_stage.name, [(s.trials, s.break_hours, s.excluded) for s in sessions])
-
-
 def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
                   fit: Mapping[str, Any] | None = None) -> HistoryParts:
     """Learning curve, consolidation panel and session table from an animal's past sessions.
@@ -173,34 +177,24 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
     `fit` is the consolidation block of the store's cached fit (the report's block with its
     "trajectory", "forecast" and "current"), or None: measures only.
     """
-    from monitor.core.consolidation.measures import since_plateau
-
     inputs = [SessionInput(s.trials, s.start, s.malformed_lines, s.excluded, s.exclusion_reason, s.counts,
                            s.water_ul) for s in sessions]
     summaries = [summarize(protocol, session, index) for index, session in enumerate(inputs, start=1)]
-    curve = learning_curve(protocol, inputs)
+    curve = learning_curve(protocol, inputs)          # the final stage's, as the plateau rule judges it
     result = judge(protocol.plateau, curve)
-    binary = curve.measure in BINARY_MEASURES
-    bounds = [wilson(int(np.sum(p.outcomes)), len(p.outcomes)) if binary and len(p.outcomes) else (math.nan,) * 2
-              for p in curve.points]
     plateau_session = result.session if result.reached else None
-    curve_state = CurveState(
-        session=np.array([p.session for p in curve.points], float),
-        measure=np.array([p.value for p in curve.points], float),
-        low=np.array([b[0] for b in bounds], float), high=np.array([b[1] for b in bounds], float),
-        stage=tuple(summaries[p.session - 1].stage or "" for p in curve.points),
-        measure_name=MEASURE_WORDS.get(curve.measure, curve.measure.replace("_", " ")),
-        criterion=protocol.plateau.threshold, plateau_session=plateau_session,
-        plateau_word="reached" if result.reached else "not reached", plateau_reason=result.reason)
+    curve_state = _curve_state(protocol, inputs, curve.measure, result, plateau_session)
     rows = tuple(SessionRow(
         index=s.index, start=sessions[s.index - 1].start, rig=sessions[s.index - 1].rig, stage=s.stage or "",
         trials=s.figures.trials, hits=s.figures.hits, hit_rate=s.figures.hit_rate,
         median_ms=s.figures.median_interval_ms, cv=s.figures.cv, excluded=s.excluded,
         exclusion_reason=s.exclusion_reason, conditions=sessions[s.index - 1].conditions) for s in summaries)
-    series = consolidation_series(protocol, sessions)
-    since = since_plateau(series, plateau_session)
+    figures = figures_from_report({"animal": "", "sessions": [dict(
+        index=s.index, trials=s.figures.trials, excluded=s.excluded, hit_rate=s.figures.hit_rate, cv=s.figures.cv,
+        fixed_window_fraction=s.figures.fixed_window_fraction, median_abs_log_error=s.figures.median_abs_log_error)
+        for s in summaries], "plateau": {"reached": result.reached, "session": plateau_session}})
     drops = hit_rate_drops(protocol, sessions)
-    consolidation = _consolidation_state(since, _latest_error(protocol, sessions), drops, fit)
+    consolidation = _consolidation_state(figures, drops, fit)
     previous: dict[str, tuple[float, ...]] = {}
     if sessions:
         for t in sessions[-1].trials:
@@ -211,6 +205,34 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
                         tuple(s.session_id for s in sessions))
 
 
+def stage_names(protocol: Protocol, sessions: Sequence[SessionInput]) -> tuple[str, ...]:
+    """Every stage with trials, the protocol's order first, then any other stage in the order it was met."""
+    seen = {t.stage for s in sessions for t in s.trials}
+    known = [s.name for s in protocol.stages if s.name in seen]
+    others = list(dict.fromkeys(t.stage for s in sessions for t in s.trials if t.stage not in known))
+    return tuple(known + others)
+
+
+def _curve_state(protocol: Protocol, inputs: Sequence[SessionInput], measure: str, result: Any,
+                 plateau_session: int | None) -> CurveState:
+    """Every kept session of every stage (one point per session and stage, even short ones), by stage."""
+    binary = measure in BINARY_MEASURES
+    points: list[tuple[int, str, float, float, float, int]] = []
+    for name in stage_names(protocol, inputs):
+        for p in learning_curve(protocol, inputs, stage=name, measure=measure, min_trials=1).points:
+            low, high = (wilson(int(np.sum(p.outcomes)), len(p.outcomes)) if binary and len(p.outcomes)
+                         else (math.nan, math.nan))
+            points.append((p.session, name, p.value, low, high, p.trials))
+    return CurveState(
+        session=np.array([p[0] for p in points], float), measure=np.array([p[2] for p in points], float),
+        low=np.array([p[3] for p in points], float), high=np.array([p[4] for p in points], float),
+        stage=tuple(p[1] for p in points), trials=tuple(p[5] for p in points),
+        measure_name=MEASURE_WORDS.get(measure, measure.replace("_", " ")),
+        criterion=protocol.plateau.threshold, plateau_session=plateau_session,
+        plateau_word="reached" if result.reached else "not reached", plateau_reason=result.reason,
+        final_stage=protocol.final_stage.name)
+
+
 def hit_rate_drops(protocol: Protocol, sessions: Sequence[HistorySession]) -> tuple[StartDrop, ...]:
     """The start-of-session drops of the final stage's hit rate (monitor.core.session.start_drop)."""
     final = protocol.final_stage.name
@@ -218,29 +240,16 @@ def hit_rate_drops(protocol: Protocol, sessions: Sequence[HistorySession]) -> tu
                         for index, s in enumerate(sessions, start=1) if not s.excluded])
 
 
-def _latest_error(protocol: Protocol, sessions: Sequence[HistorySession]) -> tuple[float | None, float | None]:
-    """Median |interval - target| (ms) and CV of the final stage in the latest session that has trials."""
-    final = protocol.final_stage.name
-    for session in reversed(sessions):
-        if session.excluded:
-            continue
-        done = [t for t in session.trials if t.completed and t.stage == final and math.isfinite(t.interval_ms)]
-        if len(done) >= 2:
-            intervals = np.array([t.interval_ms for t in done])
-            targets = np.array([t.target_ms for t in done])
-            cv = float(np.std(intervals, ddof=1) / np.mean(intervals))
-            return float(np.median(np.abs(intervals - targets))), cv
-    return None, None
-
-
-def _consolidation_state(since: Mapping[str, int | None], latest: tuple[float | None, float | None],
-                         drops: tuple[StartDrop, ...], fit: Mapping[str, Any] | None) -> ConsolidationState:
-    error_ms, cv = latest
+def _consolidation_state(figures: AnimalFigures, drops: tuple[StartDrop, ...],
+                         fit: Mapping[str, Any] | None) -> ConsolidationState:
+    """The transparent measures are the eligibility's own figures (one definition each), then the model."""
+    since = {"trials": figures.trials_since_plateau, "sessions": figures.sessions_since_plateau}
+    error, cv = figures.measures.get("interval_error"), figures.measures.get("cv")
     empty = np.zeros(0)
     rows = list(fit.get("trajectory") or ()) if fit is not None else []
     if not rows:
         why = "not fitted yet" if fit is None else f"{fit['status']}" + (f", {fit['reason']}" if fit.get("reason") else "")
-        return ConsolidationState(since["trials"], since["sessions"], error_ms, cv, drops, empty, empty, empty,
+        return ConsolidationState(since["trials"], since["sessions"], error, cv, drops, empty, empty, empty,
                                   empty, (), model_comparison=f"Model: {why}.")
     comparison = f"Model ({fit['status']}): {fit.get('reason', '')}."
     if fit.get("current") is False:
@@ -251,7 +260,7 @@ def _consolidation_state(since: Mapping[str, int | None], latest: tuple[float | 
     if forecast and fit["status"] == "estimated":
         low, high = forecast["sessions_low"], forecast["sessions_high"]
     return ConsolidationState(
-        since["trials"], since["sessions"], error_ms, cv, drops,
+        since["trials"], since["sessions"], error, cv, drops,
         session=np.array([r["session"] for r in rows], float), fraction=np.array([r["estimate"] for r in rows], float),
         fraction_low=np.array([r["low"] for r in rows], float), fraction_high=np.array([r["high"] for r in rows], float),
         status=tuple(r["status"] for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,

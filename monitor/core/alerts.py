@@ -44,6 +44,7 @@ class AlertRules:
     malformed_window_s: float = 60.0   # ... within this many seconds
     repeat_s: float = 60.0             # a repeatable alert fires at most once per this
     clock_rate: float = 1.0            # device seconds per host second (a demo runs faster)
+    unattended_presses: int = 3        # presses with nobody checked in before the box is flagged
 
     def problems(self) -> list[str]:
         """What is wrong with these thresholds, one sentence each (empty when fine)."""
@@ -55,6 +56,9 @@ class AlertRules:
         if isinstance(self.malformed_burst, float) and not self.malformed_burst.is_integer():
             out.append(f"malformed_burst must be a whole number, got {self.malformed_burst!r}")
         return out
+
+
+ACTIVITY_EVENTS = ("lever_down", "joystick", "trial_start")   # an animal (or a stuck lever) at work
 
 
 class Raised(NamedTuple):
@@ -83,11 +87,13 @@ class RigWatch:
         self._burst_count = 0
         self._burst_fired = False
         self._disagreements = 0
+        self._unattended_fired = False
 
     # --- observations ------------------------------------------------------------
     def session(self, running: bool, now: float) -> None:
         """A session started (running) or ended; silence is judged within sessions only."""
         self.in_session = running
+        self._unattended_fired = False
         self._last_data = now
         self._silent_fired = False
         self._held.clear()
@@ -160,9 +166,23 @@ class RigWatch:
         """The running count of trials where the rig's outcome and rigside's differ."""
         new, self._disagreements = total - self._disagreements, total
         if new > 0 and self._may_repeat("disagreement", now):
-            return [Raised("disagreement", ATTENTION, f"rig and rigside disagree on {total} trial(s) this "
+            trials = "1 trial" if total == 1 else f"{total} trials"
+            return [Raised("disagreement", ATTENTION, f"rig and rigside disagree on {trials} this "
                            f"session (latest: {latest}): check the protocol file against the rig's program")]
         return []
+
+    def forget_unattended(self) -> None:
+        """The box's unattended presses were given to an animal: flag afresh."""
+        self._unattended_fired = False
+
+    def unattended(self, presses: int) -> list[Raised]:
+        """Presses, pushes or trial starts while nobody is checked in: flagged once until the next session."""
+        if self.in_session or self._unattended_fired or presses < self.rules.unattended_presses:
+            return []
+        self._unattended_fired = True
+        return [Raised("nobody checked in", ATTENTION, f"the box is running ({presses} presses or trials) with "
+                       "nobody checked in: check the animal in, or give these trials to it afterwards "
+                       "(Rigs, Give unattended trials)")]
 
     def tick(self, now: float) -> list[Raised]:
         """Rules that fire because time passed: silence, a lever still held, a device gone."""

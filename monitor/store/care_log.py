@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import sqlite3
 import time
+from dataclasses import replace
 from datetime import datetime, timedelta
 
 from monitor.core.care.ledger import AnimalCare, CareConfig, HealthNote, Supplement, Weighing
@@ -238,18 +239,19 @@ def animal_care(conn: sqlite3.Connection, animal: str, config: CareConfig,
         weighings.append(Weighing(datetime.fromisoformat(at), grams, by))
     weighings.sort(key=lambda w: w.time)
     sessions = []
-    for session_id, start_wall, started_at, ended_at, rig, text in conn.execute(
-            "SELECT id, start_wall, started_at, ended_at, rig, protocol_text FROM sessions WHERE animal = ? "
-            "ORDER BY started_at, id", (animal,)).fetchall():
+    rows = conn.execute("SELECT id, start_wall, started_at, ended_at, rig, protocol_text FROM sessions "
+                        "WHERE animal = ? ORDER BY started_at, id", (animal,)).fetchall()
+    for number, (session_id, start_wall, started_at, ended_at, rig, text) in enumerate(rows, start=1):
         start = datetime.fromisoformat(start_wall)
         if since is not None and start.tzinfo is not None and start < since:
             continue
-        end = start + timedelta(seconds=(ended_at or started_at) - started_at)
+        # a session still running has no end yet: its water is not the day's until it ends
+        end = None if ended_at is None else start + timedelta(seconds=ended_at - started_at)
         protocol = protocol_of(text) if text else None
-        sessions.append(session_water(session_events(conn, session_id), ul_per_ms=valve_calibration(conn, rig),
-                                      reward_ul=protocol.reward_ul if protocol else None,
-                                      max_valve_ms=config.max_valve_ms, lick_window_ms=config.lick_window_ms,
-                                      session=str(session_id), end=end,
-                                      max_reward_ul=protocol.care_limits.get("max_reward_ul") if protocol else None))
-    return AnimalCare(animal, known.baseline_weight_g if known else None, tuple(sessions), tuple(supplements), tuple(weighings),
-                      tuple(notes))
+        water = session_water(session_events(conn, session_id), ul_per_ms=valve_calibration(conn, rig),
+                              reward_ul=protocol.reward_ul if protocol else None, max_valve_ms=config.max_valve_ms,
+                              lick_window_ms=config.lick_window_ms, session=str(number), end=end,
+                              max_reward_ul=protocol.care_limits.get("max_reward_ul") if protocol else None)
+        sessions.append(replace(water, start=start))      # named by the animal's own session count
+    return AnimalCare(animal, known.baseline_weight_g if known else None, tuple(sessions), tuple(supplements),
+                      tuple(weighings), tuple(notes), species=known.species if known else None)

@@ -94,6 +94,11 @@ def ensure_animal(conn: sqlite3.Connection, name: str, by: str = AUTOMATIC, **fi
     return int(row[0])
 
 
+def session_count(conn: sqlite3.Connection, animal: str) -> int:
+    """How many sessions the store holds for the animal: its own session count (a person's session number)."""
+    return conn.execute("SELECT count(*) FROM sessions WHERE animal = ?", (animal,)).fetchone()[0]
+
+
 def find_animal(conn: sqlite3.Connection, name: str) -> Animal | None:
     row = conn.execute("SELECT id, name, cohort, species, strain, sex, date_of_birth, genotype, usual_boxes, "
                        "baseline_weight_g FROM animals WHERE name = ?", (name,)).fetchone()

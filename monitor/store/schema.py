@@ -460,6 +460,25 @@ _MANIPULATIONS = (
         BEGIN SELECT RAISE(ABORT, '{_UNBLINDINGS_APPEND_ONLY}'); END""",
 )
 
+_NO_SESSION_REWRITE = "the session changes log is append-only"
+
+_SESSION_CHANGES = (
+    """CREATE TABLE session_changes (
+        id INTEGER PRIMARY KEY,
+        session_id INTEGER NOT NULL REFERENCES sessions(id),
+        change TEXT NOT NULL CHECK (change IN ('given', 'excluded', 'included')),
+        animal TEXT,                    -- who the session belongs to after the change
+        reason TEXT NOT NULL,
+        operator TEXT NOT NULL,
+        at TEXT NOT NULL                -- ISO 8601 with UTC offset
+    )""",
+    f"""CREATE TRIGGER session_changes_no_update BEFORE UPDATE ON session_changes
+        BEGIN SELECT RAISE(ABORT, '{_NO_SESSION_REWRITE}'); END""",
+    f"""CREATE TRIGGER session_changes_no_delete BEFORE DELETE ON session_changes
+        BEGIN SELECT RAISE(ABORT, '{_NO_SESSION_REWRITE}'); END""",
+    "ALTER TABLE checkins ADD COLUMN checked_out_by TEXT",   # who checked the animal out (confirmed)
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration("live sources: sources, sessions, events, raw lines, gaps, file offsets", _V1),
     Migration("rigs, animals, protocols, imports, check-ins, conditions, exclusions, trials, decisions, "
@@ -471,6 +490,9 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration("care log: void and correct, confirmations, hash chain, append-only", _CARE_CHAIN),
     Migration("lab sync: this PC's lab identity and bookmarks", _LAB_SYNC),
     Migration("manipulations and unblindings", _MANIPULATIONS),
+    Migration("session changes log: unattended runs given to an animal, exclusions and their undoing; "
+              "who checked an animal out",
+              _SESSION_CHANGES),
 )
 SCHEMA_VERSION = len(MIGRATIONS)
 

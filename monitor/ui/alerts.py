@@ -1,8 +1,11 @@
 """The alert list, acknowledging with a name, and the sound / tray for urgent alerts.
 
 Rule: every alert goes into the in-window list (kind, time, rig, text, and its
-severity as a word); only URGENT alerts — those that need a person — beep and,
-where the desktop has a tray (`QSystemTrayIcon.isSystemTrayAvailable()`), show
+severity as a word); an open alert is drawn with its severity's shape and the
+word OPEN, a resolved one (acknowledged, or cleared because it is no longer
+true) with a tick, in italics and the word "resolved", so the open count
+above the list is the number of rows without a tick. Only URGENT alerts —
+those that need a person — beep and, where the desktop has a tray (`QSystemTrayIcon.isSystemTrayAvailable()`), show
 a tray message. Without a tray the list and the sound still alert. When nothing
 is open the panel says so in one quiet line. Acknowledging needs the operator's
 name and goes through the AlertBook, which announces it for the app to store.
@@ -14,7 +17,7 @@ from __future__ import annotations
 from typing import Callable
 
 from PySide6.QtCore import QObject, QPointF, Qt, Signal
-from PySide6.QtGui import QCloseEvent, QIcon, QPainter, QPixmap
+from PySide6.QtGui import QCloseEvent, QIcon, QPainter, QPalette, QPixmap
 from PySide6.QtWidgets import (
     QApplication,
     QHBoxLayout,
@@ -29,16 +32,38 @@ from PySide6.QtWidgets import (
 )
 
 from monitor.ui.dialogs import plain_label
-from monitor.ui.models import Alert, Severity
+from monitor.ui.models import CLEARED_BY, Alert, Severity
 from monitor.ui.owners import AlertBook
 from monitor.ui.theme import SEVERITY_COLOUR, colour, draw_shape
 
+RESOLVED_SHAPE = "tick"
+
+
 def alert_text(alert: Alert) -> str:
-    """The list's text for one alert: time, rig, severity and kind; its text; who saw it."""
-    lines = [f"{alert.time.strftime('%H:%M')}  {alert.rig}  ·  {alert.severity.word}: {alert.kind}", alert.text]
-    if alert.acknowledged_by:
-        lines.append(f"seen by {alert.acknowledged_by}")
-    return "\n".join(lines)
+    """The list's text for one alert: open or resolved first, then time, box and kind; its text; who saw it."""
+    where = f"  {alert.rig}" if alert.rig else ""
+    kind = alert.kind.replace("_", " ")
+    if alert.acknowledged_by is None:
+        head = f"OPEN, {alert.severity.word}  ·  {alert.time.strftime('%H:%M')}{where}  ·  {kind}"
+        return "\n".join([head, alert.text])
+    head = f"resolved  ·  {alert.time.strftime('%H:%M')}{where}  ·  {kind}"
+    who = alert.acknowledged_by
+    seen = "cleared by itself: no longer true" if who == CLEARED_BY else f"seen by {who}"
+    return "\n".join([head, alert.text, seen])
+
+
+def summary_text(open_alerts: list[Alert], resolved: int, sources: str = "") -> str:
+    """One line over the list: how many open alerts and how urgent, and how many are resolved; never "all quiet"
+    while `sources` says some box is not reading."""
+    tail = f"; {resolved} resolved (ticked)" if resolved else ""
+    if not open_alerts and sources:
+        return f"No open alerts{tail}, but {sources} (status bar)."
+    if not open_alerts:
+        return f"All quiet: no open alerts{tail}."
+    counts = {s: sum(a.severity is s for a in open_alerts) for s in Severity}
+    parts = ", ".join(f"{n} {s.word}" for s, n in sorted(counts.items(), key=lambda kv: -kv[0].rank) if n)
+    noun = "alert" if len(open_alerts) == 1 else "alerts"
+    return f"{len(open_alerts)} open {noun} ({parts}){tail}."
 
 
 def severity_icon(word: str, shape: str, size: int = 20) -> QIcon:
@@ -85,14 +110,22 @@ class AlertPanel(QWidget):
         layout.addLayout(row)
         layout.addWidget(self.message)
         self._items: dict[int, QListWidgetItem] = {}
+        self._sources = ""
         self._icons = {word: severity_icon(word, shape) for word, shape in
                        ((s.word, s.shape) for s in Severity)}
+        self._resolved_icon = severity_icon("info", RESOLVED_SHAPE)
         for alert in book.alerts():
             self._show(alert.id)
         self._refresh_summary()
         book.alert_added.connect(self._on_added)
         book.alert_changed.connect(self._on_changed)
         self._connected = True
+
+    def set_sources(self, trouble: str) -> None:
+        """Boxes not reading, in words ("" when every box reads): the summary never says all quiet then."""
+        if trouble != self._sources:
+            self._sources = trouble
+            self._refresh_summary()
 
     def item(self, alert_id: int) -> QListWidgetItem | None:
         return self._items.get(alert_id)
@@ -143,10 +176,14 @@ class AlertPanel(QWidget):
             self.list.insertItem(self._position(alert), item)   # newest at the top
             self._items[alert_id] = item
         item.setText(alert_text(alert))
-        item.setIcon(self._icons[alert.severity.word])
+        resolved = alert.acknowledged_by is not None
+        item.setIcon(self._resolved_icon if resolved else self._icons[alert.severity.word])
         font = item.font()
-        font.setBold(alert.acknowledged_by is None and alert.severity.rank > 0)
+        font.setBold(not resolved and alert.severity.rank > 0)
+        font.setItalic(resolved)
         item.setFont(font)
+        item.setForeground(self.palette().color(QPalette.ColorRole.PlaceholderText) if resolved
+                           else self.palette().color(QPalette.ColorRole.Text))
 
     def _position(self, alert: Alert) -> int:
         """Row for a new alert so that the list stays newest first."""
@@ -158,12 +195,13 @@ class AlertPanel(QWidget):
 
     def _refresh_summary(self) -> None:
         open_ = self.book.open_alerts()
-        if not open_:
-            self.summary.setText("All quiet: no open alerts.")
+        self.summary.setText(summary_text(open_, len(self.book.alerts()) - len(open_), self._sources))
+        if not open_ and self._sources:
+            self.summary.setStyleSheet(f"color: {colour(SEVERITY_COLOUR['attention']).darker(130).name()};")
+        elif not open_:
             self.summary.setStyleSheet("")
         else:
             worst = max(open_, key=lambda a: a.severity.rank).severity
-            self.summary.setText(f"{len(open_)} open alert{'s' if len(open_) != 1 else ''} (worst: {worst.word})")
             self.summary.setStyleSheet(f"color: {colour(SEVERITY_COLOUR[worst.word]).name()};")
 
     def disconnect_book(self) -> None:

@@ -35,6 +35,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
+from monitor.core.eligibility.labels import LABELS
 from monitor.ui.dialogs import ConditionDialog, ExclusionDialog, plain_label
 from monitor.ui.models import AnimalPageState, ConsolidationState, CurveState, SessionRow, TodayState
 from monitor.ui.owners import AnimalBook
@@ -80,8 +81,20 @@ class Figure(QWidget):
 LOG_TICKS_MS = (20, 50, 100, 200, 500, 1000, 2000, 5000, 10000)
 
 
+def scaled_previous(today: np.ndarray, previous: np.ndarray | None) -> np.ndarray | None:
+    """The previous session's histogram scaled to today's total, so the two compare by shape (None: nothing
+    to compare: no previous session, or no trial today or then)."""
+    if previous is None:
+        return None
+    before, now = float(np.sum(previous)), float(np.sum(today))
+    if before <= 0 or now <= 0:
+        return None
+    return np.asarray(previous, float) * (now / before)
+
+
 class HistogramPanel(QWidget):
-    """Today's intervals against the window, the previous session overlaid; linear or log bins."""
+    """Today's intervals against the window, the previous session's shape overlaid (scaled to today's total,
+    its own counts on hover); linear or log bins."""
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -94,13 +107,16 @@ class HistogramPanel(QWidget):
                                                                             style=Qt.PenStyle.DashLine))
         self.previous = pg.PlotDataItem(stepMode="center", pen=pg.mkPen(colour("orange"), width=2,
                                                                         style=Qt.PenStyle.DashLine),
-                                        name="previous session")
+                                        name="previous session (shape, scaled to today's total)")
         self.today = pg.PlotDataItem(stepMode="center", fillLevel=0, brush=translucent("blue", 110),
                                      pen=pg.mkPen(colour("blue"), width=2), name="today")
         self.plot.getPlotItem().addLegend(offset=(-10, 10), labelTextColor=plot_colours()[1])
         for item in (self.region, self.target, self.previous, self.today):
             self.plot.addItem(item)
         self.window_text = plain_label(wrap=False)
+        self.hover = plain_label(wrap=False)
+        self.hover.setObjectName("bin_counts")
+        self.plot.scene().sigMouseMoved.connect(self._hovered)
         top = QHBoxLayout()
         top.addWidget(_big(plain_label("Intervals today", wrap=False), 12))
         top.addStretch(1)
@@ -110,6 +126,7 @@ class HistogramPanel(QWidget):
         layout.setContentsMargins(0, 0, 0, 0)
         layout.addLayout(top)
         layout.addWidget(self.plot, 1)
+        layout.addWidget(self.hover)
         self._state: TodayState | None = None
         self._log_shown: bool | None = None   # the scale the axis shows (None: not drawn yet)
         self.ranges = RangeKeeper(self.plot)
@@ -135,11 +152,11 @@ class HistogramPanel(QWidget):
         if changed_scale:
             self.plot.getPlotItem().setLogMode(x=log, y=False)   # after the range: no 10**1500 on the way
             self._log_shown = log
-        peak = max(float(np.max(data.today, initial=0)),
-                   float(np.max(data.previous, initial=0)) if data.previous is not None else 0.0)
+        shape = scaled_previous(data.today, data.previous)
+        peak = max(float(np.max(data.today, initial=0)), float(np.max(shape, initial=0)) if shape is not None else 0.0)
         self.ranges.set_y(0.0, nice_ceiling(peak * 1.05))
-        if data.previous is not None:
-            self.previous.setData(data.edges_ms, data.previous)
+        if shape is not None:
+            self.previous.setData(data.edges_ms, shape)
         else:
             self.previous.setData([], [])
         to_axis = (lambda v: math.log10(v)) if log else (lambda v: v)
@@ -155,6 +172,27 @@ class HistogramPanel(QWidget):
             self.target.show()
         else:
             self.target.hide()
+
+
+    def bin_text(self, interval_ms: float) -> str:
+        """The counts of the bin holding `interval_ms`: today's and the previous session's own."""
+        state = self._state
+        if state is None:
+            return ""
+        data = state.log if self.log_bins.isChecked() else state.linear
+        edges = np.asarray(data.edges_ms, float)
+        k = int(np.searchsorted(edges, interval_ms, side="right")) - 1
+        if not 0 <= k < len(data.today):
+            return ""
+        before = "" if data.previous is None else f", previous session {int(data.previous[k])}"
+        return f"{edges[k]:.0f}–{edges[k + 1]:.0f} ms: today {int(data.today[k])}{before}"
+
+    def _hovered(self, position) -> None:
+        if not self.plot.sceneBoundingRect().contains(position):
+            self.hover.setText("")
+            return
+        x = self.plot.getPlotItem().vb.mapSceneToView(position).x()
+        self.hover.setText(self.bin_text(10 ** x if self.log_bins.isChecked() else x))
 
 
 class RollingPanel(QWidget):
@@ -199,35 +237,55 @@ class RollingPanel(QWidget):
             self.now.setText("no trials yet")
 
 
+STAGE_SYMBOLS = ("t", "s", "d", "o", "star", "p", "h", "+")     # one shape per stage, in the protocol's order
+STAGE_COLOURS = ("orange", "sky_blue", "reddish_purple", "blue", "bluish_green", "vermillion", "yellow", "black")
+
+
 class CurvePanel(QWidget):
-    """The learning curve across sessions with its intervals, stages, criterion and plateau marked."""
+    """The learning curve: every kept session of every stage, each stage its own shape and legend label,
+    with intervals, the criterion and the plateau (judged in the final stage) marked."""
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
-        self.plot = make_plot("session (number)", "hit rate (%)")
+        self.plot = make_plot("session (the animal's own number)", "hit rate (%)")
         self.ranges = RangeKeeper(self.plot)
         self.ranges.set_y(0, 100)
+        self.legend = self.plot.getPlotItem().addLegend(offset=(-10, -10), labelTextColor=plot_colours()[1])
         self.errors = pg.ErrorBarItem(x=np.empty(0), y=np.empty(0), pen=pg.mkPen(colour("sky_blue"), width=2))
-        self.points = pg.PlotDataItem(pen=pg.mkPen(colour("blue"), width=2), symbol="o", symbolSize=7,
-                                      symbolBrush=colour("blue"))
         self.criterion = pg.InfiniteLine(angle=0, movable=False, label="criterion",
                                          labelOpts={"position": 0.05, "color": colour("vermillion")},
                                          pen=pg.mkPen(colour("vermillion"), width=1.5, style=Qt.PenStyle.DashLine))
         self.plateau = pg.InfiniteLine(angle=90, movable=False, label="plateau",
                                        labelOpts={"position": 0.92, "color": colour("bluish_green")},
                                        pen=pg.mkPen(colour("bluish_green"), width=2))
-        for item in (self.errors, self.points, self.criterion, self.plateau):
+        for item in (self.errors, self.criterion, self.plateau):
             self.plot.addItem(item)
+        self.stage_items: list[pg.PlotDataItem] = []     # one per stage, made once, reused
+        self._legend_entries: list[str] = []
         self.stage_marks: list[pg.InfiniteLine] = []
+        self.empty = plain_label("No session with trials yet: the curve fills in as sessions end.")
         layout = QVBoxLayout(self)
         layout.setContentsMargins(0, 0, 0, 0)
-        layout.addWidget(_big(plain_label("Learning curve (excluded sessions left out)", wrap=False), 12))
+        layout.addWidget(_big(plain_label("Learning curve: every session of every stage, one shape per stage "
+                                          "(excluded sessions left out)", wrap=True), 12))
+        layout.addWidget(self.empty)
         layout.addWidget(self.plot, 1)
+
+    def _stage_item(self, index: int) -> pg.PlotDataItem:
+        while len(self.stage_items) <= index:
+            k = len(self.stage_items) % len(STAGE_SYMBOLS)
+            tint = colour(STAGE_COLOURS[k])
+            item = pg.PlotDataItem(pen=pg.mkPen(tint, width=2), symbol=STAGE_SYMBOLS[k], symbolSize=9,
+                                   symbolBrush=tint, symbolPen=pg.mkPen(plot_colours()[1], width=1))
+            self.plot.addItem(item)
+            self.stage_items.append(item)
+        return self.stage_items[index]
 
     def _stage_mark(self, index: int) -> pg.InfiniteLine:
         while len(self.stage_marks) <= index:
+            height = 0.97 - 0.07 * (len(self.stage_marks) % 3)     # stages one session apart stay legible
             line = pg.InfiniteLine(angle=90, movable=False, label="",
-                                   labelOpts={"position": 0.97, "color": colour("reddish_purple"),
+                                   labelOpts={"position": height, "color": colour("reddish_purple"),
                                               "anchors": [(0, 0), (0, 0)]},
                                    pen=pg.mkPen(colour("reddish_purple"), width=1.5, style=Qt.PenStyle.DotLine))
             self.plot.addItem(line)
@@ -237,11 +295,27 @@ class CurvePanel(QWidget):
     def set_state(self, state: CurveState) -> None:
         x = np.asarray(state.session, dtype=float)
         y = 100 * np.asarray(state.measure, dtype=float)
+        self.empty.setVisible(not len(x))
         if len(x):
             self.ranges.set_x(0.0, float(x.max()) + 0.5)
-        self.points.setData(x, y)
         self.errors.setData(x=x, y=y, top=100 * np.asarray(state.high) - y, bottom=y - 100 * np.asarray(state.low))
         self.plot.getPlotItem().getAxis("left").setLabel(f"{state.measure_name} (%)")
+        names = list(dict.fromkeys(state.stage))
+        stages = np.asarray(state.stage, dtype=object)
+        entries = [f"stage {name}" + (" (plateau judged here)" if name == state.final_stage and len(names) > 1
+                                      else "") for name in names]
+        if entries != self._legend_entries:        # the legend is rebuilt only when the stages change
+            self.legend.clear()
+            for i, entry in enumerate(entries):
+                self.legend.addItem(self._stage_item(i), entry)
+            self._legend_entries = entries
+        for i, name in enumerate(names):
+            item, mine = self._stage_item(i), stages == name
+            item.setData(x[mine], y[mine])
+            item.show()
+        for item in self.stage_items[len(names):]:
+            item.setData([], [])
+            item.hide()
         if state.criterion is not None:
             self.criterion.setValue(100 * state.criterion)
             self.criterion.label.setFormat(f"criterion {100 * state.criterion:.0f} %")
@@ -254,8 +328,8 @@ class CurvePanel(QWidget):
             self.plateau.show()
         else:
             self.plateau.hide()
-        changes = [(x[i] - 0.5, state.stage[i]) for i in range(len(state.stage))
-                   if i == 0 or state.stage[i] != state.stage[i - 1]]
+        firsts = sorted((float(x[stages == name].min()), name) for name in names)
+        changes = [(where - 0.5, name) for where, name in firsts]
         for i, (where, name) in enumerate(changes):
             mark = self._stage_mark(i)
             mark.setValue(where)
@@ -272,14 +346,14 @@ class ConsolidationPanel(QWidget):
         super().__init__(parent)
         self.measures: dict[str, QLabel] = {}
         form = QFormLayout()
-        for key, caption in (("trials", "Trials since plateau"), ("sessions", "Sessions since plateau"),
-                             ("error", "Interval error, median |interval − target|"),
-                             ("cv", "CV of intervals (SD/mean)"),
+        for key, caption in (("trials", LABELS["trials_since_plateau"]),
+                             ("sessions", LABELS["sessions_since_plateau"]),
+                             ("error", LABELS["interval_error"]), ("cv", LABELS["cv"]),
                              ("drops", "Start-of-session drop\n(hit-rate points, 95 % interval)")):
             label = _big(plain_label(), 12 if key != "drops" else 11, bold=key != "drops")
             self.measures[key] = label
-            form.addRow(plain_label(caption, wrap=False), label)
-        self.plot = make_plot("session (number)", "slow-state fraction (0–1)")
+            form.addRow(plain_label(caption, wrap=True), label)
+        self.plot = make_plot("session (the animal's own number)", "slow-state fraction (0–1)")
         self.ranges = RangeKeeper(self.plot)
         self.ranges.set_y(0, 1)
         self.low = pg.PlotDataItem(pen=pg.mkPen(None))
@@ -289,6 +363,8 @@ class ConsolidationPanel(QWidget):
         self.marks = pg.ScatterPlotItem(size=9)
         for item in (self.low, self.high, self.band, self.fraction, self.marks):
             self.plot.addItem(item)
+        self.measures_of = plain_label()
+        self.measures_of.setObjectName("measures_of")
         self.estimate = _big(plain_label(), 12)
         self.live = plain_label()
         self.live.setObjectName("live_fraction")
@@ -307,6 +383,7 @@ class ConsolidationPanel(QWidget):
         left.addLayout(form)
         self.warmup_note = plain_label()
         left.addWidget(self.warmup_note)
+        left.addWidget(self.measures_of)
         left.addStretch(1)
         right = QVBoxLayout()
         right.addWidget(_big(plain_label("Model: slow-state fraction", wrap=False), 12))
@@ -327,8 +404,11 @@ class ConsolidationPanel(QWidget):
         m = self.measures
         m["trials"].setText(DASH if state.trials_since_plateau is None else f"{state.trials_since_plateau:,}")
         m["sessions"].setText(DASH if state.sessions_since_plateau is None else str(state.sessions_since_plateau))
-        m["error"].setText(ms_text(state.interval_error_ms))
-        m["cv"].setText(_num(state.cv))
+        m["error"].setText(_num(state.interval_error, 3))
+        m["cv"].setText(_num(state.cv, 3))
+        self.measures_of.setText("" if state.measures_session is None else
+                                 f"Interval error and CV of session {state.measures_session}, the same figures "
+                                 "the eligibility rule judges.")
         drops = state.start_drops[-4:]
         m["drops"].setText("\n".join(f"session {d.session}: {_points(d.drop)} ({_points(d.low)} to {_points(d.high)})"
                                      for d in drops) or DASH)
@@ -370,7 +450,7 @@ SESSION_COLUMNS = ("#", "start", "box", "stage", "trials", "hits", "hit rate", "
 def session_cells(row: SessionRow) -> tuple[str, ...]:
     """The table's text for one session, in SESSION_COLUMNS order."""
     return (str(row.index), row.start, row.rig, row.stage, str(row.trials), str(row.hits), percent(row.hit_rate),
-            ms_text(row.median_ms).replace(" ms", ""), _num(row.cv), "excluded" if row.excluded else "",
+            ms_text(row.median_ms).replace(" ms", ""), _num(row.cv, 3), "excluded" if row.excluded else "",
             row.exclusion_reason, row.conditions)
 
 
@@ -393,11 +473,17 @@ class SessionTable(QWidget):
         header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
         header.setStretchLastSection(True)
         self.exclude_button = QPushButton("Flag exclusion…")
+        self.include_button = QPushButton("Undo exclusion…")
+        self.include_button.setToolTip("Count the selected excluded session again (a reason is asked and logged)")
+        self.include_button.setEnabled(False)
         self.condition_button = QPushButton("Add condition…")
         self.exclude_button.clicked.connect(lambda: self.open_exclusion())
+        self.include_button.clicked.connect(lambda: self.open_exclusion(undo=True))
         self.condition_button.clicked.connect(lambda: self.open_condition())
+        self.table.itemSelectionChanged.connect(self._selection_changed)
         buttons = QHBoxLayout()
         buttons.addWidget(self.exclude_button)
+        buttons.addWidget(self.include_button)
         buttons.addWidget(self.condition_button)
         buttons.addStretch(1)
         layout = QVBoxLayout(self)
@@ -423,6 +509,7 @@ class SessionTable(QWidget):
                 if c in (0, 4, 5, 6, 7, 8):
                     item.setTextAlignment(Qt.AlignmentFlag.AlignRight | Qt.AlignmentFlag.AlignVCenter)
         self.table.scrollToBottom()
+        self._selection_changed()
 
     def selected_session(self) -> int | None:
         rows = self.table.selectionModel().selectedRows()
@@ -435,12 +522,18 @@ class SessionTable(QWidget):
             if row.index == index:
                 self.table.selectRow(r)
 
-    def open_exclusion(self, session: int | None = None) -> ExclusionDialog | None:
-        """Open the exclusion dialog for `session` (default: the selected row)."""
+    def _selection_changed(self) -> None:
+        session = self.selected_session()
+        row = next((r for r in self._rows if r.index == session), None)
+        self.include_button.setEnabled(row is not None and row.excluded)
+        self.exclude_button.setEnabled(row is None or not row.excluded)
+
+    def open_exclusion(self, session: int | None = None, undo: bool = False) -> ExclusionDialog | None:
+        """Open the exclusion dialog for `session` (default: the selected row); `undo`: count it again."""
         session = session if session is not None else self.selected_session()
         if session is None:
             return None
-        dialog = ExclusionDialog(self.animal, session, self)
+        dialog = ExclusionDialog(self.animal, session, self, undo=undo)
         dialog.submitted.connect(self.exclusion_requested)
         return self._show(dialog)
 
@@ -558,7 +651,8 @@ class AnimalPage(QWidget):
         if state.curve is not None and (old is None or old.curve is not state.curve):
             self.redraws["curve"] += 1
             self.curve.set_state(state.curve)
-            self.plateau_line.setText(f"Plateau: {state.curve.plateau_word}. {state.curve.plateau_reason}")
+            reason = state.curve.plateau_reason
+            self.plateau_line.setText(f"Plateau: {state.curve.plateau_word}. {reason[:1].upper()}{reason[1:]}")
         if state.consolidation is not None and (old is None or old.consolidation is not state.consolidation):
             self.redraws["consolidation"] += 1
             self.consolidation.set_state(state.consolidation)

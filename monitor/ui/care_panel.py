@@ -56,6 +56,7 @@ class CareRow:
     cells: tuple[str, ...]            # COLUMNS[2:] as text
     alerts: tuple[tuple[str, str], ...] = ()   # (level, sentence)
     notes: tuple[str, ...] = ()
+    state: str = ""                   # the day's own state when its figures cannot say more ("no record today")
 
 
 @dataclass(frozen=True)
@@ -78,9 +79,9 @@ class CareEntry:
     by: str
 
 
-def state_text(level: str) -> str:
+def state_text(level: str, state: str = "") -> str:
     word, symbol, _ = LEVELS[level]
-    return f"{symbol} {word}"
+    return f"{symbol} {state or word}"
 
 
 def _spin(suffix: str, decimals: int, top: float) -> QDoubleSpinBox:
@@ -187,7 +188,7 @@ class CarePanel(QDialog):
         self.table.setRowCount(len(view.rows))
         for r, row in enumerate(view.rows):
             name = LEVELS[row.level][2]
-            for c, text in enumerate((row.animal, state_text(row.level), *row.cells)):
+            for c, text in enumerate((row.animal, state_text(row.level, row.state), *row.cells)):
                 item = QTableWidgetItem(text)
                 if c >= 2:
                     item.setTextAlignment(Qt.AlignmentFlag.AlignRight | Qt.AlignmentFlag.AlignVCenter)
@@ -212,7 +213,7 @@ class CarePanel(QDialog):
         if row is None:
             self.detail.setText("No animal chosen.")
             return
-        lines = [f"{row.animal} on {self.view.day.isoformat()}: {state_text(row.level)}"]
+        lines = [f"{row.animal} on {self.view.day.isoformat()}: {state_text(row.level, row.state)}"]
         lines += [f"{LEVELS[level][1]} {level}: {sentence}" for level, sentence in row.alerts] or ["No care alerts."]
         lines += [f"Note: {note}" for note in row.notes]
         self.detail.setText("\n".join(lines))
@@ -288,7 +289,7 @@ def sheet_image(view: CareView, width: int = 1754, height: int = 1240) -> QImage
     y += 60
     painter.drawLine(margin, int(y), width - margin, int(y))
     for row in view.rows:
-        cells = (row.animal, state_text(row.level), *row.cells)
+        cells = (row.animal, state_text(row.level, row.state), *row.cells)
         for k, cell in enumerate(cells):
             text(lefts[k], y + 4, widths[k] - 8, 36, cell, 22, k == 0)
         y += 42

@@ -110,10 +110,11 @@ class DecisionDialog(RecordDialog):
             bold = value_label.font()
             bold.setBold(True)
             value_label.setFont(bold)
-            self.figures.addWidget(plain_label(caption, wrap=False), k % half, column)
+            value_label.setMinimumWidth(value_label.fontMetrics().horizontalAdvance("reached at session 100"))
+            self.figures.addWidget(plain_label(caption, wrap=True), k % half, column)   # a definition wraps
             self.figures.addWidget(value_label, k % half, column + 1)
-        self.figures.setColumnStretch(1, 1)
-        self.figures.setColumnStretch(3, 1)
+        for column, stretch in enumerate((3, 2, 3, 2)):
+            self.figures.setColumnStretch(column, stretch)
         self.decision = QComboBox()
         self.decision.addItems(list(DECISIONS))
         self.group = QComboBox()

@@ -24,9 +24,10 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from monitor.ui.models import CheckIn, ConditionRecord, Exclusion, Roster
+from monitor.ui.models import CheckIn, CheckOut, ConditionRecord, Exclusion, Roster, UnattendedGift
 from monitor.ui.theme import ADVISORY
-from monitor.ui.validation import check_in_problems, condition_problems, exclusion_problems, unusual_box_warning
+from monitor.ui.validation import (check_in_problems, condition_problems, exclusion_problems, gift_problems,
+                                  unusual_box_warning)
 
 
 def plain_label(text: str = "", wrap: bool = True) -> QLabel:
@@ -84,7 +85,7 @@ class CheckInDialog(RecordDialog):
     """Which animal is in which box, who put it there, its weight and the stage."""
 
     checked_in = Signal(object)     # CheckIn
-    checked_out = Signal(str)       # rig
+    checked_out = Signal(object)    # CheckOut (after the person confirmed it)
     new_animal = Signal(str)        # a name not in the list: open the animals window to add it
 
     def __init__(self, roster: Roster, rig: str | None = None, operator: str = "",
@@ -114,7 +115,8 @@ class CheckInDialog(RecordDialog):
         self.warning.setStyleSheet("background: rgba(230, 159, 0, 70); color: palette(text); "
                                    "font-weight: bold; padding: 4px;")
         self.occupant = plain_label()
-        self.check_out_button = QPushButton("Check out the animal in this box")
+        self.check_out_button = QPushButton("Check out the animal in this box…")
+        self._confirming = False
         self.check_out_button.clicked.connect(self.check_out)
         self.new_animal_button = QPushButton("Add as a new animal…")
         self.new_animal_button.clicked.connect(self._add_new_animal)
@@ -130,9 +132,16 @@ class CheckInDialog(RecordDialog):
         self.body.insertWidget(3, self.check_out_button)
         self.animal.currentTextChanged.connect(self._refresh)
         self.rig.currentTextChanged.connect(self._refresh)
+        self.animal.currentTextChanged.connect(self._default_stage)
+        self.rig.currentTextChanged.connect(self._default_stage)
         if rig and rig in roster.occupied:
             self.animal.setCurrentText(roster.occupied[rig])
         self._refresh()
+        self._default_stage()
+
+    def _default_stage(self) -> None:
+        """The box's own stage, else the animal's current stage, else the protocol's first stage."""
+        self.stage.setCurrentText(self.roster.default_stage(self.animal.currentText(), self.rig.currentText()))
 
     def _refresh(self) -> None:
         rig = self.rig.currentText()
@@ -142,6 +151,8 @@ class CheckInDialog(RecordDialog):
         occupant = self.roster.occupied.get(rig)
         self.occupant.setText(f"{occupant} is checked in here." if occupant else "This box is free.")
         self.check_out_button.setEnabled(occupant is not None)
+        self._confirming = False
+        self.check_out_button.setText("Check out the animal in this box…")
         name = self.animal.currentText().strip()
         self.new_animal_button.setVisible(bool(name) and name not in self.roster.animals)
 
@@ -160,11 +171,26 @@ class CheckInDialog(RecordDialog):
                                      operator=self.operator.currentText().strip(), weight_g=self.weight.value(),
                                      stage=self.stage.currentText()))
 
-    def check_out(self) -> None:
+    def check_out(self) -> bool:
+        """First press: ask to confirm (and for the operator); second press: emit the check-out."""
         rig = self.rig.currentText()
-        if rig in self.roster.occupied:
-            self.checked_out.emit(rig)
-            self.accept()
+        animal = self.roster.occupied.get(rig)
+        if animal is None:
+            return False
+        if not self.operator.currentText().strip():
+            self.problem_line.setText("✖ Operator: type your name to check the animal out.")
+            self.problem_line.show()
+            self.operator.setFocus()
+            return False
+        if not self._confirming:
+            self._confirming = True
+            self.check_out_button.setText(f"Confirm: check {animal} out of {rig} now")
+            self.problem_line.setText(f"▲ The session of {animal} in {rig} ends when you confirm.")
+            self.problem_line.show()
+            return False
+        self.checked_out.emit(CheckOut(rig, animal, self.operator.currentText().strip()))
+        self.accept()
+        return True
 
 
 class ConditionDialog(RecordDialog):
@@ -206,21 +232,71 @@ class ConditionDialog(RecordDialog):
 
 
 class ExclusionDialog(RecordDialog):
-    """Keep one session out of curves and fits; a reason is required."""
+    """Keep one session out of curves and fits, or count it again (`undo`); a reason is required either way."""
 
     submitted = Signal(object)      # Exclusion
 
-    def __init__(self, animal: str, session: int, parent: QWidget | None = None) -> None:
-        super().__init__(f"Exclude {animal}, session {session}", parent)
-        self.animal, self.session = animal, session
+    def __init__(self, animal: str, session: int, parent: QWidget | None = None, undo: bool = False) -> None:
+        super().__init__(f"Count {animal}'s session {session} again" if undo else
+                         f"Exclude {animal}, session {session}", parent)
+        self.animal, self.session, self.undo = animal, session, undo
         self.reason = QLineEdit()
-        self.reason.setPlaceholderText("e.g. lever stuck for 20 min")
+        self.reason.setPlaceholderText("e.g. the cable was fine after all" if undo else "e.g. lever stuck for 20 min")
         self.add_row("Reason", self.reason)
-        self.body.insertWidget(1, plain_label("The session stays in the store and in the table; it is kept out of "
-                                              "the learning curve, the plateau rule and the model fits."))
+        self.body.insertWidget(1, plain_label(
+            "The session goes back into the learning curve, the plateau rule and the model fits; the exclusion "
+            "and its undoing both stay in the log." if undo else
+            "The session stays in the store and in the table; it is kept out of the learning curve, the plateau "
+            "rule and the model fits."))
 
     def problems(self) -> list[str]:
-        return exclusion_problems(self.reason.text())
+        return exclusion_problems(self.reason.text(), self.undo)
 
     def emit_record(self) -> None:
-        self.submitted.emit(Exclusion(animal=self.animal, session=self.session, reason=self.reason.text().strip()))
+        self.submitted.emit(Exclusion(animal=self.animal, session=self.session, reason=self.reason.text().strip(),
+                                      excluded=not self.undo))
+
+
+class GiveDialog(RecordDialog):
+    """Give the presses a box sent while nobody was checked in to the animal that was in it."""
+
+    given = Signal(object)          # UnattendedGift
+
+    def __init__(self, roster: Roster, presses: dict[str, int], rig: str | None = None, operator: str = "",
+                 parent: QWidget | None = None) -> None:
+        super().__init__("Give unattended trials to an animal", parent)
+        self.presses = presses
+        self.rig = QComboBox()
+        self.rig.addItems([r for r in roster.rigs if presses.get(r)])
+        if rig and presses.get(rig):
+            self.rig.setCurrentText(rig)
+        self.animal = QComboBox()
+        self.animal.setEditable(True)
+        self.animal.addItems(list(roster.animals))
+        self.animal.setCurrentText("")
+        self.operator = QLineEdit(operator)
+        self.reason = QLineEdit()
+        self.reason.setPlaceholderText("e.g. checked in late: wren was in the box from 09:05")
+        self.count = plain_label()
+        self.add_row("Box", self.rig)
+        self.form.addRow(self.count)
+        self.add_row("Animal", self.animal)
+        self.add_row("Operator", self.operator)
+        self.add_row("Reason", self.reason)
+        self.body.insertWidget(1, plain_label("The box's run with nobody checked in is closed and becomes a session "
+                                              "of this animal; the change is logged with your name and reason."))
+        self.rig.currentTextChanged.connect(self._refresh)
+        self._refresh()
+
+    def _refresh(self) -> None:
+        n = self.presses.get(self.rig.currentText(), 0)
+        self.count.setText(f"{n} presses or trials kept from this box." if n else
+                           "No box has run with nobody checked in.")
+
+    def problems(self) -> list[str]:
+        return gift_problems(self.rig.currentText(), self.presses.get(self.rig.currentText(), 0),
+                             self.animal.currentText(), self.operator.text(), self.reason.text())
+
+    def emit_record(self) -> None:
+        self.given.emit(UnattendedGift(self.rig.currentText(), self.animal.currentText().strip(),
+                                       self.operator.text().strip(), self.reason.text().strip()))

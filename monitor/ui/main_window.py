@@ -3,8 +3,9 @@
 Rule: the window owns no data; it shows the RigBoard, AnimalBook and AlertBook
 it is given and turns a person's actions into signals carrying frozen records
 (check-in, check-out, new rig, exclusion, condition) for the app to store.
-Common actions have keyboard shortcuts; geometry and layout are saved to and
-restored from the QSettings passed in (GUI thread only); plots follow the
+Common actions have keyboard shortcuts; the window opens fitted to the current
+screen, and its layout (splitter, operator) is saved to and restored from the
+QSettings passed in (GUI thread only); plots follow the
 system palette when it changes; a store overflow or failure turns the status
 bar loud. Sized for 1366×768 and up.
 """
@@ -15,18 +16,18 @@ from typing import Callable, Sequence
 
 import pyqtgraph as pg
 from PySide6.QtCore import QByteArray, QEvent, QSettings, Qt, Signal
-from PySide6.QtGui import QAction, QCloseEvent, QGuiApplication, QIcon, QKeySequence
+from PySide6.QtGui import QAction, QCloseEvent, QFont, QGuiApplication, QIcon, QKeySequence
 from PySide6.QtWidgets import QMainWindow, QSplitter, QTabWidget, QToolBar, QWidget
 
 from icons import icon_path
 from monitor.ui.alerts import AlertNotifier, AlertPanel
 from monitor.ui.animal_page import AnimalPage
-from monitor.ui.dialogs import CheckInDialog, plain_label
+from monitor.ui.dialogs import CheckInDialog, GiveDialog, plain_label
 from monitor.ui.models import Roster, SerialDevice, StatusState
 from monitor.ui.overview import OverviewPanel
 from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
 from monitor.ui.setup import SetupDialog
-from monitor.ui.theme import colour, plot_colours
+from monitor.ui.theme import colour, plain_tooltip, plot_colours
 
 SHORTCUTS = {
     "check_in": "Ctrl+I",
@@ -44,6 +45,8 @@ SHORTCUTS = {
     "animal_records": "Ctrl+Shift+A",
     "manipulation": "Ctrl+M",
     "effects": "Ctrl+Shift+E",
+    "give": "Ctrl+G",
+    "cohort": "Ctrl+T",
 }
 
 
@@ -55,7 +58,7 @@ class MainWindow(QMainWindow):
     """The window a trainer keeps open on the rig PC all day."""
 
     checked_in = Signal(object)            # CheckIn
-    checked_out = Signal(str)              # rig
+    checked_out = Signal(object)           # CheckOut (confirmed, with the operator)
     rig_added = Signal(object)             # RigSetup
     exclusion_requested = Signal(object)   # Exclusion
     condition_requested = Signal(object)   # ConditionRecord
@@ -67,6 +70,8 @@ class MainWindow(QMainWindow):
     animals_requested = Signal(str)        # open the animals window ('' or a new animal's name)
     manipulation_requested = Signal(str)   # animal ('' when no page is open): record a manipulation
     effects_requested = Signal()           # open the cohort effects window
+    cohort_requested = Signal()            # open the cohort table
+    unattended_given = Signal(object)      # UnattendedGift
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
                  roster: Roster | None = None, discover_devices: Callable[[], Sequence[SerialDevice]] = tuple,
@@ -105,7 +110,10 @@ class MainWindow(QMainWindow):
         self.actions: dict[str, QAction] = {}
         self._build_actions()
         self.set_status(StatusState())
-        self.resize(1366, 768)
+        self._scaled = 1.0
+        self._base_fonts = [(w, w.font().pointSizeF()) for w in (self.alert_panel.list, self.alert_panel.summary,
+                                                                 self.sources_label, self.store_label)]
+        self.fit_to_screen()
         self._restore()
         hints = QGuiApplication.styleHints()
         if hints is not None:
@@ -130,6 +138,8 @@ class MainWindow(QMainWindow):
         rigs.addAction(self._action("previous_rig", "&Previous rig", lambda: self.overview.focus_next(-1)))
         rigs.addAction(self._action("open_page", "Open animal &page", self.open_current))
         rigs.addSeparator()
+        rigs.addAction(self._action("give", "&Give unattended trials…", self.open_give))
+        rigs.addSeparator()
         rigs.addAction(self._action("add_rig", "&Add rig…", self.open_setup, "add-rig"))
         view = self.menuBar().addMenu("&View")
         view.addAction(self._action("overview", "&All rigs", lambda: self.tabs.setCurrentIndex(0)))
@@ -144,6 +154,7 @@ class MainWindow(QMainWindow):
         animals.addAction(self._action("manipulation", "Record a &manipulation…",
                                        lambda: self.manipulation_requested.emit(self.current_animal())))
         animals.addAction(self._action("effects", "Cohort &effects…", self.effects_requested.emit))
+        animals.addAction(self._action("cohort", "Cohort &table…", self.cohort_requested.emit))
         alerts = self.menuBar().addMenu("A&lerts")
         alerts.addAction(self._action("acknowledge", "&Acknowledge", self.alert_panel.acknowledge_selected,
                                       "acknowledge"))
@@ -160,7 +171,11 @@ class MainWindow(QMainWindow):
         self.roster = roster
 
     def set_status(self, status: StatusState) -> None:
-        self.sources_label.setText(status.sources_text)
+        self.sources_label.setText(("▲ " if status.sources_trouble else "") + status.sources_text)
+        self.alert_panel.set_sources(status.sources_text if status.sources_trouble else "")
+        self.sources_label.setToolTip(plain_tooltip(status.sources_detail) if status.sources_detail else "")
+        self.sources_label.setStyleSheet(f"color: {colour('vermillion').darker(120).name()}; font-weight: bold;"
+                                         if status.sources_trouble else "")
         store = status.store
         text = f"store: {store.word}" + (f" — {status.store_text}" if status.store_text else "")
         self.store_label.setText(("✖ " if store.loud else "● ") + text)
@@ -242,6 +257,13 @@ class MainWindow(QMainWindow):
         dialog.check_out_button.setFocus()
         return dialog
 
+    def open_give(self) -> GiveDialog:
+        presses = {r: s.unattended_presses for r in self.board.rigs() if (s := self.board.state(r)) is not None}
+        dialog = GiveDialog(self.roster, presses, rig=self._current_rig(), operator=self.alert_panel.operator.text(),
+                            parent=self)
+        dialog.given.connect(self.unattended_given)
+        return self._show(dialog)
+
     def open_setup(self) -> SetupDialog:
         dialog = SetupDialog(self.discover_devices(), self.protocols(), existing=self.board.rigs(), parent=self)
         dialog.rig_added.connect(self.rig_added)
@@ -281,11 +303,36 @@ class MainWindow(QMainWindow):
         self.settings.setValue("alerts/operator", self.alert_panel.operator.text())
         self.settings.sync()
 
+    def text_scale(self) -> float:
+        """How much larger the alert list and status bar are than at 1366 px wide (1 to 1.6)."""
+        return min(max(self.width() / 1366.0, 1.0), 1.6)
+
+    def _scale_text(self) -> None:
+        scale = self.text_scale()
+        if abs(scale - self._scaled) < 0.02:
+            return
+        self._scaled = scale
+        for widget, base in self._base_fonts:
+            font = QFont(widget.font())
+            font.setPointSizeF(base * scale)
+            widget.setFont(font)
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._scale_text()
+
+    def fit_to_screen(self) -> None:
+        """Open filling the current screen's available area (whatever size it had last time)."""
+        screen = self.screen() or QGuiApplication.primaryScreen()
+        if screen is None:
+            self.resize(1366, 768)
+            return
+        self.setGeometry(screen.availableGeometry())
+
     def _restore(self) -> None:
         if self.settings is None:
             return
-        for key, restore in (("window/geometry", self.restoreGeometry), ("window/state", self.restoreState),
-                             ("window/splitter", self.splitter.restoreState)):
+        for key, restore in (("window/state", self.restoreState), ("window/splitter", self.splitter.restoreState)):
             value = self.settings.value(key)
             if isinstance(value, QByteArray) and not value.isEmpty():
                 restore(value)

@@ -29,11 +29,15 @@ class Connection(Enum):
     QUIET = ("quiet", "triangle", "orange")             # session running, no events for a while
     RETRYING = ("retrying", "diamond", "reddish_purple")  # lost, reopening the port or file
     LOST = ("lost", "cross", "vermillion")              # disconnected, not coming back by itself
+    UNATTENDED = ("unattended", "square", "blue")   # presses arrive with no session
 
     def __init__(self, word: str, shape: str, colour: str) -> None:
         self.word = word
         self.shape = shape
         self.colour = colour
+
+
+CLEARED_BY = "rigside (no longer true)"   # who "acknowledges" an alert whose condition cleared by itself
 
 
 class Severity(Enum):
@@ -86,6 +90,8 @@ class RigTileState:
     alert_count: int = 0
     alert_severity: Severity | None = None
     source_text: str = ""                      # port or file path, shown as plain text
+    unattended_presses: int = 0                # presses or trials with nobody checked in (kept, can be given)
+    hit_window: int = 0                        # trials behind the rolling hit rate (at most the rolling size)
 
     def __post_init__(self) -> None:
         if self.hist_counts and len(self.hist_edges_ms) != len(self.hist_counts) + 1:
@@ -144,6 +150,8 @@ class CurveState:
     plateau_session: int | None = None
     plateau_word: str = "not reached"
     plateau_reason: str = ""
+    trials: tuple[int, ...] = ()     # completed trials behind each point
+    final_stage: str = ""            # the stage the plateau is judged in
 
 
 @dataclass(frozen=True, eq=False)
@@ -152,7 +160,7 @@ class ConsolidationState:
 
     trials_since_plateau: int | None
     sessions_since_plateau: int | None
-    interval_error_ms: float | None  # median |interval - target| in the latest session
+    interval_error: float | None     # median |ln(interval / target)| of the latest included session
     cv: float | None
     start_drops: tuple[StartDrop, ...]
     session: np.ndarray              # sessions with a fitted slow-state fraction
@@ -165,6 +173,7 @@ class ConsolidationState:
     forecast_high: int | None = None
     forecast_level: float = 0.8
     live_text: str = ""              # this session's figure from the cached fit, not refitted ("" when none)
+    measures_session: int | None = None   # the session the interval error and CV are of (the animal's count)
     caveat: str = ("A model quantity of a fitted behavioural model, not proof that the "
                    "behaviour no longer depends on a brain area.")
 
@@ -224,6 +233,8 @@ class StatusState:
     sources_text: str = "no sources"
     store: StoreHealth = StoreHealth.SAVING
     store_text: str = ""
+    sources_detail: str = ""          # every box that is not reading, one per line (the tooltip)
+    sources_trouble: bool = False     # some box is not reading: the text is marked
 
 
 @dataclass(frozen=True)
@@ -236,6 +247,35 @@ class Roster:
     usual_rigs: dict[str, tuple[str, ...]] = field(default_factory=dict)
     occupied: dict[str, str] = field(default_factory=dict)   # rig -> animal checked in
     operators: tuple[str, ...] = ()
+    current_stage: dict[str, str] = field(default_factory=dict)   # animal -> stage of its latest session
+    first_stage: dict[str, str] = field(default_factory=dict)     # rig -> its protocol's first stage
+    box_stage: dict[str, str] = field(default_factory=dict)       # rig -> the stage the box itself sent
+
+    def default_stage(self, animal: str, rig: str) -> str:
+        """Check-in's stage: what the box says, else the animal's current stage, else the protocol's first."""
+        for found in (self.box_stage.get(rig), self.current_stage.get(animal.strip()), self.first_stage.get(rig)):
+            if found and found in self.stages:
+                return found
+        return self.stages[0] if self.stages else ""
+
+
+@dataclass(frozen=True)
+class CheckOut:
+    """A person's confirmed statement: the animal in this box is out now."""
+
+    rig: str
+    animal: str
+    operator: str
+
+
+@dataclass(frozen=True)
+class UnattendedGift:
+    """A person's statement: the presses this box sent with nobody checked in were this animal's."""
+
+    rig: str
+    animal: str
+    operator: str
+    reason: str
 
 
 @dataclass(frozen=True)
@@ -269,6 +309,7 @@ class Exclusion:
     animal: str
     session: int
     reason: str
+    excluded: bool = True            # False: undo an earlier exclusion (the reason says why)
 
 
 @dataclass(frozen=True)

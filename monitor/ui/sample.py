@@ -110,7 +110,7 @@ def curve_state(rng: np.random.Generator, sessions: int = 24) -> CurveState:
     low, high = _wilson(np.round(rate * n), n)
     stage = tuple(STAGES[0] if i < 4 else STAGES[1] if i < 8 else STAGES[2] for i in range(sessions))
     return CurveState(session=s.astype(float), measure=rate, low=low, high=high, stage=stage, criterion=0.5,
-                      plateau_session=14, plateau_word="reached",
+                      plateau_session=14, plateau_word="reached", final_stage=STAGES[2],
                       plateau_reason="Hit rate was at or above 50 % in 3 consecutive final-stage sessions "
                                      "(14, 15, 16).")
 
@@ -124,7 +124,7 @@ def consolidation_state(rng: np.random.Generator, first: int = 14, last: int = 2
                             warmup_trials=10)
                   for i, d in zip(range(last - 4, last + 1), np.linspace(0.14, 0.05, 5) + rng.normal(0, 0.01, 5)))
     return ConsolidationState(
-        trials_since_plateau=3820, sessions_since_plateau=last - first, interval_error_ms=61.0, cv=0.19,
+        trials_since_plateau=3820, sessions_since_plateau=last - first, interval_error=0.094, cv=0.19,
         start_drops=drops, session=s, fraction=frac, fraction_low=np.clip(frac - width, 0, 1),
         fraction_high=np.clip(frac + width * 0.8, 0, 1), status=status,
         model_comparison="The two-rate model fits better than the one-rate model (ΔAIC 14).",

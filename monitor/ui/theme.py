@@ -50,7 +50,7 @@ def plot_colours() -> tuple[str, str]:
 
 
 def draw_shape(painter: QPainter, shape: str, centre: QPointF, size: float, fill: QColor) -> None:
-    """Draw a state shape (disc, ring, triangle, diamond, cross) of width `size`."""
+    """Draw a state shape (disc, ring, triangle, diamond, square, tick, cross) of width `size`."""
     r = size / 2.0
     x, y = centre.x(), centre.y()
     outline = QPen(fill.darker(150), max(1.0, size / 8.0))
@@ -74,6 +74,17 @@ def draw_shape(painter: QPainter, shape: str, centre: QPointF, size: float, fill
         painter.setBrush(fill)
         painter.drawPolygon(QPolygonF([QPointF(x, y - r), QPointF(x + r, y),
                                        QPointF(x, y + r), QPointF(x - r, y)]))
+    elif shape == "square":
+        painter.setPen(outline)
+        painter.setBrush(fill)
+        painter.drawRect(QRectF(x - r * 0.85, y - r * 0.85, size * 0.85, size * 0.85))
+    elif shape == "tick":
+        path = QPainterPath()
+        path.moveTo(x - r, y)
+        path.lineTo(x - r * 0.25, y + r * 0.7)
+        path.lineTo(x + r, y - r * 0.7)
+        painter.setPen(QPen(fill, max(2.0, size / 5.0), Qt.PenStyle.SolidLine, Qt.PenCapStyle.RoundCap))
+        painter.drawPath(path)
     elif shape == "cross":
         path = QPainterPath()
         path.moveTo(x - r, y - r)

@@ -39,10 +39,10 @@ def percent(value: float | None) -> str:
     return DASH if value is None or not math.isfinite(value) else f"{100 * value:.0f} %"
 
 
-def interval_text(low: float | None, high: float | None) -> str:
+def interval_text(low: float | None, high: float | None, label: str = "95 % CI") -> str:
     if low is None or high is None or not (math.isfinite(low) and math.isfinite(high)):
-        return "95 % CI " + DASH
-    return f"95 % CI {100 * low:.0f}–{100 * high:.0f} %"
+        return f"{label} {DASH}"
+    return f"{label} {100 * low:.0f}–{100 * high:.0f} %"
 
 
 def ms_text(value: float | None) -> str:
@@ -72,15 +72,17 @@ def tile_texts(state: RigTileState) -> TileTexts:
         window = f"window {state.window_low_ms:.0f}–{state.window_high_ms:.0f} ms"
     else:
         window = "no window"
+    unattended = state.animal is None and state.unattended_presses > 0   # presses kept with nobody checked in
     return TileTexts(
         title=state.rig,
         animal=state.animal or "no animal",
         state=state.connection.word,
-        clock=clock_text(state.session_seconds),
-        trials=f"{state.trials_today:d}",
-        trials_caption="trials today",
+        clock="" if unattended else clock_text(state.session_seconds),
+        trials=f"{state.unattended_presses if unattended else state.trials_today:d}",
+        trials_caption="presses kept" if unattended else "trials today",
         hit_rate="hit " + percent(state.hit_rate),
-        hit_interval=interval_text(state.hit_low, state.hit_high),
+        hit_interval=(interval_text(state.hit_low, state.hit_high, f"last {state.hit_window} · CI")   # 95 %
+                      if state.hit_window else interval_text(state.hit_low, state.hit_high)),
         last_interval="last " + ms_text(state.last_interval_ms),
         window=window,
         badge=str(state.alert_count) if state.alert_count else "",

@@ -56,8 +56,25 @@ def unusual_box_warning(roster: Roster, animal: str, rig: str) -> str:
     return f"{animal} is usually in {', '.join(usual)}, not {rig}. Check the box before starting."
 
 
-def exclusion_problems(reason: str) -> list[str]:
-    return [] if reason.strip() else ["Reason: say why this session is kept out of curves and fits."]
+def exclusion_problems(reason: str, undo: bool = False) -> list[str]:
+    if reason.strip():
+        return []
+    return ["Reason: say why this session counts again."] if undo else \
+        ["Reason: say why this session is kept out of curves and fits."]
+
+
+def gift_problems(rig: str, presses: int, animal: str, operator: str, reason: str) -> list[str]:
+    """What stops giving a box's unattended presses to an animal (empty when nothing)."""
+    problems = []
+    if not rig or presses <= 0:
+        problems.append("Box: choose a box that ran with nobody checked in.")
+    if not animal.strip():
+        problems.append("Animal: name the animal that was in the box.")
+    if not operator.strip():
+        problems.append("Operator: type your name.")
+    if not reason.strip():
+        problems.append("Reason: say how you know it was this animal.")
+    return problems
 
 
 def condition_problems(what: str, dose: str, volume_ul: float | None) -> list[str]:

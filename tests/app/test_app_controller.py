@@ -205,3 +205,110 @@ def test_alerts_go_to_the_stores_alerts_table(qapp, tmp_path, qtbot):
         assert controller.alerts.errors == []
     finally:
         controller.close()
+
+
+STAGED_TEXT = PROTOCOL_TEXT.replace("[plateau]", """[[stages]]
+name = "wide"
+tolerance = 0.5
+
+[[stages]]
+name = "final"
+
+[plateau]""")
+
+
+def test_params_sent_before_check_in_are_the_sessions_and_the_box_names_the_stage(rig, qtbot):
+    controller, window, log, store, db = rig
+    protocol = log.with_name("staged.toml")
+    protocol.write_text(STAGED_TEXT)
+    box2 = log.with_name("box2.rsw")
+    box2.write_bytes(streams.params_bytes(("stage", "final"), ("window_low_ms", "220"), ("window_high_ms", "660")))
+    controller.add_rig(RigSpec("box 2", "file", str(box2), protocol))
+    # nobody checked in yet: a new animal defaults to the protocol's first stage, unless the box said its own
+    qtbot.waitUntil(lambda: controller.rigs["box 2"].snapshot is not None
+                    and len(controller.rigs["box 2"].snapshot.params) == 3, timeout=10000)
+    roster = controller.roster()
+    assert roster.stages == ("main", "wide", "final")                  # training order, not alphabetical
+    assert roster.default_stage("newt", "box 2") == "final"            # what the box sent
+    assert roster.default_stage("newt", "box 1") == "main"             # the first stage of box 1's protocol
+    controller.check_in(CheckIn("newt", "box 2", "ana", 301.0, "wide"))
+    qtbot.waitUntil(lambda: controller.rigs["box 2"].session_id is not None, timeout=10000)
+    qtbot.waitUntil(lambda: (controller.board.state("box 2") or None) is not None
+                    and controller.board.state("box 2").window_low_ms == 220.0, timeout=10000)
+    assert controller.board.state("box 2").window_high_ms == 660.0
+    session_id = controller.rigs["box 2"].session_id
+    qtbot.waitUntil(lambda: controller.writer.status().pending_rows == 0, timeout=10000)
+    with sqlite3.connect(db) as conn:     # plain sqlite3: the session's own record holds the params in force
+        stored = conn.execute("SELECT c.name, e.value FROM events e JOIN event_codes c ON c.code = e.code "
+                              "WHERE e.session_id = ? ORDER BY e.rowid", (session_id,)).fetchall()
+        stage = conn.execute("SELECT stage FROM sessions WHERE id = ?", (session_id,)).fetchone()[0]
+    assert stored[:3] == [("param", "stage final"), ("param", "window_low_ms 220"), ("param", "window_high_ms 660")]
+    assert stage == "final"
+    controller.check_out("box 2")
+    # the animal's next check-in, in a box that says nothing, defaults to its current stage
+    assert controller.roster().default_stage("newt", "box 1") == "final"
+
+
+def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_afterwards(rig, qtbot):
+    from monitor.app.controller import store_v2
+    from monitor.ui.models import Connection, UnattendedGift
+
+    controller, window, log, store, db = rig
+    with log.open("ab") as fh:
+        fh.write(streams.session_bytes([650, 700, 640, 1000, 655]))
+    qtbot.waitUntil(lambda: (controller.board.state("box 1") or None) is not None
+                    and controller.board.state("box 1").connection is Connection.UNATTENDED, timeout=10000)
+    assert controller.board.state("box 1").unattended_presses == 15          # 5 trial starts + 10 presses
+    qtbot.waitUntil(lambda: any(a.kind == "nobody checked in" for a in controller.alert_book.alerts()), timeout=5000)
+    if not store_v2():
+        return
+    qtbot.waitUntil(lambda: controller.writer.status().pending_rows == 0, timeout=10000)
+    old = controller.rigs["box 1"].idle_session_id
+    controller.give_unattended(UnattendedGift("box 1", "newt", "ana", "checked in late"))
+    qtbot.waitUntil(lambda: ("newt", "box 1", 1) in sessions_in(db), timeout=10000)
+    qtbot.waitUntil(lambda: controller.board.state("box 1").connection is not Connection.UNATTENDED, timeout=10000)
+    with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+        assert conn.execute("SELECT count(*) FROM trials WHERE session_id = ?", (old,)).fetchone()[0] == 5
+        assert conn.execute("SELECT change, animal, operator, reason FROM session_changes WHERE session_id = ?",
+                            (old,)).fetchall() == [("given", "newt", "ana", "checked in late")]
+    assert controller.rigs["box 1"].idle_session_id != old
+    # the box's next data go to a fresh run of no animal
+    with log.open("ab") as fh:
+        fh.write(streams.session_bytes([650, 700], start_ms=60_000).split(b"\n", 1)[1])
+    qtbot.waitUntil(lambda: controller.board.state("box 1").unattended_presses == 6, timeout=10000)
+
+
+def test_check_out_records_who_confirmed_it(rig, qtbot):
+    from monitor.app.controller import store_v2
+    from monitor.ui.models import CheckOut
+
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    session_id = controller.rigs["box 1"].session_id
+    controller.check_out(CheckOut("box 1", "wren", "bo"))
+    qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
+    if store_v2():
+        with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+            assert conn.execute("SELECT operator, checked_out_by FROM checkins WHERE session_id = ?",
+                                (session_id,)).fetchone() == ("ana", "bo")
+
+
+def test_the_pages_measures_are_the_eligibility_figures_once_judged(rig, qtbot):
+    from monitor.core.eligibility.figures import AnimalFigures
+
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    window.open_animal("wren")
+    qtbot.waitUntil(lambda: "wren" in controller.history_parts, timeout=20000)
+    figures = AnimalFigures(animal="wren", protocol_name="p", protocol_version=1, session=7, plateau_reached=True,
+                            plateau_session=3, sessions_since_plateau=4, trials_since_plateau=321,
+                            measures={"interval_error": 0.281, "cv": 0.229})
+    controller.records.figures["wren"] = figures
+    controller._push_page("wren")
+    shown = controller.book.state("wren").consolidation
+    assert (shown.interval_error, shown.cv, shown.sessions_since_plateau, shown.trials_since_plateau,
+            shown.measures_session) == (0.281, 0.229, 4, 321, 7)
+    controller._push_page("wren")
+    assert controller.book.state("wren").consolidation is shown           # unchanged: no redraw

@@ -122,7 +122,7 @@ def test_a_decision_against_the_rule_is_recorded_with_the_snapshot_shown(app, qt
     qtbot.waitUntil(lambda: isinstance(records.dialog, DecisionHistory), timeout=20000)
     history = records.dialog
     assert history.table.rowCount() == 1 and history.table.item(0, 6).text() == "no (both kept)"
-    assert history.chain.text().startswith("✔ Decision log intact: 1 entries")
+    assert history.chain.text().startswith("✔ Decision log intact: 1 entry")
 
 
 def test_blinded_decisions_show_codes_and_compare_with_the_real_group():
@@ -151,3 +151,41 @@ def test_care_row_check_values():
     care = AnimalCare("heron", 25.0, (water,), (), (Weighing(now, 21.3, "ana"),))
     row = care_row(day_summary(care, now.date(), CareConfig(), now))
     assert row.cells[0] == "0.03" and row.cells[5] == "21.3" and row.cells[6] == "85.2"
+
+
+def test_a_day_with_nothing_recorded_reads_as_a_state_and_counts_in_words():
+    from datetime import timedelta
+
+    from monitor.app.eligibility_care import care_text
+
+    now = datetime.now().astimezone()
+    yesterday = now - timedelta(days=1)
+    care = AnimalCare("heron", 25.0, (), (), (Weighing(yesterday, 21.3, "ana"),))
+    summary = day_summary(care, now.date(), CareConfig(), now)
+    assert care_text(summary) == "Care today: nothing recorded yet (no session, weighing or supplement)."
+    row = care_row(summary)
+    assert row.state == "no record today" and [a[0] for a in row.alerts] in (["notice"], ["warning"])
+    weighed = AnimalCare("heron", 25.0, (), (), (Weighing(now, 21.3, "ana"),))
+    text = care_text(day_summary(weighed, now.date(), CareConfig(), now))
+    assert "worst" not in text and "care alert" in text and "alert(s)" not in text
+
+
+def test_cohort_row_from_the_figures_the_verdict_and_the_care_day():
+    from monitor.app.eligibility_care import cohort_row
+
+    now = datetime.now().astimezone()
+    events = [Event(1_000_000, "valve", ("25",), "1000", 0, 1, 0, 0), Event(1_100_000, "lick", (), "1100", 0, 2, 0, 0)]
+    water = session_water(events, ul_per_ms=1.2, reward_ul=None, max_valve_ms=250, lick_window_ms=2000,
+                          session="1", end=now)
+    care = day_summary(AnimalCare("heron", 25.0, (water,), (), (Weighing(now, 21.3, "ana"),)), now.date(),
+                       CareConfig(), now)
+    figures = AnimalFigures(animal="heron", protocol_name="p", protocol_version=1, session=14, plateau_reached=True,
+                            plateau_session=9, sessions_since_plateau=5, trials_since_plateau=900, measures={})
+    row = cohort_row("heron", "final", figures, None, care)
+    # 25 ms x 1.2 µL/ms = 30 µL = 0.03 ml; 21.3 g of 25.0 g = 85.2 % (hand arithmetic)
+    assert row.cells == ("heron", "final", "14", "reached at session 9", "no fit yet", "no rule", "0.03 of 1.00",
+                         "21.3 (85.2 %)")
+    assert row.keys[2] == 14 and row.keys[6] == pytest.approx(0.03)
+    empty = cohort_row("wren", None, None, None, None)
+    assert empty.cells[1:] == ("not known", "none", "not judged yet", "no fit yet", "no rule", "no record today",
+                               "no weight")

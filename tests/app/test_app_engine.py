@@ -9,9 +9,10 @@ import pytest
 from statsmodels.stats.proportion import proportion_confint
 
 from drivers.status import READING, WAITING, Batch, SourceStatus
-from drivers.wire import Event, WireDecoder
+from drivers.wire import Event, WireDecoder, encode_event
 from monitor.app.engine import Engine, SessionPlan, link_of
 from monitor.app.pipeline import Fanout
+from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import build_trials
 from fixtures.protocols import two_press
 from fixtures.sessions import session_bytes
@@ -181,3 +182,113 @@ def test_engine_thread_publishes_without_being_driven(intervals):
     finally:
         engine.stop()
     assert engine.error is None
+
+
+ADAPTIVE = parse_protocol("""
+[protocol]
+name = "two-press 650 ms, adaptive"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+
+[[stages]]
+name = "adaptive"
+tolerance = 0.35
+adaptive = { every = 20, target_rate = 0.5, step = 0.025, min_tolerance = 0.15, max_tolerance = 0.4 }
+
+[[stages]]
+name = "final"
+""", "adaptive.toml")
+
+
+def params_bytes(*pairs, header=True) -> bytes:
+    out = [b"# rigside-wire 1 clock=us wrap=32\n"] if header else []
+    out += [encode_event(500_000 + k, "param", name, value) for k, (name, value) in enumerate(pairs)]
+    return b"".join(out)
+
+
+def test_the_window_a_box_sent_before_check_in_is_in_force():
+    # the box says its stage and window while nobody is checked in; the session opened afterwards carries them
+    engine = Engine(publish_s=0.0, check_s=0.0)
+    fanout = Fanout(Writer(), source_id=1, session_id=99, live=True, engine=engine.queue)   # 99: no animal
+    engine.add_rig("box 1", 1, status)
+    decoder = WireDecoder()
+    fanout(Batch(decoder.feed(params_bytes(("stage", "adaptive"), ("window_low_ms", "220"),
+                                           ("window_high_ms", "660"))), time.time()))
+    drain(engine)
+    idle = engine.take_snapshots()["box 1"]
+    assert [e.args for e in idle.params] == [("stage", "adaptive"), ("window_low_ms", "220"),
+                                             ("window_high_ms", "660")]
+    engine.open_session(SessionPlan("box 1", 5, "wren", ADAPTIVE, stage="final", started=1.0, carried=idle.params))
+    fanout.session_id = 5
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    # the box's own words win over the check-in's stage and the protocol's window (the rig is the witness)
+    assert (snap.live.window_low_ms, snap.live.window_high_ms) == (220.0, 660.0)
+    assert snap.window_known
+    # a trial at 300 ms is a hit by the box's window (220-660) and a miss by the stage's own (650 ± 35 %)
+    body = session_bytes([300.0, 300.0], start_ms=2000, rig_outcomes=False).split(b"\n", 1)[1]
+    fanout(Batch(decoder.feed(body), time.time()))
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    assert snap.live.trials >= 1 and snap.live.hits == snap.live.trials and snap.live.stage == "adaptive"
+
+
+def test_a_new_header_or_stage_forgets_the_earlier_params():
+    engine = Engine(publish_s=0.0, check_s=0.0)
+    fanout = Fanout(Writer(), source_id=1, session_id=99, live=True, engine=engine.queue)
+    engine.add_rig("box 1", 1, status)
+    decoder = WireDecoder()
+    fanout(Batch(decoder.feed(params_bytes(("window_low_ms", "220"), ("stage", "final"), ("target_ms", "700"))),
+                 time.time()))
+    drain(engine)
+    assert [e.args[0] for e in engine.take_snapshots()["box 1"].params] == ["stage", "target_ms"]
+    fanout(Batch(decoder.feed(b"# rigside-wire 1 clock=us wrap=32\n"), time.time()))
+    drain(engine)
+    assert engine.take_snapshots()["box 1"].params == ()
+
+
+def test_no_disagreement_alert_while_the_window_is_a_guess():
+    # an adaptive stage whose window the box never sent: rigside's window is its own guess, so a
+    # disagreement is counted but not alerted; once the box sends its window, it is alerted
+    engine = Engine(publish_s=0.0, check_s=0.0)
+    fanout = Fanout(Writer(), source_id=1, session_id=5, live=True, engine=engine.queue)
+    engine.add_rig("box 1", 1, status)
+    engine.open_session(SessionPlan("box 1", 5, "wren", ADAPTIVE, stage="adaptive", started=1.0))
+    decoder = WireDecoder()
+    data = session_bytes([650.0, 650.0]).replace(b"outcome hit", b"outcome miss", 1)
+    fanout(Batch(decoder.feed(data), time.time()))
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    assert snap.disagreements == 1 and not snap.window_known
+    assert engine.take_alerts() == []
+    more = params_bytes(("window_low_ms", "520"), ("window_high_ms", "780"), header=False)
+    more += session_bytes([650.0], start_ms=9000).split(b"\n", 1)[1].replace(b"outcome hit", b"outcome miss")
+    fanout(Batch(decoder.feed(more), time.time()))
+    drain(engine)
+    assert engine.take_snapshots()["box 1"].window_known
+    assert [a.alert.kind for a in engine.take_alerts()] == ["disagreement"]
+
+
+def test_a_box_streaming_with_nobody_checked_in_is_counted_and_alerted_once():
+    engine = Engine(publish_s=0.0, check_s=0.0)
+    fanout = Fanout(Writer(), source_id=1, session_id=99, live=True, engine=engine.queue)    # no animal
+    engine.add_rig("box 1", 1, status)
+    decoder = WireDecoder()
+    fanout(Batch(decoder.feed(session_bytes([650.0, 700.0, 640.0], rig_outcomes=False)), time.time()))
+    drain(engine)
+    snap = engine.take_snapshots()["box 1"]
+    assert snap.session_id is None and snap.unattended_events == 9      # 3 trial starts + 6 presses
+    assert [a.alert.kind for a in engine.take_alerts()] == ["nobody checked in"]
+    fanout(Batch(decoder.feed(session_bytes([650.0], start_ms=20_000).split(b"\n", 1)[1]), time.time()))
+    drain(engine)
+    assert engine.take_alerts() == []                                   # once per stretch
+    engine.forget_unattended("box 1")
+    drain(engine)
+    assert engine.take_snapshots()["box 1"].unattended_events == 0
+    engine.open_session(SessionPlan("box 1", 5, "wren", PROTOCOL, started=1.0))
+    fanout.session_id = 5
+    fanout(Batch(decoder.feed(session_bytes([650.0] * 4, start_ms=40_000).split(b"\n", 1)[1]), time.time()))
+    drain(engine)
+    assert engine.take_snapshots()["box 1"].unattended_events == 0 and engine.take_alerts() == []

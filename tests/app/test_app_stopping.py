@@ -121,7 +121,8 @@ def test_closing_the_terminal_stops_record_with_everything_stored(tmp_path):
     log.write_bytes(encode_header(fw="t") + b"".join(encode_event(i * 1000, "lick") for i in range(200)))
     (tmp_path / "p.toml").write_text(PROTOCOL)
     proc = subprocess.Popen([sys.executable, "-m", "monitor.app", "record", "--source", f"file:{log}", "--rig", "box1",
-                             "--animal", "heron", "--protocol", str(tmp_path / "p.toml"), "--db", str(db)],
+                             "--animal", "heron", "--new-animal", "--protocol", str(tmp_path / "p.toml"), "--db",
+                             str(db)],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         first = proc.stderr.readline()               # the recorder says where it reads from once it runs

@@ -12,6 +12,7 @@ from drivers.status import CONNECTED, LOST, READING, SILENT, STOPPED, WAITING, S
 from drivers.wire import Event, WireDecoder
 from monitor.app import views
 from monitor.app.engine import Engine, SessionPlan
+from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import build_trials
 from monitor.ui.models import Connection, Severity, StoreHealth
 from fixtures.protocols import two_press
@@ -86,7 +87,8 @@ def test_today_state_carries_the_series_and_previous_session():
 
 def test_status_bar_words():
     bar = views.status_state({"a": status(READING), "b": status(WAITING, gap_since=1.0)}, "ok", "ok", 1234)
-    assert bar.sources_text.startswith("1 of 2 sources reading — b: waiting for device")
+    assert bar.sources_text == "1 of 2 sources reading; 1 retrying" and bar.sources_trouble
+    assert bar.sources_detail.startswith("b: waiting for device")
     assert (bar.store, bar.store_text) == (StoreHealth.SAVING, "1234 events saved")
     assert views.status_state({}, "failed", "STORE WRITER FAILED: disk", 0).store is StoreHealth.FAILED
     assert views.status_state({}, "overflow", "x", 0).store.loud
@@ -118,8 +120,9 @@ def test_history_curve_plateau_and_rows():
     assert parts.sessions[0].start == "2026-03-01 09:00" and parts.sessions[0].rig == "box 1"
     assert parts.consolidation.sessions_since_plateau == 2
     assert parts.consolidation.trials_since_plateau == 16
-    assert parts.consolidation.interval_error_ms == pytest.approx(np.median(np.abs([650.0] * 6 + [1000.0] * 4
-                                                                                   - np.full(10, 650.0))))
+    latest = np.array([650.0] * 6 + [1000.0] * 4)
+    assert parts.consolidation.interval_error == pytest.approx(np.median(np.abs(np.log(latest / 650.0))))  # numpy
+    assert parts.consolidation.cv == pytest.approx(np.std(latest, ddof=1) / np.mean(latest))              # numpy
     assert parts.previous_intervals["main"] == tuple([650.0] * 5 + [1000.0] * 4 + [650.0])
     assert "not fitted" in parts.consolidation.model_comparison
 
@@ -153,3 +156,96 @@ def test_start_of_session_drop_and_its_interval():
     assert drop.drop == pytest.approx(sum(before) / 20 - 9 / 20)
     low, high = confint_proportions_2indep(sum(before), 20, 9, 20, method="newcomb", compare="diff")  # statsmodels
     assert (drop.low, drop.high) == (pytest.approx(low), pytest.approx(high))
+
+
+STAGED = parse_protocol("""
+[protocol]
+name = "two-press 650 ms, shaped"
+version = 1
+task = "two_press"
+target_ms = 650
+tolerance = 0.2
+
+[[stages]]
+name = "wide"
+tolerance = 0.5
+
+[[stages]]
+name = "final"
+
+[plateau]
+rule = "consecutive_sessions"
+min_hit_rate = 0.5
+sessions = 2
+min_trials = 5
+""")
+
+
+def staged_history(plan):
+    """Sessions of (stage, intervals): the trial builder is given the stage in force."""
+    out = []
+    for k, (stage, intervals) in enumerate(plan):
+        data = session_bytes(intervals, rig_outcomes=False)
+        trials, builder = build_trials(STAGED, [r for r in WireDecoder().feed(data) if isinstance(r, Event)], stage)
+        out.append(views.HistorySession(tuple(trials), start=f"2026-03-0{k + 1} 09:00", rig="box 1",
+                                        counts=dict(builder.counts)))
+    return out
+
+
+def test_learning_curve_shows_every_stage_and_judges_the_final_one():
+    # two shaping sessions (one with only 3 trials), then three final-stage sessions
+    sessions = staged_history([("wide", [650, 900, 1000, 300, 640]), ("wide", [650, 700, 900]),
+                               ("final", [650, 640, 900, 660, 1000]), ("final", [650, 640, 660, 700, 1000]),
+                               ("final", [650, 640, 660, 900, 1000])])
+    curve = views.history_parts(STAGED, sessions).curve
+    assert curve.stage == ("wide", "wide", "final", "final", "final")
+    assert list(curve.session) == [1, 2, 3, 4, 5]
+    # the shaping stage's window is 650 ± 50 %: 325-975 ms (hand count from the protocol)
+    assert list(curve.measure[:2]) == pytest.approx([3 / 5, 3 / 3])
+    assert curve.trials == (5, 3, 5, 5, 5)
+    assert curve.final_stage == "final"
+    # judged in the final stage only: sessions 3 (3/5) and 4 (4/5) both reach 0.5
+    assert (curve.plateau_word, curve.plateau_session) == ("reached", 3)
+
+
+def test_learning_curve_of_a_shaping_animal_is_not_empty():
+    sessions = staged_history([("wide", [650, 900, 1000, 300, 640])])
+    curve = views.history_parts(STAGED, sessions).curve
+    assert list(curve.session) == [1] and curve.stage == ("wide",)
+    assert curve.plateau_word == "not reached"
+
+
+def test_a_box_streaming_with_nobody_checked_in_has_its_own_tile_state():
+    engine = Engine(publish_s=0.0, check_s=1e9)
+    from monitor.app.pipeline import EngineBatch
+    from drivers.status import Batch
+    engine.add_rig("box 2", 1)
+    engine.step(0)
+    engine.queue.put(EngineBatch(1, 99, Batch(WireDecoder().feed(session_bytes([650, 700])), 0.0), 1.0))
+    engine.step(0)
+    snap = engine.take_snapshots()["box 2"]
+    tile = views.tile_state("box 2", snap, status(READING), now=5.0)
+    assert tile.connection is Connection.UNATTENDED and tile.unattended_presses == 6
+    assert tile.animal is None and tile.trials_today == 0
+    from monitor.ui.tile import tile_texts
+    texts = tile_texts(tile)
+    assert (texts.state, texts.trials, texts.trials_caption) == ("unattended", "6", "presses kept")
+    assert views.tile_state("box 2", None, status(READING), now=5.0).connection is Connection.IDLE
+
+
+def test_the_page_and_the_eligibility_figures_share_one_definition_each():
+    # the consolidation panel's transparent measures are the eligibility's figures from the report's sessions
+    from monitor.core.eligibility.from_report import figures_from_report
+
+    sessions = history([[1, 0, 0, 0, 0], [1, 1, 1, 0, 0], [1, 0, 1, 0, 1, 0], [1, 1, 1, 1, 1, 0, 0, 0, 0, 1],
+                        [1, 1, 1, 1, 0]])
+    parts = views.history_parts(PROTOCOL, sessions)
+    assert parts.consolidation.sessions_since_plateau == 3      # sessions 3, 4 and 5 come after the plateau (2)
+    assert parts.consolidation.trials_since_plateau == 6 + 10 + 5
+    report_sessions = [{"index": k + 1, "trials": r.trials, "excluded": False, "cv": r.cv,
+                        "median_abs_log_error": None} for k, r in enumerate(parts.sessions)]
+    figures = figures_from_report({"animal": "wren", "sessions": report_sessions,
+                                   "plateau": {"reached": True, "session": parts.plateau_session}})
+    assert figures.sessions_since_plateau == parts.consolidation.sessions_since_plateau
+    assert figures.trials_since_plateau == parts.consolidation.trials_since_plateau
+    assert figures.measures["cv"] == parts.consolidation.cv

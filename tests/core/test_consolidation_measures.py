@@ -8,7 +8,6 @@ import pytest
 from monitor.core.consolidation.measures import (
     outcome_sensitivity,
     session_summaries,
-    since_plateau,
     start_drops,
     trend,
 )
@@ -32,10 +31,6 @@ def test_session_summaries_by_hand():
     assert rows[0].hit_rate == pytest.approx(0.25)
 
 
-def test_excluded_sessions_and_plateau_counts():
-    assert [r.session for r in session_summaries(_series((False, True, False)))] == [1, 3]
-    assert since_plateau(_series(), 1) == {"sessions": 2, "trials": 6}
-    assert since_plateau(_series(), None) == {"sessions": None, "trials": None}
 
 
 def test_trend_matches_scipy_linregress():
@@ -67,3 +62,7 @@ def test_outcome_sensitivity_by_hand():
     assert out.after_hit == pytest.approx(0.4 / 3)
     assert out.after_miss == pytest.approx(1.1 / 4)
     assert out.difference == pytest.approx(1.1 / 4 - 0.4 / 3)
+
+
+def test_excluded_sessions_are_left_out_of_the_summaries():
+    assert [r.session for r in session_summaries(_series((False, True, False)))] == [1, 3]

@@ -174,7 +174,7 @@ def test_left_out_sessions_neither_count_nor_break_and_stages_do_not_mix():
     assert dict(curve.left_out)[2] == "excluded: after muscimol" and 3 in dict(curve.left_out)
     assert curve.points[1].value == 0.75
     result = judge(protocol.plateau, curve)
-    assert not result.reached and "current run: 0" in result.reason
+    assert not result.reached and "so far 0 sessions in a row" in result.reason
 
 
 def test_change_point_rule_on_sessions():

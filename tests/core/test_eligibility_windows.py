@@ -86,7 +86,7 @@ def test_reasons_name_the_figures():
     assert "plateaued, not consolidated" in reason and "sessions since plateau 2 (needs ≤ 6)" in reason
     assert "slow-state fraction 0.30 (0.25–0.35, estimated; needs ≤ 0.5)" in reason
     waiting = evaluate(rule(), figures(16)).reason
-    assert waiting.startswith("Plateau at session 8; consolidated not open yet")
+    assert waiting.startswith('Plateau at session 8; the window for "consolidated" is not open yet')
     assert "slow-state fraction 0.74" in waiting
 
 

@@ -58,13 +58,18 @@ def test_panel_lists_alerts_newest_first_with_kind_time_rig_text(qtbot):
     ids = [panel.list.item(r).data(Qt.ItemDataRole.UserRole) for r in range(panel.list.count())]
     assert ids == [3, 2, 1, 4]                                   # by time, newest at the top
     first = panel.list.item(0).text().splitlines()
-    assert first[0] == "10:38  box-16  ·  urgent: disconnected"
+    assert first[0] == "OPEN, urgent  ·  10:38  box-16  ·  disconnected"
     assert first[1] == "Lost the device at /dev/ttyACM15; it has not come back."
-    assert panel.summary.text() == "3 open alerts (worst: urgent)"
-    assert panel.item(4).text().endswith("seen by R. Okafor")
+    assert panel.summary.text() == "3 open alerts (1 urgent, 2 attention); 1 resolved (ticked)."
+    assert panel.item(4).text().startswith("resolved") and panel.item(4).text().endswith("seen by R. Okafor")
     book.add(alert(5, minutes=60))
     assert panel.list.item(0).data(Qt.ItemDataRole.UserRole) == 5
-    assert panel.summary.text() == "4 open alerts (worst: urgent)"
+    assert panel.summary.text().startswith("4 open alerts")
+    # the open count is the number of rows drawn without the resolved tick and word
+    drawn_open = [r for r in range(panel.list.count()) if panel.list.item(r).text().startswith("OPEN")]
+    assert len(drawn_open) == 4 == len(book.open_alerts())
+    assert panel.item(4).font().italic() and not panel.item(5).font().italic()
+    assert panel.item(4).icon().cacheKey() != panel.item(5).icon().cacheKey()
 
 
 def test_alert_text_from_a_device_is_kept_literally(qtbot):
@@ -90,7 +95,7 @@ def test_acknowledge_needs_the_operators_name(qtbot):
     with qtbot.waitSignal(book.acknowledged) as done:
         qtbot.mouseClick(panel.ack_button, Qt.MouseButton.LeftButton)
     assert done.args == [1, "J. Lind"]
-    assert panel.summary.text() == "All quiet: no open alerts."
+    assert panel.summary.text() == "All quiet: no open alerts; 1 resolved (ticked)."
     assert panel.item(1).text().endswith("seen by J. Lind")
 
 

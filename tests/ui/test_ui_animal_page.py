@@ -48,7 +48,16 @@ def test_histogram_shows_todays_and_previous_counts_with_the_window(page):
     x, y = page.histogram.today.getData()
     np.testing.assert_array_equal(x, today.linear.edges_ms)   # stepMode="center": len(x) == len(y) + 1
     np.testing.assert_array_equal(y, today.linear.today)
-    np.testing.assert_array_equal(page.histogram.previous.getData()[1], today.linear.previous)
+    # the previous session is drawn as a shape: its counts scaled to today's total (numpy arithmetic)
+    scale = today.linear.today.sum() / today.linear.previous.sum()
+    np.testing.assert_allclose(page.histogram.previous.getData()[1], today.linear.previous * scale)
+    np.testing.assert_allclose(page.histogram.previous.getData()[1].sum(), today.linear.today.sum())
+    # its own counts on hover: the bin under the pointer, today's and the previous session's
+    k = int(np.argmax(today.linear.previous))
+    middle = (today.linear.edges_ms[k] + today.linear.edges_ms[k + 1]) / 2
+    assert page.histogram.bin_text(middle) == (f"{today.linear.edges_ms[k]:.0f}–{today.linear.edges_ms[k + 1]:.0f} "
+                                               f"ms: today {int(today.linear.today[k])}, previous session "
+                                               f"{int(today.linear.previous[k])}")
     assert page.histogram.region.getRegion() == (520.0, 780.0)
     assert page.histogram.target.value() == 650.0
     assert page.histogram.window_text.text() == "window 520–780 ms"
@@ -109,11 +118,17 @@ def test_rolling_rate_is_drawn_with_its_band_and_todays_counts(page):
 @pytest.mark.slow
 def test_learning_curve_marks_stages_criterion_and_plateau_with_reason(page):
     curve = page.book.state("cedar").curve
-    x, y = page.curve.points.getData()
-    np.testing.assert_allclose(y, 100 * curve.measure)
+    drawn = [item.getData() for item in page.curve.stage_items if item.isVisible()]
+    x = np.concatenate([d[0] for d in drawn])
+    np.testing.assert_allclose(np.concatenate([d[1] for d in drawn]), 100 * curve.measure)
     assert 18.0 not in x                                       # the excluded session is left out
     shown = [m.label.format for m in page.curve.stage_marks if m.isVisible()]
     assert shown == ["shaping", "wide window", "final"]
+    # each stage its own shape and its own legend label (never colour alone)
+    symbols = [item.opts["symbol"] for item in page.curve.stage_items if item.isVisible()]
+    assert len(set(symbols)) == 3
+    legend = [label.text for _, label in page.curve.legend.items]
+    assert legend[0] == "stage shaping" and legend[2] == "stage final (plateau judged here)"
     assert page.curve.criterion.value() == pytest.approx(50.0)
     assert page.curve.plateau.value() == 14
     assert page.plateau_line.text() == f"Plateau: reached. {curve.plateau_reason}"
@@ -123,7 +138,7 @@ def test_consolidation_shows_measures_first_then_model_with_interval_caveat_and_
     c = page.book.state("cedar").consolidation
     m = page.consolidation.measures
     assert m["trials"].text() == "3,820" and m["sessions"].text() == "10"
-    assert m["error"].text() == "61 ms" and m["cv"].text() == "0.19"
+    assert m["error"].text() == "0.094" and m["cv"].text() == "0.190"
     assert m["drops"].text().count("session ") == 4
     assert "warm-up" in page.consolidation.warmup_note.text()
     assert re.match(r"Session 24: 0\.\d\d \(90 % interval 0\.\d\d–0\.\d\d\), estimated",
@@ -242,3 +257,19 @@ def test_eligibility_verdict_shows_with_the_advisory_and_hides_without(page):
     assert page.eligibility_line.isHidden() and page.care_advisory.isHidden()
     page.book.update(replace(state, care_text=""))
     assert not page.eligibility_line.isHidden() and not page.care_advisory.isHidden()
+
+
+def test_an_exclusion_is_undone_with_its_own_reason(page, qtbot):
+    excluded = next(r.index for r in page.book.state("cedar").sessions if r.excluded)
+    page.sessions.select_session(excluded)
+    assert page.sessions.include_button.isEnabled() and not page.sessions.exclude_button.isEnabled()
+    dialog = page.sessions.open_exclusion(undo=True)
+    with qtbot.assertNotEmitted(page.exclusion_requested):
+        assert not dialog.try_accept()
+    assert "counts again" in dialog.problem_line.text()
+    dialog.reason.setText("lever was fine")
+    with qtbot.waitSignal(page.exclusion_requested) as emitted:
+        assert dialog.try_accept()
+    assert emitted.args == [Exclusion(animal="cedar", session=excluded, reason="lever was fine", excluded=False)]
+    page.sessions.select_session(excluded - 1)
+    assert not page.sessions.include_button.isEnabled()

@@ -215,7 +215,7 @@ def test_the_printable_sheet_is_a_page_with_ink(panel):
 def test_the_history_lists_entries_and_the_chain(qtbot):
     row = ("1", "2026-03-02T10:00:00+01:00", "excluded", "", "ana", "in window: early", "no (both kept)",
            "vet advised a pause", "", "")
-    widget = DecisionHistory(HistoryView("heron", (row,), True, "Decision log intact: 1 entries, hash chain verified."))
+    widget = DecisionHistory(HistoryView("heron", (row,), True, "Decision log intact: 1 entry, hash chain verified."))
     qtbot.addWidget(widget)
     assert widget.table.rowCount() == 1 and widget.table.item(0, 6).text() == "no (both kept)"
     assert widget.chain.text().startswith("✔ Decision log intact")

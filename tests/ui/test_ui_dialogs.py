@@ -5,7 +5,7 @@ from __future__ import annotations
 from PySide6.QtCore import Qt
 
 from monitor.ui.dialogs import CheckInDialog
-from monitor.ui.models import CheckIn, RigSetup, Roster, SerialDevice
+from monitor.ui.models import CheckIn, CheckOut, RigSetup, Roster, SerialDevice
 from monitor.ui.setup import SetupDialog, device_text
 
 ROSTER = Roster(animals=("alder", "birch", "cedar"), rigs=("box-01", "box-02", "box-03"),
@@ -49,9 +49,18 @@ def test_check_out_is_offered_only_for_an_occupied_box(qtbot):
     assert dialog.animal.currentText() == "cedar"               # the occupant is preselected
     assert dialog.occupant.text() == "cedar is checked in here."
     assert dialog.check_out_button.isEnabled()
+    with qtbot.assertNotEmitted(dialog.checked_out):
+        qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)     # no operator yet
+    assert "Operator" in dialog.problem_line.text()
+    dialog.operator.setCurrentText("R. Okafor")
+    with qtbot.assertNotEmitted(dialog.checked_out):
+        qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)     # asks to confirm first
+    assert dialog.check_out_button.text() == "Confirm: check cedar out of box-03 now"
     with qtbot.waitSignal(dialog.checked_out) as out:
         qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)
-    assert out.args == ["box-03"]
+    assert out.args == [CheckOut("box-03", "cedar", "R. Okafor")]
+    dialog = CheckInDialog(ROSTER, rig="box-03", operator="R. Okafor")
+    qtbot.addWidget(dialog)
     dialog.rig.setCurrentText("box-02")
     assert not dialog.check_out_button.isEnabled() and dialog.occupant.text() == "This box is free."
 
@@ -106,3 +115,34 @@ def test_setup_says_whether_the_board_restarts_when_the_port_opens(qtbot):
     assert dialog.setup().reset is False
     dialog.use_file.setChecked(True)
     assert not dialog.reset.isEnabled() and dialog.setup().reset  # a file has no board to restart
+def test_check_in_stage_defaults_to_the_box_then_the_animal_then_the_first_stage(qtbot):
+    from dataclasses import replace
+
+    roster = replace(ROSTER, stages=("shaping", "adaptive", "final"), current_stage={"alder": "final"},
+                     first_stage={"box-01": "shaping", "box-02": "shaping"}, box_stage={"box-02": "adaptive"})
+    dialog = CheckInDialog(roster, rig="box-01")
+    qtbot.addWidget(dialog)
+    dialog.animal.setCurrentText("birch")                 # a new animal: the protocol's first stage
+    assert dialog.stage.currentText() == "shaping"
+    dialog.animal.setCurrentText("alder")                 # an animal in training: its current stage
+    assert dialog.stage.currentText() == "final"
+    dialog.rig.setCurrentText("box-02")                   # a box that said its stage: the box's word
+    assert dialog.stage.currentText() == "adaptive"
+
+
+def test_give_dialog_offers_only_boxes_that_ran_unattended_and_needs_a_reason(qtbot):
+    from monitor.ui.dialogs import GiveDialog
+    from monitor.ui.models import UnattendedGift
+
+    dialog = GiveDialog(ROSTER, {"box-02": 14}, rig="box-01", operator="R. Okafor")
+    qtbot.addWidget(dialog)
+    assert [dialog.rig.itemText(i) for i in range(dialog.rig.count())] == ["box-02"]
+    assert dialog.count.text() == "14 presses or trials kept from this box."
+    dialog.animal.setCurrentText("birch")
+    with qtbot.assertNotEmitted(dialog.given):
+        assert not dialog.try_accept()
+    assert "Reason" in dialog.problem_line.text()
+    dialog.reason.setText("checked in late")
+    with qtbot.waitSignal(dialog.given) as done:
+        assert dialog.try_accept()
+    assert done.args == [UnattendedGift("box-02", "birch", "R. Okafor", "checked in late")]

@@ -67,6 +67,7 @@ def clipped_labels(window) -> list[str]:
 @pytest.mark.slow
 def test_window_is_1366_by_768_and_nothing_is_clipped(qtbot):
     window = make_window(qtbot)
+    window.resize(1366, 768)      # the offscreen screen is 800 x 800: size it as the smallest laptop screen
     window.show()
     qtbot.waitExposed(window)
     assert (window.width(), window.height()) == (1366, 768)
@@ -167,9 +168,11 @@ def test_check_out_from_the_animal_page_uses_its_box(qtbot):
     window.open_animal("cedar")
     dialog = window.open_check_out()
     assert dialog.rig.currentText() == "box-03"
+    dialog.operator.setCurrentText("R. Okafor")
+    qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)        # then confirm
     with qtbot.waitSignal(window.checked_out) as out:
         qtbot.mouseClick(dialog.check_out_button, Qt.MouseButton.LeftButton)
-    assert out.args == ["box-03"]
+    assert out.args[0].rig == "box-03" and out.args[0].operator == "R. Okafor"
 
 
 def test_next_rig_and_acknowledge_shortcuts(qtbot):
@@ -207,7 +210,7 @@ def test_exclusion_from_a_page_reaches_the_window_signal(qtbot):
     assert emitted.args[0].session == 5
 
 
-def test_layout_and_operator_are_restored_from_settings(qtbot, tmp_path):
+def test_layout_and_operator_are_restored_and_the_window_fits_the_screen(qtbot, tmp_path):
     settings = QSettings(str(tmp_path / "rigside.ini"), QSettings.Format.IniFormat)
     first = make_window(qtbot, settings, rigs=2)
     first.show()
@@ -218,11 +221,12 @@ def test_layout_and_operator_are_restored_from_settings(qtbot, tmp_path):
     sizes = first.splitter.sizes()
     first.close()
     second = make_window(qtbot, QSettings(str(tmp_path / "rigside.ini"), QSettings.Format.IniFormat), rigs=2)
-    assert (second.width(), second.height()) != (1366, 768)     # not the default: the saved size
     second.show()
     qtbot.waitExposed(second)
-    assert (second.width(), second.height()) == (760, 560)
-    assert second.splitter.sizes() == sizes
+    screen = second.screen().availableGeometry()
+    assert (second.width(), second.height()) == (screen.width(), screen.height())
+    assert (second.width(), second.height()) != (760, 560)      # fitted to the screen, not the last size
+    assert abs(second.splitter.sizes()[1] - sizes[1]) <= 0.1 * sizes[1]     # the alert list keeps its width
     assert second.alert_panel.operator.text() == "R. Okafor"
 
 
@@ -246,3 +250,33 @@ def test_the_windows_icons_are_our_svgs_and_render(qtbot):
     for name in ("rigside", "check-in", "check-out", "acknowledge", "add-rig"):
         assert not QIcon(str(icon_path(name))).pixmap(32, 32).isNull(), name
     assert all(not window.actions[key].icon().isNull() for key in ("check_in", "check_out", "acknowledge", "add_rig"))
+
+
+def test_alert_list_and_status_bar_grow_with_a_wide_window(qtbot):
+    window = make_window(qtbot, rigs=2)
+    window.resize(1366, 768)
+    window.show()
+    qtbot.waitExposed(window)
+    small = window.alert_panel.list.font().pointSizeF()
+    window.resize(1920, 1080)
+    QApplication.processEvents()
+    assert window.alert_panel.list.font().pointSizeF() == pytest.approx(small * 1920 / 1366, rel=0.01)
+    assert window.sources_label.font().pointSizeF() > small * 0.99
+
+
+def test_the_alert_summary_is_not_all_quiet_while_boxes_are_not_reading(qtbot):
+    from monitor.ui.alerts import AlertPanel
+    from monitor.ui.models import StatusState
+    from monitor.ui.owners import AlertBook
+
+    window = make_window(qtbot, rigs=2)
+    window.set_status(StatusState(sources_text="4 of 16 sources reading; 12 retrying", sources_detail="box-05: x",
+                                  sources_trouble=True))
+    assert window.sources_label.text().startswith("▲ 4 of 16")
+    assert window.alert_panel._sources == "4 of 16 sources reading; 12 retrying"
+    panel = AlertPanel(AlertBook())
+    qtbot.addWidget(panel)
+    panel.set_sources("4 of 16 sources reading; 12 retrying")
+    assert panel.summary.text() == "No open alerts, but 4 of 16 sources reading; 12 retrying (status bar)."
+    panel.set_sources("")
+    assert panel.summary.text() == "All quiet: no open alerts."

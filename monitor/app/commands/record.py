@@ -135,8 +135,10 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
     from monitor.app.pipeline import Fanout
     from monitor.store import db
     from monitor.store.writer import FAILED
+    from monitor.store.records import session_count
 
     sink = Fanout(writer, source_id=source_id, session_id=session_id, live=kind == "serial")
+    number = writer.call(lambda c: session_count(c, args.animal), transaction=False)   # the animal's own count
     if kind == "file":
         from drivers.tail import FileTail
 
@@ -176,7 +178,7 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
     # a deleted or replaced database file took every row committed into it along
     not_stored = status.events if wstatus.file_lost else status.events - wstatus.committed_events - \
         wstatus.diverted_events
-    where_to = "no session kept: nothing was received" if removed else f"session {session_id}"
+    where_to = "no session kept: nothing was received" if removed else f"session {number} of {args.animal}"
     stored = 0 if wstatus.file_lost else wstatus.committed_events
     print(f"recorded {stored} events, {status.malformed + wstatus.diverted_events} malformed "
           f"lines, {status.gaps} gaps into {writer.path} ({where_to})")

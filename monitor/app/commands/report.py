@@ -66,12 +66,14 @@ def _print(document: dict, as_json: bool) -> int:
     for entry in document["animals"]:
         plateau = entry["plateau"]
         c = entry["consolidation"]
-        print(f"{entry['animal']}: {entry['protocol']}, {len(entry['sessions'])} sessions; plateau "
+        count = len(entry["sessions"])
+        print(f"{entry['animal']}: {entry['protocol']}, {count} {'session' if count == 1 else 'sessions'}; plateau "
               + (f"at session {plateau['session']}" if plateau["reached"] else "not reached")
               + f"; slow-state fraction {c['estimate']:.2f} ({c['low']:.2f}-{c['high']:.2f}, {c['status']})")
         for s in entry["sessions"]:
             rate = "-" if s["hit_rate"] is None else f"{s['hit_rate']:.2f}"
             flag = f"  EXCLUDED: {s['exclusion_reason']}" if s["excluded"] else ""
-            print(f"  {s['index']:3d} {s['start']}  {s['trials']:5d} trials  {s['hits']:5d} hits  "
-                  f"hit rate {rate}{flag}")
+            cv = "-" if s.get("cv") is None else f"{s['cv']:.3f}"
+            print(f"  {s['index']:3d} {s['start']}  stage {s.get('stage') or '-'}  {s['trials']:5d} trials  "
+                  f"{s['hits']:5d} hits  hit rate {rate}  CV {cv}{flag}")
     return 0

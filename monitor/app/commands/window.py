@@ -20,7 +20,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from monitor.app.errors import UsageError
+from monitor.app.errors import UsageError, plain_error
 from monitor.app.paths import add_db_argument, resolve_db
 from monitor.app.settings import add_settings_argument, care_config, default_settings_path, lab_url, settings_path
 
@@ -45,12 +45,19 @@ def run(args: argparse.Namespace) -> int:
     rigs_path = args.rigs or default_rigs_path()
     try:
         specs = read_rigs(rigs_path)
-        for spec in specs:
-            load_protocol(spec.protocol_path)
     except ConfigError as exc:
         raise UsageError(f"--rigs: {exc}") from None
     except (OSError, ValueError) as exc:
-        raise UsageError(f"--rigs: {rigs_path}: {exc}") from None
+        raise UsageError(f"--rigs: {rigs_path}: {plain_error(exc)}") from None
+    for spec in specs:
+        try:
+            load_protocol(spec.protocol_path)
+        except ConfigError as exc:
+            raise UsageError(f"--rigs: {rigs_path}: [[rig]] {spec.name}, protocol: {exc}") from None
+        except (OSError, UnicodeDecodeError) as exc:
+            why = exc.strerror if isinstance(exc, OSError) and exc.strerror else "not a text file"
+            raise UsageError(f"--rigs: {rigs_path}: [[rig]] {spec.name}, protocol: cannot read "
+                             f"{spec.protocol_path} ({why})") from None
     try:
         care = care_config(settings_path(args.settings))      # the lab's [care] thresholds
         lab = (args.settings or default_settings_path(), lab_url(None, args.settings))  # the lab database, if set

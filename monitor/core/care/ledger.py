@@ -6,9 +6,15 @@ plus supplements = total, against the daily minimum of the `[care]` table
 (ml/day, or ml/kg/day × the latest weight on or before the day, or the larger
 of the two when both are set); owed = minimum − total when positive. Weight is
 the day's last weighing, or else the latest earlier one, as a percent of the
-baseline. Alerts (kind, level, one sentence): supplement owed (a "notice"
-before the end-of-day time, an "alert" from then on), no fluid for
-`no_fluid_hours`, weight missing (none within `weigh_every_days`), weight
+baseline. The minimum is species-aware: ml per 100 g body weight from the
+lab's `[care.species]` figure for the animal's recorded species, else the
+default per-100 g figure. Only what the store can know is judged: a day with
+nothing recorded yet is the state "no record today" (no owed, no-fluid or
+weight-missing alarm), and while a session runs the water is not final
+("session running": no owed or no-fluid alarm). Alerts (kind, level, one
+sentence): supplement owed (a "notice" before the end-of-day time, an
+"alert" from then on), no fluid for `no_fluid_hours` since the last fluid on
+record, weight missing (none within `weigh_every_days`), weight
 below the warning and limit levels (strictly below; defaults 85 % and 80 % of
 baseline, common practice per docs/care.md), valves open too long, deliveries
 with no lick. Thresholds are the institution's to set; the figures are
@@ -27,6 +33,7 @@ from drivers.config import ConfigError, TomlFile
 from monitor.core.care.water import SessionWater
 
 NOTICE, WARNING, ALERT = "notice", "warning", "alert"
+RECORDED, NO_RECORD, RUNNING = "recorded", "no record today", "session running"
 _HHMM = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)$")
 
 
@@ -36,6 +43,8 @@ class CareConfig:
 
     daily_minimum_ml: float | None = 1.0
     daily_minimum_ml_per_kg: float | None = None
+    daily_minimum_ml_per_100g: float | None = 4.0    # any species without its own figure (the mouse figure)
+    species_ml_per_100g: tuple[tuple[str, float], ...] = (("mouse", 4.0),)   # [care.species]: name = ml/100 g
     end_of_day: time = time(17, 0)
     no_fluid_hours: float = 20.0
     weight_warning_percent: float = 85.0
@@ -45,9 +54,11 @@ class CareConfig:
     lick_window_ms: float = 2000.0
 
 
-_NUMBERS = {"daily_minimum_ml", "daily_minimum_ml_per_kg", "no_fluid_hours", "weight_warning_percent",
+_NUMBERS = {"daily_minimum_ml", "daily_minimum_ml_per_kg", "daily_minimum_ml_per_100g", "no_fluid_hours", "weight_warning_percent",
             "weight_limit_percent", "max_valve_ms", "lick_window_ms"}
-_KEYS = _NUMBERS | {"end_of_day", "weigh_every_days"}
+_KEYS = _NUMBERS | {"end_of_day", "weigh_every_days", "species"}
+_FIXED_RULES = ("daily_minimum_ml", "daily_minimum_ml_per_kg")
+SPECIES_WORDS = {"mouse": ("mouse", "mice", "mus musculus"), "rat": ("rat", "rats", "rattus")}
 
 
 def parse_care(table: dict[str, Any], doc: TomlFile | None = None) -> CareConfig:
@@ -66,6 +77,15 @@ def parse_care(table: dict[str, Any], doc: TomlFile | None = None) -> CareConfig
             if key.endswith("_percent") and value > 100:
                 raise error(key, "a percent of baseline must be at most 100")
             values[key] = float(value)
+        elif key == "species":
+            if not isinstance(value, dict):
+                raise error(key, "expected a table of species = ml per 100 g body weight per day")
+            for name, figure in value.items():
+                if isinstance(figure, bool) or not isinstance(figure, (int, float)) or not figure > 0:
+                    raise error(key, f"{name}: expected ml per 100 g per day > 0, got {figure!r}")
+            species = dict(CareConfig().species_ml_per_100g)
+            species.update({str(n).strip().lower(): float(f) for n, f in value.items()})
+            values[key] = tuple(species.items())
         elif key == "weigh_every_days":
             if isinstance(value, bool) or not isinstance(value, int) or value < 1:
                 raise error(key, f"expected a whole number >= 1, got {value!r}")
@@ -77,6 +97,10 @@ def parse_care(table: dict[str, Any], doc: TomlFile | None = None) -> CareConfig
             values[key] = time(int(found.group(1)), int(found.group(2)))
     if "daily_minimum_ml_per_kg" in values:
         values.setdefault("daily_minimum_ml", None)  # per-kg alone replaces the fixed default
+    if any(k in values for k in _FIXED_RULES):   # a lab's own rule replaces the per-100 g default
+        values.setdefault("daily_minimum_ml_per_100g", None)
+    if "species" in values:
+        values["species_ml_per_100g"] = values.pop("species")
     config = CareConfig(**values)
     if config.weight_limit_percent >= config.weight_warning_percent:
         raise error("weight_limit_percent", "must be below weight_warning_percent")
@@ -131,6 +155,7 @@ class AnimalCare:
     supplements: tuple[Supplement, ...] = ()
     weighings: tuple[Weighing, ...] = ()
     notes: tuple[HealthNote, ...] = ()
+    species: str | None = None          # from the animal's record
 
 
 @dataclass(frozen=True, slots=True)
@@ -161,6 +186,8 @@ class DaySummary:
     supplements_by: tuple[str, ...]
     notes: tuple[str, ...]
     alerts: tuple[CareAlert, ...] = field(default=())
+    state: str = "recorded"             # RECORDED | NO_RECORD | RUNNING: what the day's figures can say
+    minimum_rule: str = ""              # how the minimum was set, in words
 
     def row(self) -> dict[str, Any]:
         """One care-sheet row, keyed by CARE_SHEET_COLUMNS (plain values for CSV)."""
@@ -190,14 +217,48 @@ def percent_of_baseline(weight_g: float, baseline_g: float) -> float:
     return 100.0 * weight_g / baseline_g
 
 
-def daily_minimum_ml(config: CareConfig, weight_g: float | None) -> float | None:
-    """The day's minimum in ml: the larger of the fixed and per-kg minimums that can be computed."""
-    candidates = []
+def species_figure(config: CareConfig, species: str | None) -> tuple[str, float] | None:
+    """(name, ml per 100 g per day) of the lab's figure for `species` (its common or Latin name), or None."""
+    if not species:
+        return None
+    text = species.strip().lower()
+    for name, figure in config.species_ml_per_100g:
+        words = SPECIES_WORDS.get(name, (name,))
+        if any(text == w or text.startswith(w + " ") for w in words):
+            return name, figure
+    return None
+
+
+def per_100g(config: CareConfig, species: str | None) -> tuple[float | None, str]:
+    """The per-100 g figure in force for `species` and its source, in words."""
+    found = species_figure(config, species)
+    if found is not None:
+        return found[1], f"{found[1]:g} ml per 100 g body weight ({found[0]} figure)"
+    if config.daily_minimum_ml_per_100g is None:
+        return None, ""
+    whose = "species not recorded" if not species else f"no figure set for {species}"
+    return config.daily_minimum_ml_per_100g, f"{config.daily_minimum_ml_per_100g:g} ml per 100 g body weight " \
+                                             f"(default; {whose})"
+
+
+def daily_minimum_ml(config: CareConfig, weight_g: float | None, species: str | None = None) -> float | None:
+    """The day's minimum in ml: the larger of the fixed, per-kg and per-100 g minimums that can be computed."""
+    return _minimum(config, weight_g, species)[0]
+
+
+def _minimum(config: CareConfig, weight_g: float | None, species: str | None) -> tuple[float | None, str]:
+    candidates: list[tuple[float, str]] = []
     if config.daily_minimum_ml is not None:
-        candidates.append(config.daily_minimum_ml)
+        candidates.append((config.daily_minimum_ml, f"{config.daily_minimum_ml:g} ml/day"))
     if config.daily_minimum_ml_per_kg is not None and weight_g is not None:
-        candidates.append(config.daily_minimum_ml_per_kg * weight_g / 1000.0)
-    return max(candidates) if candidates else None
+        candidates.append((config.daily_minimum_ml_per_kg * weight_g / 1000.0,
+                           f"{config.daily_minimum_ml_per_kg:g} ml/kg/day"))
+    figure, words = per_100g(config, species)
+    if figure is not None and weight_g is not None:
+        candidates.append((figure * weight_g / 100.0, words))
+    if not candidates:
+        return None, ""
+    return max(candidates)
 
 
 def day_summary(care: AnimalCare, day: date, config: CareConfig, now: datetime) -> DaySummary:
@@ -213,7 +274,11 @@ def day_summary(care: AnimalCare, day: date, config: CareConfig, now: datetime) 
     weighings = sorted((w for w in care.weighings if w.time.date() <= day), key=lambda w: w.time)
     latest = weighings[-1] if weighings else None
     weight = latest.grams if latest else None
-    minimum = daily_minimum_ml(config, weight if weight is not None else care.baseline_g)
+    minimum, rule = _minimum(config, weight if weight is not None else care.baseline_g, care.species)
+    running = [s for s in care.sessions if s.end is None and s.start is not None and s.start.date() == day]
+    recorded = bool(sessions or running or supplements or any(w.time.date() == day for w in care.weighings)
+                    or any(n.time.date() == day for n in care.notes))
+    state = RUNNING if running else RECORDED if recorded else NO_RECORD
     owed = None if minimum is None else max(0.0, minimum - total)
     percent = None if latest is None or not care.baseline_g else percent_of_baseline(latest.grams, care.baseline_g)
     fluid_times = [s.end for s in care.sessions if s.end is not None and s.earned_ul > 0 and s.end <= as_of]
@@ -221,20 +286,25 @@ def day_summary(care: AnimalCare, day: date, config: CareConfig, now: datetime) 
     last_fluid = max(fluid_times) if fluid_times else None
     alerts: list[CareAlert] = []
     past_end_of_day = as_of.timetz().replace(tzinfo=None) >= config.end_of_day or as_of == day_end
+    if state == NO_RECORD:      # what the store cannot know yet is not an alarm: one plain state instead
+        alerts.append(CareAlert("no_record_today", WARNING if past_end_of_day else NOTICE,
+                                "Nothing recorded today yet (no session, weighing or supplement)."))
+    elif state == RUNNING:
+        alerts.append(CareAlert("session_running", NOTICE, "A session is running: today's water is counted "
+                                                           "when it ends."))
     if minimum is None:
         alerts.append(CareAlert("minimum_unknown", WARNING,
                                 "No daily minimum can be computed: record a weight or set daily_minimum_ml."))
-    elif owed and owed > 0:
+    elif state == RECORDED and owed and owed > 0:
         level = ALERT if past_end_of_day else NOTICE
         due = "was due" if past_end_of_day else "is due"
         alerts.append(CareAlert("supplement_owed", level,
                                 f"Supplement of {owed:.2f} ml owed (total {total:.2f} of {minimum:.2f} ml); "
                                 f"it {due} by {config.end_of_day:%H:%M}."))
-    if last_fluid is None or (as_of - last_fluid) >= timedelta(hours=config.no_fluid_hours):
-        since = "no fluid on record" if last_fluid is None else \
-            f"last fluid {(as_of - last_fluid).total_seconds() / 3600:.1f} h ago"
+    if state == RECORDED and last_fluid is not None and as_of - last_fluid >= timedelta(hours=config.no_fluid_hours):
+        since = f"last fluid {(as_of - last_fluid).total_seconds() / 3600:.1f} h ago"
         alerts.append(CareAlert("no_fluid", ALERT, f"No fluid for {config.no_fluid_hours:g} h or more ({since})."))
-    if latest is None or (day - latest.time.date()).days >= config.weigh_every_days:
+    if state != NO_RECORD and (latest is None or (day - latest.time.date()).days >= config.weigh_every_days):
         alerts.append(CareAlert("weight_missing", ALERT if past_end_of_day else NOTICE,
                                 "No body weight recorded today." if config.weigh_every_days == 1 else
                                 f"No body weight recorded in the last {config.weigh_every_days} days."))
@@ -271,7 +341,7 @@ def day_summary(care: AnimalCare, day: date, config: CareConfig, now: datetime) 
         owed, weight, latest.time.date() if latest else None, care.baseline_g, percent, last_fluid,
         tuple(sorted({s.by for s in supplements})),
         tuple(n.text for n in sorted(care.notes, key=lambda n: n.time) if n.time.date() == day),
-        tuple(alerts))
+        tuple(alerts), state, rule)
 
 
 def care_sheet(cohort: Sequence[AnimalCare], day: date, config: CareConfig, now: datetime) -> tuple[DaySummary, ...]:

@@ -36,6 +36,7 @@ class SessionWater:
     licks: int
     unknown_volume: int
     long_valves_ms: tuple[float, ...]
+    start: datetime | None = None  # when the session began (a session with no end is still running)
 
     @property
     def earned_ml(self) -> float:

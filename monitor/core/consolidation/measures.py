@@ -53,14 +53,6 @@ def session_summaries(series: TrialSeries) -> list[SessionSummary]:
     return rows
 
 
-def since_plateau(series: TrialSeries, plateau_session: int | None) -> dict[str, int | None]:
-    """Included sessions and trials after the plateau session (None when there is no plateau)."""
-    if plateau_session is None:
-        return {"sessions": None, "trials": None}
-    after = [(label, len(y)) for label, y, _, _ in _included(series) if label > plateau_session]
-    return {"sessions": len(after), "trials": int(sum(n for _, n in after))}
-
-
 @dataclass(frozen=True)
 class Trend:
     slope: float  # per session

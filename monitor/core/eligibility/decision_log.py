@@ -352,4 +352,4 @@ def verify_chain(entries: Sequence[LogEntry], key: bytes | None = None, heads: S
         if not hmac.compare_digest(found.hash, mark.hash):
             return ChainCheck(False, len(entries), mark.seq - 1, mark.seq, "head",
                               f"entry {mark.seq} no longer has the exported head hash (the log was rewritten)")
-    return ChainCheck(True, len(entries), message=f"{len(entries)} entries, chain intact")
+    return ChainCheck(True, len(entries), message=f"{len(entries)} {'entry' if len(entries) == 1 else 'entries'}, chain intact")

@@ -248,7 +248,8 @@ def evaluate(rule: EligibilityRule, figures: AnimalFigures) -> Verdict:
     s = waiting[0]
     when = f", may open in {sessions_text(s.opens_in)}" if s.opens_in else ""
     plateau = f"Plateau at session {figures.plateau_session}; " if figures.plateau_reached else ""
-    return verdict(WAITING, WAITING, f"{plateau}{s.label} not open yet: {'; '.join(s.unmet)}{when}.")
+    return verdict(WAITING, WAITING, f"{plateau}the window for \"{s.label}\" is not open yet: "
+                                     f"{'; '.join(s.unmet)}{when}.")
 
 
 def window_changes(previous: Verdict | None, current: Verdict, warn_sessions: int) -> tuple[WindowAlert, ...]:

@@ -276,4 +276,7 @@ class LiveSession:
         return new
 
     def snapshot(self) -> LiveSnapshot:
-        return self.stats.snapshot()
+        """The figures now, with the target and window in force now (a `param` sent before the next trial
+        moves them at once)."""
+        target, low, high = self.builder.window_in_force
+        return self.stats.snapshot()._replace(target_ms=target, window_low_ms=low, window_high_ms=high)

@@ -52,12 +52,25 @@ def _fmt(value: float) -> str:
     return f"{value:.3g}"
 
 
+MEASURE_WORDS = {"hit_rate": "hit rate", "fixed_window_fraction": "fraction in the fixed window",
+                 "median_abs_log_error": "interval error (median |ln(interval ÷ target)|)", "cv": "CV"}
+
+
+def _words(measure: str) -> str:
+    """A measure's name as a person reads it (reasons are shown on screen and in reports)."""
+    return MEASURE_WORDS.get(measure, measure.replace("_", " "))
+
+
+def _sessions(n: int) -> str:
+    return "1 session" if n == 1 else f"{n} sessions"
+
+
 # -- consecutive sessions ----------------------------------------------------
 
 def consecutive_sessions(curve: LearningCurve, threshold: float, sessions: int) -> PlateauResult:
     """The first run of `sessions` sessions meeting `threshold`."""
     higher = HIGHER_IS_BETTER[curve.measure]
-    sign = ">=" if higher else "<="
+    sign = "at or above" if higher else "at or below"
     run: list[int] = []
     for point in curve.points:
         run = run + [point.session] if _meets(point.value, threshold, higher) else []
@@ -65,12 +78,12 @@ def consecutive_sessions(curve: LearningCurve, threshold: float, sessions: int) 
             figures = {"threshold": threshold, "sessions": list(run),
                        "values": [p.value for p in curve.points if p.session in run]}
             return PlateauResult("consecutive_sessions", True, run[0], figures,
-                                 f"{curve.measure} {sign} {_fmt(threshold)} in {sessions} consecutive sessions "
+                                 f"{_words(curve.measure)} {sign} {_fmt(threshold)} in {sessions} consecutive sessions "
                                  f"from session {run[0]} to {run[-1]}.")
     best = len(run)
     return PlateauResult("consecutive_sessions", False, None, {"threshold": threshold, "current_run": best},
-                         f"{curve.measure} has not been {sign} {_fmt(threshold)} in {sessions} consecutive "
-                         f"sessions of stage {curve.stage!r} (current run: {best}).")
+                         f"{_words(curve.measure)} has not been {sign} {_fmt(threshold)} in {sessions} consecutive "
+                         f"sessions of stage {curve.stage} yet (so far {_sessions(best)} in a row).")
 
 
 # -- change point (Gallistel, Fairhurst & Balsam 2004) ------------------------
@@ -201,9 +214,9 @@ def change_point(curve: LearningCurve, crit: float, sessions: int) -> PlateauRes
     """Plateau when the last change point is a rise that has held for `sessions` sessions."""
     if curve.measure not in BINARY_MEASURES:
         return PlateauResult("change_point", False, None, {},
-                             f"the change-point rule needs a trial-by-trial measure, not {curve.measure}.")
+                             f"the change-point rule needs a trial-by-trial measure, not {_words(curve.measure)}.")
     if not curve.points:
-        return PlateauResult("change_point", False, None, {}, f"no sessions of stage {curve.stage!r} to judge.")
+        return PlateauResult("change_point", False, None, {}, f"no sessions of stage {curve.stage} to judge.")
     series = np.concatenate([p.outcomes for p in curve.points])
     owner = np.concatenate([np.full(len(p.outcomes), p.session) for p in curve.points])
     found = change_points(series, crit)
@@ -216,7 +229,7 @@ def change_point(curve: LearningCurve, crit: float, sessions: int) -> PlateauRes
                                                   "log_odds": c.log_odds} for c in found]}
     if not found:
         return PlateauResult("change_point", False, None, figures,
-                             f"no change in {curve.measure} detected at |L| > {_fmt(crit)} over {len(series)} trials.")
+                             f"no change in {_words(curve.measure)} detected at |L| > {_fmt(crit)} over {len(series)} trials.")
     last = found[-1]
     start = session_after(last.trial)
     held = [p.session for p in curve.points if p.session >= start]
@@ -228,10 +241,10 @@ def change_point(curve: LearningCurve, crit: float, sessions: int) -> PlateauRes
                              f"to {_fmt(last.rate_after)}.")
     if len(held) < sessions:
         return PlateauResult("change_point", False, None, figures,
-                             f"{curve.measure} rose to {_fmt(tail_rate)} at trial {last.trial} (session {start}) "
+                             f"{_words(curve.measure)} rose to {_fmt(tail_rate)} at trial {last.trial} (session {start}) "
                              f"but has held for {len(held)} of the {sessions} sessions needed.")
     return PlateauResult("change_point", True, start, figures,
-                         f"{curve.measure} rose from {_fmt(last.rate_before)} to {_fmt(tail_rate)} at trial "
+                         f"{_words(curve.measure)} rose from {_fmt(last.rate_before)} to {_fmt(tail_rate)} at trial "
                          f"{last.trial} (session {start}) and has held without a further change for {len(held)} "
                          f"sessions.")
 
@@ -267,14 +280,14 @@ def slope(curve: LearningCurve, window: int, max_slope: float, confidence: float
         flat = low <= 0 <= high and abs(value) <= max_slope
         if flat and (threshold is None or _meets(level, threshold, higher)):
             return PlateauResult("slope", True, chunk[0].session, last,
-                                 f"over sessions {chunk[0].session}-{chunk[-1].session} the slope of {curve.measure} "
+                                 f"over sessions {chunk[0].session}-{chunk[-1].session} the slope of {_words(curve.measure)} "
                                  f"is {_fmt(value)} per session ({confidence:.0%} CI {_fmt(low)} to {_fmt(high)}), "
                                  f"flat within {_fmt(max_slope)}, at a mean of {_fmt(level)}.")
     if len(points) < window:
         return PlateauResult("slope", False, None, last,
-                             f"{len(points)} sessions of stage {curve.stage!r}, fewer than the window of {window}.")
+                             f"{len(points)} sessions of stage {curve.stage}, fewer than the window of {window}.")
     return PlateauResult("slope", False, None, last,
-                         f"no window of {window} sessions has a slope of {curve.measure} flat within "
+                         f"no window of {window} sessions has a slope of {_words(curve.measure)} flat within "
                          f"{_fmt(max_slope)} per session" + ("" if threshold is None else
                                                              f" at a mean meeting {_fmt(threshold)}")
                          + f" (last: {_fmt(last['slope'])}, CI {_fmt(last['low'])} to {_fmt(last['high'])}).")
@@ -338,7 +351,7 @@ def asymptote_fraction(curve: LearningCurve, fraction: float, min_sessions: int)
     points = curve.points
     if len(points) < min_sessions:
         return PlateauResult("asymptote_fraction", False, None, {"sessions": len(points)},
-                             f"{len(points)} sessions of stage {curve.stage!r}, fewer than the {min_sessions} "
+                             f"{len(points)} sessions of stage {curve.stage}, fewer than the {min_sessions} "
                              f"needed for a fit.")
     n = np.arange(len(points), dtype=float)
     fit = fit_exponential(n, [p.value for p in points])
@@ -349,7 +362,7 @@ def asymptote_fraction(curve: LearningCurve, fraction: float, min_sessions: int)
     if fit.at_bound or gain <= 0:
         why = "shows no gain" if gain <= 0 else "shows no curvature (tau at the edge of its range)"
         return PlateauResult("asymptote_fraction", False, None, figures,
-                             f"the exponential fit of {curve.measure} {why}, so no asymptote can be placed.")
+                             f"the exponential fit of {_words(curve.measure)} {why}, so no asymptote can be placed.")
     ordinal = math.ceil(needed - 1e-9)
     if ordinal >= len(points):
         return PlateauResult("asymptote_fraction", False, None, figures,
@@ -357,7 +370,7 @@ def asymptote_fraction(curve: LearningCurve, fraction: float, min_sessions: int)
                              f"{_fmt(needed)} sessions after the first; only {len(points)} so far.")
     session = points[ordinal].session
     return PlateauResult("asymptote_fraction", True, session, figures,
-                         f"{fraction:.0%} of the fitted gain of {curve.measure} ({_fmt(fit.y0)} to {_fmt(fit.a)}, "
+                         f"{fraction:.0%} of the fitted gain of {_words(curve.measure)} ({_fmt(fit.y0)} to {_fmt(fit.a)}, "
                          f"tau {_fmt(fit.tau)} sessions) is reached by session {session}.")
 
 
@@ -581,12 +594,12 @@ def learning_trial(curve: LearningCurve, chance: float | None, level: float = 0.
     what = "the first session's rate" if baseline else "chance"
     if len(below) == len(sure) or (len(below) and below[-1] == len(sure) - 1):
         return PlateauResult("learning_trial", False, None, figures,
-                             f"performance is not above {what} ({_fmt(chance)}) with P >= {level} at the end of "
-                             f"stage {curve.stage!r}.")
+                             f"performance is not above {what} ({_fmt(chance)}) with probability at least {level} at the end of "
+                             f"stage {curve.stage}.")
     step = 0 if not len(below) else int(below[-1]) + 1
     trial = int(fit.first_trial[step])
     session = int(owner[trial - 1])
     figures["trial"] = trial
     return PlateauResult("learning_trial", True, session, figures,
-                         f"from trial {trial} of stage {curve.stage!r} (session {session}) performance stays above "
-                         f"{what} ({_fmt(chance)}) with P >= {level}.")
+                         f"from trial {trial} of stage {curve.stage} (session {session}) performance stays above "
+                         f"{what} ({_fmt(chance)}) with probability at least {level}.")

@@ -124,6 +124,16 @@ class TrialBuilder:
         """The stage in force now."""
         return self._stage
 
+    @property
+    def window_in_force(self) -> tuple[float, float, float]:
+        """(target, low, high) in ms in force now: what the next trial will be judged by."""
+        return self._target, self._low, self._high
+
+    @property
+    def window_from_rig(self) -> bool:
+        """Whether the rig itself sent the window in force (`param window_low_ms` / `window_high_ms`)."""
+        return self._window_from_rig
+
     def feed(self, event: Any) -> list[Trial]:
         """Take the next event; return the trials it completes (often none)."""
         name = getattr(event, "name", None)
