@@ -29,7 +29,8 @@ from typing import Callable
 import numpy as np
 
 from monitor.core.consolidation_estimate import Forecast, forecast, slow_fractions
-from monitor.core.consolidation_fit import JOINED, Cancelled, ModelFit, default_starts, fit_model, with_curvature
+from monitor.core.consolidation_fit import (JOINED, Cancelled, ModelFit, Objective, default_starts, fit_model,
+                                            spread_starts, with_curvature)
 from monitor.core.consolidation_model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
 
 CAVEAT = ("Model-based slow-state fraction of a fitted behavioural model; not proof that the behaviour "
@@ -47,6 +48,8 @@ class Options:
     max_iter: int = 150
     race_iter: int = 15
     race_margin: float = 50.0
+    spread: int = 32  # Sobol-spread candidates screened by the likelihood (the global stage)
+    screened: int = 3  # of those (with the central and random starts), the best this many are raced
     mode_tau_b: tuple[float, ...] = (2.0, 500.0)
     mode_margin: float = 2.0
     draws: int = 40
@@ -164,68 +167,105 @@ def _usable(warm: dict, options: Options) -> bool:
 
 def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Progress, steps: int,
               rng: np.random.Generator) -> tuple[str, list[ModelFit], dict[str, ModelFit]]:
-    """Race the variants, then fit the leader's optima and its one-rate model to convergence."""
+    """Profile over the variant: race every variant's candidates, then take each variant whose best
+    raced two-rate model is within ``race_margin`` of the best to convergence; the higher optimum wins."""
     fits: dict[str, ModelFit] = {}
+    raced: dict[str, tuple[ModelFit, list[ModelFit]]] = {}
+    spent = 0
     for v_i, variant in enumerate(options.variants):
-        key = _key(variant, True)
-        starts = ([np.asarray(warm[key])] if key in warm else []) + default_starts(True, options.starts, rng)
-        fits[key] = fit_model(prep, variant, True, starts, options.optimise, options.race_iter, cancel, False)
-        report((v_i + 1) / steps, f"two-rate model, {variant} variant (first {options.race_iter} steps)")
-    # the variant ahead after the first steps is fitted to convergence, then also from break
-    # retentions at both ends (the likelihood can have an optimum at each); a run that comes
-    # close to an optimum already found stops there (it is converging onto it)
-    variant = max(options.variants, key=lambda v: fits[_key(v, True)].loglike)
-    lead = fits[_key(variant, True)]
-    report((len(options.variants) + 1) / steps, f"two-rate model, {variant} variant, to convergence")
-    found = [fit_model(prep, variant, True, [lead.theta], 1, options.max_iter, cancel, False)]
-    spent = lead.evaluations
-    raced_alts = []
-    for tau in options.mode_tau_b:
-        alt = lead.theta.copy()
-        alt[TWO_RATE.index("tau_b")] = to_theta({"tau_b": tau}, ("tau_b",))[0]
-        raced = fit_model(prep, variant, True, [alt], 1, options.race_iter, cancel, False, (found[0].theta,))
-        spent += raced.evaluations
-        if raced.reason != JOINED:
-            raced_alts.append(raced)
-    top = max([lead.loglike] + [r.loglike for r in raced_alts])
-    for raced in raced_alts:
-        if top - raced.loglike >= 5 * options.mode_margin:
+        one = _fit_one_rate(prep, variant, warm, options, cancel, rng, options.race_iter)
+        candidates, used = _race_two_rate(prep, variant, one, warm, options, cancel, rng)
+        raced[variant], spent = (one, candidates), spent + used
+        fits[_key(variant, False)], fits[_key(variant, True)] = one, candidates[0]
+        report((v_i + 1) / steps, f"{variant} variant: first {options.race_iter} steps")
+    top = max(fits[_key(v, True)].loglike for v in options.variants)
+    found_by: dict[str, list[ModelFit]] = {}
+    for variant in options.variants:
+        one, candidates = raced[variant]
+        if top - candidates[0].loglike >= options.race_margin:
+            spent += sum(c.evaluations for c in candidates) + one.evaluations
+            continue  # far behind after its first steps: reported as reached (a lower bound)
+        fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options,
+                                                   cancel, rng, options.max_iter, spent=one.evaluations)
+        found, used = _converge_two_rate(prep, variant, candidates, options, cancel)
+        found_by[variant], spent = found, spent + used
+        fits[_key(variant, True)] = found[0]
+        report((len(options.variants) + 1) / steps, f"{variant} variant to convergence")
+    variant = max(found_by, key=lambda v: found_by[v][0].loglike)
+    others = sum(f.evaluations for v in found_by if v != variant for f in found_by[v])
+    modes = _select_modes(prep, found_by[variant], spent + others, options, cancel)
+    fits[_key(variant, True)] = modes[0]
+    return variant, modes, fits
+
+
+def _fit_one_rate(prep: Prepared, variant: str, warm: dict, options: Options, cancel,
+                  rng: np.random.Generator, max_iter: int, spent: int = 0) -> ModelFit:
+    """The one-rate model from the cached one, central, random and spread starts, as hard as the
+    two-rate one (the comparison is only fair then); ``max_iter`` steps."""
+    key = _key(variant, False)
+    cached = [np.asarray(warm[key])] if key in warm else []
+    starts = cached + default_starts(False, options.starts, rng) + spread_starts(False, options.spread // 2,
+                                                                               options.seed)
+    if spent:  # going on from a raced optimum: it runs first, then the other starts are screened again
+        fit = fit_model(prep, variant, False, cached, 1, max_iter, cancel, False)
+        return replace(fit, evaluations=fit.evaluations + spent)
+    return fit_model(prep, variant, False, starts, options.optimise + 1, max_iter, cancel, False,
+                     race=(max(1, options.race_iter // 3), options.race_margin))
+
+
+def _race_two_rate(prep: Prepared, variant: str, one: ModelFit, warm: dict, options: Options, cancel,
+                   rng: np.random.Generator) -> tuple[list[ModelFit], int]:
+    """Candidates of the two-rate model after ``race_iter`` steps each, best first, and the screening's cost.
+
+    Candidates: the cached optima, the one-rate solution with a small slow state (the nested
+    model's basin, at two slow-state rates), and the best ``screened`` of a central, random and
+    Sobol-spread set ranked by the likelihood alone (the global stage).
+    """
+    key = _key(variant, True)
+    cached = [np.asarray(t) for t in warm.get("modes", []) if warm.get("variant") == variant]
+    cached += [np.asarray(warm[key])] if key in warm and not cached else []
+    embeds = [to_theta(one.params | {"c": c, "slow_leak": 1e-6, "q_s": 1e-7}, TWO_RATE) for c in (1e-4, 1e-3)]
+    pool = default_starts(True, options.starts, rng) + spread_starts(True, options.spread, options.seed)
+    objective = Objective(prep, variant, True, cancel)
+    screened = sorted(pool, key=objective)[: options.screened]
+    raced = [fit_model(prep, variant, True, [s], 1, options.race_iter, cancel, False)
+             for s in cached + embeds + screened]
+    return sorted(raced, key=lambda f: -f.loglike), objective.evaluations
+
+
+def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], options: Options,
+                       cancel) -> tuple[list[ModelFit], int]:
+    """Raced candidates within ``race_margin`` of the best go on to convergence, best first (a run
+    that joins an optimum already found stops there); the best optimum is then also started from
+    short and long break forgetting (the likelihood can have an optimum at each end).  Returns the
+    optima, best first, and the evaluations of runs that found none."""
+    spent = 0
+    found: list[ModelFit] = []
+    for r in raced:
+        spent += r.evaluations
+        if raced[0].loglike - r.loglike >= options.race_margin:
             continue
-        known = tuple(f.theta for f in found)
-        again = fit_model(prep, variant, True, [raced.theta], 1, options.max_iter, cancel, False, known)
+        again = fit_model(prep, variant, True, [r.theta], 1, options.max_iter, cancel, False,
+                          tuple(f.theta for f in found))
         if again.reason == JOINED:
             spent += again.evaluations
         else:
             found.append(again)
-    best = max(found, key=lambda f: f.loglike)
-    key = _key(variant, False)
-    projected = to_theta({k: best.params[k] for k in ONE_RATE}, ONE_RATE)
-    starts = ([np.asarray(warm[key])] if key in warm else []) + [projected]
-    starts += default_starts(False, options.starts, rng)
-    # the comparison is only fair when the one-rate model is fitted as hard as the two-rate one
-    one = fit_model(prep, variant, False, starts, options.optimise + 1, options.max_iter, cancel, False,
-                    race=(max(1, options.race_iter // 3), options.race_margin))
-    fits[key] = one
-    report((len(options.variants) + 2) / steps, "one-rate model")
-    # the two-rate model nests the one-rate one: it also starts from the one-rate solution with a small
-    # slow state (its own basin is often the best); ending below the one-rate model means a poor
-    # optimum, and then that start runs to convergence at once
-    embed = to_theta(one.params | {"c": 1e-4, "slow_leak": 1e-5, "q_s": 1e-6}, TWO_RATE)
-    if best.loglike < one.loglike + 1.0:
-        found.append(fit_model(prep, variant, True, [embed], 1, options.max_iter, cancel, False))
-    else:
+    found.sort(key=lambda f: -f.loglike)
+    for tau in options.mode_tau_b:
+        alt = found[0].theta.copy()
+        alt[TWO_RATE.index("tau_b")] = to_theta({"tau_b": tau}, ("tau_b",))[0]
         known = tuple(f.theta for f in found)
-        raced = fit_model(prep, variant, True, [embed], 1, options.race_iter, cancel, False, known)
-        spent += raced.evaluations
-        if raced.reason != JOINED and best.loglike - raced.loglike < 5 * options.mode_margin:
-            again = fit_model(prep, variant, True, [raced.theta], 1, options.max_iter, cancel, False, known)
-            if again.reason == JOINED:
-                spent += again.evaluations
-            else:
-                found.append(again)
-    modes = _select_modes(prep, found, spent, options, cancel)
-    fits[_key(variant, True)] = modes[0]
-    return variant, modes, fits
+        short = fit_model(prep, variant, True, [alt], 1, options.race_iter, cancel, False, known)
+        spent += short.evaluations
+        if short.reason == JOINED or found[0].loglike - short.loglike >= 5 * options.mode_margin:
+            continue
+        again = fit_model(prep, variant, True, [short.theta], 1, options.max_iter, cancel, False, known)
+        if again.reason == JOINED:
+            spent += again.evaluations
+        else:
+            found.append(again)
+    return sorted(found, key=lambda f: -f.loglike), spent
 
 
 def _refit_warm(prep: Prepared, warm: dict, options: Options, cancel, report: Progress,
