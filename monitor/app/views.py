@@ -26,6 +26,7 @@ import numpy as np
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from monitor.app.engine import RigSnapshot
 from monitor.core.binomial import wilson
+from monitor.core.consolidation_words import fraction_text
 from monitor.core.consolidation_model import TrialSeries
 from monitor.core.plateau import judge
 from monitor.core.protocol import Protocol
@@ -266,14 +267,18 @@ def _consolidation_state(since: Mapping[str, int | None], latest: tuple[float | 
     low = high = None
     forecast = fit.get("forecast") or {}
     level = forecast.get("level", 0.8)
+    words = ""
     if forecast and fit["status"] == "estimated":
         low, high = forecast["sessions_low"], forecast["sessions_high"]
+        words = f"already above {level:.2f}" if forecast.get("reached") else forecast.get("summary", "")
+    last = rows[-1]
     return ConsolidationState(
         since["trials"], since["sessions"], error_ms, cv, drops,
         session=np.array([r["session"] for r in rows], float), fraction=np.array([r["estimate"] for r in rows], float),
         fraction_low=np.array([r["low"] for r in rows], float), fraction_high=np.array([r["high"] for r in rows], float),
         status=tuple(r["status"] for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,
-        forecast_level=level)
+        forecast_level=level, forecast_text=words,
+        estimate_text=fraction_text(last["estimate"], last["low"], last["high"], last["status"]))
 
 
 def page_state(animal: str, rig: str | None, protocol_name: str, today: TodayState | None,

@@ -1,21 +1,30 @@
 """Consolidation estimate of one animal: fit, compare, estimate, forecast, report.
 
-Rule: both fast-state driving signals ("error", "outcome") are fitted with the
-two-rate model for ``race_iter`` optimiser steps from the same starts; the
-variant ahead is fitted to convergence (the other's likelihood is reported as
-reached, a lower bound of its maximum), and so is the one-rate model of that
-variant (its two best screened starts run a third of ``race_iter`` steps; those
-more than ``race_margin`` log-likelihood behind go no further).  The two-rate model counts as constraining the split only
-when it beats the one-rate model of the same variant by AIC(one) - AIC(two) >=
-``aic_margin`` (10 by default: the one-rate model then has essentially no
-support); otherwise every session is "not constrained" with the interval [0, 1].
-The final fit also starts from short and long break retentions and from the
-one-rate solution with a small slow state (the nested model's basin); optima within
-``mode_margin`` (2) log-likelihood of the best are all kept and share the
-interval's draws.  A warm start (``warm_start`` of a previous result, e.g. cached in the store)
-refits from the cached optima only, and falls back to the full fit when another
-variant now fits better.  A session whose interval is wider than ``uninformative_width`` is "not
-constrained" too.  Status words: "estimated", "not constrained", "not
+Rule: the search profiles over the fast state's driving signal ("error",
+"outcome"): for each variant the one-rate model runs ``race_iter`` steps, then
+the two-rate model's candidates (the one-rate solution with a small slow state,
+the nested model's basin, and the best of a Sobol-spread set screened on the
+likelihood alone, the global stage) run ``race_iter`` steps each; every variant
+whose best candidate is within ``race_margin`` of the best goes on to
+convergence (one- and two-rate, and the two-rate best also from short and long
+break retentions), and the higher two-rate optimum wins (a variant dropped after
+its first steps is reported as reached, a lower bound).  The two-rate model
+counts as constraining the split only when it beats the one-rate model of the
+same variant by AIC(one) - AIC(two) >= ``aic_margin`` (10 by default: the
+one-rate model then has essentially no support), and a refit whose cached fit
+was "estimated" keeps that until the difference falls below ``aic_margin -
+hysteresis`` (the same data always give the same word; only new evidence
+moves it across the band); otherwise every session is "not constrained" with
+the interval [0, 1].  The interval's draws come from the best optimum's Laplace
+approximation (``mode_margin`` > 0 lets optima that close share them, which
+makes the interval depend on how many the search happened to find); they come
+from their own generator (seeded by ``seed``), so a cached refit and a fresh
+search that reach the same optimum give the same interval.  The figure stated
+is the median of the draws; ``estimate_supported`` says whether it may be read
+at all.  A warm start (``warm_start`` of a previous result, e.g. cached in the
+store) refits from the cached optima only, and falls back to the full fit when
+another variant now fits better.  A session whose interval is wider than
+``uninformative_width`` is "not constrained" too.  Status words: "estimated", "not constrained", "not
 converged", "too few trials", "cancelled".  Without a usable fit the figure is
 0 with the interval [0, 1]: a model quantity that can never open an eligibility
 window by itself.  The figure is a property of a fitted behavioural model, not
@@ -32,6 +41,7 @@ from monitor.core.consolidation_estimate import Forecast, forecast, slow_fractio
 from monitor.core.consolidation_fit import (JOINED, Cancelled, ModelFit, Objective, default_starts, fit_model,
                                             spread_starts, with_curvature)
 from monitor.core.consolidation_model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
+from monitor.core.consolidation_words import SUPPORTED_NOTE, UNSUPPORTED_NOTE, supported
 
 CAVEAT = ("Model-based slow-state fraction of a fitted behavioural model; not proof that the behaviour "
           "no longer depends on a brain area. Advisory only: read it with the transparent measures.")
@@ -51,10 +61,12 @@ class Options:
     spread: int = 32  # Sobol-spread candidates screened by the likelihood (the global stage)
     screened: int = 3  # of those (with the central and random starts), the best this many are raced
     mode_tau_b: tuple[float, ...] = (2.0, 500.0)
-    mode_margin: float = 2.0
+    alt_margin: float = 10.0  # a start from another break retention goes on when this close to the best
+    mode_margin: float = 0.0  # > 0: optima this close to the best share the draws (less stable: see docs)
     draws: int = 40
     state_draws: int = 25
     aic_margin: float = 10.0
+    hysteresis: float = 4.0  # a cached "estimated" stays so down to aic_margin - hysteresis
     uninformative_width: float = 0.8
     level: float = 0.8
     horizon: int = 200
@@ -129,17 +141,24 @@ def estimate_consolidation(
         variant, modes, fits = fitted or _fit_cold(prep, warm, options, cancel, report, steps, rng)
         two, one = modes[0], fits[_key(variant, False)]
         report((steps - 0.5) / steps, "interval")
-        fractions = slow_fractions(prep, modes, rng, options.draws, options.state_draws)
+        draws = np.random.default_rng([options.seed, 1])  # the interval's own draws: the same for the same optima
+        fractions = slow_fractions(prep, modes, draws, options.draws, options.state_draws)
         outlook = forecast(prep, two, fractions, options.level, options.horizon)
     except Cancelled:
         return _empty("cancelled", "cancelled", prep.labels, prep.n_trials, prep.dropped_trials)
     report(1.0, "done")
     delta_aic = one.aic - two.aic
+    kept = warm.get("status") == "estimated"  # hysteresis: a cached "estimated" leaves only below the band
+    threshold = options.aic_margin - (options.hysteresis if kept else 0.0)
     if not two.converged:
         status, reason = "not converged", two.reason or "optimiser did not converge"
-    elif delta_aic < options.aic_margin:
+    elif delta_aic < threshold:
         status, reason = "not constrained", (f"two-rate model does not beat one-rate clearly "
-                                             f"(AIC difference {delta_aic:.1f} < {options.aic_margin:g})")
+                                             f"(AIC difference {delta_aic:.1f} < {threshold:g})")
+    elif delta_aic < options.aic_margin:
+        status, reason = "estimated", (f"two-rate model still preferred (AIC difference {delta_aic:.1f}: below "
+                                       f"{options.aic_margin:g}, above the {threshold:g} at which an earlier "
+                                       "\"estimated\" is withdrawn)")
     else:
         status, reason = "estimated", f"two-rate model preferred (AIC difference {delta_aic:.1f})"
     rows = []
@@ -151,7 +170,7 @@ def estimate_consolidation(
             word = "not constrained"
         rows.append(SessionEstimate(int(label), float(est), float(low), float(high), word))
     warm_out: dict = {key: fit.theta.tolist() for key, fit in fits.items()}
-    warm_out |= {"variant": variant, "modes": [m.theta.tolist() for m in modes]}
+    warm_out |= {"variant": variant, "modes": [m.theta.tolist() for m in modes], "status": status}
     return ConsolidationResult(
         status, reason, rows, prep.n_trials, prep.dropped_trials, two, one,
         {v: fits[_key(v, True)].loglike for v in options.variants}, float(delta_aic), outlook, warm_out,
@@ -258,7 +277,7 @@ def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], opti
         known = tuple(f.theta for f in found)
         short = fit_model(prep, variant, True, [alt], 1, options.race_iter, cancel, False, known)
         spent += short.evaluations
-        if short.reason == JOINED or found[0].loglike - short.loglike >= 5 * options.mode_margin:
+        if short.reason == JOINED or found[0].loglike - short.loglike >= options.alt_margin:
             continue
         again = fit_model(prep, variant, True, [short.theta], 1, options.max_iter, cancel, False, known)
         if again.reason == JOINED:
@@ -317,10 +336,13 @@ def consolidation_block(result: ConsolidationResult, aic_margin: float = 10.0) -
         "low": last.low,
         "high": last.high,
         "status": last.status,
+        "estimate_supported": supported(last.status),
+        "estimate_note": SUPPORTED_NOTE if supported(last.status) else UNSUPPORTED_NOTE,
         "reason": result.reason,
         "caveat": CAVEAT,
         "trajectory": [
-            {"session": s.session, "estimate": s.estimate, "low": s.low, "high": s.high, "status": s.status}
+            {"session": s.session, "estimate": s.estimate, "low": s.low, "high": s.high, "status": s.status,
+             "estimate_supported": supported(s.status)}
             for s in result.sessions
         ],
         "trials": result.n_trials,
@@ -343,7 +365,7 @@ def consolidation_block(result: ConsolidationResult, aic_margin: float = 10.0) -
     if result.forecast is not None:
         f = result.forecast
         block["forecast"] = {
-            "level": f.level, "reached": f.reached, "sessions_low": f.sessions_low,
+            "level": f.level, "reached": f.reached, "summary": f.summary, "sessions_low": f.sessions_low,
             "sessions_median": f.sessions_median, "sessions_high": f.sessions_high, "horizon": f.horizon,
             "trials_per_session": f.trials_per_session, "break_hours": f.break_hours,
         }

@@ -239,5 +239,11 @@ def laplace_covariance(hess: np.ndarray) -> tuple[np.ndarray, str]:
 def draw_thetas(fit: ModelFit, count: int, rng: np.random.Generator) -> np.ndarray:
     """Parameter draws from the Laplace approximation, kept inside the transformed box."""
     cov = fit.cov_theta if fit.cov_theta is not None else np.eye(len(fit.theta)) / CURVATURE_FLOOR
-    draws = rng.multivariate_normal(fit.theta, cov, size=count, method="eigh")
+    cov = 0.5 * (cov + cov.T)
+    try:  # the Cholesky factor is unique and continuous in cov: nearly equal fits give nearly equal draws
+        root = np.linalg.cholesky(cov)
+    except np.linalg.LinAlgError:
+        vals, vecs = np.linalg.eigh(cov)
+        root = vecs * np.sqrt(np.maximum(vals, 0.0))
+    draws = fit.theta + rng.standard_normal((count, len(fit.theta))) @ root.T
     return np.clip(draws, -THETA_BOUND, THETA_BOUND)

@@ -145,14 +145,15 @@ def run(args: argparse.Namespace) -> int:
 
 def _refit(db: Path, animals: list[str]) -> None:
     """Refit each imported animal in a separate process; one stderr line per animal."""
+    from monitor.core.consolidation_words import fraction_text
     from monitor.store.consolidation_fits import refit_in_process
 
     def finished(animal: str, block: dict | None, error: str | None) -> None:
         if block is None:
             print(f"fit {animal}: failed ({error or 'no result'}); the report says \"not fitted\"", file=sys.stderr)
             return
-        print(f"fit {animal}: slow-state fraction {block['estimate']:.2f} ({block['low']:.2f}-{block['high']:.2f}, "
-              f"{block['status']}) at session {block['session']}", file=sys.stderr)
+        figure = fraction_text(block["estimate"], block["low"], block["high"], block["status"])
+        print(f"fit {animal}: slow-state fraction {figure} at session {block['session']}", file=sys.stderr)
 
     print(f"fitting the consolidation model of {_n(len(animals), 'animal')} in a separate process", file=sys.stderr)
     refit_in_process(db, animals, finished=finished)

@@ -39,6 +39,7 @@ def known_animal(conn, name: str) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from monitor.core.consolidation_words import fraction_text
     from monitor.store.reporting import report
 
     conn = open_readonly(args.db)
@@ -56,7 +57,7 @@ def run(args: argparse.Namespace) -> int:
         c = entry["consolidation"]
         print(f"{entry['animal']}: {entry['protocol']}, {len(entry['sessions'])} sessions; plateau "
               + (f"at session {plateau['session']}" if plateau["reached"] else "not reached")
-              + f"; slow-state fraction {c['estimate']:.2f} ({c['low']:.2f}-{c['high']:.2f}, {c['status']})")
+              + f"; slow-state fraction {fraction_text(c['estimate'], c['low'], c['high'], c['status'])}")
         for s in entry["sessions"]:
             rate = "-" if s["hit_rate"] is None else f"{s['hit_rate']:.2f}"
             flag = f"  EXCLUDED: {s['exclusion_reason']}" if s["excluded"] else ""
