@@ -310,7 +310,7 @@ class ConsolidationPanel(QWidget):
         left.addStretch(1)
         right = QVBoxLayout()
         right.addWidget(_big(plain_label("Model: slow-state fraction", wrap=False), 12))
-        right.addWidget(plain_label("band: 90 % interval · ● estimated · ▲ not constrained"))
+        right.addWidget(plain_label("band: 90 % interval · ● estimated (no point where the data do not support one)"))
         right.addWidget(self.plot, 1)
         right.addWidget(self.estimate)
         right.addWidget(self.live)
