@@ -155,3 +155,20 @@ def test_start_of_session_drop_and_its_interval():
     assert drop.drop == pytest.approx(sum(before) / 20 - 9 / 20)
     low, high = confint_proportions_2indep(sum(before), 20, 9, 20, method="newcomb", compare="diff")  # statsmodels
     assert (drop.low, drop.high) == (pytest.approx(low), pytest.approx(high))
+
+
+def test_consolidation_panel_states_a_point_only_when_estimated_and_no_passed_level():
+    rows = [{"session": 1, "estimate": 0.5, "low": 0.3, "high": 0.7, "status": "estimated"},
+            {"session": 2, "estimate": 0.85, "low": 0.0, "high": 1.0, "status": "not constrained"}]
+    fit = {"status": "not constrained", "reason": "AIC", "trajectory": rows,
+           "forecast": {"level": 0.8, "reached": False, "summary": "0.80 in 2–5 more sessions (model range)",
+                        "sessions_low": 2, "sessions_high": 5}}
+    since = {"trials": 10, "sessions": 2}
+    state = views._consolidation_state(since, (None, None), (), fit)
+    assert "0.85" not in state.estimate_text and "no point value" in state.estimate_text
+    assert state.forecast_text == "" and state.forecast_low is None  # no forecast from an unsupported fit
+    done = views._consolidation_state(since, (None, None), (), fit | {
+        "status": "estimated", "trajectory": [rows[0], rows[1] | {"status": "estimated", "low": 0.8, "high": 0.9}],
+        "forecast": fit["forecast"] | {"reached": True, "sessions_low": None, "sessions_high": None}})
+    assert done.estimate_text == "0.85 (90 % interval 0.80–0.90), estimated"
+    assert done.forecast_text == "already above 0.80"
