@@ -289,16 +289,21 @@ def first_fit_against(revision: str, repeats: int, trials: int, seed: int) -> No
             np.savez(path, session=series.session, y=series.y, rewarded=series.rewarded,
                      break_hours=series.break_hours, excluded=series.excluded)
             paths.append(str(path))
-        results = {}
-        for name, tree in (("this tree", root), (f"revision {revision}", old)):
-            env = dict(os.environ, PYTHONPATH=str(tree), OPENBLAS_NUM_THREADS="1")
-            out = subprocess.run([sys.executable, "-c", FIRST_FIT, str(repeats), *paths], cwd=str(tree), env=env,
-                                 check=True, capture_output=True, text=True).stdout.strip().split("|")
-            results[name] = float(out[0])
-            print(f"first fit, {name} ({out[1]}): median {float(out[0]):.2f} s over {repeats} x 2 animals "
-                  f"({trials} trials; 75 x 400 and 250-550 a session); loglike, evaluations, status: "
-                  + "; ".join(out[2:]))
-    mine, theirs = results["this tree"], results[f"revision {revision}"]
+        trees = (("this tree", root), (f"revision {revision}", old))
+        times: dict[str, list[float]] = {name: [] for name, _ in trees}
+        found: dict[str, str] = {}
+        for _ in range(repeats):  # interleaved, so that both trees see the same load
+            for name, tree in trees:
+                env = dict(os.environ, PYTHONPATH=str(tree), OPENBLAS_NUM_THREADS="1")
+                out = subprocess.run([sys.executable, "-c", FIRST_FIT, "1", *paths], cwd=str(tree), env=env,
+                                     check=True, capture_output=True, text=True).stdout.strip().split("|")
+                times[name].append(float(out[0]))
+                found[name] = f"({out[1]}) loglike, evaluations, status: " + "; ".join(out[2:])
+        for name, _ in trees:
+            print(f"first fit, {name}: median {np.median(times[name]):.2f} s over {repeats} runs x 2 animals "
+                  f"({trials} trials; 75 x 400 and 250-550 a session); runs " + ", ".join(f"{t:.2f}" for t in times[name]))
+            print(f"  {found[name]}")
+    mine, theirs = np.median(times["this tree"]), np.median(times[f"revision {revision}"])
     print(f"ratio this tree / revision {revision}: {mine / theirs:.2f} (goal: first fit <= 1.0 s median)")
 
 

@@ -4,11 +4,10 @@ Rule: the search profiles over the fast state's driving signal ("error",
 "outcome"): for each variant the one-rate model runs ``race_iter`` steps, then
 the two-rate model's candidates (the one-rate solution with a small slow state,
 the nested model's basin, and the best of a Sobol-spread set screened on the
-likelihood alone, the global stage) run ``race_iter`` steps each; every variant
-whose best candidate is within ``race_margin`` of the best goes on to
-convergence (one- and two-rate, and the two-rate best also from short and long
-break retentions), and the higher two-rate optimum wins (a variant dropped after
-its first steps is reported as reached, a lower bound).  The two-rate model
+likelihood alone, the global stage) run ``race_iter`` steps each; then every
+variant goes on to convergence (one-rate, and the two-rate candidates within
+``race_margin`` of that variant's best, the best optimum also from short and
+long break retentions), and the higher two-rate optimum wins.  The two-rate model
 counts as constraining the split only when it beats the one-rate model of the
 same variant by AIC(one) - AIC(two) >= ``aic_margin`` (10 by default: the
 one-rate model then has essentially no support), and a refit whose cached fit
@@ -186,8 +185,8 @@ def _usable(warm: dict, options: Options) -> bool:
 
 def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Progress, steps: int,
               rng: np.random.Generator) -> tuple[str, list[ModelFit], dict[str, ModelFit]]:
-    """Profile over the variant: race every variant's candidates, then take each variant whose best
-    raced two-rate model is within ``race_margin`` of the best to convergence; the higher optimum wins."""
+    """Profile over the variant: race every variant's candidates, then take every variant to convergence
+    (a variant far behind after its first steps can still hold the best optimum); the higher optimum wins."""
     fits: dict[str, ModelFit] = {}
     raced: dict[str, tuple[ModelFit, list[ModelFit]]] = {}
     spent = 0
@@ -197,13 +196,9 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
         raced[variant], spent = (one, candidates), spent + used
         fits[_key(variant, False)], fits[_key(variant, True)] = one, candidates[0]
         report((v_i + 1) / steps, f"{variant} variant: first {options.race_iter} steps")
-    top = max(fits[_key(v, True)].loglike for v in options.variants)
     found_by: dict[str, list[ModelFit]] = {}
     for variant in options.variants:
         one, candidates = raced[variant]
-        if top - candidates[0].loglike >= options.race_margin:
-            spent += sum(c.evaluations for c in candidates) + one.evaluations
-            continue  # far behind after its first steps: reported as reached (a lower bound)
         fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options,
                                                    cancel, rng, options.max_iter, spent=one.evaluations)
         found, used = _converge_two_rate(prep, variant, candidates, options, cancel)
