@@ -185,8 +185,10 @@ def _usable(warm: dict, options: Options) -> bool:
 
 def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Progress, steps: int,
               rng: np.random.Generator) -> tuple[str, list[ModelFit], dict[str, ModelFit]]:
-    """Profile over the variant: race every variant's candidates, then take every variant to convergence
-    (a variant far behind after its first steps can still hold the best optimum); the higher optimum wins."""
+    """Profile over the variant: race every variant's candidates, then take every variant's best candidate to
+    convergence (a variant far behind after its first steps can still hold the best optimum), the leader's
+    first; a variant whose converged best is still ``race_margin`` behind goes no further.  The higher
+    optimum wins."""
     fits: dict[str, ModelFit] = {}
     raced: dict[str, tuple[ModelFit, list[ModelFit]]] = {}
     spent = 0
@@ -197,12 +199,14 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
         fits[_key(variant, False)], fits[_key(variant, True)] = one, candidates[0]
         report((v_i + 1) / steps, f"{variant} variant: first {options.race_iter} steps")
     found_by: dict[str, list[ModelFit]] = {}
-    for variant in options.variants:
+    for variant in sorted(options.variants, key=lambda v: -raced[v][1][0].loglike):
         one, candidates = raced[variant]
-        fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options,
-                                                   cancel, rng, options.max_iter, spent=one.evaluations)
-        found, used = _converge_two_rate(prep, variant, candidates, options, cancel)
+        top = max((f[0].loglike for f in found_by.values()), default=None)
+        found, used = _converge_two_rate(prep, variant, candidates, options, cancel, top)
         found_by[variant], spent = found, spent + used
+        if top is None or found[0].loglike > top - options.race_margin:
+            fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options,
+                                                       cancel, rng, options.max_iter, spent=one.evaluations)
         fits[_key(variant, True)] = found[0]
         report((len(options.variants) + 1) / steps, f"{variant} variant to convergence")
     variant = max(found_by, key=lambda v: found_by[v][0].loglike)
@@ -248,15 +252,18 @@ def _race_two_rate(prep: Prepared, variant: str, one: ModelFit, warm: dict, opti
 
 
 def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], options: Options,
-                       cancel) -> tuple[list[ModelFit], int]:
+                       cancel, top: float | None = None) -> tuple[list[ModelFit], int]:
     """Raced candidates within ``race_margin`` of the best go on to convergence, best first (a run
     that joins an optimum already found stops there); the best optimum is then also started from
-    short and long break forgetting (the likelihood can have an optimum at each end).  Returns the
-    optima, best first, and the evaluations of runs that found none."""
+    short and long break forgetting (the likelihood can have an optimum at each end).  With ``top``
+    (another variant's optimum), nothing goes on after the best candidate when its optimum is still
+    ``race_margin`` below it.  Returns the optima, best first, and the evaluations of runs that found none."""
     spent = 0
     found: list[ModelFit] = []
     for r in raced:
         spent += r.evaluations
+        if found and top is not None and found[0].loglike <= top - options.race_margin:
+            continue
         if raced[0].loglike - r.loglike >= options.race_margin:
             continue
         again = fit_model(prep, variant, True, [r.theta], 1, options.max_iter, cancel, False,
@@ -266,7 +273,7 @@ def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], opti
         else:
             found.append(again)
     found.sort(key=lambda f: -f.loglike)
-    for tau in options.mode_tau_b:
+    for tau in options.mode_tau_b if top is None or found[0].loglike > top - options.race_margin else ():
         alt = found[0].theta.copy()
         alt[TWO_RATE.index("tau_b")] = to_theta({"tau_b": tau}, ("tau_b",))[0]
         known = tuple(f.theta for f in found)
