@@ -66,12 +66,13 @@ def main() -> None:
         db, names = make_store(folder, args.animals, args.days, args.seed)
         cores = worker_count(len(names))
         serial, each = timed_run(db, names, 1, folder, "serial")
-        parallel, _ = timed_run(db, names, cores, folder, "parallel")
+        parallel, ends = timed_run(db, names, cores, folder, "parallel")
     print(f"{len(names)} animals x {args.days} days (mock_rig history, seed {args.seed}); "
           f"{os.cpu_count()} cores, load {os.getloadavg()[0]:.1f}")
     print("serial, one child process, per animal (s): " + ", ".join(f"{each[n]:.2f}" for n in names))
     print(f"serial (the sum of the single fits): {serial:.2f} s")
-    print(f"parallel, {cores} child processes, one BLAS thread each: {parallel:.2f} s")
+    print(f"parallel, {cores} child processes, one BLAS thread each: {parallel:.2f} s; animals done at (s): "
+          + ", ".join(f"{ends[n]:.2f}" for n in sorted(names, key=ends.get)))
     print(f"ratio parallel / serial: {parallel / serial:.2f} (goal <= 0.6 on 2 cores)")
 
 
