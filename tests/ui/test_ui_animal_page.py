@@ -149,7 +149,7 @@ def test_a_point_only_where_the_data_support_one_and_no_passed_level(page):
     loose = replace(c, status=status, estimate_text="not constrained: no point value (90 % interval 0.00–1.00)",
                     forecast_text="already above 0.80")
     page.book.update(replace(state, consolidation=loose))
-    x, y = page.consolidation.fraction.getData()
+    y = page.consolidation.fraction.getData()[1]
     assert np.all(np.isnan(y[-2:])) and np.all(np.isfinite(y[2:-2]))  # the line has no point there
     marked = page.consolidation.marks.getData()[0]
     assert len(marked) == sum(s == "estimated" for s in status) and 24 not in marked
