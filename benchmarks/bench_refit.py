@@ -11,7 +11,11 @@ error-driven model alone, the cost of one new trial through the live filter, and
 the same model fitted by statsmodels' MLEModel (time-varying transition at
 session breaks, state_intercept = B u) with a capped number of iterations
 (``--maxiter``), and the ratio.  ``figures(quick)`` returns the same figures for
-``python -m benchmarks``.  Run: python benchmarks/bench_refit.py
+``python -m benchmarks``.  ``--baseline REV`` instead times only the first fit
+(median of ``--repeats``, both animals) of this tree and of the tree at git
+revision REV (extracted with ``git archive`` into a temporary folder), each in
+its own fresh process on the same data, and prints the ratio.
+Run: python benchmarks/bench_refit.py [--baseline REV]
 
 The goal is one core: BLAS is held to one thread (``OPENBLAS_NUM_THREADS=1``
 unless already set, before numpy loads).  scipy's L-BFGS-B wakes an OpenBLAS
@@ -244,13 +248,77 @@ def figures(quick: bool = False) -> list[tuple[str, float, str, str]]:
     ]
 
 
+FIRST_FIT = """
+import statistics, sys, time
+import numpy as np
+import monitor
+from monitor.core.consolidation.analysis import estimate_consolidation
+from monitor.core.consolidation.model import TrialSeries
+times, lines = [], []
+for path in sys.argv[2:]:
+    d = np.load(path)
+    series = TrialSeries(d["session"], d["y"], d["rewarded"], d["break_hours"], d["excluded"])
+    estimate_consolidation(series)  # imports and first calls are paid once
+    for _ in range(int(sys.argv[1])):
+        t0 = time.perf_counter()
+        res = estimate_consolidation(series)
+        times.append(time.perf_counter() - t0)
+    lines.append(f"{res.two_rate.loglike:.3f} {res.evaluations} {res.sessions[-1].status}")
+print(statistics.median(times), monitor.__file__, *lines, sep="|")
+"""
+
+
+def first_fit_against(revision: str, repeats: int, trials: int, seed: int) -> None:
+    """Median first-fit time of this tree and of ``revision``'s, each in a fresh process, and the ratio."""
+    import subprocess
+    import sys
+    import tempfile
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent
+    with tempfile.TemporaryDirectory() as tmp:
+        old = Path(tmp) / "old"
+        old.mkdir()
+        archive = subprocess.run(["git", "-C", str(root), "archive", revision, "monitor", "drivers"],
+                                 check=True, capture_output=True).stdout
+        subprocess.run(["tar", "-x", "-C", str(old)], input=archive, check=True)
+        paths = []
+        for varied in (False, True):
+            series = animal(trials, seed, varied).series
+            path = Path(tmp) / f"animal_{int(varied)}.npz"
+            np.savez(path, session=series.session, y=series.y, rewarded=series.rewarded,
+                     break_hours=series.break_hours, excluded=series.excluded)
+            paths.append(str(path))
+        trees = (("this tree", root), (f"revision {revision}", old))
+        times: dict[str, list[float]] = {name: [] for name, _ in trees}
+        found: dict[str, str] = {}
+        for _ in range(repeats):  # interleaved, so that both trees see the same load
+            for name, tree in trees:
+                env = dict(os.environ, PYTHONPATH=str(tree), OPENBLAS_NUM_THREADS="1")
+                out = subprocess.run([sys.executable, "-c", FIRST_FIT, "1", *paths], cwd=str(tree), env=env,
+                                     check=True, capture_output=True, text=True).stdout.strip().split("|")
+                times[name].append(float(out[0]))
+                found[name] = f"({out[1]}) loglike, evaluations, status: " + "; ".join(out[2:])
+        for name, _ in trees:
+            print(f"first fit, {name}: median {np.median(times[name]):.2f} s over {repeats} runs x 2 animals "
+                  f"({trials} trials; 75 x 400 and 250-550 a session); runs " + ", ".join(f"{t:.2f}" for t in times[name]))
+            print(f"  {found[name]}")
+    mine, theirs = np.median(times["this tree"]), np.median(times[f"revision {revision}"])
+    print(f"ratio this tree / revision {revision}: {mine / theirs:.2f} (goal: first fit <= 1.0 s median)")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--trials", type=int, default=30000)
     parser.add_argument("--maxiter", type=int, default=50, help="iteration cap of the statsmodels fit")
     parser.add_argument("--seed", type=int, default=3)
     parser.add_argument("--chain", type=int, default=10, help="session-end refits timed (the last sessions)")
+    parser.add_argument("--baseline", metavar="REV", help="time only the first fit, here and at git revision REV")
+    parser.add_argument("--repeats", type=int, default=3, help="first fits per animal with --baseline")
     args = parser.parse_args()
+    if args.baseline:
+        first_fit_against(args.baseline, args.repeats, args.trials, args.seed)
+        return
     m = measure(args.trials, args.maxiter, args.seed, args.chain)
     print(f"refit at session end ({m.trials} trials): median {m.session_end_median:.2f} s, max "
           f"{m.session_end_max:.2f} s over the last {len(m.session_end_s)} sessions "

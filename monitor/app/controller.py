@@ -272,9 +272,10 @@ class Controller(QObject):
         self._status_shown = None
         self._inbox: queue.SimpleQueue[Callable[[], None]] = queue.SimpleQueue()
         self._jobs: list[Job] = []
-        self._heavy = threading.Condition()   # one history load or fit at a time: the GUI keeps its share of the GIL
+        self._heavy = threading.Condition()   # one history load at a time: the GUI keeps its share of the GIL
         self._heavy_busy = False
         self._heavy_waiting: list[str] = []
+        self._fit_slots: threading.BoundedSemaphore | None = None   # fits in child processes: one per core
         self.progress_bar: QProgressBar | None = None
         self.progress_label: QLabel | None = None
         self.cancel_button: QPushButton | None = None
@@ -659,7 +660,7 @@ class Controller(QObject):
                 return parts, cached
             from monitor.store.consolidation_fits import refit_in_process
 
-            with self._heavy_turn(job, animal):
+            with self._fit_turn(job):
                 block = refit_in_process(
                     self.writer.path, [animal], cancel=job.cancelled,
                     progress=lambda _a, f, m: job.progress(f, f"consolidation model: {m}"))[animal]
@@ -719,6 +720,23 @@ class Controller(QObject):
             with self._heavy:
                 self._heavy_busy = False
                 self._heavy.notify_all()
+
+    @contextlib.contextmanager
+    def _fit_turn(self, job: Job):
+        """Wait (cancellably) for one of the fit slots: as many as the PC has cores, since each fit runs in its
+        own child process and this thread only waits for it (the heavy slot stays free for history loads)."""
+        from monitor.store.consolidation_fits import worker_count
+
+        with self._heavy:   # created once, by whichever job comes first
+            if self._fit_slots is None:
+                self._fit_slots = threading.BoundedSemaphore(worker_count(1 << 16))
+        while not self._fit_slots.acquire(timeout=0.2):
+            if job.cancelled():
+                raise Cancelled()
+        try:
+            yield
+        finally:
+            self._fit_slots.release()
 
     def _protocol_of(self, animal: str) -> LoadedProtocol | None:
         if animal in self.protocols:

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from monitor.core.consolidation.words import fraction_text
 from monitor.core.consolidation.live import LiveFilter, LiveFraction, restore_filter
 from monitor.core.session.live_stats import LiveSnapshot
 
@@ -83,6 +84,6 @@ def session_start_wall(started_monotonic: float | None) -> float:
 def live_text(fraction: LiveFraction, missed: int, fitted_session: object) -> str:
     """One sentence for the consolidation panel."""
     extra = f"; {missed} trials came too fast to follow" if missed else ""
-    return (f"This session so far: {fraction.estimate:.2f} (90 % interval {fraction.low:.2f}–{fraction.high:.2f}), "
-            f"{fraction.status} — the fit of session {fitted_session} followed through "
+    figure = fraction_text(fraction.estimate, fraction.low, fraction.high, fraction.status)
+    return (f"This session so far: {figure} — the fit of session {fitted_session} followed through "
             f"{fraction.trials_since_fit} new trials, not refitted{extra}.")

@@ -32,6 +32,7 @@ from monitor.core.eligibility.from_report import figures_from_report
 from monitor.core.session.binomial import wilson
 from monitor.core.session.plateau import judge
 from monitor.core.session.start_drop import start_drops
+from monitor.core.consolidation.words import fraction_text
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import BINARY_MEASURES, SessionInput, learning_curve, summarize
 from monitor.core.session.trials import Trial
@@ -257,14 +258,18 @@ def _consolidation_state(figures: AnimalFigures, drops: tuple[StartDrop, ...],
     low = high = None
     forecast = fit.get("forecast") or {}
     level = forecast.get("level", 0.8)
+    words = ""
     if forecast and fit["status"] == "estimated":
         low, high = forecast["sessions_low"], forecast["sessions_high"]
+        words = f"already above {level:.2f}" if forecast.get("reached") else forecast.get("summary", "")
+    last = rows[-1]
     return ConsolidationState(
         since["trials"], since["sessions"], error, cv, drops,
         session=np.array([r["session"] for r in rows], float), fraction=np.array([r["estimate"] for r in rows], float),
         fraction_low=np.array([r["low"] for r in rows], float), fraction_high=np.array([r["high"] for r in rows], float),
         status=tuple(r["status"] for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,
-        forecast_level=level)
+        forecast_level=level, forecast_text=words,
+        estimate_text=fraction_text(last["estimate"], last["low"], last["high"], last["status"]))
 
 
 def page_state(animal: str, rig: str | None, protocol_name: str, today: TodayState | None,

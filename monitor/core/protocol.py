@@ -6,7 +6,9 @@ task and the defaults every stage inherits; `[[stages]]` lists the shaping
 stages in training order (the last one is the final stage, where plateau is
 judged); without `[[stages]]` there is one stage named "main" built from
 `[protocol]`. A window is `tolerance` (a fraction of the target, both sides)
-or `window_ms = [low, high]`; edges count as inside. `[eligibility]` is kept as
+or `window_ms = [low, high]`; edges count as inside, and are computed as exact
+rationals of the numbers as written (`exact`, `tolerance_edges`), so that
+650 ms x (1 + 0.15) is 747.5 ms, not the binary 747.4999...; `[eligibility]` is kept as
 a raw dict for the eligibility rule to interpret. Every key, default and unit
 is documented in docs/protocol.md.
 """
@@ -16,6 +18,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass, field
+from fractions import Fraction
 from typing import Any
 
 from drivers.config import ConfigError, TomlFile
@@ -132,6 +135,17 @@ class Protocol:
         return None
 
 
+def exact(value: float | str) -> Fraction:
+    """The number as written: a float's shortest round-tripping decimal (0.15 -> 3/20), as an exact rational."""
+    return Fraction(value if isinstance(value, str) else repr(float(value)))
+
+
+def tolerance_edges(target_ms: float, tolerance: float) -> tuple[Fraction, Fraction]:
+    """The exact window target x (1 -/+ tolerance) in ms, the low edge no lower than 0."""
+    target, tol = exact(target_ms), exact(tolerance)
+    return max(Fraction(0), target * (1 - tol)), target * (1 + tol)
+
+
 def _positive(value: float) -> str | None:
     if not math.isfinite(value):
         return "must be a finite number"
@@ -227,7 +241,7 @@ def _read_stage(src: _StageSource, name: str, base: Stage | None, inherit_timeou
         tolerance = None
     elif has_tol or base is None or base.tolerance is not None:
         tolerance = float(src.get("tolerance", number, base.tolerance if base and not has_tol else ..., _not_negative))
-        low, high = target * (1 - tolerance), target * (1 + tolerance)
+        low, high = (float(edge) for edge in tolerance_edges(target, tolerance))
     else:
         low, high, tolerance = base.window_low_ms, base.window_high_ms, None
     adaptive = base.adaptive if base else None

@@ -15,9 +15,11 @@ follow new trials without a refit), the report's consolidation block and its
 trajectory with the data fingerprint taken before reading, so a fit of data
 that changed meanwhile is stored as not current. A series with no
 final-stage trial is saved as "too few trials" (estimate 0, interval
-[0, 1]). `refit_in_process` runs the refits in one spawned child process (the
-caller's interpreter stays free) with one BLAS thread, relays progress and
-passes cancel on.
+[0, 1]). `refit_in_process` runs the refits in spawned child processes (the
+caller's interpreter stays free), as many as the PC has cores and no more than
+the animals, each with one BLAS thread and taking the next animal from a shared
+queue; it relays progress and passes cancel on (each save is its own
+`BEGIN IMMEDIATE` transaction, so the children take turns at the store).
 """
 
 from __future__ import annotations
@@ -162,10 +164,23 @@ def _environment(values: dict[str, str]):
                 os.environ[key] = value
 
 
-def _child(db_path: str, animals: list[str], out: Any, cancel: Any) -> None:
-    """The child process: refit each animal, reporting ("progress"|"done"|"failed", animal, ...) on `out`."""
-    for animal in animals:
-        if cancel.is_set():
+def worker_count(animals: int, workers: int | None = None) -> int:
+    """Processes for `animals` fits: `workers`, else this PC's cores (the ones this process may use); at most one
+    per animal, at least one."""
+    if workers is None:
+        try:
+            workers = len(os.sched_getaffinity(0))
+        except AttributeError:  # not on Linux
+            workers = os.cpu_count() or 1
+    return max(1, min(workers, animals))
+
+
+def _child(db_path: str, tasks: Any, out: Any, cancel: Any) -> None:
+    """A child process: refit the animals it takes from `tasks` (None: no more), reporting
+    ("progress"|"done"|"failed", animal, ...) on `out`."""
+    while True:
+        animal = tasks.get()
+        if animal is None or cancel.is_set():
             return
         try:
             block = refit_animal(db_path, animal, lambda f, m, a=animal: out.put(("progress", a, f, m)),
@@ -178,20 +193,25 @@ def _child(db_path: str, animals: list[str], out: Any, cancel: Any) -> None:
 def refit_in_process(db_path: str | Path, animals: Iterable[str],
                      progress: Callable[[str, float, str], None] | None = None,
                      cancel: Callable[[], bool] | None = None,
-                     finished: Callable[[str, dict[str, Any] | None, str | None], None] | None = None
-                     ) -> dict[str, dict[str, Any] | None]:
-    """Refit `animals` one after the other in a spawned process; {animal: block, or None when it failed or was
-    cancelled}. `progress(animal, fraction, message)` and `finished(animal, block, error)` run in the caller."""
+                     finished: Callable[[str, dict[str, Any] | None, str | None], None] | None = None,
+                     workers: int | None = None) -> dict[str, dict[str, Any] | None]:
+    """Refit `animals` in spawned processes (`worker_count`: one per core by default); {animal: block, or None
+    when it failed or was cancelled}. `progress(animal, fraction, message)` and `finished(animal, block, error)`
+    run in the caller."""
     names = list(animals)
     results: dict[str, dict[str, Any] | None] = {}
     if not names:
         return results
     context = multiprocessing.get_context("spawn")
-    out, stop = context.Queue(), context.Event()
-    child = context.Process(target=_child, args=(str(db_path), names, out, stop), daemon=True,
-                            name="consolidation fit")
-    with _environment(ONE_CORE):   # the spawned interpreter reads it before numpy loads
-        child.start()
+    out, stop, tasks = context.Queue(), context.Event(), context.Queue()
+    count = worker_count(len(names), workers)
+    for animal in names + [None] * count:
+        tasks.put(animal)
+    children = [context.Process(target=_child, args=(str(db_path), tasks, out, stop), daemon=True,
+                                name=f"consolidation fit {i + 1}") for i in range(count)]
+    with _environment(ONE_CORE):   # the spawned interpreters read it before numpy loads
+        for child in children:
+            child.start()
     try:
         while len(results) < len(names):
             if cancel is not None and cancel():
@@ -199,7 +219,7 @@ def refit_in_process(db_path: str | Path, animals: Iterable[str],
             try:
                 message = out.get(timeout=0.1)
             except queue_module.Empty:
-                if not child.is_alive() and out.empty():
+                if not any(child.is_alive() for child in children) and out.empty():
                     break
                 continue
             kind, animal = message[0], message[1]
@@ -214,10 +234,11 @@ def refit_in_process(db_path: str | Path, animals: Iterable[str],
     finally:
         if stop.is_set() or len(results) < len(names):
             stop.set()
-        child.join(timeout=5)
-        if child.is_alive():
-            child.terminate()
-            child.join()
+        for child in children:
+            child.join(timeout=5)
+            if child.is_alive():
+                child.terminate()
+                child.join()
     for animal in names:
         results.setdefault(animal, None)
     return results

@@ -387,7 +387,7 @@ class ConsolidationPanel(QWidget):
         left.addStretch(1)
         right = QVBoxLayout()
         right.addWidget(_big(plain_label("Model: slow-state fraction", wrap=False), 12))
-        right.addWidget(plain_label("band: 90 % interval · ● estimated · ▲ not constrained"))
+        right.addWidget(plain_label("band: 90 % interval · ● estimated (no point where the data do not support one)"))
         right.addWidget(self.plot, 1)
         right.addWidget(self.estimate)
         right.addWidget(self.live)
@@ -419,14 +419,17 @@ class ConsolidationPanel(QWidget):
         y = np.asarray(state.fraction, dtype=float)
         if len(x):
             self.ranges.set_x(float(x.min()) - 0.5, float(x.max()) + 0.5)
-        self.fraction.setData(x, y)
+        estimated = np.array([s == "estimated" for s in state.status], bool)
+        shown = np.where(estimated, y, np.nan) if len(estimated) == len(y) else y  # a point only when estimated
+        self.fraction.setData(x, shown, connect="finite")
         self.low.setData(x, np.asarray(state.fraction_low, dtype=float))
         self.high.setData(x, np.asarray(state.fraction_high, dtype=float))
-        estimated = [s == "estimated" for s in state.status]
-        self.marks.setData(x=x, y=y, symbol=["o" if e else "t1" for e in estimated],
-                           brush=[colour("reddish_purple") if e else pg.mkBrush(None) for e in estimated],
-                           pen=[pg.mkPen(colour("reddish_purple"), width=2)] * len(x))
-        if len(x):
+        keep = estimated if len(estimated) == len(x) else np.ones(len(x), bool)
+        self.marks.setData(x=x[keep], y=y[keep], symbol="o", brush=colour("reddish_purple"),
+                           pen=pg.mkPen(colour("reddish_purple"), width=2))
+        if len(x) and state.estimate_text:
+            self.estimate.setText(f"Session {x[-1]:.0f}: {state.estimate_text}")
+        elif len(x):
             self.estimate.setText(
                 f"Session {x[-1]:.0f}: {y[-1]:.2f} (90 % interval {state.fraction_low[-1]:.2f}–"
                 f"{state.fraction_high[-1]:.2f}), {state.status[-1]}")
@@ -435,7 +438,9 @@ class ConsolidationPanel(QWidget):
         self.live.setText(state.live_text)
         self.live.setVisible(bool(state.live_text))
         self.comparison.setText(state.model_comparison)
-        if state.forecast_low is not None and state.forecast_high is not None:
+        if state.forecast_text:
+            self.forecast.setText(f"Forecast: {state.forecast_text}.")
+        elif state.forecast_low is not None and state.forecast_high is not None:
             self.forecast.setText(f"Forecast: {state.forecast_level:.2f} in {state.forecast_low}–{state.forecast_high} "
                                   "more sessions (model range).")
         else:

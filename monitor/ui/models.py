@@ -172,6 +172,8 @@ class ConsolidationState:
     forecast_low: int | None = None  # sessions until the level below, as a range
     forecast_high: int | None = None
     forecast_level: float = 0.8
+    forecast_text: str = ""          # the forecast as words ("already above 0.80", ...); "" when none
+    estimate_text: str = ""          # the last session's figure: a point only when "estimated"
     live_text: str = ""              # this session's figure from the cached fit, not refitted ("" when none)
     measures_session: int | None = None   # the session the interval error and CV are of (the animal's count)
     caveat: str = ("A model quantity of a fitted behavioural model, not proof that the "

@@ -12,6 +12,7 @@ from drivers.status import CONNECTED, LOST, READING, SILENT, STOPPED, WAITING, S
 from drivers.wire import Event, WireDecoder
 from monitor.app import views
 from monitor.app.engine import Engine, SessionPlan
+from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import build_trials
 from monitor.ui.models import Connection, Severity, StoreHealth
@@ -249,3 +250,20 @@ def test_the_page_and_the_eligibility_figures_share_one_definition_each():
     assert figures.sessions_since_plateau == parts.consolidation.sessions_since_plateau
     assert figures.trials_since_plateau == parts.consolidation.trials_since_plateau
     assert figures.measures["cv"] == parts.consolidation.cv
+
+
+def test_consolidation_panel_states_a_point_only_when_estimated_and_no_passed_level():
+    rows = [{"session": 1, "estimate": 0.5, "low": 0.3, "high": 0.7, "status": "estimated"},
+            {"session": 2, "estimate": 0.85, "low": 0.0, "high": 1.0, "status": "not constrained"}]
+    fit = {"status": "not constrained", "reason": "AIC", "trajectory": rows,
+           "forecast": {"level": 0.8, "reached": False, "summary": "0.80 in 2–5 more sessions (model range)",
+                        "sessions_low": 2, "sessions_high": 5}}
+    figures = AnimalFigures("wren", "p", 1, sessions_since_plateau=2, trials_since_plateau=10)
+    state = views._consolidation_state(figures, (), fit)
+    assert "0.85" not in state.estimate_text and "no point value" in state.estimate_text
+    assert state.forecast_text == "" and state.forecast_low is None  # no forecast from an unsupported fit
+    done = views._consolidation_state(figures, (), fit | {
+        "status": "estimated", "trajectory": [rows[0], rows[1] | {"status": "estimated", "low": 0.8, "high": 0.9}],
+        "forecast": fit["forecast"] | {"reached": True, "sessions_low": None, "sessions_high": None}})
+    assert done.estimate_text == "0.85 (90 % interval 0.80–0.90), estimated"
+    assert done.forecast_text == "already above 0.80"

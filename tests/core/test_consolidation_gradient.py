@@ -85,3 +85,22 @@ def test_natural_slopes_match_scipy_approx_fprime():
         ref = approx_fprime(theta[i : i + 1], lambda t: to_natural(np.r_[theta[:i], t, theta[i + 1 :]], TWO_RATE)[name],
                             1e-7 * max(1.0, abs(theta[i])))
         assert slopes[i] == pytest.approx(ref[0], rel=1e-5)
+
+
+def test_laplace_hessian_matches_scipy_differentiate_hessian():
+    from scipy.differentiate import hessian
+
+    from monitor.core.consolidation.fit import Objective
+
+    prep = _prep()
+    theta = default_starts(True, 2, np.random.default_rng(7))[1]
+    ours = Objective(prep, "error", True, None).hessian(theta)
+    # scipy.differentiate.hessian (scipy >= 1.15): Richardson-extrapolated central differences of the
+    # likelihood itself, from a step of 0.1 (smaller first steps lose the second difference to rounding:
+    # the reason ours differences the exact gradient instead); ours is of the negative log-likelihood
+    ll = _loglike(prep, "error", True)
+    ref = -hessian(_vectorised(ll), theta, initial_step=0.1, maxiter=3).ddf
+    np.testing.assert_allclose(ours, ref, rtol=2e-3, atol=5e-4 * np.abs(ref).max())
+    # and the same for any step from 1e-2 to 1e-4 (no rounding plateau to choose)
+    np.testing.assert_allclose(Objective(prep, "error", True, None).hessian(theta, 1e-2), ours, rtol=1e-3,
+                               atol=1e-5 * np.abs(ours).max())

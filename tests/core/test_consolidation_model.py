@@ -82,6 +82,6 @@ def test_from_intervals_uses_log_ratio_and_keeps_bad_intervals_out():
 
 def test_undefined_fraction_draws_widen_the_interval_both_ways():
     samples = np.column_stack([np.full(100, 0.5), np.r_[np.full(60, 0.5), np.full(40, np.nan)]])
-    low, high = _quantiles_with_undefined(samples)
+    low, _, high = _quantiles_with_undefined(samples)
     assert (low[0], high[0]) == (0.5, 0.5)
     assert low[1] == 0.0 and high[1] == 1.0

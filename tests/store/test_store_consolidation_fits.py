@@ -53,3 +53,23 @@ def test_the_refit_after_a_new_session_starts_from_the_cached_fit(animal, capsys
     assert block["session"] == last == len(demo.session_files)
     fresh = estimate_consolidation(series)  # a fresh search on the same data, for comparison
     assert block["comparison"]["two_rate_loglike"] >= fresh.two_rate.loglike - 0.5
+
+
+
+def test_a_cohort_is_fitted_by_one_process_per_core_and_each_fit_is_saved(tmp_path):
+    from monitor.store.consolidation_fits import refit_in_process, worker_count
+
+    assert worker_count(8, 2) == 2 and worker_count(1, 4) == 1 and worker_count(3) >= 1
+    cohort = prepare_demo(tmp_path / "history", stages=(STAGES[1][:2] + (6,), STAGES[2][:2] + (6,)))
+    db = tmp_path / "cohort.sqlite3"
+    for demo in cohort:
+        import_sessions(db, demo, demo.session_files)
+    names = [demo.animal.name for demo in cohort]
+    done: list[str] = []
+    results = refit_in_process(db, names, finished=lambda a, b, e: done.append(a), workers=2)
+    assert sorted(done) == sorted(names)
+    with sqlite3.connect(db) as conn:
+        for name in names:
+            assert results[name] is not None
+            assert latest_fit(conn, name)["block"]["status"] == results[name]["status"]
+            assert cached_block(conn, name, None)["current"]

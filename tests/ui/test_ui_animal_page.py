@@ -158,6 +158,21 @@ def test_unconstrained_forecast_and_empty_fit_say_so(page):
     assert page.consolidation.forecast.text() == "Forecast: not constrained by the data yet."
 
 
+def test_a_point_only_where_the_data_support_one_and_no_passed_level(page):
+    state = page.book.state("cedar")
+    c = state.consolidation
+    status = c.status[:-2] + ("not constrained",) * 2
+    loose = replace(c, status=status, estimate_text="not constrained: no point value (90 % interval 0.00–1.00)",
+                    forecast_text="already above 0.80")
+    page.book.update(replace(state, consolidation=loose))
+    y = page.consolidation.fraction.getData()[1]
+    assert np.all(np.isnan(y[-2:])) and np.all(np.isfinite(y[2:-2]))  # the line has no point there
+    marked = page.consolidation.marks.getData()[0]
+    assert len(marked) == sum(s == "estimated" for s in status) and 24 not in marked
+    assert page.consolidation.estimate.text() == "Session 24: not constrained: no point value (90 % interval 0.00–1.00)"
+    assert page.consolidation.forecast.text() == "Forecast: already above 0.80."
+
+
 def test_session_table_shows_exclusions_and_conditions_as_plain_text(page):
     table = page.sessions.table
     rows = page.book.state("cedar").sessions

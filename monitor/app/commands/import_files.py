@@ -11,12 +11,12 @@ their trials derived in worker processes (`--jobs`, one per core) while
 this process stores them in the order given. While another process holds the
 write lock the import waits up to `--wait` seconds instead of failing. Then
 each imported animal's report entry is built once and cached, and (unless
-`--no-fit`) its consolidation model is refitted in a separate process and
-cached (monitor.store.consolidation_fits), one stderr line per animal. One
-progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1 session,
-5123 events, 0 malformed, 402 attempts`) below a progress bar on a terminal
-(not with `--quiet`), a summary line to stdout. Sessions,
-animals and times: monitor.store.importer and docs/store.md.
+`--no-fit`) its consolidation model is refitted in separate processes (one
+per core) and cached (monitor.store.consolidation_fits), one stderr line per
+animal. One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
+session, 5123 events, 0 malformed, 402 attempts`) below a progress bar on a terminal
+(not with `--quiet`), a summary line to stdout.
+Sessions, animals and times: monitor.store.importer and docs/store.md.
 """
 
 from __future__ import annotations
@@ -212,18 +212,21 @@ def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: s
 
 
 def _refit(db: Path, animals: list[str]) -> None:
-    """Refit each imported animal in a separate process; one stderr line per animal."""
-    from monitor.store.consolidation_fits import refit_in_process
+    """Refit the imported animals in separate processes, one per core; one stderr line per animal."""
+    from monitor.core.consolidation.words import fraction_text
+    from monitor.store.consolidation_fits import refit_in_process, worker_count
 
     def finished(animal: str, block: dict | None, error: str | None) -> None:
         if block is None:
             print(f"fit {animal}: failed ({error or 'no result'}); the report says \"not fitted\"", file=sys.stderr)
             return
-        print(f"fit {animal}: slow-state fraction {block['estimate']:.2f} ({block['low']:.2f}-{block['high']:.2f}, "
-              f"{block['status']}) at session {block['session']}", file=sys.stderr)
+        figure = fraction_text(block["estimate"], block["low"], block["high"], block["status"])
+        print(f"fit {animal}: slow-state fraction {figure} at session {block['session']}", file=sys.stderr)
 
-    print(f"fitting the consolidation model of {_n(len(animals), 'animal')} in a separate process", file=sys.stderr)
-    refit_in_process(db, animals, finished=finished)
+    workers = worker_count(len(animals))
+    print(f"fitting the consolidation model of {_n(len(animals), 'animal')} in {workers} separate "
+          f"{'process' if workers == 1 else 'processes'} (one per core)", file=sys.stderr)
+    refit_in_process(db, animals, finished=finished, workers=workers)
 
 
 def _n(count: int, word: str) -> str:

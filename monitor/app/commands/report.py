@@ -60,6 +60,8 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _print(document: dict, as_json: bool) -> int:
+    from monitor.core.consolidation.words import fraction_text
+
     if as_json:
         print(json.dumps(document, indent=1))
         return 0
@@ -69,7 +71,7 @@ def _print(document: dict, as_json: bool) -> int:
         count = len(entry["sessions"])
         print(f"{entry['animal']}: {entry['protocol']}, {count} {'session' if count == 1 else 'sessions'}; plateau "
               + (f"at session {plateau['session']}" if plateau["reached"] else "not reached")
-              + f"; slow-state fraction {c['estimate']:.2f} ({c['low']:.2f}-{c['high']:.2f}, {c['status']})")
+              + f"; slow-state fraction {fraction_text(c['estimate'], c['low'], c['high'], c['status'])}")
         for s in entry["sessions"]:
             rate = "-" if s["hit_rate"] is None else f"{s['hit_rate']:.2f}"
             flag = f"  EXCLUDED: {s['exclusion_reason']}" if s["excluded"] else ""

@@ -1,21 +1,29 @@
 """Consolidation estimate of one animal: fit, compare, estimate, forecast, report.
 
-Rule: both fast-state driving signals ("error", "outcome") are fitted with the
-two-rate model for ``race_iter`` optimiser steps from the same starts; the
-variant ahead is fitted to convergence (the other's likelihood is reported as
-reached, a lower bound of its maximum), and so is the one-rate model of that
-variant (its two best screened starts run a third of ``race_iter`` steps; those
-more than ``race_margin`` log-likelihood behind go no further).  The two-rate model counts as constraining the split only
-when it beats the one-rate model of the same variant by AIC(one) - AIC(two) >=
-``aic_margin`` (10 by default: the one-rate model then has essentially no
-support); otherwise every session is "not constrained" with the interval [0, 1].
-The final fit also starts from short and long break retentions and from the
-one-rate solution with a small slow state (the nested model's basin); optima within
-``mode_margin`` (2) log-likelihood of the best are all kept and share the
-interval's draws.  A warm start (``warm_start`` of a previous result, e.g. cached in the store)
-refits from the cached optima only, and falls back to the full fit when another
-variant now fits better.  A session whose interval is wider than ``uninformative_width`` is "not
-constrained" too.  Status words: "estimated", "not constrained", "not
+Rule: the search profiles over the fast state's driving signal ("error",
+"outcome"): for each variant the one-rate model runs ``race_iter`` steps, then
+the two-rate model's candidates (the one-rate solution with a small slow state,
+the nested model's basin, and the best of a Sobol-spread set screened on the
+likelihood alone, the global stage) run ``race_iter`` steps each; then every
+variant goes on to convergence (one-rate, and the two-rate candidates within
+``race_margin`` of that variant's best, the best optimum also from short and
+long break retentions), and the higher two-rate optimum wins.  The two-rate model
+counts as constraining the split only when it beats the one-rate model of the
+same variant by AIC(one) - AIC(two) >= ``aic_margin`` (10 by default: the
+one-rate model then has essentially no support), and a refit whose cached fit
+was "estimated" keeps that until the difference falls below ``aic_margin -
+hysteresis`` (the same data always give the same word; only new evidence
+moves it across the band); otherwise every session is "not constrained" with
+the interval [0, 1].  The interval's draws come from the best optimum's Laplace
+approximation (``mode_margin`` > 0 lets optima that close share them, which
+makes the interval depend on how many the search happened to find); they come
+from their own generator (seeded by ``seed``), so a cached refit and a fresh
+search that reach the same optimum give the same interval.  The figure stated
+is the median of the draws; ``estimate_supported`` says whether it may be read
+at all.  A warm start (``warm_start`` of a previous result, e.g. cached in the
+store) refits from the cached optima only, and falls back to the full fit when
+another variant now fits better.  A session whose interval is wider than
+``uninformative_width`` is "not constrained" too.  Status words: "estimated", "not constrained", "not
 converged", "too few trials", "cancelled".  Without a usable fit the figure is
 0 with the interval [0, 1]: a model quantity that can never open an eligibility
 window by itself.  The figure is a property of a fitted behavioural model, not
@@ -29,8 +37,10 @@ from typing import Callable
 import numpy as np
 
 from monitor.core.consolidation.estimate import Forecast, forecast, slow_fractions
-from monitor.core.consolidation.fit import JOINED, Cancelled, ModelFit, default_starts, fit_model, with_curvature
+from monitor.core.consolidation.fit import (JOINED, Cancelled, ModelFit, Objective, default_starts, fit_model,
+                                            spread_starts, with_curvature)
 from monitor.core.consolidation.model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
+from monitor.core.consolidation.words import SUPPORTED_NOTE, UNSUPPORTED_NOTE, supported
 
 CAVEAT = ("Model-based slow-state fraction of a fitted behavioural model; not proof that the behaviour "
           "no longer depends on a brain area. Advisory only: read it with the transparent measures.")
@@ -47,11 +57,15 @@ class Options:
     max_iter: int = 150
     race_iter: int = 15
     race_margin: float = 50.0
+    spread: int = 32  # Sobol-spread candidates screened by the likelihood (the global stage)
+    screened: int = 3  # of those (with the central and random starts), the best this many are raced
     mode_tau_b: tuple[float, ...] = (2.0, 500.0)
-    mode_margin: float = 2.0
+    alt_margin: float = 10.0  # a start from another break retention goes on when this close to the best
+    mode_margin: float = 0.0  # > 0: optima this close to the best share the draws (less stable: see docs)
     draws: int = 40
     state_draws: int = 25
     aic_margin: float = 10.0
+    hysteresis: float = 4.0  # a cached "estimated" stays so down to aic_margin - hysteresis
     uninformative_width: float = 0.8
     level: float = 0.8
     horizon: int = 200
@@ -126,17 +140,24 @@ def estimate_consolidation(
         variant, modes, fits = fitted or _fit_cold(prep, warm, options, cancel, report, steps, rng)
         two, one = modes[0], fits[_key(variant, False)]
         report((steps - 0.5) / steps, "interval")
-        fractions = slow_fractions(prep, modes, rng, options.draws, options.state_draws)
+        draws = np.random.default_rng([options.seed, 1])  # the interval's own draws: the same for the same optima
+        fractions = slow_fractions(prep, modes, draws, options.draws, options.state_draws)
         outlook = forecast(prep, two, fractions, options.level, options.horizon)
     except Cancelled:
         return _empty("cancelled", "cancelled", prep.labels, prep.n_trials, prep.dropped_trials)
     report(1.0, "done")
     delta_aic = one.aic - two.aic
+    kept = warm.get("status") == "estimated"  # hysteresis: a cached "estimated" leaves only below the band
+    threshold = options.aic_margin - (options.hysteresis if kept else 0.0)
     if not two.converged:
         status, reason = "not converged", two.reason or "optimiser did not converge"
-    elif delta_aic < options.aic_margin:
+    elif delta_aic < threshold:
         status, reason = "not constrained", (f"two-rate model does not beat one-rate clearly "
-                                             f"(AIC difference {delta_aic:.1f} < {options.aic_margin:g})")
+                                             f"(AIC difference {delta_aic:.1f} < {threshold:g})")
+    elif delta_aic < options.aic_margin:
+        status, reason = "estimated", (f"two-rate model still preferred (AIC difference {delta_aic:.1f}: below "
+                                       f"{options.aic_margin:g}, above the {threshold:g} at which an earlier "
+                                       "\"estimated\" is withdrawn)")
     else:
         status, reason = "estimated", f"two-rate model preferred (AIC difference {delta_aic:.1f})"
     rows = []
@@ -148,7 +169,7 @@ def estimate_consolidation(
             word = "not constrained"
         rows.append(SessionEstimate(int(label), float(est), float(low), float(high), word))
     warm_out: dict = {key: fit.theta.tolist() for key, fit in fits.items()}
-    warm_out |= {"variant": variant, "modes": [m.theta.tolist() for m in modes]}
+    warm_out |= {"variant": variant, "modes": [m.theta.tolist() for m in modes], "status": status}
     return ConsolidationResult(
         status, reason, rows, prep.n_trials, prep.dropped_trials, two, one,
         {v: fits[_key(v, True)].loglike for v in options.variants}, float(delta_aic), outlook, warm_out,
@@ -164,68 +185,108 @@ def _usable(warm: dict, options: Options) -> bool:
 
 def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Progress, steps: int,
               rng: np.random.Generator) -> tuple[str, list[ModelFit], dict[str, ModelFit]]:
-    """Race the variants, then fit the leader's optima and its one-rate model to convergence."""
+    """Profile over the variant: race every variant's candidates, then take every variant's best candidate to
+    convergence (a variant far behind after its first steps can still hold the best optimum), the leader's
+    first; a variant whose converged best is still ``race_margin`` behind goes no further.  The higher
+    optimum wins."""
     fits: dict[str, ModelFit] = {}
+    raced: dict[str, tuple[ModelFit, list[ModelFit]]] = {}
+    spent = 0
     for v_i, variant in enumerate(options.variants):
-        key = _key(variant, True)
-        starts = ([np.asarray(warm[key])] if key in warm else []) + default_starts(True, options.starts, rng)
-        fits[key] = fit_model(prep, variant, True, starts, options.optimise, options.race_iter, cancel, False)
-        report((v_i + 1) / steps, f"two-rate model, {variant} variant (first {options.race_iter} steps)")
-    # the variant ahead after the first steps is fitted to convergence, then also from break
-    # retentions at both ends (the likelihood can have an optimum at each); a run that comes
-    # close to an optimum already found stops there (it is converging onto it)
-    variant = max(options.variants, key=lambda v: fits[_key(v, True)].loglike)
-    lead = fits[_key(variant, True)]
-    report((len(options.variants) + 1) / steps, f"two-rate model, {variant} variant, to convergence")
-    found = [fit_model(prep, variant, True, [lead.theta], 1, options.max_iter, cancel, False)]
-    spent = lead.evaluations
-    raced_alts = []
-    for tau in options.mode_tau_b:
-        alt = lead.theta.copy()
-        alt[TWO_RATE.index("tau_b")] = to_theta({"tau_b": tau}, ("tau_b",))[0]
-        raced = fit_model(prep, variant, True, [alt], 1, options.race_iter, cancel, False, (found[0].theta,))
-        spent += raced.evaluations
-        if raced.reason != JOINED:
-            raced_alts.append(raced)
-    top = max([lead.loglike] + [r.loglike for r in raced_alts])
-    for raced in raced_alts:
-        if top - raced.loglike >= 5 * options.mode_margin:
+        one = _fit_one_rate(prep, variant, warm, options, cancel, rng, options.race_iter)
+        candidates, used = _race_two_rate(prep, variant, one, warm, options, cancel, rng)
+        raced[variant], spent = (one, candidates), spent + used
+        fits[_key(variant, False)], fits[_key(variant, True)] = one, candidates[0]
+        report((v_i + 1) / steps, f"{variant} variant: first {options.race_iter} steps")
+    found_by: dict[str, list[ModelFit]] = {}
+    for variant in sorted(options.variants, key=lambda v: -raced[v][1][0].loglike):
+        one, candidates = raced[variant]
+        top = max((f[0].loglike for f in found_by.values()), default=None)
+        found, used = _converge_two_rate(prep, variant, candidates, options, cancel, top)
+        found_by[variant], spent = found, spent + used
+        if top is None or found[0].loglike > top - options.race_margin:
+            fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options,
+                                                       cancel, rng, options.max_iter, spent=one.evaluations)
+        fits[_key(variant, True)] = found[0]
+        report((len(options.variants) + 1) / steps, f"{variant} variant to convergence")
+    variant = max(found_by, key=lambda v: found_by[v][0].loglike)
+    others = sum(f.evaluations for v in found_by if v != variant for f in found_by[v])
+    modes = _select_modes(prep, found_by[variant], spent + others, options, cancel)
+    fits[_key(variant, True)] = modes[0]
+    return variant, modes, fits
+
+
+def _fit_one_rate(prep: Prepared, variant: str, warm: dict, options: Options, cancel,
+                  rng: np.random.Generator, max_iter: int, spent: int = 0) -> ModelFit:
+    """The one-rate model from the cached one, central, random and spread starts, as hard as the
+    two-rate one (the comparison is only fair then); ``max_iter`` steps."""
+    key = _key(variant, False)
+    cached = [np.asarray(warm[key])] if key in warm else []
+    starts = cached + default_starts(False, options.starts, rng) + spread_starts(False, options.spread // 2,
+                                                                               options.seed)
+    if spent:  # going on from a raced optimum: it runs first, then the other starts are screened again
+        fit = fit_model(prep, variant, False, cached, 1, max_iter, cancel, False)
+        return replace(fit, evaluations=fit.evaluations + spent)
+    return fit_model(prep, variant, False, starts, options.optimise + 1, max_iter, cancel, False,
+                     race=(max(1, options.race_iter // 3), options.race_margin))
+
+
+def _race_two_rate(prep: Prepared, variant: str, one: ModelFit, warm: dict, options: Options, cancel,
+                   rng: np.random.Generator) -> tuple[list[ModelFit], int]:
+    """Candidates of the two-rate model after ``race_iter`` steps each, best first, and the screening's cost.
+
+    Candidates: the cached optima, the one-rate solution with a small slow state (the nested
+    model's basin, at two slow-state rates), and the best ``screened`` of a central, random and
+    Sobol-spread set ranked by the likelihood alone (the global stage).
+    """
+    key = _key(variant, True)
+    cached = [np.asarray(t) for t in warm.get("modes", []) if warm.get("variant") == variant]
+    cached += [np.asarray(warm[key])] if key in warm and not cached else []
+    embeds = [to_theta(one.params | {"c": c, "slow_leak": 1e-6, "q_s": 1e-7}, TWO_RATE) for c in (1e-4, 1e-3)]
+    pool = default_starts(True, options.starts, rng) + spread_starts(True, options.spread, options.seed)
+    objective = Objective(prep, variant, True, cancel)
+    screened = sorted(pool, key=objective)[: options.screened]
+    raced = [fit_model(prep, variant, True, [s], 1, options.race_iter, cancel, False)
+             for s in cached + embeds + screened]
+    return sorted(raced, key=lambda f: -f.loglike), objective.evaluations
+
+
+def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], options: Options,
+                       cancel, top: float | None = None) -> tuple[list[ModelFit], int]:
+    """Raced candidates within ``race_margin`` of the best go on to convergence, best first (a run
+    that joins an optimum already found stops there); the best optimum is then also started from
+    short and long break forgetting (the likelihood can have an optimum at each end).  With ``top``
+    (another variant's optimum), nothing goes on after the best candidate when its optimum is still
+    ``race_margin`` below it.  Returns the optima, best first, and the evaluations of runs that found none."""
+    spent = 0
+    found: list[ModelFit] = []
+    for r in raced:
+        spent += r.evaluations
+        if found and top is not None and found[0].loglike <= top - options.race_margin:
             continue
-        known = tuple(f.theta for f in found)
-        again = fit_model(prep, variant, True, [raced.theta], 1, options.max_iter, cancel, False, known)
+        if raced[0].loglike - r.loglike >= options.race_margin:
+            continue
+        again = fit_model(prep, variant, True, [r.theta], 1, options.max_iter, cancel, False,
+                          tuple(f.theta for f in found))
         if again.reason == JOINED:
             spent += again.evaluations
         else:
             found.append(again)
-    best = max(found, key=lambda f: f.loglike)
-    key = _key(variant, False)
-    projected = to_theta({k: best.params[k] for k in ONE_RATE}, ONE_RATE)
-    starts = ([np.asarray(warm[key])] if key in warm else []) + [projected]
-    starts += default_starts(False, options.starts, rng)
-    # the comparison is only fair when the one-rate model is fitted as hard as the two-rate one
-    one = fit_model(prep, variant, False, starts, options.optimise + 1, options.max_iter, cancel, False,
-                    race=(max(1, options.race_iter // 3), options.race_margin))
-    fits[key] = one
-    report((len(options.variants) + 2) / steps, "one-rate model")
-    # the two-rate model nests the one-rate one: it also starts from the one-rate solution with a small
-    # slow state (its own basin is often the best); ending below the one-rate model means a poor
-    # optimum, and then that start runs to convergence at once
-    embed = to_theta(one.params | {"c": 1e-4, "slow_leak": 1e-5, "q_s": 1e-6}, TWO_RATE)
-    if best.loglike < one.loglike + 1.0:
-        found.append(fit_model(prep, variant, True, [embed], 1, options.max_iter, cancel, False))
-    else:
+    found.sort(key=lambda f: -f.loglike)
+    for tau in options.mode_tau_b if top is None or found[0].loglike > top - options.race_margin else ():
+        alt = found[0].theta.copy()
+        alt[TWO_RATE.index("tau_b")] = to_theta({"tau_b": tau}, ("tau_b",))[0]
         known = tuple(f.theta for f in found)
-        raced = fit_model(prep, variant, True, [embed], 1, options.race_iter, cancel, False, known)
-        spent += raced.evaluations
-        if raced.reason != JOINED and best.loglike - raced.loglike < 5 * options.mode_margin:
-            again = fit_model(prep, variant, True, [raced.theta], 1, options.max_iter, cancel, False, known)
-            if again.reason == JOINED:
-                spent += again.evaluations
-            else:
-                found.append(again)
-    modes = _select_modes(prep, found, spent, options, cancel)
-    fits[_key(variant, True)] = modes[0]
-    return variant, modes, fits
+        short = fit_model(prep, variant, True, [alt], 1, options.race_iter, cancel, False, known)
+        spent += short.evaluations
+        if short.reason == JOINED or found[0].loglike - short.loglike >= options.alt_margin:
+            continue
+        again = fit_model(prep, variant, True, [short.theta], 1, options.max_iter, cancel, False, known)
+        if again.reason == JOINED:
+            spent += again.evaluations
+        else:
+            found.append(again)
+    return sorted(found, key=lambda f: -f.loglike), spent
 
 
 def _refit_warm(prep: Prepared, warm: dict, options: Options, cancel, report: Progress,
@@ -277,10 +338,13 @@ def consolidation_block(result: ConsolidationResult, aic_margin: float = 10.0) -
         "low": last.low,
         "high": last.high,
         "status": last.status,
+        "estimate_supported": supported(last.status),
+        "estimate_note": SUPPORTED_NOTE if supported(last.status) else UNSUPPORTED_NOTE,
         "reason": result.reason,
         "caveat": CAVEAT,
         "trajectory": [
-            {"session": s.session, "estimate": s.estimate, "low": s.low, "high": s.high, "status": s.status}
+            {"session": s.session, "estimate": s.estimate, "low": s.low, "high": s.high, "status": s.status,
+             "estimate_supported": supported(s.status)}
             for s in result.sessions
         ],
         "trials": result.n_trials,
@@ -303,7 +367,7 @@ def consolidation_block(result: ConsolidationResult, aic_margin: float = 10.0) -
     if result.forecast is not None:
         f = result.forecast
         block["forecast"] = {
-            "level": f.level, "reached": f.reached, "sessions_low": f.sessions_low,
+            "level": f.level, "reached": f.reached, "summary": f.summary, "sessions_low": f.sessions_low,
             "sessions_median": f.sessions_median, "sessions_high": f.sessions_high, "horizon": f.horizon,
             "trials_per_session": f.trials_per_session, "break_hours": f.break_hours,
         }

@@ -2,14 +2,16 @@
 
 Rule: the fraction at the end of a session is x_s / (x_f + x_s) of the filtered
 state after the session's last trial (before the break), clipped to [0, 1].  The
-interval propagates parameter uncertainty (draws from the Laplace approximation,
+figure stated and plotted is the median of the interval's draws (so it always
+lies inside its band, never stretched to it); the interval propagates parameter uncertainty (draws from the Laplace approximation,
 each run through the exact filter) and state uncertainty (draws from each
 filtered end state's Gaussian); a draw whose learned change x_f + x_s points
 against the animal's learning direction has no meaningful fraction and counts
 half at 0 and half at 1, so it widens the interval.  The forecast runs each draw
 forward at the animal's recent pace (median trials per session and break) with
 the model's expected input (the warm-up term left out), and counts the sessions until the fraction first
-reaches the level; the range is the 5th-95th percentile over draws.
+reaches the level; the range is the 5th-95th percentile over draws.  When the stated figure is already at
+the level the forecast names no count ("already above").
 """
 from __future__ import annotations
 
@@ -43,14 +45,14 @@ def _fraction(fast: np.ndarray, slow: np.ndarray, direction: float) -> np.ndarra
     return np.where(total * direction > 0, frac, np.nan)
 
 
-def _quantiles_with_undefined(samples: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """5 % / 95 % over axis 0; NaN samples count half at 0, half at 1."""
+def _quantiles_with_undefined(samples: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """5 %, 50 % and 95 % over axis 0; NaN samples count half at 0, half at 1."""
     filled = np.where(np.isnan(samples), 0.0, samples)
     nan_mask = np.isnan(samples)
     half = np.cumsum(nan_mask, axis=0) % 2 == 1
     filled = np.where(nan_mask & half, 1.0, filled)
-    low, high = np.quantile(filled, QUANTILES, axis=0)
-    return low, high
+    low, median, high = np.quantile(filled, (QUANTILES[0], 0.5, QUANTILES[1]), axis=0)
+    return low, median, high
 
 
 def slow_fractions(
@@ -66,8 +68,6 @@ def slow_fractions(
     point = evaluate(prep, best.params, best.variant, best.two_rate)
     learned = point.end_means.sum(1)
     direction = float(np.sign(np.nanmedian(learned[-max(1, len(learned) // 3):])) or 1.0)
-    estimate = _fraction(point.end_means[:, 0], point.end_means[:, 1], direction)
-    estimate = np.where(np.isnan(estimate), 0.0, estimate)
     samples, last_states, draw_params = [], [], []
     per_mode = max(1, draws // len(modes))
     for fit in modes:
@@ -81,9 +81,7 @@ def slow_fractions(
             samples.append(_fraction(z[..., 0], z[..., 1], direction))
             last_states.append(z[:, -1])
             draw_params.append(params | {"offset": float(ev.profiled.coef[0])})
-    stacked = np.concatenate(samples)
-    low, high = _quantiles_with_undefined(stacked)
-    low, high = np.minimum(low, estimate), np.maximum(high, estimate)
+    low, estimate, high = _quantiles_with_undefined(np.concatenate(samples))
     return Fractions(estimate, low, high, learned, np.stack(last_states), draw_params)
 
 
@@ -100,6 +98,17 @@ class Forecast:
     break_hours: float
     reached: bool
 
+    @property
+    def summary(self) -> str:
+        """One phrase that never names a level already passed: 'already above 0.80' when reached."""
+        if self.reached:
+            return f"already above {self.level:.2f}"
+        if self.sessions_low is None:
+            return f"{self.level:.2f} not within {self.horizon} sessions (model range)"
+        high = "more than " + str(self.horizon) if self.sessions_high is None else str(self.sessions_high)
+        span = str(self.sessions_low) if high == str(self.sessions_low) else f"{self.sessions_low}–{high}"
+        return f"{self.level:.2f} in {span} more sessions (model range)"
+
 
 def forecast(
     prep: Prepared, fit: ModelFit, fractions: Fractions, level: float = 0.8, horizon: int = 200, pace_sessions: int = 5
@@ -107,7 +116,8 @@ def forecast(
     """Project every draw forward at the animal's recent pace with the expected closed-loop input."""
     n_future = int(np.median(prep.layout_lengths[-pace_sessions:]))
     hours = float(np.median(prep.hours[1:][-pace_sessions:])) if len(prep.hours) > 1 else 24.0
-    reached = bool(fractions.estimate[-1] >= level)
+    if fractions.estimate[-1] >= level:  # the stated figure is at the level already: no count is named
+        return Forecast(level, None, None, None, horizon, n_future, hours, True)
     slope, intercept = _input_feedback(prep, fit.variant, n_future)
     maps, consts = [], []
     for params, states in zip(fractions.draw_params, fractions.draws_last):
@@ -135,7 +145,7 @@ def forecast(
     def as_int(v: float) -> int | None:
         return int(np.ceil(v)) if v <= horizon else None
 
-    return Forecast(level, as_int(qs[0]), as_int(qs[1]), as_int(qs[2]), horizon, n_future, hours, reached)
+    return Forecast(level, as_int(qs[0]), as_int(qs[1]), as_int(qs[2]), horizon, n_future, hours, False)
 
 
 def session_map(model: StateSpace, slope: float, drive: np.ndarray, trials: int) -> tuple[np.ndarray, np.ndarray]:

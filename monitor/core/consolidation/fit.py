@@ -9,9 +9,11 @@ optimum wins: a run that comes within ``JOIN_DISTANCE`` of an optimum already
 found stops (it is converging onto it), and raced starts (a few steps each) far
 behind the best go no further.  A run's evaluations are capped at twice its
 steps plus five (line searches that keep failing are not converging).  A fit
-is "converged" when the optimiser reports success and the curvature (a
-forward-difference Hessian) is that of a maximum; otherwise the reason is
-kept.  Parameter uncertainty is the Laplace approximation N(theta_hat, H^-1)
+is "converged" when the optimiser reports success and the curvature (the
+Hessian from central differences of the exact gradient) is that of a maximum;
+otherwise the reason is kept.  Besides a central start and random ones,
+``spread_starts`` gives a fixed, well-spread (scrambled Sobol) set over the
+box that a search screens on the cheap likelihood (its global stage).  Parameter uncertainty is the Laplace approximation N(theta_hat, H^-1)
 on the transformed scale; flat directions get a floor curvature so that their
 draws spread over the whole range (wide, never falsely narrow).  Every
 likelihood evaluation checks the cancel callback.
@@ -100,23 +102,21 @@ class Objective:
             return 1e300, np.zeros(len(theta))
         return -value, -grad
 
-    def hessian(self, theta: np.ndarray, step: float = 1e-2) -> np.ndarray:
-        """Forward second differences: (p + 1)(p + 2) / 2 evaluations."""
+    def hessian(self, theta: np.ndarray, step: float = 1e-3) -> np.ndarray:
+        """Central differences of the exact gradient, symmetrised: 2p gradient evaluations."""
         p = len(theta)
-        f0 = self(theta)
-        single = np.empty(p)
-        for i in range(p):
-            t = theta.copy()
-            t[i] += step
-            single[i] = self(t)
         hess = np.empty((p, p))
         for i in range(p):
-            for j in range(i, p):
-                t = theta.copy()
-                t[i] += step
-                t[j] += step
-                hess[i, j] = hess[j, i] = (self(t) - single[i] - single[j] + f0) / step**2
-        return hess
+            t = np.array(theta, float)
+            t[i] += step
+            up = self.value_and_grad(t)
+            t[i] -= 2 * step
+            down = self.value_and_grad(t)
+            if up[0] >= 1e300 or down[0] >= 1e300:
+                hess[:, i] = np.nan
+            else:
+                hess[:, i] = (up[1] - down[1]) / (2 * step)
+        return 0.5 * (hess + hess.T)
 
 
 def default_starts(two_rate: bool, count: int, rng: np.random.Generator) -> list[np.ndarray]:
@@ -132,6 +132,18 @@ def default_starts(two_rate: bool, count: int, rng: np.random.Generator) -> list
     for _ in range(max(count - len(starts), 0)):
         starts.append(np.clip(base + rng.normal(0.0, 1.5, len(base)), -THETA_BOUND + 1, THETA_BOUND - 1))
     return starts
+
+
+def spread_starts(two_rate: bool, count: int, seed: int = 0, half_width: float = 6.0) -> list[np.ndarray]:
+    """``count`` scrambled-Sobol points over [-half_width, half_width] per transformed parameter
+    (deterministic for a seed): the global stage's candidates."""
+    if count <= 0:
+        return []
+    from scipy.stats import qmc
+
+    dims = len(TWO_RATE if two_rate else ONE_RATE)
+    unit = qmc.Sobol(dims, scramble=True, seed=seed).random_base2(int(np.ceil(np.log2(count))))[:count]
+    return list((2.0 * unit - 1.0) * half_width)
 
 
 def fit_model(
@@ -227,5 +239,11 @@ def laplace_covariance(hess: np.ndarray) -> tuple[np.ndarray, str]:
 def draw_thetas(fit: ModelFit, count: int, rng: np.random.Generator) -> np.ndarray:
     """Parameter draws from the Laplace approximation, kept inside the transformed box."""
     cov = fit.cov_theta if fit.cov_theta is not None else np.eye(len(fit.theta)) / CURVATURE_FLOOR
-    draws = rng.multivariate_normal(fit.theta, cov, size=count, method="eigh")
+    cov = 0.5 * (cov + cov.T)
+    try:  # the Cholesky factor is unique and continuous in cov: nearly equal fits give nearly equal draws
+        root = np.linalg.cholesky(cov)
+    except np.linalg.LinAlgError:
+        vals, vecs = np.linalg.eigh(cov)
+        root = vecs * np.sqrt(np.maximum(vals, 0.0))
+    draws = fit.theta + rng.standard_normal((count, len(fit.theta))) @ root.T
     return np.clip(draws, -THETA_BOUND, THETA_BOUND)

@@ -6,7 +6,9 @@ classification is kept beside it as a cross-check (disagreements counted and
 kept). Otherwise rigside classifies from the protocol (docs/analysis.md):
 two-press trials pair press onsets in order — a first press, then the next
 press within `trial_timeout_ms` (else the first is a lone press); an interval
-below `premature_ms` is premature; a hit lies at or inside the window edges.
+below `premature_ms` is premature; a hit lies at or inside the window edges,
+decided exactly: the duration in integer device microseconds against the edges
+as exact rationals of the numbers as written (protocol.exact).
 Presses during the inter-trial interval (or, on rigs that frame trials, between
 trials) are counted apart, as are omissions (a framed trial with no press).
 Joystick-hold attempts run from a threshold crossing to the return below it;
@@ -23,9 +25,10 @@ from __future__ import annotations
 
 import math
 from collections import Counter
+from fractions import Fraction
 from typing import Any, NamedTuple
 
-from monitor.core.protocol import Protocol, Stage
+from monitor.core.protocol import Protocol, Stage, exact, tolerance_edges
 
 NOT_TRIALS = frozenset({"lone", "premature", "omission"})
 OUTCOME_GRACE_US = 500_000  # a rig outcome this soon after an attempt claims it (before any outcome was seen)
@@ -62,6 +65,8 @@ class _Rules(NamedTuple):
     target_ms: float
     low_ms: float
     high_ms: float
+    low_us: int  # the edges in whole device microseconds: ceil(exact low), floor(exact high)
+    high_us: int
 
 
 class _Attempt(NamedTuple):
@@ -193,22 +198,32 @@ class TrialBuilder:
     def _load_stage(self, stage: Stage, name: str) -> None:
         self._stage = name
         self._target = stage.target_ms
-        self._low, self._high = stage.window_low_ms, stage.window_high_ms
         self._tolerance = stage.tolerance
+        if stage.tolerance is None:
+            self._set_window(exact(stage.window_low_ms), exact(stage.window_high_ms))
+        else:
+            self._set_window(*tolerance_edges(stage.target_ms, stage.tolerance))
         self._adaptive = stage.adaptive
         self._timeout_us = stage.trial_timeout_ms * 1000.0
         self._iti_us = stage.iti_ms * 1000.0
-        self._premature = stage.premature_ms
+        self._premature_us = math.ceil(exact(stage.premature_ms) * 1000)
         self._min_hold = stage.min_hold_ms
         self._adapt_trials = self._adapt_hits = 0
 
-    def _rules(self) -> _Rules:
-        return _Rules(self._stage, self._target, self._low, self._high)
+    def _set_window(self, low: Fraction, high: Fraction) -> None:
+        """The window in force, from its exact edges in ms."""
+        self._low_x, self._high_x = low, high
+        self._low, self._high = float(low), float(high)
+        self._low_us, self._high_us = math.ceil(low * 1000), math.floor(high * 1000)
 
-    def _classify(self, interval_ms: float, rules: _Rules) -> str:
-        if interval_ms < self._premature:
+    def _rules(self) -> _Rules:
+        return _Rules(self._stage, self._target, self._low, self._high, self._low_us, self._high_us)
+
+    def _classify(self, duration_us: int, rules: _Rules) -> str:
+        """Premature, hit or miss of a duration in integer device microseconds (exact: integer edges)."""
+        if duration_us < self._premature_us:
             return "premature"
-        return "hit" if rules.low_ms <= interval_ms <= rules.high_ms else "miss"
+        return "hit" if rules.low_us <= duration_us <= rules.high_us else "miss"
 
     def _on_param(self, t: int, args: tuple[str, ...], out: list[Trial]) -> None:
         name, value = args[0], args[1]
@@ -235,20 +250,22 @@ class TrialBuilder:
         if name == "target_ms":
             self._target = number
             if self._tolerance is not None and not self._window_from_rig:
-                self._low, self._high = number * (1 - self._tolerance), number * (1 + self._tolerance)
+                self._set_window(*tolerance_edges(number, self._tolerance))
         elif name == "tolerance":
             self._tolerance = number
-            self._low, self._high = self._target * (1 - number), self._target * (1 + number)
+            self._set_window(*tolerance_edges(self._target, number))
         elif name == "window_low_ms":
-            self._low, self._window_from_rig = number, True
+            self._set_window(exact(number), self._high_x)
+            self._window_from_rig = True
         elif name == "window_high_ms":
-            self._high, self._window_from_rig = number, True
+            self._set_window(self._low_x, exact(number))
+            self._window_from_rig = True
         elif name == "trial_timeout_ms":
             self._timeout_us = number * 1000.0
         elif name == "iti_ms":
             self._iti_us = number * 1000.0
         elif name == "premature_ms":
-            self._premature = number
+            self._premature_us = math.ceil(exact(number) * 1000)
         else:
             self._min_hold = number
 
@@ -265,11 +282,13 @@ class TrialBuilder:
             return
         rate = self._adapt_hits / self._adapt_trials
         self._adapt_trials = self._adapt_hits = 0
+        tolerance, step = exact(self._tolerance), exact(rule.step)  # exact steps: 0.2 - 0.05 is 0.15
         if rate > rule.target_rate:
-            self._tolerance = max(rule.min_tolerance, self._tolerance - rule.step)
+            tolerance = max(exact(rule.min_tolerance), tolerance - step)
         elif rate < rule.target_rate:
-            self._tolerance = min(rule.max_tolerance, self._tolerance + rule.step)
-        self._low, self._high = self._target * (1 - self._tolerance), self._target * (1 + self._tolerance)
+            tolerance = min(exact(rule.max_tolerance), tolerance + step)
+        self._tolerance = float(tolerance)
+        self._set_window(*tolerance_edges(self._target, self._tolerance))
 
     # -- emitting ---------------------------------------------------------
 
@@ -360,7 +379,7 @@ class TrialBuilder:
             return
         self._first = None
         interval = (t - first_t) / 1000.0
-        self._attempt(_Attempt(first_t, interval, self._classify(interval, rules), rules, segment, t), out)
+        self._attempt(_Attempt(first_t, interval, self._classify(t - first_t, rules), rules, segment, t), out)
         if not self._framed:
             self._iti_until = t + self._iti_us
 
@@ -397,7 +416,7 @@ class TrialBuilder:
         if hold < self._min_hold:
             self.counts["short_push"] += 1
             return
-        self._attempt(_Attempt(start, hold, self._classify(hold, rules), rules, segment, t), out)
+        self._attempt(_Attempt(start, hold, self._classify(t - start, rules), rules, segment, t), out)
         if not self._framed:
             self._iti_until = t + self._iti_us
 
