@@ -14,7 +14,7 @@ from monitor.store.writer import StoreWriter
 from monitor.ui.main_window import MainWindow
 from monitor.ui.models import CheckIn, Severity
 from fixtures.protocols import protocol_toml
-from fixtures.sessions import session_bytes
+from fixtures.sessions import params_bytes, session_bytes
 
 pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
@@ -222,7 +222,7 @@ def test_params_sent_before_check_in_are_the_sessions_and_the_box_names_the_stag
     protocol = log.with_name("staged.toml")
     protocol.write_text(STAGED_TEXT)
     box2 = log.with_name("box2.rsw")
-    box2.write_bytes(streams.params_bytes(("stage", "final"), ("window_low_ms", "220"), ("window_high_ms", "660")))
+    box2.write_bytes(params_bytes(("stage", "final"), ("window_low_ms", "220"), ("window_high_ms", "660")))
     controller.add_rig(RigSpec("box 2", "file", str(box2), protocol))
     # nobody checked in yet: a new animal defaults to the protocol's first stage, unless the box said its own
     qtbot.waitUntil(lambda: controller.rigs["box 2"].snapshot is not None
@@ -255,7 +255,7 @@ def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_af
 
     controller, window, log, store, db = rig
     with log.open("ab") as fh:
-        fh.write(streams.session_bytes([650, 700, 640, 1000, 655]))
+        fh.write(session_bytes([650, 700, 640, 1000, 655]))
     qtbot.waitUntil(lambda: (controller.board.state("box 1") or None) is not None
                     and controller.board.state("box 1").connection is Connection.UNATTENDED, timeout=10000)
     assert controller.board.state("box 1").unattended_presses == 15          # 5 trial starts + 10 presses
@@ -274,7 +274,7 @@ def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_af
     assert controller.rigs["box 1"].idle_session_id != old
     # the box's next data go to a fresh run of no animal
     with log.open("ab") as fh:
-        fh.write(streams.session_bytes([650, 700], start_ms=60_000).split(b"\n", 1)[1])
+        fh.write(session_bytes([650, 700], start_ms=60_000).split(b"\n", 1)[1])
     qtbot.waitUntil(lambda: controller.board.state("box 1").unattended_presses == 6, timeout=10000)
 
 

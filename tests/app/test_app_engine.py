@@ -9,13 +9,13 @@ import pytest
 from statsmodels.stats.proportion import proportion_confint
 
 from drivers.status import READING, WAITING, Batch, SourceStatus
-from drivers.wire import Event, WireDecoder, encode_event
+from drivers.wire import Event, WireDecoder
 from monitor.app.engine import Engine, SessionPlan, link_of
 from monitor.app.pipeline import Fanout
 from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import build_trials
 from fixtures.protocols import two_press
-from fixtures.sessions import session_bytes
+from fixtures.sessions import params_bytes, session_bytes
 
 PROTOCOL = two_press(plateau_sessions=3, min_trials=5)
 
@@ -200,12 +200,6 @@ adaptive = { every = 20, target_rate = 0.5, step = 0.025, min_tolerance = 0.15, 
 [[stages]]
 name = "final"
 """, "adaptive.toml")
-
-
-def params_bytes(*pairs, header=True) -> bytes:
-    out = [b"# rigside-wire 1 clock=us wrap=32\n"] if header else []
-    out += [encode_event(500_000 + k, "param", name, value) for k, (name, value) in enumerate(pairs)]
-    return b"".join(out)
 
 
 def test_the_window_a_box_sent_before_check_in_is_in_force():
