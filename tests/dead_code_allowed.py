@@ -21,7 +21,6 @@ signum
 
 # -- fields of records written out whole (JSON reports, exports, status views, plain())
 other_lines
-discarded_bytes
 last_notice
 today_outside
 rolling_hits

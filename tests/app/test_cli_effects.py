@@ -208,10 +208,8 @@ def test_list_verifies_the_chain_and_withdraw_appends(capsys, recorded, tmp_path
 def test_nwb_carries_the_manipulations_as_an_intervals_table(capsys, recorded, tmp_path):
     pynwb = pytest.importorskip("pynwb")
     from monitor.store.nwb_export import file_name
+
     db, _, _ = recorded
-    conn = sqlite3.connect(db)
-    ids = [r[0] for r in conn.execute("SELECT id FROM sessions WHERE animal = 'alder' ORDER BY started_at")]
-    conn.close()
     code, _, err = rigside(capsys, "export", "--db", db, "--nwb", tmp_path)
     assert code == 0, err
     with pynwb.NWBHDF5IO(str(tmp_path / file_name("alder", 10)), "r") as io:   # read back with pynwb

@@ -13,7 +13,6 @@ from pathlib import Path
 
 import pytest
 
-from mock_rig.history import cohort
 from monitor.app.cli import main
 from monitor.store.db import open_store
 

@@ -80,15 +80,19 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("--csv: give the CSV file to write")
     if args.lab is not None:
         return _export_lab(args)
-    conn = _open(args)
+    rows = _write_csv(_open(args), args)
+    print(f"exported {rows} {args.what} to {args.csv}")
+    return 0
+
+
+def _write_csv(conn, args: argparse.Namespace) -> int:
+    """Write the events or trials CSV from `conn` (closed afterwards); return the rows written."""
     try:
-        rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
+        return (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
     except OSError as exc:
         raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
     finally:
         conn.close()
-    print(f"exported {rows} {args.what} to {args.csv}")
-    return 0
 
 
 def _open(args: argparse.Namespace):
@@ -110,12 +114,7 @@ def _export_lab(args: argparse.Namespace) -> int:
         if args.nwb is not None:
             conn.close()
             return _export_nwb(args, Path(directory) / "lab-copy.sqlite3")
-        try:
-            rows = (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
-        except OSError as exc:
-            raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
-        finally:
-            conn.close()
+        rows = _write_csv(conn, args)
     print(f"exported {rows} {args.what} from the lab to {args.csv}")
     return 0
 

@@ -48,6 +48,8 @@ def run(args: argparse.Namespace) -> int:
     for option in ("rig", "started", "animal", "operator", "reason"):
         if not (getattr(args, option) or "").strip():
             raise UsageError(f"--{option}: needed to give a run")
+    from monitor.app.commands.record import _read_protocol
+
     protocol = _read_protocol(args.protocol) if args.protocol else None
     trials = write_transaction(args.db, WAIT_S, lambda conn: _give(conn, args, protocol))
     print(f"{trials} trials from {args.rig} (started {args.started}) given to {args.animal}; logged.")
@@ -86,18 +88,3 @@ def _give(conn, args, protocol: dict | None) -> int:
                         reason=args.reason, protocol_id=protocol_id, stage=args.stage)
     except RecordError as exc:
         raise UsageError(str(exc)) from None
-
-
-def _read_protocol(path: Path) -> dict:
-    from drivers.config import ConfigError
-    from monitor.core.protocol import parse_protocol
-
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise UsageError(f"--protocol: cannot read {path} ({getattr(exc, 'strerror', None) or exc})") from None
-    try:
-        protocol = parse_protocol(text, str(path))
-    except ConfigError as exc:
-        raise UsageError(f"--protocol: {exc}") from None
-    return {"name": protocol.name, "version": protocol.version, "text": text}
