@@ -17,6 +17,14 @@ from monitor.core.session.trials import Trial
 TARGET = 650.0
 
 
+def _seeded(seed: int) -> dict:
+    """scipy.stats.bootstrap's generator argument: `rng` from scipy 1.15, `random_state` before it."""
+    import inspect
+
+    name = "rng" if "rng" in inspect.signature(stats.bootstrap).parameters else "random_state"
+    return {name: np.random.default_rng(seed)}
+
+
 def _session(index: int, rng: np.random.Generator, n: int = 300, p_hit: float = 0.6, p_premature: float = 0.05,
              minutes: float | None = 30.0) -> SessionTrials:
     """Attempts drawn at random: premature, else hit (interval inside ±20 %) or miss."""
@@ -66,7 +74,7 @@ def test_stratified_bootstrap_agrees_with_scipy():
     # bootstrap (scipy documentation, scipy.stats.bootstrap, "data: ... each sample is resampled independently")
     ref = stats.bootstrap(tuple(_codes(s) for s in (test, *base)), statistic, n_resamples=20000,
                           method="percentile", confidence_level=0.95, vectorized=True,
-                          rng=np.random.default_rng(4)).confidence_interval
+                          **_seeded(4)).confidence_interval
     assert ours.low == pytest.approx(ref.low, abs=0.006)     # Monte Carlo error of 20,000 resamples: ~0.002
     assert ours.high == pytest.approx(ref.high, abs=0.006)
     assert ours.effect == pytest.approx(statistic(*(_codes(s) for s in (test, *base))))
@@ -163,6 +171,6 @@ def test_interval_error_bootstrap_agrees_with_scipy():
 
     # scipy.stats.bootstrap, two samples resampled independently, numpy's nanmedian as the statistic
     ref = stats.bootstrap((errors(test), errors(base)), statistic, n_resamples=20000, method="percentile",
-                          vectorized=True, rng=np.random.default_rng(6)).confidence_interval
+                          vectorized=True, **_seeded(6)).confidence_interval
     assert ours.effect == pytest.approx(statistic(errors(test), errors(base)))
     assert ours.low == pytest.approx(ref.low, abs=0.01) and ours.high == pytest.approx(ref.high, abs=0.01)
