@@ -90,6 +90,17 @@ def test_reasons_name_the_figures():
     assert "slow-state fraction 0.74" in waiting
 
 
+def test_a_fraction_the_data_do_not_constrain_is_read_as_its_interval_only():
+    # a rule may accept "not constrained" (slow_fraction_status); its words then give no point value
+    text = RULE_TEXT.replace('max_slow_fraction = 0.5\n', 'max_slow_fraction = 0.5\n'
+                             'slow_fraction_status = ["estimated", "not constrained"]\n')
+    early = evaluate(rule(text), figures(10, slow_estimate=0.85, slow_low=0.01, slow_high=1.0,
+                                         slow_status="not constrained")).status("early")
+    words = " ".join(early.met + early.unmet)
+    assert "slow-state fraction: no point value (0.01–1.00, not constrained; needs ≤ 0.5)" in words
+    assert "0.85" not in words
+
+
 def test_the_model_figure_never_opens_a_window_without_its_transparent_measure():
     bad_cv = evaluate(rule(), figures(18, measures={"interval_error": 0.12, "cv": 0.4}))
     assert bad_cv.kind == WAITING and not bad_cv.open_groups

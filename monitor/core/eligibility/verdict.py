@@ -104,8 +104,10 @@ def _value_text(bound: Bound, value: float | None) -> str:
 
 
 def _slow_value(figures: AnimalFigures, need: str) -> str:
-    """'slow-state fraction 0.33 (0.23–0.43, estimated; needs ≤ 0.5)'."""
-    return (f"slow-state fraction {figures.slow_estimate:.2f} "
+    """'slow-state fraction 0.33 (0.23–0.43, estimated; needs ≤ 0.5)'; a point only when the status is
+    "estimated", else the interval alone ('slow-state fraction: no point value (0.01–1.00, not constrained; ...)')."""
+    point = f" {figures.slow_estimate:.2f}" if figures.slow_status == "estimated" else ": no point value"
+    return (f"slow-state fraction{point} "
             f"({figures.slow_low:.2f}–{figures.slow_high:.2f}, {figures.slow_status}; needs {need})")
 
 
