@@ -66,6 +66,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--csv", type=Path, help="CSV file to write")
     parser.add_argument("--nwb", type=Path, help="directory for NWB files")
     add_settings_argument(parser)
+    parser.add_argument("--quiet", action="store_true", help="no progress bar (NWB)")
     add_lab_argument(parser, reader=True)
 
 
@@ -127,6 +128,7 @@ def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
         import pynwb  # noqa: F401 - checked before anything is written
     except ImportError:
         raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
+    from monitor.app.progress import Progress
     from monitor.store.db import open_store
     from monitor.store.nwb_export import export_nwb
 
@@ -135,12 +137,22 @@ def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
     except ValueError as exc:
         raise UsageError(f"--settings: {exc}") from None
     conn = _open(args) if copy is None else open_store(copy, readonly=True)
+    bar: list[Progress] = []  # made at the first file, when the number of sessions is known
+
+    def written(done: int, total: int, path: Path) -> None:
+        if not bar:
+            bar.append(Progress(total, "session", "exporting NWB", quiet=args.quiet))
+        bar[0].advance(done - bar[0].done)
+        bar[0].say(f"[{done}/{total}] {path.name}")
+
     try:
-        result = export_nwb(conn, args.nwb, settings, lambda i, n, p: print(f"[{i}/{n}] {p.name}", file=sys.stderr))
+        result = export_nwb(conn, args.nwb, settings, written)
     except OSError as exc:
         raise UsageError(f"--nwb: cannot write into {args.nwb} ({exc.strerror or exc})") from None
     finally:
         conn.close()
+        for progress in bar:
+            progress.close()
     for line in result.warnings:
         print(f"rigside export: warning: {line}", file=sys.stderr)
     print(f"exported {len(result.written)} sessions to {args.nwb}")
