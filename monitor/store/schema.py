@@ -42,7 +42,7 @@ DELETE, like the decisions.
 Lab sync: lab_sync (this PC's lab identity and the last sync's state, key ->
 value) and lab_bookmarks (the lab's bookmarks as last seen, for "rows
 waiting" while the server is away); monitor.store.lab_sync writes both.
-Manipulations (the effects issue's migration): manipulations, one row per
+Manipulations: manipulations, one row per
 recorded manipulation or its withdrawal (acute or lasting, test or control,
 the first affected session, an acute test's control session, the group or its
 code, the frozen stage at the time), hash-chained and insert-only like the
