@@ -17,7 +17,7 @@ from typing import Any, Callable
 from PySide6.QtCore import QObject, Qt
 from PySide6.QtWidgets import QWidget
 
-from monitor.store import db
+from monitor.app.store_access import read_job
 
 
 def session_choices(conn: Any, animal: str) -> list[tuple[int, str]]:
@@ -49,15 +49,7 @@ class EffectsSide(QObject):
             self._window().statusBar().showMessage(message, 15000)
 
     def _read(self, fn: Callable[[Any], Any]) -> Callable[[Any], Any]:
-        path = Path(self.controller.writer.path)
-
-        def work(job) -> Any:
-            conn = db.open_store(path, readonly=True)
-            try:
-                return fn(conn)
-            finally:
-                conn.close()
-        return work
+        return read_job(Path(self.controller.writer.path), fn)
 
     def _show(self, widget: QWidget) -> QWidget:
         widget.setAttribute(Qt.WidgetAttribute.WA_DeleteOnClose)

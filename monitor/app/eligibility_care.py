@@ -40,7 +40,7 @@ from monitor.core.eligibility.decision_log import ChainCheck, LogEntry, rule_agr
 from monitor.core.eligibility.labels import LABELS
 from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.eligibility.verdict import Verdict, window_changes
-from monitor.store import db
+from monitor.app.store_access import read_job
 from monitor.ui.cohort import CohortRow, CohortTable, CohortView
 from monitor.ui.care_panel import LEVELS, CareEntry, CarePanel, CareRow, CareView, sheet_image
 from monitor.ui.decision_dialog import DECISIONS, DecisionDialog, DecisionRequest, DecisionView
@@ -260,15 +260,7 @@ class DecisionsAndCare(QObject):
         return window.alert_panel.operator.text().strip() if window is not None else ""
 
     def _read(self, fn: Callable[[Any], Any]) -> Callable[[Any], Any]:
-        path = Path(self.controller.writer.path)
-
-        def work(job) -> Any:
-            conn = db.open_store(path, readonly=True)
-            try:
-                return fn(conn)
-            finally:
-                conn.close()
-        return work
+        return read_job(Path(self.controller.writer.path), fn)
 
     def _show(self, dialog: QWidget) -> QWidget:
         dialog.setAttribute(Qt.WidgetAttribute.WA_DeleteOnClose)

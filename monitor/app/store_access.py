@@ -5,6 +5,8 @@ process, such as the window's writer or a recorder, may hold the write lock);
 `work(conn)` runs inside `BEGIN IMMEDIATE` and is committed whole or rolled
 back whole, whatever it raises. A store that cannot be opened, or a lock not
 freed in time, is a `UsageError` naming `--db`, with nothing written.
+`read_job` is the window's read: a worker job that opens the store read-only,
+runs `fn(conn)` and closes it.
 """
 
 from __future__ import annotations
@@ -43,3 +45,16 @@ def write_transaction(db: Path | None, wait_s: float, work: Callable[[Connection
         raise UsageError(f"--db: {path}: {exc} (waited {wait_s:g} s); nothing recorded") from None
     finally:
         conn.close()
+
+
+def read_job(path: Path, fn: Callable[[Connection], T]) -> Callable[[object], T]:
+    """A worker job (it takes the job handle) that runs `fn` on a read-only connection to the store at `path`."""
+    from monitor.store.db import open_store
+
+    def work(job: object) -> T:
+        conn = open_store(path, readonly=True)
+        try:
+            return fn(conn)
+        finally:
+            conn.close()
+    return work
