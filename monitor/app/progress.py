@@ -1,29 +1,62 @@
-"""Progress of a long command on a terminal: a bar with counts, rate and time left.
+"""Progress and cancel of long work: a bar on a terminal, the same counts in the window.
 
-Rule: a command that can run longer than two seconds (import, export) counts
-its work through `Progress`; on a terminal that is a tqdm bar on stderr,
-redrawn at most ten times a second; when stderr is not a terminal, or with
-`--quiet`, nothing is drawn, so logs and pipes stay clean. Lines a command
-prints while a bar is up go through `Progress.say`, which keeps the bar
-below them. The closing summary line is the command's own (it prints it
-whether or not a bar was shown).
+Rule: a long piece of work (import, export, backup, verify, sync) is one
+function that takes a `Tracker`: it says its total (`begin`), counts units
+done (`advance`), prints its lines through `say`, and asks `cancelled()` at
+every safe point (between files, sessions or chunks), where it stops and
+returns what it finished; it writes files under a temporary name and
+database rows in transactions, so stopping anywhere leaves nothing
+half-written. The command line's tracker is `Progress`: on a terminal a tqdm
+bar on stderr with counts, rate and time left, redrawn at most ten times a
+second; when stderr is not a terminal, or with `--quiet`, nothing is drawn,
+so logs and pipes stay clean. Inside `with Progress(...)` on the main thread
+the first Ctrl-C only asks the work to stop at its next safe point (the
+command then names what was finished and exits 130); a second Ctrl-C
+interrupts at once. The window's tracker is monitor.app.file_jobs'. The
+closing summary line is the command's own.
 """
 
 from __future__ import annotations
 
+import signal
 import sys
-from typing import TextIO
+import threading
+from typing import Any, Protocol, TextIO
+
+INTERRUPTED = 130  # the exit code of a command stopped by Ctrl-C (128 + SIGINT), as shells report it
+
+
+class Tracker(Protocol):
+    """What long work reports to, and asks whether to stop."""
+
+    def begin(self, total: int, unit: str, label: str) -> None: ...
+
+    def advance(self, amount: int = 1) -> None: ...
+
+    def say(self, line: str) -> None: ...
+
+    def cancelled(self) -> bool: ...
 
 
 class Progress:
-    """Work done of `total` units; a context manager that closes the bar."""
+    """Work done of `total` units on a terminal; a context manager that closes the bar and catches Ctrl-C."""
 
-    def __init__(self, total: int, unit: str, label: str, quiet: bool = False, stream: TextIO | None = None) -> None:
+    def __init__(self, total: int = 0, unit: str = "", label: str = "", quiet: bool = False,
+                 stream: TextIO | None = None) -> None:
         self.stream = stream if stream is not None else sys.stderr
         self.shown = not quiet and _is_terminal(self.stream)
         self.done = 0
         self.total = total
-        self._bar = None
+        self._bar: Any = None
+        self._stop = threading.Event()
+        self._previous_handler: Any = None
+        if total:
+            self.begin(total, unit, label)
+
+    def begin(self, total: int, unit: str, label: str) -> None:
+        """Start (or restart) the bar for `total` units."""
+        self.close()
+        self.done, self.total = 0, total
         if self.shown:
             from tqdm import tqdm  # lazy: only a terminal needs it
 
@@ -43,16 +76,46 @@ class Progress:
         else:
             print(line, file=self.stream)
 
+    def cancelled(self) -> bool:
+        """True once Ctrl-C was pressed inside the `with` block."""
+        return self._stop.is_set()
+
     def close(self) -> None:
         if self._bar is not None:
             self._bar.close()
             self._bar = None
 
+    def _interrupt(self, signum: int, frame: object) -> None:
+        """First Ctrl-C: stop at the next safe point; the next one interrupts at once."""
+        self._stop.set()
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+
     def __enter__(self) -> Progress:
+        if threading.current_thread() is threading.main_thread():
+            self._previous_handler = signal.signal(signal.SIGINT, self._interrupt)
         return self
 
     def __exit__(self, *exc: object) -> None:
         self.close()
+        if self._previous_handler is not None:
+            signal.signal(signal.SIGINT, self._previous_handler)
+            self._previous_handler = None
+
+
+class Quiet:
+    """A tracker that shows nothing and never stops (work run where nobody watches, such as a test)."""
+
+    def begin(self, total: int, unit: str, label: str) -> None:
+        """Nothing to show."""
+
+    def advance(self, amount: int = 1) -> None:
+        """Nothing to count."""
+
+    def say(self, line: str) -> None:
+        """Nothing to print."""
+
+    def cancelled(self) -> bool:
+        return False
 
 
 def _is_terminal(stream: TextIO) -> bool:

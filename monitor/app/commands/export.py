@@ -10,7 +10,11 @@ Trials: one row per derived trial (TRIAL_CSV_COLUMNS, units in
 docs/export.md), sessions in time order, excluded sessions included with
 their flag. The store is opened read-only and streamed, so exporting never
 holds a whole table in memory and never blocks recording. A CSV is written
-under a temporary name and renamed when complete. A cell that begins with
+under a temporary name and renamed when complete; `export_csv` is the work
+both this command and the window's File > Export run: it counts rows on a
+`Tracker` (a bar on a terminal, not with `--quiet`) and, asked to stop
+(Ctrl-C, the window's Cancel), removes the temporary file and leaves any
+earlier file under the name untouched (exit 130). A cell that begins with
 = + - @ (or a tab or carriage return) and is not a number gets a leading
 apostrophe, so a spreadsheet shows it instead of running it. NWB: one file
 per session (monitor.store.nwb_export; needs the `nwb` extra), a progress
@@ -27,7 +31,12 @@ from __future__ import annotations
 import argparse
 import csv
 import re
+import sys
+from collections.abc import Callable
 from pathlib import Path
+from typing import NamedTuple
+
+from monitor.app.progress import INTERRUPTED, Progress, Tracker
 
 from monitor.app.errors import UsageError
 from monitor.app.lab_access import add_lab_argument, lab_call
@@ -42,6 +51,7 @@ TRIAL_CSV_COLUMNS = ("animal", "session", "session_start", "rig", "label", "excl
                      "window_low_ms", "window_high_ms", "stage", "segment")
 _NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+ROWS_PER_TICK = 5000  # rows between two progress counts and cancel checks
 
 _EVENTS_SQL = """
 SELECT s.animal, e.session_id, s.rig, e.segment, e.line, e.raw_time, e.t_us, c.name, e.value, s.start_wall
@@ -66,7 +76,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--csv", type=Path, help="CSV file to write")
     parser.add_argument("--nwb", type=Path, help="directory for NWB files")
     add_settings_argument(parser)
-    parser.add_argument("--quiet", action="store_true", help="no progress bar (NWB)")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
     add_lab_argument(parser, reader=True)
 
 
@@ -81,19 +91,65 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("--csv: give the CSV file to write")
     if args.lab is not None:
         return _export_lab(args)
-    rows = _write_csv(_open(args), args)
-    print(f"exported {rows} {args.what} to {args.csv}")
-    return 0
+    return _write_csv(_open(args), args)
 
 
-def _write_csv(conn, args: argparse.Namespace) -> int:
-    """Write the events or trials CSV from `conn` (closed afterwards); return the rows written."""
+class CsvExport(NamedTuple):
+    """What `export_csv` did: rows written, or stopped before the file was complete."""
+
+    what: str
+    path: Path
+    rows: int
+    seconds: float
+    stopped: bool
+
+    def summary(self, source: str = "") -> str:
+        if self.stopped:
+            return (f"interrupted: the {self.what} export stopped after {self.rows} rows; "
+                    f"nothing was written under {self.path}")
+        return f"exported {self.rows} {self.what}{source} to {self.path} in {self.seconds:.1f} s"
+
+
+class _Stop(Exception):
+    """Raised inside the writing block to unwind it (the temporary file is removed)."""
+
+
+def export_csv(conn, what: str, path: Path, tracker: Tracker) -> CsvExport:
+    """Write the `what` ("events" or "trials") CSV from `conn` to `path`, counting rows on `tracker`."""
+    import time
+
+    started = time.monotonic()
+    table = "events" if what == "events" else "trials"
+    tracker.begin(conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0], "row", f"exporting {what}")
+    written = [0]
+
+    def tick(rows: int) -> None:
+        tracker.advance(rows - written[0])
+        written[0] = rows
+        if tracker.cancelled():
+            raise _Stop()
     try:
-        return (write_events_csv if args.what == "events" else write_trials_csv)(conn, args.csv)
+        rows = (write_events_csv if what == "events" else write_trials_csv)(conn, path, tick)
+    except _Stop:
+        return CsvExport(what, path, written[0], time.monotonic() - started, True)
+    tracker.advance(rows - written[0])
+    return CsvExport(what, path, rows, time.monotonic() - started, False)
+
+
+def _write_csv(conn, args: argparse.Namespace, source: str = "") -> int:
+    """Write the events or trials CSV from `conn` (closed afterwards), with the summary line; the exit code."""
+    try:
+        with Progress(quiet=args.quiet) as progress:
+            result = export_csv(conn, args.what, args.csv, progress)
     except OSError as exc:
         raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
     finally:
         conn.close()
+    if result.stopped:
+        print(result.summary(), file=sys.stderr)
+        return INTERRUPTED
+    print(result.summary(source))
+    return 0
 
 
 def _open(args: argparse.Namespace):
@@ -115,15 +171,11 @@ def _export_lab(args: argparse.Namespace) -> int:
         if args.nwb is not None:
             conn.close()
             return _export_nwb(args, Path(directory) / "lab-copy.sqlite3")
-        rows = _write_csv(conn, args)
-    print(f"exported {rows} {args.what} from the lab to {args.csv}")
-    return 0
+        return _write_csv(conn, args, " from the lab")
 
 
 def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
     """NWB files from the store at --db, or from `copy` (the lab's rows in a scratch store)."""
-    import sys
-
     try:
         import pynwb  # noqa: F401 - checked before anything is written
     except ImportError:
@@ -180,8 +232,8 @@ def _atomic(path: Path):
     return writing()
 
 
-def write_events_csv(conn, path: Path) -> int:
-    """Stream every event to `path`; return the number of rows written."""
+def write_events_csv(conn, path: Path, tick: Callable[[int], None] | None = None) -> int:
+    """Stream every event to `path`; return the number of rows written (`tick(rows)` every ROWS_PER_TICK)."""
     from datetime import datetime
 
     from monitor.store.session_time import SessionClock, start_shift_us, wall_clock
@@ -201,11 +253,13 @@ def write_events_csv(conn, path: Path) -> int:
             writer.writerow([safe_cell(v) for v in (animal, session, rig, segment, line, raw, t_us,
                                                     f"{seconds:.6f}", wall_clock(start, seconds), event, value)])
             count += 1
+            if tick is not None and count % ROWS_PER_TICK == 0:
+                tick(count)
     return count
 
 
-def write_trials_csv(conn, path: Path) -> int:
-    """Stream every derived trial to `path`; return the number of rows written."""
+def write_trials_csv(conn, path: Path, tick: Callable[[int], None] | None = None) -> int:
+    """Stream every derived trial to `path`; return the number of rows written (`tick(rows)` every ROWS_PER_TICK)."""
     from monitor.store.session_time import start_shift_us
 
     shifts: dict[int, int] = {}
@@ -220,6 +274,8 @@ def write_trials_csv(conn, path: Path) -> int:
             seconds = f"{(shifts[session] + row[7]) / 1e6:.6f}"
             writer.writerow([safe_cell(v) for v in (*row[:8], seconds, *row[8:])])
             count += 1
+            if tick is not None and count % ROWS_PER_TICK == 0:
+                tick(count)
     return count
 
 

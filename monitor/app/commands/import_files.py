@@ -15,7 +15,11 @@ each imported animal's report entry is built once and cached, and (unless
 per core) and cached (monitor.store.consolidation_fits), one stderr line per
 animal. One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
 session, 5123 events, 0 malformed, 402 attempts`) below a progress bar on a terminal
-(not with `--quiet`), a summary line to stdout.
+(not with `--quiet`), a summary line to stdout. `import_files` is the work
+both this command and the window's File > Import run (a `Tracker` counts
+files and asks whether to stop): asked to stop (Ctrl-C, the window's
+Cancel) it finishes the file being stored and stops, naming how far it got
+(exit 130); a second Ctrl-C rolls that file back.
 Sessions, animals and times: monitor.store.importer and docs/store.md.
 """
 
@@ -25,11 +29,13 @@ import argparse
 import os
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any, Iterator, NamedTuple
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
+from monitor.app.progress import Tracker
 
 WAIT_S = 60.0
 PARALLEL_BYTES = 4_000_000  # with --jobs 0, files adding up to less than this are read in this process
@@ -56,41 +62,91 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "resumes an interrupted import")
 
 
+class Imported(NamedTuple):
+    """What `import_files` did: files imported of those given, what they held, and whether it was stopped."""
+
+    files: int
+    imported: int
+    skipped: list[Path]
+    sessions: int
+    events: int
+    malformed: int
+    trials: int
+    animals: list[str]
+    last: str | None
+    seconds: float
+    stopped: bool
+
+    def summary(self) -> str:
+        """The closing line: the counts, or (stopped) how far it got and how to finish."""
+        if self.stopped:
+            last = f" (the last: {self.last})" if self.last else ""
+            return (f"interrupted: {self.imported} of {self.files} files imported{last}; the other "
+                    f"{self.files - self.imported} were not touched and are imported by the same command with "
+                    "--skip-imported")
+        return (f"imported {self.files} files: {_n(self.sessions, 'session')}, {self.events} events, "
+                f"{self.malformed} malformed lines, {self.trials} attempts (trials, lone, premature, omitted) "
+                f"in {self.seconds:.1f} s")
+
+
 def run(args: argparse.Namespace) -> int:
+    from monitor.app.progress import INTERRUPTED, Progress
+
+    with Progress(quiet=args.quiet) as progress:
+        result = import_files(resolve_db(args.db), args.files, args.protocol, progress, animal=args.animal,
+                              mapping_path=args.mapping, gap_hours=args.gap_hours, wait=args.wait, jobs=args.jobs,
+                              skip_imported=args.skip_imported)
+    if result.stopped:
+        print(result.summary(), file=sys.stderr)
+        return INTERRUPTED
+    if not args.no_fit and result.animals:
+        _refit(resolve_db(args.db), result.animals, progress.say)
+    if result.skipped:
+        print(f"skipped {len(result.skipped)} already imported", file=sys.stderr)
+    print(result.summary())
+    return 0
+
+
+def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Tracker, *, animal: str | None = None,
+                 mapping_path: Path | None = None, gap_hours: float = 2.0, wait: float = WAIT_S, jobs: int = 0,
+                 skip_imported: bool = False) -> Imported:
+    """Check and import `files` into the store at `db`, one transaction per file, counting files on `tracker`.
+
+    Bad input is a UsageError naming the option (nothing imported); asked to stop, it stops after the
+    file being stored (a second Ctrl-C rolls that file back) and says how far it got."""
     import sqlite3
 
     from drivers.config import ConfigError
 
     from monitor.app.commands.record import _read_protocol
-    from monitor.app.progress import Progress
     from monitor.store.db import StoreError, open_store
     from monitor.store.importer import ImportRefused, already_imported, file_digest, rig_calibrations, store_parsed
     from monitor.store.reporting import refresh_cache
 
-    if not args.gap_hours > 0:
-        raise UsageError(f"--gap-hours: must be above 0, got {args.gap_hours:g}")
-    if not args.wait >= 0:
-        raise UsageError(f"--wait: must be 0 or more, got {args.wait:g}")
-    if args.jobs < 0:
-        raise UsageError(f"--jobs: must be 0 (one per core) or more, got {args.jobs}")
-    protocol = _read_protocol(args.protocol)
+    if not gap_hours > 0:
+        raise UsageError(f"--gap-hours: must be above 0, got {gap_hours:g}")
+    if not wait >= 0:
+        raise UsageError(f"--wait: must be 0 or more, got {wait:g}")
+    if jobs < 0:
+        raise UsageError(f"--jobs: must be 0 (one per core) or more, got {jobs}")
+    protocol = _read_protocol(protocol_path)
     mapping = mapping_text = None
-    if args.mapping is not None:
+    if mapping_path is not None:
         from drivers.mapping import parse_mapping
 
         try:
-            mapping_text = args.mapping.read_text(encoding="utf-8")
-            mapping = parse_mapping(mapping_text, str(args.mapping))
+            mapping_text = mapping_path.read_text(encoding="utf-8")
+            mapping = parse_mapping(mapping_text, str(mapping_path))
         except OSError as exc:
-            raise UsageError(f"--mapping: cannot read {args.mapping} ({exc.strerror or exc})") from None
+            raise UsageError(f"--mapping: cannot read {mapping_path} ({exc.strerror or exc})") from None
         except ConfigError as exc:
             raise UsageError(f"--mapping: {exc}") from None
-    if args.animal is not None and not args.animal.strip():
+    if animal is not None and not animal.strip():
         raise UsageError("--animal: must not be empty")
 
     contents: list[tuple[Path, bytes]] = []
     seen: dict[str, Path] = {}
-    for path in args.files:
+    for path in files:
         try:
             data = path.read_bytes()
         except OSError as exc:
@@ -102,7 +158,7 @@ def run(args: argparse.Namespace) -> int:
         contents.append((path, data))
 
     try:
-        conn = open_store(resolve_db(args.db), busy_timeout_ms=int(args.wait * 1000))
+        conn = open_store(db, busy_timeout_ms=int(wait * 1000))
     except StoreError as exc:
         raise UsageError(f"--db: {exc}") from None
     imported = 0
@@ -111,46 +167,49 @@ def run(args: argparse.Namespace) -> int:
         for path, data in contents:
             earlier = already_imported(conn, file_digest(data))
             if earlier is not None:
-                if not args.skip_imported:
+                if not skip_imported:
                     raise UsageError(f"FILE: {path} was already imported (same content as {earlier[0]}); "
                                      "nothing imported (--skip-imported imports the rest)")
                 skipped.append(path)
-                print(f"skipped {path}: already imported (same content as {earlier[0]})", file=sys.stderr)
+                tracker.say(f"skipped {path}: already imported (same content as {earlier[0]})")
         contents = [(path, data) for path, data in contents if path not in skipped]
         started = time.monotonic()
         animals: set[str] = set()
         totals = [0, 0, 0, 0]
-        parsed_files = _parse_all(contents, protocol["text"], args.animal, mapping, args.gap_hours * 3600.0,
-                                  rig_calibrations(conn), args.jobs)
+        parsed_files = _parse_all(contents, protocol["text"], animal, mapping, gap_hours * 3600.0,
+                                  rig_calibrations(conn), jobs)
         interrupted = False
-        with Progress(len(contents), "file", "importing", quiet=args.quiet) as progress:
-            try:
-                for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
-                    conn.execute("BEGIN IMMEDIATE")
-                    try:
-                        result = store_parsed(conn, parsed, protocol_text=protocol["text"],
-                                              protocol_name=protocol["name"], protocol_version=protocol["version"],
-                                              mapping_text=mapping_text)
-                        conn.execute("COMMIT")
-                    except BaseException:
-                        if conn.in_transaction:
-                            conn.execute("ROLLBACK")
-                        raise
-                    imported += 1
-                    progress.advance()
-                    animals.update(result.animals)
-                    for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
-                        totals[i] += value
-                    progress.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
-                                 f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
-                    for notice in result.notices:
-                        progress.say(f"  {path.name}: {notice}")
-            except KeyboardInterrupt:  # Ctrl-C: the file being stored was rolled back, the finished ones stay
-                interrupted = True
-        for animal in sorted(animals):  # the report entry is built once per animal, after its files
+        tracker.begin(len(contents), "file", "importing")
+        try:
+            for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
+                if tracker.cancelled():
+                    interrupted = True
+                    break
+                conn.execute("BEGIN IMMEDIATE")
+                try:
+                    result = store_parsed(conn, parsed, protocol_text=protocol["text"],
+                                          protocol_name=protocol["name"], protocol_version=protocol["version"],
+                                          mapping_text=mapping_text)
+                    conn.execute("COMMIT")
+                except BaseException:
+                    if conn.in_transaction:
+                        conn.execute("ROLLBACK")
+                    raise
+                imported += 1
+                tracker.advance()
+                animals.update(result.animals)
+                for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
+                    totals[i] += value
+                tracker.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
+                            f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
+                for notice in result.notices:
+                    tracker.say(f"  {path.name}: {notice}")
+        except KeyboardInterrupt:  # a second Ctrl-C: the file being stored was rolled back, the finished ones stay
+            interrupted = True
+        for name in sorted(animals):  # the report entry is built once per animal, after its files
             conn.execute("BEGIN IMMEDIATE")
             try:
-                refresh_cache(conn, animal)
+                refresh_cache(conn, name)
                 conn.execute("COMMIT")
             except BaseException:
                 if conn.in_transaction:
@@ -161,24 +220,13 @@ def run(args: argparse.Namespace) -> int:
     except ConfigError as exc:
         raise UsageError(f"--mapping: {exc}") from None
     except sqlite3.OperationalError as exc:
-        waited = f"waited {args.wait:g} s; " if "locked" in str(exc) or "busy" in str(exc) else ""
-        raise UsageError(f"--db: {resolve_db(args.db)}: {exc} ({waited}{imported} of {len(contents)} files "
+        waited = f"waited {wait:g} s; " if "locked" in str(exc) or "busy" in str(exc) else ""
+        raise UsageError(f"--db: {db}: {exc} ({waited}{imported} of {len(contents)} files "
                          "imported, the rest not: run the same command with --skip-imported to import them)") from None
     finally:
         conn.close()
-    if interrupted:
-        rest = len(contents) - imported
-        last = f" (the last: {contents[imported - 1][0].name})" if imported else ""
-        print(f"interrupted: {imported} of {len(contents)} files imported{last}; the other {rest} were not touched "
-              "and are imported by the same command with --skip-imported", file=sys.stderr)
-        return 130
-    if not args.no_fit and animals:
-        _refit(resolve_db(args.db), sorted(animals))
-    if skipped:
-        print(f"skipped {len(skipped)} already imported", file=sys.stderr)
-    print(f"imported {len(contents)} files: {_n(totals[0], 'session')}, {totals[1]} events, {totals[2]} malformed "
-          f"lines, {totals[3]} attempts (trials, lone, premature, omitted) in {time.monotonic() - started:.1f} s")
-    return 0
+    return Imported(len(contents), imported, skipped, *totals, sorted(animals),
+                    contents[imported - 1][0].name if imported else None, time.monotonic() - started, interrupted)
 
 
 def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: str | None, mapping: Any,
@@ -201,7 +249,8 @@ def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: s
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn")) as pool:
+    with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
+                             initializer=_leave_interrupt_to_parent) as pool:
         futures = [pool.submit(parse_file, path, data, **options) for path, data in contents]
         try:
             for future in futures:
@@ -211,21 +260,28 @@ def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: s
                 future.cancel()
 
 
-def _refit(db: Path, animals: list[str]) -> None:
-    """Refit the imported animals in separate processes, one per core; one stderr line per animal."""
+def _leave_interrupt_to_parent() -> None:
+    """A reading worker ignores Ctrl-C: the importing process decides where to stop."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _refit(db: Path, animals: list[str], say: Callable[[str], None]) -> None:
+    """Refit the imported animals in separate processes, one per core; one line per animal through `say`."""
     from monitor.core.consolidation.words import fraction_text
     from monitor.store.consolidation_fits import refit_in_process, worker_count
 
     def finished(animal: str, block: dict | None, error: str | None) -> None:
         if block is None:
-            print(f"fit {animal}: failed ({error or 'no result'}); the report says \"not fitted\"", file=sys.stderr)
+            say(f"fit {animal}: failed ({error or 'no result'}); the report says \"not fitted\"")
             return
         figure = fraction_text(block["estimate"], block["low"], block["high"], block["status"])
-        print(f"fit {animal}: slow-state fraction {figure} at session {block['session']}", file=sys.stderr)
+        say(f"fit {animal}: slow-state fraction {figure} at session {block['session']}")
 
     workers = worker_count(len(animals))
-    print(f"fitting the consolidation model of {_n(len(animals), 'animal')} in {workers} separate "
-          f"{'process' if workers == 1 else 'processes'} (one per core)", file=sys.stderr)
+    say(f"fitting the consolidation model of {_n(len(animals), 'animal')} in {workers} separate "
+        f"{'process' if workers == 1 else 'processes'} (one per core)")
     refit_in_process(db, animals, finished=finished, workers=workers)
 
 
