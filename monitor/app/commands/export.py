@@ -180,39 +180,77 @@ def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
         import pynwb  # noqa: F401 - checked before anything is written
     except ImportError:
         raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
-    from monitor.app.progress import Progress
     from monitor.store.db import open_store
-    from monitor.store.nwb_export import export_nwb
 
     try:
         settings = export_settings(settings_path(args.settings))
     except ValueError as exc:
         raise UsageError(f"--settings: {exc}") from None
     conn = _open(args) if copy is None else open_store(copy, readonly=True)
-    bar: list[Progress] = []  # made at the first file, when the number of sessions is known
-
-    def written(done: int, total: int, path: Path) -> None:
-        if not bar:
-            bar.append(Progress(total, "session", "exporting NWB", quiet=args.quiet))
-        bar[0].advance(done - bar[0].done)
-        bar[0].say(f"[{done}/{total}] {path.name}")
-
     try:
-        result = export_nwb(conn, args.nwb, settings, written)
+        with Progress(quiet=args.quiet) as progress:
+            result = export_nwb_files(conn, args.nwb, settings, progress)
     except OSError as exc:
         raise UsageError(f"--nwb: cannot write into {args.nwb} ({exc.strerror or exc})") from None
     finally:
         conn.close()
-        for progress in bar:
-            progress.close()
     for line in result.warnings:
         print(f"rigside export: warning: {line}", file=sys.stderr)
-    print(f"exported {len(result.written)} sessions to {args.nwb}")
+    if result.stopped:
+        print(result.summary(), file=sys.stderr)
+        return INTERRUPTED
+    print(result.summary())
     if result.failed:
         print(f"rigside export: error: {len(result.failed)} sessions not written: {'; '.join(result.failed)}",
               file=sys.stderr)
         return 1
     return 0
+
+
+class NwbExport(NamedTuple):
+    """What `export_nwb_files` did: the files written (each whole), failures, warnings, stopped or not."""
+
+    folder: Path
+    written: list[Path]
+    total: int
+    failed: list[str]
+    warnings: list[str]
+    seconds: float
+    stopped: bool
+
+    def summary(self) -> str:
+        if self.stopped:
+            last = f" (the last: {self.written[-1].name})" if self.written else ""
+            return (f"interrupted: {len(self.written)} of {self.total} sessions exported to {self.folder}{last}, "
+                    "each file whole; the session being written was discarded")
+        return f"exported {len(self.written)} sessions to {self.folder} in {self.seconds:.1f} s"
+
+
+def export_nwb_files(conn, folder: Path, settings: dict, tracker: Tracker) -> NwbExport:
+    """One NWB file per session into `folder`, counting sessions on `tracker`; stops between files when asked."""
+    import time
+
+    from monitor.store.nwb_export import export_nwb
+
+    started = time.monotonic()
+    written: list[Path] = []
+    total = [0]
+
+    def one_more(done: int, count: int, path: Path) -> None:
+        if not total[0]:
+            total[0] = count
+            tracker.begin(count, "session", "exporting NWB")
+        written.append(path)
+        tracker.advance()
+        tracker.say(f"[{done}/{count}] {path.name}")
+        if tracker.cancelled():
+            raise _Stop()
+    try:
+        result = export_nwb(conn, folder, settings, one_more)
+    except _Stop:
+        return NwbExport(folder, written, total[0], [], [], time.monotonic() - started, True)
+    return NwbExport(folder, result.written, total[0] or len(result.written), result.failed, result.warnings,
+                     time.monotonic() - started, False)
 
 
 def _atomic(path: Path):
