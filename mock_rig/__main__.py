@@ -2,7 +2,10 @@
 
 Rule: each subcommand is a thin wrapper over the module API (history, live,
 demo); bad arguments print a one-line error naming the argument and exit 2
-(argparse's convention); Ctrl-C stops live boxes cleanly with exit 0. Nothing
+(argparse's convention); Ctrl-C stops live boxes cleanly with exit 0.
+`history` shows a progress bar of sessions on a terminal (not with `--quiet`)
+and ends with a summary line; Ctrl-C stops it with exit 130, naming the
+sessions written (each file whole; the truth file is written last). Nothing
 here needs a POSIX-only module: a pty is asked for only with `--out pty`
 (the default where the platform has ptys, else `socket`).
 """
@@ -67,6 +70,7 @@ def build_parser() -> argparse.ArgumentParser:
     hist.add_argument("--task", choices=(TWO_PRESS, JOYSTICK_HOLD), default=TWO_PRESS)
     hist.add_argument("--manipulate", type=_plan, action="append", default=[], metavar="ANIMAL:SESSION:KIND",
                       help="a simulated manipulation (kinds: inactivate_fast, vehicle, lesion_fast, sham); repeatable")
+    hist.add_argument("--quiet", action="store_true", help="no progress bar")
     hist.add_argument("--trial-truth", action="store_true",
                       help="also write NAME.trials.csv: latent states per completed trial")
     _variants(hist)
@@ -117,15 +121,38 @@ def _plan(text: str):
 def cmd_history(args) -> int:
     started = time.perf_counter()
     animals = cohort(args.animals, args.seed, _base(args), legacy=args.legacy, task=args.task)
-    if args.manipulate:
-        from mock_rig import manipulations
+    total = len(animals) * len(scenario.session_days(scenario.FIRST_DAY, args.days))
+    done: list[str] = []
+    bar = None
+    if not args.quiet and sys.stderr.isatty():
+        from tqdm import tqdm
 
-        plans: dict[str, dict[int, str]] = {}
-        for animal, session, kind in args.manipulate:
-            plans.setdefault(animal, {})[session] = kind
-        truth = manipulations.write_history(args.out, animals, args.days, plans)
-    else:
-        truth = write_history(args.out, animals, args.days, trial_truth=args.trial_truth)
+        bar = tqdm(total=total, unit="session", desc="writing history", file=sys.stderr, mininterval=0.1,
+                   dynamic_ncols=True, leave=False)
+
+    def written(name: str) -> None:
+        done.append(name)
+        if bar is not None:
+            bar.update(1)
+    try:
+        if args.manipulate:
+            from mock_rig import manipulations
+
+            plans: dict[str, dict[int, str]] = {}
+            for animal, session, kind in args.manipulate:
+                plans.setdefault(animal, {})[session] = kind
+            truth = manipulations.write_history(args.out, animals, args.days, plans, written)
+        else:
+            truth = write_history(args.out, animals, args.days, trial_truth=args.trial_truth, written=written)
+    except KeyboardInterrupt:
+        if bar is not None:
+            bar.close()
+        last = f" (the last: {done[-1]})" if done else ""
+        print(f"interrupted: wrote {len(done)} of {total} session files to {args.out}{last}, each whole; "
+              "no truth.json: run the command again for the whole history", file=sys.stderr)
+        return 130
+    if bar is not None:
+        bar.close()
     sessions = sum(len(a["sessions"]) for a in truth["animals"].values())
     print(f"wrote {sessions} sessions of {len(animals)} animals to {args.out} "
           f"in {time.perf_counter() - started:.1f} s")

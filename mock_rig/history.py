@@ -13,7 +13,9 @@ sessions when a session meets the stage's criterion. On request, a
 `NAME.trials.csv` per animal gives the latent states trial by trial.
 `animals.sh` holds one `rigside animal add` line per animal with its subject
 record (SUBJECT: species, sex, date of birth, strain, genotype, ...), to run
-with the database as its argument.
+with the database as its argument. Every file is written under a temporary
+name and renamed when whole, so an interrupted run leaves whole session files
+and no truth file (written last).
 """
 
 from __future__ import annotations
@@ -22,6 +24,8 @@ import json
 import math
 import shlex
 from dataclasses import dataclass, field
+import os
+from collections.abc import Callable
 from datetime import date, datetime, timedelta
 from pathlib import Path
 
@@ -158,12 +162,24 @@ def cohort(
 TRIAL_COLUMNS = "session,trial,t_us,target_ms,interval_ms,hit,y,error,x_fast,x_slow"
 
 
-def train(animal: Animal, days: list[date], out: Path | None, trial_truth: bool = False) -> None:
+def write_whole(path: Path, data: bytes) -> None:
+    """Write `data` to `path` under a temporary name, renamed when whole."""
+    part = path.with_name(f".{path.name}.part")
+    try:
+        part.write_bytes(data)
+        os.replace(part, path)
+    finally:
+        part.unlink(missing_ok=True)
+
+
+def train(animal: Animal, days: list[date], out: Path | None, trial_truth: bool = False,
+          written: Callable[[str], None] | None = None) -> None:
     """Run `animal` through a session on each day; write its files into `out`.
 
     With `trial_truth`, also `NAME.trials.csv`: one row per completed trial with
     the learner's output and states after the update (TRIAL_COLUMNS; `t_us` is
-    simulated µs since the session's boot, `y` is log(interval / naive_ms)).
+    simulated µs since the session's boot, `y` is log(interval / naive_ms)). `written(name)` follows
+    each session file.
     """
     rows: list[str] = []
     for day in days:
@@ -171,7 +187,9 @@ def train(animal: Animal, days: list[date], out: Path | None, trial_truth: bool 
         data, session, board = run_session(animal, start, record_latents=trial_truth)
         name = f"{animal.name}_s{len(animal.sessions) + 1:02d}.rsw"
         if out is not None:
-            (out / name).write_bytes(data)
+            write_whole(out / name, data)
+            if written is not None:
+                written(name)
         record = animal.close_session(session, board, name)
         naive = animal.learner.params.naive_ms
         for number, (t, target, hit, z) in enumerate(session.latents or (), start=1):
@@ -187,16 +205,19 @@ def write_history(
     days: int,
     first_day: date = scenario.FIRST_DAY,
     trial_truth: bool = False,
+    written: Callable[[str], None] | None = None,
 ) -> dict:
-    """Write every animal's sessions, protocol file and the truth file; return the truth."""
+    """Write every animal's sessions, protocol file and the truth file; return the truth.
+
+    `written(name)` follows each session file (a progress count)."""
     out.mkdir(parents=True, exist_ok=True)
     session_days = scenario.session_days(first_day, days)
     for animal in animals:
-        train(animal, session_days, out, trial_truth)
-        (out / f"{animal.name}.protocol.toml").write_text(protocol_toml(animal.protocol))
-    (out / "animals.sh").write_text(animals_script(animals, first_day))
+        train(animal, session_days, out, trial_truth, written)
+        write_whole(out / f"{animal.name}.protocol.toml", protocol_toml(animal.protocol).encode())
+    write_whole(out / "animals.sh", animals_script(animals, first_day).encode())
     truth = truth_document(animals)
-    (out / "truth.json").write_text(json.dumps(truth, indent=1))
+    write_whole(out / "truth.json", json.dumps(truth, indent=1).encode())
     return truth
 
 

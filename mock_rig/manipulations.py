@@ -19,6 +19,7 @@ the simulated truth an estimated effect is judged against. `train` and
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, NamedTuple
@@ -117,7 +118,8 @@ def _phi(z: float) -> float:
     return 0.5 * (1.0 + math.erf(z / math.sqrt(2.0)))
 
 
-def train(animal: Animal, days: list, out: Path | None, plan: dict[int, str]) -> None:
+def train(animal: Animal, days: list, out: Path | None, plan: dict[int, str],
+          written: Callable[[str], None] | None = None) -> None:
     """Like `history.train`, with `plan` = {session index (from 1): kind} applied at those sessions.
 
     Each session record gains `manipulation` (the kind or None) and
@@ -125,7 +127,7 @@ def train(animal: Animal, days: list, out: Path | None, plan: dict[int, str]) ->
     completed trials, with the window in force at its end).
     """
     from mock_rig import scenario
-    from mock_rig.history import run_session
+    from mock_rig.history import run_session, write_whole
 
     if not isinstance(animal.learner, ManipulatedLearner):
         animal.learner = ManipulatedLearner.like(animal.learner)
@@ -138,7 +140,9 @@ def train(animal: Animal, days: list, out: Path | None, plan: dict[int, str]) ->
         data, session, board = run_session(animal, begin)
         name = f"{animal.name}_s{index:02d}.rsw"
         if out is not None:
-            out.joinpath(name).write_bytes(data)
+            write_whole(out.joinpath(name), data)
+            if written is not None:
+                written(name)
         record = animal.close_session(session, board, name)
         record["manipulation"] = kind
         record["expected_hit_rate"] = expected_hit_rate(learner.record, session.low_ms, session.high_ms,
@@ -146,25 +150,27 @@ def train(animal: Animal, days: list, out: Path | None, plan: dict[int, str]) ->
         finish(learner)
 
 
-def write_history(out: Path, animals: list, days: int, plans: dict[str, dict[int, str]]) -> dict:
+def write_history(out: Path, animals: list, days: int, plans: dict[str, dict[int, str]],
+                  written: Callable[[str], None] | None = None) -> dict:
     """`history.write_history` with manipulations: `plans` = {animal: {session index: kind}}; the truth
-    file gains `manipulations` = {animal: {session index: kind}} and per-session expected hit rates."""
+    file gains `manipulations` = {animal: {session index: kind}} and per-session expected hit rates.
+    `written(name)` follows each session file."""
     import json
 
     from mock_rig import scenario
-    from mock_rig.history import truth_document
+    from mock_rig.history import truth_document, write_whole
     from mock_rig.protocol_file import protocol_toml
 
     out.mkdir(parents=True, exist_ok=True)
     session_days = scenario.session_days(scenario.FIRST_DAY, days)
     for animal in animals:
-        train(animal, session_days, out, plans.get(animal.name, {}))
-        out.joinpath(f"{animal.name}.protocol.toml").write_text(protocol_toml(animal.protocol))
+        train(animal, session_days, out, plans.get(animal.name, {}), written)
+        write_whole(out.joinpath(f"{animal.name}.protocol.toml"), protocol_toml(animal.protocol).encode())
     truth = truth_document(animals)
     truth["manipulations"] = {name: {str(k): v for k, v in plan.items()} for name, plan in plans.items()}
     truth["definitions"]["expected_hit_rate"] = ("mean over completed trials of the hit chance the latent states "
                                                  "give, with the window in force at the session's end")
-    out.joinpath("truth.json").write_text(json.dumps(truth, indent=1))
+    write_whole(out.joinpath("truth.json"), json.dumps(truth, indent=1).encode())
     return truth
 
 

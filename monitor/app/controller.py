@@ -332,6 +332,10 @@ class Controller(QObject):
         from monitor.app.effects_side import EffectsSide
 
         EffectsSide(self).attach(window)
+        from monitor.app.file_jobs import FileJobs
+
+        self.file_jobs = FileJobs(self)
+        self.file_jobs.attach(window)
 
     def install_signal_handlers(self, app: QApplication) -> None:
         """Every platform's stop requests (monitor.app.stopping) close cleanly (the 20 Hz timer lets

@@ -91,7 +91,8 @@ class Progress:
         signal.signal(signal.SIGINT, signal.default_int_handler)
 
     def __enter__(self) -> Progress:
-        if threading.current_thread() is threading.main_thread():
+        if threading.current_thread() is threading.main_thread() \
+                and signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:  # a background job ignores Ctrl-C
             self._previous_handler = signal.signal(signal.SIGINT, self._interrupt)
         return self
 

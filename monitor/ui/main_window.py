@@ -23,6 +23,7 @@ from icons import icon_path
 from monitor.ui.alerts import AlertNotifier, AlertPanel
 from monitor.ui.animal_page import AnimalPage
 from monitor.ui.dialogs import CheckInDialog, GiveDialog, plain_label
+from monitor.ui.file_dialogs import ExportDialog, ImportDialog
 from monitor.ui.models import Roster, SerialDevice, StatusState
 from monitor.ui.overview import OverviewPanel
 from monitor.ui.owners import AlertBook, AnimalBook, RigBoard
@@ -47,6 +48,8 @@ SHORTCUTS = {
     "effects": "Ctrl+Shift+E",
     "give": "Ctrl+G",
     "cohort": "Ctrl+T",
+    "import_files": "Ctrl+Shift+I",
+    "export": "Ctrl+E",
 }
 
 
@@ -72,6 +75,8 @@ class MainWindow(QMainWindow):
     effects_requested = Signal()           # open the cohort effects window
     cohort_requested = Signal()            # open the cohort table
     unattended_given = Signal(object)      # UnattendedGift
+    import_chosen = Signal(object)         # ImportChoice: import these session files
+    export_chosen = Signal(object)         # ExportChoice: export into this folder
 
     def __init__(self, board: RigBoard, book: AnimalBook, alerts: AlertBook, settings: QSettings | None = None,
                  roster: Roster | None = None, discover_devices: Callable[[], Sequence[SerialDevice]] = tuple,
@@ -130,6 +135,9 @@ class MainWindow(QMainWindow):
         return action
 
     def _build_actions(self) -> None:
+        files = self.menuBar().addMenu("&File")
+        files.addAction(self._action("import_files", "&Import session files…", self.open_import))
+        files.addAction(self._action("export", "&Export…", self.open_export))
         rigs = self.menuBar().addMenu("&Rigs")
         rigs.addAction(self._action("check_in", "Check &in…", self.open_check_in, "check-in"))
         rigs.addAction(self._action("check_out", "Check &out…", self.open_check_out, "check-out"))
@@ -267,6 +275,16 @@ class MainWindow(QMainWindow):
     def open_setup(self) -> SetupDialog:
         dialog = SetupDialog(self.discover_devices(), self.protocols(), existing=self.board.rigs(), parent=self)
         dialog.rig_added.connect(self.rig_added)
+        return self._show(dialog)
+
+    def open_import(self) -> ImportDialog:
+        dialog = ImportDialog(parent=self)
+        dialog.chosen.connect(self.import_chosen)
+        return self._show(dialog)
+
+    def open_export(self) -> ExportDialog:
+        dialog = ExportDialog(parent=self)
+        dialog.chosen.connect(self.export_chosen)
         return self._show(dialog)
 
     def _show(self, dialog):
