@@ -1,0 +1,192 @@
+"""Long commands: a bar on a terminal, nothing with --quiet or in a pipe, a summary line, and a clean Ctrl-C.
+
+Ctrl-C is a real SIGINT sent to a subprocess while it works; it must exit 130 (128 + SIGINT, the shell's
+convention, common practice), name what it finished and leave no partial file or half-stored rows.
+"""
+
+from __future__ import annotations
+
+import io
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from mock_rig.history import cohort, write_history
+from monitor.app.cli import main
+
+SIGINT_EXIT = 130  # 128 + SIGINT (2): how shells report a command stopped by Ctrl-C (common practice)
+
+
+class Terminal(io.StringIO):
+    def isatty(self) -> bool:
+        return True
+
+
+@pytest.fixture(scope="module")
+def cohort_store(tmp_path_factory) -> tuple[Path, Path]:
+    """Two animals, 16 days (24 sessions, about 120,000 events): long enough to interrupt mid-run."""
+    out = tmp_path_factory.mktemp("cohort")
+    write_history(out, cohort(2, seed=5), days=16)
+    db = out / "store.sqlite3"
+    for name in ("alder", "birch"):
+        assert main(["import", *map(str, sorted(out.glob(f"{name}_s*.rsw"))), "--protocol",
+                     str(out / f"{name}.protocol.toml"), "--db", str(db), "--no-fit", "--quiet"]) == 0
+    return out, db
+
+
+def count(db: Path, table: str) -> int:
+    with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+        return conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]
+
+
+def run(capsys, monkeypatch, stderr: io.StringIO, *args) -> tuple[int, str, str]:
+    monkeypatch.setattr(sys, "stderr", stderr)
+    code = main([str(a) for a in args])
+    return code, capsys.readouterr().out, stderr.getvalue()
+
+
+def rigside(*args) -> subprocess.Popen:
+    return subprocess.Popen([sys.executable, "-m", "monitor.app", *map(str, args)], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, env={**os.environ, "PYTHONUNBUFFERED": "1"})
+
+
+def interrupt_after_line(process: subprocess.Popen, start: str) -> tuple[list[str], str, str]:
+    """SIGINT as soon as a stderr line starting with `start` appears; the lines read before, out and err."""
+    seen = []
+    while True:
+        line = process.stderr.readline()
+        assert line, f"the command ended before a line starting {start!r}: {seen}"
+        seen.append(line)
+        if line.startswith(start):
+            break
+    process.send_signal(signal.SIGINT)
+    out, err = process.communicate(timeout=120)
+    return seen, out, err
+
+
+def interrupt_when(process: subprocess.Popen, ready) -> tuple[str, str]:
+    deadline = time.monotonic() + 120
+    while not ready():
+        assert process.poll() is None, "the command ended before it could be interrupted"
+        assert time.monotonic() < deadline
+        time.sleep(0.005)
+    process.send_signal(signal.SIGINT)
+    return process.communicate(timeout=120)
+
+
+@pytest.mark.parametrize("what,table", [("events", "events"), ("trials", "trials")])
+def test_csv_export_bar_on_a_terminal_summary_line_and_quiet(cohort_store, tmp_path, capsys, monkeypatch, what, table):
+    _, db = cohort_store
+    code, out, err = run(capsys, monkeypatch, Terminal(), "export", what, "--db", db, "--csv", tmp_path / "a.csv")
+    rows = count(db, table)
+    assert code == 0 and f"exporting {what}" in err and "row" in err
+    assert out.startswith(f"exported {rows} {what} to ") and out.rstrip().endswith(" s")
+    with open(tmp_path / "a.csv", encoding="utf-8") as fh:
+        assert sum(1 for _ in fh) == rows + 1          # header + one line per row
+    assert run(capsys, monkeypatch, Terminal(), "export", what, "--db", db, "--csv", tmp_path / "b.csv",
+               "--quiet")[2] == ""
+    assert run(capsys, monkeypatch, io.StringIO(), "export", what, "--db", db, "--csv", tmp_path / "c.csv")[2] == ""
+    assert (tmp_path / "a.csv").read_bytes() == (tmp_path / "b.csv").read_bytes() == (tmp_path / "c.csv").read_bytes()
+
+
+def test_import_bar_on_a_terminal_and_not_with_quiet(cohort_store, tmp_path, capsys, monkeypatch):
+    history, _ = cohort_store
+    files = sorted(history.glob("alder_s*.rsw"))[:3]
+    args = ["import", *files, "--protocol", history / "alder.protocol.toml", "--no-fit"]
+    code, out, err = run(capsys, monkeypatch, Terminal(), *args, "--db", tmp_path / "a.sqlite3")
+    assert code == 0 and "importing" in err and "3/3" in err and out.startswith("imported 3 files: 3 sessions")
+    code, out, err = run(capsys, monkeypatch, Terminal(), *args, "--db", tmp_path / "b.sqlite3", "--quiet")
+    assert code == 0 and "importing:" not in err and "it/s" not in err and "file/s" not in err
+
+
+def test_ctrl_c_stops_a_csv_export_with_no_partial_file(cohort_store, tmp_path):
+    _, db = cohort_store
+    target = tmp_path / "events.csv"
+    target.write_text("the earlier export\n")
+    process = rigside("export", "events", "--db", db, "--csv", target)
+    out, err = interrupt_when(process, lambda: (tmp_path / "events.csv.part").exists())
+    assert process.returncode == SIGINT_EXIT, err
+    assert "interrupted" in err and f"nothing was written under {target}" in err
+    assert target.read_text() == "the earlier export\n" and sorted(p.name for p in tmp_path.iterdir()) == ["events.csv"]
+
+
+def test_ctrl_c_stops_an_import_between_files_and_names_them(cohort_store, tmp_path):
+    history, _ = cohort_store
+    files = sorted(history.glob("birch_s*.rsw"))
+    db = tmp_path / "store.sqlite3"
+    process = rigside("import", *files, "--protocol", history / "birch.protocol.toml", "--db", db, "--no-fit",
+                      "--jobs", "1")
+    seen, out, err = interrupt_after_line(process, "[1/")
+    assert process.returncode == SIGINT_EXIT, err
+    lines = [line for line in seen + err.splitlines(keepends=True) if line.startswith("[")]
+    assert 1 <= len(lines) < len(files)
+    assert f"interrupted: {len(lines)} of {len(files)} files imported" in err
+    assert count(db, "sessions") == len(lines)       # whole files only, as many as were named
+    assert main(["import", *map(str, files), "--protocol", str(history / "birch.protocol.toml"), "--db", str(db),
+                 "--no-fit", "--skip-imported", "--quiet"]) == 0
+    assert count(db, "sessions") == len(files)
+
+
+def test_ctrl_c_stops_an_nwb_export_between_files(cohort_store, tmp_path):
+    pytest.importorskip("pynwb")
+    _, db = cohort_store
+    folder = tmp_path / "nwb"
+    process = rigside("export", "--db", db, "--nwb", folder)
+    seen, out, err = interrupt_after_line(process, "[1/")
+    assert process.returncode == SIGINT_EXIT, err
+    named = [line for line in seen + err.splitlines(keepends=True) if line.startswith("[")]
+    files = sorted(p.name for p in folder.iterdir())
+    assert len(files) == len(named) < count(db, "sessions")
+    assert all(name.endswith("_behavior.nwb") and not name.startswith(".") for name in files)
+    assert f"interrupted: {len(files)} of {count(db, 'sessions')} sessions exported" in err
+
+
+def test_ctrl_c_stops_mock_rig_history_with_whole_files_and_no_truth(tmp_path):
+    out_dir = tmp_path / "history"
+    process = subprocess.Popen([sys.executable, "-m", "mock_rig", "history", "--animals", "8", "--days", "30",
+                                "--out", str(out_dir)], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    out, err = interrupt_when(process, lambda: any(out_dir.glob("*_s*.rsw")))
+    assert process.returncode == SIGINT_EXIT, err
+    sessions = sorted(out_dir.glob("*_s*.rsw"))
+    assert f"interrupted: wrote {len(sessions)} of 176 session files" in err   # 8 animals x 22 weekdays in 30 days
+    assert not (out_dir / "truth.json").exists() and not any(p.name.endswith(".part") for p in out_dir.iterdir())
+    for path in sessions:   # each whole: it ends with the box's session_end line (docs/mock_rig.md)
+        assert path.read_text().rstrip("\n").endswith("session_end")
+
+
+def test_mock_rig_history_bar_on_a_terminal_only(tmp_path, monkeypatch, capsys):
+    from mock_rig.__main__ import main as mock_main
+
+    monkeypatch.setattr(sys, "stderr", Terminal())
+    assert mock_main(["history", "--animals", "1", "--days", "3", "--out", str(tmp_path / "a")]) == 0
+    assert "writing history" in sys.stderr.getvalue() and "session" in sys.stderr.getvalue()
+    monkeypatch.setattr(sys, "stderr", Terminal())
+    assert mock_main(["history", "--animals", "1", "--days", "3", "--out", str(tmp_path / "b"), "--quiet"]) == 0
+    assert sys.stderr.getvalue() == "" and capsys.readouterr().out.startswith("wrote 3 sessions of 1 animals")
+
+
+def test_ctrl_c_stops_a_sync_after_a_committed_chunk_and_the_next_sync_sends_the_rest(cohort_store, lab_url,
+                                                                                      tmp_path):
+    import psycopg
+
+    _, db = cohort_store
+    local = tmp_path / "pc.sqlite3"
+    local.write_bytes(db.read_bytes())
+    assert main(["lab", "init", "--lab", lab_url]) == 0
+    process = rigside("sync", "--db", local, "--lab", lab_url, "--pc-name", "room-a", "--chunk-rows", "2000",
+                      "--progress")
+    seen, out, err = interrupt_after_line(process, "events: up to row")
+    assert process.returncode == SIGINT_EXIT, err
+    assert "interrupted: sent and committed events up to row" in err and "the next `rigside sync`" in err
+    with psycopg.connect(lab_url) as pg:        # the server's own count
+        partial = pg.execute("SELECT count(*) FROM events").fetchone()[0]
+    assert 0 < partial < count(local, "events") and partial % 2000 == 0     # whole chunks only
+    assert main(["sync", "--db", str(local), "--lab", lab_url, "--quiet"]) == 0
+    with psycopg.connect(lab_url) as pg:
+        assert pg.execute("SELECT count(*) FROM events").fetchone()[0] == count(local, "events")
