@@ -83,7 +83,6 @@ class FileJobs(QObject):
         super().__init__(controller)
         self.controller = controller
         self.last: Any = None   # the last finished job's result
-        self.last_message = ""
 
     def attach(self, window) -> None:
         window.import_chosen.connect(lambda choice: self.start_import(list(choice.files), choice.protocol))
@@ -93,7 +92,6 @@ class FileJobs(QObject):
         return Path(self.controller.writer.path)
 
     def _say(self, message: str) -> None:
-        self.last_message = message
         if self.controller.window is not None:
             self.controller.window.statusBar().showMessage(message, MESSAGE_MS)
 

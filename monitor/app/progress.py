@@ -103,22 +103,6 @@ class Progress:
             self._previous_handler = None
 
 
-class Quiet:
-    """A tracker that shows nothing and never stops (work run where nobody watches, such as a test)."""
-
-    def begin(self, total: int, unit: str, label: str) -> None:
-        """Nothing to show."""
-
-    def advance(self, amount: int = 1) -> None:
-        """Nothing to count."""
-
-    def say(self, line: str) -> None:
-        """Nothing to print."""
-
-    def cancelled(self) -> bool:
-        return False
-
-
 def _is_terminal(stream: TextIO) -> bool:
     try:
         return stream.isatty()
