@@ -97,14 +97,13 @@ class FileJobs(QObject):
 
     def start_import(self, files: list[Path], protocol: Path) -> Job:
         """Import `files` (recorded under `protocol`) as `rigside import --skip-imported` does, then refit."""
-        from monitor.app.commands.import_files import _refit, import_files
+        from monitor.app.commands.import_files import import_files, refit_animals
 
         def work(job: Job):
             tracker = JobTracker(job)
             result = import_files(self._db(), files, protocol, tracker, skip_imported=True)
             if result.animals and not result.stopped:
-                tracker.begin(len(result.animals), "animal", "fitting the consolidation model")
-                _refit(self._db(), result.animals, tracker.say)
+                refit_animals(self._db(), result.animals, tracker)
             return result
 
         def done(result) -> None:

@@ -113,3 +113,33 @@ def test_the_export_dialog_refuses_a_missing_folder_and_emits_the_choice(qapp, t
     dialog.folder.setText(str(tmp_path))
     dialog.kind.setCurrentIndex(2)
     assert dialog.try_accept() and chosen == [ExportChoice("nwb", tmp_path)]
+
+
+def test_the_window_tracker_shows_counts_rate_and_time_left_and_reads_cancel():
+    import threading
+
+    from monitor.app.file_jobs import JobTracker
+
+    class FakeJob:
+        def __init__(self) -> None:
+            self.shown: list[tuple[float, str]] = []
+            self.cancel_event = threading.Event()
+
+        def progress(self, fraction: float, message: str = "") -> None:
+            self.shown.append((fraction, message))
+
+        def cancelled(self) -> bool:
+            return self.cancel_event.is_set()
+
+    job = FakeJob()
+    tracker = JobTracker(job)
+    tracker.begin(200, "file", "importing")
+    assert job.shown == [(0.0, "importing: 0 of 200 files")]
+    tracker._started -= 10.0          # as if 10 s had passed: 50 files in 10 s = 5 files/s, 150 left = 30 s
+    tracker._shown -= 1.0
+    tracker.advance(50)
+    fraction, message = job.shown[-1]
+    assert fraction == 50 / 200 and message.startswith("importing: 50 of 200 files, 5.0 files/s, about 30 s left")
+    assert not tracker.cancelled()
+    job.cancel_event.set()
+    assert tracker.cancelled()

@@ -190,3 +190,14 @@ def test_ctrl_c_stops_a_sync_after_a_committed_chunk_and_the_next_sync_sends_the
     assert main(["sync", "--db", str(local), "--lab", lab_url, "--quiet"]) == 0
     with psycopg.connect(lab_url) as pg:
         assert pg.execute("SELECT count(*) FROM events").fetchone()[0] == count(local, "events")
+
+
+def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
+    history, _ = cohort_store
+    files = sorted(history.glob("alder_s*.rsw"))
+    db = tmp_path / "store.sqlite3"
+    process = rigside("import", *files, "--protocol", history / "alder.protocol.toml", "--db", db)
+    seen, out, err = interrupt_after_line(process, "fitting the consolidation model")
+    assert process.returncode == SIGINT_EXIT, err
+    assert out.startswith(f"imported {len(files)} files") and "interrupted while fitting: 0 of 1 animals fitted" in err
+    assert count(db, "sessions") == len(files)

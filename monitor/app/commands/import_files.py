@@ -96,14 +96,19 @@ def run(args: argparse.Namespace) -> int:
         result = import_files(resolve_db(args.db), args.files, args.protocol, progress, animal=args.animal,
                               mapping_path=args.mapping, gap_hours=args.gap_hours, wait=args.wait, jobs=args.jobs,
                               skip_imported=args.skip_imported)
-    if result.stopped:
-        print(result.summary(), file=sys.stderr)
-        return INTERRUPTED
-    if not args.no_fit and result.animals:
-        _refit(resolve_db(args.db), result.animals, progress.say)
+        if result.stopped:
+            print(result.summary(), file=sys.stderr)
+            return INTERRUPTED
+        fitted = None
+        if not args.no_fit and result.animals:
+            fitted = refit_animals(resolve_db(args.db), result.animals, progress)
     if result.skipped:
         print(f"skipped {len(result.skipped)} already imported", file=sys.stderr)
     print(result.summary())
+    if fitted is not None and progress.cancelled():
+        print(f"interrupted while fitting: {fitted} of {len(result.animals)} animals fitted; every file was "
+              "imported; the window refits the others when their page opens", file=sys.stderr)
+        return INTERRUPTED
     return 0
 
 
@@ -267,22 +272,30 @@ def _leave_interrupt_to_parent() -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
-def _refit(db: Path, animals: list[str], say: Callable[[str], None]) -> None:
-    """Refit the imported animals in separate processes, one per core; one line per animal through `say`."""
+def refit_animals(db: Path, animals: list[str], tracker: Tracker) -> int:
+    """Refit the imported animals in separate processes, one per core, counting animals on `tracker` (a line
+    each); asked to stop, the fits under way are abandoned. Return how many were fitted."""
     from monitor.core.consolidation.words import fraction_text
     from monitor.store.consolidation_fits import refit_in_process, worker_count
 
+    fitted = [0]
+
     def finished(animal: str, block: dict | None, error: str | None) -> None:
+        tracker.advance()
         if block is None:
-            say(f"fit {animal}: failed ({error or 'no result'}); the report says \"not fitted\"")
+            tracker.say(f"fit {animal}: {'not done' if tracker.cancelled() else 'failed'} ({error or 'no result'}); "
+                        "the report says \"not fitted\"")
             return
+        fitted[0] += 1
         figure = fraction_text(block["estimate"], block["low"], block["high"], block["status"])
-        say(f"fit {animal}: slow-state fraction {figure} at session {block['session']}")
+        tracker.say(f"fit {animal}: slow-state fraction {figure} at session {block['session']}")
 
     workers = worker_count(len(animals))
-    say(f"fitting the consolidation model of {_n(len(animals), 'animal')} in {workers} separate "
-        f"{'process' if workers == 1 else 'processes'} (one per core)")
-    refit_in_process(db, animals, finished=finished, workers=workers)
+    tracker.say(f"fitting the consolidation model of {_n(len(animals), 'animal')} in {workers} separate "
+                f"{'process' if workers == 1 else 'processes'} (one per core)")
+    tracker.begin(len(animals), "animal", "fitting")
+    refit_in_process(db, animals, cancel=tracker.cancelled, finished=finished, workers=workers)
+    return fitted[0]
 
 
 def _n(count: int, word: str) -> str:
