@@ -35,6 +35,17 @@ class ExportChoice:
     folder: Path
 
 
+def protocol_beside(session_file: Path) -> Path | None:
+    """The protocol file beside a session file `NAME_sNN.ext`: `NAME.protocol.toml`, else the folder's only
+    `.toml` file, else None."""
+    folder = session_file.parent
+    named = folder / f"{session_file.stem.rsplit('_s', 1)[0]}.protocol.toml"
+    if named.is_file():
+        return named
+    tomls = sorted(folder.glob("*.toml"))
+    return tomls[0] if len(tomls) == 1 else None
+
+
 def _with_button(field: QWidget, button: QPushButton) -> QWidget:
     row = QWidget()
     layout = QHBoxLayout(row)
@@ -78,9 +89,7 @@ class ImportDialog(RecordDialog):
         if names:
             self.set_files([Path(n) for n in names])
             if not self.protocol.text():
-                beside = sorted(Path(names[0]).parent.glob("*.toml"))
-                if len(beside) == 1:
-                    self.protocol.setText(str(beside[0]))
+                self.protocol.setText(str(protocol_beside(Path(names[0])) or ""))
 
     def _choose_protocol(self) -> None:
         name, _ = QFileDialog.getOpenFileName(self, "Training protocol", "", "Protocol (*.toml);;All files (*)")

@@ -143,3 +143,18 @@ def test_the_window_tracker_shows_counts_rate_and_time_left_and_reads_cancel():
     assert not tracker.cancelled()
     job.cancel_event.set()
     assert tracker.cancelled()
+
+
+def test_the_import_dialog_finds_the_animals_protocol_beside_its_files(qapp, tmp_path):
+    from monitor.ui.file_dialogs import ImportDialog, protocol_beside
+
+    write_history(tmp_path, cohort(2, seed=4), days=1)      # alder and birch, a protocol file each
+    assert protocol_beside(tmp_path / "birch_s01.rsw") == tmp_path / "birch.protocol.toml"
+    dialog = ImportDialog()
+    chosen = []
+    dialog.chosen.connect(chosen.append)
+    assert not dialog.try_accept() and "Choose the session files" in dialog.problem_line.text()
+    dialog.set_files([tmp_path / "alder_s01.rsw"])
+    dialog.protocol.setText(str(protocol_beside(tmp_path / "alder_s01.rsw")))
+    assert dialog.try_accept() and chosen == [ImportChoice((tmp_path / "alder_s01.rsw",),
+                                                           tmp_path / "alder.protocol.toml")]
