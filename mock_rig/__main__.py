@@ -13,6 +13,7 @@ here needs a POSIX-only module: a pty is asked for only with `--out pty`
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
@@ -127,8 +128,12 @@ def cmd_history(args) -> int:
     if not args.quiet and sys.stderr.isatty():
         from tqdm import tqdm
 
+        try:
+            sized = min(os.get_terminal_size(sys.stderr.fileno())) > 0
+        except (AttributeError, OSError, ValueError):
+            sized = False   # a terminal that states no size (0 x 0) gets 80 x 24: tqdm draws nothing on 0 rows
         bar = tqdm(total=total, unit="session", desc="writing history", file=sys.stderr, mininterval=0.1,
-                   dynamic_ncols=True, leave=False)
+                   dynamic_ncols=sized, ncols=None if sized else 80, nrows=None if sized else 24, leave=False)
 
     def written(name: str) -> None:
         done.append(name)

@@ -18,6 +18,7 @@ closing summary line is the command's own.
 
 from __future__ import annotations
 
+import os
 import signal
 import sys
 import threading
@@ -60,8 +61,10 @@ class Progress:
         if self.shown:
             from tqdm import tqdm  # lazy: only a terminal needs it
 
+            sized = _sized(self.stream)   # a terminal that states no size (0 x 0) gets 80 x 24
             self._bar = tqdm(total=total, unit=unit, desc=label, file=self.stream, mininterval=0.1,
-                             unit_scale=total >= 100_000, dynamic_ncols=True, leave=False)
+                             unit_scale=total >= 100_000, dynamic_ncols=sized, ncols=None if sized else 80,
+                             nrows=None if sized else 24, leave=False)
 
     def advance(self, amount: int = 1) -> None:
         """Count `amount` more units done."""
@@ -101,6 +104,15 @@ class Progress:
         if self._previous_handler is not None:
             signal.signal(signal.SIGINT, self._previous_handler)
             self._previous_handler = None
+
+
+def _sized(stream: TextIO) -> bool:
+    """True when the terminal states its size (tqdm draws nothing on one of 0 rows)."""
+    try:
+        size = os.get_terminal_size(stream.fileno())
+    except (AttributeError, OSError, ValueError):  # io.UnsupportedOperation is an OSError and a ValueError
+        return False
+    return size.columns > 0 and size.lines > 0
 
 
 def _is_terminal(stream: TextIO) -> bool:

@@ -201,3 +201,25 @@ def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
     assert process.returncode == SIGINT_EXIT, err
     assert out.startswith(f"imported {len(files)} files") and "interrupted while fitting: 0 of 1 animals fitted" in err
     assert count(db, "sessions") == len(files)
+
+
+@pytest.mark.skipif(not hasattr(os, "openpty"), reason="needs a pseudo-terminal (POSIX)")
+def test_a_real_terminal_that_states_no_size_still_gets_the_bar(cohort_store, tmp_path):
+    _, db = cohort_store
+    main_fd, terminal = os.openpty()     # a new pseudo-terminal states 0 x 0 until someone sets its size
+    assert os.get_terminal_size(terminal) == os.terminal_size((0, 0))
+    process = subprocess.Popen([sys.executable, "-m", "monitor.app", "export", "trials", "--db", str(db), "--csv",
+                                str(tmp_path / "t.csv")], stdout=subprocess.PIPE, stderr=terminal)
+    os.close(terminal)
+    drawn = b""
+    while True:
+        try:
+            chunk = os.read(main_fd, 65536)
+        except OSError:   # the terminal closed when the command ended (Linux: EIO)
+            break
+        if not chunk:
+            break
+        drawn += chunk
+    os.close(main_fd)
+    assert process.wait(timeout=120) == 0
+    assert b"exporting trials" in drawn and b"row/s" in drawn
