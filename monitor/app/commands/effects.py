@@ -7,7 +7,8 @@ stage frozen when it was recorded, the trends of effect against slow-state
 fraction and the table by group. Group labels are codes until the cohort is
 unblinded (`rigside manipulation unblind`). `--json` prints one document on
 stdout; `--csv` writes one row per manipulation and measure to FILE, or to
-stdout when FILE is `-` or not given. Bad input: one line, exit 2. Advisory figures.
+stdout when FILE is `-` or not given (a FILE appears only when complete). Bad input: one line, exit 2.
+Advisory figures.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ import argparse
 import csv
 import json
 import sys
+from pathlib import Path
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument
@@ -31,7 +33,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from monitor.app.commands.export import safe_cell
+    from monitor.app.commands.export import atomic_file, safe_cell
     from monitor.app.commands.report import open_readonly
     from monitor.app.effects import CSV_COLUMNS, csv_rows, effects
 
@@ -47,16 +49,18 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps(result, indent=1))
         return 0
     rows = csv_rows(result)
-    try:
-        out = sys.stdout if args.csv == "-" else open(args.csv, "w", newline="", encoding="utf-8")
-    except OSError as exc:
-        raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
-    try:
+
+    def write(out) -> None:
         writer = csv.writer(out)
         writer.writerow(CSV_COLUMNS)
         for row in rows:
             writer.writerow([safe_cell(row[c]) for c in CSV_COLUMNS])
-    finally:
-        if out is not sys.stdout:
-            out.close()
+    if args.csv == "-":
+        write(sys.stdout)
+        return 0
+    try:
+        with atomic_file(Path(args.csv)) as out:   # Ctrl-C or a full disk leaves no partial file
+            write(out)
+    except OSError as exc:
+        raise UsageError(f"--csv: cannot write {args.csv} ({exc.strerror or exc})") from None
     return 0

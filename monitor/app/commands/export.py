@@ -253,7 +253,7 @@ def export_nwb_files(conn, folder: Path, settings: dict, tracker: Tracker) -> Nw
                      time.monotonic() - started, False)
 
 
-def _atomic(path: Path):
+def atomic_file(path: Path):
     """Open `path`'s temporary twin for writing; rename it to `path` when the block ends without error."""
     import contextlib
     import os
@@ -278,7 +278,7 @@ def write_events_csv(conn, path: Path, tick: Callable[[int], None] | None = None
 
     clocks: dict[int, tuple[SessionClock, int, datetime]] = {}
     count = 0
-    with _atomic(path) as out:
+    with atomic_file(path) as out:
         writer = csv.writer(out)
         writer.writerow(EVENT_COLUMNS)
         for animal, session, rig, segment, line, raw, t_us, event, value, start_wall in conn.execute(_EVENTS_SQL):
@@ -302,7 +302,7 @@ def write_trials_csv(conn, path: Path, tick: Callable[[int], None] | None = None
 
     shifts: dict[int, int] = {}
     count = 0
-    with _atomic(path) as out:
+    with atomic_file(path) as out:
         writer = csv.writer(out)
         writer.writerow(TRIAL_CSV_COLUMNS)
         for row in conn.execute(_TRIALS_SQL):
