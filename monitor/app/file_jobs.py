@@ -143,7 +143,7 @@ class FileJobs(QObject):
                 failed = f"; {len(result.failed)} sessions could not be written" if result.failed else ""
                 if result.stopped:
                     self._say(f"Export cancelled: {len(result.written)} of {result.total} NWB files written to "
-                              f"{folder}, each whole; the one being written was discarded{failed}.")
+                              f"{folder}, each whole; the others were not written{failed}.")
                 else:
                     self._say(f"Exported {len(result.written)} NWB files to {folder} in {result.seconds:.1f} s"
                               f"{failed}.")

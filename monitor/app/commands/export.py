@@ -222,7 +222,7 @@ class NwbExport(NamedTuple):
         if self.stopped:
             last = f" (the last: {self.written[-1].name})" if self.written else ""
             return (f"interrupted: {len(self.written)} of {self.total} sessions exported to {self.folder}{last}, "
-                    "each file whole; the session being written was discarded")
+                    "each file whole; the others were not written")
         return f"exported {len(self.written)} sessions to {self.folder} in {self.seconds:.1f} s"
 
 
