@@ -158,3 +158,21 @@ def test_the_import_dialog_finds_the_animals_protocol_beside_its_files(qapp, tmp
     dialog.protocol.setText(str(protocol_beside(tmp_path / "alder_s01.rsw")))
     assert dialog.try_accept() and chosen == [ImportChoice((tmp_path / "alder_s01.rsw",),
                                                            tmp_path / "alder.protocol.toml")]
+
+
+def test_the_file_menu_exports_one_nwb_file_per_session(app, qtbot, tmp_path):
+    pynwb = pytest.importorskip("pynwb")
+    controller, window, history, db = app
+    files = sorted(history.glob("alder_s*.rsw"))
+    assert cli.main(["import", *map(str, files), "--protocol", str(history / "alder.protocol.toml"),
+                     "--db", str(db), "--no-fit", "--quiet"]) == 0
+    folder = tmp_path / "nwb"
+    folder.mkdir()
+    window.export_chosen.emit(ExportChoice("nwb", folder))
+    qtbot.waitUntil(lambda: controller.file_jobs.last is not None, timeout=120000)
+    result = controller.file_jobs.last
+    written = sorted(folder.glob("*.nwb"))
+    assert not result.stopped and len(written) == len(result.written) == count(db, "sessions") == 5
+    with pynwb.NWBHDF5IO(str(written[0]), "r") as io:     # pynwb reads the file back
+        assert io.read().subject.subject_id == "alder"
+    assert "Exported 5 NWB files" in window.statusBar().currentMessage()
