@@ -96,13 +96,14 @@ class FileJobs(QObject):
             self.controller.window.statusBar().showMessage(message, MESSAGE_MS)
 
     def start_import(self, files: list[Path], protocol: Path) -> Job:
-        """Import `files` (recorded under `protocol`) as `rigside import --skip-imported` does, then refit."""
+        """Import `files` (recorded under `protocol`) as `rigside import --skip-imported` does, then refit them
+        (unless the window fits no models)."""
         from monitor.app.commands.import_files import import_files, refit_animals
 
         def work(job: Job):
             tracker = JobTracker(job)
             result = import_files(self._db(), files, protocol, tracker, skip_imported=True)
-            if result.animals and not result.stopped:
+            if result.animals and not result.stopped and self.controller.fit_consolidation:
                 refit_animals(self._db(), result.animals, tracker)
             return result
 
