@@ -2,9 +2,9 @@
 
 Rule: the work is the command line's own (`import_files` of `rigside import`,
 `export_csv` and `export_nwb_files` of `rigside export`), run through the
-controller's `run_job` with a `JobTracker`: its counts, rate and time left
-go to the status bar's progress (the figures in its tooltip), and the Cancel
-button asks the work to stop at its next safe point. The work stops there,
+controller's `run_job` with a `JobTracker`: the fraction done goes to the
+status bar's progress bar, the counts, rate and time left to a line beside
+its Cancel button, which asks the work to stop at its next safe point. The work stops there,
 having written nothing half-way (one transaction per imported file, a
 temporary name for every exported file), and the status bar says what was
 finished. An import skips files imported before and refits the imported
@@ -16,9 +16,11 @@ from __future__ import annotations
 import time
 from datetime import datetime
 from pathlib import Path
+from collections.abc import Callable
 from typing import Any
 
-from PySide6.QtCore import QObject
+from PySide6.QtCore import QObject, Qt, Signal
+from PySide6.QtWidgets import QLabel
 
 from monitor.app.controller import Cancelled, Job
 
@@ -29,8 +31,9 @@ MESSAGE_MS = 30000  # how long the closing line stays in the status bar
 class JobTracker:
     """A `Tracker` (monitor.app.progress) over a window job: progress to the status bar, Cancel as the stop."""
 
-    def __init__(self, job: Job) -> None:
+    def __init__(self, job: Job, show: Callable[[str], None] | None = None) -> None:
         self.job = job
+        self.show = show   # the figures line (any thread)
         self.total = self.done = 0
         self.unit = self.label = ""
         self.lines: list[str] = []
@@ -57,7 +60,8 @@ class JobTracker:
         seconds = time.monotonic() - self._started
         if self.done and seconds > 0:
             rate = self.done / seconds
-            text += f", {rate:,.1f} {self.unit}s/s, about {max(self.total - self.done, 0) / rate:.0f} s left"
+            shown = f"{rate:,.0f}" if rate >= 100 else f"{rate:,.1f}"
+            text += f", {shown} {self.unit}s/s, about {max(self.total - self.done, 0) / rate:.0f} s left"
         return text
 
     def _show(self, force: bool = False) -> None:
@@ -65,8 +69,11 @@ class JobTracker:
         if not force and now - self._shown < SHOW_S:
             return
         self._shown = now
+        figures = self.figures()
+        if self.show is not None:
+            self.show(figures)
         try:
-            self.job.progress(self.done / self.total if self.total else 0.0, self.figures())
+            self.job.progress(self.done / self.total if self.total else 0.0, figures)
         except Cancelled:  # the work itself stops at its next safe point and says what it finished
             pass
 
@@ -79,14 +86,42 @@ def _export_name(folder: Path, kind: str) -> Path:
 class FileJobs(QObject):
     """File > Import session files… and File > Export…, wired to a Controller (GUI thread only)."""
 
+    figures_changed = Signal(str)   # emitted from the worker; Qt queues it to the GUI thread
+
     def __init__(self, controller) -> None:
         super().__init__(controller)
         self.controller = controller
         self.last: Any = None   # the last finished job's result
+        self.running = 0
+        self.figures = QLabel()
+        self.figures.setTextFormat(Qt.TextFormat.PlainText)
+        self.figures.hide()
+        self.figures_changed.connect(self._show_figures)
 
     def attach(self, window) -> None:
         window.import_chosen.connect(lambda choice: self.start_import(list(choice.files), choice.protocol))
         window.export_chosen.connect(lambda choice: self.start_export(choice.kind, choice.folder))
+        window.statusBar().addPermanentWidget(self.figures)
+
+    def _show_figures(self, text: str) -> None:
+        if self.running:   # a line queued before the job ended is not shown after it
+            self.figures.setText(text)
+            self.figures.show()
+
+    def _run(self, title: str, work: Callable[[JobTracker], Any], done: Callable[[Any], None]) -> Job:
+        """`work(tracker)` as a window job; the figures line shows while any file job runs."""
+        def over() -> None:
+            self.running -= 1
+            if not self.running:
+                self.figures.hide()
+
+        def finished(result: Any) -> None:
+            over()
+            self.last = result
+            done(result)
+        self.running += 1
+        return self.controller.run_job(title, lambda job: work(JobTracker(job, self.figures_changed.emit)),
+                                       finished, over)
 
     def _db(self) -> Path:
         return Path(self.controller.writer.path)
@@ -100,15 +135,13 @@ class FileJobs(QObject):
         (unless the window fits no models)."""
         from monitor.app.commands.import_files import import_files, refit_animals
 
-        def work(job: Job):
-            tracker = JobTracker(job)
+        def work(tracker: JobTracker):
             result = import_files(self._db(), files, protocol, tracker, skip_imported=True)
             if result.animals and not result.stopped and self.controller.fit_consolidation:
                 refit_animals(self._db(), result.animals, tracker)
             return result
 
         def done(result) -> None:
-            self.last = result
             skipped = f"; {len(result.skipped)} imported before were skipped" if result.skipped else ""
             if result.stopped:
                 last = f" (the last: {result.last})" if result.last else ""
@@ -120,7 +153,7 @@ class FileJobs(QObject):
                           f"{result.malformed} malformed lines, in {result.seconds:.1f} s{skipped}.")
             self.controller.load_stored_stages()
 
-        return self.controller.run_job(f"Importing {len(files)} files", work, done)
+        return self._run(f"Importing {len(files)} files", work, done)
 
     def start_export(self, kind: str, folder: Path) -> Job:
         """Export `kind` (events, trials: a CSV; nwb: a file per session) into `folder`."""
@@ -128,8 +161,7 @@ class FileJobs(QObject):
         from monitor.app.settings import export_settings, settings_path
         from monitor.store.db import open_store
 
-        def work(job: Job):
-            tracker = JobTracker(job)
+        def work(tracker: JobTracker):
             conn = open_store(self._db(), readonly=True)
             try:
                 if kind == "nwb":
@@ -139,7 +171,6 @@ class FileJobs(QObject):
                 conn.close()
 
         def done(result) -> None:
-            self.last = result
             if kind == "nwb":
                 failed = f"; {len(result.failed)} sessions could not be written" if result.failed else ""
                 if result.stopped:
@@ -154,4 +185,4 @@ class FileJobs(QObject):
                 self._say(f"Exported {result.rows:,} {kind} to {result.path} in {result.seconds:.1f} s.")
 
         title = "Exporting NWB files" if kind == "nwb" else f"Exporting {kind}"
-        return self.controller.run_job(title, work, done)
+        return self._run(title, work, done)

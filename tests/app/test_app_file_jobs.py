@@ -145,6 +145,22 @@ def test_the_window_tracker_shows_counts_rate_and_time_left_and_reads_cancel():
     assert tracker.cancelled()
 
 
+def test_the_figures_line_shows_while_a_file_job_runs_and_goes_after_it(app, qtbot, tmp_path):
+    controller, window, history, db = app
+    files = sorted(history.glob("alder_s*.rsw"))
+    assert cli.main(["import", *map(str, files), "--protocol", str(history / "alder.protocol.toml"),
+                     "--db", str(db), "--no-fit", "--quiet"]) == 0
+    lines: list[str] = []
+    controller.file_jobs.figures_changed.connect(lines.append)
+    folder = tmp_path / "out"
+    folder.mkdir()
+    controller.file_jobs.start_export("trials", folder)
+    qtbot.waitUntil(lambda: controller.file_jobs.last is not None, timeout=60000)
+    trials = count(db, "trials")
+    assert lines and lines[0] == f"exporting trials: 0 of {trials:,} rows"
+    assert not controller.file_jobs.figures.isVisibleTo(window)
+
+
 def test_the_import_dialog_finds_the_animals_protocol_beside_its_files(qapp, tmp_path):
     from monitor.ui.file_dialogs import ImportDialog, protocol_beside
 
