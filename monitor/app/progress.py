@@ -1,6 +1,6 @@
 """Progress and cancel of long work: a bar on a terminal, the same counts in the window.
 
-Rule: a long piece of work (import, export, backup, verify, sync) is one
+Rule: a long piece of work (import and its fits, CSV and NWB export) is one
 function that takes a `Tracker`: it says its total (`begin`), counts units
 done (`advance`), prints its lines through `say`, and asks `cancelled()` at
 every safe point (between files, sessions or chunks), where it stops and
@@ -9,10 +9,12 @@ database rows in transactions, so stopping anywhere leaves nothing
 half-written. The command line's tracker is `Progress`: on a terminal a tqdm
 bar on stderr with counts, rate and time left, redrawn at most ten times a
 second; when stderr is not a terminal, or with `--quiet`, nothing is drawn,
-so logs and pipes stay clean. Inside `with Progress(...)` on the main thread
+so logs and pipes stay clean (`sync` counts its chunks on a `Progress` the
+same way). Inside `with Progress(...)` on the main thread
 the first Ctrl-C only asks the work to stop at its next safe point (the
 command then names what was finished and exits 130); a second Ctrl-C
-interrupts at once. The window's tracker is monitor.app.file_jobs'. The
+interrupts at once. A process started with Ctrl-C ignored (a background job)
+keeps ignoring it. The window's tracker is monitor.app.file_jobs'. The
 closing summary line is the command's own.
 """
 

@@ -37,3 +37,27 @@ def test_quiet_draws_no_bar_on_a_terminal():
     with Progress(5, "file", "importing", quiet=True, stream=screen) as progress:
         progress.advance(5)
     assert not progress.shown and screen.getvalue() == ""
+
+
+def test_the_first_ctrl_c_asks_to_stop_and_the_handler_is_restored_after():
+    import os
+    import signal
+
+    before = signal.getsignal(signal.SIGINT)
+    with Progress(quiet=True) as progress:
+        assert not progress.cancelled()
+        os.kill(os.getpid(), signal.SIGINT)   # a real SIGINT to this process: the handler runs, no exception
+        assert progress.cancelled()
+        assert signal.getsignal(signal.SIGINT) is signal.default_int_handler   # a second one interrupts at once
+    assert signal.getsignal(signal.SIGINT) is before
+
+
+def test_a_process_that_ignores_ctrl_c_keeps_ignoring_it():
+    import signal
+
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        with Progress(quiet=True):
+            assert signal.getsignal(signal.SIGINT) is signal.SIG_IGN
+    finally:
+        signal.signal(signal.SIGINT, previous)
