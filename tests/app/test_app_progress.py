@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import io
+import sys
+
+import pytest
 
 from monitor.app.progress import Progress
 
@@ -39,6 +42,7 @@ def test_quiet_draws_no_bar_on_a_terminal():
     assert not progress.shown and screen.getvalue() == ""
 
 
+@pytest.mark.skipif(sys.platform == "win32", reason="sends a POSIX SIGINT to this process")
 def test_the_first_ctrl_c_asks_to_stop_and_the_handler_is_restored_after():
     import os
     import signal

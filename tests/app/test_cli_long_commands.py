@@ -21,6 +21,7 @@ from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
 
 SIGINT_EXIT = 130  # 128 + SIGINT (2): how shells report a command stopped by Ctrl-C (common practice)
+posix_signal = pytest.mark.skipif(sys.platform == "win32", reason="sends a POSIX SIGINT to a subprocess")
 
 
 class Terminal(io.StringIO):
@@ -105,6 +106,7 @@ def test_import_bar_on_a_terminal_and_not_with_quiet(cohort_store, tmp_path, cap
     assert code == 0 and "importing:" not in err and "it/s" not in err and "file/s" not in err
 
 
+@posix_signal
 def test_ctrl_c_stops_a_csv_export_with_no_partial_file(cohort_store, tmp_path):
     _, db = cohort_store
     target = tmp_path / "events.csv"
@@ -116,6 +118,7 @@ def test_ctrl_c_stops_a_csv_export_with_no_partial_file(cohort_store, tmp_path):
     assert target.read_text() == "the earlier export\n" and sorted(p.name for p in tmp_path.iterdir()) == ["events.csv"]
 
 
+@posix_signal
 def test_ctrl_c_stops_an_import_between_files_and_names_them(cohort_store, tmp_path):
     history, _ = cohort_store
     files = sorted(history.glob("birch_s*.rsw"))
@@ -133,6 +136,7 @@ def test_ctrl_c_stops_an_import_between_files_and_names_them(cohort_store, tmp_p
     assert count(db, "sessions") == len(files)
 
 
+@posix_signal
 def test_ctrl_c_stops_an_nwb_export_between_files(cohort_store, tmp_path):
     pytest.importorskip("pynwb")
     _, db = cohort_store
@@ -147,6 +151,7 @@ def test_ctrl_c_stops_an_nwb_export_between_files(cohort_store, tmp_path):
     assert f"interrupted: {len(files)} of {count(db, 'sessions')} sessions exported" in err
 
 
+@posix_signal
 def test_ctrl_c_stops_mock_rig_history_with_whole_files_and_no_truth(tmp_path):
     out_dir = tmp_path / "history"
     process = subprocess.Popen([sys.executable, "-m", "mock_rig", "history", "--animals", "8", "--days", "30",
@@ -171,6 +176,7 @@ def test_mock_rig_history_bar_on_a_terminal_only(tmp_path, monkeypatch, capsys):
     assert sys.stderr.getvalue() == "" and capsys.readouterr().out.startswith("wrote 3 sessions of 1 animals")
 
 
+@posix_signal
 def test_ctrl_c_stops_a_sync_after_a_committed_chunk_and_the_next_sync_sends_the_rest(cohort_store, lab_url,
                                                                                       tmp_path):
     import psycopg
@@ -192,6 +198,7 @@ def test_ctrl_c_stops_a_sync_after_a_committed_chunk_and_the_next_sync_sends_the
         assert pg.execute("SELECT count(*) FROM events").fetchone()[0] == count(local, "events")
 
 
+@posix_signal
 def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
     history, _ = cohort_store
     files = sorted(history.glob("alder_s*.rsw"))
