@@ -2,10 +2,10 @@
 
 Rule: nothing here computes a figure. The rows a question needs (one lab
 animal's sessions, trials, builds, fits and cached report entry; or every
-PC's sessions and events; or one PC's decisions) are copied from the lab
+PC's sessions and events; or one PC's decision and care entries) are copied from the lab
 into a scratch store made by `monitor.store.db.open_store` (every local
 migration, foreign keys off), and the local modules answer it (reporting,
-the CSV export, the decision chain's verify), so a lab report equals the
+the CSV export, the decision and care chains' verify), so a lab report equals the
 report of a local store holding the same data. Identities: a PC's rows keep
 their local ids when that PC is the first (lowest PC number) in the copy;
 another PC's ids (sessions, animals, event rowids and every id pointing at
@@ -116,16 +116,24 @@ class Lab:
             out.execute("ROLLBACK")
             raise
 
-    def decisions_of(self, pc: int, out: sqlite3.Connection) -> int:
-        """Copy one PC's decision entries, ids and all, into the scratch store `out`; return how many."""
-        rows = self.pg.execute("SELECT data FROM records WHERE pc_id = %s AND tbl = 'decisions' "
-                               "ORDER BY key::bigint", (pc,)).fetchall()
-        columns = _columns(out, "decisions")
+    def entries_of(self, pc: int, tbl: str, out: sqlite3.Connection) -> int:
+        """Copy one PC's chained entries ('decisions' or 'care_log'), ids and all, into the scratch store `out`
+        (foreign keys off: the chain alone is checked); return how many."""
+        rows = self.pg.execute("SELECT data FROM records WHERE pc_id = %s AND tbl = %s ORDER BY key::bigint",
+                               (pc, tbl)).fetchall()
+        columns = _columns(out, tbl)
+        out.execute("PRAGMA foreign_keys = OFF")
         out.execute("BEGIN")
         for (data,) in rows:
-            _insert(out, "decisions", {k: decode_value(v) for k, v in data.items() if k in columns})
+            _insert(out, tbl, {k: decode_value(v) for k, v in data.items() if k in columns})
         out.execute("COMMIT")
         return len(rows)
+
+    def local_animal(self, pc: int, animal_id: int) -> str | None:
+        """The name a PC's store gives its animal `animal_id` (None: not in the lab)."""
+        row = self.pg.execute("SELECT data->>'name' FROM records WHERE pc_id = %s AND tbl = 'animals' AND key = %s",
+                              (pc, str(animal_id))).fetchone()
+        return None if row is None else row[0]
 
 
 class _PcCopy:
@@ -315,8 +323,23 @@ def with_copy(url: str, directory: str, *, events: str) -> sqlite3.Connection:
     return out
 
 
-def verify_chains(url: str) -> Iterator[tuple[str, Any]]:
-    """(PC name, monitor.core.eligibility.decision_log.ChainCheck) for every PC's decision chain."""
+@dataclass(frozen=True)
+class PcChains:
+    """One PC's two chains as the lab holds them; `care_animal` names the animal of the first broken care entry."""
+
+    pc: str
+    decisions: Any            # monitor.core.eligibility.decision_log.ChainCheck
+    care: Any                 # monitor.core.care.chain.CareChainCheck
+    care_animal: str | None = None
+
+    @property
+    def ok(self) -> bool:
+        return self.decisions.ok and self.care.ok
+
+
+def verify_chains(url: str) -> Iterator[PcChains]:
+    """Every PC's decision chain and care chain, rebuilt from the lab's rows and checked by the local code."""
+    from monitor.store.care_log import verify as verify_care
     from monitor.store.decisions import verify
 
     with Lab(url) as lab:
@@ -324,8 +347,13 @@ def verify_chains(url: str) -> Iterator[tuple[str, Any]]:
             with tempfile.TemporaryDirectory(prefix="rigside-lab-") as directory:
                 out = scratch_store(directory)
                 try:
-                    lab.decisions_of(pc["pc"], out)
-                    result = verify(out)
+                    lab.entries_of(pc["pc"], "decisions", out)
+                    lab.entries_of(pc["pc"], "care_log", out)
+                    decisions, care = verify(out), verify_care(out)
+                    animal = None
+                    if care.entry is not None:
+                        row = out.execute("SELECT animal_id FROM care_log WHERE id = ?", (care.entry,)).fetchone()
+                        animal = None if row is None else lab.local_animal(pc["pc"], row[0])
                 finally:
                     out.close()
-            yield pc["name"], result
+            yield PcChains(pc["name"], decisions, care, animal)
