@@ -28,7 +28,8 @@ from monitor.store.lab_schema import LabError, connect, require_current
 from monitor.store.lab_sync import decode_value
 
 ID_SHIFT = 10 ** 9
-_ID_COLUMNS = ("id", "session_id", "first_event", "last_event", "source_id", "import_id")
+SCRATCH_NAME = "lab-copy.sqlite3"
+_ID_COLUMNS = ("id", "session_id", "first_event", "last_event", "source_id", "import_id", "replaces")
 _UNIQUE_BY_NAME = ("protocols", "rigs", "imports", "sources", "assignment_plans", "event_codes")
 _NOT_COPIED = ("lab_sync", "lab_bookmarks", "file_offsets", "decisions", "raw_lines", "clock_samples")
 _EVENT_SQL = ("SELECT rid, session_id, segment, line, t_us, raw_time, code, value, wall FROM events "
@@ -267,7 +268,7 @@ def scratch_store(directory: str) -> sqlite3.Connection:
     """An empty store at the current local schema, in `directory` (cheap: no sync to disk)."""
     from monitor.store.db import open_store
 
-    return open_store(Path(directory) / "lab-copy.sqlite3", synchronous="OFF")
+    return open_store(Path(directory) / SCRATCH_NAME, synchronous="OFF")
 
 
 def copy_to(url: str, path: Path, animal: str | None = None) -> list[str]:
@@ -287,7 +288,7 @@ def copy_to(url: str, path: Path, animal: str | None = None) -> list[str]:
                 out.execute("PRAGMA journal_mode = DELETE")
             finally:
                 out.close()
-            os.replace(Path(directory) / "lab-copy.sqlite3", path)
+            os.replace(Path(directory) / SCRATCH_NAME, path)
     return [a.shown for a in chosen]
 
 
@@ -313,6 +314,45 @@ def report(url: str, animal: str | None = None) -> dict[str, Any]:
             if entry is not None:
                 entries.append(entry)
     return {"animals": entries}
+
+
+@dataclass(frozen=True)
+class AnimalCopy:
+    """One lab animal in a scratch store at `path` (its sessions, trials, fits, care entries, events of sessions
+    without trials), and its decision entries from each PC it trained on with that PC's chain check."""
+
+    path: Path
+    animal: LabAnimal
+    decisions: tuple[Any, ...]              # monitor.core.eligibility.decision_log.LogEntry, PC by PC
+    chains: tuple[tuple[str, Any], ...]     # (PC name, ChainCheck of that PC's whole decision log)
+
+
+def copy_animal(url: str, shown: str, directory: str) -> AnimalCopy:
+    """The lab animal shown as `shown`, copied into a scratch store in `directory` (see AnimalCopy)."""
+    from monitor.store.decisions import entries, verify
+
+    with Lab(url) as lab:
+        found = [a for a in lab.animals() if a.shown == shown]
+        if not found:
+            raise LabError(f"no animal {shown!r} in the lab")
+        out = scratch_store(directory)
+        try:
+            lab.copy_animals(out, found)
+        finally:
+            out.close()
+        names = {pc["pc"]: pc["name"] for pc in lab.pcs()}
+        decisions: list[Any] = []
+        chains: list[tuple[str, Any]] = []
+        for pc, local in found[0].places:
+            with tempfile.TemporaryDirectory(prefix="rigside-lab-") as logs:
+                log = scratch_store(logs)
+                try:
+                    lab.entries_of(pc, "decisions", log)
+                    decisions += entries(log, local)
+                    chains.append((names.get(pc, f"PC {pc}"), verify(log)))
+                finally:
+                    log.close()
+    return AnimalCopy(Path(directory) / SCRATCH_NAME, found[0], tuple(decisions), tuple(chains))
 
 
 def with_copy(url: str, directory: str, *, events: str) -> sqlite3.Connection:

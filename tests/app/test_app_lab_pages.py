@@ -1,0 +1,129 @@
+"""An animal's pages from the lab database, against a real PostgreSQL: the same page as the rig PC builds from
+its own store, read-only, opened from the lab view with the read off the GUI thread.
+
+References: the PC's own SQLite store (sqlite3's counts of its sessions, trials and hits) and the page the rig
+PC's code builds from that store."""
+
+from __future__ import annotations
+
+import sqlite3
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from mock_rig.history import cohort, write_history
+from monitor.app.cli import main
+from monitor.app.lab_pages import READ_ONLY_NOTE, _Job, _page_state, read_page
+from monitor.core.care.ledger import CareConfig
+from monitor.core.eligibility.decision_log import Decision
+from monitor.store import lab_sync
+from monitor.store.care_log import add_supplement, add_weighing
+from monitor.store.db import open_store
+from monitor.store.decisions import append_decision
+from monitor.store.lab_schema import LabError
+
+SHOTS = Path("/tmp/rigside-shots")
+NOW = datetime(2026, 2, 10, 18, 0, tzinfo=timezone.utc)
+
+
+@pytest.fixture(scope="module")
+def store(tmp_path_factory) -> Path:
+    """One PC: alder (fitted, two decisions, a weighing and a supplement) and birch, 3 days each."""
+    out = tmp_path_factory.mktemp("lab-pages")
+    write_history(out / "h", cohort(2, seed=3), days=3)
+    db = out / "pc.sqlite3"
+    for animal in ("alder", "birch"):
+        files = sorted((out / "h").glob(f"{animal}_s*.rsw"))
+        fit = () if animal == "alder" else ("--no-fit",)
+        assert main([*map(str, ["import", *files, "--protocol", out / "h" / f"{animal}.protocol.toml", "--db", db,
+                                *fit])]) == 0
+    conn = open_store(db)
+    conn.execute("BEGIN IMMEDIATE")
+    for reason in ("not yet: plateau just reached", "still waiting"):
+        append_decision(conn, Decision(decision="deferred", animal="alder", operator="kim", reason=reason,
+                                       time="2026-02-10T10:00:00+01:00"))
+    add_weighing(conn, "alder", at="2026-02-10T09:00:00+01:00", grams=298.0, by="kim")
+    add_supplement(conn, "alder", at="2026-02-10T17:00:00+01:00", ml=2.5, by="kim")
+    conn.execute("COMMIT")
+    conn.close()
+    return db
+
+
+def synced(db: Path, url: str) -> None:
+    assert main(["lab", "init", "--lab", url]) == 0
+    conn = open_store(db)
+    try:
+        lab_sync.sync(conn, url, pc_name="room-a")
+    finally:
+        conn.close()
+
+
+def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
+    synced(store, lab_url)
+    page = read_page(lab_url, "alder", CareConfig(), NOW)
+    local = _page_state(store, "alder", CareConfig(), NOW, _Job(lambda: False))  # the rig PC's path, own store
+    state = page.state
+    assert state.animal == "alder" and state.rig == "lab copy, trained on room-a" and state.protocol == local.protocol
+    # reference: sqlite3's own counts in the PC's store (completed trials: hits and misses)
+    with sqlite3.connect(store) as conn:
+        counts = conn.execute("SELECT s.id, count(t.idx), coalesce(sum(t.rewarded), 0) FROM sessions AS s "
+                              "LEFT JOIN trials AS t ON t.session_id = s.id AND t.outcome IN ('hit', 'miss') "
+                              "WHERE s.animal = 'alder' GROUP BY s.id ORDER BY s.started_at, s.id").fetchall()
+    assert [(row.trials, row.hits) for row in state.sessions] == [(n, hits) for _, n, hits in counts]
+    assert state.sessions == local.sessions
+    for name in ("session", "measure", "low", "high"):
+        np.testing.assert_array_equal(getattr(state.curve, name), getattr(local.curve, name))
+    assert (state.curve.plateau_word, state.curve.plateau_reason) == (local.curve.plateau_word,
+                                                                      local.curve.plateau_reason)
+    assert state.consolidation.model_comparison == local.consolidation.model_comparison
+    np.testing.assert_array_equal(state.consolidation.fraction, local.consolidation.fraction)
+    assert len(state.consolidation.fraction) > 0  # the PC's cached fit came along
+    # the care day: 2.5 ml of supplement and the weighing, as on the PC
+    assert state.care_text == local.care_text and "2.50 supplement" in state.care_text and "298.0 g" in state.care_text
+    assert state.eligibility_text == local.eligibility_text
+    assert [row[7] for row in page.history.rows] == ["not yet: plateau just reached", "still waiting"]
+    assert page.history.chain_ok and "room-a: Decision log intact: 2 entries" in page.history.chain_text
+
+
+def test_an_animal_the_lab_does_not_hold_is_a_clear_error(store, lab_url):
+    synced(store, lab_url)
+    with pytest.raises(LabError, match="no animal 'rowan' in the lab"):
+        read_page(lab_url, "rowan", CareConfig(), NOW)
+
+
+def test_the_lab_view_opens_a_read_only_page(qtbot, store, lab_url, tmp_path):
+    from PySide6.QtWidgets import QMainWindow
+
+    from monitor.app.lab_background import LabLink
+
+    synced(store, lab_url)
+    window = QMainWindow()
+    qtbot.addWidget(window)
+    link = LabLink(window, tmp_path / "other-pc.sqlite3", tmp_path / "settings.toml", None)
+    link.url = lab_url  # reads the lab without syncing this (empty) PC
+    view = link.open_view()
+    qtbot.waitUntil(lambda: view.animals.rowCount() == 2, timeout=120_000)
+    row = next(r for r in range(2) if view.animals.item(r, 0).text() == "alder")
+    view.animals.cellDoubleClicked.emit(row, 0)
+    qtbot.waitUntil(lambda: "alder" in link.pages.windows, timeout=120_000)
+    shown = link.pages.windows["alder"]
+    page = shown.page
+    assert "read-only" in shown.windowTitle() and page.read_only_note.text() == READ_ONLY_NOTE
+    assert not page.read_only_note.isHidden()
+    for button in (page.record_buttons["decide"], page.record_buttons["care"], page.record_buttons["manipulation"],
+                   page.sessions.exclude_button, page.sessions.condition_button):
+        assert button.isHidden()
+    assert not page.record_buttons["decisions"].isHidden()
+    with sqlite3.connect(store) as conn:  # reference: sqlite3's count of the PC's sessions
+        sessions = conn.execute("SELECT count(*) FROM sessions WHERE animal = 'alder'").fetchone()[0]
+    assert page.sessions.table.rowCount() == sessions
+    page.record_buttons["decisions"].click()
+    assert shown.dialog is not None and shown.dialog.isVisible()
+    SHOTS.mkdir(exist_ok=True)
+    shown.resize(1100, 760)
+    page.sections.setCurrentIndex(1)
+    shown.grab().save(str(SHOTS / "lab-animal-page.png"))
+    view.grab().save(str(SHOTS / "lab-view.png"))
+    link.stop()
