@@ -84,6 +84,7 @@ def _page_state(path: Path, animal: str, config: CareConfig, now: datetime, job:
     try:
         text = latest_protocol_text(conn, animal)
         protocol = protocol_of(text) if text is not None else None
+        judgement = None
         try:
             judgement = judge(conn, animal)
             eligibility = eligibility_text(judgement.verdict if judgement is not None else None)
@@ -93,12 +94,14 @@ def _page_state(path: Path, animal: str, config: CareConfig, now: datetime, job:
         block = cached_block(conn, animal, None)
     finally:
         conn.close()
-    parts = None
+    parts = panel = None
     if protocol is not None:
         sessions = StoreHistory(path).sessions(animal, protocol, job)  # type: ignore[arg-type]
         parts = views.history_parts(protocol, sessions, block)
+        if judgement is not None:        # as the rig PC's page shows it once the animal is judged
+            panel = views.with_figures(parts.consolidation, judgement.figures)
     return views.page_state(animal, where, protocol.name if protocol else "no protocol", None, parts,
-                            care_text(care[0]) if care else "", eligibility)
+                            care_text(care[0]) if care else "", eligibility, panel)
 
 
 def _history(animal: str, entries: tuple[Any, ...], chains: tuple[tuple[str, Any], ...]) -> HistoryView:

@@ -20,6 +20,7 @@ the fitted slow-state fraction when a fit is given.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from collections.abc import Mapping, Sequence
 from typing import Any, NamedTuple
 
@@ -270,6 +271,15 @@ def _consolidation_state(figures: AnimalFigures, drops: tuple[StartDrop, ...],
         status=tuple(r["status"] for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,
         forecast_level=level, forecast_text=words,
         estimate_text=fraction_text(last["estimate"], last["low"], last["high"], last["status"]))
+
+
+def with_figures(panel: ConsolidationState, figures: AnimalFigures) -> ConsolidationState:
+    """The panel with the eligibility's own figures as its measures (the same session, the same definition as
+    the eligibility line), once the animal is judged."""
+    return replace(panel, trials_since_plateau=figures.trials_since_plateau,
+                   sessions_since_plateau=figures.sessions_since_plateau,
+                   interval_error=figures.measures.get("interval_error"), cv=figures.measures.get("cv"),
+                   measures_session=figures.session)
 
 
 def page_state(animal: str, rig: str | None, protocol_name: str, today: TodayState | None,

@@ -80,6 +80,7 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
     assert state.consolidation.model_comparison == local.consolidation.model_comparison
     np.testing.assert_array_equal(state.consolidation.fraction, local.consolidation.fraction)
     assert len(state.consolidation.fraction) > 0  # the PC's cached fit came along
+    assert state.consolidation.measures_session == len(counts)  # the eligibility's figures: of the latest session
     # the care day: 2.5 ml of supplement and the weighing, as on the PC
     assert state.care_text == local.care_text and "2.50 supplement" in state.care_text and "298.0 g" in state.care_text
     assert state.eligibility_text == local.eligibility_text
