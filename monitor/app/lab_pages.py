@@ -1,18 +1,21 @@
 """An animal's pages from the lab database, as the rig PC shows them, read-only.
 
 Rule: one home per computation. The lab animal's rows (sessions, trials,
-fits, care entries, events of sessions without trials) are copied into a
-scratch SQLite store (monitor.store.lab_read.copy_animal), and the rig PC's
-own code builds the page from that store exactly as it does from its own:
-the history reader (controller.StoreHistory), the cached fit
-(store.fits.cached_block), views.history_parts and views.page_state, the
-eligibility judgement and the care day (app.animal_records) and their lines
-(app.eligibility_care). The lab is read in a worker thread; the page opens
-when its data is ready. Nothing is written anywhere: the page hides check-in,
-decision, exclusion, condition, manipulation and care-entry buttons and says
-so; the decision history opens read-only with each PC's chain check.
-Advisory: the approved animal-use protocol, the animal-care committee and
-the veterinarian decide.
+fits, care entries, events of sessions without trials and of the latest
+session) are copied into a scratch SQLite store
+(monitor.store.lab_read.copy_animal), and the rig PC's own code builds the
+page from that store exactly as it does from its own: the history reader
+(controller.StoreHistory), the cached fit (store.fits.cached_block),
+views.history_parts and views.page_state, the eligibility judgement and the
+care day (app.animal_records) and their lines (app.eligibility_care). The
+first tab shows the latest session replayed through the live view's code
+(store.derive.session_replayed, views.today_state) against the session
+before. The lab is read in a worker thread; the page opens when its data is
+ready. Nothing is written anywhere: the page hides check-in, decision,
+exclusion, condition, manipulation and care-entry buttons and says so; the
+decision history opens read-only with each PC's chain check. Advisory: the
+approved animal-use protocol, the animal-care committee and the veterinarian
+decide.
 """
 
 from __future__ import annotations
@@ -28,11 +31,14 @@ from PySide6.QtWidgets import QVBoxLayout, QWidget
 
 from monitor.core.care.ledger import CareConfig
 from monitor.ui.decision_history import DecisionHistory, HistoryView
-from monitor.ui.models import AnimalPageState
+from monitor.ui.models import AnimalPageState, TodayState
 from monitor.ui.owners import AnimalBook
 
 READ_ONLY_NOTE = ("Read-only copy from the lab database: check-in, decisions, exclusions, conditions, manipulations "
                   "and care entries are recorded on the rig PC that trains the animal.")
+
+
+LATEST_TAB = "Latest session"     # the live page's first tab, for a session that has ended
 
 
 class LabPage(NamedTuple):
@@ -94,14 +100,39 @@ def _page_state(path: Path, animal: str, config: CareConfig, now: datetime, job:
         block = cached_block(conn, animal, None)
     finally:
         conn.close()
-    parts = panel = None
+    parts = panel = latest = None
     if protocol is not None:
         sessions = StoreHistory(path).sessions(animal, protocol, job)  # type: ignore[arg-type]
         parts = views.history_parts(protocol, sessions, block)
         if judgement is not None:        # as the rig PC's page shows it once the animal is judged
             panel = views.with_figures(parts.consolidation, judgement.figures)
-    return views.page_state(animal, where, protocol.name if protocol else "no protocol", None, parts,
+        if sessions and sessions[-1].session_id is not None:
+            latest = _latest_session(path, animal, sessions[-1].session_id,
+                                     views.stage_intervals(sessions[-2]) if len(sessions) > 1 else None)
+    return views.page_state(animal, where, protocol.name if protocol else "no protocol", latest, parts,
                             care_text(care[0]) if care else "", eligibility, panel)
+
+
+def _latest_session(path: Path, animal: str, session_id: int,
+                    previous: dict[str, tuple[float, ...]] | None) -> TodayState | None:
+    """The latest session's part of the page (histograms against the session before, rolling hit rate), as the
+    live page showed it: its events replayed through the live view's own code."""
+    from monitor.app import views
+    from monitor.app.engine import RigSnapshot
+    from monitor.store.db import open_store
+    from monitor.store.derive import session_replayed
+
+    conn = open_store(path, readonly=True)
+    try:
+        live = session_replayed(conn, session_id)
+    finally:
+        conn.close()
+    if live is None:
+        return None
+    snapshot = RigSnapshot(rig="", version=0, session_id=session_id, animal=animal, started=None, ended=True,
+                           live=live.snapshot(), series=live.stats.rate_series(), disagreements=0, events=0,
+                           malformed=0, last_event_at=None, newest_stamp=0.0)
+    return views.today_state(snapshot, previous)
 
 
 def _history(animal: str, entries: tuple[Any, ...], chains: tuple[tuple[str, Any], ...]) -> HistoryView:
@@ -128,6 +159,7 @@ class LabPageWindow(QWidget):
         self.history = page.history
         self.page = AnimalPage(self.book, page.state.animal)
         self.page.make_read_only(READ_ONLY_NOTE)
+        self.page.sections.setTabText(0, LATEST_TAB)
         self.page.history_requested.connect(lambda _animal: self.open_history())
         self.dialog: DecisionHistory | None = None
         layout = QVBoxLayout(self)

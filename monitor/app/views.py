@@ -197,14 +197,19 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
         for s in summaries], "plateau": {"reached": result.reached, "session": plateau_session}})
     drops = hit_rate_drops(protocol, sessions)
     consolidation = _consolidation_state(figures, drops, fit)
-    previous: dict[str, tuple[float, ...]] = {}
-    if sessions:
-        for t in sessions[-1].trials:
-            if t.completed and math.isfinite(t.interval_ms):
-                previous.setdefault(t.stage, ())
-                previous[t.stage] += (t.interval_ms,)
+    previous = stage_intervals(sessions[-1]) if sessions else {}
     return HistoryParts(curve_state, consolidation, rows, previous, result.reached, plateau_session, result.reason,
                         tuple(s.session_id for s in sessions))
+
+
+def stage_intervals(session: HistorySession) -> dict[str, tuple[float, ...]]:
+    """A session's completed intervals by stage (the previous session's histogram on the page)."""
+    out: dict[str, tuple[float, ...]] = {}
+    for t in session.trials:
+        if t.completed and math.isfinite(t.interval_ms):
+            out.setdefault(t.stage, ())
+            out[t.stage] += (t.interval_ms,)
+    return out
 
 
 def stage_names(protocol: Protocol, sessions: Sequence[SessionInput]) -> tuple[str, ...]:

@@ -101,7 +101,7 @@ class Lab:
 
     def copy_animals(self, out: sqlite3.Connection, animals: list[LabAnimal], *, events: str = "unbuilt") -> None:
         """Copy these animals' rows into the scratch store `out`; events: 'unbuilt' (sessions without
-        trials derived) or 'all'."""
+        trials derived), 'latest' (those and each PC's latest session) or 'all'."""
         by_pc: dict[int, dict[str, str]] = defaultdict(dict)
         for animal in animals:
             for pc, local in animal.places:
@@ -171,6 +171,9 @@ class _PcCopy:
                         built.add(row["session_id"])
         self._trials(ids)
         need = ids if events == "all" else [i for i in ids if i not in built]
+        if events == "latest" and sessions:   # and the PC's latest session of these animals (its histograms)
+            latest = max(sessions, key=lambda s: (s["started_at"] or 0, s["id"]))["id"]
+            need = sorted(set(need) | {latest})
         if need:
             self._events(need)
             for (data,) in self.pg.execute("SELECT data FROM records WHERE pc_id = %s AND tbl = 'raw_lines' AND "
@@ -319,7 +322,7 @@ def report(url: str, animal: str | None = None) -> dict[str, Any]:
 @dataclass(frozen=True)
 class AnimalCopy:
     """One lab animal in a scratch store at `path` (its sessions, trials, fits, care entries, events of sessions
-    without trials), and its decision entries from each PC it trained on with that PC's chain check."""
+    without trials and of the latest session), and its decision entries from each PC it trained on with that PC's chain check."""
 
     path: Path
     animal: LabAnimal
@@ -337,7 +340,7 @@ def copy_animal(url: str, shown: str, directory: str) -> AnimalCopy:
             raise LabError(f"no animal {shown!r} in the lab")
         out = scratch_store(directory)
         try:
-            lab.copy_animals(out, found)
+            lab.copy_animals(out, found, events="latest")
         finally:
             out.close()
         names = {pc["pc"]: pc["name"] for pc in lab.pcs()}

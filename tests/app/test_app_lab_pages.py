@@ -30,9 +30,9 @@ NOW = datetime(2026, 2, 10, 18, 0, tzinfo=timezone.utc)
 
 @pytest.fixture(scope="module")
 def store(tmp_path_factory) -> Path:
-    """One PC: alder (fitted, two decisions, a weighing and a supplement) and birch, 3 days each."""
+    """One PC: alder (fitted, two decisions, a weighing and a supplement) and birch, 4 days each."""
     out = tmp_path_factory.mktemp("lab-pages")
-    write_history(out / "h", cohort(2, seed=3), days=3)
+    write_history(out / "h", cohort(2, seed=3), days=4)
     db = out / "pc.sqlite3"
     for animal in ("alder", "birch"):
         files = sorted((out / "h").glob(f"{animal}_s*.rsw"))
@@ -84,6 +84,20 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
     # the care day: 2.5 ml of supplement and the weighing, as on the PC
     assert state.care_text == local.care_text and "2.50 supplement" in state.care_text and "298.0 g" in state.care_text
     assert state.eligibility_text == local.eligibility_text
+    # the latest session's histograms, against sqlite3's own count of its completed trials and numpy's histogram
+    # of the session before's intervals on the same bins
+    with sqlite3.connect(store) as conn:
+        latest, before = [r[0] for r in conn.execute("SELECT id FROM sessions WHERE animal = 'alder' "
+                                                      "ORDER BY started_at DESC, id DESC LIMIT 2")]
+        stage = conn.execute("SELECT stage FROM trials WHERE session_id = ? ORDER BY idx DESC LIMIT 1",
+                             (latest,)).fetchone()[0]
+        earlier = [r[0] for r in conn.execute("SELECT interval_ms FROM trials WHERE session_id = ? AND stage = ? AND "
+                                              "outcome IN ('hit', 'miss') AND interval_ms IS NOT NULL", (before, stage))]
+    today = state.today
+    assert today is not None and today.trials == counts[-1][1] and today.hits == counts[-1][2]
+    assert int(np.sum(today.linear.today)) <= today.trials
+    assert earlier  # days 3 and 4 of the simulated history are both of the final stage
+    np.testing.assert_array_equal(today.linear.previous, np.histogram(earlier, bins=today.linear.edges_ms)[0])
     assert [row[7] for row in page.history.rows] == ["not yet: plateau just reached", "still waiting"]
     assert page.history.chain_ok and "room-a: Decision log intact: 2 entries" in page.history.chain_text
 
@@ -124,7 +138,9 @@ def test_the_lab_view_opens_a_read_only_page(qtbot, store, lab_url, tmp_path):
     assert shown.dialog is not None and shown.dialog.isVisible()
     SHOTS.mkdir(exist_ok=True)
     shown.resize(1100, 760)
-    page.sections.setCurrentIndex(1)
+    assert page.sections.tabText(0) == "Latest session" and page.histogram.today.getData()[1] is not None
     shown.grab().save(str(SHOTS / "lab-animal-page.png"))
+    page.sections.setCurrentIndex(2)
+    shown.grab().save(str(SHOTS / "lab-animal-consolidation.png"))
     view.grab().save(str(SHOTS / "lab-view.png"))
     link.stop()
