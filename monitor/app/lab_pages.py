@@ -202,7 +202,10 @@ class LabPages(QObject):
             except Exception as exc:  # noqa: BLE001 - said on screen, the window goes on
                 result = f"cannot read {animal} from the lab ({type(exc).__name__}: {exc})"
             if not self.closed:
-                self._ready.emit(animal, result)
+                try:
+                    self._ready.emit(animal, result)
+                except RuntimeError:      # the window closed meanwhile: nobody to show it to
+                    pass
 
         threading.Thread(target=work, name=f"lab page {animal}", daemon=True).start()
 

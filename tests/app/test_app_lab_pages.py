@@ -102,6 +102,31 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
     assert page.history.chain_ok and "room-a: Decision log intact: 2 entries" in page.history.chain_text
 
 
+def test_one_animal_trained_on_two_pcs_is_one_page(store, lab_url, tmp_path):
+    first, second = tmp_path / "room-a.sqlite3", tmp_path / "room-b.sqlite3"  # the same rows on two PCs
+    for db in (first, second):
+        with sqlite3.connect(store) as source, sqlite3.connect(db) as target:
+            source.backup(target)
+        with sqlite3.connect(db) as conn:
+            conn.execute("UPDATE animals SET lab_id = 'RT-' || name")  # one animal per name across the two PCs
+    with sqlite3.connect(second) as conn:
+        conn.execute("DELETE FROM lab_sync")  # a PC identity of its own
+    synced(first, lab_url)
+    conn = open_store(second)
+    try:
+        lab_sync.sync(conn, lab_url, pc_name="room-b")
+    finally:
+        conn.close()
+    page = read_page(lab_url, "alder", CareConfig(), NOW)
+    with sqlite3.connect(store) as conn:  # reference: sqlite3's counts in each PC's store
+        sessions = conn.execute("SELECT count(*) FROM sessions WHERE animal = 'alder'").fetchone()[0]
+        decisions = conn.execute("SELECT count(*) FROM decisions WHERE animal = 'alder'").fetchone()[0]
+    assert len(page.state.sessions) == 2 * sessions and page.state.rig == "lab copy, trained on room-a, room-b"
+    assert len(page.history.rows) == 2 * decisions
+    assert "room-a: Decision log intact" in page.history.chain_text and "room-b: Decision log intact" in \
+        page.history.chain_text
+
+
 def test_an_animal_the_lab_does_not_hold_is_a_clear_error(store, lab_url):
     synced(store, lab_url)
     with pytest.raises(LabError, match="no animal 'rowan' in the lab"):
