@@ -139,10 +139,10 @@ def _history(animal: str, entries: tuple[Any, ...], chains: tuple[tuple[str, Any
     """The animal's entries from every PC it trained on, and each PC's chain check in words."""
     from monitor.app.eligibility_care import history_view
 
-    views = [(pc, history_view(animal, (), check)) for pc, check in chains]
+    checks = [(pc, history_view(animal, (), check)) for pc, check in chains]
     rows = history_view(animal, entries, chains[0][1]).rows if chains else ()
-    text = " ".join(f"{pc}: {view.chain_text}" for pc, view in views) or "No decision log in the lab."
-    return HistoryView(animal, rows, all(view.chain_ok for _, view in views), text)
+    text = " ".join(f"{pc}: {check.chain_text}" for pc, check in checks) or "No decision log in the lab."
+    return HistoryView(animal, rows, all(check.chain_ok for _, check in checks), text)
 
 
 class LabPageWindow(QWidget):

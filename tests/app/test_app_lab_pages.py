@@ -102,6 +102,44 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
     assert page.history.chain_ok and "room-a: Decision log intact: 2 entries" in page.history.chain_text
 
 
+def test_the_lab_page_equals_the_page_the_rig_pcs_window_shows(qtbot, store, lab_url, tmp_path):
+    """The rig PC's own window over a copy of its store, the animal's page opened there, against the lab's."""
+    from fixtures.windows import window_over
+    from monitor.app.controller import LoadedProtocol
+    from monitor.store.derive import protocol_of
+    from monitor.store.manipulations import latest_protocol_text
+
+    synced(store, lab_url)
+    db = tmp_path / "rig-pc.sqlite3"
+    with sqlite3.connect(store) as source, sqlite3.connect(db) as target:
+        source.backup(target)
+    conn = open_store(db, readonly=True)
+    text = latest_protocol_text(conn, "alder")
+    conn.close()
+    with window_over(db) as (controller, window):
+        controller.protocols["alder"] = LoadedProtocol(protocol_of(text), text, tmp_path / "alder.protocol.toml")
+        window.open_animal("alder")
+        qtbot.waitUntil(lambda: judged_page(controller, "alder"), timeout=60_000)
+        rig_pc = controller.book.state("alder")
+    lab = read_page(lab_url, "alder", CareConfig()).state
+    assert lab.sessions == rig_pc.sessions and lab.protocol == rig_pc.protocol
+    for name in ("session", "measure", "low", "high"):
+        np.testing.assert_array_equal(getattr(lab.curve, name), getattr(rig_pc.curve, name))
+    assert lab.curve.plateau_reason == rig_pc.curve.plateau_reason
+    for name in ("trials_since_plateau", "sessions_since_plateau", "interval_error", "cv", "measures_session",
+                 "model_comparison", "estimate_text"):
+        assert getattr(lab.consolidation, name) == getattr(rig_pc.consolidation, name), name
+    np.testing.assert_array_equal(lab.consolidation.fraction_low, rig_pc.consolidation.fraction_low)
+    assert (lab.care_text, lab.eligibility_text) == (rig_pc.care_text, rig_pc.eligibility_text)
+
+
+def judged_page(controller, animal: str) -> bool:
+    """The window's page of `animal` has its history, its care day and its judged figures, and no job runs."""
+    state = controller.book.state(animal)
+    return state is not None and state.consolidation is not None and animal in controller.records.summaries \
+        and state.consolidation.measures_session is not None and not controller.jobs()
+
+
 def test_one_animal_trained_on_two_pcs_is_one_page(store, lab_url, tmp_path):
     first, second = tmp_path / "room-a.sqlite3", tmp_path / "room-b.sqlite3"  # the same rows on two PCs
     for db in (first, second):
