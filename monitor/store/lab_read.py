@@ -1,12 +1,13 @@
 """Reading the lab database through the local store's own code: a scratch SQLite copy of what is asked.
 
 Rule: nothing here computes a figure. The rows a question needs (one lab
-animal's sessions, trials, builds, fits and cached report entry; or every
-PC's sessions and events; or one PC's decision and care entries) are copied from the lab
-into a scratch store made by `monitor.store.db.open_store` (every local
-migration, foreign keys off), and the local modules answer it (reporting,
-the CSV export, the decision and care chains' verify), so a lab report equals the
-report of a local store holding the same data. Identities: a PC's rows keep
+animal's sessions, trials, builds, fits, care entries and cached report
+entry; or every PC's sessions and events; or one PC's decision and care
+entries) are copied from the lab into a scratch store made by
+`monitor.store.db.open_store` (every local migration, foreign keys off), and
+the local modules answer it (reporting, the CSV export, the decision and care
+chains' verify, the window's animal page), so a lab report equals the report
+of a local store holding the same data. Identities: a PC's rows keep
 their local ids when that PC is the first (lowest PC number) in the copy;
 another PC's ids (sessions, animals, event rowids and every id pointing at
 them) are shifted by PC number x 10^9. Unknown event codes, protocols and
@@ -322,10 +323,10 @@ def report(url: str, animal: str | None = None) -> dict[str, Any]:
 @dataclass(frozen=True)
 class AnimalCopy:
     """One lab animal in a scratch store at `path` (its sessions, trials, fits, care entries, events of sessions
-    without trials and of the latest session), and its decision entries from each PC it trained on with that PC's chain check."""
+    without trials and of the latest session), and its decision entries from each PC it trained on, with that
+    PC's chain check."""
 
     path: Path
-    animal: LabAnimal
     decisions: tuple[Any, ...]              # monitor.core.eligibility.decision_log.LogEntry, PC by PC
     chains: tuple[tuple[str, Any], ...]     # (PC name, ChainCheck of that PC's whole decision log)
 
@@ -355,7 +356,7 @@ def copy_animal(url: str, shown: str, directory: str) -> AnimalCopy:
                     chains.append((names.get(pc, f"PC {pc}"), verify(log)))
                 finally:
                     log.close()
-    return AnimalCopy(Path(directory) / SCRATCH_NAME, found[0], tuple(decisions), tuple(chains))
+    return AnimalCopy(Path(directory) / SCRATCH_NAME, tuple(decisions), tuple(chains))
 
 
 def with_copy(url: str, directory: str, *, events: str) -> sqlite3.Connection:
