@@ -224,7 +224,7 @@ def test_a_sync_while_the_store_is_being_written_sends_every_row_once(pcs, lab_u
 
     def record() -> None:
         writer = sqlite3.connect(pcs["pc2"], isolation_level=None, timeout=30)
-        while not stop.is_set():
+        while not stop.wait(0.005):  # a batch every few ms, as a writer commits (a tight loop starves the sync)
             writer.execute("BEGIN IMMEDIATE")
             writer.execute("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
                            "SELECT session_id, segment, line, t_us, raw_time, code, value, wall FROM events "
