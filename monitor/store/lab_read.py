@@ -339,21 +339,26 @@ def copy_animal(url: str, shown: str, directory: str) -> AnimalCopy:
         found = [a for a in lab.animals() if a.shown == shown]
         if not found:
             raise LabError(f"no animal {shown!r} in the lab")
-        out = scratch_store(directory)
-        try:
-            lab.copy_animals(out, found, events="latest")
-        finally:
-            out.close()
         names = {pc["pc"]: pc["name"] for pc in lab.pcs()}
         decisions: list[Any] = []
         chains: list[tuple[str, Any]] = []
-        for pc, local in found[0].places:
+
+        def log_of(pc: int, local: str, log: sqlite3.Connection) -> None:
+            lab.entries_of(pc, "decisions", log)
+            decisions.extend(entries(log, local))
+            chains.append((names.get(pc, f"PC {pc}"), verify(log)))
+
+        out = scratch_store(directory)
+        try:
+            lab.copy_animals(out, found, events="latest")
+            log_of(*found[0].places[0], out)    # the first PC's whole log, as in its own store
+        finally:
+            out.close()
+        for pc, local in found[0].places[1:]:   # each other PC's log apart (entry ids are per PC)
             with tempfile.TemporaryDirectory(prefix="rigside-lab-") as logs:
                 log = scratch_store(logs)
                 try:
-                    lab.entries_of(pc, "decisions", log)
-                    decisions += entries(log, local)
-                    chains.append((names.get(pc, f"PC {pc}"), verify(log)))
+                    log_of(pc, local, log)
                 finally:
                     log.close()
     return AnimalCopy(Path(directory) / SCRATCH_NAME, tuple(decisions), tuple(chains))
