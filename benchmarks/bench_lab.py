@@ -114,7 +114,7 @@ def page(db: Path, url: str, animal: str) -> None:
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     from datetime import datetime
 
-    from monitor.app.lab_pages import _Job, _page_state, read_page
+    from monitor.app.lab_pages import ReadJob, page_from_store, read_page
     from monitor.core.care.ledger import CareConfig
 
     now = datetime.now().astimezone()
@@ -123,7 +123,7 @@ def page(db: Path, url: str, animal: str) -> None:
         read_page(url, animal, CareConfig(), now)
         lab = time.perf_counter() - began
         began = time.perf_counter()
-        _page_state(db, animal, CareConfig(), now, _Job(lambda: False))
+        page_from_store(db, animal, CareConfig(), now, ReadJob(lambda: False))
         local = time.perf_counter() - began
         print(f"page of one animal, read {attempt}: from the lab {lab:.2f} s (copy and build, in the window's "
               f"worker thread), from the local store {local:.2f} s ({lab / local:.1f}x)")

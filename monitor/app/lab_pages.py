@@ -48,7 +48,7 @@ class LabPage(NamedTuple):
     history: HistoryView
 
 
-class _Job:
+class ReadJob:
     """The history reader's job handle for a lab read: progress goes nowhere, a closed view cancels."""
 
     def __init__(self, cancelled: Callable[[], bool]) -> None:
@@ -71,12 +71,14 @@ def read_page(url: str, animal: str, config: CareConfig, now: datetime | None = 
     with tempfile.TemporaryDirectory(prefix="rigside-lab-page-") as directory:
         copy = copy_animal(url, animal, directory)
         where = f"lab copy, trained on {', '.join(pc for pc, _ in copy.chains)}"
-        return LabPage(_page_state(copy.path, animal, config, now, _Job(cancelled), where),
+        return LabPage(page_from_store(copy.path, animal, config, now, ReadJob(cancelled), where),
                        _history(animal, copy.decisions, copy.chains))
 
 
-def _page_state(path: Path, animal: str, config: CareConfig, now: datetime, job: _Job,
-                where: str | None = None) -> AnimalPageState:
+def page_from_store(path: Path, animal: str, config: CareConfig, now: datetime, job: ReadJob,
+                    where: str | None = None) -> AnimalPageState:
+    """An animal's page from the store at `path` by the rig PC's own code (history, cached fit, judgement, care
+    day, latest session); `where` is said where the rig PC names the box."""
     from monitor.app import views
     from monitor.app.animal_records import RuleError, care_day, judge
     from monitor.app.controller import StoreHistory

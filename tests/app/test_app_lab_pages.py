@@ -15,7 +15,7 @@ import pytest
 
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
-from monitor.app.lab_pages import READ_ONLY_NOTE, _Job, _page_state, read_page
+from monitor.app.lab_pages import READ_ONLY_NOTE, ReadJob, page_from_store, read_page
 from monitor.core.care.ledger import CareConfig
 from monitor.core.eligibility.decision_log import Decision
 from monitor.store import lab_sync
@@ -63,7 +63,7 @@ def synced(db: Path, url: str) -> None:
 def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
     synced(store, lab_url)
     page = read_page(lab_url, "alder", CareConfig(), NOW)
-    local = _page_state(store, "alder", CareConfig(), NOW, _Job(lambda: False))  # the rig PC's path, own store
+    local = page_from_store(store, "alder", CareConfig(), NOW, ReadJob(lambda: False))  # the rig PC's path, own store
     state = page.state
     assert state.animal == "alder" and state.rig == "lab copy, trained on room-a" and state.protocol == local.protocol
     # reference: sqlite3's own counts in the PC's store (completed trials: hits and misses)
@@ -91,8 +91,9 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
                                                       "ORDER BY started_at DESC, id DESC LIMIT 2")]
         stage = conn.execute("SELECT stage FROM trials WHERE session_id = ? ORDER BY idx DESC LIMIT 1",
                              (latest,)).fetchone()[0]
-        earlier = [r[0] for r in conn.execute("SELECT interval_ms FROM trials WHERE session_id = ? AND stage = ? AND "
-                                              "outcome IN ('hit', 'miss') AND interval_ms IS NOT NULL", (before, stage))]
+        earlier = [r[0] for r in conn.execute(
+            "SELECT interval_ms FROM trials WHERE session_id = ? AND stage = ? AND outcome IN ('hit', 'miss') "
+            "AND interval_ms IS NOT NULL", (before, stage))]
     today = state.today
     assert today is not None and today.trials == counts[-1][1] and today.hits == counts[-1][2]
     assert int(np.sum(today.linear.today)) <= today.trials
