@@ -8,6 +8,7 @@ Prints:
   full sync: `rigside sync` of that store into an empty lab schema, rows sent, rows/s, ratio to the import
   re-sync with nothing new, and the incremental sync of one more session (goal <= 1 s)
   report from the lab for one animal, and for every animal
+  the window's read-only page of one animal from the lab, against the same page from the local store
 
 Needs a PostgreSQL server: --lab URL (default $RIGSIDE_TEST_PG, else postgresql://postgres@127.0.0.1:5432/test);
 the benchmark works in a schema of its own and drops it at the end. Run:
@@ -104,6 +105,28 @@ def run(work: Path, url: str, animals: int, days: int) -> None:
     print(f"report of one animal: from the lab {took:.2f} s, from the local store {local:.2f} s (whole command)")
     took, _ = rigside("report", "--lab", url, "--json")
     print(f"report of every animal from the lab: {took:.2f} s")
+    page(db, url, names[0])
+
+
+def page(db: Path, url: str, animal: str) -> None:
+    """The window's read-only page of one animal from the lab (the worker thread's whole read), against the
+    same page built from the local store; each twice, to see the spread."""
+    os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    from datetime import datetime
+
+    from monitor.app.lab_pages import ReadJob, page_from_store, read_page
+    from monitor.core.care.ledger import CareConfig
+
+    now = datetime.now().astimezone()
+    for attempt in (1, 2):
+        began = time.perf_counter()
+        read_page(url, animal, CareConfig(), now)
+        lab = time.perf_counter() - began
+        began = time.perf_counter()
+        page_from_store(db, animal, CareConfig(), now, ReadJob(lambda: False))
+        local = time.perf_counter() - began
+        print(f"page of one animal, read {attempt}: from the lab {lab:.2f} s (copy and build, in the window's "
+              f"worker thread), from the local store {local:.2f} s ({lab / local:.1f}x)")
 
 
 if __name__ == "__main__":

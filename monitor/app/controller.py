@@ -802,10 +802,7 @@ class Controller(QObject):
         before = self._measured_panels.get(animal)
         if before is not None and before[0] is panel and before[1] is figures:
             return before[2]
-        out = replace(panel, trials_since_plateau=figures.trials_since_plateau,
-                      sessions_since_plateau=figures.sessions_since_plateau,
-                      interval_error=figures.measures.get("interval_error"), cv=figures.measures.get("cv"),
-                      measures_session=figures.session)
+        out = views.with_figures(panel, figures)
         self._measured_panels[animal] = (panel, figures, out)
         return out
 

@@ -7,8 +7,9 @@ file); without one the status bar says "lab: not set" and nothing runs. Every
 thread or the live path; one at a time, and a sync still running when the
 window closes is killed (the next one resumes where it stopped). After each
 run the state is read from the local store (monitor.store.lab_sync.sync_status)
-and said in words. The lab view reads `rigside lab show --json`, and an
-animal's report `rigside report --lab URL --animal NAME`, the same way.
+and said in words. The lab view reads `rigside lab show --json` the same way;
+an animal's pages open read-only from the lab (monitor.app.lab_pages, a
+worker thread).
 """
 
 from __future__ import annotations
@@ -60,7 +61,7 @@ class LabLink(QObject):
         self.window, self.db_path, self.settings_file, self.url = window, db_path, settings_file, url
         self.sync_process: QProcess | None = None
         self.show_process: QProcess | None = None
-        self.report_process: QProcess | None = None
+        self.pages = None   # monitor.app.lab_pages.LabPages, made when the first page is asked for
         self.view: LabWindow | None = None
         self.label = plain_label(wrap=False)
         self.label.setObjectName("lab_state")
@@ -161,14 +162,24 @@ class LabLink(QObject):
             self.view.show_message(err.strip() or f"rigside lab show ended with {code}")
 
     def read_animal(self, animal: str) -> None:
-        if not self.url or self.report_process is not None:
+        """Open the animal's pages from the lab, read-only (monitor.app.lab_pages, read off the GUI thread)."""
+        if not self.url:
             return
-        self.report_process = self._run(["report", "--lab", self.url, "--animal", animal], self._reported)
+        if self.pages is None:
+            from monitor.app.lab_pages import LabPages
+            from monitor.app.settings import care_config
 
-    def _reported(self, code: int, out: str, err: str) -> None:
-        self.report_process = None
+            try:
+                config = care_config(self.settings_file if self.settings_file.exists() else None)
+            except ValueError as exc:
+                self._say(f"Settings: {exc}")
+                return
+            self.pages = LabPages(self, config, self._say)
+        self.pages.open(self.url, animal)
+
+    def _say(self, message: str) -> None:
         if self.view is not None:
-            self.view.show_animal(out if code == 0 else err.strip())
+            self.view.show_message(message)
 
     def _run(self, args: list[str], done) -> QProcess:
         process = QProcess(self)
@@ -181,7 +192,9 @@ class LabLink(QObject):
     def stop(self) -> None:
         """Stop the timer; kill a sync still running (the next one resumes where it stopped)."""
         self.timer.stop()
-        for process in (self.sync_process, self.show_process, self.report_process):
+        if self.pages is not None:
+            self.pages.stop()
+        for process in (self.sync_process, self.show_process):
             if process is not None and process.state() != QProcess.ProcessState.NotRunning:
                 process.kill()
                 process.waitForFinished(3000)

@@ -20,6 +20,7 @@ the fitted slow-state fraction when a fit is given.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from collections.abc import Mapping, Sequence
 from typing import Any, NamedTuple
 
@@ -196,14 +197,19 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
         for s in summaries], "plateau": {"reached": result.reached, "session": plateau_session}})
     drops = hit_rate_drops(protocol, sessions)
     consolidation = _consolidation_state(figures, drops, fit)
-    previous: dict[str, tuple[float, ...]] = {}
-    if sessions:
-        for t in sessions[-1].trials:
-            if t.completed and math.isfinite(t.interval_ms):
-                previous.setdefault(t.stage, ())
-                previous[t.stage] += (t.interval_ms,)
+    previous = stage_intervals(sessions[-1]) if sessions else {}
     return HistoryParts(curve_state, consolidation, rows, previous, result.reached, plateau_session, result.reason,
                         tuple(s.session_id for s in sessions))
+
+
+def stage_intervals(session: HistorySession) -> dict[str, tuple[float, ...]]:
+    """A session's completed intervals by stage (the previous session's histogram on the page)."""
+    out: dict[str, tuple[float, ...]] = {}
+    for t in session.trials:
+        if t.completed and math.isfinite(t.interval_ms):
+            out.setdefault(t.stage, ())
+            out[t.stage] += (t.interval_ms,)
+    return out
 
 
 def stage_names(protocol: Protocol, sessions: Sequence[SessionInput]) -> tuple[str, ...]:
@@ -270,6 +276,15 @@ def _consolidation_state(figures: AnimalFigures, drops: tuple[StartDrop, ...],
         status=tuple(r["status"] for r in rows), model_comparison=comparison, forecast_low=low, forecast_high=high,
         forecast_level=level, forecast_text=words,
         estimate_text=fraction_text(last["estimate"], last["low"], last["high"], last["status"]))
+
+
+def with_figures(panel: ConsolidationState, figures: AnimalFigures) -> ConsolidationState:
+    """The panel with the eligibility's own figures as its measures (the same session, the same definition as
+    the eligibility line), once the animal is judged."""
+    return replace(panel, trials_since_plateau=figures.trials_since_plateau,
+                   sessions_since_plateau=figures.sessions_since_plateau,
+                   interval_error=figures.measures.get("interval_error"), cv=figures.measures.get("cv"),
+                   measures_session=figures.session)
 
 
 def page_state(animal: str, rig: str | None, protocol_name: str, today: TodayState | None,

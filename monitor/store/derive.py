@@ -10,7 +10,9 @@ rows. Events are read back from the session's rowid range when it is known
 (imports record it), else by a scan of the lean events table. A session
 without a protocol text gets no trials (and says so). `derive` gives the same
 result without storing it (the report uses it, read-only, for a session
-recorded live whose trials were not derived yet).
+recorded live whose trials were not derived yet); `session_replayed` gives
+the live view's session object itself (a stored session's histograms and
+rolling rate, as the live page showed them).
 """
 
 from __future__ import annotations
@@ -19,12 +21,15 @@ import json
 import sqlite3
 import time
 from functools import lru_cache
-from typing import Iterable, Iterator
+from typing import TYPE_CHECKING, Iterable, Iterator
 
 from drivers.wire import Event
 from monitor.core.protocol import Protocol, parse_protocol
 from monitor.core.session.trials import Trial
 from monitor.store.records import valve_calibration
+
+if TYPE_CHECKING:
+    from monitor.core.session.live_stats import LiveSession
 
 TRIAL_COLUMNS = ("idx", "t_us", "interval_ms", "target_ms", "window_low_ms", "window_high_ms", "stage", "outcome",
                  "rewarded", "outcome_source", "computed_outcome", "segment")
@@ -68,13 +73,30 @@ def derive(conn: sqlite3.Connection, session_id: int, events: Iterable[Event] | 
 def derive_events(protocol_text: str, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Event]
                   ) -> tuple[list[Trial], dict[str, int], float | None]:
     """(trials, builder counts, water µL) of one session's events under a protocol text; needs no database."""
+    live = replayed(protocol_text, stage, valve_ul_per_ms, events)
+    return live.trials, dict(live.builder.counts), live.stats.water_ul
+
+
+def replayed(protocol_text: str, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Event]
+             ) -> LiveSession:
+    """The live view's own session (monitor.core.session.live_stats.LiveSession) fed a stored session's events."""
     from monitor.core.session.live_stats import LiveSession
 
     live = LiveSession(protocol_of(protocol_text), stage, valve_ul_per_ms=valve_ul_per_ms)
     for event in events:
         live.feed(event)
     live.finish()
-    return live.trials, dict(live.builder.counts), live.stats.water_ul
+    return live
+
+
+def session_replayed(conn: sqlite3.Connection, session_id: int) -> LiveSession | None:
+    """A stored session replayed through the live view's code (its histograms and rolling rate as the live
+    page showed them); None without a protocol."""
+    text, stage, rig = conn.execute("SELECT protocol_text, stage, rig FROM sessions WHERE id = ?",
+                                    (session_id,)).fetchone()
+    if not text:
+        return None
+    return replayed(text, stage, valve_calibration(conn, rig), session_events(conn, session_id))
 
 
 def malformed_count(conn: sqlite3.Connection, session_id: int) -> int:

@@ -1,12 +1,13 @@
 """Reading the lab database through the local store's own code: a scratch SQLite copy of what is asked.
 
 Rule: nothing here computes a figure. The rows a question needs (one lab
-animal's sessions, trials, builds, fits and cached report entry; or every
-PC's sessions and events; or one PC's decisions) are copied from the lab
-into a scratch store made by `monitor.store.db.open_store` (every local
-migration, foreign keys off), and the local modules answer it (reporting,
-the CSV export, the decision chain's verify), so a lab report equals the
-report of a local store holding the same data. Identities: a PC's rows keep
+animal's sessions, trials, builds, fits, care entries and cached report
+entry; or every PC's sessions and events; or one PC's decision and care
+entries) are copied from the lab into a scratch store made by
+`monitor.store.db.open_store` (every local migration, foreign keys off), and
+the local modules answer it (reporting, the CSV export, the decision and care
+chains' verify, the window's animal page), so a lab report equals the report
+of a local store holding the same data. Identities: a PC's rows keep
 their local ids when that PC is the first (lowest PC number) in the copy;
 another PC's ids (sessions, animals, event rowids and every id pointing at
 them) are shifted by PC number x 10^9. Unknown event codes, protocols and
@@ -28,7 +29,8 @@ from monitor.store.lab_schema import LabError, connect, require_current
 from monitor.store.lab_sync import decode_value
 
 ID_SHIFT = 10 ** 9
-_ID_COLUMNS = ("id", "session_id", "first_event", "last_event", "source_id", "import_id")
+SCRATCH_NAME = "lab-copy.sqlite3"
+_ID_COLUMNS = ("id", "session_id", "first_event", "last_event", "source_id", "import_id", "replaces")
 _UNIQUE_BY_NAME = ("protocols", "rigs", "imports", "sources", "assignment_plans", "event_codes")
 _NOT_COPIED = ("lab_sync", "lab_bookmarks", "file_offsets", "decisions", "raw_lines", "clock_samples")
 _EVENT_SQL = ("SELECT rid, session_id, segment, line, t_us, raw_time, code, value, wall FROM events "
@@ -100,7 +102,7 @@ class Lab:
 
     def copy_animals(self, out: sqlite3.Connection, animals: list[LabAnimal], *, events: str = "unbuilt") -> None:
         """Copy these animals' rows into the scratch store `out`; events: 'unbuilt' (sessions without
-        trials derived) or 'all'."""
+        trials derived), 'latest' (those and each PC's latest session) or 'all'."""
         by_pc: dict[int, dict[str, str]] = defaultdict(dict)
         for animal in animals:
             for pc, local in animal.places:
@@ -116,16 +118,24 @@ class Lab:
             out.execute("ROLLBACK")
             raise
 
-    def decisions_of(self, pc: int, out: sqlite3.Connection) -> int:
-        """Copy one PC's decision entries, ids and all, into the scratch store `out`; return how many."""
-        rows = self.pg.execute("SELECT data FROM records WHERE pc_id = %s AND tbl = 'decisions' "
-                               "ORDER BY key::bigint", (pc,)).fetchall()
-        columns = _columns(out, "decisions")
+    def entries_of(self, pc: int, tbl: str, out: sqlite3.Connection) -> int:
+        """Copy one PC's chained entries ('decisions' or 'care_log'), ids and all, into the scratch store `out`
+        (foreign keys off: the chain alone is checked); return how many."""
+        rows = self.pg.execute("SELECT data FROM records WHERE pc_id = %s AND tbl = %s ORDER BY key::bigint",
+                               (pc, tbl)).fetchall()
+        columns = _columns(out, tbl)
+        out.execute("PRAGMA foreign_keys = OFF")
         out.execute("BEGIN")
         for (data,) in rows:
-            _insert(out, "decisions", {k: decode_value(v) for k, v in data.items() if k in columns})
+            _insert(out, tbl, {k: decode_value(v) for k, v in data.items() if k in columns})
         out.execute("COMMIT")
         return len(rows)
+
+    def local_animal(self, pc: int, animal_id: int) -> str | None:
+        """The name a PC's store gives its animal `animal_id` (None: not in the lab)."""
+        row = self.pg.execute("SELECT data->>'name' FROM records WHERE pc_id = %s AND tbl = 'animals' AND key = %s",
+                              (pc, str(animal_id))).fetchone()
+        return None if row is None else row[0]
 
 
 class _PcCopy:
@@ -162,6 +172,9 @@ class _PcCopy:
                         built.add(row["session_id"])
         self._trials(ids)
         need = ids if events == "all" else [i for i in ids if i not in built]
+        if events == "latest" and sessions:   # and the PC's latest session of these animals (its histograms)
+            latest = max(sessions, key=lambda s: (s["started_at"] or 0, s["id"]))["id"]
+            need = sorted(set(need) | {latest})
         if need:
             self._events(need)
             for (data,) in self.pg.execute("SELECT data FROM records WHERE pc_id = %s AND tbl = 'raw_lines' AND "
@@ -259,7 +272,7 @@ def scratch_store(directory: str) -> sqlite3.Connection:
     """An empty store at the current local schema, in `directory` (cheap: no sync to disk)."""
     from monitor.store.db import open_store
 
-    return open_store(Path(directory) / "lab-copy.sqlite3", synchronous="OFF")
+    return open_store(Path(directory) / SCRATCH_NAME, synchronous="OFF")
 
 
 def copy_to(url: str, path: Path, animal: str | None = None) -> list[str]:
@@ -279,7 +292,7 @@ def copy_to(url: str, path: Path, animal: str | None = None) -> list[str]:
                 out.execute("PRAGMA journal_mode = DELETE")
             finally:
                 out.close()
-            os.replace(Path(directory) / "lab-copy.sqlite3", path)
+            os.replace(Path(directory) / SCRATCH_NAME, path)
     return [a.shown for a in chosen]
 
 
@@ -307,6 +320,50 @@ def report(url: str, animal: str | None = None) -> dict[str, Any]:
     return {"animals": entries}
 
 
+@dataclass(frozen=True)
+class AnimalCopy:
+    """One lab animal in a scratch store at `path` (its sessions, trials, fits, care entries, events of sessions
+    without trials and of the latest session), and its decision entries from each PC it trained on, with that
+    PC's chain check."""
+
+    path: Path
+    decisions: tuple[Any, ...]              # monitor.core.eligibility.decision_log.LogEntry, PC by PC
+    chains: tuple[tuple[str, Any], ...]     # (PC name, ChainCheck of that PC's whole decision log)
+
+
+def copy_animal(url: str, shown: str, directory: str) -> AnimalCopy:
+    """The lab animal shown as `shown`, copied into a scratch store in `directory` (see AnimalCopy)."""
+    from monitor.store.decisions import entries, verify
+
+    with Lab(url) as lab:
+        found = [a for a in lab.animals() if a.shown == shown]
+        if not found:
+            raise LabError(f"no animal {shown!r} in the lab")
+        names = {pc["pc"]: pc["name"] for pc in lab.pcs()}
+        decisions: list[Any] = []
+        chains: list[tuple[str, Any]] = []
+
+        def log_of(pc: int, local: str, log: sqlite3.Connection) -> None:
+            lab.entries_of(pc, "decisions", log)
+            decisions.extend(entries(log, local))
+            chains.append((names.get(pc, f"PC {pc}"), verify(log)))
+
+        out = scratch_store(directory)
+        try:
+            lab.copy_animals(out, found, events="latest")
+            log_of(*found[0].places[0], out)    # the first PC's whole log, as in its own store
+        finally:
+            out.close()
+        for pc, local in found[0].places[1:]:   # each other PC's log apart (entry ids are per PC)
+            with tempfile.TemporaryDirectory(prefix="rigside-lab-") as logs:
+                log = scratch_store(logs)
+                try:
+                    log_of(pc, local, log)
+                finally:
+                    log.close()
+    return AnimalCopy(Path(directory) / SCRATCH_NAME, tuple(decisions), tuple(chains))
+
+
 def with_copy(url: str, directory: str, *, events: str) -> sqlite3.Connection:
     """A scratch store in `directory` holding every lab animal (events: 'all' or 'unbuilt')."""
     with Lab(url) as lab:
@@ -315,8 +372,23 @@ def with_copy(url: str, directory: str, *, events: str) -> sqlite3.Connection:
     return out
 
 
-def verify_chains(url: str) -> Iterator[tuple[str, Any]]:
-    """(PC name, monitor.core.eligibility.decision_log.ChainCheck) for every PC's decision chain."""
+@dataclass(frozen=True)
+class PcChains:
+    """One PC's two chains as the lab holds them; `care_animal` names the animal of the first broken care entry."""
+
+    pc: str
+    decisions: Any            # monitor.core.eligibility.decision_log.ChainCheck
+    care: Any                 # monitor.core.care.chain.CareChainCheck
+    care_animal: str | None = None
+
+    @property
+    def ok(self) -> bool:
+        return self.decisions.ok and self.care.ok
+
+
+def verify_chains(url: str) -> Iterator[PcChains]:
+    """Every PC's decision chain and care chain, rebuilt from the lab's rows and checked by the local code."""
+    from monitor.store.care_log import verify as verify_care
     from monitor.store.decisions import verify
 
     with Lab(url) as lab:
@@ -324,8 +396,13 @@ def verify_chains(url: str) -> Iterator[tuple[str, Any]]:
             with tempfile.TemporaryDirectory(prefix="rigside-lab-") as directory:
                 out = scratch_store(directory)
                 try:
-                    lab.decisions_of(pc["pc"], out)
-                    result = verify(out)
+                    lab.entries_of(pc["pc"], "decisions", out)
+                    lab.entries_of(pc["pc"], "care_log", out)
+                    decisions, care = verify(out), verify_care(out)
+                    animal = None
+                    if care.entry is not None:
+                        row = out.execute("SELECT animal_id FROM care_log WHERE id = ?", (care.entry,)).fetchone()
+                        animal = None if row is None else lab.local_animal(pc["pc"], row[0])
                 finally:
                     out.close()
-            yield pc["name"], result
+            yield PcChains(pc["name"], decisions, care, animal)

@@ -15,7 +15,7 @@ two PCs is one animal only when both carry the same lab id; without lab ids
 telling them apart the sync is refused (`SyncRefused`) naming both PCs. The
 PC's identity (a UUID made at its first sync) and the last sync's state live
 in the local tables `lab_sync` and `lab_bookmarks`. One sync per PC at a time
-(a server-side advisory lock). Nothing here runs on the live path.
+(a server-side advisory lock, keyed by the lab's schema and the PC). Nothing here runs on the live path.
 """
 
 from __future__ import annotations
@@ -40,7 +40,11 @@ APPEND_ONLY = ("decisions", "care_log", "raw_lines", "clock_samples", "fits", "a
 LOCAL_ONLY = ("file_offsets", "lab_sync", "lab_bookmarks", "sqlite_sequence", "sqlite_stat1")
 CHUNK_ROWS = 50_000
 _EVENT_COLUMNS = ("session_id", "segment", "line", "t_us", "raw_time", "code", "value", "wall")
-_LOCK_SPACE = 0x52534431  # advisory lock namespace ("RSD1")
+_LOCK_SPACE = 0x52534431  # advisory lock namespaces ("RSD1": one PC's sync; "RSD2": the animal registry)
+_REGISTRY_SPACE = 0x52534432
+# advisory locks are database-wide: the second key names the lab's schema, so labs in schemas of one database
+# (and a PC number 1 in each) never wait for each other
+_IN_THIS_LAB = "hashtext(current_schema() || '/' || %s)"
 
 
 class SyncRefused(LabError):
@@ -171,7 +175,7 @@ def _register_pc(pg, ident: str, name: str) -> int:
 
 def _place_animals(pg, pc: int, pc_name: str, animals: dict[str, str | None]) -> None:
     """Map each local animal to a lab animal (see the module rule); SyncRefused names every conflict."""
-    pg.execute("SELECT pg_advisory_xact_lock(%s, 0)", (_LOCK_SPACE,))
+    pg.execute(f"SELECT pg_advisory_xact_lock(%s, {_IN_THIS_LAB})", (_REGISTRY_SPACE, "animals"))
     mapped = {name: (aid, lab_id) for name, aid, lab_id in pg.execute(
         "SELECT m.local_name, a.id, a.lab_id FROM pc_animals AS m JOIN animals AS a ON a.id = m.animal_id "
         "WHERE m.pc_id = %s", (pc,))}
@@ -339,7 +343,7 @@ def _sync(conn: sqlite3.Connection, url: str, ident: str, name: str, chunk_rows:
     try:
         require_current(pg, url)
         pc = _register_pc(pg, ident, name)
-        if not pg.execute("SELECT pg_try_advisory_lock(%s, %s)", (_LOCK_SPACE, pc)).fetchone()[0]:
+        if not pg.execute(f"SELECT pg_try_advisory_lock(%s, {_IN_THIS_LAB})", (_LOCK_SPACE, str(pc))).fetchone()[0]:
             raise LabError(f"another sync of {name} into {shown(url)} is running; try again when it ends")
         pg.commit()
         result = SyncResult(name, pc)

@@ -8,7 +8,8 @@ verdict has its one-sentence reason beside it, and the consolidation figure
 comes after the transparent measures with its caveat and the advisory note.
 Flagging an exclusion or adding a condition emits a record; the app stores it.
 Buttons beside the eligibility and care lines ask the app for the decision
-dialog, the decision history and the care window.
+dialog, the decision history and the care window. A read-only page (a copy
+from the lab database) keeps only the decision history and says why.
 """
 
 from __future__ import annotations
@@ -625,8 +626,12 @@ class AnimalPage(QWidget):
         care = QHBoxLayout()
         care.addWidget(self.care, 1)
         care.addWidget(self.record_buttons["care"])
+        self.read_only_note = plain_label()
+        self.read_only_note.setObjectName("read_only_note")
+        self.read_only_note.hide()
         layout = QVBoxLayout(self)
         layout.addLayout(header)
+        layout.addWidget(self.read_only_note)
         layout.addWidget(self.plateau_line)
         layout.addLayout(eligibility)
         layout.addWidget(self.sections, 1)
@@ -675,6 +680,15 @@ class AnimalPage(QWidget):
             self.figures[key].set(f"{getattr(today, key):d}")
         self.histogram.set_state(today)
         self.rolling.set_state(today)
+
+    def make_read_only(self, note: str) -> None:
+        """A page that records nothing (a copy read from elsewhere): only the decision history stays, and
+        `note` says why."""
+        for button in (*(self.record_buttons[k] for k in ("decide", "care", "manipulation")),
+                       self.sessions.exclude_button, self.sessions.include_button, self.sessions.condition_button):
+            button.hide()
+        self.read_only_note.setText(note)
+        self.read_only_note.show()
 
     def disconnect_book(self) -> None:
         if self._connected:

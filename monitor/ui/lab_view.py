@@ -1,4 +1,5 @@
-"""The lab database in the window: its state in the status bar, and a read-only view of the lab.
+"""The lab database in the window: its state in the status bar, and a read-only view of the lab (every PC,
+its rigs and animals, its last sync; an animal's pages open from here).
 
 Rule: widgets show plain values handed to them and emit what a person asks
 (save the URL, sync now, refresh); the app does the work in another process
@@ -17,7 +18,6 @@ from PySide6.QtWidgets import (
     QFormLayout,
     QHBoxLayout,
     QLineEdit,
-    QPlainTextEdit,
     QPushButton,
     QTableWidget,
     QTableWidgetItem,
@@ -37,7 +37,7 @@ class LabWindow(QDialog):
     url_saved = Signal(str)
     sync_requested = Signal()
     refresh_requested = Signal()
-    animal_requested = Signal(str)         # the lab's name of an animal: show its report
+    animal_requested = Signal(str)         # the lab's name of an animal: open its pages
 
     def __init__(self, url: str, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -65,11 +65,15 @@ class LabWindow(QDialog):
         buttons.addStretch(1)
         self.pcs = _table(PC_COLUMNS)
         self.animals = _table(ANIMAL_COLUMNS)
-        self.animals.cellDoubleClicked.connect(
-            lambda row, _col: self.animal_requested.emit(self.animals.item(row, 0).text()))
-        self.animal_report = QPlainTextEdit()
-        self.animal_report.setReadOnly(True)
-        self.animal_report.setPlaceholderText("Double-click an animal for its report from the lab.")
+        self.animals.setSelectionBehavior(QTableWidget.SelectionBehavior.SelectRows)
+        self.animals.cellDoubleClicked.connect(lambda row, _col: self.open_animal(row))
+        self.open_page = QPushButton("Open the animal's page")
+        self.open_page.clicked.connect(lambda: self.open_animal(self.animals.currentRow()))
+        pages = QHBoxLayout()
+        pages.addWidget(plain_label("Double-click an animal for its pages as the rig PC shows them (history, "
+                                    "learning curve, plateau, consolidation, decisions, care), read-only: "
+                                    "nothing is recorded from the lab view."), 1)
+        pages.addWidget(self.open_page)
         self.message = plain_label()
         layout = QVBoxLayout(self)
         layout.addLayout(form)
@@ -78,7 +82,7 @@ class LabWindow(QDialog):
         layout.addWidget(self.pcs, 1)
         layout.addWidget(plain_label("Animals in the lab (read-only)"))
         layout.addWidget(self.animals, 1)
-        layout.addWidget(self.animal_report, 1)
+        layout.addLayout(pages)
         layout.addWidget(self.message)
 
     def show_state(self, text: str) -> None:
@@ -92,9 +96,11 @@ class LabWindow(QDialog):
                              for a in document.get("animals", [])])
         self.message.setText("")
 
-    def show_animal(self, text: str) -> None:
-        """An animal's report as `rigside report --lab` prints it (sessions, plateau, slow-state fraction)."""
-        self.animal_report.setPlainText(text)
+    def open_animal(self, row: int) -> None:
+        """Ask for the page of the animal in `row` (nothing without one)."""
+        item = self.animals.item(row, 0) if row >= 0 else None
+        if item is not None:
+            self.animal_requested.emit(item.text())
 
     def show_message(self, text: str) -> None:
         self.message.setText(text)

@@ -1,5 +1,5 @@
 """The window's lab link: status words, the settings file's [lab] url, and a background sync against a real
-PostgreSQL in a separate process (the status bar and the read-only lab view afterwards)."""
+PostgreSQL in a separate process (the status bar, the read-only lab view and an animal's page afterwards)."""
 
 from __future__ import annotations
 
@@ -78,9 +78,9 @@ def test_background_sync_and_the_lab_view(qtbot, store, lab_url, tmp_path):
     link.read_lab()
     qtbot.waitUntil(lambda: view.pcs.rowCount() == 1, timeout=120_000)
     assert view.animals.item(0, 0).text() == "alder" and view.pcs.item(0, 4).text() == "1"
-    view.animals.cellDoubleClicked.emit(0, 0)
-    qtbot.waitUntil(lambda: "alder:" in view.animal_report.toPlainText(), timeout=120_000)
-    assert "2 sessions" in view.animal_report.toPlainText()
+    view.animals.cellDoubleClicked.emit(0, 0)  # the animal's page, read from the lab (tests/app/test_app_lab_pages.py)
+    qtbot.waitUntil(lambda: link.pages is not None and "alder" in link.pages.windows, timeout=120_000)
+    assert link.pages.windows["alder"].page.sessions.table.rowCount() == 2  # the 2 days written above
     SHOTS.mkdir(exist_ok=True)
     view.grab().save(str(SHOTS / "lab-view.png"))
     window.grab().save(str(SHOTS / "lab-status.png"))

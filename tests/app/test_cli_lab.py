@@ -127,7 +127,6 @@ def test_a_statement_the_lab_refuses_is_one_line_and_exit_1(capsys, store, lab_u
 
 
 def test_nwb_from_the_lab(capsys, store, lab_url, tmp_path):
-    pytest.importorskip("pynwb")
     from pynwb import NWBHDF5IO  # reference: pynwb reads the files back
 
     assert run_cli(capsys, "lab", "init", "--lab", lab_url)[0] == 0

@@ -14,6 +14,7 @@ import sqlite3
 import subprocess
 import sys
 from pathlib import Path
+from typing import Callable
 
 import psycopg
 import pytest
@@ -140,14 +141,45 @@ def test_two_pcs_syncing_at_the_same_time(pcs, lab_url):
     assert lab_count(lab_url, "SELECT count(*) FROM animals") == 4  # alder, birch, cedar, damson: once each
 
 
+def sync_during(db: Path, url: str, name: str, other: Callable[[], object]) -> list[object]:
+    """Sync `db`, and while its first chunk of events is committed run `other`; what `other` returned or raised."""
+    seen: list[object] = []
+
+    def midway(table: str, done: int, end: int) -> None:
+        if table == "events" and not seen:
+            try:
+                seen.append(other())
+            except Exception as exc:  # noqa: BLE001 - the test looks at it
+                seen.append(exc)
+
+    do_sync(db, url, name, chunk_rows=1000, progress=midway)
+    return seen
+
+
 def test_a_second_sync_of_the_same_pc_waits_its_turn(pcs, lab_url):
     lab_schema.upgrade(lab_url)
-    do_sync(pcs["pc2"], lab_url, "pc2")
-    with psycopg.connect(lab_url, autocommit=True) as other:  # as if another sync of pc2 were running
-        other.execute("SELECT pg_advisory_lock(%s, 1)", (0x52534431,))
-        with pytest.raises(lab_schema.LabError, match="another sync of pc2"):
-            do_sync(pcs["pc2"], lab_url, "pc2")
+    seen = sync_during(pcs["pc2"], lab_url, "pc2", lambda: do_sync(pcs["pc2"], lab_url, "pc2"))
+    assert isinstance(seen[0], lab_schema.LabError) and "another sync of pc2" in str(seen[0])
     assert do_sync(pcs["pc2"], lab_url, "pc2").total == 0
+
+
+def test_labs_in_two_schemas_of_one_database_do_not_wait_for_each_other(pcs, lab_url):
+    """Each lab's first PC is PC 1; PostgreSQL's advisory locks are database-wide."""
+    schema = lab_url.rsplit("application_name=", 1)[1]
+    other_schema = schema + "_b"
+    other_url = lab_url.replace(f"search_path%3D{schema}", f"search_path%3D{other_schema}")
+    with psycopg.connect(lab_url, autocommit=True) as admin:
+        admin.execute(f"CREATE SCHEMA {other_schema}")
+        try:
+            for url in (lab_url, other_url):
+                lab_schema.upgrade(url)
+            seen = sync_during(pcs["pc1"], lab_url, "pc1", lambda: do_sync(pcs["pc2"], other_url, "pc2"))
+            assert isinstance(seen[0], lab_sync.SyncResult) and seen[0].pc_number == 1
+            # reference: the PC's own SQLite store
+            assert lab_count(other_url, "SELECT count(*) FROM events") == \
+                local_count(pcs["pc2"], "SELECT count(*) FROM events")
+        finally:
+            admin.execute(f"DROP SCHEMA {other_schema} CASCADE")
 
 
 def test_one_more_session_sends_only_its_rows(pcs, lab_url, tmp_path):
@@ -192,7 +224,7 @@ def test_a_sync_while_the_store_is_being_written_sends_every_row_once(pcs, lab_u
 
     def record() -> None:
         writer = sqlite3.connect(pcs["pc2"], isolation_level=None, timeout=30)
-        while not stop.is_set():
+        while not stop.wait(0.005):  # a batch every few ms, as a writer commits (a tight loop starves the sync)
             writer.execute("BEGIN IMMEDIATE")
             writer.execute("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
                            "SELECT session_id, segment, line, t_us, raw_time, code, value, wall FROM events "
@@ -374,6 +406,44 @@ def test_entries_are_insert_only_on_the_server_and_tampering_is_found(pcs, lab_u
     assert rigside("log", "verify", "--lab", lab_url) == 1
     err = capsys.readouterr().err
     assert len(err.strip().splitlines()) == 1 and "BROKEN on pc1" in err and "pc2" not in err
+
+
+def test_a_tampered_care_entry_on_the_server_is_named_by_pc_animal_and_entry(pcs, lab_url, capsys):
+    lab_schema.upgrade(lab_url)
+    do_sync(pcs["pc1"], lab_url, "pc1")
+    do_sync(pcs["pc2"], lab_url, "pc2")
+    assert rigside("log", "verify", "--db", pcs["pc1"]) == 0
+    local = capsys.readouterr().out.splitlines()  # reference: the PC's own store, checked by `log verify --db`
+    assert rigside("log", "verify", "--lab", lab_url) == 0
+    assert f"pc1: {local[0]}; {local[1]}" in capsys.readouterr().out
+    supplement = local_count(pcs["pc1"], "SELECT id FROM care_log WHERE kind = 'supplement'")
+    with psycopg.connect(lab_url) as pg:
+        for statement in ("UPDATE records SET data = jsonb_set(data, '{amount}', '5') WHERE tbl = 'care_log'",
+                          "DELETE FROM records WHERE tbl = 'care_log'"):
+            with pytest.raises(psycopg.errors.RaiseException, match="care_log entries are insert-only"):
+                pg.execute(statement)  # PostgreSQL's trigger refuses it
+            pg.rollback()
+        pg.execute("ALTER TABLE records DISABLE TRIGGER records_entries_insert_only")  # the owner goes round it
+        pg.execute("UPDATE records SET data = jsonb_set(data, '{amount}', '5.0') WHERE tbl = 'care_log' AND pc_id = 1 "
+                   "AND key = %s", (str(supplement),))
+        pg.execute("ALTER TABLE records ENABLE TRIGGER records_entries_insert_only")
+    assert rigside("log", "verify", "--lab", lab_url) == 1
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and "pc2" not in err
+    assert f"BROKEN on pc1: care entry {supplement}: its content was changed" in err and "(animal alder)" in err
+
+
+def test_a_care_entry_deleted_round_the_trigger_is_found(pcs, lab_url, capsys):
+    lab_schema.upgrade(lab_url)
+    do_sync(pcs["pc1"], lab_url, "pc1")
+    first = local_count(pcs["pc1"], "SELECT min(id) FROM care_log")
+    with psycopg.connect(lab_url) as pg:
+        pg.execute("ALTER TABLE records DISABLE TRIGGER records_entries_insert_only")
+        pg.execute("DELETE FROM records WHERE tbl = 'care_log' AND key = %s", (str(first),))
+        pg.execute("ALTER TABLE records ENABLE TRIGGER records_entries_insert_only")
+    assert rigside("log", "verify", "--lab", lab_url) == 1
+    err = capsys.readouterr().err
+    assert f"pc1: care entry {first + 1}: does not follow the entry before it" in err and "alder" in err
 
 
 def test_report_from_the_lab_equals_the_local_reports(pcs, lab_url):

@@ -11,8 +11,9 @@ rewritten log; keep them somewhere else (a lab notebook, an e-mail).
 `export --csv FILE` writes one row per entry (DECISION_CSV_COLUMNS, cells
 escaped as in every rigside CSV). `verify` first runs SQLite's quick_check
 over the whole file: a damaged database is refused (exit 2). Read-only.
-`verify --lab URL` checks every PC's chain in the lab database (a line per
-PC; exit 1 with one line naming every broken PC).
+`verify --lab URL` checks every PC's decision and care chains in the lab
+database (a line per PC; exit 1 with one line naming every broken PC, its
+first broken entry and, for a care entry, its animal).
 """
 
 from __future__ import annotations
@@ -96,16 +97,22 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _verify_lab(url: str) -> int:
-    """Every PC's chain in the lab: one line each; exit 1 if any is broken."""
+    """Every PC's decision and care chains in the lab: one line each; exit 1 if any is broken."""
     from monitor.store.lab_read import verify_chains
 
     results = lab_call(lambda: list(verify_chains(url)))
-    broken = [f"{pc}: {result.message}" for pc, result in results if not result.ok]
+    broken = []
+    for pc in results:
+        if not pc.decisions.ok:
+            broken.append(f"{pc.pc}: {pc.decisions.message}")
+        if not pc.care.ok:
+            whose = f" (animal {pc.care_animal})" if pc.care_animal else ""
+            broken.append(f"{pc.pc}: {pc.care.message}{whose}")
     if broken:
         print(f"rigside log verify: BROKEN on {'; '.join(broken)}", file=sys.stderr)
         return 1
-    for pc, result in results:
-        print(f"{pc}: {result.message}")
+    for pc in results:
+        print(f"{pc.pc}: {pc.decisions.message}" + (f"; {pc.care.message}" if pc.care.entries else ""))
     if not results:
         print("the lab holds no PC's log yet")
     return 0

@@ -42,6 +42,7 @@ class CareChainCheck(NamedTuple):
     ok: bool
     entries: int
     message: str
+    entry: int | None = None   # the id of the first broken entry (None: intact)
 
 
 def verify_care_chain(rows: Sequence[tuple[int, Mapping[str, Any], str | None, str | None]]) -> CareChainCheck:
@@ -50,9 +51,9 @@ def verify_care_chain(rows: Sequence[tuple[int, Mapping[str, Any], str | None, s
     for number, (entry_id, content, prev_hash, digest) in enumerate(rows, start=1):
         if prev_hash != previous:
             return CareChainCheck(False, number - 1, f"care entry {entry_id}: does not follow the entry before it "
-                                                     "(an entry was removed or inserted)")
+                                                     "(an entry was removed or inserted)", entry_id)
         if digest != care_hash(previous, content):
             return CareChainCheck(False, number - 1, f"care entry {entry_id}: its content was changed after it "
-                                                     "was recorded (hash does not match)")
+                                                     "was recorded (hash does not match)", entry_id)
         previous = digest
     return CareChainCheck(True, len(rows), f"{len(rows)} care entries, chain intact")
