@@ -24,23 +24,29 @@ from __future__ import annotations
 import os
 import re
 import sqlite3
+import tempfile
+import time
 import uuid
-import warnings
 from dataclasses import dataclass, field
 from datetime import date, datetime, time as clock
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any, Callable, Iterable, Iterator
 
 import numpy as np
 
-from drivers.wire import Event
 from monitor.store.animals import get_animal, missing_fields
-from monitor.store.derive import derive, protocol_of, session_events, stored_trials
+from monitor.store.connection import database_path
+from monitor.store.consolidation_fits import worker_count
+from monitor.store.derive import derive, protocol_of, stored_trials
+from monitor.store.event_blocks import EventBlock, event_words, session_block
 from monitor.store.records import conditions_of
-from monitor.store.session_time import relative_us, start_shift_us
-from monitor.store.nwb_manipulations import add_manipulations
+from monitor.store.session_time import SessionClock, start_shift_us
+from monitor.store.nwb_file import Column, Content, Table, write, write_schema_file
+from monitor.store.nwb_manipulations import manipulations_table
 
 _ID = re.compile(r"[^A-Za-z0-9-]")
+SCHEMA_WAIT_S = 120.0  # a worker waits this long at most for the schema file (importing pynwb takes seconds)
+SESSIONS_PER_WORKER = 8  # a spawned writer costs about as much to start as eight sessions take to write
 TRIAL_FIELDS = (("first_press_time", "s", "first press or crossing of the trial (s after session start)"),
                 ("interval_ms", "ms", "inter-press interval or hold time (NaN when none)"),
                 ("outcome", "", "the rig's outcome word when it sent one, else rigside's classification"),
@@ -52,7 +58,6 @@ TRIAL_FIELDS = (("first_press_time", "s", "first press or crossing of the trial 
                 ("window_high_ms", "ms", "high edge of the reward window in force"),
                 ("stage", "", "shaping stage in force"),
                 ("segment", "", "device clock segment (a board reset starts a new one)"))
-HDF5_FORMAT = "v110"  # object headers of HDF5 1.10 (readable by 1.10 and later): smaller than the earliest format
 DEFAULT_KEYWORDS = ("behavior", "operant conditioning", "motor timing", "motor skill learning")
 DEFAULT_EXPERIMENT = ("Operant training of a motor timing task (two lever presses a target delay apart, or a "
                       "joystick push held for a target time), recorded from the box's event stream by rigside.")
@@ -65,6 +70,7 @@ class ExportResult:
     written: list[Path] = field(default_factory=list)
     failed: list[str] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
+    interrupted: bool = False  # Ctrl-C: the sessions neither written nor failed were not started
 
 
 def file_name(animal: str, number: int) -> str:
@@ -74,18 +80,6 @@ def file_name(animal: str, number: int) -> str:
 
 def subject_label(animal: str) -> str:
     return _ID.sub("-", animal) or "unnamed"
-
-
-def _gz(data: Any):
-    from hdmf.backends.hdf5 import H5DataIO
-
-    return H5DataIO(data, compression="gzip", shuffle=True)
-
-
-def _ids(n: int):
-    from hdmf.common import ElementIdentifiers
-
-    return ElementIdentifiers(name="id", data=_gz(np.arange(n, dtype=np.int64)))
 
 
 def _narrow(values: np.ndarray) -> np.ndarray:
@@ -101,47 +95,43 @@ def _text(value: str) -> str:
     return value.replace("\x00", "\\x00")
 
 
-def _categorical(name: str, description: str, values: list[str]):
+def _categorical(name: str, description: str, values: list[str]) -> Column:
     """An EnumData column: one small code per row, each distinct text stored once."""
-    from hdmf.common import EnumData, VectorData
-
     words = sorted(set(values))
     index = {w: i for i, w in enumerate(words)}
     dtype = np.uint8 if len(words) <= 256 else np.uint16 if len(words) <= 65536 else np.uint32
-    elements = VectorData(name=f"{name}_elements", description=f"the distinct values of {name}", data=words)
-    column = EnumData(name=name, description=description, elements=elements,
-                      data=_gz(np.fromiter((index[v] for v in values), dtype=dtype, count=len(values))))
-    return column, elements
+    return Column(name, description, np.fromiter((index[v] for v in values), dtype=dtype, count=len(values)),
+                  words=words)
 
 
-def _events_table(timed: list[tuple[Event, int]], shift_us: int):
+@dataclass(frozen=True)
+class _Events:
+    """A session's events: the stored columns, each event's word and its session time (µs)."""
+
+    block: EventBlock
+    words: list[str]
+    relative_us: np.ndarray
+
+    def times_of(self, word: str) -> list[int]:
+        return sorted(self.relative_us[[w == word for w in self.words]].tolist()) if self.words else []
+
+
+def _events_table(events: _Events, shift_us: int) -> Table:
     """The `rig_events` table, built column by column."""
-    from hdmf.common import VectorData
-    from pynwb.event import EventsTable, TimestampVectorData
-
-    n = len(timed)
-    times = np.fromiter(((shift_us + rel) / 1e6 for _, rel in timed), dtype=np.float64, count=n)
-    rows = [e for e, _ in timed]
-    event, event_words = _categorical("event", "event word", [e.name for e in rows])
-    value, value_texts = _categorical("value", "arguments, joined by one space (empty when none)",
-                                      [_text(" ".join(e.args)) for e in rows])
-    columns = [TimestampVectorData(name="timestamp", resolution=1e-6, data=_gz(times), description=(
-        "seconds after session_start_time on the device clock (clock segments continue from the last time seen)")),
-        event, event_words, value, value_texts]
-    for name, description, get in (
-            ("segment", "device clock segment", lambda e: e.segment),
-            ("line", "line number in the source", lambda e: e.line),
-            ("raw_time", "the device counter as sent", lambda e: e.raw_time)):
-        values = np.fromiter((get(e) for e in rows), dtype=np.int64, count=n)
-        columns.append(VectorData(name=name, description=description, data=_gz(_narrow(values))))
-    return EventsTable(name="rig_events", description="every event line the rig sent, in order", columns=columns,
-                       id=_ids(n))
+    block = events.block
+    columns = [
+        Column("timestamp", "seconds after session_start_time on the device clock (clock segments continue from "
+               "the last time seen)", (shift_us + events.relative_us) / 1e6, resolution=1e-6),
+        _categorical("event", "event word", events.words),
+        _categorical("value", "arguments, joined by one space (empty when none)",
+                     [_text(v) if v else "" for v in block.value]),
+        Column("segment", "device clock segment", _narrow(block.segment)),
+        Column("line", "line number in the source", _narrow(block.line)),
+        Column("raw_time", "the device counter as sent", _narrow(block.raw_time))]
+    return Table("rig_events", "EventsTable", "every event line the rig sent, in order", columns, len(block))
 
 
-def _trials_table(trials: list, spans: list[tuple[int, int]], shift_us: int):
-    from hdmf.common import VectorData
-    from pynwb.epoch import TimeIntervals
-
+def _trials_table(trials: list, spans: list[tuple[int, int]], shift_us: int) -> Table:
     def seconds(values: Iterable[float]) -> np.ndarray:
         return np.array([(shift_us + v) / 1e6 for v in values], dtype=np.float64)
 
@@ -156,14 +146,14 @@ def _trials_table(trials: list, spans: list[tuple[int, int]], shift_us: int):
     described = {"start_time": "trial start (the rig's trial_start, else the first press), s",
                  "stop_time": "trial end (the rig's outcome, else the last press, else the press timeout), s"}
     described.update({name: f"{text}{', ' + unit if unit else ''}" for name, unit, text in TRIAL_FIELDS})
-    columns = [VectorData(name=name, description=described[name], data=_gz(values)) for name, values in data.items()]
+    columns = [Column(name, described[name], values) for name, values in data.items()]
     for name in ("outcome", "outcome_source", "computed_outcome", "stage"):
-        columns.extend(_categorical(name, described[name], [_text(str(getattr(t, name))) for t in trials]))
-    return TimeIntervals(name="trials", description="trials from trial start to trial end; lone presses, premature "
-                         "presses and omissions are rows with their outcome", columns=columns, id=_ids(len(trials)))
+        columns.append(_categorical(name, described[name], [_text(str(getattr(t, name))) for t in trials]))
+    return Table("trials", "TimeIntervals", "trials from trial start to trial end; lone presses, premature "
+                 "presses and omissions are rows with their outcome", columns, len(trials))
 
 
-def _spans(conn: sqlite3.Connection, session_id: int, trials: list, timed: list[tuple[Event, int]]):
+def _spans(conn: sqlite3.Connection, session_id: int, trials: list, events: _Events):
     from monitor.core.session.trial_spans import trial_spans
 
     text = conn.execute("SELECT protocol_text FROM sessions WHERE id = ?", (session_id,)).fetchone()[0]
@@ -174,9 +164,7 @@ def _spans(conn: sqlite3.Connection, session_id: int, trials: list, timed: list[
         stage = stage or (protocol.stages[0] if protocol else None)
         return stage.trial_timeout_ms * 1000.0 if stage else 0.0
 
-    starts = sorted(rel for e, rel in timed if e.name == "trial_start")
-    outcomes = sorted(rel for e, rel in timed if e.name == "outcome")
-    return trial_spans(trials, starts, outcomes, timeout_us)
+    return trial_spans(trials, events.times_of("trial_start"), events.times_of("outcome"), timeout_us)
 
 
 def session_trials(conn: sqlite3.Connection, session_id: int) -> list:
@@ -200,9 +188,7 @@ def _day_weight_g(conn: sqlite3.Connection, session_id: int, animal_id: int | No
     return max(weights)[1] if weights else None
 
 
-def _subject(record: dict | None, animal: str, start: datetime, weight_g: float | None):
-    from pynwb.file import Subject
-
+def _subject(record: dict | None, animal: str, start: datetime, weight_g: float | None) -> dict[str, Any]:
     record = record or {}
     birth, age = None, None
     if record.get("date_of_birth"):
@@ -217,25 +203,26 @@ def _subject(record: dict | None, animal: str, start: datetime, weight_g: float 
     if record.get("baseline_weight_g"):
         about.append(f"baseline weight {record['baseline_weight_g']:g} g"
                      + (f" on {record['baseline_weight_date']}" if record.get("baseline_weight_date") else ""))
-    return Subject(subject_id=subject_label(animal), species=record.get("species"), strain=record.get("strain"),
-                   sex=record.get("sex") or "U", date_of_birth=birth, age=age, genotype=record.get("genotype"),
-                   weight=f"{weight_g / 1000:g} kg" if weight_g else None,
-                   description="; ".join([f"rigside name {animal}", *about]))
+    return {"age": age, "date_of_birth": birth, "description": "; ".join([f"rigside name {animal}", *about]),
+            "genotype": record.get("genotype"), "sex": record.get("sex") or "U", "species": record.get("species"),
+            "subject_id": subject_label(animal), "weight": f"{weight_g / 1000:g} kg" if weight_g else None,
+            "strain": record.get("strain")}
 
 
-def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_dir: Path,
-                  settings: dict | None = None) -> Path:
-    """Write session `session_id` (the animal's `number`-th) into `out_dir`; return the file's path."""
-    import h5py
-    from pynwb import NWBHDF5IO, NWBFile
-
+def session_content(conn: sqlite3.Connection, session_id: int, number: int,
+                    settings: dict | None = None) -> tuple[str, Content]:
+    """Session `session_id` (its animal's `number`-th) as the content of one NWB file, with its animal."""
     settings = settings or {}
     (animal, animal_id, rig, start_wall, label, excluded, reason, name, version, stage) = conn.execute(
         "SELECT animal, animal_id, rig, start_wall, label, excluded, exclusion_reason, protocol_name, "
         "protocol_version, stage FROM sessions WHERE id = ?", (session_id,)).fetchone()
     start = datetime.fromisoformat(start_wall)
-    timed = list(relative_us(session_events(conn, session_id)))
-    shift_us = start_shift_us(conn, session_id, timed[0][0].t_us) if timed else 0
+    if start.tzinfo is None:
+        start = start.astimezone()  # NWB needs an offset: a stored time without one is this PC's local time
+    block = session_block(conn, session_id)
+    names = event_words(conn)
+    events = _Events(block, [names[c] for c in block.code.tolist()], SessionClock().relative(block.t_us, block.segment))
+    shift_us = start_shift_us(conn, session_id, int(block.t_us[0])) if len(block) else 0
     trials = session_trials(conn, session_id)
     operator = conn.execute("SELECT operator FROM checkins WHERE session_id = ?", (session_id,)).fetchone()
     stages = sorted({t.stage for t in trials} | ({stage} if stage else set()))
@@ -244,44 +231,73 @@ def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_di
                  f"{f'protocol {name!r} version {version}' if name else 'no protocol'}"
                  f"{', stage ' + ', '.join(stages) if stages else ''}, {len(trials)} trial records{flag}")
     conditions = conditions_of(conn, session_id)
-    nwb = NWBFile(
-        session_description=_text(described),
+    general: dict[str, Any] = {
+        "experimenter": [operator[0]] if operator else None,
+        "experiment_description": settings.get("experiment_description") or DEFAULT_EXPERIMENT,
+        "institution": settings.get("institution"),
+        "keywords": list(settings.get("keywords") or DEFAULT_KEYWORDS),
+        "lab": settings.get("lab"),
+        "notes": "; ".join(x for x in (f"stored session {session_id}, label {label}" if label else "",
+                                       f"excluded: {reason}" if excluded else "") if x) or None,
+        "pharmacology": "; ".join(f"{c['what']} {c['dose'] or ''} at {c['at']} by {c['operator']}".replace("  ", " ")
+                                  for c in conditions) or None,
+        "protocol": f"{name} version {version}" if name else None,
+        "session_id": f"{number:03d}"}
+    content = Content(
         identifier=str(uuid.uuid5(uuid.NAMESPACE_URL, f"rigside:{animal}:{start_wall}:{session_id}")),
-        session_start_time=start,
-        session_id=f"{number:03d}",
-        subject=_subject(get_animal(conn, animal), animal, start, _day_weight_g(conn, session_id, animal_id, start)),
-        experimenter=[operator[0]] if operator else None,
-        experiment_description=settings.get("experiment_description") or DEFAULT_EXPERIMENT,
-        institution=settings.get("institution"),
-        lab=settings.get("lab"),
-        keywords=list(settings.get("keywords") or DEFAULT_KEYWORDS),
-        protocol=f"{name} version {version}" if name else None,
-        pharmacology="; ".join(f"{c['what']} {c['dose'] or ''} at {c['at']} by {c['operator']}".replace("  ", " ")
-                               for c in conditions) or None,
-        notes="; ".join(x for x in (f"stored session {session_id}, label {label}" if label else "",
-                                    f"excluded: {reason}" if excluded else "") if x) or None,
-    )
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="EnumData is experimental")
-        if trials:
-            nwb.trials = _trials_table(trials, _spans(conn, session_id, trials, timed), shift_us)
-        if timed:
-            nwb.add_events_table(_events_table(timed, shift_us))
-        add_manipulations(nwb, conn, session_id)
-        path = out_dir / file_name(animal, number)
-        part = path.with_name(f".{path.stem}.partial.nwb")
-        try:
-            with h5py.File(part, "w", libver=HDF5_FORMAT) as file, NWBHDF5IO(file=file, mode="w") as io:
-                io.write(nwb)
-            os.replace(part, path)
-        finally:
-            part.unlink(missing_ok=True)
+        session_description=_text(described), session_start_time=start,
+        general={k: v for k, v in general.items() if v is not None},
+        subject=_subject(get_animal(conn, animal), animal, start, _day_weight_g(conn, session_id, animal_id, start)))
+    if trials:
+        content.trials = _trials_table(trials, _spans(conn, session_id, trials, events), shift_us)
+    if len(block):
+        content.events.append(_events_table(events, shift_us))
+    stops = [c.data for c in content.trials.columns if c.name == "stop_time"] if content.trials else []
+    manipulations = manipulations_table(conn, session_id, float(max(stops[0])) if stops else 0.0)
+    if manipulations is not None:
+        content.intervals.append(manipulations)
+    return animal, content
+
+
+def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_dir: Path, schema: Path,
+                  settings: dict | None = None) -> Path:
+    """Write session `session_id` (the animal's `number`-th) into `out_dir`; return the file's path.
+
+    `schema`: a file of `nwb_file.write_schema_file`, whose specifications the new file carries."""
+    animal, content = session_content(conn, session_id, number, settings)
+    path = out_dir / file_name(animal, number)
+    part = path.with_name(f".{path.stem}.partial.nwb")
+    _wait_for(schema)
+    try:
+        write(content, part, schema)
+        os.replace(part, path)
+    finally:
+        part.unlink(missing_ok=True)
     return path
 
 
+def _wait_for(schema: Path) -> None:
+    """Wait until `schema` exists: the exporting process writes it while its workers start."""
+    deadline = time.monotonic() + SCHEMA_WAIT_S
+    while not schema.exists():
+        if not schema.parent.exists() or time.monotonic() > deadline:
+            raise FileNotFoundError(f"no NWB schema file {schema.name}: the export was stopped")
+        time.sleep(0.01)
+
+
+def _write_schema(schema: Path) -> None:
+    """The schema file, under its name only when whole."""
+    part = schema.with_name("partial-" + schema.name)
+    write_schema_file(part)
+    os.replace(part, schema)
+
+
 def export_nwb(conn: sqlite3.Connection, out_dir: Path, settings: dict | None = None,
-               progress: Callable[[int, int, Path], None] | None = None) -> ExportResult:
-    """Write one NWB file per session into `out_dir`; a failed session is listed and the rest written."""
+               progress: Callable[[int, int, Path], None] | None = None, workers: int | None = None) -> ExportResult:
+    """Write one NWB file per session into `out_dir`; a failed session is listed and the rest written.
+
+    Sessions are written side by side in spawned processes (`workers`; default: one per core when there are
+    at least SESSIONS_PER_WORKER sessions a process); `progress(done, total, path)` runs here, per file."""
     sessions = conn.execute("SELECT id, animal FROM sessions ORDER BY animal, started_at, id").fetchall()
     out_dir.mkdir(parents=True, exist_ok=True)
     result = ExportResult()
@@ -292,21 +308,104 @@ def export_nwb(conn: sqlite3.Connection, out_dir: Path, settings: dict | None = 
             result.warnings.append(f"{animal}: subject record lacks {', '.join(missing)} "
                                    f"(exported without; add with `rigside animal edit {animal} ...`)")
     labels: dict[str, str] = {}
-    for done, (session_id, animal) in enumerate(sessions, start=1):
+    tasks: list[tuple[int, int, str]] = []
+    for session_id, animal in sessions:
         counts[animal] = counts.get(animal, 0) + 1
         first = labels.setdefault(subject_label(animal), animal)
         if first != animal:
             result.failed.append(f"{animal} session {counts[animal]} (its file name would be {first}'s: "
                                  f"sub-{subject_label(animal)}; rename one of them)")
             continue
+        tasks.append((session_id, counts[animal], animal))
+    database = database_path(conn)
+    if workers is None:
+        workers = worker_count(len(tasks) // SESSIONS_PER_WORKER)
+    with tempfile.TemporaryDirectory(prefix="rigside-nwb-") as folder:
+        schema = Path(folder) / "schema.nwb"
         try:
-            path = write_session(conn, session_id, counts[animal], out_dir, settings)
-        except Exception as exc:  # noqa: BLE001 - one session's fault must not stop the others
-            result.failed.append(f"{animal} session {counts[animal]} ({type(exc).__name__}: "
-                                 f"{str(exc).splitlines()[0] if str(exc) else ''})")
+            if workers <= 1 or database is None:
+                _write_schema(schema)
+                outcomes = (_written(conn, task, out_dir, schema, settings) for task in tasks)
+                _collect(outcomes, tasks, len(sessions), result, progress)
+            else:
+                _in_processes(database, tasks, out_dir, schema, settings, workers, len(sessions), result, progress)
+        except KeyboardInterrupt:  # Ctrl-C: the files written are whole; the command names them
+            result.interrupted = True
+    result.written.sort()
+    result.failed.sort()
+    return result
+
+
+def _written(conn: sqlite3.Connection, task: tuple[int, int, str], out_dir: Path, schema: Path,
+             settings: dict | None) -> tuple[Path | None, str | None]:
+    """(the file written, None), or (None, the session's failure in one line): one session's fault must not
+    stop the others."""
+    session_id, number, animal = task
+    try:
+        return write_session(conn, session_id, number, out_dir, schema, settings), None
+    except Exception as exc:  # noqa: BLE001 - reported, and the other sessions written
+        return None, (f"{animal} session {number} ({type(exc).__name__}: "
+                      f"{str(exc).splitlines()[0] if str(exc) else ''})")
+
+
+def _collect(outcomes: Iterable[tuple[Path | None, str | None]], tasks: list, total: int, result: ExportResult,
+             progress: Callable[[int, int, Path], None] | None) -> None:
+    done = total - len(tasks)  # sessions already refused count as done
+    for path, failure in outcomes:
+        done += 1
+        if path is None:
+            result.failed.append(failure or "")
             continue
         result.written.append(path)
         if progress is not None:
-            progress(done, len(sessions), path)
-    return result
+            progress(done, total, path)
 
+
+_WORKER: dict[str, Any] = {}  # a worker process's own read-only connection
+
+
+def _start_worker(database: Path) -> None:
+    import signal
+
+    from monitor.store.db import open_store
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's: it lets the files under way finish
+    _WORKER["conn"] = open_store(database, readonly=True)
+
+
+def _worker_task(task: tuple[int, int, str], out_dir: Path, schema: Path,
+                 settings: dict | None) -> tuple[Path | None, str | None]:
+    return _written(_WORKER["conn"], task, out_dir, schema, settings)
+
+
+def _in_processes(database: Path, tasks: list, out_dir: Path, schema: Path, settings: dict | None, workers: int,
+                  total: int, result: ExportResult, progress: Callable[[int, int, Path], None] | None) -> None:
+    """Write `tasks` in `workers` spawned processes, each with its own read-only connection; on Ctrl-C the files
+    under way are finished, the rest not started."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                               initializer=_start_worker, initargs=(database,))
+    futures = [pool.submit(_worker_task, task, out_dir, schema, settings) for task in tasks]
+    try:
+        _write_schema(schema)  # while the workers start and read their first sessions
+    except BaseException:
+        pool.shutdown(wait=False, cancel_futures=True)  # the workers give up when the schema's folder goes
+        raise
+    collected: set[Any] = set()
+
+    def outcomes() -> Iterator[tuple[Path | None, str | None]]:
+        for future in as_completed(futures):
+            collected.add(future)
+            yield future.result()
+
+    try:
+        _collect(outcomes(), tasks, total, result, progress)
+    except KeyboardInterrupt:
+        pool.shutdown(wait=True, cancel_futures=True)  # the files under way are finished...
+        _collect((f.result() for f in futures if f.done() and not f.cancelled() and f not in collected), [], 0,
+                 result, None)  # ...and named with the others
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)

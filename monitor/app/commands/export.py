@@ -25,40 +25,14 @@ shifted by PC number x 10^9).
 from __future__ import annotations
 
 import argparse
-import csv
-import re
 from pathlib import Path
 
 from monitor.app.errors import UsageError
 from monitor.app.lab_access import add_lab_argument, lab_call
 from monitor.app.paths import add_db_argument, resolve_db
 from monitor.app.settings import add_settings_argument, export_settings, settings_path
-
-EVENT_COLUMNS = ("animal", "session", "rig", "segment", "line", "device_time", "t_us", "session_time_s",
-                 "wall_time", "event", "value")
-TRIAL_CSV_COLUMNS = ("animal", "session", "session_start", "rig", "label", "excluded", "trial", "t_us",
-                     "session_time_s",
-                     "interval_ms", "outcome", "rewarded", "outcome_source", "computed_outcome", "target_ms",
-                     "window_low_ms", "window_high_ms", "stage", "segment")
-_NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
-
-_EVENTS_SQL = """
-SELECT s.animal, e.session_id, s.rig, e.segment, e.line, e.raw_time, e.t_us, c.name, e.value, s.start_wall
-FROM events AS e
-JOIN sessions AS s ON s.id = e.session_id
-JOIN event_codes AS c ON c.code = e.code
-ORDER BY e.rowid
-"""
-
-_TRIALS_SQL = """
-SELECT s.animal, s.id, s.start_wall, s.rig, s.label, s.excluded, t.idx, t.t_us, t.interval_ms, t.outcome,
-       t.rewarded, t.outcome_source, t.computed_outcome, t.target_ms, t.window_low_ms, t.window_high_ms,
-       t.stage, t.segment
-FROM sessions AS s JOIN trials AS t ON t.session_id = s.id
-ORDER BY s.animal, s.started_at, s.id, t.idx
-"""
-
+from monitor.store.csv_export import (EVENT_COLUMNS, TRIAL_CSV_COLUMNS,  # noqa: F401 - named here for callers
+                                      safe_cell, write_events_csv, write_trials_csv)
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("what", nargs="?", choices=("events", "trials"), help="what to export as CSV")
@@ -155,76 +129,13 @@ def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
             progress.close()
     for line in result.warnings:
         print(f"rigside export: warning: {line}", file=sys.stderr)
+    if result.interrupted:
+        print(f"rigside export: interrupted: {len(result.written)} sessions written whole to {args.nwb}; the others "
+              "not started (run the export again for all)", file=sys.stderr)
+        return 130
     print(f"exported {len(result.written)} sessions to {args.nwb}")
     if result.failed:
         print(f"rigside export: error: {len(result.failed)} sessions not written: {'; '.join(result.failed)}",
               file=sys.stderr)
         return 1
     return 0
-
-
-def _atomic(path: Path):
-    """Open `path`'s temporary twin for writing; rename it to `path` when the block ends without error."""
-    import contextlib
-    import os
-
-    @contextlib.contextmanager
-    def writing():
-        part = path.with_name(path.name + ".part")
-        try:
-            with open(part, "w", newline="", encoding="utf-8") as out:
-                yield out
-            os.replace(part, path)
-        finally:
-            part.unlink(missing_ok=True)
-    return writing()
-
-
-def write_events_csv(conn, path: Path) -> int:
-    """Stream every event to `path`; return the number of rows written."""
-    from datetime import datetime
-
-    from monitor.store.session_time import SessionClock, start_shift_us, wall_clock
-
-    clocks: dict[int, tuple[SessionClock, int, datetime]] = {}
-    count = 0
-    with _atomic(path) as out:
-        writer = csv.writer(out)
-        writer.writerow(EVENT_COLUMNS)
-        for animal, session, rig, segment, line, raw, t_us, event, value, start_wall in conn.execute(_EVENTS_SQL):
-            known = clocks.get(session)
-            if known is None:
-                known = clocks[session] = (SessionClock(), start_shift_us(conn, session, t_us),
-                                           datetime.fromisoformat(start_wall))
-            clock, shift, start = known
-            seconds = (shift + clock.relative(t_us, segment)) / 1e6
-            writer.writerow([safe_cell(v) for v in (animal, session, rig, segment, line, raw, t_us,
-                                                    f"{seconds:.6f}", wall_clock(start, seconds), event, value)])
-            count += 1
-    return count
-
-
-def write_trials_csv(conn, path: Path) -> int:
-    """Stream every derived trial to `path`; return the number of rows written."""
-    from monitor.store.session_time import start_shift_us
-
-    shifts: dict[int, int] = {}
-    count = 0
-    with _atomic(path) as out:
-        writer = csv.writer(out)
-        writer.writerow(TRIAL_CSV_COLUMNS)
-        for row in conn.execute(_TRIALS_SQL):
-            session = row[1]
-            if session not in shifts:
-                shifts[session] = start_shift_us(conn, session)
-            seconds = f"{(shifts[session] + row[7]) / 1e6:.6f}"
-            writer.writerow([safe_cell(v) for v in (*row[:8], seconds, *row[8:])])
-            count += 1
-    return count
-
-
-def safe_cell(value: object) -> object:
-    """The value, or text that a spreadsheet will not read as a formula."""
-    if isinstance(value, str) and value.startswith(_FORMULA_START) and not _NUMBER.match(value):
-        return "'" + value
-    return "" if value is None else value
