@@ -178,3 +178,33 @@ def test_files_written_in_worker_processes_equal_those_written_in_one(store, tmp
     assert sorted(p.name for p in (tmp_path / "two").iterdir()) == [p.name for p in two.written]  # no partials
     for a, b in zip(one.written, two.written):
         assert layout(a) == layout(b)
+
+
+def test_ctrl_c_leaves_only_whole_files_and_names_them(store, tmp_path):
+    import os
+    import re
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    target = tmp_path / "nwb"
+    child = subprocess.Popen([sys.executable, "-m", "monitor.app", "export", "--db", str(store), "--nwb", str(target),
+                              "--jobs", "2", "--quiet"], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                             start_new_session=True)
+    deadline = time.monotonic() + 120
+    while child.poll() is None and not any(target.glob("sub-*.nwb")) and time.monotonic() < deadline:
+        time.sleep(0.01)
+    if child.poll() is None:
+        os.killpg(child.pid, signal.SIGINT)  # as a terminal's Ctrl-C: the command and its workers
+    _, err = child.communicate(timeout=120)
+    files = sorted(target.glob("*"))
+    print("export exit", child.returncode, len(files), "files")
+    assert child.returncode in (0, 130), err
+    assert files and all(p.name.startswith("sub-") and p.suffix == ".nwb" for p in files)  # nothing partial
+    for path in files:
+        with pynwb.NWBHDF5IO(str(path), "r") as io:  # each one whole: pynwb reads it
+            assert io.read().session_id
+    if child.returncode == 130:
+        said = re.search(r"interrupted: (\d+) sessions written whole", err)
+        assert said and int(said.group(1)) == len(files), err

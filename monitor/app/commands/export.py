@@ -1,25 +1,18 @@
 """`rigside export events|trials --db DB --csv FILE` and `rigside export --db DB --nwb DIR`.
 
-Rule: events: a header row, then one row per event in the order it was
-stored (EVENT_COLUMNS): `animal`, `session`, `rig`, `segment`, `line`,
-`device_time` (the counter as the rig sent it), `t_us` (unwrapped device time
-in µs within the segment), `session_time_s` (seconds after the session's
-start on the device clock: the trials CSV's origin, monitor.store.session_time),
-`wall_time` (ISO 8601 with the session's UTC offset), `event`, `value`.
-Trials: one row per derived trial (TRIAL_CSV_COLUMNS, units in
-docs/export.md), sessions in time order, excluded sessions included with
-their flag. The store is opened read-only and streamed, so exporting never
-holds a whole table in memory and never blocks recording. A CSV is written
-under a temporary name and renamed when complete. A cell that begins with
-= + - @ (or a tab or carriage return) and is not a number gets a leading
-apostrophe, so a spreadsheet shows it instead of running it. NWB: one file
-per session (monitor.store.nwb_export; needs the `nwb` extra), a progress
-line per file and a warning line per animal with an incomplete subject
-record on stderr; sessions that fail are named in one error line (exit 1)
-after the others are written. `--lab URL` exports events, trials or NWB
-from the lab database (monitor.store.lab_read: a scratch copy of every PC's
-rows, exported by the same code; session ids of PCs after the first are
-shifted by PC number x 10^9).
+Rule: the CSVs (their columns and cells: monitor.store.csv_export) are
+read from the store opened read-only, a block of rows at a time, so
+exporting never holds a whole table in memory and never blocks recording.
+NWB: one file per session (monitor.store.nwb_export; needs the `nwb`
+extra), written by `--jobs` processes side by side (0: one per core), a
+progress bar (or a line per file) and a warning line per animal with an
+incomplete subject record on stderr; sessions that fail are named in one
+error line (exit 1) after the others are written; Ctrl-C stops the export
+and names how many files were written (exit 130), none of them partial.
+`--lab URL` exports events, trials or NWB from the lab database
+(monitor.store.lab_read: a scratch copy of every PC's rows, exported by the
+same code; session ids of PCs after the first are shifted by PC number x
+10^9).
 """
 
 from __future__ import annotations
@@ -41,10 +34,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--nwb", type=Path, help="directory for NWB files")
     add_settings_argument(parser)
     parser.add_argument("--quiet", action="store_true", help="no progress bar (NWB)")
+    parser.add_argument("--jobs", type=int, default=0,
+                        help="NWB: processes writing files side by side (0, the default: one per core)")
     add_lab_argument(parser, reader=True)
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.jobs < 0:
+        raise UsageError(f"--jobs: must be 0 (one per core) or more, got {args.jobs}")
     if args.nwb is not None:
         if args.what is not None or args.csv is not None:
             raise UsageError("--nwb: exports everything; give it without events/trials and --csv")
@@ -120,7 +117,7 @@ def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
         bar[0].say(f"[{done}/{total}] {path.name}")
 
     try:
-        result = export_nwb(conn, args.nwb, settings, written)
+        result = export_nwb(conn, args.nwb, settings, written, workers=args.jobs or None)
     except OSError as exc:
         raise UsageError(f"--nwb: cannot write into {args.nwb} ({exc.strerror or exc})") from None
     finally:
