@@ -95,10 +95,10 @@ def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
     """NWB files from the store at --db, or from `copy` (the lab's rows in a scratch store)."""
     import sys
 
-    try:
-        import pynwb  # noqa: F401 - checked before anything is written
-    except ImportError:
-        raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
+    from importlib.util import find_spec
+
+    if find_spec("pynwb") is None:  # found, not imported: the export imports it while its workers start
+        raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')")
     from monitor.app.progress import Progress
     from monitor.store.db import open_store
     from monitor.store.nwb_export import export_nwb
