@@ -86,9 +86,9 @@ def write_events_csv(conn: sqlite3.Connection, path: Path, block_rows: int = BLO
     import numpy as np
 
     from monitor.store.event_blocks import event_blocks, event_words  # numpy: when a CSV is written
-    from monitor.store.session_time import SECONDS, seconds_parts, wall_clock_texts
+    from monitor.store.session_time import SECONDS, WALL, seconds_parts, wall_clock_parts
 
-    line = f"%s,%d,%s,%d,%d,%d,%d,{SECONDS},%s,%s,%s\r\n"
+    line = f"%s,%d,%s,%d,%d,%d,%d,{SECONDS},{WALL},%s,%s\r\n"
     words = {code: _cell(word) for code, word in event_words(conn).items()}
     sessions: dict[int, _Session] = {}
     count = 0
@@ -96,24 +96,26 @@ def write_events_csv(conn: sqlite3.Connection, path: Path, block_rows: int = BLO
         csv.writer(out).writerow(EVENT_COLUMNS)
         for block in event_blocks(conn, size=block_rows):
             n = len(block)
+            ids, t_us, segment = block.array("session"), block.array("t_us"), block.array("segment")
             session_us = np.empty(n, dtype=np.int64)
-            animal, rig, wall = (np.empty(n, dtype=object) for _ in range(3))
-            for session_id in np.unique(block.session).tolist():
-                rows = block.session == session_id
-                t_us = block.t_us[rows]
+            animal, rig = np.empty(n, dtype=object), np.empty(n, dtype=object)
+            wall: list[Any] = [np.empty(n, dtype=object) for _ in range(6)]
+            for session_id in np.unique(ids).tolist():
+                rows = ids == session_id
                 session = sessions.get(session_id)
                 if session is None:
-                    session = sessions[session_id] = _Session(conn, session_id, int(t_us[0]))
-                here = session.shift_us + session.clock.relative(t_us, block.segment[rows])
+                    session = sessions[session_id] = _Session(conn, session_id, int(t_us[rows][0]))
+                here = session.shift_us + session.clock.relative(t_us[rows], segment[rows])
                 session_us[rows] = here
                 animal[rows], rig[rows] = session.animal, session.rig
-                wall[rows] = wall_clock_texts(session.start, here)
+                for column, part in zip(wall, wall_clock_parts(session.start, here)):
+                    column[rows] = part
             texts: dict[str | None, str] = {}  # one block's distinct values (text or None), each checked once
             values = [texts[v] if v in texts else texts.setdefault(v, _cell(v)) for v in block.value]
             out.write("".join([line % row for row in zip(
-                animal.tolist(), block.session.tolist(), rig.tolist(), block.segment.tolist(), block.line.tolist(),
-                block.raw_time.tolist(), block.t_us.tolist(), *seconds_parts(session_us), wall.tolist(),
-                [words[c] for c in block.code.tolist()], values)]))
+                animal.tolist(), block.session, rig.tolist(), block.segment, block.line, block.raw_time, block.t_us,
+                *seconds_parts(session_us), *(column.tolist() for column in wall), [words[c] for c in block.code],
+                values)]))
             count += n
     return count
 

@@ -125,9 +125,9 @@ def _events_table(events: _Events, shift_us: int) -> Table:
         _categorical("event", "event word", events.words),
         _categorical("value", "arguments, joined by one space (empty when none)",
                      [_text(v) if v else "" for v in block.value]),
-        Column("segment", "device clock segment", _narrow(block.segment)),
-        Column("line", "line number in the source", _narrow(block.line)),
-        Column("raw_time", "the device counter as sent", _narrow(block.raw_time))]
+        Column("segment", "device clock segment", _narrow(block.array("segment"))),
+        Column("line", "line number in the source", _narrow(block.array("line"))),
+        Column("raw_time", "the device counter as sent", _narrow(block.array("raw_time")))]
     return Table("rig_events", "EventsTable", "every event line the rig sent, in order", columns, len(block))
 
 
@@ -221,7 +221,8 @@ def session_content(conn: sqlite3.Connection, session_id: int, number: int,
         start = start.astimezone()  # NWB needs an offset: a stored time without one is this PC's local time
     block = session_block(conn, session_id)
     names = event_words(conn)
-    events = _Events(block, [names[c] for c in block.code.tolist()], SessionClock().relative(block.t_us, block.segment))
+    events = _Events(block, [names[c] for c in block.code],
+                     SessionClock().relative(block.array("t_us"), block.array("segment")))
     shift_us = start_shift_us(conn, session_id, int(block.t_us[0])) if len(block) else 0
     trials = session_trials(conn, session_id)
     operator = conn.execute("SELECT operator FROM checkins WHERE session_id = ?", (session_id,)).fetchone()

@@ -15,7 +15,8 @@ events at a time (numpy), exactly as `f"{us / 1e6:.6f}"` and
 from __future__ import annotations
 
 import sqlite3
-from datetime import datetime
+from datetime import datetime, timedelta
+from typing import Any
 
 import numpy as np
 
@@ -74,8 +75,22 @@ def seconds_parts(session_us: np.ndarray) -> tuple[list[str], list[int], list[in
     return np.where(session_us < 0, "-", "").tolist(), whole.tolist(), micro.tolist()
 
 
-def wall_clock_texts(start: datetime, session_us: np.ndarray) -> list[str]:
-    """ISO 8601 wall-clock times, with the start's UTC offset, `session_us` µs after `start`."""
-    offset = start.isoformat()[19:].lstrip(".0123456789")  # "+01:00", "Z"-free: Python writes the offset
-    local = np.datetime64(start.replace(tzinfo=None), "us") + np.asarray(session_us, dtype=np.int64)
-    return np.char.add(np.datetime_as_string(local, unit="us"), offset).tolist()
+WALL = "%sT%02d:%02d:%02d.%06d%s"  # date, hours, minutes, seconds, microseconds, UTC offset: `wall_clock_parts`
+
+
+def wall_clock_parts(start: datetime, session_us: np.ndarray) -> tuple[list[Any], ...]:
+    """Each wall-clock time `session_us` µs after `start`, in the start's UTC offset, as the parts of `WALL`;
+    `WALL % parts` is `(start + timedelta(microseconds=us)).isoformat(timespec="microseconds")`."""
+    offset = start.isoformat()[19:].lstrip(".0123456789")  # "+01:00"; "" for a time without an offset
+    local_us = (start.replace(tzinfo=None) - _EPOCH) // timedelta(microseconds=1) + np.asarray(session_us, np.int64)
+    days, in_day = np.divmod(local_us, 86_400_000_000)
+    seconds, micro = np.divmod(in_day, 1_000_000)
+    hours, rest = np.divmod(seconds, 3600)
+    minutes, seconds = np.divmod(rest, 60)
+    distinct, which = np.unique(days, return_inverse=True)
+    dates = np.array([(_EPOCH + timedelta(days=int(d))).date().isoformat() for d in distinct.tolist()], dtype=object)
+    return (dates[which].tolist(), hours.tolist(), minutes.tolist(), seconds.tolist(), micro.tolist(),
+            [offset] * len(local_us))
+
+
+_EPOCH = datetime(1970, 1, 1)

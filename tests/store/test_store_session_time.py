@@ -8,7 +8,7 @@ from datetime import datetime, timedelta
 
 import numpy as np
 
-from monitor.store.session_time import SECONDS, SessionClock, seconds_parts, wall_clock_texts
+from monitor.store.session_time import SECONDS, WALL, SessionClock, seconds_parts, wall_clock_parts
 
 
 def test_a_board_reset_continues_from_the_last_time_seen():
@@ -38,7 +38,8 @@ def test_texts_equal_pythons_formatting_of_each_time():
     session_us = np.array([0, 5, -5, 999_999, 1_000_000, -1_234_567, 86_400_000_001, 10**12 + 7])
     # Python's float formatting and datetime arithmetic, one value at a time (the outside reference)
     assert [SECONDS % p for p in zip(*seconds_parts(session_us))] == [f"{us / 1e6:.6f}" for us in session_us]
-    for start in ("2026-03-28T09:00:00+01:00", "2026-02-04T08:57:50.250000-05:30", "2026-12-31T23:59:59+00:00"):
+    for start in ("2026-03-28T09:00:00+01:00", "2026-02-04T08:57:50.250000-05:30", "2026-12-31T23:59:59+00:00",
+                  "1969-12-31T23:59:59.999999", "2024-02-28T23:00:00+14:00"):
         moment = datetime.fromisoformat(start)
-        assert wall_clock_texts(moment, session_us) == [
+        assert [WALL % parts for parts in zip(*wall_clock_parts(moment, session_us))] == [
             (moment + timedelta(microseconds=int(us))).isoformat(timespec="microseconds") for us in session_us]
