@@ -70,18 +70,14 @@ class Content:
 
 
 def write_schema_file(path: Path) -> None:
-    """Write a minimal NWB file with pynwb, whose `/specifications` every written file copies."""
-    import warnings
-
-    from hdmf.common import EnumData, VectorData  # noqa: F401 - loads hdmf-experimental, cached with the rest
+    """Write a minimal NWB file with pynwb, whose `/specifications` (every namespace pynwb loaded: core,
+    hdmf-common, hdmf-experimental) every written file copies."""
     from pynwb import NWBHDF5IO, NWBFile
 
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="EnumData is experimental")
-        nwb = NWBFile(session_description="schema", identifier="schema",
-                      session_start_time=datetime(2000, 1, 1).astimezone())
-        with NWBHDF5IO(str(path), mode="w") as io:
-            io.write(nwb)
+    nwb = NWBFile(session_description="schema", identifier="schema",
+                  session_start_time=datetime(2000, 1, 1).astimezone())
+    with NWBHDF5IO(str(path), mode="w") as io:
+        io.write(nwb)
 
 
 def write(content: Content, path: Path, schema: Path) -> None:
