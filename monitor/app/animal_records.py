@@ -156,7 +156,7 @@ def care_line(s: DaySummary) -> str:
 
 def write_care_csv(path: Path, summaries: Sequence[DaySummary]) -> None:
     """The care sheet as CSV (CARE_SHEET_COLUMNS; cells that a spreadsheet would run are made safe)."""
-    from monitor.app.commands.export import safe_cell
+    from monitor.store.csv_export import safe_cell
 
     with open(path, "w", newline="", encoding="utf-8") as out:
         writer = csv.writer(out)

@@ -26,21 +26,13 @@ from pathlib import Path
 from typing import Sequence
 
 from monitor.core.eligibility.assignment import BlindingKey, blinding_key, new_secret
-from monitor.store.connection import Connection
+from monitor.store.connection import Connection, database_path  # noqa: F401 - named here for its callers
 
 KEY_FORMAT = "rigside blinding key 1"
 
 
 class BlindingError(ValueError):
     """A blinding key that cannot be read, made, or does not fit the rule."""
-
-
-def database_path(conn: Connection) -> Path | None:
-    """The file behind the connection's main database (None for an in-memory one)."""
-    for _, name, file in conn.execute("PRAGMA database_list"):
-        if name == "main":
-            return Path(file) if file else None
-    return None
 
 
 def keys_folder(db: Path) -> Path:

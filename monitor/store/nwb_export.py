@@ -1,61 +1,37 @@
-"""NWB export: one file per stored session (pynwb, the optional `nwb` extra).
+"""NWB export: one file per stored session (the optional `nwb` extra: h5py writes, pynwb gives the schema).
 
-Rule: each session becomes `sub-<animal>_ses-<NNN>_behavior.nwb` (NNN: the
-animal's own session count in time order, also the `session_id`; the animal's
-name with every character outside letters, digits and `-` made `-`), written
-under a temporary name and renamed when complete, so a file of that name is
-always whole. Subject: the animal's record (monitor.store.animals: species,
-sex, date of birth and age at the session, strain, genotype; lab id, cohort
-and supplier in its description) and its weight on the session's day (the
-check-in weight, else the care log's last weighing of that day). Session:
-experimenter (the operator who checked it in), description, institution, lab,
-keywords and experiment description (the settings' `[export]` table),
-protocol name and version, stage and conditions. Trials run from trial start
-to trial end (monitor.core.session.trial_spans) with our TRIAL_FIELDS; the events
-table `rig_events` holds every event with its word as a categorical column.
-Times are seconds after `session_start_time` on the device clock (segments
-continue from the last time seen, as in monitor.core.session.trials). Every column is
-gzip-compressed. NUL in a note is written as the text `\\x00` (HDF5 strings
-cannot hold it). One failed session is reported and the others are written.
+Rule: each session's content (monitor.store.nwb_content: names, subject,
+session, trials, events) is written by monitor.store.nwb_file under a
+temporary name and renamed when complete, so a file of that name is always
+whole. One failed session is reported and the others are written. Sessions
+are written side by side in spawned processes (one per core when there are
+enough), each with its own read-only connection, while this process writes
+the schema file they copy; Ctrl-C lets the files under way finish, starts no
+other, and the result names the files written.
 """
 
 from __future__ import annotations
 
 import os
-import re
 import sqlite3
-import uuid
-import warnings
+import tempfile
+import time
 from dataclasses import dataclass, field
-from datetime import date, datetime, time as clock
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any, Callable, Iterable, Iterator
 
-import numpy as np
-
-from drivers.wire import Event
 from monitor.store.animals import get_animal, missing_fields
-from monitor.store.derive import derive, protocol_of, session_events, stored_trials
-from monitor.store.records import conditions_of
-from monitor.store.session_time import relative_us, start_shift_us
-from monitor.store.nwb_manipulations import add_manipulations
+from monitor.store.connection import database_path
+from monitor.store.consolidation_fits import worker_count
+from monitor.store.nwb_content import file_name, session_content, subject_label
+from monitor.store.nwb_file import write, write_schema_file
 
-_ID = re.compile(r"[^A-Za-z0-9-]")
-TRIAL_FIELDS = (("first_press_time", "s", "first press or crossing of the trial (s after session start)"),
-                ("interval_ms", "ms", "inter-press interval or hold time (NaN when none)"),
-                ("outcome", "", "the rig's outcome word when it sent one, else rigside's classification"),
-                ("rewarded", "", "the trial was rewarded"),
-                ("outcome_source", "", "rig | computed"),
-                ("computed_outcome", "", "rigside's own classification from the protocol"),
-                ("target_ms", "ms", "target interval in force"),
-                ("window_low_ms", "ms", "low edge of the reward window in force"),
-                ("window_high_ms", "ms", "high edge of the reward window in force"),
-                ("stage", "", "shaping stage in force"),
-                ("segment", "", "device clock segment (a board reset starts a new one)"))
-HDF5_FORMAT = "v110"  # object headers of HDF5 1.10 (readable by 1.10 and later): smaller than the earliest format
-DEFAULT_KEYWORDS = ("behavior", "operant conditioning", "motor timing", "motor skill learning")
-DEFAULT_EXPERIMENT = ("Operant training of a motor timing task (two lever presses a target delay apart, or a "
-                      "joystick push held for a target time), recorded from the box's event stream by rigside.")
+SCHEMA_WAIT_S = 120.0  # a worker waits this long at most for the schema file (importing pynwb takes seconds)
+SESSIONS_PER_WORKER = 8  # a spawned writer costs about as much to start as eight sessions take to write
+
+
+class Stopped(Exception):
+    """Raised by a progress callback to stop the export between files (the window's Cancel, a first Ctrl-C)."""
 
 
 @dataclass
@@ -65,223 +41,48 @@ class ExportResult:
     written: list[Path] = field(default_factory=list)
     failed: list[str] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
+    interrupted: bool = False  # Ctrl-C or Stopped: the sessions neither written nor failed were not started
 
 
-def file_name(animal: str, number: int) -> str:
-    """The session's file name in the repository layout."""
-    return f"sub-{subject_label(animal)}_ses-{number:03d}_behavior.nwb"
-
-
-def subject_label(animal: str) -> str:
-    return _ID.sub("-", animal) or "unnamed"
-
-
-def _gz(data: Any):
-    from hdmf.backends.hdf5 import H5DataIO
-
-    return H5DataIO(data, compression="gzip", shuffle=True)
-
-
-def _ids(n: int):
-    from hdmf.common import ElementIdentifiers
-
-    return ElementIdentifiers(name="id", data=_gz(np.arange(n, dtype=np.int64)))
-
-
-def _narrow(values: np.ndarray) -> np.ndarray:
-    """The same integers in the smallest unsigned type that holds them (they compress better)."""
-    if len(values) and values.min() >= 0:
-        for dtype in (np.uint8, np.uint16, np.uint32):
-            if values.max() <= np.iinfo(dtype).max:
-                return values.astype(dtype)
-    return values
-
-
-def _text(value: str) -> str:
-    return value.replace("\x00", "\\x00")
-
-
-def _categorical(name: str, description: str, values: list[str]):
-    """An EnumData column: one small code per row, each distinct text stored once."""
-    from hdmf.common import EnumData, VectorData
-
-    words = sorted(set(values))
-    index = {w: i for i, w in enumerate(words)}
-    dtype = np.uint8 if len(words) <= 256 else np.uint16 if len(words) <= 65536 else np.uint32
-    elements = VectorData(name=f"{name}_elements", description=f"the distinct values of {name}", data=words)
-    column = EnumData(name=name, description=description, elements=elements,
-                      data=_gz(np.fromiter((index[v] for v in values), dtype=dtype, count=len(values))))
-    return column, elements
-
-
-def _events_table(timed: list[tuple[Event, int]], shift_us: int):
-    """The `rig_events` table, built column by column."""
-    from hdmf.common import VectorData
-    from pynwb.event import EventsTable, TimestampVectorData
-
-    n = len(timed)
-    times = np.fromiter(((shift_us + rel) / 1e6 for _, rel in timed), dtype=np.float64, count=n)
-    rows = [e for e, _ in timed]
-    event, event_words = _categorical("event", "event word", [e.name for e in rows])
-    value, value_texts = _categorical("value", "arguments, joined by one space (empty when none)",
-                                      [_text(" ".join(e.args)) for e in rows])
-    columns = [TimestampVectorData(name="timestamp", resolution=1e-6, data=_gz(times), description=(
-        "seconds after session_start_time on the device clock (clock segments continue from the last time seen)")),
-        event, event_words, value, value_texts]
-    for name, description, get in (
-            ("segment", "device clock segment", lambda e: e.segment),
-            ("line", "line number in the source", lambda e: e.line),
-            ("raw_time", "the device counter as sent", lambda e: e.raw_time)):
-        values = np.fromiter((get(e) for e in rows), dtype=np.int64, count=n)
-        columns.append(VectorData(name=name, description=description, data=_gz(_narrow(values))))
-    return EventsTable(name="rig_events", description="every event line the rig sent, in order", columns=columns,
-                       id=_ids(n))
-
-
-def _trials_table(trials: list, spans: list[tuple[int, int]], shift_us: int):
-    from hdmf.common import VectorData
-    from pynwb.epoch import TimeIntervals
-
-    def seconds(values: Iterable[float]) -> np.ndarray:
-        return np.array([(shift_us + v) / 1e6 for v in values], dtype=np.float64)
-
-    data: dict[str, Any] = {
-        "start_time": seconds(b for b, _ in spans), "stop_time": seconds(e for _, e in spans),
-        "first_press_time": seconds(t.t_us for t in trials),
-        "interval_ms": np.array([t.interval_ms for t in trials], dtype=np.float64),
-        "rewarded": np.array([bool(t.rewarded) for t in trials], dtype=bool),
-        "segment": np.array([t.segment for t in trials], dtype=np.uint32)}
-    for name in ("target_ms", "window_low_ms", "window_high_ms"):
-        data[name] = np.array([getattr(t, name) for t in trials], dtype=np.float64)
-    described = {"start_time": "trial start (the rig's trial_start, else the first press), s",
-                 "stop_time": "trial end (the rig's outcome, else the last press, else the press timeout), s"}
-    described.update({name: f"{text}{', ' + unit if unit else ''}" for name, unit, text in TRIAL_FIELDS})
-    columns = [VectorData(name=name, description=described[name], data=_gz(values)) for name, values in data.items()]
-    for name in ("outcome", "outcome_source", "computed_outcome", "stage"):
-        columns.extend(_categorical(name, described[name], [_text(str(getattr(t, name))) for t in trials]))
-    return TimeIntervals(name="trials", description="trials from trial start to trial end; lone presses, premature "
-                         "presses and omissions are rows with their outcome", columns=columns, id=_ids(len(trials)))
-
-
-def _spans(conn: sqlite3.Connection, session_id: int, trials: list, timed: list[tuple[Event, int]]):
-    from monitor.core.session.trial_spans import trial_spans
-
-    text = conn.execute("SELECT protocol_text FROM sessions WHERE id = ?", (session_id,)).fetchone()[0]
-    protocol = protocol_of(text) if text else None
-
-    def timeout_us(trial) -> float:
-        stage = protocol.stage(trial.stage) if protocol else None
-        stage = stage or (protocol.stages[0] if protocol else None)
-        return stage.trial_timeout_ms * 1000.0 if stage else 0.0
-
-    starts = sorted(rel for e, rel in timed if e.name == "trial_start")
-    outcomes = sorted(rel for e, rel in timed if e.name == "outcome")
-    return trial_spans(trials, starts, outcomes, timeout_us)
-
-
-def session_trials(conn: sqlite3.Connection, session_id: int) -> list:
-    """The session's stored trials; derived now (not stored) when they were never built."""
-    if conn.execute("SELECT 1 FROM trial_builds WHERE session_id = ?", (session_id,)).fetchone():
-        return stored_trials(conn, session_id)
-    derived = derive(conn, session_id)
-    return [] if derived is None else list(derived[0])
-
-
-def _day_weight_g(conn: sqlite3.Connection, session_id: int, animal_id: int | None, start: datetime) -> float | None:
-    row = conn.execute("SELECT weight_before_g FROM checkins WHERE session_id = ?", (session_id,)).fetchone()
-    if row and row[0]:
-        return float(row[0])
-    if animal_id is None:
-        return None
-    day = start.date().isoformat()
-    weights = [(datetime.fromisoformat(at), grams) for at, grams in conn.execute(
-        "SELECT at, amount FROM care_log WHERE animal_id = ? AND kind = 'weight' AND substr(at, 1, 10) = ?",
-        (animal_id, day))]
-    return max(weights)[1] if weights else None
-
-
-def _subject(record: dict | None, animal: str, start: datetime, weight_g: float | None):
-    from pynwb.file import Subject
-
-    record = record or {}
-    birth, age = None, None
-    if record.get("date_of_birth"):
-        born = date.fromisoformat(record["date_of_birth"])
-        birth = datetime.combine(born, clock(0), tzinfo=start.tzinfo)
-        age = f"P{(start.date() - born).days}D"
-    elif record.get("age_days") is not None:
-        stated = date.fromisoformat(record["age_date"]) if record.get("age_date") else start.date()
-        days = record["age_days"] + (start.date() - stated).days
-        age = f"P{days}D" if days >= 0 else None  # an age stated after the session can put it before birth
-    about = [f"{k.replace('_', ' ')} {record[k]}" for k in ("lab_id", "cohort", "supplier") if record.get(k)]
-    if record.get("baseline_weight_g"):
-        about.append(f"baseline weight {record['baseline_weight_g']:g} g"
-                     + (f" on {record['baseline_weight_date']}" if record.get("baseline_weight_date") else ""))
-    return Subject(subject_id=subject_label(animal), species=record.get("species"), strain=record.get("strain"),
-                   sex=record.get("sex") or "U", date_of_birth=birth, age=age, genotype=record.get("genotype"),
-                   weight=f"{weight_g / 1000:g} kg" if weight_g else None,
-                   description="; ".join([f"rigside name {animal}", *about]))
-
-
-def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_dir: Path,
+def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_dir: Path, schema: Path,
                   settings: dict | None = None) -> Path:
-    """Write session `session_id` (the animal's `number`-th) into `out_dir`; return the file's path."""
-    import h5py
-    from pynwb import NWBHDF5IO, NWBFile
+    """Write session `session_id` (the animal's `number`-th) into `out_dir`; return the file's path.
 
-    settings = settings or {}
-    (animal, animal_id, rig, start_wall, label, excluded, reason, name, version, stage) = conn.execute(
-        "SELECT animal, animal_id, rig, start_wall, label, excluded, exclusion_reason, protocol_name, "
-        "protocol_version, stage FROM sessions WHERE id = ?", (session_id,)).fetchone()
-    start = datetime.fromisoformat(start_wall)
-    timed = list(relative_us(session_events(conn, session_id)))
-    shift_us = start_shift_us(conn, session_id, timed[0][0].t_us) if timed else 0
-    trials = session_trials(conn, session_id)
-    operator = conn.execute("SELECT operator FROM checkins WHERE session_id = ?", (session_id,)).fetchone()
-    stages = sorted({t.stage for t in trials} | ({stage} if stage else set()))
-    flag = f" EXCLUDED: {reason}" if excluded else ""
-    described = (f"{animal} in {rig}, session {number}: "
-                 f"{f'protocol {name!r} version {version}' if name else 'no protocol'}"
-                 f"{', stage ' + ', '.join(stages) if stages else ''}, {len(trials)} trial records{flag}")
-    conditions = conditions_of(conn, session_id)
-    nwb = NWBFile(
-        session_description=_text(described),
-        identifier=str(uuid.uuid5(uuid.NAMESPACE_URL, f"rigside:{animal}:{start_wall}:{session_id}")),
-        session_start_time=start,
-        session_id=f"{number:03d}",
-        subject=_subject(get_animal(conn, animal), animal, start, _day_weight_g(conn, session_id, animal_id, start)),
-        experimenter=[operator[0]] if operator else None,
-        experiment_description=settings.get("experiment_description") or DEFAULT_EXPERIMENT,
-        institution=settings.get("institution"),
-        lab=settings.get("lab"),
-        keywords=list(settings.get("keywords") or DEFAULT_KEYWORDS),
-        protocol=f"{name} version {version}" if name else None,
-        pharmacology="; ".join(f"{c['what']} {c['dose'] or ''} at {c['at']} by {c['operator']}".replace("  ", " ")
-                               for c in conditions) or None,
-        notes="; ".join(x for x in (f"stored session {session_id}, label {label}" if label else "",
-                                    f"excluded: {reason}" if excluded else "") if x) or None,
-    )
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="EnumData is experimental")
-        if trials:
-            nwb.trials = _trials_table(trials, _spans(conn, session_id, trials, timed), shift_us)
-        if timed:
-            nwb.add_events_table(_events_table(timed, shift_us))
-        add_manipulations(nwb, conn, session_id)
-        path = out_dir / file_name(animal, number)
-        part = path.with_name(f".{path.stem}.partial.nwb")
-        try:
-            with h5py.File(part, "w", libver=HDF5_FORMAT) as file, NWBHDF5IO(file=file, mode="w") as io:
-                io.write(nwb)
-            os.replace(part, path)
-        finally:
-            part.unlink(missing_ok=True)
+    `schema`: a file of `nwb_file.write_schema_file`, whose specifications the new file carries."""
+    animal, content = session_content(conn, session_id, number, settings)
+    path = out_dir / file_name(animal, number)
+    part = path.with_name(f".{path.stem}.partial.nwb")
+    _wait_for(schema)
+    try:
+        write(content, part, schema)
+        os.replace(part, path)
+    finally:
+        part.unlink(missing_ok=True)
     return path
 
 
+def _wait_for(schema: Path) -> None:
+    """Wait until `schema` exists: the exporting process writes it while its workers start."""
+    deadline = time.monotonic() + SCHEMA_WAIT_S
+    while not schema.exists():
+        if not schema.parent.exists() or time.monotonic() > deadline:
+            raise FileNotFoundError(f"no NWB schema file {schema.name}: the export was stopped")
+        time.sleep(0.01)
+
+
+def _write_schema(schema: Path) -> None:
+    """The schema file, under its name only when whole."""
+    part = schema.with_name("partial-" + schema.name)
+    write_schema_file(part)
+    os.replace(part, schema)
+
+
 def export_nwb(conn: sqlite3.Connection, out_dir: Path, settings: dict | None = None,
-               progress: Callable[[int, int, Path], None] | None = None) -> ExportResult:
-    """Write one NWB file per session into `out_dir`; a failed session is listed and the rest written."""
+               progress: Callable[[int, int, Path], None] | None = None, workers: int | None = None) -> ExportResult:
+    """Write one NWB file per session into `out_dir`; a failed session is listed and the rest written.
+
+    Sessions are written side by side in spawned processes (`workers`; default: one per core when there are
+    at least SESSIONS_PER_WORKER sessions a process); `progress(done, total, path)` runs here, per file."""
     sessions = conn.execute("SELECT id, animal FROM sessions ORDER BY animal, started_at, id").fetchall()
     out_dir.mkdir(parents=True, exist_ok=True)
     result = ExportResult()
@@ -292,21 +93,104 @@ def export_nwb(conn: sqlite3.Connection, out_dir: Path, settings: dict | None = 
             result.warnings.append(f"{animal}: subject record lacks {', '.join(missing)} "
                                    f"(exported without; add with `rigside animal edit {animal} ...`)")
     labels: dict[str, str] = {}
-    for done, (session_id, animal) in enumerate(sessions, start=1):
+    tasks: list[tuple[int, int, str]] = []
+    for session_id, animal in sessions:
         counts[animal] = counts.get(animal, 0) + 1
         first = labels.setdefault(subject_label(animal), animal)
         if first != animal:
             result.failed.append(f"{animal} session {counts[animal]} (its file name would be {first}'s: "
                                  f"sub-{subject_label(animal)}; rename one of them)")
             continue
+        tasks.append((session_id, counts[animal], animal))
+    database = database_path(conn)
+    if workers is None:
+        workers = worker_count(len(tasks) // SESSIONS_PER_WORKER)
+    with tempfile.TemporaryDirectory(prefix="rigside-nwb-") as folder:
+        schema = Path(folder) / "schema.nwb"
         try:
-            path = write_session(conn, session_id, counts[animal], out_dir, settings)
-        except Exception as exc:  # noqa: BLE001 - one session's fault must not stop the others
-            result.failed.append(f"{animal} session {counts[animal]} ({type(exc).__name__}: "
-                                 f"{str(exc).splitlines()[0] if str(exc) else ''})")
+            if workers <= 1 or database is None:
+                _write_schema(schema)
+                outcomes = (_written(conn, task, out_dir, schema, settings) for task in tasks)
+                _collect(outcomes, tasks, len(sessions), result, progress)
+            else:
+                _in_processes(database, tasks, out_dir, schema, settings, workers, len(sessions), result, progress)
+        except (KeyboardInterrupt, Stopped):  # the files written are whole; the command names them
+            result.interrupted = True
+    result.written.sort()
+    result.failed.sort()
+    return result
+
+
+def _written(conn: sqlite3.Connection, task: tuple[int, int, str], out_dir: Path, schema: Path,
+             settings: dict | None) -> tuple[Path | None, str | None]:
+    """(the file written, None), or (None, the session's failure in one line): one session's fault must not
+    stop the others."""
+    session_id, number, animal = task
+    try:
+        return write_session(conn, session_id, number, out_dir, schema, settings), None
+    except Exception as exc:  # noqa: BLE001 - reported, and the other sessions written
+        return None, (f"{animal} session {number} ({type(exc).__name__}: "
+                      f"{str(exc).splitlines()[0] if str(exc) else ''})")
+
+
+def _collect(outcomes: Iterable[tuple[Path | None, str | None]], tasks: list, total: int, result: ExportResult,
+             progress: Callable[[int, int, Path], None] | None) -> None:
+    done = total - len(tasks)  # sessions already refused count as done
+    for path, failure in outcomes:
+        done += 1
+        if path is None:
+            result.failed.append(failure or "")
             continue
         result.written.append(path)
         if progress is not None:
-            progress(done, len(sessions), path)
-    return result
+            progress(done, total, path)
 
+
+_WORKER: dict[str, Any] = {}  # a worker process's own read-only connection
+
+
+def _start_worker(database: Path) -> None:
+    import signal
+
+    from monitor.store.db import open_store
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's: it lets the files under way finish
+    _WORKER["conn"] = open_store(database, readonly=True)
+
+
+def _worker_task(task: tuple[int, int, str], out_dir: Path, schema: Path,
+                 settings: dict | None) -> tuple[Path | None, str | None]:
+    return _written(_WORKER["conn"], task, out_dir, schema, settings)
+
+
+def _in_processes(database: Path, tasks: list, out_dir: Path, schema: Path, settings: dict | None, workers: int,
+                  total: int, result: ExportResult, progress: Callable[[int, int, Path], None] | None) -> None:
+    """Write `tasks` in `workers` spawned processes, each with its own read-only connection; on Ctrl-C the files
+    under way are finished, the rest not started."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                               initializer=_start_worker, initargs=(database,))
+    futures = [pool.submit(_worker_task, task, out_dir, schema, settings) for task in tasks]
+    try:
+        _write_schema(schema)  # while the workers start and read their first sessions
+    except BaseException:
+        pool.shutdown(wait=False, cancel_futures=True)  # the workers give up when the schema's folder goes
+        raise
+    collected: set[Any] = set()
+
+    def outcomes() -> Iterator[tuple[Path | None, str | None]]:
+        for future in as_completed(futures):
+            collected.add(future)
+            yield future.result()
+
+    try:
+        _collect(outcomes(), tasks, total, result, progress)
+    except (KeyboardInterrupt, Stopped):
+        pool.shutdown(wait=True, cancel_futures=True)  # the files under way are finished...
+        _collect((f.result() for f in futures if f.done() and not f.cancelled() and f not in collected), [], 0,
+                 result, None)  # ...and named with the others
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)

@@ -16,6 +16,10 @@ from __future__ import annotations
 import sqlite3
 from typing import Any
 
+import numpy as np
+
+from monitor.store.nwb_file import Column, Table
+
 COLUMNS = (("seq", "the manipulation log's entry number"),
            ("duration", "acute (one test session) | lasting (every session from the first affected on)"),
            ("role", "test | control (vehicle, sham) | control session of (an acute test's control day)"),
@@ -62,18 +66,18 @@ def rows_for_session(conn: sqlite3.Connection, session_id: int) -> list[dict[str
     return out
 
 
-def add_manipulations(nwb: Any, conn: sqlite3.Connection, session_id: int) -> None:
-    """Add the `manipulations` intervals table to `nwb` when the session has any (after its trials)."""
-    from pynwb.epoch import TimeIntervals
-
+def manipulations_table(conn: sqlite3.Connection, session_id: int, stop_s: float) -> Table | None:
+    """The `manipulations` intervals table of `session_id`, each row from 0 to `stop_s` (the last trial's end);
+    None when no manipulation affects the session."""
     rows = rows_for_session(conn, session_id)
     if not rows:
-        return
-    stop = max(nwb.trials["stop_time"].data) if nwb.trials is not None and len(nwb.trials) else 0.0
-    table = TimeIntervals(name="manipulations", description="manipulations in force during this session "
-                          "(rigside's manipulation log); the stage columns are frozen at the time it was recorded")
+        return None
+    columns = [Column("start_time", "Start time of epoch, in seconds", np.zeros(len(rows))),
+               Column("stop_time", "Stop time of epoch, in seconds", np.full(len(rows), float(stop_s)))]
     for name, description in COLUMNS:
-        table.add_column(name=name, description=description)
-    for r in rows:
-        table.add_interval(start_time=0.0, stop_time=float(stop), **r)
-    nwb.add_time_intervals(table)
+        values = [r[name] for r in rows]
+        kind = np.float64 if isinstance(values[0], float) else np.int64 if isinstance(values[0], int) else None
+        columns.append(Column(name, description, values if kind is None else np.array(values, dtype=kind)))
+    return Table("manipulations", "TimeIntervals", "manipulations in force during this session (rigside's "
+                 "manipulation log); the stage columns are frozen at the time it was recorded", columns, len(rows),
+                 compressed=False)

@@ -8,7 +8,7 @@ import pytest
 
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
-from monitor.app.commands.export import EVENT_COLUMNS, TRIAL_CSV_COLUMNS
+from monitor.store.csv_export import EVENT_COLUMNS, TRIAL_CSV_COLUMNS
 
 pd = pytest.importorskip("pandas")
 
@@ -80,7 +80,7 @@ def test_csvs_across_a_daylight_saving_change(tmp_path, capsys):
 
 
 def test_a_csv_export_that_fails_midway_leaves_the_earlier_file_whole(tmp_path, capsys, monkeypatch):
-    from monitor.app.commands import export
+    from monitor.store import csv_export
     from monitor.store.db import open_store
 
     write_history(tmp_path / "h", cohort(1, seed=1), days=1)
@@ -93,15 +93,15 @@ def test_a_csv_export_that_fails_midway_leaves_the_earlier_file_whole(tmp_path, 
 
     def failing(value):
         calls.append(value)
-        if len(calls) > 500:
+        if len(calls) > 50:  # some blocks of rows are written by then
             raise OSError(28, "No space left on device")
         return value
 
-    monkeypatch.setattr(export, "safe_cell", failing)
+    monkeypatch.setattr(csv_export, "safe_cell", failing)
     conn = open_store(db, readonly=True)
     try:
         with pytest.raises(OSError):
-            export.write_events_csv(conn, target)
+            csv_export.write_events_csv(conn, target, block_rows=100)
     finally:
         conn.close()
     assert target.read_text() == "the earlier export\n" and sorted(p.name for p in tmp_path.glob("*.part")) == []

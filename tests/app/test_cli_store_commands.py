@@ -96,6 +96,7 @@ def test_import_report_and_reimport_refusal(tmp_path, capsys, mock_history):
     (["decide", "--animal", "x", "--decision", "maybe", "--operator", "ana", "--reason", "r"], "--decision"),
     (["log", "verify", "--head", "3:abc"], "--head"),
     (["export", "events"], "--csv"),
+    (["export", "--nwb", "out", "--jobs", "-1"], "--jobs"),
 ])
 def test_bad_input_is_one_line_and_exit_2(tmp_path, capsys, args, names):
     db = tmp_path / "store.sqlite3"

@@ -33,7 +33,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from monitor.app.commands.export import atomic_file, safe_cell
+    from monitor.store.csv_export import atomic_file, safe_cell
     from monitor.app.commands.report import open_readonly
     from monitor.app.effects import CSV_COLUMNS, csv_rows, effects
 

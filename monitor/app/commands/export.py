@@ -1,6 +1,7 @@
 """`rigside export events|trials --db DB --csv FILE` and `rigside export --db DB --nwb DIR`.
 
-Rule: events: a header row, then one row per event in the order it was
+Rule: events (columns and cells: monitor.store.csv_export, read and written
+a block of rows at a time): a header row, then one row per event in the order it was
 stored (EVENT_COLUMNS): `animal`, `session`, `rig`, `segment`, `line`,
 `device_time` (the counter as the rig sent it), `t_us` (unwrapped device time
 in µs within the segment), `session_time_s` (seconds after the session's
@@ -17,7 +18,8 @@ both this command and the window's File > Export run: it counts rows on a
 earlier file under the name untouched (exit 130). A cell that begins with
 = + - @ (or a tab or carriage return) and is not a number gets a leading
 apostrophe, so a spreadsheet shows it instead of running it. NWB: one file
-per session (monitor.store.nwb_export; needs the `nwb` extra), a progress
+per session (monitor.store.nwb_export; needs the `nwb` extra), written by
+`--jobs` processes side by side (0: one per core), a progress bar or a
 line per file and a warning line per animal with an incomplete subject
 record on stderr; sessions that fail are named in one error line (exit 1)
 after the others are written. `--lab URL` exports events, trials or NWB
@@ -29,10 +31,7 @@ shifted by PC number x 10^9).
 from __future__ import annotations
 
 import argparse
-import csv
-import re
 import sys
-from collections.abc import Callable
 from pathlib import Path
 from typing import NamedTuple
 
@@ -43,31 +42,7 @@ from monitor.app.lab_access import add_lab_argument, lab_call
 from monitor.app.paths import add_db_argument, resolve_db
 from monitor.app.settings import add_settings_argument, export_settings, settings_path
 
-EVENT_COLUMNS = ("animal", "session", "rig", "segment", "line", "device_time", "t_us", "session_time_s",
-                 "wall_time", "event", "value")
-TRIAL_CSV_COLUMNS = ("animal", "session", "session_start", "rig", "label", "excluded", "trial", "t_us",
-                     "session_time_s",
-                     "interval_ms", "outcome", "rewarded", "outcome_source", "computed_outcome", "target_ms",
-                     "window_low_ms", "window_high_ms", "stage", "segment")
-_NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
-ROWS_PER_TICK = 5000  # rows between two progress counts and cancel checks
-
-_EVENTS_SQL = """
-SELECT s.animal, e.session_id, s.rig, e.segment, e.line, e.raw_time, e.t_us, c.name, e.value, s.start_wall
-FROM events AS e
-JOIN sessions AS s ON s.id = e.session_id
-JOIN event_codes AS c ON c.code = e.code
-ORDER BY e.rowid
-"""
-
-_TRIALS_SQL = """
-SELECT s.animal, s.id, s.start_wall, s.rig, s.label, s.excluded, t.idx, t.t_us, t.interval_ms, t.outcome,
-       t.rewarded, t.outcome_source, t.computed_outcome, t.target_ms, t.window_low_ms, t.window_high_ms,
-       t.stage, t.segment
-FROM sessions AS s JOIN trials AS t ON t.session_id = s.id
-ORDER BY s.animal, s.started_at, s.id, t.idx
-"""
+from monitor.store.csv_export import write_events_csv, write_trials_csv
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -77,10 +52,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--nwb", type=Path, help="directory for NWB files")
     add_settings_argument(parser)
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
+    parser.add_argument("--jobs", type=int, default=0,
+                        help="NWB: processes writing files side by side (0, the default: one per core)")
     add_lab_argument(parser, reader=True)
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.jobs < 0:
+        raise UsageError(f"--jobs: must be 0 (one per core) or more, got {args.jobs}")
     if args.nwb is not None:
         if args.what is not None or args.csv is not None:
             raise UsageError("--nwb: exports everything; give it without events/trials and --csv")
@@ -176,10 +155,10 @@ def _export_lab(args: argparse.Namespace) -> int:
 
 def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
     """NWB files from the store at --db, or from `copy` (the lab's rows in a scratch store)."""
-    try:
-        import pynwb  # noqa: F401 - checked before anything is written
-    except ImportError:
-        raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')") from None
+    from importlib.util import find_spec
+
+    if find_spec("pynwb") is None:  # found, not imported: the export imports it while its workers start
+        raise UsageError("--nwb: needs pynwb (pip install 'rigside[nwb]')")
     from monitor.store.db import open_store
 
     try:
@@ -189,7 +168,7 @@ def _export_nwb(args: argparse.Namespace, copy: Path | None = None) -> int:
     conn = _open(args) if copy is None else open_store(copy, readonly=True)
     try:
         with Progress(quiet=args.quiet) as progress:
-            result = export_nwb_files(conn, args.nwb, settings, progress)
+            result = export_nwb_files(conn, args.nwb, settings, progress, workers=args.jobs or None)
     except OSError as exc:
         raise UsageError(f"--nwb: cannot write into {args.nwb} ({exc.strerror or exc})") from None
     finally:
@@ -226,99 +205,24 @@ class NwbExport(NamedTuple):
         return f"exported {len(self.written)} sessions to {self.folder} in {self.seconds:.1f} s"
 
 
-def export_nwb_files(conn, folder: Path, settings: dict, tracker: Tracker) -> NwbExport:
-    """One NWB file per session into `folder`, counting sessions on `tracker`; stops between files when asked."""
+def export_nwb_files(conn, folder: Path, settings: dict, tracker: Tracker, workers: int | None = None) -> NwbExport:
+    """One NWB file per session into `folder` (`workers` processes), counting sessions on `tracker`; asked to
+    stop, it finishes the files under way and starts no other."""
     import time
 
-    from monitor.store.nwb_export import export_nwb
+    from monitor.store.nwb_export import Stopped, export_nwb
 
     started = time.monotonic()
-    written: list[Path] = []
     total = [0]
 
     def one_more(done: int, count: int, path: Path) -> None:
         if not total[0]:
             total[0] = count
             tracker.begin(count, "session", "exporting NWB")
-        written.append(path)
         tracker.advance()
         tracker.say(f"[{done}/{count}] {path.name}")
         if tracker.cancelled():
-            raise _Stop()
-    try:
-        result = export_nwb(conn, folder, settings, one_more)
-    except _Stop:
-        return NwbExport(folder, written, total[0], [], [], time.monotonic() - started, True)
+            raise Stopped()
+    result = export_nwb(conn, folder, settings, one_more, workers=workers)
     return NwbExport(folder, result.written, total[0] or len(result.written), result.failed, result.warnings,
-                     time.monotonic() - started, False)
-
-
-def atomic_file(path: Path):
-    """Open `path`'s temporary twin for writing; rename it to `path` when the block ends without error."""
-    import contextlib
-    import os
-
-    @contextlib.contextmanager
-    def writing():
-        part = path.with_name(path.name + ".part")
-        try:
-            with open(part, "w", newline="", encoding="utf-8") as out:
-                yield out
-            os.replace(part, path)
-        finally:
-            part.unlink(missing_ok=True)
-    return writing()
-
-
-def write_events_csv(conn, path: Path, tick: Callable[[int], None] | None = None) -> int:
-    """Stream every event to `path`; return the number of rows written (`tick(rows)` every ROWS_PER_TICK)."""
-    from datetime import datetime
-
-    from monitor.store.session_time import SessionClock, start_shift_us, wall_clock
-
-    clocks: dict[int, tuple[SessionClock, int, datetime]] = {}
-    count = 0
-    with atomic_file(path) as out:
-        writer = csv.writer(out)
-        writer.writerow(EVENT_COLUMNS)
-        for animal, session, rig, segment, line, raw, t_us, event, value, start_wall in conn.execute(_EVENTS_SQL):
-            known = clocks.get(session)
-            if known is None:
-                known = clocks[session] = (SessionClock(), start_shift_us(conn, session, t_us),
-                                           datetime.fromisoformat(start_wall))
-            clock, shift, start = known
-            seconds = (shift + clock.relative(t_us, segment)) / 1e6
-            writer.writerow([safe_cell(v) for v in (animal, session, rig, segment, line, raw, t_us,
-                                                    f"{seconds:.6f}", wall_clock(start, seconds), event, value)])
-            count += 1
-            if tick is not None and count % ROWS_PER_TICK == 0:
-                tick(count)
-    return count
-
-
-def write_trials_csv(conn, path: Path, tick: Callable[[int], None] | None = None) -> int:
-    """Stream every derived trial to `path`; return the number of rows written (`tick(rows)` every ROWS_PER_TICK)."""
-    from monitor.store.session_time import start_shift_us
-
-    shifts: dict[int, int] = {}
-    count = 0
-    with atomic_file(path) as out:
-        writer = csv.writer(out)
-        writer.writerow(TRIAL_CSV_COLUMNS)
-        for row in conn.execute(_TRIALS_SQL):
-            session = row[1]
-            if session not in shifts:
-                shifts[session] = start_shift_us(conn, session)
-            seconds = f"{(shifts[session] + row[7]) / 1e6:.6f}"
-            writer.writerow([safe_cell(v) for v in (*row[:8], seconds, *row[8:])])
-            count += 1
-            if tick is not None and count % ROWS_PER_TICK == 0:
-                tick(count)
-    return count
-
-
-def safe_cell(value: object) -> object:
-    """The value, or text that a spreadsheet will not read as a formula."""
-    if isinstance(value, str) and value.startswith(_FORMULA_START) and not _NUMBER.match(value):
-        return "'" + value
-    return "" if value is None else value
+                     time.monotonic() - started, result.interrupted)

@@ -51,7 +51,7 @@ def _heads(values: list[str]):
 
 
 def run(args: argparse.Namespace) -> int:
-    from monitor.app.commands.export import safe_cell
+    from monitor.store.csv_export import safe_cell
     from monitor.app.commands.report import open_readonly
     from monitor.core.eligibility.decision_log import DECISION_CSV_COLUMNS
     from monitor.store.care_log import verify as care_chain
