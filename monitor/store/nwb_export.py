@@ -135,7 +135,7 @@ def _written(conn: sqlite3.Connection, task: tuple[int, int, str], out_dir: Path
 
 def _collect(outcomes: Iterable[tuple[Path | None, str | None]], tasks: list, total: int, result: ExportResult,
              progress: Callable[[int, int, Path], None] | None) -> None:
-    done = total - len(tasks)  # sessions already refused count as done
+    done = len(result.written) + len(result.failed)  # sessions refused (in failed) or collected count as done
     for path, failure in outcomes:
         done += 1
         if path is None:
@@ -144,6 +144,19 @@ def _collect(outcomes: Iterable[tuple[Path | None, str | None]], tasks: list, to
         result.written.append(path)
         if progress is not None:
             progress(done, total, path)
+
+
+def _naming_only(progress: Callable[[int, int, Path], None] | None) -> Callable[[int, int, Path], None] | None:
+    """`progress` for the files finished after a stop: each is named, a second stop is not raised."""
+    if progress is None:
+        return None
+
+    def named(done: int, total: int, path: Path) -> None:
+        try:
+            progress(done, total, path)
+        except Stopped:
+            pass
+    return named
 
 
 _WORKER: dict[str, Any] = {}  # a worker process's own read-only connection
@@ -189,8 +202,8 @@ def _in_processes(database: Path, tasks: list, out_dir: Path, schema: Path, sett
         _collect(outcomes(), tasks, total, result, progress)
     except (KeyboardInterrupt, Stopped):
         pool.shutdown(wait=True, cancel_futures=True)  # the files under way are finished...
-        _collect((f.result() for f in futures if f.done() and not f.cancelled() and f not in collected), [], 0,
-                 result, None)  # ...and named with the others
+        _collect((f.result() for f in futures if f.done() and not f.cancelled() and f not in collected), tasks,
+                 total, result, _naming_only(progress))  # ...and named with the others
         raise
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
