@@ -78,6 +78,7 @@ def _first(series: TrialSeries, count: int) -> TrialSeries:
                        series.excluded[:count])
 
 
+@pytest.mark.slow  # a fit per session of a long series
 def test_session_by_session_refits_end_where_one_fit_of_everything_does():
     rng = np.random.default_rng(1)
     lengths = rng.integers(150, 190, 12)

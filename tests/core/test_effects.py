@@ -80,6 +80,7 @@ def test_stratified_bootstrap_agrees_with_scipy():
     assert ours.effect == pytest.approx(statistic(*(_codes(s) for s in (test, *base))))
 
 
+@pytest.mark.slow  # bootstrap intervals of many simulated animals
 def test_bootstrap_interval_width_matches_the_binomial_standard_error():
     rng = np.random.default_rng(8)
     a, b = _session(2, rng, n=800, p_premature=0), _session(1, rng, n=800, p_premature=0)
