@@ -15,13 +15,9 @@ from pathlib import Path
 import pytest
 
 from drivers.wire import encode_event, encode_header
+from fixtures.devices import run_child as cli
 
 PROTOCOL = '[protocol]\nname = "p"\nversion = 1\ntask = "two_press"\ntarget_ms = 650\ntolerance = 0.2\n'
-
-
-def cli(*args, timeout: float = 120) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "monitor.app", *map(str, args)], capture_output=True, text=True,
-                          timeout=timeout)
 
 
 def one_line_error(result: subprocess.CompletedProcess) -> bool:
@@ -55,6 +51,7 @@ def damage(db: Path) -> None:
         fh.write(b"\x0d\xff\xee" * (page_size // 3))
 
 
+@pytest.mark.slow  # a 20,000-event store, then every command in a child process
 def test_a_damaged_page_is_refused_by_every_command_with_one_line(tmp_path):
     db, log = recorded_store(tmp_path)
     damage(db)
