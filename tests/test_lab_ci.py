@@ -40,6 +40,7 @@ def test_no_server_skips_with_a_reason_or_fails_when_required(tmp_path, required
     assert "no PostgreSQL server for the lab tests" in done.stdout
 
 
+@pytest.mark.slow  # pytest in a child process
 def test_ci_requires_the_lab_tests_when_a_server_answers(tmp_path):
     """.ci/run itself on a tiny project whose test prints what CI exported."""
     server = socket.socket()

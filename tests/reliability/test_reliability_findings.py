@@ -25,6 +25,7 @@ def counts(kit, path, sent: int, sql: str = "SELECT raw_time FROM events") -> tu
 
 @pytest.mark.parametrize("lines", [pytest.param(5_000, id="short"),
                                    pytest.param(50_000, id="long", marks=[pytest.mark.long, pytest.mark.timeout(900)])])
+@pytest.mark.slow  # three recorders in child processes
 def test_a_second_recorder_of_one_file_is_refused_and_a_killed_holder_is_taken_over(tmp_path, recorder, kit, lines):
     log = tmp_path / "box1.rsw"
     log.write_bytes(encode_header() + b"".join(encode_event(i, "lick") for i in range(lines)))
@@ -78,6 +79,7 @@ def test_a_board_without_header_loses_nothing_over_quick_replugs(serial_run, kit
 
 @pytest.mark.parametrize("lines", [pytest.param(2_000, id="short"),
                                    pytest.param(50_000, id="long", marks=[pytest.mark.long, pytest.mark.timeout(900)])])
+@pytest.mark.slow  # record and import in child processes
 def test_a_crafted_clock_is_malformed_lines_and_record_and_import_store_the_rest(tmp_path, recorder, kit, lines):
     step = (1 << 61) - 1  # just under half a 62-bit period: each line pushes the unwrapped time forward
     crafted = encode_header(wrap=62) + b"".join(b"%d lick\n" % ((i * step) % (1 << 62)) for i in range(8))

@@ -66,6 +66,7 @@ def inspector_levels(path: Path) -> set[str]:
     return {m.importance.name for m in nwbinspector.inspect_nwbfile(nwbfile_path=str(path), config=config)}
 
 
+@pytest.mark.slow  # the NWB checker over every exported file
 def test_complete_records_pass_the_dandi_checker_and_carry_subject_session_and_trials(tmp_path, capsys, history):
     out, truth = history
     db = imported(capsys, tmp_path, out)
