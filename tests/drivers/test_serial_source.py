@@ -20,6 +20,7 @@ import drivers.serial as source_mod
 from drivers.serial import SerialSource, find_by_serial_number, list_serial_ports, open_port
 from drivers.status import CONNECTED, LOST, SILENT, WAITING, Batch
 from drivers.wire import Event, Header, Malformed, encode_event, encode_header
+from fixtures.devices import PtyBoard
 from fixtures.sessions import wait_for
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="pseudo-terminals are POSIX")
@@ -58,6 +59,18 @@ def running(source: SerialSource):
     return source
 
 
+def opened(dev: PtyBoard, **options) -> tuple[Collect, SerialSource]:
+    """A running source on `dev` with a collecting sink, once it has opened the port."""
+    sink = Collect()
+    source = running(SerialSource(dev.name, sink, **options))
+    try:
+        wait_for(lambda: source.status().state == CONNECTED, what="open")
+    except AssertionError:
+        source.stop()
+        raise
+    return sink, source
+
+
 def test_loop_url_header_tag_split_across_reads_and_boot_noise_kept():
     port = serial.serial_for_url("loop://", timeout=0.05)  # pyserial's own loopback handler
     sink = Collect()
@@ -82,10 +95,8 @@ def test_loop_url_header_tag_split_across_reads_and_boot_noise_kept():
 
 def test_pty_line_split_across_reads(boards):
     dev = boards()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink, wait_for_header=False))
+    sink, source = opened(dev, wait_for_header=False)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(b"5000 lever_")
         wait_for(lambda: source.decoder.pending == len(b"5000 lever_"), what="half a line read")
         assert sink.events == []
@@ -132,10 +143,8 @@ def test_unplug_and_replug_under_a_new_name_behind_the_same_symlink(boards, tmp_
 
 def test_board_reset_mid_stream_starts_a_new_segment(boards):
     dev = boards()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink))
+    sink, source = opened(dev)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(encode_header() + lines(3, start=4_000_000))
         wait_for(lambda: len(sink.events) == 3, what="first segment")
         dev.write(b"4000900 lever_d")  # the reset cuts this line short...
@@ -153,10 +162,8 @@ def test_board_reset_mid_stream_starts_a_new_segment(boards):
 
 def test_garbage_bytes_are_kept_as_malformed_lines_and_reading_goes_on(boards):
     dev = boards()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink))
+    sink, source = opened(dev)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(encode_header() + lines(2) + b"\x00\x01\xfe\xff\n" + b"x" * 400 + b"\n" + lines(2, start=9000))
         wait_for(lambda: len(sink.events) == 4, what="events around garbage")
     finally:
@@ -168,10 +175,8 @@ def test_garbage_bytes_are_kept_as_malformed_lines_and_reading_goes_on(boards):
 
 def test_a_silent_rig_is_reported_silent_with_its_duration(boards):
     dev = boards()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink, silent_after_s=0.3))
+    sink, source = opened(dev, silent_after_s=0.3)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(encode_header() + lines(1))
         wait_for(lambda: len(sink.events) == 1, what="one event")
         wait_for(lambda: source.status().state == SILENT, what="silence noticed")
@@ -246,10 +251,8 @@ def test_the_port_is_opened_exclusively(boards):
 
 def test_no_header_after_open_keeps_every_line_and_says_so(boards):
     dev = boards()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink, header_wait_s=0.2))
+    sink, source = opened(dev, header_wait_s=0.2)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(b"ut line\n" + lines(3))  # a board that did not reset: first line was cut by the open
         wait_for(lambda: len(sink.events) == 3, what="lines read")
         wait_for(lambda: source.status().last_notice, what="the notice")
