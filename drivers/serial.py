@@ -25,7 +25,6 @@ imports).
 from __future__ import annotations
 
 import os
-import threading
 import time
 from pathlib import Path
 from typing import Callable, NamedTuple
@@ -33,8 +32,8 @@ from typing import Callable, NamedTuple
 import serial
 from serial.tools import list_ports
 
-from drivers.status import (CONNECTED, LOST, STOPPED, WAITING, Batch, BatchSink, Gap, SourceStatus,
-                            StatusBoard)
+from drivers.reader import ReaderThread
+from drivers.status import CONNECTED, WAITING, Batch, BatchSink, Gap, StatusBoard
 from drivers.wire import Header, LineDecoder, Record, WireDecoder
 
 DEFAULT_BAUD = 115200
@@ -92,8 +91,8 @@ def open_port(path: str, baudrate: int = DEFAULT_BAUD) -> serial.SerialBase:
     return serial.Serial(path, baudrate=baudrate, timeout=READ_TIMEOUT_S, exclusive=exclusive)
 
 
-class SerialSource:
-    """Reads one serial device in a thread; `status()` may be called from any thread."""
+class SerialSource(ReaderThread):
+    """Reads one serial device in a thread (drivers/reader.py); `status()` may be called from any thread."""
 
     def __init__(
         self,
@@ -111,6 +110,7 @@ class SerialSource:
         on_lost: Callable[[BaseException], None] | None = None,
         wall_clock: Callable[[], float] = time.time,
     ) -> None:
+        super().__init__(f"serial {port}", StatusBoard(silent_after_s), on_lost)
         self.port = port
         self.usb_serial = usb_serial
         self.baudrate = baudrate
@@ -118,15 +118,10 @@ class SerialSource:
         self.wait_for_header = wait_for_header and isinstance(self.decoder, WireDecoder)
         self.header_wait_s = header_wait_s
         self.retry_s = retry_s
-        self.on_lost = on_lost
-        self.failure: BaseException | None = None
         self.opened_path: str | None = None  # the device actually open now
-        self.board = StatusBoard(silent_after_s)
         self._sink = sink
         self._opener = opener or (lambda path: open_port(path, baudrate))
         self._wall = wall_clock
-        self._stop = threading.Event()
-        self._thread: threading.Thread | None = None
         self._port: serial.SerialBase | None = None
         self._opens = 0
         self._gap_start: float | None = None
@@ -135,45 +130,21 @@ class SerialSource:
 
     # --- control (any thread) -------------------------------------------------
 
-    def start(self) -> None:
-        self._thread = threading.Thread(target=self._run, name=f"serial {self.port}", daemon=True)
-        self._thread.start()
-
-    def stop(self, timeout: float = 2.0) -> None:
-        """Stop reading; an unfinished line and an open gap are delivered first."""
-        self._stop.set()
+    def _wake(self) -> None:
+        """A read blocked on the port returns at once."""
         port = self._port
         if port is not None and hasattr(port, "cancel_read"):
             try:
                 port.cancel_read()
             except (serial.SerialException, OSError, NotImplementedError):
                 pass
-        if self._thread is not None:
-            self._thread.join(timeout)
 
     @property
     def ever_opened(self) -> bool:
         """Was the port opened at least once?"""
         return self._opens > 0
 
-    @property
-    def alive(self) -> bool:
-        return self._thread is not None and self._thread.is_alive()
-
-    def status(self) -> SourceStatus:
-        return self.board.snapshot()
-
     # --- reader thread ----------------------------------------------------------
-
-    def _run(self) -> None:
-        try:
-            self._loop()
-            self._finish()
-            self.board.set_state(STOPPED)
-        except BaseException as exc:  # noqa: BLE001 - surfaced as "connection lost", never swallowed
-            self._lost(exc)
-        finally:
-            self._close_port()
 
     def _loop(self) -> None:
         while not self._stop.is_set():
@@ -256,7 +227,7 @@ class SerialSource:
             self.board.data_arrived()
 
     def _unplugged(self, exc: BaseException) -> None:
-        self._close_port()
+        self._close()
         self._gap_start, self._gap_reason = self._wall(), f"unplugged: {type(exc).__name__}: {exc}"
         self.board.gap_started(self._gap_start, f"{type(exc).__name__}: {exc}")
         self.board.set_state(WAITING)
@@ -278,17 +249,10 @@ class SerialSource:
             self._sink(Batch([], now, gaps=(gap,)))
 
     def _lost(self, exc: BaseException) -> None:
-        self.failure = exc
-        self.board.error(f"{type(exc).__name__}: {exc}")
-        self.board.gap_started(self._wall(), None)
-        self.board.set_state(LOST)
-        if self.on_lost is not None:
-            try:
-                self.on_lost(exc)
-            except Exception as inner:  # noqa: BLE001 - the first error is the one to show
-                self.board.notice(f"on_lost handler failed: {inner!r}")
+        self.board.gap_started(self._wall(), None)  # a lost port is a gap from now on
+        super()._lost(exc)
 
-    def _close_port(self) -> None:
+    def _close(self) -> None:
         port, self._port, self.opened_path = self._port, None, None
         if port is not None:
             try:

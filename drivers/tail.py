@@ -22,12 +22,11 @@ from __future__ import annotations
 
 import hashlib
 import os
-import threading
 import time
 from typing import BinaryIO, Callable
 
-from drivers.status import (CONNECTED, LOST, STOPPED, WAITING, Batch, BatchSink, FilePosition,
-                            SourceStatus, StatusBoard)
+from drivers.reader import ReaderThread
+from drivers.status import CONNECTED, WAITING, Batch, BatchSink, FilePosition, StatusBoard
 from drivers.wire import LineDecoder, Record, WireDecoder
 
 POLL_S = 0.2
@@ -53,8 +52,10 @@ def file_fingerprint(fh: BinaryIO, offset: int, span: int | None = None) -> tupl
     return hashlib.sha256(head + tail).hexdigest(), span
 
 
-class FileTail:
-    """Follows one file; `poll()` does one step (tests), `start()` runs it in a thread."""
+class FileTail(ReaderThread):
+    """Follows one file; `poll()` does one step (tests), `start()` runs it in a thread (drivers/reader.py)."""
+
+    stop_timeout_s = 5.0
 
     def __init__(
         self,
@@ -69,12 +70,10 @@ class FileTail:
         on_lost: Callable[[BaseException], None] | None = None,
         wall_clock: Callable[[], float] = time.time,
     ) -> None:
+        super().__init__(f"tail {os.fspath(path)}", StatusBoard(silent_after_s), on_lost)
         self.path = os.fspath(path)
         self.poll_s = poll_s
         self.should_pause = should_pause
-        self.on_lost = on_lost
-        self.failure: BaseException | None = None
-        self.board = StatusBoard(silent_after_s)
         self.decoder: LineDecoder = decoder_factory()
         self._factory = decoder_factory
         self._sink = sink
@@ -86,33 +85,14 @@ class FileTail:
         self._print: tuple[int, str, int] | None = None  # (offset, fingerprint, span) last computed
         self._last_position: FilePosition | None = resume
         self._notices: list[str] = []
-        self._stop = threading.Event()
-        self._thread: threading.Thread | None = None
         self._ever_opened = False
 
     # --- control -----------------------------------------------------------
-
-    def start(self) -> None:
-        self._thread = threading.Thread(target=self._run, name=f"tail {self.path}", daemon=True)
-        self._thread.start()
-
-    def stop(self, timeout: float = 5.0) -> None:
-        """Stop after one last poll (what is complete now is delivered)."""
-        self._stop.set()
-        if self._thread is not None:
-            self._thread.join(timeout)
 
     @property
     def ever_opened(self) -> bool:
         """Was the file opened at least once?"""
         return self._ever_opened
-
-    @property
-    def alive(self) -> bool:
-        return self._thread is not None and self._thread.is_alive()
-
-    def status(self) -> SourceStatus:
-        return self.board.snapshot()
 
     @property
     def position(self) -> FilePosition:
@@ -124,22 +104,15 @@ class FileTail:
         _, print_, span = self._print
         return FilePosition(offset, self._identity, print_, span, self.decoder.state())
 
-    def _run(self) -> None:
-        try:
-            while not self._stop.is_set():
-                if self.should_pause is None or not self.should_pause():
-                    self.poll()
-                self._stop.wait(self.poll_s)
-            self.poll()
-            self.board.set_state(STOPPED)
-        except BaseException as exc:  # noqa: BLE001 - surfaced as "connection lost", never swallowed
-            self.failure = exc
-            self.board.error(f"{type(exc).__name__}: {exc}")
-            self.board.set_state(LOST)
-            if self.on_lost is not None:
-                self.on_lost(exc)
-        finally:
-            self._close()
+    def _loop(self) -> None:
+        while not self._stop.is_set():
+            if self.should_pause is None or not self.should_pause():
+                self.poll()
+            self._stop.wait(self.poll_s)
+
+    def _finish(self) -> None:
+        """One last poll: what is complete now is delivered."""
+        self.poll()
 
     # --- one poll ----------------------------------------------------------
 

@@ -91,7 +91,90 @@ class _Base:
         self.plugged = False
 
 
-class PtyOutput(_Base):
+class _Backlogged(_Base):
+    """A device written non-blocking through a backlog of whole lines (a pty master, a socket).
+
+    A subclass says how bytes go out now (`_send`), whether anyone can take them
+    (`_can_send`), and how the device is pulled and plugged back (`_disconnect`,
+    `_connect`); the backlog, its limit, unplug and re-plug are written here once.
+    """
+
+    def __init__(self, record: bool, backlog_limit: int) -> None:
+        super().__init__(record)
+        self.backlog_limit = backlog_limit
+        self._lock = threading.Lock()
+        self._backlog: deque[bytes] = deque()
+        self._backlog_bytes = 0
+        self._partial = 0  # bytes of the backlog's first line already written
+
+    @property
+    def backlog_bytes(self) -> int:
+        """Bytes waiting in the backlog for the device to take them."""
+        return self._backlog_bytes - self._partial
+
+    def write(self, line: bytes) -> None:
+        with self._lock:
+            if not self.plugged or self._backlog_bytes + len(line) > self.backlog_limit:
+                self.lines_dropped += 1
+                return
+            self._backlog.append(line)
+            self._backlog_bytes += len(line)
+        self.pump()
+
+    def pump(self) -> None:
+        with self._lock:
+            self._before_pump()
+            while self._backlog and self._can_send():
+                line = self._backlog[0]
+                n = self._send(line[self._partial:])
+                if not n:
+                    return
+                self._partial += n
+                if self._partial < len(line):
+                    return
+                self._backlog.popleft()
+                self._backlog_bytes -= len(line)
+                self._partial = 0
+                self._log(line)
+
+    def unplug(self) -> None:
+        """Pull the cable: the backlog is lost (counted as dropped lines) and the device goes."""
+        with self._lock:
+            if not self.plugged:
+                return
+            self.plugged = False
+            self.lines_dropped += len(self._backlog)
+            self._backlog.clear()
+            self._backlog_bytes = self._partial = 0
+            self._disconnect()
+
+    def replug(self) -> None:
+        """Plug back in: the device comes back, and a new connection's log begins."""
+        with self._lock:
+            if self.plugged:
+                return
+            self._connect()
+            self.plugged = True
+            self.sent.append([])
+
+    def _before_pump(self) -> None:
+        """Called under the lock before the backlog is pushed (nothing by default)."""
+
+    def _can_send(self) -> bool:
+        return self.plugged
+
+    def _send(self, data: bytes) -> int:
+        """Write what the device takes now; 0 when it takes nothing now."""
+        raise NotImplementedError
+
+    def _disconnect(self) -> None:
+        raise NotImplementedError
+
+    def _connect(self) -> None:
+        raise NotImplementedError
+
+
+class PtyOutput(_Backlogged):
     """A pseudo-terminal that pyserial opens as a real serial device."""
 
     def __init__(
@@ -101,15 +184,10 @@ class PtyOutput(_Base):
         backlog_limit: int = 1 << 20,
         record: bool = False,
     ) -> None:
-        super().__init__(record)
+        super().__init__(record, backlog_limit)
         self.link = Path(link) if link is not None else None
         self.wait_for_open = wait_for_open
-        self.backlog_limit = backlog_limit
         self.devices: list[str] = []
-        self._lock = threading.Lock()
-        self._backlog: deque[bytes] = deque()
-        self._backlog_bytes = 0
-        self._partial = 0  # bytes of the backlog's first line already written
         self._master = self._slave = -1
         self._opened = False
         self._open_pty()
@@ -145,69 +223,30 @@ class PtyOutput(_Base):
             self._opened = ptys.was_opened(self._slave)
         return self._opened
 
-    @property
-    def backlog_bytes(self) -> int:
-        """Bytes waiting in the backlog for the master to take them."""
-        return self._backlog_bytes - self._partial
-
     def unread(self) -> int:
         """Bytes written to the master that no reader has taken yet, backlog included."""
         if not self.plugged:
             return 0
         from mock_rig import ptys
 
-        return ptys.unread(self._slave) + self._backlog_bytes - self._partial
+        return ptys.unread(self._slave) + self.backlog_bytes
 
-    def write(self, line: bytes) -> None:
-        with self._lock:
-            if not self.plugged:
-                self.lines_dropped += 1
-                return
-            if self._backlog_bytes + len(line) > self.backlog_limit:
-                self.lines_dropped += 1
-                return
-            self._backlog.append(line)
-            self._backlog_bytes += len(line)
-        self.pump()
+    def _send(self, data: bytes) -> int:
+        try:
+            return os.write(self._master, data)
+        except (BlockingIOError, InterruptedError):
+            return 0
 
-    def pump(self) -> None:
-        with self._lock:
-            while self._backlog and self.plugged:
-                line = self._backlog[0]
-                try:
-                    n = os.write(self._master, line[self._partial :])
-                except (BlockingIOError, InterruptedError):
-                    return
-                self._partial += n
-                if self._partial < len(line):
-                    return
-                self._backlog.popleft()
-                self._backlog_bytes -= len(line)
-                self._partial = 0
-                self._log(line)
+    def _disconnect(self) -> None:
+        """Close the master (unread bytes are lost) and remove the symlink."""
+        os.close(self._master)
+        self._master = -1
+        if self.link is not None:
+            self.link.unlink(missing_ok=True)
 
-    def unplug(self) -> None:
-        """Pull the cable: close the master (unread bytes are lost) and remove the symlink."""
-        with self._lock:
-            if not self.plugged:
-                return
-            self.plugged = False
-            self.lines_dropped += len(self._backlog)
-            self._backlog.clear()
-            self._backlog_bytes = self._partial = 0
-            os.close(self._master)
-            self._master = -1
-            if self.link is not None:
-                self.link.unlink(missing_ok=True)
-
-    def replug(self) -> None:
-        """Plug back in: a new pty, the symlink re-pointed at it."""
-        with self._lock:
-            if self.plugged:
-                return
-            self._open_pty()
-            self.plugged = True
-            self.sent.append([])
+    def _connect(self) -> None:
+        """A new pty, the symlink re-pointed at it."""
+        self._open_pty()
 
     def close(self) -> None:
         self.unplug()
@@ -216,7 +255,7 @@ class PtyOutput(_Base):
             self._slave = -1
 
 
-class SocketOutput(_Base):
+class SocketOutput(_Backlogged):
     """A box on a local TCP port, read as `socket://127.0.0.1:PORT` by pyserial (no pty needed)."""
 
     def __init__(
@@ -227,14 +266,9 @@ class SocketOutput(_Base):
         backlog_limit: int = 1 << 20,
         record: bool = False,
     ) -> None:
-        super().__init__(record)
+        super().__init__(record, backlog_limit)
         self.host = host
         self.wait_for_open = wait_for_open
-        self.backlog_limit = backlog_limit
-        self._lock = threading.Lock()
-        self._backlog: deque[bytes] = deque()
-        self._backlog_bytes = 0
-        self._partial = 0
         self._conn: socket.socket | None = None
         self._booted_at: float | None = None
         self._listener: socket.socket | None = None
@@ -287,68 +321,38 @@ class SocketOutput(_Base):
             return True
         return self._conn is not None and self._booted_at is not None and time.monotonic() >= self._booted_at
 
-    @property
-    def backlog_bytes(self) -> int:
-        """Bytes waiting in the backlog for the socket to take them."""
-        return self._backlog_bytes - self._partial
-
     def unread(self) -> int:
         """Bytes the box said but the socket has not taken yet."""
         return self.backlog_bytes if self.plugged else 0
 
-    def write(self, line: bytes) -> None:
-        with self._lock:
-            if not self.plugged or self._backlog_bytes + len(line) > self.backlog_limit:
-                self.lines_dropped += 1
-                return
-            self._backlog.append(line)
-            self._backlog_bytes += len(line)
-        self.pump()
+    def _before_pump(self) -> None:
+        self._accept()
 
-    def pump(self) -> None:
-        with self._lock:
-            self._accept()
-            while self._backlog and self._conn is not None:
-                line = self._backlog[0]
-                try:
-                    n = self._conn.send(line[self._partial:])
-                except (BlockingIOError, InterruptedError):
-                    return
-                except OSError:  # the reader went away: wait for the next one
-                    self._conn.close()
-                    self._conn = None
-                    return
-                self._partial += n
-                if self._partial < len(line):
-                    return
-                self._backlog.popleft()
-                self._backlog_bytes -= len(line)
-                self._partial = 0
-                self._log(line)
+    def _can_send(self) -> bool:
+        return self._conn is not None
 
-    def unplug(self) -> None:
-        """Pull the cable: drop the connection and stop listening (a reader's reconnect fails)."""
-        with self._lock:
-            if not self.plugged:
-                return
-            self.plugged = False
-            self.lines_dropped += len(self._backlog)
-            self._backlog.clear()
-            self._backlog_bytes = self._partial = 0
-            for sock in (self._conn, self._listener):
-                if sock is not None:
-                    sock.close()
-            self._conn = self._listener = None
-            self._booted_at = None
+    def _send(self, data: bytes) -> int:
+        assert self._conn is not None
+        try:
+            return self._conn.send(data)
+        except (BlockingIOError, InterruptedError):
+            return 0
+        except OSError:  # the reader went away: wait for the next one
+            self._conn.close()
+            self._conn = None
+            return 0
 
-    def replug(self) -> None:
-        """Plug back in: listen on the same port again."""
-        with self._lock:
-            if self.plugged:
-                return
-            self._listen(self.port)
-            self.plugged = True
-            self.sent.append([])
+    def _disconnect(self) -> None:
+        """Drop the connection and stop listening (a reader's reconnect fails)."""
+        for sock in (self._conn, self._listener):
+            if sock is not None:
+                sock.close()
+        self._conn = self._listener = None
+        self._booted_at = None
+
+    def _connect(self) -> None:
+        """Listen on the same port again."""
+        self._listen(self.port)
 
     def close(self) -> None:
         self.unplug()

@@ -3,7 +3,8 @@
 Shared fixtures and helpers live in tests/fixtures/ (importable as `fixtures.*`:
 pyproject.toml puts tests/ on the path): protocol TOML (`fixtures.protocols`),
 simulated sessions and histories, and `wait_for` (`fixtures.sessions`),
-stores made through `rigside import` (`fixtures.stores`).
+stores made through `rigside import` (`fixtures.stores`), pty boards, a subprocess's
+stderr and `rigside` runs (`fixtures.devices`).
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ import pytest
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
-pytest_plugins = ["fixtures.protocols", "fixtures.sessions", "fixtures.stores"]
+pytest_plugins = ["fixtures.devices", "fixtures.protocols", "fixtures.sessions", "fixtures.stores"]
 
 
 def pytest_addoption(parser: pytest.Parser) -> None:

@@ -32,6 +32,7 @@ def run_tiny(tmp_path: Path, env: dict[str, str]) -> subprocess.CompletedProcess
                           env={"PATH": "/usr/bin:/bin", "PYTHONPATH": str(ROOT / "tests"), **env})
 
 
+@pytest.mark.slow  # pytest in a child process, twice
 @pytest.mark.parametrize("required, outcome", [("", "1 skipped"), ("1", "1 error")])
 def test_no_server_skips_with_a_reason_or_fails_when_required(tmp_path, required, outcome):
     done = run_tiny(tmp_path, {"RIGSIDE_TEST_PG": dead_url(), "RIGSIDE_REQUIRE_PG": required})
@@ -39,6 +40,7 @@ def test_no_server_skips_with_a_reason_or_fails_when_required(tmp_path, required
     assert "no PostgreSQL server for the lab tests" in done.stdout
 
 
+@pytest.mark.slow  # pytest in a child process
 def test_ci_requires_the_lab_tests_when_a_server_answers(tmp_path):
     """.ci/run itself on a tiny project whose test prints what CI exported."""
     server = socket.socket()

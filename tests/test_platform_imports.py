@@ -21,6 +21,8 @@ import sys
 import time
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parents[1]
 POSIX_ONLY = ("fcntl", "pty", "termios", "tty", "resource", "pwd", "grp", "posix")
 SEAMS = {"mock_rig/ptys.py"}   # the one module allowed to import them at the top
@@ -117,6 +119,7 @@ def png_size(path: Path) -> tuple[int, int]:
     return struct.unpack(">II", data[16:24])
 
 
+@pytest.mark.slow  # a 20 s demo in a child process
 def test_demo_runs_live_through_socket_urls_without_posix_modules(tmp_path):
     shot, folder = tmp_path / "x.png", tmp_path / "demo"
     result = run_blocked("monitor.app", "demo", "--headless", "--seconds", "20", "--screenshot", str(shot),

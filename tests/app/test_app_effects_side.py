@@ -9,28 +9,19 @@ import numpy as np
 import pytest
 
 from drivers.wire import encode_event, encode_header
-from monitor.app import cli
-from monitor.app.controller import Controller
-from monitor.store.writer import StoreWriter
+from fixtures.protocols import protocol_toml
+from fixtures.stores import imported_store
+from fixtures.windows import window_over
 from monitor.ui.effects_view import EffectsView
-from monitor.ui.main_window import MainWindow
 from monitor.ui.manipulation_dialog import ManipulationDialog
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-reward_ul = 30
-"""
+PROTOCOL = protocol_toml(reward_ul=30)
 
 
 @pytest.fixture
 def app(qapp, tmp_path):
     rng = np.random.default_rng(1)
-    files = []
+    sessions = {}
     for day in range(5):
         start = (datetime.now().astimezone() - timedelta(days=5 - day)).replace(microsecond=0)
         data = encode_header(clock="ms", start=start.isoformat(timespec="seconds"))
@@ -39,21 +30,10 @@ def app(qapp, tmp_path):
             t = 1000 + 4000 * k
             gap = int(650 * np.exp(rng.normal(0, spread)))
             data += encode_event(t, "lever_down") + encode_event(t + gap, "lever_down")
-        files.append(tmp_path / f"heron_s{day + 1:02d}.rsw")
-        files[-1].write_bytes(data)
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    db = tmp_path / "store.sqlite3"
-    assert cli.main(["import", *map(str, files), "--protocol", str(tmp_path / "p.toml"), "--db", str(db),
-                     "--no-fit"]) == 0
-    writer = StoreWriter(db)
-    writer.start()
-    controller = Controller(writer, alert_store=None, fit_consolidation=False)
-    window = MainWindow(controller.board, controller.book, controller.alert_book)
-    controller.attach(window)
-    controller.start()
-    yield controller, window, db
-    controller.close()
-    window.close()
+        sessions[f"heron_s{day + 1:02d}.rsw"] = data
+    db = imported_store(tmp_path, sessions, PROTOCOL, "--no-fit")
+    with window_over(db) as (controller, window):
+        yield controller, window, db
 
 
 def test_record_a_manipulation_from_the_page_and_open_the_cohort_view(app, qtbot, tmp_path):

@@ -59,6 +59,7 @@ def store(tmp_path) -> Path:
     return db
 
 
+@pytest.mark.slow  # a sync in a child process, then the lab view
 def test_background_sync_and_the_lab_view(qtbot, store, lab_url, tmp_path):
     from PySide6.QtWidgets import QMainWindow
 

@@ -96,6 +96,7 @@ run(DemoOptions(speed=20, seconds=4, headless=True, folder=Path(sys.argv[1]), fi
 """
 
 
+@pytest.mark.slow  # a demo run in the window
 @pytest.mark.skipif(not hasattr(os, "openpty"), reason="the demo's pseudo-terminals are POSIX only")
 def test_every_widget_text_of_a_demo_run_is_plain_words(tmp_path):
     # in a child process: a whole application run must not leave Qt state behind for other tests

@@ -17,6 +17,7 @@ import time
 import pytest
 
 from drivers.wire import encode_event, encode_header
+from fixtures.protocols import protocol_toml
 from monitor.app import stopping
 from monitor.app.stopping import StopRequests, stop_signals
 
@@ -92,19 +93,7 @@ def test_ctrl_c_and_ctrl_break_are_left_to_python():
     assert stops.console_event(stopping.CTRL_BREAK_EVENT) is False
 
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-
-[plateau]
-rule = "consecutive_sessions"
-min_hit_rate = 0.5
-sessions = 3
-"""
+PROTOCOL = protocol_toml(plateau_sessions=3)
 
 
 def stored(db) -> int:

@@ -7,16 +7,7 @@ import json
 import shlex
 
 from mock_rig.history import cohort, write_history
-from monitor.app.cli import main
-
-
-def run_cli(capsys, *args) -> tuple[int, str, str]:
-    try:
-        code = main([str(a) for a in args])
-    except SystemExit as exc:  # argparse's own refusals
-        code = exc.code
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
+from fixtures.devices import run_main as run_cli
 
 
 def test_add_edit_list_retire_history(tmp_path, capsys):

@@ -15,6 +15,7 @@ from monitor.app.blinding import key_file
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
 from monitor.store.plans import find_plan
+from fixtures.devices import run_main as rigside
 
 PROTOCOL = """
 [protocol]
@@ -59,13 +60,6 @@ def make_db(tmp_path, extra: str = "", name: str = "two-press", animals=ANIMALS,
         files[-1].write_bytes(data)
     assert cli.main(["import", *map(str, files), "--protocol", str(protocol), "--db", str(db), "--no-fit"]) == 0
     return db
-
-
-def rigside(capsys, *args) -> tuple[int, str, str]:
-    capsys.readouterr()
-    code = cli.main(list(args))
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 def assigned(db) -> list:

@@ -13,6 +13,9 @@ import pytest
 from mock_rig.history import cohort
 from mock_rig.manipulations import write_history
 from monitor.app import cli
+from fixtures.devices import run_main as rigside
+
+pytestmark = pytest.mark.slow  # a simulated cohort of 16 days imported and fitted: seconds per test
 
 RULE = """
 [eligibility]
@@ -28,16 +31,6 @@ plateau = false
 min_hit_rate = 0.0
 """
 PLANS = {"alder": {10: "inactivate_fast", 12: "vehicle"}, "birch": {9: "lesion_fast"}}
-
-
-def rigside(capsys, *args) -> tuple[int, str, str]:
-    capsys.readouterr()
-    try:
-        code = cli.main([str(a) for a in args])
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 @pytest.fixture(scope="module")

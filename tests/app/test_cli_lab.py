@@ -13,15 +13,7 @@ import pytest
 
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
-
-
-def run_cli(capsys, *args: object) -> tuple[int, str, str]:
-    try:
-        code = main([str(a) for a in args])
-    except SystemExit as exc:
-        code = exc.code
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
+from fixtures.devices import run_main as run_cli
 
 
 @pytest.fixture(scope="module")

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import csv
 import os
-import select
 import signal
 import sqlite3
 import subprocess
@@ -16,16 +15,14 @@ from pathlib import Path
 import pytest
 
 from drivers.wire import encode_event, encode_header
+from fixtures.devices import StderrLines, point_link
+from fixtures.devices import run_child as cli
 from fixtures.protocols import protocol_toml
 from fixtures.sessions import wait_for
 
 pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
 
 PROTOCOL = protocol_toml(version=3, plateau_sessions=3)
-
-
-def cli(*args: str, timeout: float = 60) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "monitor.app", *args], capture_output=True, text=True, timeout=timeout)
 
 
 def record_args(tmp_path: Path, source: str, *extra: str) -> list[str]:
@@ -107,52 +104,10 @@ def test_sigkill_while_the_file_grows_stores_every_line_exactly_once(tmp_path):
     assert stored_times(db) == list(range(total))  # every line once, in order
 
 
-class Board:
-    def __init__(self) -> None:
-        import pty  # POSIX only: imported here so the module collects on Windows
-        import tty
-
-        self.master, self.slave = pty.openpty()
-        tty.setraw(self.master)
-        self.name = os.ttyname(self.slave)
-
-    def write(self, data: bytes) -> None:
-        while data:
-            _, ready, _ = select.select([], [self.master], [], 5.0)
-            if not ready:
-                raise TimeoutError("pty not drained")
-            data = data[os.write(self.master, data):]
-
-    def unplug(self) -> None:
-        os.close(self.master)
-        os.close(self.slave)
-
-
-class StderrLines:
-    """Collects a subprocess's stderr lines as they come (the recorder prints each change of state)."""
-
-    def __init__(self, proc: subprocess.Popen) -> None:
-        self.lines: list[str] = []
-        self._thread = threading.Thread(target=self._read, args=(proc,), daemon=True)
-        self._thread.start()
-
-    def _read(self, proc: subprocess.Popen) -> None:
-        for raw in proc.stderr:
-            self.lines.append(raw.decode("utf-8", "replace"))
-
-    def has(self, text: str) -> bool:
-        return any(text in line for line in self.lines)
-
-    @property
-    def text(self) -> str:
-        self._thread.join(10)
-        return "".join(self.lines)
-
-
 @pytest.mark.skipif(os.name != "posix", reason="pseudo-terminals are POSIX")
-def test_record_serial_symlink_survives_an_unplug_and_stops_cleanly_on_sigterm(tmp_path):
+def test_record_serial_symlink_survives_an_unplug_and_stops_cleanly_on_sigterm(tmp_path, boards):
     link = tmp_path / "rig-by-id"
-    first = Board()
+    first = boards()
     os.symlink(first.name, link)
     db = tmp_path / "store.sqlite3"
     proc = subprocess.Popen([sys.executable, "-m", "monitor.app", *record_args(tmp_path, f"serial:{link}")],
@@ -163,11 +118,9 @@ def test_record_serial_symlink_survives_an_unplug_and_stops_cleanly_on_sigterm(t
         wait_for(lambda: stderr.has("record: connected"), what="recorder opened the port")
         first.write(encode_header(fw="a") + b"".join(event_line(i) for i in range(10)))
         wait_for(lambda: len(stored_times(db)) == 10, what="first events stored")
-        second = Board()
+        second = boards()
         first.unplug()
-        tmp = tmp_path / "tmp-link"
-        os.symlink(second.name, tmp)
-        os.replace(tmp, link)
+        point_link(link, second.name)
         wait_for(lambda: stderr.has("reconnected after"), what="reopened by the symlink")
         second.write(encode_header(fw="a") + b"".join(event_line(i) for i in range(10, 20)))
         wait_for(lambda: len(stored_times(db)) == 20, what="events after re-plug")

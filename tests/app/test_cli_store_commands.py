@@ -13,8 +13,9 @@ from pathlib import Path
 
 import pytest
 
-from monitor.app.cli import main
 from monitor.store.db import open_store
+from fixtures.devices import run_child as cli
+from fixtures.devices import run_main as run_cli
 
 pytestmark = pytest.mark.slow  # subprocesses and a simulated history: seconds per test
 
@@ -27,20 +28,6 @@ label = "plateaued, early"
 min_sessions_since_plateau = 0
 max_sessions_since_plateau = 50
 """
-
-
-def run_cli(capsys, *args: str) -> tuple[int, str, str]:
-    try:
-        code = main([str(a) for a in args])
-    except SystemExit as exc:  # argparse's own refusals
-        code = exc.code
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
-
-
-def cli(*args: str, timeout: float = 120) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "monitor.app", *map(str, args)], capture_output=True, text=True,
-                          timeout=timeout)
 
 
 def import_animal(capsys, db: Path, out: Path, animal: str, *extra: str, first: int | None = None

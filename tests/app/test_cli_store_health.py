@@ -15,13 +15,9 @@ from pathlib import Path
 import pytest
 
 from drivers.wire import encode_event, encode_header
+from fixtures.devices import run_child as cli
 
 PROTOCOL = '[protocol]\nname = "p"\nversion = 1\ntask = "two_press"\ntarget_ms = 650\ntolerance = 0.2\n'
-
-
-def cli(*args, timeout: float = 120) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "monitor.app", *map(str, args)], capture_output=True, text=True,
-                          timeout=timeout)
 
 
 def one_line_error(result: subprocess.CompletedProcess) -> bool:
@@ -55,6 +51,7 @@ def damage(db: Path) -> None:
         fh.write(b"\x0d\xff\xee" * (page_size // 3))
 
 
+@pytest.mark.slow  # a 20,000-event store, then every command in a child process
 def test_a_damaged_page_is_refused_by_every_command_with_one_line(tmp_path):
     db, log = recorded_store(tmp_path)
     damage(db)
@@ -101,14 +98,20 @@ def test_a_read_only_folder_is_named_as_such(tmp_path):
     assert result.returncode == 2 and one_line_error(result) and "read-only" in result.stderr
 
 
-def test_deleting_the_database_while_recording_stops_the_recorder_with_exit_1(tmp_path):
+def recording(tmp_path: Path, n: int) -> tuple[Path, Path, subprocess.Popen]:
+    """`rigside record` in a child process following a log of `n` lines: (log, store, process)."""
     (tmp_path / "p.toml").write_text(PROTOCOL)
     log = tmp_path / "box.rsw"
-    log.write_bytes(encode_header() + lines(100))
+    log.write_bytes(encode_header() + lines(n))
     db = tmp_path / "store.sqlite3"
     proc = subprocess.Popen([sys.executable, "-m", "monitor.app", "record", "--source", f"file:{log}", "--rig", "b",
                              "--animal", "a", "--new-animal", "--protocol", str(tmp_path / "p.toml"), "--db", str(db),
                              "--seconds", "60"], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    return log, db, proc
+
+
+def test_deleting_the_database_while_recording_stops_the_recorder_with_exit_1(tmp_path):
+    log, db, proc = recording(tmp_path, 100)
     deadline = time.monotonic() + 30
     while time.monotonic() < deadline and _count(db) < 100:
         time.sleep(0.05)
@@ -122,13 +125,7 @@ def test_deleting_the_database_while_recording_stops_the_recorder_with_exit_1(tm
 
 
 def test_backup_while_recording_is_a_consistent_copy_holding_what_the_wal_holds(tmp_path):
-    (tmp_path / "p.toml").write_text(PROTOCOL)
-    log = tmp_path / "box.rsw"
-    log.write_bytes(encode_header() + lines(5000))
-    db = tmp_path / "store.sqlite3"
-    proc = subprocess.Popen([sys.executable, "-m", "monitor.app", "record", "--source", f"file:{log}", "--rig", "b",
-                             "--animal", "a", "--new-animal", "--protocol", str(tmp_path / "p.toml"), "--db", str(db),
-                             "--seconds", "60"], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    log, db, proc = recording(tmp_path, 5000)
     try:
         deadline = time.monotonic() + 30
         while time.monotonic() < deadline:

@@ -6,23 +6,14 @@ import importlib.util
 import sqlite3
 from pathlib import Path
 
-from monitor.app.cli import main
 from monitor.app.errors import plain_error
 from monitor.store.db import open_store
+from fixtures.devices import run_main as run_cli
 
 spec = importlib.util.spec_from_file_location("store_records_cli", Path(__file__).parents[1] / "store" /
                                               "test_store_records.py")
 records_tests = importlib.util.module_from_spec(spec)
 spec.loader.exec_module(records_tests)
-
-
-def run_cli(capsys, *args) -> tuple[int, str, str]:
-    try:
-        code = main([str(a) for a in args])
-    except SystemExit as exc:  # argparse's own refusals
-        code = exc.code
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
 
 
 def store_with_a_run(tmp_path) -> tuple[Path, str]:

@@ -183,6 +183,7 @@ def test_some_documented_commands_are_run_as_written():
     assert len(runnable()) >= 8
 
 
+@pytest.mark.slow  # a simulated history imported, then each command in turn
 @pytest.mark.parametrize("command", runnable())
 def test_each_concrete_command_runs_on_a_demo_store(demo_store, command):
     folder, env = demo_store

@@ -87,6 +87,7 @@ def test_natural_slopes_match_scipy_approx_fprime():
         assert slopes[i] == pytest.approx(ref[0], rel=1e-5)
 
 
+@pytest.mark.slow  # a numerical Hessian of a long series' likelihood
 def test_laplace_hessian_matches_scipy_differentiate_hessian():
     from scipy.differentiate import hessian
 

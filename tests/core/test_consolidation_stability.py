@@ -18,6 +18,8 @@ from monitor.core.consolidation.estimate import Forecast
 from monitor.core.consolidation.model import TrialSeries, evaluate, prepare, simulate
 from monitor.core.consolidation.words import fraction_text
 
+pytestmark = pytest.mark.slow  # maximum-likelihood fits of long simulated series: seconds per test
+
 TARGET_MS = 650.0
 FAST = Options(draws=16, state_draws=16)
 TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}

@@ -9,6 +9,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from drivers.wire import Event, WireDecoder, decode_all
+from fixtures.sessions import CONTRACT_EXAMPLE
 from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import NOT_TRIALS, TrialBuilder, build_trials
 
@@ -76,19 +77,8 @@ def test_rig_outcome_is_the_truth_and_disagreements_are_kept(basic, events):
 
 def test_contract_example_stream(basic_text):
     # CONTRACTS.md §1, the example lines verbatim; protocol of the contract's §3 (650 ms, tolerance 0.2)
-    text = b"""# rigside-wire 1 clock=us wrap=32 fw=box-v3 start=2026-03-02T09:14:03+01:00
-1048576 trial_start
-1048900 lever_down
-1049702 lever_up
-1712004 lever_down
-1712998 lever_up
-1713000 outcome hit
-1713500 reward 30
-1713600 lick
-1720000 param window_low_ms 520
-"""
     p = parse_protocol(basic_text.replace("700", "650"), "p.toml")
-    evs = [r for r in decode_all(text) if isinstance(r, Event)]
+    evs = [r for r in decode_all(CONTRACT_EXAMPLE) if isinstance(r, Event)]
     trials, builder = run(p, evs)
     assert len(trials) == 1
     t = trials[0]

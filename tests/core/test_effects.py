@@ -58,6 +58,7 @@ def _codes(s: SessionTrials) -> np.ndarray:
     return np.array([2 if t.outcome == "premature" else int(t.rewarded) for t in s.trials], float)
 
 
+@pytest.mark.slow  # scipy's bootstrap beside ours
 def test_stratified_bootstrap_agrees_with_scipy():
     rng = np.random.default_rng(5)
     test = _session(4, rng, p_hit=0.35)
@@ -80,6 +81,7 @@ def test_stratified_bootstrap_agrees_with_scipy():
     assert ours.effect == pytest.approx(statistic(*(_codes(s) for s in (test, *base))))
 
 
+@pytest.mark.slow  # bootstrap intervals of many simulated animals
 def test_bootstrap_interval_width_matches_the_binomial_standard_error():
     rng = np.random.default_rng(8)
     a, b = _session(2, rng, n=800, p_premature=0), _session(1, rng, n=800, p_premature=0)
@@ -158,6 +160,7 @@ def test_group_table_matches_scipy_t_interval():
     assert rows[1].low is None
 
 
+@pytest.mark.slow  # scipy's bootstrap beside ours
 def test_interval_error_bootstrap_agrees_with_scipy():
     rng = np.random.default_rng(9)
     test, base = _session(2, rng, p_hit=0.3), _session(1, rng, p_hit=0.7)

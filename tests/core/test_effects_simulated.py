@@ -19,6 +19,8 @@ from monitor.core.effects.animal import SessionTrials, animal_effect
 from monitor.core.effects.cohort import trend
 from monitor.core.session.trials import Trial
 
+pytestmark = pytest.mark.slow  # simulated cohorts fitted animal by animal: seconds per test
+
 ANIMALS = 80      # tests; as many again would add time, not insight, for the controls: CONTROLS
 CONTROLS = 40
 PROTOCOL = replace(scenario.two_press_protocol(650), max_trials=200, max_minutes=20.0)

@@ -4,30 +4,15 @@ and a rig without framing, checked against the segmentation's own trials."""
 from __future__ import annotations
 
 from drivers.wire import WireDecoder
-from monitor.core.protocol import parse_protocol
+from fixtures.protocols import two_press
+from fixtures.sessions import CONTRACT_EXAMPLE
 from monitor.core.session.trial_spans import trial_spans
 from monitor.core.session.trials import TrialBuilder
 
-PROTOCOL = parse_protocol("""
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-trial_timeout_ms = 3000
-""", "<test>")
+PROTOCOL = two_press(trial_timeout_ms=3000)
 
 # the wire format's own example session (CONTRACTS.md section 1), then a lone press and an omission
-FRAMED = b"""# rigside-wire 1 clock=us wrap=32 fw=box-v3 start=2026-03-02T09:14:03+01:00
-1048576 trial_start
-1048900 lever_down
-1049702 lever_up
-1712004 lever_down
-1712998 lever_up
-1713000 outcome hit
-1713500 reward 30
-2000000 trial_start
+FRAMED = b"".join(CONTRACT_EXAMPLE.splitlines(keepends=True)[:8]) + b"""2000000 trial_start
 2100000 lever_down
 2200000 lever_up
 5100000 outcome lone

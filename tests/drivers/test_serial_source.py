@@ -9,7 +9,6 @@ with a timeout (a pty master blocks once ~17 KB are unread).
 from __future__ import annotations
 
 import os
-import select
 import threading
 import time
 
@@ -21,40 +20,10 @@ import drivers.serial as source_mod
 from drivers.serial import SerialSource, find_by_serial_number, list_serial_ports, open_port
 from drivers.status import CONNECTED, LOST, SILENT, WAITING, Batch
 from drivers.wire import Event, Header, Malformed, encode_event, encode_header
+from fixtures.devices import PtyBoard
+from fixtures.sessions import wait_for
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="pseudo-terminals are POSIX")
-
-
-def wait_for(condition, timeout: float = 10.0, what: str = "condition") -> None:
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for {what}")
-        time.sleep(0.005)
-
-
-class FakeBoard:
-    """The device end of a pty: write with a timeout, unplug by closing the master."""
-
-    def __init__(self) -> None:
-        import pty  # POSIX only: imported here so the module collects on Windows
-        import tty
-
-        self.master, self.slave = pty.openpty()
-        tty.setraw(self.master)
-        self.name = os.ttyname(self.slave)
-
-    def write(self, data: bytes, timeout: float = 5.0) -> None:
-        deadline = time.monotonic() + timeout
-        while data:
-            _, ready, _ = select.select([], [self.master], [], max(0.0, deadline - time.monotonic()))
-            if not ready:
-                raise TimeoutError("pty master not writable: the reader is not draining")
-            data = data[os.write(self.master, data):]
-
-    def unplug(self) -> None:
-        os.close(self.master)
-        os.close(self.slave)
 
 
 class Collect:
@@ -85,26 +54,21 @@ def lines(n: int, start: int = 1000) -> bytes:
     return b"".join(encode_event(start + 250 * i, "lever_down" if i % 2 == 0 else "lever_up") for i in range(n))
 
 
-@pytest.fixture
-def board():
-    made: list[FakeBoard] = []
-
-    def make() -> FakeBoard:
-        made.append(FakeBoard())
-        return made[-1]
-
-    yield make
-    for b in made:
-        for fd in (b.master, b.slave):
-            try:
-                os.close(fd)
-            except OSError:
-                pass
-
-
 def running(source: SerialSource):
     source.start()
     return source
+
+
+def opened(dev: PtyBoard, **options) -> tuple[Collect, SerialSource]:
+    """A running source on `dev` with a collecting sink, once it has opened the port."""
+    sink = Collect()
+    source = running(SerialSource(dev.name, sink, **options))
+    try:
+        wait_for(lambda: source.status().state == CONNECTED, what="open")
+    except AssertionError:
+        source.stop()
+        raise
+    return sink, source
 
 
 def test_loop_url_header_tag_split_across_reads_and_boot_noise_kept():
@@ -129,12 +93,10 @@ def test_loop_url_header_tag_split_across_reads_and_boot_noise_kept():
     assert source.status().malformed == 1
 
 
-def test_pty_line_split_across_reads(board):
-    dev = board()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink, wait_for_header=False))
+def test_pty_line_split_across_reads(boards):
+    dev = boards()
+    sink, source = opened(dev, wait_for_header=False)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(b"5000 lever_")
         wait_for(lambda: source.decoder.pending == len(b"5000 lever_"), what="half a line read")
         assert sink.events == []
@@ -145,9 +107,9 @@ def test_pty_line_split_across_reads(board):
     assert [(e.raw_time, e.name, e.args) for e in sink.events] == [(5000, "lever_down", ("2",)), (5100, "lever_up", ("2",))]
 
 
-def test_unplug_and_replug_under_a_new_name_behind_the_same_symlink(board, tmp_path):
+def test_unplug_and_replug_under_a_new_name_behind_the_same_symlink(boards, tmp_path):
     link = tmp_path / "usb-rig3-if00"
-    first = board()
+    first = boards()
     os.symlink(first.name, link)
     sink = Collect()
     source = running(SerialSource(str(link), sink, retry_s=0.05))
@@ -155,7 +117,7 @@ def test_unplug_and_replug_under_a_new_name_behind_the_same_symlink(board, tmp_p
         wait_for(lambda: source.status().state == CONNECTED, what="first open")
         first.write(encode_header(fw="a") + lines(4))
         wait_for(lambda: len(sink.events) == 4, what="drained before unplug")
-        second = board()  # made now so that it gets another tty name, as a re-plugged board can
+        second = boards()  # made now so that it gets another tty name, as a re-plugged board can
         first.unplug()
         wait_for(lambda: source.status().state == WAITING, what="unplug noticed")
         assert source.status().last_error.startswith(("SerialException", "OSError"))  # per STACK-NOTES.md
@@ -179,12 +141,10 @@ def test_unplug_and_replug_under_a_new_name_behind_the_same_symlink(board, tmp_p
     assert [e.raw_time for e in after] == [10, 260, 510]
 
 
-def test_board_reset_mid_stream_starts_a_new_segment(board):
-    dev = board()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink))
+def test_board_reset_mid_stream_starts_a_new_segment(boards):
+    dev = boards()
+    sink, source = opened(dev)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(encode_header() + lines(3, start=4_000_000))
         wait_for(lambda: len(sink.events) == 3, what="first segment")
         dev.write(b"4000900 lever_d")  # the reset cuts this line short...
@@ -200,12 +160,10 @@ def test_board_reset_mid_stream_starts_a_new_segment(board):
     assert len(cut) == 1 and cut[0].raw == b"4000900 lever_d"
 
 
-def test_garbage_bytes_are_kept_as_malformed_lines_and_reading_goes_on(board):
-    dev = board()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink))
+def test_garbage_bytes_are_kept_as_malformed_lines_and_reading_goes_on(boards):
+    dev = boards()
+    sink, source = opened(dev)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(encode_header() + lines(2) + b"\x00\x01\xfe\xff\n" + b"x" * 400 + b"\n" + lines(2, start=9000))
         wait_for(lambda: len(sink.events) == 4, what="events around garbage")
     finally:
@@ -215,12 +173,10 @@ def test_garbage_bytes_are_kept_as_malformed_lines_and_reading_goes_on(board):
     assert source.status().malformed == 2 and source.status().events == 4
 
 
-def test_a_silent_rig_is_reported_silent_with_its_duration(board):
-    dev = board()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink, silent_after_s=0.3))
+def test_a_silent_rig_is_reported_silent_with_its_duration(boards):
+    dev = boards()
+    sink, source = opened(dev, silent_after_s=0.3)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(encode_header() + lines(1))
         wait_for(lambda: len(sink.events) == 1, what="one event")
         wait_for(lambda: source.status().state == SILENT, what="silence noticed")
@@ -232,8 +188,8 @@ def test_a_silent_rig_is_reported_silent_with_its_duration(board):
         source.stop()
 
 
-def test_an_exception_in_the_callback_surfaces_as_connection_lost(board):
-    dev = board()
+def test_an_exception_in_the_callback_surfaces_as_connection_lost(boards):
+    dev = boards()
     lost: list[BaseException] = []
 
     def broken(batch: Batch) -> None:
@@ -250,13 +206,13 @@ def test_an_exception_in_the_callback_surfaces_as_connection_lost(board):
     assert status.gap_since is not None  # nothing is being read any more
 
 
-def test_device_absent_at_start_is_waited_for_and_the_wait_is_a_gap(board, tmp_path):
+def test_device_absent_at_start_is_waited_for_and_the_wait_is_a_gap(boards, tmp_path):
     link = tmp_path / "rig1"
     sink = Collect()
     source = running(SerialSource(str(link), sink, retry_s=0.05))
     try:
         wait_for(lambda: source.status().state == WAITING, what="waiting")
-        dev = board()
+        dev = boards()
         os.symlink(dev.name, link)
         wait_for(lambda: source.status().state == CONNECTED, timeout=2.0, what="found")
     finally:
@@ -264,8 +220,8 @@ def test_device_absent_at_start_is_waited_for_and_the_wait_is_a_gap(board, tmp_p
     assert len(sink.gaps) == 1 and "not present" in sink.gaps[0].reason
 
 
-def test_found_again_by_usb_serial_number(board, monkeypatch, tmp_path):
-    dev = board()
+def test_found_again_by_usb_serial_number(boards, monkeypatch, tmp_path):
+    dev = boards()
     info = ListPortInfo(dev.name)  # pyserial's own port record
     info.serial_number, info.vid, info.pid, info.description = "A1B2C3", 0x2341, 0x0043, "Box controller"
     monkeypatch.setattr(source_mod.list_ports, "comports", lambda: [info])
@@ -283,8 +239,8 @@ def test_found_again_by_usb_serial_number(board, monkeypatch, tmp_path):
         source.stop()
 
 
-def test_the_port_is_opened_exclusively(board):
-    dev = board()
+def test_the_port_is_opened_exclusively(boards):
+    dev = boards()
     held = open_port(dev.name)
     try:
         with pytest.raises(serial.SerialException):
@@ -293,12 +249,10 @@ def test_the_port_is_opened_exclusively(board):
         held.close()
 
 
-def test_no_header_after_open_keeps_every_line_and_says_so(board):
-    dev = board()
-    sink = Collect()
-    source = running(SerialSource(dev.name, sink, header_wait_s=0.2))
+def test_no_header_after_open_keeps_every_line_and_says_so(boards):
+    dev = boards()
+    sink, source = opened(dev, header_wait_s=0.2)
     try:
-        wait_for(lambda: source.status().state == CONNECTED, what="open")
         dev.write(b"ut line\n" + lines(3))  # a board that did not reset: first line was cut by the open
         wait_for(lambda: len(sink.events) == 3, what="lines read")
         wait_for(lambda: source.status().last_notice, what="the notice")

@@ -252,6 +252,25 @@ def test_an_exception_in_the_sink_surfaces_as_connection_lost(tmp_path):
     assert isinstance(lost[0], RuntimeError)
 
 
+def test_a_failing_lost_handler_is_a_notice_and_the_first_error_stays(tmp_path):
+    # the reader thread's ending is shared with the serial source (drivers/reader.py)
+    path = tmp_path / "box.rsw"
+    path.write_bytes(wire_lines(3))
+
+    def broken(batch):
+        raise RuntimeError("engine fell over")
+
+    def handler(exc):
+        raise ValueError("handler fell over too")
+
+    tail = FileTail(path, broken, poll_s=0.05, on_lost=handler)
+    tail.start()
+    wait_for(lambda: not tail.alive, what="reader to end")
+    status = tail.status()
+    assert status.state == LOST and "engine fell over" in status.text
+    assert isinstance(tail.failure, RuntimeError) and "handler fell over too" in status.last_notice
+
+
 def test_missing_file_waits_then_is_read_when_it_appears(tmp_path):
     path = tmp_path / "later.rsw"
     sink = Collect()

@@ -21,18 +21,8 @@ from drivers.wire import (
     encode_event,
     encode_header,
 )
+from fixtures.sessions import CONTRACT_EXAMPLE
 
-CONTRACT_EXAMPLE = b"""# rigside-wire 1 clock=us wrap=32 fw=box-v3 start=2026-03-02T09:14:03+01:00
-1048576 trial_start
-1048900 lever_down
-1049702 lever_up
-1712004 lever_down
-1712998 lever_up
-1713000 outcome hit
-1713500 reward 30
-1713600 lick
-1720000 param window_low_ms 520
-"""
 
 
 def feed_whole(data: bytes) -> list:

@@ -1,77 +1,31 @@
-"""Shared pieces of the reliability suite: waiting on conditions, pty boards, reading a store, running record.
+"""Shared pieces of the reliability suite: a live serial session, reading a store, running `rigside record`.
 
-Rule: tests wait on conditions with deadlines (`wait_for`), never on fixed
-sleeps; a pty board writes with a timeout (a master blocks once ~17 KB are
-unread) and unplugs by closing its master; the store is read in read-only
-autocommit connections, so a reader never holds the writer up.
+Rule: tests wait on conditions with deadlines (`wait_for`, tests/fixtures), never on
+fixed sleeps; pty boards come from the shared `boards` fixture (tests/fixtures/devices.py);
+the store is read in read-only autocommit connections, so a reader never holds the
+writer up.
 """
 
 from __future__ import annotations
 
-import os
-import select
 import sqlite3
-import subprocess
 import sys
-import threading
-import time
-from collections.abc import Callable
 from pathlib import Path
 from types import SimpleNamespace
+from typing import Any, Callable
 
 import pytest
 
-PROTOCOL = """
-[protocol]
-name = "two-press 650 ms"
-version = 1
-task = "two_press"
-target_ms = 650
-tolerance = 0.2
-"""
+from drivers.serial import SerialSource
+from drivers.status import CONNECTED, READING, WAITING
+from fixtures.devices import PtyBoard, StderrLines, point_link
+from fixtures.protocols import protocol_toml
+from fixtures.sessions import wait_for
+from monitor.app.pipeline import Fanout
+from monitor.store import db
+from monitor.store.writer import StoreWriter
 
-
-def wait_for(condition: Callable[[], object], timeout: float = 30.0, what: str = "condition") -> None:
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out after {timeout:g} s waiting for {what}")
-        time.sleep(0.01)
-
-
-class PtyBoard:
-    """The device end of a pseudo-terminal."""
-
-    def __init__(self) -> None:
-        import pty
-        import tty
-
-        self.master, self.slave = pty.openpty()
-        tty.setraw(self.master)
-        self.name = os.ttyname(self.slave)
-        self.plugged = True
-
-    def write(self, data: bytes, timeout: float = 10.0) -> None:
-        deadline = time.monotonic() + timeout
-        while data:
-            _, ready, _ = select.select([], [self.master], [], max(0.0, deadline - time.monotonic()))
-            if not ready:
-                raise TimeoutError("pty master not writable: the reader is not draining")
-            data = data[os.write(self.master, data):]
-
-    def unplug(self) -> None:
-        if self.plugged:
-            self.plugged = False
-            os.close(self.master)
-            os.close(self.slave)
-
-
-def point_link(link: Path, target: str) -> None:
-    """Re-point a symlink atomically (what udev does for /dev/serial/by-id)."""
-    tmp = link.with_name(link.name + ".new")
-    tmp.unlink(missing_ok=True)
-    os.symlink(target, tmp)
-    os.replace(tmp, link)
+PROTOCOL = protocol_toml()
 
 
 def query(db: Path, sql: str, args: tuple = ()) -> list[tuple]:
@@ -89,25 +43,34 @@ def query(db: Path, sql: str, args: tuple = ()) -> list[tuple]:
         conn.close()
 
 
-class StderrLines:
-    """Collects a subprocess's stderr lines as they come."""
+class SerialRun:
+    """A store with one live serial session, fed by a `SerialSource` on the pty board behind `link`."""
 
-    def __init__(self, proc: subprocess.Popen) -> None:
-        self.lines: list[str] = []
-        self._thread = threading.Thread(target=self._read, args=(proc,), daemon=True)
-        self._thread.start()
+    def __init__(self, folder: Path, boards: Callable[[], PtyBoard], **source_options: Any) -> None:
+        self.link = folder / "rig-by-id"
+        self.writer = StoreWriter(folder / "store.sqlite3")
+        self.writer.start()
+        source_id = self.writer.call(lambda c: db.register_source(c, "serial", str(self.link), "box1"))
+        session_id = self.writer.call(lambda c: db.start_session(c, source_id, "heron", "box1", "p", 1, None))
+        self._boards = boards
+        self.board = boards()
+        point_link(self.link, self.board.name)
+        self.source = SerialSource(str(self.link), Fanout(self.writer, source_id=source_id, session_id=session_id,
+                                                          live=True), **source_options)
 
-    def _read(self, proc: subprocess.Popen) -> None:
-        for raw in proc.stderr:
-            self.lines.append(raw.decode("utf-8", "replace"))
-
-    def has(self, text: str) -> bool:
-        return any(text in line for line in list(self.lines))
-
-    @property
-    def text(self) -> str:
-        self._thread.join(10)
-        return "".join(self.lines)
+    def replug_cycle(self, cycle: int, data: bytes, sent: int) -> None:
+        """Wait for the reader (`cycle` gaps so far), send `data` (`sent` events in all), then re-plug the cable."""
+        source = self.source
+        # "connected" is set after open() returned, i.e. after pyserial flushed the input
+        wait_for(lambda: source.status().state in (CONNECTED, READING) and source.status().gaps == cycle,
+                 10, f"connected for cycle {cycle}")
+        self.board.write(data)
+        wait_for(lambda: source.status().events == sent, 10, f"cycle {cycle} read")
+        new = self._boards()  # made before the old one closes, so it gets a new device name
+        self.board.unplug()
+        wait_for(lambda: source.status().state == WAITING, 10, "unplug noticed")
+        point_link(self.link, new.name)
+        self.board = new
 
 
 class Recorder:
@@ -131,20 +94,11 @@ def kit() -> SimpleNamespace:
 
 
 @pytest.fixture
-def recorder(tmp_path: Path) -> Recorder:
-    return Recorder(tmp_path)
+def serial_run(tmp_path: Path, boards) -> Callable[..., SerialRun]:
+    """Make the `SerialRun` of this test, with these `SerialSource` options."""
+    return lambda **options: SerialRun(tmp_path, boards, **options)
 
 
 @pytest.fixture
-def boards():
-    """Make pty boards; the ones still plugged are unplugged at the end."""
-    made: list[PtyBoard] = []
-
-    def make() -> PtyBoard:
-        board = PtyBoard()
-        made.append(board)
-        return board
-
-    yield make
-    for board in made:
-        board.unplug()
+def recorder(tmp_path: Path) -> Recorder:
+    return Recorder(tmp_path)

@@ -14,12 +14,7 @@ from collections import Counter
 
 import pytest
 
-from drivers.serial import SerialSource
-from drivers.status import CONNECTED, READING, WAITING
 from drivers.wire import encode_event, encode_header
-from monitor.app.pipeline import Fanout
-from monitor.store import db
-from monitor.store.writer import StoreWriter
 
 
 def counts(kit, path, sent: int, sql: str = "SELECT raw_time FROM events") -> tuple[int, int, int]:
@@ -30,6 +25,7 @@ def counts(kit, path, sent: int, sql: str = "SELECT raw_time FROM events") -> tu
 
 @pytest.mark.parametrize("lines", [pytest.param(5_000, id="short"),
                                    pytest.param(50_000, id="long", marks=[pytest.mark.long, pytest.mark.timeout(900)])])
+@pytest.mark.slow  # three recorders in child processes
 def test_a_second_recorder_of_one_file_is_refused_and_a_killed_holder_is_taken_over(tmp_path, recorder, kit, lines):
     log = tmp_path / "box1.rsw"
     log.write_bytes(encode_header() + b"".join(encode_event(i, "lick") for i in range(lines)))
@@ -61,31 +57,16 @@ def test_a_second_recorder_of_one_file_is_refused_and_a_killed_holder_is_taken_o
 @pytest.mark.skipif(os.name != "posix", reason="pseudo-terminals are POSIX")
 @pytest.mark.parametrize("replugs", [pytest.param(5, id="short"),
                                      pytest.param(50, id="long", marks=[pytest.mark.long, pytest.mark.timeout(900)])])
-def test_a_board_without_header_loses_nothing_over_quick_replugs(tmp_path, boards, kit, replugs):
-    writer = StoreWriter(tmp_path / "store.sqlite3")
-    writer.start()
-    source_id = writer.call(lambda c: db.register_source(c, "serial", str(tmp_path / "rig"), "box1"))
-    session_id = writer.call(lambda c: db.start_session(c, source_id, "heron", "box1", "p", 1, None))
-    link = tmp_path / "rig"
-    board = boards()
-    kit.point_link(link, board.name)
+def test_a_board_without_header_loses_nothing_over_quick_replugs(serial_run, kit, replugs):
     # a native-USB board that does not reset: no header, and re-plugged faster than the 3 s header wait
-    source = SerialSource(str(link), Fanout(writer, source_id=source_id, session_id=session_id, live=True),
-                          wait_for_header=True)
+    run = serial_run(wait_for_header=True)
+    writer, source = run.writer, run.source
     source.start()
     sent = 0
     try:
         for cycle in range(replugs):
-            kit.wait_for(lambda n=cycle: source.status().state in (CONNECTED, READING) and source.status().gaps == n,
-                         10, f"connected for cycle {cycle}")
-            board.write(b"".join(encode_event(sent + i, "lick") for i in range(120)))
             sent += 120
-            kit.wait_for(lambda n=sent: source.status().events == n, 10, f"cycle {cycle} read")
-            new = boards()
-            board.unplug()
-            kit.wait_for(lambda: source.status().state == WAITING, 10, "unplug noticed")
-            kit.point_link(link, new.name)
-            board = new
+            run.replug_cycle(cycle, b"".join(encode_event(sent - 120 + i, "lick") for i in range(120)), sent)
     finally:
         source.stop()
     assert writer.stop(timeout=30), writer.status().text
@@ -98,6 +79,7 @@ def test_a_board_without_header_loses_nothing_over_quick_replugs(tmp_path, board
 
 @pytest.mark.parametrize("lines", [pytest.param(2_000, id="short"),
                                    pytest.param(50_000, id="long", marks=[pytest.mark.long, pytest.mark.timeout(900)])])
+@pytest.mark.slow  # record and import in child processes
 def test_a_crafted_clock_is_malformed_lines_and_record_and_import_store_the_rest(tmp_path, recorder, kit, lines):
     step = (1 << 61) - 1  # just under half a 62-bit period: each line pushes the unwrapped time forward
     crafted = encode_header(wrap=62) + b"".join(b"%d lick\n" % ((i * step) % (1 << 62)) for i in range(8))

@@ -15,12 +15,7 @@ from collections import Counter
 
 import pytest
 
-from drivers.serial import SerialSource
-from drivers.status import CONNECTED, READING, WAITING
 from drivers.wire import encode_event, encode_header
-from monitor.app.pipeline import Fanout
-from monitor.store import db
-from monitor.store.writer import StoreWriter
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="pseudo-terminals are POSIX")
 EVENTS_PER_CYCLE = 200
@@ -29,31 +24,17 @@ EVENTS_PER_CYCLE = 200
 @pytest.mark.slow
 @pytest.mark.parametrize("cycles", [pytest.param(5, id="short"),
                                     pytest.param(100, id="long", marks=[pytest.mark.long, pytest.mark.timeout(1800)])])
-def test_unplug_replug_cycles_lose_and_duplicate_nothing(tmp_path, boards, kit, cycles):
-    writer = StoreWriter(tmp_path / "store.sqlite3")
-    writer.start()
-    source_id = writer.call(lambda c: db.register_source(c, "serial", str(tmp_path / "rig-by-id"), "box1"))
-    session_id = writer.call(lambda c: db.start_session(c, source_id, "heron", "box1", "p", 1, None))
-    link = tmp_path / "rig-by-id"
-    board = boards()
-    kit.point_link(link, board.name)
-    source = SerialSource(str(link), Fanout(writer, source_id=source_id, session_id=session_id, live=True))
+def test_unplug_replug_cycles_lose_and_duplicate_nothing(serial_run, kit, cycles):
+    run = serial_run()
+    writer, source = run.writer, run.source
     source.start()
     sent = 0
     try:
         for cycle in range(cycles):
-            # "connected" is set after open() returned, i.e. after pyserial flushed the input
-            kit.wait_for(lambda n=cycle: source.status().state in (CONNECTED, READING) and source.status().gaps == n,
-                         10, f"connected for cycle {cycle}")
-            board.write(encode_header(fw="reliability") + b"".join(
-                encode_event(sent + i, "lever_down" if i % 2 else "lick") for i in range(EVENTS_PER_CYCLE)))
             sent += EVENTS_PER_CYCLE
-            kit.wait_for(lambda n=sent: source.status().events == n, 10, f"cycle {cycle} read")
-            new = boards()  # made before the old one closes, so it gets a new device name
-            board.unplug()
-            kit.wait_for(lambda: source.status().state == WAITING, 10, "unplug noticed")
-            kit.point_link(link, new.name)
-            board = new
+            run.replug_cycle(cycle, encode_header(fw="reliability") + b"".join(
+                encode_event(sent - EVENTS_PER_CYCLE + i, "lever_down" if i % 2 else "lick")
+                for i in range(EVENTS_PER_CYCLE)), sent)
         kit.wait_for(lambda: source.status().gaps == cycles, 10, "last re-plug")
     finally:
         source.stop()

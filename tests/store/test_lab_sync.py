@@ -215,6 +215,7 @@ def test_a_changed_row_is_sent_again_and_the_lab_report_follows(pcs, lab_url):
     assert lab == local and lab["animals"][0]["sessions"][1]["excluded"] is True
 
 
+@pytest.mark.slow  # a recorder writing while syncs run
 def test_a_sync_while_the_store_is_being_written_sends_every_row_once(pcs, lab_url):
     """Rows keep arriving (as from the window's writer) while a sync runs; a second sync catches the rest."""
     import threading

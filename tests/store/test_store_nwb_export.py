@@ -10,9 +10,9 @@ from pathlib import Path
 import pytest
 
 from mock_rig.history import cohort, write_history
-from monitor.app.cli import main
 from monitor.store import care_log, records
 from monitor.store.db import open_store
+from fixtures.devices import run_main as run_cli
 
 pynwb = pytest.importorskip("pynwb")
 nwbinspector = pytest.importorskip("nwbinspector")
@@ -24,15 +24,6 @@ institution = "University of Somewhere"
 lab = "Timing Lab"
 keywords = ["motor timing", "operant conditioning"]
 """
-
-
-def run_cli(capsys, *args) -> tuple[int, str, str]:
-    try:
-        code = main([str(a) for a in args])
-    except SystemExit as exc:
-        code = exc.code
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
 
 
 @pytest.fixture(scope="module")
@@ -66,6 +57,7 @@ def inspector_levels(path: Path) -> set[str]:
     return {m.importance.name for m in nwbinspector.inspect_nwbfile(nwbfile_path=str(path), config=config)}
 
 
+@pytest.mark.slow  # the NWB checker over every exported file
 def test_complete_records_pass_the_dandi_checker_and_carry_subject_session_and_trials(tmp_path, capsys, history):
     out, truth = history
     db = imported(capsys, tmp_path, out)
