@@ -188,7 +188,7 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
     """Profile over the variant: race every variant's candidates, then take every variant's best candidate to
     convergence (a variant far behind after its first steps can still hold the best optimum), the leader's
     first; a variant whose converged best is still ``race_margin`` behind goes no further.  The higher
-    optimum wins."""
+    optimum wins; only its variant's one-rate model goes on to convergence (the comparison needs no other)."""
     fits: dict[str, ModelFit] = {}
     raced: dict[str, tuple[ModelFit, list[ModelFit]]] = {}
     spent = 0
@@ -200,16 +200,17 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
         report((v_i + 1) / steps, f"{variant} variant: first {options.race_iter} steps")
     found_by: dict[str, list[ModelFit]] = {}
     for variant in sorted(options.variants, key=lambda v: -raced[v][1][0].loglike):
-        one, candidates = raced[variant]
+        candidates = raced[variant][1]
         top = max((f[0].loglike for f in found_by.values()), default=None)
         found, used = _converge_two_rate(prep, variant, candidates, options, cancel, top)
         found_by[variant], spent = found, spent + used
-        if top is None or found[0].loglike > top - options.race_margin:
-            fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options,
-                                                       cancel, rng, options.max_iter, spent=one.evaluations)
         fits[_key(variant, True)] = found[0]
         report((len(options.variants) + 1) / steps, f"{variant} variant to convergence")
     variant = max(found_by, key=lambda v: found_by[v][0].loglike)
+    # only the chosen variant's one-rate model is compared with its two-rate one: it alone goes on
+    one = raced[variant][0]
+    fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options, cancel,
+                                               rng, options.max_iter, spent=one.evaluations)
     others = sum(f.evaluations for v in found_by if v != variant for f in found_by[v])
     modes = _select_modes(prep, found_by[variant], spent + others, options, cancel)
     fits[_key(variant, True)] = modes[0]

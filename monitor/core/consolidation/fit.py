@@ -38,7 +38,7 @@ from monitor.core.consolidation.model import (
 
 THETA_BOUND = 9.0  # transformed parameters stay in [-9, 9] (ranges' ends to within ~1e-4)
 CURVATURE_FLOOR = 1e-2  # a flat direction still gets a variance of at most 100 on theta's scale
-FTOL = 1e-9  # relative change of the objective at which L-BFGS-B stops
+FTOL = 1e-8  # relative change of the objective at which L-BFGS-B stops (about 1e-4 log-likelihood units here)
 JOIN_DISTANCE = 0.3  # a run this close to a known optimum is converging onto it
 JOINED = "joined a known optimum"
 
