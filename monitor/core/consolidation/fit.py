@@ -15,9 +15,7 @@ otherwise the reason is kept.  Besides a central start and random ones,
 ``spread_starts`` gives a fixed, well-spread (scrambled Sobol) set over the
 box that a search screens on the cheap likelihood (its global stage).  Parameter uncertainty is the Laplace approximation N(theta_hat, H^-1)
 on the transformed scale; flat directions get a floor curvature so that their
-draws spread over the whole range (wide, never falsely narrow), centred on the
-box along those directions (where on a flat direction a search stopped is
-arbitrary: two routes to the same maximum may stop at different points of it).  Every
+draws spread over the whole range (wide, never falsely narrow).  Every
 likelihood evaluation checks the cancel callback.
 """
 from __future__ import annotations
@@ -248,14 +246,4 @@ def draw_thetas(fit: ModelFit, count: int, rng: np.random.Generator) -> np.ndarr
         vals, vecs = np.linalg.eigh(cov)
         root = vecs * np.sqrt(np.maximum(vals, 0.0))
     draws = fit.theta + rng.standard_normal((count, len(fit.theta))) @ root.T
-    if fit.cov_theta is not None:  # flat directions: centred on the box, wherever on them the optimum stopped
-        draws -= flat_projection(cov) @ fit.theta
     return np.clip(draws, -THETA_BOUND, THETA_BOUND)
-
-
-def flat_projection(cov: np.ndarray) -> np.ndarray:
-    """Projection onto the directions whose curvature was raised to the floor (the likelihood is flat along
-    them, so where a search stopped on them is arbitrary); unique whatever basis spans them."""
-    vals, vecs = np.linalg.eigh(cov)
-    flat = vecs[:, vals >= (1.0 - 1e-6) / CURVATURE_FLOOR]
-    return flat @ flat.T
