@@ -39,9 +39,9 @@ def test_race_keeps_the_best_and_never_loses_to_the_plain_multistart(prep):
 
 
 def test_the_one_rate_model_compared_is_at_its_maximum():
-    """Only the chosen variant's one-rate model is taken to convergence, and the search's runs stop at
-    FTOL: its optimum must still be one that scipy's Nelder-Mead (likelihood values only, none of our
-    gradient code) cannot raise by more than 0.05 log-likelihood units (well inside the AIC margin)."""
+    """Only the chosen variant's one-rate model goes on from its race to convergence: its optimum must be
+    one that scipy's Nelder-Mead (likelihood values only, none of our gradient code) cannot raise by more
+    than 0.05 log-likelihood units (well inside the AIC margin)."""
     from scipy.optimize import minimize
 
     from monitor.core.consolidation.analysis import Options, estimate_consolidation

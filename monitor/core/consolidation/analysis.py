@@ -55,6 +55,7 @@ class Options:
     starts: int = 4
     optimise: int = 1
     max_iter: int = 150
+    ftol: float = 1e-10  # a run to convergence stops below this relative change per step (raced runs: fit.FTOL)
     race_iter: int = 15
     race_margin: float = 50.0
     spread: int = 32  # Sobol-spread candidates screened by the likelihood (the global stage)
@@ -226,7 +227,7 @@ def _fit_one_rate(prep: Prepared, variant: str, warm: dict, options: Options, ca
     starts = cached + default_starts(False, options.starts, rng) + spread_starts(False, options.spread // 2,
                                                                                options.seed)
     if spent:  # going on from a raced optimum: it runs first, then the other starts are screened again
-        fit = fit_model(prep, variant, False, cached, 1, max_iter, cancel, False)
+        fit = fit_model(prep, variant, False, cached, 1, max_iter, cancel, False, ftol=options.ftol)
         return replace(fit, evaluations=fit.evaluations + spent)
     return fit_model(prep, variant, False, starts, options.optimise + 1, max_iter, cancel, False,
                      race=(max(1, options.race_iter // 3), options.race_margin))
@@ -268,7 +269,7 @@ def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], opti
         if raced[0].loglike - r.loglike >= options.race_margin:
             continue
         again = fit_model(prep, variant, True, [r.theta], 1, options.max_iter, cancel, False,
-                          tuple(f.theta for f in found))
+                          tuple(f.theta for f in found), ftol=options.ftol)
         if again.reason == JOINED:
             spent += again.evaluations
         else:
@@ -282,7 +283,8 @@ def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], opti
         spent += short.evaluations
         if short.reason == JOINED or found[0].loglike - short.loglike >= options.alt_margin:
             continue
-        again = fit_model(prep, variant, True, [short.theta], 1, options.max_iter, cancel, False, known)
+        again = fit_model(prep, variant, True, [short.theta], 1, options.max_iter, cancel, False, known,
+                          ftol=options.ftol)
         if again.reason == JOINED:
             spent += again.evaluations
         else:
@@ -296,7 +298,7 @@ def _refit_warm(prep: Prepared, warm: dict, options: Options, cancel, report: Pr
     or the two-rate optimum falls below the one-rate model it nests."""
     variant = warm["variant"]
     fits: dict[str, ModelFit] = {}
-    found = [fit_model(prep, variant, True, [np.asarray(t)], 1, options.max_iter, cancel, False)
+    found = [fit_model(prep, variant, True, [np.asarray(t)], 1, options.max_iter, cancel, False, ftol=options.ftol)
              for t in warm["modes"]]
     report(1 / steps, f"two-rate model, {variant} variant, from the cached fit")
     for other in options.variants:
@@ -308,7 +310,8 @@ def _refit_warm(prep: Prepared, warm: dict, options: Options, cancel, report: Pr
     modes = _select_modes(prep, found, 0, options, cancel)
     fits[_key(variant, True)] = modes[0]
     key = _key(variant, False)
-    fits[key] = fit_model(prep, variant, False, [np.asarray(warm[key])], 1, options.max_iter, cancel, False)
+    fits[key] = fit_model(prep, variant, False, [np.asarray(warm[key])], 1, options.max_iter, cancel, False,
+                          ftol=options.ftol)
     report((steps - 1) / steps, "one-rate model, from the cached fit")
     if modes[0].loglike < fits[key].loglike + 1.0:  # a poor optimum of the nesting model: refit cold
         return None
