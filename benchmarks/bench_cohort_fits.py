@@ -26,11 +26,6 @@ import tempfile
 import time
 from pathlib import Path
 
-try:
-    import resource  # POSIX: the child processes' CPU time
-except ImportError:  # Windows
-    resource = None
-
 from monitor.store.consolidation_fits import refit_in_process, worker_count
 
 
@@ -73,7 +68,9 @@ def timed_run(db: Path, names: list[str], workers: int, folder: Path,
 
 def _children_cpu() -> float:
     """CPU seconds of this process's finished child processes (NaN where the platform does not say)."""
-    if resource is None:
+    try:
+        import resource  # POSIX only
+    except ImportError:
         return float("nan")
     usage = resource.getrusage(resource.RUSAGE_CHILDREN)
     return usage.ru_utime + usage.ru_stime
