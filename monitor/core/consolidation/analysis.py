@@ -5,10 +5,13 @@ Rule: the search profiles over the fast state's driving signal ("error",
 the two-rate model's candidates (the one-rate solution with a small slow state,
 the nested model's basin, and the best of a Sobol-spread set screened on the
 likelihood alone, the global stage) run ``race_iter`` steps each; then every
-variant goes on to convergence (one-rate, and the two-rate candidates within
+variant goes on to convergence (the two-rate candidates within
 ``race_margin`` of that variant's best, the best optimum also from short and
-long break retentions), and the higher two-rate optimum wins.  The two-rate model
-counts as constraining the split only when it beats the one-rate model of the
+long break retentions), and the higher two-rate optimum wins; only its
+variant's one-rate model goes on to convergence.  Runs to convergence stop at
+a relative change of ``ftol`` per step (tight: along a flat direction every
+route then ends at the same point), raced runs at ``fit.FTOL``.  The two-rate
+model counts as constraining the split only when it beats the one-rate model of the
 same variant by AIC(one) - AIC(two) >= ``aic_margin`` (10 by default: the
 one-rate model then has essentially no support), and a refit whose cached fit
 was "estimated" keeps that until the difference falls below ``aic_margin -
