@@ -4,15 +4,22 @@ Writes an 8-animal x 30-day `mock_rig history` cohort, imports it without fits
 into a temporary store, then fits every animal from no cached fit (a fresh copy
 of the store for each run): once with one child process (the fits one after
 another: their sum), once with `refit_in_process`'s default (one child per core,
-one BLAS thread each).  Prints both wall times, the per-animal times of the
-serial run, and the ratio parallel / serial (goal on 2 cores: <= 0.6).
-Run: python benchmarks/bench_cohort_fits.py [--animals 8 --days 30 --seed 5]
+one BLAS thread each), the two alternating ``--repeats`` times so that both see
+the same load.  Per run it prints the wall time, the CPU seconds of its child
+processes and the load average before it; per pair the ratio parallel / serial
+(goal on 2 cores: <= 0.6) and their median; and the schedule's own bound: the
+wall time the shared queue would give if every animal took its serial time
+(what the ratio would be on an otherwise idle machine), against which the
+measured ratio shows what the machine's other load took.
+Run: python benchmarks/bench_cohort_fits.py [--animals 8 --days 30 --seed 5 --repeats 2]
 """
 from __future__ import annotations
 
 import argparse
+import heapq
 import os
 import shutil
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -37,10 +44,13 @@ def make_store(folder: Path, animals: int, days: int, seed: int) -> tuple[Path, 
     return db, names
 
 
-def timed_run(db: Path, names: list[str], workers: int, folder: Path, tag: str) -> tuple[float, dict[str, float]]:
-    """Wall time of fitting `names` from a fresh copy of the store (no cached fit), and each animal's time."""
+def timed_run(db: Path, names: list[str], workers: int, folder: Path,
+              tag: str) -> tuple[float, float, dict[str, float]]:
+    """Wall time of fitting `names` from a fresh copy of the store (no cached fit), the CPU seconds of the
+    child processes, and each animal's time."""
     copy = folder / f"{tag}.sqlite3"
     shutil.copy(db, copy)
+    cpu = _children_cpu()
     started, done = time.perf_counter(), {}
     last = [started]
 
@@ -52,7 +62,26 @@ def timed_run(db: Path, names: list[str], workers: int, folder: Path, tag: str) 
             print(f"  {animal}: failed ({error})", file=sys.stderr)
 
     refit_in_process(copy, names, finished=finished, workers=workers)
-    return time.perf_counter() - started, done
+    wall = time.perf_counter() - started
+    return wall, _children_cpu() - cpu, done
+
+
+def _children_cpu() -> float:
+    """CPU seconds of this process's finished child processes (NaN where the platform does not say)."""
+    try:
+        import resource  # POSIX only
+    except ImportError:
+        return float("nan")
+    usage = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return usage.ru_utime + usage.ru_stime
+
+
+def queue_bound(times: list[float], workers: int) -> float:
+    """Wall time of a shared queue (each worker takes the next item when free) if item i took times[i]."""
+    free = [0.0] * workers
+    for seconds in times:
+        heapq.heappush(free, heapq.heappop(free) + seconds)
+    return max(free)
 
 
 def main() -> None:
@@ -60,20 +89,32 @@ def main() -> None:
     parser.add_argument("--animals", type=int, default=8)
     parser.add_argument("--days", type=int, default=30)
     parser.add_argument("--seed", type=int, default=5)
+    parser.add_argument("--repeats", type=int, default=2, help="serial/parallel pairs, alternating")
     args = parser.parse_args()
+    ratios, bounds = [], []
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         db, names = make_store(folder, args.animals, args.days, args.seed)
         cores = worker_count(len(names))
-        serial, each = timed_run(db, names, 1, folder, "serial")
-        parallel, ends = timed_run(db, names, cores, folder, "parallel")
-    print(f"{len(names)} animals x {args.days} days (mock_rig history, seed {args.seed}); "
-          f"{os.cpu_count()} cores, load {os.getloadavg()[0]:.1f}")
-    print("serial, one child process, per animal (s): " + ", ".join(f"{each[n]:.2f}" for n in names))
-    print(f"serial (the sum of the single fits): {serial:.2f} s")
-    print(f"parallel, {cores} child processes, one BLAS thread each: {parallel:.2f} s; animals done at (s): "
-          + ", ".join(f"{ends[n]:.2f}" for n in sorted(names, key=ends.get)))
-    print(f"ratio parallel / serial: {parallel / serial:.2f} (goal <= 0.6 on 2 cores)")
+        print(f"{len(names)} animals x {args.days} days (mock_rig history, seed {args.seed}); {os.cpu_count()} cores")
+        for run in range(args.repeats):
+            load = os.getloadavg()[0]
+            serial, serial_cpu, each = timed_run(db, names, 1, folder, f"serial{run}")
+            print(f"run {run + 1}: serial, one child process (load {load:.1f}): {serial:.2f} s wall, "
+                  f"{serial_cpu:.2f} s CPU; per animal (s): " + ", ".join(f"{each[n]:.2f}" for n in names))
+            load = os.getloadavg()[0]
+            parallel, parallel_cpu, ends = timed_run(db, names, cores, folder, f"parallel{run}")
+            print(f"run {run + 1}: parallel, {cores} child processes, one BLAS thread each (load {load:.1f}): "
+                  f"{parallel:.2f} s wall, {parallel_cpu:.2f} s CPU; animals done at (s): "
+                  + ", ".join(f"{ends[n]:.2f}" for n in sorted(names, key=ends.get)))
+            bound = queue_bound([each[n] for n in names], cores) / serial
+            ratios.append(parallel / serial)
+            bounds.append(bound)
+            print(f"run {run + 1}: ratio parallel / serial {ratios[-1]:.2f}; the queue's bound with the serial "
+                  f"per-animal times {bound:.2f}")
+    print(f"ratio parallel / serial: median {statistics.median(ratios):.2f} over {len(ratios)} pairs "
+          f"({', '.join(f'{r:.2f}' for r in ratios)}); goal <= 0.6 on 2 cores; the queue's bound "
+          + ", ".join(f"{b:.2f}" for b in bounds))
 
 
 if __name__ == "__main__":

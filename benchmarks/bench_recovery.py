@@ -8,8 +8,10 @@ trial) is compared with it.  Per animal it prints the fitted two-rate
 log-likelihood minus the log-likelihood of the generating variant's model at
 the generating parameters (mock_rig's a_fast, b_fast or b_outcome, transfer,
 a_slow, fast break tau; no state noise; offsets and noise scale profiled), the
-variant chosen and the gap between the two variants' optima (both fitted to
-convergence).  Per regime: the coverage of the 90 % interval over animals x
+variant chosen, the gap between the two variants' optima (both fitted to
+convergence), the fit's seconds and its likelihood evaluations (most with the
+exact gradient: the figure of the search's cost that the machine's load does
+not move).  Per regime: the coverage of the 90 % interval over animals x
 sessions (all of them, and "cov.est": only sessions whose status is
 "estimated"), among "estimated" end-of-training checkpoints the median and
 largest absolute error, the share "estimated" at plateau + 10 sessions
@@ -130,10 +132,10 @@ def main() -> None:
     parser.add_argument("--quiet", action="store_true", help="the regime table only")
     args = parser.parse_args()
     options = Options()
-    rows, worst_gap, wrong_variant = [], np.inf, 0
+    rows, worst_gap, wrong_variant, evaluations = [], np.inf, 0, []
     if not args.quiet:
         print(f"{'regime':26s} {'#':>2s} {'drive':7s} {'chosen':7s} {'fit-truth':>9s} {'var.gap':>8s} "
-              f"{'end est':>7s} {'truth':>5s} {'status':16s} {'s':>5s}")
+              f"{'end est':>7s} {'truth':>5s} {'status':16s} {'s':>5s} {'evals':>5s}")
     for name in args.regimes:
         regime = REGIMES[name]
         covered, confident, end_errors, at_plus10, widths, words, spent = [], [], [], [], [], Counter(), 0.0
@@ -163,14 +165,17 @@ def main() -> None:
             var_gap = lls.get(params.drive, np.nan) - max(v for k, v in lls.items() if k != params.drive)
             chosen = res.two_rate.variant if res.two_rate else "-"
             worst_gap = min(worst_gap, gap)
+            evaluations.append(res.evaluations)
             wrong_variant += bool(abs(var_gap) > 4 and (var_gap > 0) != (chosen == params.drive))
             if not args.quiet:
                 print(f"{name:26s} {animal:2d} {params.drive:7s} {chosen:7s} {gap:9.2f} {var_gap:8.2f} "
-                      f"{est[-1]:7.2f} {truth[-1]:5.2f} {status[-1]:16s} {time.perf_counter() - t0:5.1f}",
+                      f"{est[-1]:7.2f} {truth[-1]:5.2f} {status[-1]:16s} {time.perf_counter() - t0:5.1f} "
+                      f"{res.evaluations:5d}",
                       flush=True)
         rows.append((name, regime, covered, confident, end_errors, at_plus10, widths, words, spent))
     print(f"\n{args.animals} animals per regime; worst fit - truth log-likelihood {worst_gap:.2f}; "
-          f"wrong variant where the optima differ by > 4: {wrong_variant}")
+          f"wrong variant where the optima differ by > 4: {wrong_variant}; likelihood evaluations per fit: "
+          f"median {np.median(evaluations):.0f}, total {sum(evaluations)}")
     print(f"{'regime':26s} {'kind':9s} {'cover':>5s} {'c.est':>5s} {'MAE end':>7s} {'max end':>7s} "
           f"{'est@p+10':>8s} {'width':>5s} {'s/fit':>5s}  status")
     for name, regime, covered, confident, end_errors, at_plus10, widths, words, spent in rows:

@@ -1,4 +1,5 @@
-"""Search shortcuts of the fitter: a run that joins a known optimum stops; a raced start far behind is dropped."""
+"""Search shortcuts of the fitter: a run that joins a known optimum stops; a raced start far behind is dropped;
+the one-rate model compared is still at its maximum."""
 
 from __future__ import annotations
 
@@ -35,3 +36,27 @@ def test_race_keeps_the_best_and_never_loses_to_the_plain_multistart(prep):
     raced = fit_model(prep, "error", False, starts, 2, 150, None, False, race=(5, 50.0))
     assert raced.converged, raced.reason
     assert raced.loglike >= plain.loglike - 1e-3
+
+
+def test_the_one_rate_model_compared_is_at_its_maximum():
+    """Only the chosen variant's one-rate model goes on from its race to convergence: its optimum must be
+    one that scipy's Nelder-Mead (likelihood values only, none of our gradient code) cannot raise by more
+    than 0.05 log-likelihood units (well inside the AIC margin)."""
+    from scipy.optimize import minimize
+
+    from monitor.core.consolidation.analysis import Options, estimate_consolidation
+    from monitor.core.consolidation.fit import Objective
+
+    rng = np.random.default_rng(7)
+    series = simulate(TRUTH, rng.integers(120, 160, 8), rng.choice([22.0, 48.0, 70.0], 8), rng, warmup=-0.2).series
+    options = Options(min_trials=500, draws=8, state_draws=8)
+    res = estimate_consolidation(series, options)
+    one = res.one_rate
+    assert one is not None and one.variant == res.two_rate.variant
+    objective = Objective(prepare(series), one.variant, False, None)
+    theta = one.theta
+    assert -objective(theta) == pytest.approx(one.loglike, abs=1e-6)
+    polished = minimize(objective, theta, method="Nelder-Mead",
+                        options={"xatol": 1e-6, "fatol": 1e-9, "maxfev": 4000, "initial_simplex":
+                                 theta + np.vstack([np.zeros(4), 0.05 * np.eye(4)])})
+    assert -polished.fun - one.loglike <= 0.05

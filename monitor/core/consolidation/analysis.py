@@ -5,10 +5,13 @@ Rule: the search profiles over the fast state's driving signal ("error",
 the two-rate model's candidates (the one-rate solution with a small slow state,
 the nested model's basin, and the best of a Sobol-spread set screened on the
 likelihood alone, the global stage) run ``race_iter`` steps each; then every
-variant goes on to convergence (one-rate, and the two-rate candidates within
+variant goes on to convergence (the two-rate candidates within
 ``race_margin`` of that variant's best, the best optimum also from short and
-long break retentions), and the higher two-rate optimum wins.  The two-rate model
-counts as constraining the split only when it beats the one-rate model of the
+long break retentions), and the higher two-rate optimum wins; only its
+variant's one-rate model goes on to convergence.  Runs to convergence stop at
+a relative change of ``ftol`` per step (tight: along a flat direction every
+route then ends at the same point), raced runs at ``fit.FTOL``.  The two-rate
+model counts as constraining the split only when it beats the one-rate model of the
 same variant by AIC(one) - AIC(two) >= ``aic_margin`` (10 by default: the
 one-rate model then has essentially no support), and a refit whose cached fit
 was "estimated" keeps that until the difference falls below ``aic_margin -
@@ -55,6 +58,7 @@ class Options:
     starts: int = 4
     optimise: int = 1
     max_iter: int = 150
+    ftol: float = 1e-10  # a run to convergence stops below this relative change per step (raced runs: fit.FTOL)
     race_iter: int = 15
     race_margin: float = 50.0
     spread: int = 32  # Sobol-spread candidates screened by the likelihood (the global stage)
@@ -188,7 +192,7 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
     """Profile over the variant: race every variant's candidates, then take every variant's best candidate to
     convergence (a variant far behind after its first steps can still hold the best optimum), the leader's
     first; a variant whose converged best is still ``race_margin`` behind goes no further.  The higher
-    optimum wins."""
+    optimum wins; only its variant's one-rate model goes on to convergence (the comparison needs no other)."""
     fits: dict[str, ModelFit] = {}
     raced: dict[str, tuple[ModelFit, list[ModelFit]]] = {}
     spent = 0
@@ -200,16 +204,17 @@ def _fit_cold(prep: Prepared, warm: dict, options: Options, cancel, report: Prog
         report((v_i + 1) / steps, f"{variant} variant: first {options.race_iter} steps")
     found_by: dict[str, list[ModelFit]] = {}
     for variant in sorted(options.variants, key=lambda v: -raced[v][1][0].loglike):
-        one, candidates = raced[variant]
+        candidates = raced[variant][1]
         top = max((f[0].loglike for f in found_by.values()), default=None)
         found, used = _converge_two_rate(prep, variant, candidates, options, cancel, top)
         found_by[variant], spent = found, spent + used
-        if top is None or found[0].loglike > top - options.race_margin:
-            fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options,
-                                                       cancel, rng, options.max_iter, spent=one.evaluations)
         fits[_key(variant, True)] = found[0]
         report((len(options.variants) + 1) / steps, f"{variant} variant to convergence")
     variant = max(found_by, key=lambda v: found_by[v][0].loglike)
+    # only the chosen variant's one-rate model is compared with its two-rate one: it alone goes on
+    one = raced[variant][0]
+    fits[_key(variant, False)] = _fit_one_rate(prep, variant, {_key(variant, False): one.theta}, options, cancel,
+                                               rng, options.max_iter, spent=one.evaluations)
     others = sum(f.evaluations for v in found_by if v != variant for f in found_by[v])
     modes = _select_modes(prep, found_by[variant], spent + others, options, cancel)
     fits[_key(variant, True)] = modes[0]
@@ -225,7 +230,7 @@ def _fit_one_rate(prep: Prepared, variant: str, warm: dict, options: Options, ca
     starts = cached + default_starts(False, options.starts, rng) + spread_starts(False, options.spread // 2,
                                                                                options.seed)
     if spent:  # going on from a raced optimum: it runs first, then the other starts are screened again
-        fit = fit_model(prep, variant, False, cached, 1, max_iter, cancel, False)
+        fit = fit_model(prep, variant, False, cached, 1, max_iter, cancel, False, ftol=options.ftol)
         return replace(fit, evaluations=fit.evaluations + spent)
     return fit_model(prep, variant, False, starts, options.optimise + 1, max_iter, cancel, False,
                      race=(max(1, options.race_iter // 3), options.race_margin))
@@ -267,7 +272,7 @@ def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], opti
         if raced[0].loglike - r.loglike >= options.race_margin:
             continue
         again = fit_model(prep, variant, True, [r.theta], 1, options.max_iter, cancel, False,
-                          tuple(f.theta for f in found))
+                          tuple(f.theta for f in found), ftol=options.ftol)
         if again.reason == JOINED:
             spent += again.evaluations
         else:
@@ -281,7 +286,8 @@ def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], opti
         spent += short.evaluations
         if short.reason == JOINED or found[0].loglike - short.loglike >= options.alt_margin:
             continue
-        again = fit_model(prep, variant, True, [short.theta], 1, options.max_iter, cancel, False, known)
+        again = fit_model(prep, variant, True, [short.theta], 1, options.max_iter, cancel, False, known,
+                          ftol=options.ftol)
         if again.reason == JOINED:
             spent += again.evaluations
         else:
@@ -295,7 +301,7 @@ def _refit_warm(prep: Prepared, warm: dict, options: Options, cancel, report: Pr
     or the two-rate optimum falls below the one-rate model it nests."""
     variant = warm["variant"]
     fits: dict[str, ModelFit] = {}
-    found = [fit_model(prep, variant, True, [np.asarray(t)], 1, options.max_iter, cancel, False)
+    found = [fit_model(prep, variant, True, [np.asarray(t)], 1, options.max_iter, cancel, False, ftol=options.ftol)
              for t in warm["modes"]]
     report(1 / steps, f"two-rate model, {variant} variant, from the cached fit")
     for other in options.variants:
@@ -307,7 +313,8 @@ def _refit_warm(prep: Prepared, warm: dict, options: Options, cancel, report: Pr
     modes = _select_modes(prep, found, 0, options, cancel)
     fits[_key(variant, True)] = modes[0]
     key = _key(variant, False)
-    fits[key] = fit_model(prep, variant, False, [np.asarray(warm[key])], 1, options.max_iter, cancel, False)
+    fits[key] = fit_model(prep, variant, False, [np.asarray(warm[key])], 1, options.max_iter, cancel, False,
+                          ftol=options.ftol)
     report((steps - 1) / steps, "one-rate model, from the cached fit")
     if modes[0].loglike < fits[key].loglike + 1.0:  # a poor optimum of the nesting model: refit cold
         return None

@@ -38,7 +38,7 @@ from monitor.core.consolidation.model import (
 
 THETA_BOUND = 9.0  # transformed parameters stay in [-9, 9] (ranges' ends to within ~1e-4)
 CURVATURE_FLOOR = 1e-2  # a flat direction still gets a variance of at most 100 on theta's scale
-FTOL = 1e-9  # relative change of the objective at which L-BFGS-B stops
+FTOL = 1e-8  # relative change of the objective at which L-BFGS-B stops by default (about 1e-4 units here)
 JOIN_DISTANCE = 0.3  # a run this close to a known optimum is converging onto it
 JOINED = "joined a known optimum"
 
@@ -157,6 +157,7 @@ def fit_model(
     curvature: bool = True,
     known: tuple[np.ndarray, ...] = (),
     race: tuple[int, float] | None = None,
+    ftol: float = FTOL,
 ) -> ModelFit:
     """Screen all starts by likelihood, optimise the best ``optimise`` of them, keep the best.
 
@@ -166,7 +167,8 @@ def fit_model(
     With ``curvature`` the Laplace covariance is computed too (see :func:`with_curvature`).
     ``known``: optima already found (and those of earlier starts here); a run whose iterate
     comes within ``JOIN_DISTANCE`` of one (max-norm on the transformed scale) stops there,
-    and when no other run is kept the fit carries the reason ``JOINED``.
+    and when no other run is kept the fit carries the reason ``JOINED``.  ``ftol``: the relative change
+    of the likelihood per step at which a run stops.
     """
     from scipy.optimize import minimize
 
@@ -184,7 +186,7 @@ def fit_model(
     def run(start: np.ndarray, steps: int):
         return minimize(obj.value_and_grad, np.asarray(start, float), jac=True, method="L-BFGS-B",
                         bounds=bounds, callback=watch if known else None,
-                        options={"maxiter": steps, "maxfun": 2 * steps + 5, "ftol": FTOL, "gtol": 1e-3})
+                        options={"maxiter": steps, "maxfun": 2 * steps + 5, "ftol": ftol, "gtol": 1e-3})
 
     chosen = screened[:optimise]
     if race is not None and len(chosen) > 1:
