@@ -15,6 +15,9 @@ animal is the mapping's `animal` column, else `--animal`, else the file name
 header's `start=` (+ device time when it begins inside a segment) or the
 mapped wall-time column; without either, the file's modification time, and a
 notice row says so. The trials of each session are derived as it is stored.
+Records become rows through monitor.store.rows, as in the live writer;
+`parse_file` does all of that without the database (worker processes), and
+`store_parsed` only inserts what it made.
 """
 
 from __future__ import annotations
@@ -28,10 +31,11 @@ from datetime import datetime, timedelta
 from pathlib import Path
 from typing import Any
 
-from drivers.wire import Comment, Event, Header, Malformed, Record, WireDecoder
+from drivers.wire import Event, Header, Malformed, Record, WireDecoder
 from monitor.store.derive import derive_events, store_trials, trial_row
 from monitor.store.records import ensure_animal, ensure_protocol
-from monitor.store.schema import FIRST_UNKNOWN_CODE
+from monitor.store.rows import Codes, insert_rows, recode, session_rows
+from monitor.store.schema import KNOWN_EVENT_CODES
 
 GAP_S = 2 * 3600.0  # a pause longer than this between two events of one animal starts a new session
 PRESSES = frozenset({"lever_down", "lever_up", "joystick", "trial_start", "outcome"})
@@ -221,8 +225,8 @@ class ParsedSession:
     rig: str | None
     start_device_us: int | None
     ended_at: float | None
-    events: list[tuple]  # (segment, line, t_us, raw_time, event word, value, wall)
-    raw: list[tuple]  # (line, byte offset, kind, reason, raw bytes)
+    events: list[tuple]  # event rows (monitor.store.rows), codes from the file's `codes`
+    raw: list[tuple]  # raw-line rows
     malformed: int
     trial_rows: list[tuple] | None  # derive.trial_row values; None without a protocol
     counts: dict[str, int]
@@ -239,13 +243,16 @@ class ParsedFile:
     mapped: bool
     sessions: list[ParsedSession]
     notices: list[str]
+    codes: Codes  # the store's codes when parsed, and provisional ones for words it had none for
 
 
 def parse_file(path: Path, data: bytes, *, protocol_text: str, animal: str | None = None, mapping: Any = None,
-               gap_s: float = GAP_S, calibrations: dict[str, float] | None = None) -> ParsedFile:
-    """Decode, split into sessions and derive the trials of one file, without the database (the module rule).
+               gap_s: float = GAP_S, calibrations: dict[str, float] | None = None,
+               codes: dict[str, int] | None = None) -> ParsedFile:
+    """Decode, split into sessions, make the rows and derive the trials of one file, without the database.
 
-    `calibrations` maps rig names to valve µL per ms (the store's rigs), for water from `valve` events."""
+    `calibrations` maps rig names to valve µL per ms (the store's rigs), for water from `valve` events;
+    `codes` maps event words to the store's codes (`event_codes`; default: the known words only)."""
     if mapping is None:
         decoder: Any = WireDecoder()
     else:
@@ -260,26 +267,17 @@ def parse_file(path: Path, data: bytes, *, protocol_text: str, animal: str | Non
     for record in records:
         splitter.add(record)
     mtime = datetime.fromtimestamp(path.stat().st_mtime).astimezone() if path.exists() else datetime.now().astimezone()
-    sessions = [_parse_session(s, protocol_text, (calibrations or {}).get(s.rig or "import"))
+    table = Codes(KNOWN_EVENT_CODES if codes is None else codes)
+    sessions = [_parse_session(s, protocol_text, (calibrations or {}).get(s.rig or "import"), table)
                 for s in splitter.finish(mtime)]
-    return ParsedFile(str(path), file_digest(data), len(data), mapping is not None, sessions, splitter.notices)
+    return ParsedFile(str(path), file_digest(data), len(data), mapping is not None, sessions, splitter.notices,
+                      table)
 
 
-def _parse_session(session: _Session, protocol_text: str, valve_ul_per_ms: float | None) -> ParsedSession:
+def _parse_session(session: _Session, protocol_text: str, valve_ul_per_ms: float | None,
+                   codes: Codes) -> ParsedSession:
     assert session.start is not None
-    events, raw = [], []
-    for r in session.records:
-        kind = type(r)
-        if kind is Event:
-            events.append((r.segment, r.line, r.t_us, r.raw_time, r.name, " ".join(r.args) if r.args else None,
-                           r.wall_time))
-        elif kind is Malformed:
-            raw.append((r.line, r.offset, "malformed", r.reason, bytes(r.raw)))
-        elif kind is Header:
-            text = " ".join([f"# rigside-wire {r.version}", *(f"{k}={v}" for k, v in r.fields.items())])
-            raw.append((r.line, r.offset, "header", None, text.encode("ascii", "replace")))
-        elif kind is Comment:
-            raw.append((r.line, r.offset, "comment", None, r.text.encode("utf-8", "surrogateescape")))
+    events, raw = session_rows(session.records, codes)
     trial_rows, counts, water = None, {"no_protocol": 1}, None
     if protocol_text:  # imported sessions start with no stage: the protocol's own default
         trials, counts, water = derive_events(protocol_text, None, valve_ul_per_ms,
@@ -296,7 +294,7 @@ def import_file(conn: sqlite3.Connection, path: Path, data: bytes, *, protocol_t
     """Store one file's sessions in the caller's transaction (BEGIN IMMEDIATE); see the module rule."""
     refuse_if_imported(conn, path, file_digest(data))
     parsed = parse_file(path, data, protocol_text=protocol_text, animal=animal, mapping=mapping, gap_s=gap_s,
-                        calibrations=rig_calibrations(conn))
+                        calibrations=rig_calibrations(conn), codes=event_codes(conn))
     return store_parsed(conn, parsed, protocol_text=protocol_text, protocol_name=protocol_name,
                         protocol_version=protocol_version, mapping_text=mapping_text)
 
@@ -308,6 +306,11 @@ def refuse_if_imported(conn: sqlite3.Connection, path: Path, digest: str) -> Non
         when = datetime.fromtimestamp(earlier[1]).astimezone().isoformat(timespec="seconds")
         raise ImportRefused(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
                             "nothing was changed")
+
+
+def event_codes(conn: sqlite3.Connection) -> dict[str, int]:
+    """The store's event words and their codes."""
+    return dict(conn.execute("SELECT name, code FROM event_codes"))
 
 
 def rig_calibrations(conn: sqlite3.Connection) -> dict[str, float]:
@@ -328,11 +331,11 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
         (parsed.path, parsed.digest, parsed.size, "mapped" if parsed.mapped else "wire", mapping_text, time.time(),
          len(sessions), total_events, total_malformed)).lastrowid
     protocol_id = ensure_protocol(conn, protocol_name, protocol_version, protocol_text)
-    codes = dict(conn.execute("SELECT name, code FROM event_codes"))
+    remap = parsed.codes.settle(conn)  # words new to the store since the file was parsed
     trials = 0
     for session in sessions:
         trials += _store_session(conn, session, import_id, protocol_id, protocol_name, protocol_version,
-                                 protocol_text, codes)
+                                 protocol_text, remap)
     if parsed.notices and sessions:
         first = conn.execute("SELECT min(id) FROM sessions WHERE import_id = ?", (import_id,)).fetchone()[0]
         conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
@@ -342,17 +345,8 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
                     tuple(sorted({s.animal for s in sessions})))
 
 
-def _code(conn: sqlite3.Connection, codes: dict[str, int], name: str) -> int:
-    code = codes.get(name)
-    if code is None:
-        code = max([FIRST_UNKNOWN_CODE - 1, *codes.values()]) + 1
-        conn.execute("INSERT INTO event_codes (code, name, known) VALUES (?, ?, 0)", (code, name))
-        codes[name] = code
-    return code
-
-
 def _store_session(conn: sqlite3.Connection, session: ParsedSession, import_id: int, protocol_id: int,
-                   protocol_name: str, protocol_version: int, protocol_text: str, codes: dict[str, int]) -> int:
+                   protocol_name: str, protocol_version: int, protocol_text: str, remap: dict[int, int]) -> int:
     animal_id = ensure_animal(conn, session.animal)
     session_id = conn.execute(
         "INSERT INTO sessions (source_id, animal, rig, protocol_name, protocol_version, protocol_text, started_at, "
@@ -361,15 +355,10 @@ def _store_session(conn: sqlite3.Connection, session: ParsedSession, import_id: 
         (session.animal, session.rig or "import", protocol_name, protocol_version, protocol_text,
          session.start.timestamp(), session.ended_at, session.start.isoformat(timespec="seconds"), animal_id,
          protocol_id, import_id, session.label, session.start_device_us)).lastrowid
-    events = [(session_id, segment, line, t_us, raw_time, codes[name] if name in codes else _code(conn, codes, name),
-               value, wall) for segment, line, t_us, raw_time, name, value, wall in session.events]
+    events = recode(session.events, remap)
     before = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
-    conn.executemany("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
-                     "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", events)
+    insert_rows(conn, session_id, events, session.raw)
     after = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
-    if session.raw:
-        conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
-                         "VALUES (?, ?, ?, ?, ?, ?)", [(session_id, *row) for row in session.raw])
     if events:
         conn.execute("UPDATE sessions SET first_event = ?, last_event = ? WHERE id = ?", (before + 1, after, session_id))
     if session.trial_rows is None:

@@ -64,7 +64,8 @@ def run(args: argparse.Namespace) -> int:
     from monitor.app.commands.record import _read_protocol
     from monitor.app.progress import Progress
     from monitor.store.db import StoreError, open_store
-    from monitor.store.importer import ImportRefused, already_imported, file_digest, rig_calibrations, store_parsed
+    from monitor.store.importer import (ImportRefused, already_imported, event_codes, file_digest, rig_calibrations,
+                                        store_parsed)
     from monitor.store.reporting import refresh_cache
 
     if not args.gap_hours > 0:
@@ -121,7 +122,7 @@ def run(args: argparse.Namespace) -> int:
         animals: set[str] = set()
         totals = [0, 0, 0, 0]
         parsed_files = _parse_all(contents, protocol["text"], args.animal, mapping, args.gap_hours * 3600.0,
-                                  rig_calibrations(conn), args.jobs)
+                                  rig_calibrations(conn), event_codes(conn), args.jobs)
         interrupted = False
         with Progress(len(contents), "file", "importing", quiet=args.quiet) as progress:
             try:
@@ -182,7 +183,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: str | None, mapping: Any,
-               gap_s: float, calibrations: dict[str, float], jobs: int) -> Iterator[Any]:
+               gap_s: float, calibrations: dict[str, float], codes: dict[str, int], jobs: int) -> Iterator[Any]:
     """Each file parsed (decoded, split, trials derived), in the order given.
 
     Several files are parsed side by side in worker processes (`jobs`, 0 = one per core) while this
@@ -190,7 +191,7 @@ def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: s
     from monitor.store.importer import parse_file
 
     options = {"protocol_text": protocol_text, "animal": animal, "mapping": mapping, "gap_s": gap_s,
-               "calibrations": calibrations}
+               "calibrations": calibrations, "codes": codes}
     if jobs == 0:  # a worker costs about half a second to start: worth it only for a few MB of files
         jobs = os.cpu_count() or 1 if sum(len(data) for _, data in contents) >= PARALLEL_BYTES else 1
     jobs = min(jobs, len(contents))
