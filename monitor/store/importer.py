@@ -27,7 +27,7 @@ import re
 import sqlite3
 import time
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Any
 
@@ -40,6 +40,7 @@ from monitor.store.schema import KNOWN_EVENT_CODES
 GAP_S = 2 * 3600.0  # a pause longer than this between two events of one animal starts a new session
 PRESSES = frozenset({"lever_down", "lever_up", "joystick", "trial_start", "outcome"})
 _FILE_ANIMAL = re.compile(r"^(?P<animal>.+?)_s\d+$")
+_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
 
 
 class ImportRefused(Exception):
@@ -58,8 +59,9 @@ class _Session:
     malformed: int = 0
     pressed: bool = False
     ended: bool = False
-    last_t: tuple[int, int] | None = None  # (segment, t_us) of the last event
-    last_wall: datetime | None = None
+    last_segment: int | None = None  # clock segment and device µs of the last event
+    last_t_us: int = 0
+    last_wall_us: int | None = None  # wall time of the last event that has one, µs since the epoch
 
 
 @dataclass(frozen=True)
@@ -102,6 +104,7 @@ class _Splitter:
         self.current: dict[tuple[str, str | None], _Session] = {}
         self.last: _Session | None = None
         self.segment_start: dict[int, datetime] = {}
+        self.segment_start_us: dict[int, int] = {}  # the same, µs since the epoch (cheap per event)
         self.segment_rig: dict[int, str] = {}
         self.pending: list[Record] = []  # records before any session exists
         self.begun: set[int] = set()  # segments whose first event has been seen
@@ -114,15 +117,17 @@ class _Splitter:
                                 "name is not NAME_sNN): give --animal")
         return name
 
-    def _wall(self, event: Event) -> datetime | None:
+    def _moment(self, event: Event, first: bool) -> datetime | None:
+        """The event's wall time with its offset: mapped, the header's start= (a segment's first event), or
+        start= plus its device time."""
         if event.wall_time:
             return datetime.fromisoformat(event.wall_time)
         start = self.segment_start.get(event.segment)
-        return None if start is None else start + timedelta(microseconds=event.t_us)
+        return start if start is None or first else start + timedelta(microseconds=event.t_us)
 
-    def _new(self, key: tuple[str, str | None], event: Event, wall: datetime | None, origin: int) -> _Session:
+    def _new(self, key: tuple[str, str | None], event: Event, first: bool, origin: int) -> _Session:
         label = key[1] if key[1] is not None else f"{self.path.name}#{sum(s.animal == key[0] for s in self.sessions) + 1}"
-        session = _Session(key[0], label, wall, self.segment_rig.get(event.segment), origin)
+        session = _Session(key[0], label, self._moment(event, first), self.segment_rig.get(event.segment), origin)
         if not self.sessions and self.pending:
             session.records.extend(self.pending)
             session.malformed += sum(type(r) is Malformed for r in self.pending)
@@ -131,17 +136,17 @@ class _Splitter:
         self.current[key] = session
         return session
 
-    def _starts_new(self, session: _Session, event: Event, wall: datetime | None) -> bool:
+    def _starts_new(self, session: _Session, event: Event, wall_us: int | None) -> bool:
         if self.has_session:
             return False
         if session.ended:
             return True
         if event.name == "session_start" and session.pressed:
             return True
-        if wall is not None and session.last_wall is not None:  # a wrapping counter cannot measure long pauses
-            return (wall - session.last_wall).total_seconds() > self.gap_s
-        if session.last_t is not None and session.last_t[0] == event.segment:
-            return (event.t_us - session.last_t[1]) / 1e6 > self.gap_s
+        if wall_us is not None and session.last_wall_us is not None:  # a wrapping counter cannot measure long pauses
+            return (wall_us - session.last_wall_us) / 1e6 > self.gap_s
+        if session.last_segment == event.segment:
+            return (event.t_us - session.last_t_us) / 1e6 > self.gap_s
         return False
 
     def add(self, record: Record) -> None:
@@ -154,6 +159,7 @@ class _Splitter:
                     stamp = None
                 if stamp is not None and stamp.tzinfo is not None:
                     self.segment_start[record.segment] = stamp
+                    self.segment_start_us[record.segment] = _epoch_us(stamp)
                 else:
                     self.notices.append(f"line {record.line}: header start={start!r} is not ISO 8601 with an "
                                         "offset; ignored")
@@ -167,15 +173,20 @@ class _Splitter:
                 target.records.append(record)
                 target.malformed += type(record) is Malformed
             return
-        key = (self._animal_of(record), record.session)
-        wall, origin = self._wall(record), record.t_us
-        if record.segment not in self.begun and not record.wall_time:
-            self.begun.add(record.segment)
-            if record.segment in self.segment_start:  # a segment's first event: the header's start=
-                wall, origin = self.segment_start[record.segment], 0
+        key = (record.animal or self._animal_of(record), record.session)
+        segment, origin, first = record.segment, record.t_us, False
+        if record.wall_time:
+            wall_us: int | None = _epoch_us(datetime.fromisoformat(record.wall_time))
+        else:
+            start = self.segment_start_us.get(segment)
+            wall_us = None if start is None else start + origin
+            if segment not in self.begun:
+                self.begun.add(segment)
+                if start is not None:  # a segment's first event: the header's start=
+                    wall_us, origin, first = start, 0, True
         session = self.current.get(key)
-        if session is None or self._starts_new(session, record, wall):
-            session = self._new(key, record, wall, origin)
+        if session is None or self._starts_new(session, record, wall_us):
+            session = self._new(key, record, first, origin)
             if self.last is not None and self.last is not session and not self.mapped:
                 # headers and comments just before the session's first event belong to it
                 moved = _trailing_non_events(self.last.records)
@@ -186,10 +197,14 @@ class _Splitter:
                     session.malformed += sum(type(r) is Malformed for r in moved)
         session.records.append(record)
         session.events += 1
-        session.pressed |= record.name in PRESSES
-        session.ended |= record.name == "session_end"
-        session.last_t = (record.segment, record.t_us)
-        session.last_wall = wall or session.last_wall
+        name = record.name
+        if name in PRESSES:
+            session.pressed = True
+        elif name == "session_end":
+            session.ended = True
+        session.last_segment, session.last_t_us = segment, record.t_us
+        if wall_us is not None:
+            session.last_wall_us = wall_us
         self.last = session
 
     def finish(self, fallback: datetime) -> list[_Session]:
@@ -203,6 +218,11 @@ class _Splitter:
                 self.notices.append(f"{session.label}: no wall-clock time in the file; the session start is the "
                                     f"file's modification time {fallback.isoformat(timespec='seconds')}")
         return self.sessions
+
+
+def _epoch_us(moment: datetime) -> int:
+    """An aware datetime as whole µs since the epoch (exact: differences equal the datetimes')."""
+    return (moment - _EPOCH) // timedelta(microseconds=1)
 
 
 def _trailing_non_events(records: list[Record]) -> list[Record]:
@@ -283,7 +303,7 @@ def _parse_session(session: _Session, protocol_text: str, valve_ul_per_ms: float
         trials, counts, water = derive_events(protocol_text, None, valve_ul_per_ms,
                                               (r for r in session.records if type(r) is Event))
         trial_rows = [trial_row(t) for t in trials]
-    ended = session.last_wall.timestamp() if session.last_wall is not None else None
+    ended = session.last_wall_us / 1e6 if session.last_wall_us is not None else None
     return ParsedSession(session.animal, session.label, session.start, session.rig, session.start_device_us, ended,
                          events, raw, session.malformed, trial_rows, counts, water)
 
