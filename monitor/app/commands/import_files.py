@@ -6,14 +6,17 @@ any name) or be given twice; otherwise one line names the file and exit 2.
 With `--skip-imported` files imported before are skipped instead, each named
 on stderr, so an interrupted import resumes with the same command.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
-file or none of it) with its trials derived. Files are read, split and
-their trials derived in worker processes (`--jobs`, one per core) while
-this process stores them in the order given. While another process holds the
-write lock the import waits up to `--wait` seconds instead of failing. Then
-each imported animal's report entry is built once and cached, and (unless
-`--no-fit`) its consolidation model is refitted in separate processes (one
-per core) and cached (monitor.store.consolidation_fits), one stderr line per
-animal. One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
+file or none of it) with its trials derived. Files are read, split, turned
+into rows and their trials derived in worker processes (`--jobs`, one per
+core; monitor.store.import_pool) while this process stores them in the order
+given. While another process holds the write lock the import waits up to
+`--wait` seconds instead of failing. As soon as an animal's last file is
+stored, its report entry is built once (in a worker when there are workers)
+and kept, and (unless `--no-fit`) its consolidation model is refitted in a
+worker process (one per core, one BLAS thread each) and cached
+(monitor.store.consolidation_fits), so fits run while later files are still
+being imported; one stderr line per animal at the end.
+One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
 session, 5123 events, 0 malformed, 402 attempts`) below a progress bar on a terminal
 (not with `--quiet`), a summary line to stdout.
 Sessions, animals and times: monitor.store.importer and docs/store.md.
@@ -25,6 +28,8 @@ import argparse
 import os
 import sys
 import time
+from concurrent.futures import Future
+from contextlib import nullcontext
 from pathlib import Path
 from typing import Any, Iterator
 
@@ -64,9 +69,9 @@ def run(args: argparse.Namespace) -> int:
     from monitor.app.commands.record import _read_protocol
     from monitor.app.progress import Progress
     from monitor.store.db import StoreError, open_store
-    from monitor.store.importer import (ImportRefused, already_imported, event_codes, file_digest, rig_calibrations,
-                                        store_parsed)
-    from monitor.store.reporting import refresh_cache
+    from monitor.store.import_pool import Finished, ImportPool, refit, report_entry
+    from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name, event_codes,
+                                        file_digest, parse_file, rig_calibrations, store_parsed)
 
     if not args.gap_hours > 0:
         raise UsageError(f"--gap-hours: must be above 0, got {args.gap_hours:g}")
@@ -102,11 +107,13 @@ def run(args: argparse.Namespace) -> int:
         seen[digest] = path
         contents.append((path, data))
 
+    db = resolve_db(args.db)
     try:
-        conn = open_store(resolve_db(args.db), busy_timeout_ms=int(args.wait * 1000))
+        conn = open_store(db, busy_timeout_ms=int(args.wait * 1000))
     except StoreError as exc:
         raise UsageError(f"--db: {exc}") from None
     imported = 0
+    fits: dict[str, Future] = {}
     try:
         skipped = []
         for path, data in contents:
@@ -119,51 +126,77 @@ def run(args: argparse.Namespace) -> int:
                 print(f"skipped {path}: already imported (same content as {earlier[0]})", file=sys.stderr)
         contents = [(path, data) for path, data in contents if path not in skipped]
         started = time.monotonic()
-        animals: set[str] = set()
         totals = [0, 0, 0, 0]
-        parsed_files = _parse_all(contents, protocol["text"], args.animal, mapping, args.gap_hours * 3600.0,
-                                  rig_calibrations(conn), event_codes(conn), args.jobs)
+        options = {"protocol_text": protocol["text"], "animal": args.animal, "mapping": mapping,
+                   "gap_s": args.gap_hours * 3600.0, "calibrations": rig_calibrations(conn),
+                   "codes": event_codes(conn)}
+        holds = [None if mapping is not None and "animal" in mapping.columns
+                 else args.animal or animal_from_file_name(path) for path, _ in contents]
+        jobs = _parse_jobs(contents, args.jobs)
+        workers = jobs if args.no_fit else max(jobs, _fit_workers(holds))
+        finished = Finished(holds)
+        entries: dict[str, Future] = {}
         interrupted = False
-        with Progress(len(contents), "file", "importing", quiet=args.quiet) as progress:
-            try:
-                for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
-                    conn.execute("BEGIN IMMEDIATE")
-                    try:
-                        result = store_parsed(conn, parsed, protocol_text=protocol["text"],
-                                              protocol_name=protocol["name"], protocol_version=protocol["version"],
-                                              mapping_text=mapping_text)
-                        conn.execute("COMMIT")
-                    except BaseException:
-                        if conn.in_transaction:
-                            conn.execute("ROLLBACK")
-                        raise
-                    imported += 1
-                    progress.advance()
-                    animals.update(result.animals)
-                    for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
-                        totals[i] += value
-                    progress.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
-                                 f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
-                    for notice in result.notices:
-                        progress.say(f"  {path.name}: {notice}")
-            except KeyboardInterrupt:  # Ctrl-C: the file being stored was rolled back, the finished ones stay
-                interrupted = True
-        for animal in sorted(animals):  # the report entry is built once per animal, after its files
-            conn.execute("BEGIN IMMEDIATE")
-            try:
-                refresh_cache(conn, animal)
-                conn.execute("COMMIT")
-            except BaseException:
-                if conn.in_transaction:
-                    conn.execute("ROLLBACK")
-                raise
+        # fits always run in other processes; files are parsed here when one process is enough
+        with (ImportPool(workers) if workers > 1 or not args.no_fit else nullcontext(None)) as pool:
+            if pool is not None and jobs > 1:
+                parsed_files: Iterator[Any] = pool.parse_all(parse_file, contents, options)
+            else:
+                parsed_files = (parse_file(path, data, **options) for path, data in contents)
+                if pool is not None:
+                    pool.done_parsing()
+
+            def ready(animals: list[str]) -> None:
+                """The animals' files are all stored: build their report entries (and refit them) beside."""
+                for animal in animals:
+                    if pool is None:
+                        entries[animal] = _done(None)
+                        continue
+                    entries[animal] = pool.submit(report_entry, str(db), animal)
+                    if not args.no_fit:
+                        fits[animal] = pool.submit(refit, str(db), animal)
+
+            with Progress(len(contents), "file", "importing", quiet=args.quiet) as progress:
+                try:
+                    for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
+                        conn.execute("BEGIN IMMEDIATE")
+                        try:
+                            result = store_parsed(conn, parsed, protocol_text=protocol["text"],
+                                                  protocol_name=protocol["name"], protocol_version=protocol["version"],
+                                                  mapping_text=mapping_text)
+                            conn.execute("COMMIT")
+                        except BaseException:
+                            if conn.in_transaction:
+                                conn.execute("ROLLBACK")
+                            raise
+                        imported += 1
+                        progress.advance()
+                        for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
+                            totals[i] += value
+                        progress.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
+                                     f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
+                        for notice in result.notices:
+                            progress.say(f"  {path.name}: {notice}")
+                        ready(finished.stored(holds[number - 1], result.animals))
+                        _keep_entries(conn, entries, wait=False)
+                    ready(finished.rest())
+                    if pool is not None:
+                        pool.done_parsing()
+                    _keep_entries(conn, entries, wait=True)
+                except KeyboardInterrupt:  # Ctrl-C: the file being stored was rolled back, the finished ones stay
+                    interrupted = True
+                    fits.clear()
+                    if pool is not None:
+                        pool.stop()
+            if fits:
+                _report_fits(fits, workers)
     except ImportRefused as exc:
         raise UsageError(f"FILE: {exc}") from None
     except ConfigError as exc:
         raise UsageError(f"--mapping: {exc}") from None
     except sqlite3.OperationalError as exc:
         waited = f"waited {args.wait:g} s; " if "locked" in str(exc) or "busy" in str(exc) else ""
-        raise UsageError(f"--db: {resolve_db(args.db)}: {exc} ({waited}{imported} of {len(contents)} files "
+        raise UsageError(f"--db: {db}: {exc} ({waited}{imported} of {len(contents)} files "
                          "imported, the rest not: run the same command with --skip-imported to import them)") from None
     finally:
         conn.close()
@@ -173,8 +206,6 @@ def run(args: argparse.Namespace) -> int:
         print(f"interrupted: {imported} of {len(contents)} files imported{last}; the other {rest} were not touched "
               "and are imported by the same command with --skip-imported", file=sys.stderr)
         return 130
-    if not args.no_fit and animals:
-        _refit(resolve_db(args.db), sorted(animals))
     if skipped:
         print(f"skipped {len(skipped)} already imported", file=sys.stderr)
     print(f"imported {len(contents)} files: {_n(totals[0], 'session')}, {totals[1]} events, {totals[2]} malformed "
@@ -182,52 +213,67 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: str | None, mapping: Any,
-               gap_s: float, calibrations: dict[str, float], codes: dict[str, int], jobs: int) -> Iterator[Any]:
-    """Each file parsed (decoded, split, trials derived), in the order given.
+def _parse_jobs(contents: list[tuple[Path, bytes]], jobs: int) -> int:
+    """Processes that parse the files: `jobs`, or with 0 one per core when the files add up to a few MB
+    (a worker costs about half a second to start); never more than the files."""
+    if jobs == 0:
+        jobs = (os.cpu_count() or 1) if sum(len(data) for _, data in contents) >= PARALLEL_BYTES else 1
+    return max(1, min(jobs, len(contents)))
 
-    Several files are parsed side by side in worker processes (`jobs`, 0 = one per core) while this
-    process stores the ones already parsed; a single file, or one job, is parsed here."""
-    from monitor.store.importer import parse_file
 
-    options = {"protocol_text": protocol_text, "animal": animal, "mapping": mapping, "gap_s": gap_s,
-               "calibrations": calibrations, "codes": codes}
-    if jobs == 0:  # a worker costs about half a second to start: worth it only for a few MB of files
-        jobs = os.cpu_count() or 1 if sum(len(data) for _, data in contents) >= PARALLEL_BYTES else 1
-    jobs = min(jobs, len(contents))
-    if jobs <= 1:
-        for path, data in contents:
-            yield parse_file(path, data, **options)
-        return
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
+def _done(value: Any) -> Future:
+    """A future that already holds `value` (an entry to build here)."""
+    future: Future = Future()
+    future.set_result(value)
+    return future
 
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn")) as pool:
-        futures = [pool.submit(parse_file, path, data, **options) for path, data in contents]
+
+def _keep_entries(conn: Any, entries: dict[str, Future], wait: bool) -> None:
+    """Keep the report entries built so far (all of them with `wait`), each in its own short transaction; an
+    entry a worker did not build (None) is built here."""
+    from monitor.store.reporting import keep_entry, refresh_cache
+
+    for animal in [a for a, future in entries.items() if wait or future.done()]:
+        built = entries.pop(animal).result()
+        conn.execute("BEGIN IMMEDIATE")
         try:
-            for future in futures:
-                yield future.result()
-        finally:
-            for future in futures:
-                future.cancel()
+            if built is None:
+                refresh_cache(conn, animal)
+            elif built[1] is not None:
+                keep_entry(conn, animal, built[0], built[1])
+            conn.execute("COMMIT")
+        except BaseException:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            raise
 
 
-def _refit(db: Path, animals: list[str]) -> None:
-    """Refit the imported animals in separate processes, one per core; one stderr line per animal."""
+def _fit_workers(holds: list[str | None]) -> int:
+    """Processes for the fits: one per core, no more than the animals (when the file names tell them)."""
+    from monitor.store.consolidation_fits import worker_count
+
+    return worker_count(len(holds) if None in holds else len(set(holds)))
+
+
+def _report_fits(fits: dict[str, Future], workers: int) -> None:
+    """Wait for the refits (started as each animal's files were stored); one stderr line per animal."""
     from monitor.core.consolidation.words import fraction_text
-    from monitor.store.consolidation_fits import refit_in_process, worker_count
 
-    def finished(animal: str, block: dict | None, error: str | None) -> None:
+    print(f"fitting the consolidation model of {_n(len(fits), 'animal')} in {workers} separate "
+          f"{'process' if workers == 1 else 'processes'} (one per core), started as each animal's files were "
+          "stored", file=sys.stderr)
+    for animal in sorted(fits):
+        try:
+            block = fits[animal].result()
+        except Exception as exc:  # noqa: BLE001 - one line per animal, the others go on
+            print(f"fit {animal}: failed ({type(exc).__name__}: {exc}); the report says \"not fitted\"",
+                  file=sys.stderr)
+            continue
         if block is None:
-            print(f"fit {animal}: failed ({error or 'no result'}); the report says \"not fitted\"", file=sys.stderr)
-            return
+            print(f"fit {animal}: failed (no result); the report says \"not fitted\"", file=sys.stderr)
+            continue
         figure = fraction_text(block["estimate"], block["low"], block["high"], block["status"])
         print(f"fit {animal}: slow-state fraction {figure} at session {block['session']}", file=sys.stderr)
-
-    workers = worker_count(len(animals))
-    print(f"fitting the consolidation model of {_n(len(animals), 'animal')} in {workers} separate "
-          f"{'process' if workers == 1 else 'processes'} (one per core)", file=sys.stderr)
-    refit_in_process(db, animals, finished=finished, workers=workers)
 
 
 def _n(count: int, word: str) -> str:
