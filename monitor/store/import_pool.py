@@ -1,17 +1,14 @@
-"""Worker processes beside an import: files parsed ahead, report entries built and animals refitted meanwhile.
+"""Worker processes beside an import: files parsed ahead, animals refitted meanwhile.
 
 Rule: the importing process stores the files in the order given, each in its
 own transaction; the workers (spawned, as many as asked, each with one BLAS
 thread, Ctrl-C ignored: the importing process handles it and cancels them)
 parse the files ahead of it, at most `LOOKAHEAD_BYTES` of files at a time so
 memory stays bounded. As soon as an animal's last file is stored (`Finished`
-tells which), its report entry is built in a worker from one read snapshot and
-handed back to be kept, and, when asked, its consolidation model is refitted
-there (`refit_animal`, which saves its own fit in a short transaction), so the
-entries and fits run while later files are still being imported. Until every
-file has been handed to a worker, those jobs wait, so parsing never queues
-behind a fit.
-"""
+tells which), its consolidation model can be refitted in a worker
+(`refit_animal`, which saves its own fit in a short transaction), so fits run
+while later files are still being imported. Until every file has been handed
+to a worker, such jobs wait, so parsing never queues behind a fit."""
 
 from __future__ import annotations
 
@@ -34,22 +31,6 @@ def _start_worker(cancel: Any) -> None:
     global _cancelled
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _cancelled = cancel
-
-
-def report_entry(db: str, animal: str) -> tuple[str, dict[str, Any] | None]:
-    """(fingerprint, report entry or None) of an animal, read in one snapshot (a worker's job)."""
-    from monitor.store.db import open_store
-    from monitor.store.reporting import build_entry, report_fingerprint
-
-    conn = open_store(Path(db), readonly=True)
-    try:
-        conn.execute("BEGIN")  # one snapshot: the fingerprint describes what the entry was built from
-        try:
-            return report_fingerprint(conn, animal), build_entry(conn, animal)
-        finally:
-            conn.execute("ROLLBACK")
-    finally:
-        conn.close()
 
 
 def refit(db: str, animal: str) -> dict[str, Any] | None:

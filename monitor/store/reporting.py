@@ -66,13 +66,8 @@ def refresh_cache(conn: sqlite3.Connection, animal: str) -> None:
     """Build and keep the animal's report entry (in the caller's transaction)."""
     fingerprint = report_fingerprint(conn, animal)
     entry = build_entry(conn, animal)
-    if entry is not None:
-        keep_entry(conn, animal, fingerprint, entry)
-
-
-def keep_entry(conn: sqlite3.Connection, animal: str, fingerprint: str, entry: dict[str, Any]) -> None:
-    """Keep an entry built elsewhere from data with `fingerprint` (in the caller's transaction); one built from
-    data that changed since is stale on its first read, and built again then."""
+    if entry is None:
+        return
     conn.execute("INSERT INTO report_cache (animal_id, fingerprint, entry, built_at) VALUES (?, ?, ?, ?) "
                  "ON CONFLICT (animal_id) DO UPDATE SET fingerprint = excluded.fingerprint, entry = excluded.entry, "
                  "built_at = excluded.built_at", (ensure_animal(conn, animal), fingerprint, json.dumps(entry),

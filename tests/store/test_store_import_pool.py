@@ -1,4 +1,4 @@
-"""monitor.store.import_pool: when an animal's files are all stored, and the entries built beside an import."""
+"""monitor.store.import_pool: when an animal's files are all stored; report entries after an import with workers."""
 
 from __future__ import annotations
 
@@ -28,7 +28,7 @@ def test_a_cut_short_import_tells_the_stored_animals_at_the_end():
 
 
 @pytest.mark.slow
-def test_entries_built_in_worker_processes_are_kept_and_current(tmp_path, capsys, mock_history):
+def test_an_import_with_worker_processes_keeps_current_report_entries(tmp_path, capsys, mock_history):
     from monitor.app.cli import main
     from monitor.store.reporting import report_fingerprint
 

@@ -8,11 +8,11 @@ on stderr, so an interrupted import resumes with the same command.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived. Files are read, split, turned
 into rows and their trials derived in worker processes (`--jobs`, one per
-core; monitor.store.import_pool) while this process stores them in the order
+core besides this one; monitor.store.import_pool) while this process stores them in the order
 given. While another process holds the write lock the import waits up to
 `--wait` seconds instead of failing. As soon as an animal's last file is
-stored, its report entry is built once (in a worker when there are workers)
-and kept, and (unless `--no-fit`) its consolidation model is refitted in a
+stored, its report entry is built once here and kept (the workers parse ahead
+meanwhile), and (unless `--no-fit`) its consolidation model is refitted in a
 worker process (one per core, one BLAS thread each) and cached
 (monitor.store.consolidation_fits), so fits run while later files are still
 being imported; one stderr line per animal at the end.
@@ -53,7 +53,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-fit", action="store_true",
                         help="skip refitting the consolidation model (the report then says \"not fitted\")")
     parser.add_argument("--jobs", type=int, default=0,
-                        help="processes that read files side by side (default 0: one per core when the files add up "
+                        help="processes that read files side by side (default 0: one per core besides this one, "
+                             "which stores, when the files add up "
                              "to a few MB, else this process alone)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.add_argument("--skip-imported", action="store_true",
@@ -69,7 +70,7 @@ def run(args: argparse.Namespace) -> int:
     from monitor.app.commands.record import _read_protocol
     from monitor.app.progress import Progress
     from monitor.store.db import StoreError, open_store
-    from monitor.store.import_pool import Finished, ImportPool, refit, report_entry
+    from monitor.store.import_pool import Finished, ImportPool, refit
     from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name, event_codes,
                                         file_digest, parse_file, rig_calibrations, store_parsed)
 
@@ -132,14 +133,13 @@ def run(args: argparse.Namespace) -> int:
                    "codes": event_codes(conn)}
         holds = [None if mapping is not None and "animal" in mapping.columns
                  else args.animal or animal_from_file_name(path) for path, _ in contents]
-        jobs = _parse_jobs(contents, args.jobs)
-        workers = jobs if args.no_fit else max(jobs, _fit_workers(holds))
+        parsers = _parsers(contents, args.jobs)
+        workers = parsers if args.no_fit else max(parsers, _fit_workers(holds))
         finished = Finished(holds)
-        entries: dict[str, Future] = {}
         interrupted = False
         # fits always run in other processes; files are parsed here when one process is enough
-        with (ImportPool(workers) if workers > 1 or not args.no_fit else nullcontext(None)) as pool:
-            if pool is not None and jobs > 1:
+        with (ImportPool(workers) if workers else nullcontext(None)) as pool:
+            if pool is not None and parsers:
                 parsed_files: Iterator[Any] = pool.parse_all(parse_file, contents, options)
             else:
                 parsed_files = (parse_file(path, data, **options) for path, data in contents)
@@ -147,14 +147,13 @@ def run(args: argparse.Namespace) -> int:
                     pool.done_parsing()
 
             def ready(animals: list[str]) -> None:
-                """The animals' files are all stored: build their report entries (and refit them) beside."""
+                """The animals' files are all stored: refit them beside, and build their report entries here
+                (the workers parse ahead meanwhile; in a worker, numpy and scipy would load once more)."""
                 for animal in animals:
-                    if pool is None:
-                        entries[animal] = _done(None)
-                        continue
-                    entries[animal] = pool.submit(report_entry, str(db), animal)
-                    if not args.no_fit:
+                    if pool is not None and not args.no_fit:
                         fits[animal] = pool.submit(refit, str(db), animal)
+                for animal in animals:
+                    _refresh_entry(conn, animal)
 
             with Progress(len(contents), "file", "importing", quiet=args.quiet) as progress:
                 try:
@@ -178,11 +177,9 @@ def run(args: argparse.Namespace) -> int:
                         for notice in result.notices:
                             progress.say(f"  {path.name}: {notice}")
                         ready(finished.stored(holds[number - 1], result.animals))
-                        _keep_entries(conn, entries, wait=False)
-                    ready(finished.rest())
                     if pool is not None:
                         pool.done_parsing()
-                    _keep_entries(conn, entries, wait=True)
+                    ready(finished.rest())
                 except KeyboardInterrupt:  # Ctrl-C: the file being stored was rolled back, the finished ones stay
                     interrupted = True
                     fits.clear()
@@ -213,39 +210,36 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _parse_jobs(contents: list[tuple[Path, bytes]], jobs: int) -> int:
-    """Processes that parse the files: `jobs`, or with 0 one per core when the files add up to a few MB
-    (a worker costs about half a second to start); never more than the files."""
+def _parsers(contents: list[tuple[Path, bytes]], jobs: int) -> int:
+    """Worker processes that parse the files (0: this process parses them): `--jobs` when above 1, or with
+    0 one per core besides this process's (which stores) when the files add up to a few MB (a worker costs
+    about half a second to start); never more than the files."""
     if jobs == 0:
-        jobs = (os.cpu_count() or 1) if sum(len(data) for _, data in contents) >= PARALLEL_BYTES else 1
-    return max(1, min(jobs, len(contents)))
+        if sum(len(data) for _, data in contents) < PARALLEL_BYTES:
+            return 0
+        return min(_cores() - 1, len(contents))
+    return 0 if jobs == 1 else min(jobs, len(contents))
 
 
-def _done(value: Any) -> Future:
-    """A future that already holds `value` (an entry to build here)."""
-    future: Future = Future()
-    future.set_result(value)
-    return future
+def _cores() -> int:
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
 
 
-def _keep_entries(conn: Any, entries: dict[str, Future], wait: bool) -> None:
-    """Keep the report entries built so far (all of them with `wait`), each in its own short transaction; an
-    entry a worker did not build (None) is built here."""
-    from monitor.store.reporting import keep_entry, refresh_cache
+def _refresh_entry(conn: Any, animal: str) -> None:
+    """Build and keep the animal's report entry in a short transaction of its own."""
+    from monitor.store.reporting import refresh_cache
 
-    for animal in [a for a, future in entries.items() if wait or future.done()]:
-        built = entries.pop(animal).result()
-        conn.execute("BEGIN IMMEDIATE")
-        try:
-            if built is None:
-                refresh_cache(conn, animal)
-            elif built[1] is not None:
-                keep_entry(conn, animal, built[0], built[1])
-            conn.execute("COMMIT")
-        except BaseException:
-            if conn.in_transaction:
-                conn.execute("ROLLBACK")
-            raise
+    conn.execute("BEGIN IMMEDIATE")
+    try:
+        refresh_cache(conn, animal)
+        conn.execute("COMMIT")
+    except BaseException:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+        raise
 
 
 def _fit_workers(holds: list[str | None]) -> int:
