@@ -387,7 +387,7 @@ class WireDecoder(LineDecoder):
         if not data.isascii() or data.count(HEADER_TAG) != data.startswith(HEADER_TAG) + data.count(b"\n" + HEADER_TAG):
             super()._decode_lines(data, lines, out)
             return
-        append, decode = out.append, self._decode_line
+        append, decode, make = out.append, self._decode_line, tuple.__new__  # make: Event without a Python frame
         names, args_cache, need_args = _NAME_CACHE, _ARGS_CACHE, _NEED_ARGS
         line, offset, segment, unit, limit, unwrap = (self.line, self.offset, self.segment, self._unit, self._limit,
                                                       self.unwrapper)
@@ -410,7 +410,8 @@ class WireDecoder(LineDecoder):
                             ticks = unwrap(raw_time)
                             if ticks is not None:
                                 line += 1
-                                append(Event(ticks * unit, name, args, raw_time, segment, line, offset, size))
+                                append(make(Event, (ticks * unit, name, args, raw_time, segment, line, offset, size,
+                                                    None, None, None)))
                                 offset += size
                                 continue
             self.line, self.offset = line, offset  # anything else, or a first sight: the full checks

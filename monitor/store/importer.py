@@ -173,10 +173,11 @@ class _Splitter:
                 target.records.append(record)
                 target.malformed += type(record) is Malformed
             return
-        key = (record.animal or self._animal_of(record), record.session)
-        segment, origin, first = record.segment, record.t_us, False
-        if record.wall_time:
-            wall_us: int | None = _epoch_us(datetime.fromisoformat(record.wall_time))
+        t_us, name, _, _, segment, _, _, _, wall_time, animal, label = record  # one unpacking: hot path
+        key = (animal or self._animal_of(record), label)
+        origin, first = t_us, False
+        if wall_time:
+            wall_us: int | None = _epoch_us(datetime.fromisoformat(wall_time))
         else:
             start = self.segment_start_us.get(segment)
             wall_us = None if start is None else start + origin
@@ -197,12 +198,11 @@ class _Splitter:
                     session.malformed += sum(type(r) is Malformed for r in moved)
         session.records.append(record)
         session.events += 1
-        name = record.name
         if name in PRESSES:
             session.pressed = True
         elif name == "session_end":
             session.ended = True
-        session.last_segment, session.last_t_us = segment, record.t_us
+        session.last_segment, session.last_t_us = segment, t_us
         if wall_us is not None:
             session.last_wall_us = wall_us
         self.last = session

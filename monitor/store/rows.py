@@ -79,11 +79,11 @@ def session_rows(records: Iterable[Record], codes: Codes) -> tuple[list[tuple], 
     for r in records:
         kind = type(r)
         if kind is Event:
-            code = known.get(r.name)
+            t_us, name, args, raw_time, segment, line, _, _, wall, _, _ = r
+            code = known.get(name)
             if code is None:
-                code = codes.add(r.name)
-            args = r.args
-            add_event((r.segment, r.line, r.t_us, r.raw_time, code, " ".join(args) if args else None, r.wall_time))
+                code = codes.add(name)
+            add_event((segment, line, t_us, raw_time, code, " ".join(args) if args else None, wall))
         elif kind is Malformed:
             add_raw((r.line, r.offset, "malformed", r.reason, bytes(r.raw)))
         elif kind is Header:
