@@ -89,9 +89,8 @@ class ImportPool:
         """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller."""
         pending: deque[tuple[Future, int]] = deque()
         ahead = 0
-        files = iter(contents)
         try:
-            for path, data in files:
+            for path, data in contents:
                 pending.append((self._pool.submit(parse, path, data, **options), len(data)))
                 ahead += len(data)
                 while ahead > LOOKAHEAD_BYTES and len(pending) > 1:
