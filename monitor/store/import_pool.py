@@ -3,8 +3,9 @@
 Rule: the importing process stores the files in the order given, each in its
 own transaction; the workers (spawned, as many as asked, each with one BLAS
 thread, Ctrl-C ignored: the importing process handles it and cancels them)
-parse the files ahead of it, at most `LOOKAHEAD_BYTES` of files at a time so
-memory stays bounded. As soon as an animal's last file is stored (`Finished`
+parse the files ahead of it (the first one in the importing process, while
+they start), at most `LOOKAHEAD_BYTES` of files at a time so memory stays
+bounded. As soon as an animal's last file is stored (`Finished`
 tells which), its consolidation model can be refitted in a worker
 (`refit_animal`, which saves its own fit in a short transaction), so fits run
 while later files are still being imported. Until every file has been handed
@@ -86,21 +87,31 @@ class ImportPool:
 
     def parse_all(self, parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]],
                   options: dict[str, Any]) -> Iterator[Any]:
-        """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller."""
+        """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller
+        (the first one here, while the workers start)."""
         pending: deque[tuple[Future, int]] = deque()
-        ahead = 0
-        try:
-            for path, data in contents:
+        files = list(contents[1:])
+        state = {"submitted": 0, "ahead": 0}
+
+        def top_up() -> None:
+            """Hand files to the workers up to the look-ahead bound; once all are handed out, held jobs go."""
+            while state["submitted"] < len(files) and (state["ahead"] <= LOOKAHEAD_BYTES or not pending):
+                path, data = files[state["submitted"]]
                 pending.append((self._pool.submit(parse, path, data, **options), len(data)))
-                ahead += len(data)
-                while ahead > LOOKAHEAD_BYTES and len(pending) > 1:
-                    future, size = pending.popleft()
-                    ahead -= size
-                    yield future.result()
-            self._parsing = False
-            self._release()
+                state["submitted"] += 1
+                state["ahead"] += len(data)
+            if state["submitted"] == len(files) and self._parsing:
+                self.done_parsing()
+
+        try:
+            top_up()
+            for path, data in contents[:1]:
+                yield parse(path, data, **options)
             while pending:
-                yield pending.popleft()[0].result()
+                future, size = pending.popleft()
+                state["ahead"] -= size
+                top_up()
+                yield future.result()
         finally:
             for future, _ in pending:
                 future.cancel()
