@@ -5,7 +5,8 @@ and their ratio, so a slow or busy machine shows up in both. The cohort is
 `python -m mock_rig history --animals 8 --days 30 --seed 11` (2 x 6 with
 --quick). The yardstick is the simplest honest way to put the same files into
 SQLite: read each file, split its lines, insert one row per line (WAL,
-synchronous=FULL, one transaction per file). The commands are run as a user
+synchronous=FULL, one transaction per file); it runs again just before each
+import figure, which is printed beside that run and their ratio. The commands are run as a user
 runs them (`python -m monitor.app ...` in a child process), one after another:
 import without fits (one command per protocol file, and one per animal),
 import with fits (another database), events and trials CSV, the whole
@@ -65,6 +66,17 @@ def rigside(*argv: str) -> float:
         last = (done.stderr.strip().splitlines() or ["no error text"])[-1]
         raise RuntimeError(f"rigside {' '.join(argv[:2])} exited {done.returncode}: {last}")
     return seconds
+
+
+def _children_cpu() -> float:
+    """CPU seconds (user + system) of the finished child processes so far, theirs and their children's (nan
+    where the OS does not say: Windows)."""
+    try:
+        import resource  # POSIX only
+    except ImportError:
+        return float("nan")
+    used = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return used.ru_utime + used.ru_stime
 
 
 def import_cohort(history: Path, db: Path, fit: bool, per_animal: bool = False) -> float:
@@ -128,14 +140,20 @@ def figures(quick: bool = False, keep: Path | None = None) -> list[tuple[str, fl
              f"{cohort}; {yard_rows:,} rows, {yard_rows / yard_s:,.0f} rows/s")]
 
         db = folder / "cohort.sqlite"
-        import_s = import_cohort(history, db, fit=False)
-        out.append(("cohort import --no-fit, a command per protocol", import_s, "s",
-                    f"{import_s / yard_s:.1f} x the yardstick (goal <= 2); {lines / import_s:,.0f} lines/s"))
-        each_s = import_cohort(history, folder / "each.sqlite", fit=False, per_animal=True)
-        out.append(("cohort import --no-fit, a command per animal", each_s, "s",
-                    f"{each_s / yard_s:.1f} x the yardstick; {lines / each_s:,.0f} lines/s"))
-        fitted_s = import_cohort(history, folder / "fitted.sqlite", fit=True)
-        out.append(("cohort import with fits", fitted_s, "s", f"{fitted_s / yard_s:.1f} x the yardstick (goal <= 4)"))
+        for label, target, fit, per_animal, goal in (
+                ("cohort import --no-fit, a command per protocol", db, False, False, " (goal <= 2)"),
+                ("cohort import --no-fit, a command per animal", folder / "each.sqlite", False, True, ""),
+                ("cohort import with fits, a command per protocol", folder / "fitted.sqlite", True, False,
+                 " (goal <= 4)")):
+            cpu = time.process_time()
+            beside_s = yardstick(files, folder / f"yardstick-{target.stem}.sqlite")[0]  # just before: same load
+            beside_cpu = time.process_time() - cpu
+            cpu = _children_cpu()
+            took_s = import_cohort(history, target, fit=fit, per_animal=per_animal)
+            took_cpu = _children_cpu() - cpu
+            out.append((label, took_s, "s", f"beside the yardstick {beside_s:.2f} s run just before it: "
+                                            f"{took_s / beside_s:.1f} x{goal}; {lines / took_s:,.0f} lines/s; CPU "
+                                            f"{took_cpu:.2f} s in all its processes, the yardstick's {beside_cpu:.2f} s"))
 
         with sqlite3.connect(db) as conn:
             events = conn.execute("SELECT count(*) FROM events").fetchone()[0]

@@ -234,12 +234,8 @@ class LineDecoder:
         else:
             lines = data.split(b"\n")
             rest = lines.pop()
-            for raw in lines:
-                record = decode(raw, len(raw) + 1)
-                if type(record) is list:
-                    out.extend(record)
-                else:
-                    out.append(record)
+            if lines:
+                self._decode_lines(data, lines, out)
         cap = self.max_line
         if len(rest) > cap + 1:  # +1 leaves room for a '\r' before '\n'
             self._buf = rest[:cap]
@@ -336,6 +332,16 @@ class LineDecoder:
         line, offset = self._position(size)
         return Malformed(raw, reason, line, offset, size)
 
+    def _decode_lines(self, data: bytes, lines: list[bytes], out: list[Record]) -> None:
+        """The records of complete `\\n`-ended lines cut from `data` (subclasses may take a faster route)."""
+        decode = self._decode_line
+        for raw in lines:
+            record = decode(raw, len(raw) + 1)
+            if type(record) is list:
+                out.extend(record)
+            else:
+                out.append(record)
+
     def _decode_line(self, raw: bytes, size: int) -> Record | list[Record]:
         """One line's record (a list when one physical line holds two, e.g. a glued header)."""
         raise NotImplementedError
@@ -372,6 +378,53 @@ class WireDecoder(LineDecoder):
         self.segment = int(state["segment"])
         self._set_clock(state["clock"], int(state["wrap"]))
         self.unwrapper.restore(state["unwrap"])
+
+    def _decode_lines(self, data: bytes, lines: list[bytes], out: list[Record]) -> None:
+        """The common event line decoded inline, everything else by `_decode_line` (the same records).
+
+        Inline only where `data` is ASCII and every header tag in it starts a line, so that no line needs the
+        checks for those; an inline line is a plain event line whose word and arguments are cached as fitting."""
+        if not data.isascii() or data.count(HEADER_TAG) != data.startswith(HEADER_TAG) + data.count(b"\n" + HEADER_TAG):
+            super()._decode_lines(data, lines, out)
+            return
+        append, decode, make = out.append, self._decode_line, tuple.__new__  # make: Event without a Python frame
+        names, args_cache, need_args = _NAME_CACHE, _ARGS_CACHE, _NEED_ARGS
+        line, offset, segment, unit, limit, unwrap = (self.line, self.offset, self.segment, self._unit, self._limit,
+                                                      self.unwrapper)
+        top = MAX_TIME_US // unit
+        fast = not self._segment_due
+        for raw in lines:
+            size = len(raw) + 1
+            if fast and size <= MAX_LINE + 1 and raw[:1] != b"#" and raw[-1:] != b"\r":
+                parts = raw.split(None, 2)
+                if len(parts) >= 2 and parts[0].isdigit():
+                    raw_time = int(parts[0])
+                    name = names.get(parts[1])
+                    if name is not None and raw_time < top and not (limit and raw_time >= limit):
+                        if len(parts) == 2:
+                            args: tuple[str, ...] | None = None if name in need_args else ()
+                        else:
+                            found = args_cache.get((name, parts[2]))
+                            args = found[1] if found is not None and found[0] is None else None
+                        if args is not None:
+                            ticks = unwrap(raw_time)
+                            if ticks is not None:
+                                line += 1
+                                append(make(Event, (ticks * unit, name, args, raw_time, segment, line, offset, size,
+                                                    None, None, None)))
+                                offset += size
+                                continue
+            self.line, self.offset = line, offset  # anything else, or a first sight: the full checks
+            record = decode(raw, size)
+            if type(record) is list:
+                out.extend(record)
+            else:
+                append(record)
+            line, offset, segment, unit, limit, unwrap = (self.line, self.offset, self.segment, self._unit,
+                                                          self._limit, self.unwrapper)
+            top = MAX_TIME_US // unit
+            fast = not self._segment_due
+        self.line, self.offset = line, offset
 
     def _decode_line(self, raw: bytes, size: int) -> Record | list[Record]:
         content = raw[:-1] if raw[-1:] == b"\r" else raw

@@ -1,6 +1,6 @@
 """Trials derived from stored events: rebuilt per session, never edited by hand.
 
-Rule: a session's trials are what `monitor.core.session.live_stats.LiveSession` makes of
+Rule: a session's trials are what `monitor.core.session.derivation.derive_session` makes of
 its stored events under the protocol text the session recorded (the same
 segmentation the live view and the report use), with the rig's valve
 calibration for water. `rebuild_trials` replaces the session's trial rows and
@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING, Iterable, Iterator
 
 from drivers.wire import Event
 from monitor.core.protocol import Protocol, parse_protocol
+from monitor.core.session.derivation import derive_session
 from monitor.core.session.trials import Trial
 from monitor.store.records import valve_calibration
 
@@ -73,8 +74,7 @@ def derive(conn: sqlite3.Connection, session_id: int, events: Iterable[Event] | 
 def derive_events(protocol_text: str, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Event]
                   ) -> tuple[list[Trial], dict[str, int], float | None]:
     """(trials, builder counts, water µL) of one session's events under a protocol text; needs no database."""
-    live = replayed(protocol_text, stage, valve_ul_per_ms, events)
-    return live.trials, dict(live.builder.counts), live.stats.water_ul
+    return derive_session(protocol_of(protocol_text), stage, valve_ul_per_ms, events)
 
 
 def replayed(protocol_text: str, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Event]

@@ -15,6 +15,9 @@ animal is the mapping's `animal` column, else `--animal`, else the file name
 header's `start=` (+ device time when it begins inside a segment) or the
 mapped wall-time column; without either, the file's modification time, and a
 notice row says so. The trials of each session are derived as it is stored.
+Records become rows through monitor.store.rows, as in the live writer;
+`parse_file` does all of that without the database (worker processes), and
+`store_parsed` only inserts what it made.
 """
 
 from __future__ import annotations
@@ -24,18 +27,20 @@ import re
 import sqlite3
 import time
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Any
 
-from drivers.wire import Comment, Event, Header, Malformed, Record, WireDecoder
+from drivers.wire import Event, Header, Malformed, Record, WireDecoder
 from monitor.store.derive import derive_events, store_trials, trial_row
 from monitor.store.records import ensure_animal, ensure_protocol
-from monitor.store.schema import FIRST_UNKNOWN_CODE
+from monitor.store.rows import Codes, insert_rows, recode, session_rows
+from monitor.store.schema import KNOWN_EVENT_CODES
 
 GAP_S = 2 * 3600.0  # a pause longer than this between two events of one animal starts a new session
 PRESSES = frozenset({"lever_down", "lever_up", "joystick", "trial_start", "outcome"})
 _FILE_ANIMAL = re.compile(r"^(?P<animal>.+?)_s\d+$")
+_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
 
 
 class ImportRefused(Exception):
@@ -54,8 +59,9 @@ class _Session:
     malformed: int = 0
     pressed: bool = False
     ended: bool = False
-    last_t: tuple[int, int] | None = None  # (segment, t_us) of the last event
-    last_wall: datetime | None = None
+    last_segment: int | None = None  # clock segment and device µs of the last event
+    last_t_us: int = 0
+    last_wall_us: int | None = None  # wall time of the last event that has one, µs since the epoch
 
 
 @dataclass(frozen=True)
@@ -98,6 +104,7 @@ class _Splitter:
         self.current: dict[tuple[str, str | None], _Session] = {}
         self.last: _Session | None = None
         self.segment_start: dict[int, datetime] = {}
+        self.segment_start_us: dict[int, int] = {}  # the same, µs since the epoch (cheap per event)
         self.segment_rig: dict[int, str] = {}
         self.pending: list[Record] = []  # records before any session exists
         self.begun: set[int] = set()  # segments whose first event has been seen
@@ -110,15 +117,17 @@ class _Splitter:
                                 "name is not NAME_sNN): give --animal")
         return name
 
-    def _wall(self, event: Event) -> datetime | None:
+    def _moment(self, event: Event, first: bool) -> datetime | None:
+        """The event's wall time with its offset: mapped, the header's start= (a segment's first event), or
+        start= plus its device time."""
         if event.wall_time:
             return datetime.fromisoformat(event.wall_time)
         start = self.segment_start.get(event.segment)
-        return None if start is None else start + timedelta(microseconds=event.t_us)
+        return start if start is None or first else start + timedelta(microseconds=event.t_us)
 
-    def _new(self, key: tuple[str, str | None], event: Event, wall: datetime | None, origin: int) -> _Session:
+    def _new(self, key: tuple[str, str | None], event: Event, first: bool, origin: int) -> _Session:
         label = key[1] if key[1] is not None else f"{self.path.name}#{sum(s.animal == key[0] for s in self.sessions) + 1}"
-        session = _Session(key[0], label, wall, self.segment_rig.get(event.segment), origin)
+        session = _Session(key[0], label, self._moment(event, first), self.segment_rig.get(event.segment), origin)
         if not self.sessions and self.pending:
             session.records.extend(self.pending)
             session.malformed += sum(type(r) is Malformed for r in self.pending)
@@ -127,17 +136,17 @@ class _Splitter:
         self.current[key] = session
         return session
 
-    def _starts_new(self, session: _Session, event: Event, wall: datetime | None) -> bool:
+    def _starts_new(self, session: _Session, event: Event, wall_us: int | None) -> bool:
         if self.has_session:
             return False
         if session.ended:
             return True
         if event.name == "session_start" and session.pressed:
             return True
-        if wall is not None and session.last_wall is not None:  # a wrapping counter cannot measure long pauses
-            return (wall - session.last_wall).total_seconds() > self.gap_s
-        if session.last_t is not None and session.last_t[0] == event.segment:
-            return (event.t_us - session.last_t[1]) / 1e6 > self.gap_s
+        if wall_us is not None and session.last_wall_us is not None:  # a wrapping counter cannot measure long pauses
+            return (wall_us - session.last_wall_us) / 1e6 > self.gap_s
+        if session.last_segment == event.segment:
+            return (event.t_us - session.last_t_us) / 1e6 > self.gap_s
         return False
 
     def add(self, record: Record) -> None:
@@ -150,6 +159,7 @@ class _Splitter:
                     stamp = None
                 if stamp is not None and stamp.tzinfo is not None:
                     self.segment_start[record.segment] = stamp
+                    self.segment_start_us[record.segment] = _epoch_us(stamp)
                 else:
                     self.notices.append(f"line {record.line}: header start={start!r} is not ISO 8601 with an "
                                         "offset; ignored")
@@ -163,15 +173,21 @@ class _Splitter:
                 target.records.append(record)
                 target.malformed += type(record) is Malformed
             return
-        key = (self._animal_of(record), record.session)
-        wall, origin = self._wall(record), record.t_us
-        if record.segment not in self.begun and not record.wall_time:
-            self.begun.add(record.segment)
-            if record.segment in self.segment_start:  # a segment's first event: the header's start=
-                wall, origin = self.segment_start[record.segment], 0
+        t_us, name, _, _, segment, _, _, _, wall_time, animal, label = record  # one unpacking: hot path
+        key = (animal or self._animal_of(record), label)
+        origin, first = t_us, False
+        if wall_time:
+            wall_us: int | None = _epoch_us(datetime.fromisoformat(wall_time))
+        else:
+            start = self.segment_start_us.get(segment)
+            wall_us = None if start is None else start + origin
+            if segment not in self.begun:
+                self.begun.add(segment)
+                if start is not None:  # a segment's first event: the header's start=
+                    wall_us, origin, first = start, 0, True
         session = self.current.get(key)
-        if session is None or self._starts_new(session, record, wall):
-            session = self._new(key, record, wall, origin)
+        if session is None or self._starts_new(session, record, wall_us):
+            session = self._new(key, record, first, origin)
             if self.last is not None and self.last is not session and not self.mapped:
                 # headers and comments just before the session's first event belong to it
                 moved = _trailing_non_events(self.last.records)
@@ -182,10 +198,13 @@ class _Splitter:
                     session.malformed += sum(type(r) is Malformed for r in moved)
         session.records.append(record)
         session.events += 1
-        session.pressed |= record.name in PRESSES
-        session.ended |= record.name == "session_end"
-        session.last_t = (record.segment, record.t_us)
-        session.last_wall = wall or session.last_wall
+        if name in PRESSES:
+            session.pressed = True
+        elif name == "session_end":
+            session.ended = True
+        session.last_segment, session.last_t_us = segment, t_us
+        if wall_us is not None:
+            session.last_wall_us = wall_us
         self.last = session
 
     def finish(self, fallback: datetime) -> list[_Session]:
@@ -199,6 +218,11 @@ class _Splitter:
                 self.notices.append(f"{session.label}: no wall-clock time in the file; the session start is the "
                                     f"file's modification time {fallback.isoformat(timespec='seconds')}")
         return self.sessions
+
+
+def _epoch_us(moment: datetime) -> int:
+    """An aware datetime as whole µs since the epoch (exact: differences equal the datetimes')."""
+    return (moment - _EPOCH) // timedelta(microseconds=1)
 
 
 def _trailing_non_events(records: list[Record]) -> list[Record]:
@@ -221,8 +245,8 @@ class ParsedSession:
     rig: str | None
     start_device_us: int | None
     ended_at: float | None
-    events: list[tuple]  # (segment, line, t_us, raw_time, event word, value, wall)
-    raw: list[tuple]  # (line, byte offset, kind, reason, raw bytes)
+    events: list[tuple]  # event rows (monitor.store.rows), codes from the file's `codes`
+    raw: list[tuple]  # raw-line rows
     malformed: int
     trial_rows: list[tuple] | None  # derive.trial_row values; None without a protocol
     counts: dict[str, int]
@@ -239,13 +263,16 @@ class ParsedFile:
     mapped: bool
     sessions: list[ParsedSession]
     notices: list[str]
+    codes: Codes  # the store's codes when parsed, and provisional ones for words it had none for
 
 
 def parse_file(path: Path, data: bytes, *, protocol_text: str, animal: str | None = None, mapping: Any = None,
-               gap_s: float = GAP_S, calibrations: dict[str, float] | None = None) -> ParsedFile:
-    """Decode, split into sessions and derive the trials of one file, without the database (the module rule).
+               gap_s: float = GAP_S, calibrations: dict[str, float] | None = None,
+               codes: dict[str, int] | None = None) -> ParsedFile:
+    """Decode, split into sessions, make the rows and derive the trials of one file, without the database.
 
-    `calibrations` maps rig names to valve µL per ms (the store's rigs), for water from `valve` events."""
+    `calibrations` maps rig names to valve µL per ms (the store's rigs), for water from `valve` events;
+    `codes` maps event words to the store's codes (`event_codes`; default: the known words only)."""
     if mapping is None:
         decoder: Any = WireDecoder()
     else:
@@ -260,32 +287,23 @@ def parse_file(path: Path, data: bytes, *, protocol_text: str, animal: str | Non
     for record in records:
         splitter.add(record)
     mtime = datetime.fromtimestamp(path.stat().st_mtime).astimezone() if path.exists() else datetime.now().astimezone()
-    sessions = [_parse_session(s, protocol_text, (calibrations or {}).get(s.rig or "import"))
+    table = Codes(KNOWN_EVENT_CODES if codes is None else codes)
+    sessions = [_parse_session(s, protocol_text, (calibrations or {}).get(s.rig or "import"), table)
                 for s in splitter.finish(mtime)]
-    return ParsedFile(str(path), file_digest(data), len(data), mapping is not None, sessions, splitter.notices)
+    return ParsedFile(str(path), file_digest(data), len(data), mapping is not None, sessions, splitter.notices,
+                      table)
 
 
-def _parse_session(session: _Session, protocol_text: str, valve_ul_per_ms: float | None) -> ParsedSession:
+def _parse_session(session: _Session, protocol_text: str, valve_ul_per_ms: float | None,
+                   codes: Codes) -> ParsedSession:
     assert session.start is not None
-    events, raw = [], []
-    for r in session.records:
-        kind = type(r)
-        if kind is Event:
-            events.append((r.segment, r.line, r.t_us, r.raw_time, r.name, " ".join(r.args) if r.args else None,
-                           r.wall_time))
-        elif kind is Malformed:
-            raw.append((r.line, r.offset, "malformed", r.reason, bytes(r.raw)))
-        elif kind is Header:
-            text = " ".join([f"# rigside-wire {r.version}", *(f"{k}={v}" for k, v in r.fields.items())])
-            raw.append((r.line, r.offset, "header", None, text.encode("ascii", "replace")))
-        elif kind is Comment:
-            raw.append((r.line, r.offset, "comment", None, r.text.encode("utf-8", "surrogateescape")))
+    events, raw = session_rows(session.records, codes)
     trial_rows, counts, water = None, {"no_protocol": 1}, None
     if protocol_text:  # imported sessions start with no stage: the protocol's own default
         trials, counts, water = derive_events(protocol_text, None, valve_ul_per_ms,
                                               (r for r in session.records if type(r) is Event))
         trial_rows = [trial_row(t) for t in trials]
-    ended = session.last_wall.timestamp() if session.last_wall is not None else None
+    ended = session.last_wall_us / 1e6 if session.last_wall_us is not None else None
     return ParsedSession(session.animal, session.label, session.start, session.rig, session.start_device_us, ended,
                          events, raw, session.malformed, trial_rows, counts, water)
 
@@ -296,7 +314,7 @@ def import_file(conn: sqlite3.Connection, path: Path, data: bytes, *, protocol_t
     """Store one file's sessions in the caller's transaction (BEGIN IMMEDIATE); see the module rule."""
     refuse_if_imported(conn, path, file_digest(data))
     parsed = parse_file(path, data, protocol_text=protocol_text, animal=animal, mapping=mapping, gap_s=gap_s,
-                        calibrations=rig_calibrations(conn))
+                        calibrations=rig_calibrations(conn), codes=event_codes(conn))
     return store_parsed(conn, parsed, protocol_text=protocol_text, protocol_name=protocol_name,
                         protocol_version=protocol_version, mapping_text=mapping_text)
 
@@ -308,6 +326,11 @@ def refuse_if_imported(conn: sqlite3.Connection, path: Path, digest: str) -> Non
         when = datetime.fromtimestamp(earlier[1]).astimezone().isoformat(timespec="seconds")
         raise ImportRefused(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
                             "nothing was changed")
+
+
+def event_codes(conn: sqlite3.Connection) -> dict[str, int]:
+    """The store's event words and their codes."""
+    return dict(conn.execute("SELECT name, code FROM event_codes"))
 
 
 def rig_calibrations(conn: sqlite3.Connection) -> dict[str, float]:
@@ -328,11 +351,11 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
         (parsed.path, parsed.digest, parsed.size, "mapped" if parsed.mapped else "wire", mapping_text, time.time(),
          len(sessions), total_events, total_malformed)).lastrowid
     protocol_id = ensure_protocol(conn, protocol_name, protocol_version, protocol_text)
-    codes = dict(conn.execute("SELECT name, code FROM event_codes"))
+    remap = parsed.codes.settle(conn)  # words new to the store since the file was parsed
     trials = 0
     for session in sessions:
         trials += _store_session(conn, session, import_id, protocol_id, protocol_name, protocol_version,
-                                 protocol_text, codes)
+                                 protocol_text, remap)
     if parsed.notices and sessions:
         first = conn.execute("SELECT min(id) FROM sessions WHERE import_id = ?", (import_id,)).fetchone()[0]
         conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
@@ -342,17 +365,8 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
                     tuple(sorted({s.animal for s in sessions})))
 
 
-def _code(conn: sqlite3.Connection, codes: dict[str, int], name: str) -> int:
-    code = codes.get(name)
-    if code is None:
-        code = max([FIRST_UNKNOWN_CODE - 1, *codes.values()]) + 1
-        conn.execute("INSERT INTO event_codes (code, name, known) VALUES (?, ?, 0)", (code, name))
-        codes[name] = code
-    return code
-
-
 def _store_session(conn: sqlite3.Connection, session: ParsedSession, import_id: int, protocol_id: int,
-                   protocol_name: str, protocol_version: int, protocol_text: str, codes: dict[str, int]) -> int:
+                   protocol_name: str, protocol_version: int, protocol_text: str, remap: dict[int, int]) -> int:
     animal_id = ensure_animal(conn, session.animal)
     session_id = conn.execute(
         "INSERT INTO sessions (source_id, animal, rig, protocol_name, protocol_version, protocol_text, started_at, "
@@ -361,15 +375,10 @@ def _store_session(conn: sqlite3.Connection, session: ParsedSession, import_id: 
         (session.animal, session.rig or "import", protocol_name, protocol_version, protocol_text,
          session.start.timestamp(), session.ended_at, session.start.isoformat(timespec="seconds"), animal_id,
          protocol_id, import_id, session.label, session.start_device_us)).lastrowid
-    events = [(session_id, segment, line, t_us, raw_time, codes[name] if name in codes else _code(conn, codes, name),
-               value, wall) for segment, line, t_us, raw_time, name, value, wall in session.events]
+    events = recode(session.events, remap)
     before = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
-    conn.executemany("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
-                     "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", events)
+    insert_rows(conn, session_id, events, session.raw)
     after = conn.execute("SELECT coalesce(max(rowid), 0) FROM events").fetchone()[0]
-    if session.raw:
-        conn.executemany("INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) "
-                         "VALUES (?, ?, ?, ?, ?, ?)", [(session_id, *row) for row in session.raw])
     if events:
         conn.execute("UPDATE sessions SET first_event = ?, last_event = ? WHERE id = ?", (before + 1, after, session_id))
     if session.trial_rows is None:

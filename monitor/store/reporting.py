@@ -7,7 +7,7 @@ session; excluded sessions are listed, flagged, and left out of the curve by
 the core (a session recorded live whose trials were not derived yet is
 derived in memory). What the trials alone cannot give — inter-trial presses,
 disagreements with the rig, water — comes from the session's trial build
-(the same `LiveSession` run at derivation). `consolidation` is the cached
+(the same `derive_session` run at derivation). `consolidation` is the cached
 fit's block (monitor.store.fits). Extra keys per session: `session_id`,
 `rig`, `label`, `conditions`. Judging every plateau rule costs about a second
 per animal (the change-point and state-space rules), so each entry is cached

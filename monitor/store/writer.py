@@ -1,8 +1,8 @@
 """The store's single writer: one thread, one connection, batched durable commits.
 
 Rule: producers call `submit()`, which never blocks and never touches the
-disk; the writer thread turns batches into rows and commits everything pending
-at most `commit_interval_s` after it arrived, in one `BEGIN IMMEDIATE`
+disk; the writer thread turns batches into rows (monitor.store.rows, as an import
+does) and commits everything pending at most `commit_interval_s` after it arrived, in one `BEGIN IMMEDIATE`
 transaction that also holds each file source's newest resume position (exactly
 once after any crash). While rows wait for that commit the writer takes new
 batches every `GATHER_S`, not as each one arrives, so that it does not wake
@@ -41,10 +41,10 @@ from pathlib import Path
 from typing import Any, Callable, NamedTuple, TypeVar
 
 from drivers.status import Batch, FilePosition
-from drivers.wire import Comment, Event, Header, Malformed
+from drivers.wire import Event
 from monitor.store import source_locks
 from monitor.store.db import SYNCHRONOUS, open_store
-from monitor.store.schema import FIRST_UNKNOWN_CODE
+from monitor.store.rows import Codes, event_sql, raw_sql, recode, session_rows
 
 T = TypeVar("T")
 
@@ -88,9 +88,6 @@ class WriterStatus(NamedTuple):
         return self.state
 
 
-_EVENTS_SQL = ("INSERT INTO events (session_id, segment, line, t_us, raw_time, code, value, wall) "
-               "VALUES (?, ?, ?, ?, ?, ?, ?, ?)")
-_RAW_SQL = "INSERT INTO raw_lines (session_id, line, byte_offset, kind, reason, raw) VALUES (?, ?, ?, ?, ?, ?)"
 _GAPS_SQL = "INSERT INTO gaps (source_id, session_id, start_at, end_at, reason) VALUES (?, ?, ?, ?, ?)"
 _SAMPLES_SQL = "INSERT INTO clock_samples (session_id, segment, t_us, received_at) VALUES (?, ?, ?, ?)"
 
@@ -102,9 +99,9 @@ def _insert_all(sql: str, rows: list[tuple], conn: sqlite3.Connection) -> list[t
 
 def _as_raw_line(event_row: tuple, names: dict[int, str], why: str) -> tuple:
     """An event row SQLite refused, as a malformed raw line that keeps what it said."""
-    session_id, _segment, line, t_us, raw_time, code, value, _wall = event_row
+    _segment, line, t_us, raw_time, code, value, _wall = event_row
     text = f"{raw_time} {names.get(code, code)}" + (f" {value}" if value else "")
-    return (session_id, line if isinstance(line, int) and abs(line) < 1 << 63 else None, None, "malformed",
+    return (line if isinstance(line, int) and abs(line) < 1 << 63 else None, None, "malformed",
             f"could not be stored ({why}); device time {t_us}", text.encode("ascii", "replace"))
 
 
@@ -154,16 +151,15 @@ class StoreWriter:
         self._ready = threading.Event()
         self._open_error: BaseException | None = None
         self._stop_deadline = 0.0
-        # rows waiting for a commit (writer thread only, counters read under _lock)
-        self._events: list[tuple] = []
-        self._raw: list[tuple] = []
+        # rows waiting for a commit (writer thread only, counters read under _lock): per session, its
+        # event rows and raw-line rows (monitor.store.rows: no session id in them)
+        self._rows: dict[int, tuple[list[tuple], list[tuple]]] = {}
+        self._row_count = 0
         self._gaps: list[tuple] = []
         self._samples: list[tuple] = []
-        self._new_codes: list[tuple[int, str]] = []
         self._offsets: dict[int, FilePosition] = {}
         self._losses: dict[tuple[int, int], _Loss] = {}
-        self._codes: dict[str, int] = {}
-        self._next_code = FIRST_UNKNOWN_CODE
+        self._codes = Codes({})
         self._first_pending: float | None = None
         self._state = OK
         self._pending = 0
@@ -234,8 +230,7 @@ class StoreWriter:
             conn = open_store(self.path, busy_timeout_ms=self._busy_ms, synchronous=self._synchronous)
             st = os.stat(self.path)
             self._identity = (st.st_dev, st.st_ino)
-            self._codes = dict(conn.execute("SELECT name, code FROM event_codes"))
-            self._next_code = max([FIRST_UNKNOWN_CODE - 1, *self._codes.values()]) + 1
+            self._codes = Codes(dict(conn.execute("SELECT name, code FROM event_codes")))
         except BaseException as exc:  # noqa: BLE001 - handed to start()'s caller
             self._open_error = exc
             self._ready.set()
@@ -366,12 +361,18 @@ class StoreWriter:
         """Turn one batch into pending rows (or count it as lost when live and over the bound)."""
         for gap in batch.gaps:
             self._gaps.append((source_id, session_id, gap.start, gap.end, gap.reason))
-        for text in batch.notices:
-            self._raw.append((session_id, None, None, "notice", text, None))
+        if batch.notices:
+            self._session(session_id)[1].extend((None, None, "notice", text, None) for text in batch.notices)
+            self._row_count += len(batch.notices)
         if live and self._pending >= self.max_pending_rows and batch.records:
             self._lose(batch, source_id, session_id)
         else:
-            self._rows(batch, session_id)
+            if batch.records:
+                events, raw = session_rows(batch.records, self._codes)
+                pending_events, pending_raw = self._session(session_id)
+                pending_events.extend(events)
+                pending_raw.extend(raw)
+                self._row_count += len(events) + len(raw)
             if batch.resume is not None:
                 self._offsets[source_id] = batch.resume
             if live and batch.records:
@@ -382,58 +383,18 @@ class StoreWriter:
                         break
                 if type(last) is Event:
                     self._samples.append((session_id, last.segment, last.t_us, batch.received))
-        pending = len(self._events) + len(self._raw)
+        pending = self._row_count
         with self._lock:
             self._pending = pending
         if self._first_pending is None and (pending or self._gaps or self._offsets or self._samples):
             self._first_pending = time.monotonic()
 
-    def _rows(self, batch: Batch, session_id: int) -> None:
-        events, raw, codes = self._events, self._raw, self._codes
-        for r in batch.records:
-            kind = type(r)
-            if kind is Event:
-                code = codes.get(r.name)
-                if code is None:
-                    code = self._new_code(r.name)
-                events.append((session_id, r.segment, r.line, r.t_us, r.raw_time, code,
-                               " ".join(r.args) if r.args else None, r.wall_time))
-            elif kind is Malformed:
-                raw.append((session_id, r.line, r.offset, "malformed", r.reason, bytes(r.raw)))
-            elif kind is Header:
-                text = " ".join([f"# rigside-wire {r.version}", *(f"{k}={v}" for k, v in r.fields.items())])
-                raw.append((session_id, r.line, r.offset, "header", None, text.encode("ascii", "replace")))
-            elif kind is Comment:
-                raw.append((session_id, r.line, r.offset, "comment", None, r.text.encode("utf-8", "surrogateescape")))
-            else:
-                raise TypeError(f"not a decoder record: {r!r:.80}")
-
-    def _new_code(self, name: str) -> int:
-        code = self._next_code
-        self._next_code += 1
-        self._codes[name] = code
-        self._new_codes.append((code, name))
-        return code
-
-    def _settle_codes(self, conn: sqlite3.Connection) -> None:
-        """Inside the commit: another process (an import) may have added unknown words since we looked."""
-        stored = dict(conn.execute("SELECT name, code FROM event_codes"))
-        top = max([FIRST_UNKNOWN_CODE - 1, *stored.values()])
-        remap: dict[int, int] = {}
-        fresh: list[tuple[int, str]] = []
-        for code, name in self._new_codes:
-            final = stored.get(name)
-            if final is None:
-                top += 1
-                final = top
-                fresh.append((final, name))
-            if final != code:
-                remap[code] = final
-            self._codes[name] = final
-        self._next_code = top + 1
-        self._new_codes = fresh
-        if remap:
-            self._events = [e if e[5] not in remap else (*e[:5], remap[e[5]], *e[6:]) for e in self._events]
+    def _session(self, session_id: int) -> tuple[list[tuple], list[tuple]]:
+        """The session's pending (event rows, raw-line rows)."""
+        rows = self._rows.get(session_id)
+        if rows is None:
+            rows = self._rows[session_id] = ([], [])
+        return rows
 
     def _lose(self, batch: Batch, source_id: int, session_id: int) -> None:
         lost = sum(1 for r in batch.records if type(r) is Event) or len(batch.records)
@@ -487,14 +448,22 @@ class StoreWriter:
             gaps.append((source_id, session_id, loss.start, loss.end,
                          f"store overflow: {loss.events} live events not stored"))
         conn.execute("BEGIN IMMEDIATE")
-        if self._new_codes:
-            self._settle_codes(conn)
-            conn.executemany("INSERT INTO event_codes (code, name, known) VALUES (?, ?, 0)", self._new_codes)
+        # inside the commit: another process (an import) may have added unknown words since we looked
+        remap = self._codes.settle(conn)
+        if remap:
+            for session_id, (events, raw) in self._rows.items():
+                self._rows[session_id] = (recode(events, remap), raw)
         insert = self._insert_each if row_by_row else _insert_all
-        diverted = insert(_EVENTS_SQL, self._events, conn)
-        names = {code: name for name, code in self._codes.items()} if diverted else {}
-        raw = self._raw + [_as_raw_line(row, names, why) for row, why in diverted]
-        unstored = len(insert(_RAW_SQL, raw, conn)) if raw else 0
+        committed = diverted = unstored = 0
+        for session_id, (events, raw) in self._rows.items():
+            failed = insert(event_sql(session_id), events, conn) if events else []
+            if failed:
+                names = {code: name for name, code in self._codes.known.items()}
+                raw = raw + [_as_raw_line(row, names, why) for row, why in failed]
+            if raw:
+                unstored += len(insert(raw_sql(session_id), raw, conn))
+            committed += len(events) - len(failed)
+            diverted += len(failed)
         if gaps:
             unstored += len(insert(_GAPS_SQL, gaps, conn))
         if self._samples:  # derived from the events (clock alignment): one SQLite refuses is just left out
@@ -510,15 +479,17 @@ class StoreWriter:
                 (source_id, pos.offset, pos.identity[0], pos.identity[1], pos.fingerprint, pos.prefix_len,
                  json.dumps(pos.decoder), now))
         conn.execute("COMMIT")
-        committed = len(self._events) - len(diverted)
-        for rows in (self._events, self._raw, self._gaps, self._samples, self._new_codes):
+        self._codes.new.clear()
+        for rows in (self._gaps, self._samples):
             rows.clear()
+        self._rows.clear()
+        self._row_count = 0
         self._offsets.clear()
         self._losses.clear()
         self._first_pending = None
         with self._lock:
             self._committed += committed
-            self._diverted += len(diverted)
+            self._diverted += diverted
             self._unstored += unstored
             self._commits += 1
             self._pending = 0

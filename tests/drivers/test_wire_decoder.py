@@ -7,7 +7,7 @@ trailing partial line held back), the habit of h11's test-suite.
 from __future__ import annotations
 
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from drivers.wire import (
@@ -15,6 +15,7 @@ from drivers.wire import (
     Comment,
     Event,
     Header,
+    LineDecoder,
     Malformed,
     WireDecoder,
     decode_all,
@@ -254,3 +255,42 @@ def test_times_beyond_64_bit_storage_are_malformed():
     _, huge, _, wide = decode_all(data)
     assert isinstance(huge, Malformed) and "2^62" in huge.reason
     assert isinstance(wide, Malformed) and "2^62" in wide.reason
+
+
+def _decode_reconnected(data: bytes, cut: int, line_by_line: bool) -> list:
+    """The records of `data` with a reconnect after its first `cut` bytes; `line_by_line`: every line takes
+    the full checks (the route of a chunk that is not plain ASCII)."""
+    decoder = WireDecoder()
+    if line_by_line:
+        decoder._decode_lines = lambda chunk, lines, out: LineDecoder._decode_lines(decoder, chunk, lines, out)
+    records = decoder.feed(data[:cut])
+    decoder.new_segment()
+    return records + decoder.feed(data[cut:]) + decoder.close()
+
+
+# ASCII without a lone CR, with wrapping 8-bit clocks, resets, glued headers and bad lines: the inline route
+PLAIN_PIECES = st.sampled_from(
+    [b"1 lick", b"2 lever_down 1", b"300 lever_up 1", b"# rigside-wire 1 wrap=8", b"# rigside-wire 1 clock=ms wrap=0",
+     b"# rigside-wire 1 wrap=0", b" ", b"\t", b"x", b"99999999999 lick", b"3 note hi # rigside-wire 1", b"# c",
+     b"5 param stage 2", b"7 valve", b"8 reward 5000", b"9 9lives", b"4611686018427388 lick", b"1 outcome hit",
+     b"4611686018427387904 lick", b"2 zeta_word a b"]
+)
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.lists(st.lists(PLAIN_PIECES, max_size=4).map(b"".join), max_size=60), st.integers(0, 400))
+@example([b"# rigside-wire 1 wrap=0", b"1 lick", b"4611686018427387904 lick", b"# rigside-wire 1 clock=ms wrap=0",
+          b"4611686018427388 lick", b"1 lick"], 400)
+def test_plain_event_lines_decoded_inline_give_what_the_full_checks_give(lines, cut):
+    data = b"\n".join(lines) + b"\n"
+    assert _decode_reconnected(data, cut, False) == _decode_reconnected(data, cut, True)
+
+
+def test_a_long_plain_session_decodes_as_its_lines_say():
+    text = "".join(f"{1000 * i} lever_down 1\n{1000 * i + 50} reward 30\n" for i in range(5000))
+    events = decode_all(b"# rigside-wire 1 clock=us wrap=32\n" + text.encode())
+    # an independent reading: Python's own split of the lines written above
+    plain = [(int(t), word, tuple(rest)) for t, word, *rest in (line.split() for line in text.splitlines())]
+    assert [(e.raw_time, e.name, e.args) for e in events[1:]] == plain
+    assert [e.line for e in events[1:]] == list(range(2, 10002))
+    assert events[-1].offset + events[-1].size == len(text) + len(b"# rigside-wire 1 clock=us wrap=32\n")

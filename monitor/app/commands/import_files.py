@@ -6,20 +6,24 @@ any name) or be given twice; otherwise one line names the file and exit 2.
 With `--skip-imported` files imported before are skipped instead, each named
 on stderr, so an interrupted import resumes with the same command.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
-file or none of it) with its trials derived. Files are read, split and
-their trials derived in worker processes (`--jobs`, one per core) while
-this process stores them in the order given. While another process holds the
-write lock the import waits up to `--wait` seconds instead of failing. Then
-each imported animal's report entry is built once and cached, and (unless
-`--no-fit`) its consolidation model is refitted in separate processes (one
-per core) and cached (monitor.store.consolidation_fits), one stderr line per
-animal. One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
+file or none of it) with its trials derived. Files are read, split, turned
+into rows and their trials derived in worker processes (`--jobs`, one per
+core besides this one; monitor.store.import_pool) while this process stores them in the order
+given. While another process holds the write lock the import waits up to
+`--wait` seconds instead of failing. As soon as an animal's last file is
+stored, its report entry is built once here and kept (the workers parse ahead
+meanwhile), and (unless `--no-fit`) its consolidation model is refitted in a
+worker process (one per core, one BLAS thread each) and cached
+(monitor.store.consolidation_fits), so fits run while later files are still
+being imported; one stderr line per animal at the end.
+One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
 session, 5123 events, 0 malformed, 402 attempts`) below a progress bar on a terminal
 (not with `--quiet`), a summary line to stdout. `import_files` is the work
 both this command and the window's File > Import run (a `Tracker` counts
-files and asks whether to stop): asked to stop (Ctrl-C, the window's
-Cancel) it finishes the file being stored and stops, naming how far it got
-(exit 130); a second Ctrl-C rolls that file back.
+files and animals fitted and asks whether to stop): asked to stop (Ctrl-C,
+the window's Cancel) it finishes the file being stored and stops, naming how
+far it got (exit 130); a second Ctrl-C rolls that file back; during the fits
+it abandons the fits under way (every file stays imported).
 Sessions, animals and times: monitor.store.importer and docs/store.md.
 """
 
@@ -29,7 +33,8 @@ import argparse
 import os
 import sys
 import time
-from collections.abc import Callable
+from concurrent.futures import Future
+from contextlib import nullcontext
 from pathlib import Path
 from typing import Any, Iterator, NamedTuple
 
@@ -54,7 +59,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-fit", action="store_true",
                         help="skip refitting the consolidation model (the report then says \"not fitted\")")
     parser.add_argument("--jobs", type=int, default=0,
-                        help="processes that read files side by side (default 0: one per core when the files add up "
+                        help="processes that read files side by side (default 0: one per core besides this one, "
+                             "which stores, when the files add up "
                              "to a few MB, else this process alone)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.add_argument("--skip-imported", action="store_true",
@@ -76,6 +82,8 @@ class Imported(NamedTuple):
     last: str | None
     seconds: float
     stopped: bool
+    fitted: int = 0            # animals whose model was refitted during the import
+    fits_stopped: bool = False  # asked to stop while fitting: every file imported, some fits abandoned
 
     def summary(self) -> str:
         """The closing line: the counts, or (stopped) how far it got and how to finish."""
@@ -95,18 +103,15 @@ def run(args: argparse.Namespace) -> int:
     with Progress(quiet=args.quiet) as progress:
         result = import_files(resolve_db(args.db), args.files, args.protocol, progress, animal=args.animal,
                               mapping_path=args.mapping, gap_hours=args.gap_hours, wait=args.wait, jobs=args.jobs,
-                              skip_imported=args.skip_imported)
+                              skip_imported=args.skip_imported, fit=not args.no_fit)
         if result.stopped:
             print(result.summary(), file=sys.stderr)
             return INTERRUPTED
-        fitted = None
-        if not args.no_fit and result.animals:
-            fitted = refit_animals(resolve_db(args.db), result.animals, progress)
     if result.skipped:
         print(f"skipped {len(result.skipped)} already imported", file=sys.stderr)
     print(result.summary())
-    if fitted is not None and progress.cancelled():
-        print(f"interrupted while fitting: {fitted} of {len(result.animals)} animals fitted; every file was "
+    if result.fits_stopped:
+        print(f"interrupted while fitting: {result.fitted} of {len(result.animals)} animals fitted; every file was "
               "imported; the window refits the others when their page opens", file=sys.stderr)
         return INTERRUPTED
     return 0
@@ -114,8 +119,9 @@ def run(args: argparse.Namespace) -> int:
 
 def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Tracker, *, animal: str | None = None,
                  mapping_path: Path | None = None, gap_hours: float = 2.0, wait: float = WAIT_S, jobs: int = 0,
-                 skip_imported: bool = False) -> Imported:
-    """Check and import `files` into the store at `db`, one transaction per file, counting files on `tracker`.
+                 skip_imported: bool = False, fit: bool = False) -> Imported:
+    """Check and import `files` into the store at `db`, one transaction per file, counting files on `tracker`;
+    with `fit`, each animal's model is refitted in a worker as soon as its files are stored.
 
     Bad input is a UsageError naming the option (nothing imported); asked to stop, it stops after the
     file being stored (a second Ctrl-C rolls that file back) and says how far it got."""
@@ -125,8 +131,9 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
 
     from monitor.app.commands.record import _read_protocol
     from monitor.store.db import StoreError, open_store
-    from monitor.store.importer import ImportRefused, already_imported, file_digest, rig_calibrations, store_parsed
-    from monitor.store.reporting import refresh_cache
+    from monitor.store.import_pool import Finished, ImportPool, refit
+    from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name, event_codes,
+                                        file_digest, parse_file, rig_calibrations, store_parsed)
 
     if not gap_hours > 0:
         raise UsageError(f"--gap-hours: must be above 0, got {gap_hours:g}")
@@ -179,47 +186,78 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                 tracker.say(f"skipped {path}: already imported (same content as {earlier[0]})")
         contents = [(path, data) for path, data in contents if path not in skipped]
         started = time.monotonic()
-        animals: set[str] = set()
         totals = [0, 0, 0, 0]
-        parsed_files = _parse_all(contents, protocol["text"], animal, mapping, gap_hours * 3600.0,
-                                  rig_calibrations(conn), jobs)
+        animals: set[str] = set()
+        options = {"protocol_text": protocol["text"], "animal": animal, "mapping": mapping,
+                   "gap_s": gap_hours * 3600.0, "calibrations": rig_calibrations(conn), "codes": event_codes(conn)}
+        holds = [None if mapping is not None and "animal" in mapping.columns
+                 else animal or animal_from_file_name(path) for path, _ in contents]
+        parsers = _parsers(contents, jobs)
+        workers = max(parsers, _fit_workers(holds)) if fit else parsers
+        finished = Finished(holds)
+        fits: dict[str, Future] = {}
+        fitted, fits_stopped = 0, False
         interrupted = False
         tracker.begin(len(contents), "file", "importing")
-        try:
-            for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
-                if tracker.cancelled():
-                    interrupted = True
-                    break
-                conn.execute("BEGIN IMMEDIATE")
-                try:
-                    result = store_parsed(conn, parsed, protocol_text=protocol["text"],
-                                          protocol_name=protocol["name"], protocol_version=protocol["version"],
-                                          mapping_text=mapping_text)
-                    conn.execute("COMMIT")
-                except BaseException:
-                    if conn.in_transaction:
-                        conn.execute("ROLLBACK")
-                    raise
-                imported += 1
-                tracker.advance()
-                animals.update(result.animals)
-                for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
-                    totals[i] += value
-                tracker.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
-                            f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
-                for notice in result.notices:
-                    tracker.say(f"  {path.name}: {notice}")
-        except KeyboardInterrupt:  # a second Ctrl-C: the file being stored was rolled back, the finished ones stay
-            interrupted = True
-        for name in sorted(animals):  # the report entry is built once per animal, after its files
-            conn.execute("BEGIN IMMEDIATE")
+        # fits always run in other processes; files are parsed here when one process is enough
+        with (ImportPool(workers) if workers else nullcontext(None)) as pool:
+            if pool is not None and parsers:
+                parsed_files: Iterator[Any] = pool.parse_all(parse_file, contents, options)
+            else:
+                parsed_files = (parse_file(path, data, **options) for path, data in contents)
+                if pool is not None:
+                    pool.done_parsing()
+
+            def ready(names: list[str]) -> None:
+                """The animals' files are all stored: refit them beside, and build their report entries here
+                (the workers parse ahead meanwhile; in a worker, numpy and scipy would load once more)."""
+                animals.update(names)
+                for name in names:
+                    if pool is not None and fit:
+                        fits[name] = pool.submit(refit, str(db), name)
+                for name in names:
+                    _refresh_entry(conn, name)
+
             try:
-                refresh_cache(conn, name)
-                conn.execute("COMMIT")
-            except BaseException:
-                if conn.in_transaction:
-                    conn.execute("ROLLBACK")
-                raise
+                for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
+                    if tracker.cancelled():
+                        interrupted = True
+                        break
+                    conn.execute("BEGIN IMMEDIATE")
+                    try:
+                        result = store_parsed(conn, parsed, protocol_text=protocol["text"],
+                                              protocol_name=protocol["name"], protocol_version=protocol["version"],
+                                              mapping_text=mapping_text)
+                        conn.execute("COMMIT")
+                    except BaseException:
+                        if conn.in_transaction:
+                            conn.execute("ROLLBACK")
+                        raise
+                    imported += 1
+                    tracker.advance()
+                    for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
+                        totals[i] += value
+                    tracker.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
+                                f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
+                    for notice in result.notices:
+                        tracker.say(f"  {path.name}: {notice}")
+                    ready(finished.stored(holds[number - 1], result.animals))
+            except KeyboardInterrupt:  # a second Ctrl-C: the file being stored was rolled back, the finished ones stay
+                interrupted = True
+            if interrupted:
+                fits.clear()
+                if pool is not None:
+                    pool.stop()
+                ready_entries = finished.rest()  # the stored animals' report entries stay current
+                animals.update(ready_entries)
+                for name in ready_entries:
+                    _refresh_entry(conn, name)
+            else:
+                if pool is not None:
+                    pool.done_parsing()
+                ready(finished.rest())
+                if fits:
+                    fitted, fits_stopped = _collect_fits(fits, workers, tracker, pool)
     except ImportRefused as exc:
         raise UsageError(f"FILE: {exc}") from None
     except ConfigError as exc:
@@ -231,45 +269,82 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     finally:
         conn.close()
     return Imported(len(contents), imported, skipped, *totals, sorted(animals),
-                    contents[imported - 1][0].name if imported else None, time.monotonic() - started, interrupted)
+                    contents[imported - 1][0].name if imported else None, time.monotonic() - started, interrupted,
+                    fitted, fits_stopped)
 
 
-def _parse_all(contents: list[tuple[Path, bytes]], protocol_text: str, animal: str | None, mapping: Any,
-               gap_s: float, calibrations: dict[str, float], jobs: int) -> Iterator[Any]:
-    """Each file parsed (decoded, split, trials derived), in the order given.
-
-    Several files are parsed side by side in worker processes (`jobs`, 0 = one per core) while this
-    process stores the ones already parsed; a single file, or one job, is parsed here."""
-    from monitor.store.importer import parse_file
-
-    options = {"protocol_text": protocol_text, "animal": animal, "mapping": mapping, "gap_s": gap_s,
-               "calibrations": calibrations}
-    if jobs == 0:  # a worker costs about half a second to start: worth it only for a few MB of files
-        jobs = os.cpu_count() or 1 if sum(len(data) for _, data in contents) >= PARALLEL_BYTES else 1
-    jobs = min(jobs, len(contents))
-    if jobs <= 1:
-        for path, data in contents:
-            yield parse_file(path, data, **options)
-        return
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
-
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
-                             initializer=_leave_interrupt_to_parent) as pool:
-        futures = [pool.submit(parse_file, path, data, **options) for path, data in contents]
-        try:
-            for future in futures:
-                yield future.result()
-        finally:
-            for future in futures:
-                future.cancel()
+def _parsers(contents: list[tuple[Path, bytes]], jobs: int) -> int:
+    """Worker processes that parse the files (0: this process parses them): `--jobs` when above 1, or with
+    0 one per core besides this process's (which stores) when the files add up to a few MB (a worker costs
+    about half a second to start); never more than the files."""
+    if jobs == 0:
+        if sum(len(data) for _, data in contents) < PARALLEL_BYTES:
+            return 0
+        return min(_cores() - 1, len(contents))
+    return 0 if jobs == 1 else min(jobs, len(contents))
 
 
-def _leave_interrupt_to_parent() -> None:
-    """A reading worker ignores Ctrl-C: the importing process decides where to stop."""
-    import signal
+def _cores() -> int:
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
 
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+def _refresh_entry(conn: Any, animal: str) -> None:
+    """Build and keep the animal's report entry in a short transaction of its own."""
+    from monitor.store.reporting import refresh_cache
+
+    conn.execute("BEGIN IMMEDIATE")
+    try:
+        refresh_cache(conn, animal)
+        conn.execute("COMMIT")
+    except BaseException:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+        raise
+
+
+def _fit_workers(holds: list[str | None]) -> int:
+    """Processes for the fits: one per core, no more than the animals (when the file names tell them)."""
+    from monitor.store.consolidation_fits import worker_count
+
+    return worker_count(len(holds) if None in holds else len(set(holds)))
+
+
+def _collect_fits(fits: dict[str, Future], workers: int, tracker: Tracker, pool: Any) -> tuple[int, bool]:
+    """Wait for the refits (started as each animal's files were stored), a line per animal on `tracker`;
+    asked to stop, the fits under way are abandoned. Return (animals fitted, stopped)."""
+    from concurrent.futures import FIRST_COMPLETED, wait
+
+    from monitor.core.consolidation.words import fraction_text
+
+    tracker.say(f"fitting the consolidation model of {_n(len(fits), 'animal')} in {workers} separate "
+                f"{'process' if workers == 1 else 'processes'} (one per core), started as each animal's files were "
+                "stored")
+    tracker.begin(len(fits), "animal", "fitting")
+    waiting = {future: animal for animal, future in fits.items()}
+    fitted = 0
+    while waiting:
+        if tracker.cancelled():
+            pool.stop()
+            return fitted, True
+        done, _ = wait(waiting, timeout=0.2, return_when=FIRST_COMPLETED)
+        for future in sorted(done, key=waiting.get):
+            animal = waiting.pop(future)
+            tracker.advance()
+            try:
+                block = future.result()
+            except Exception as exc:  # noqa: BLE001 - one line per animal, the others go on
+                tracker.say(f"fit {animal}: failed ({type(exc).__name__}: {exc}); the report says \"not fitted\"")
+                continue
+            if block is None:
+                tracker.say(f"fit {animal}: failed (no result); the report says \"not fitted\"")
+                continue
+            fitted += 1
+            figure = fraction_text(block["estimate"], block["low"], block["high"], block["status"])
+            tracker.say(f"fit {animal}: slow-state fraction {figure} at session {block['session']}")
+    return fitted, False
 
 
 def refit_animals(db: Path, animals: list[str], tracker: Tracker) -> int:

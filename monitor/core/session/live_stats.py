@@ -24,6 +24,7 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
+from monitor.core.session.derivation import water_of
 from monitor.core.session.histogram import HistogramSnapshot, IntervalHistograms, linear_edges, log_edges
 from monitor.core.protocol import Protocol
 from monitor.core.session.rolling import RollingRate, RunningMedian, RunningMoments, WindowMedian
@@ -202,16 +203,9 @@ class LiveStats:
         name = getattr(event, "name", None)
         if name == "lick":
             self.licks += 1
-        elif name == "reward":
-            self.rewards += 1
-            args = event.args
-            volume = float(args[0]) if args else self.protocol.reward_ul
-            if volume is not None and math.isfinite(volume) and volume >= 0:
-                self.water_ul += volume
-        elif name == "valve" and self.valve_ul_per_ms is not None:
-            open_ms = float(event.args[0])
-            if math.isfinite(open_ms) and open_ms >= 0:
-                self.water_ul += open_ms * self.valve_ul_per_ms
+        elif name == "reward" or name == "valve":
+            self.rewards += name == "reward"
+            self.water_ul += water_of(event, self.protocol, self.valve_ul_per_ms)
 
     def snapshot(self) -> LiveSnapshot:
         figures = self._stage

@@ -33,6 +33,7 @@ from monitor.core.protocol import Protocol, Stage, exact, tolerance_edges
 NOT_TRIALS = frozenset({"lone", "premature", "omission"})
 OUTCOME_GRACE_US = 500_000  # a rig outcome this soon after an attempt claims it (before any outcome was seen)
 _WINDOW_PARAMS = ("window_low_ms", "window_high_ms")
+_QUIET_EVENTS = frozenset({"reward", "valve", "lick", "cue", "session_start", "note"})  # known, not segmentation's
 _STAGE_PARAMS = ("target_ms", "tolerance", "trial_timeout_ms", "iti_ms", "premature_ms", "min_hold_ms") + _WINDOW_PARAMS
 
 
@@ -147,12 +148,19 @@ class TrialBuilder:
             self.counts["non_event"] += 1
             return []
         out: list[Trial] = []
-        t = self._relative(t_raw, getattr(event, "segment", 0), out)
-        self._expire(t, out)
+        segment = getattr(event, "segment", 0)
+        if self._started and segment == self._segment:  # the common case of `_relative`, inline (hot path)
+            t = t_raw - self._origin + self._base
+            if t > self._last_rel:
+                self._last_rel = t
+        else:
+            t = self._relative(t_raw, segment, out)
+        if self._pending is not None or self._first is not None:
+            self._expire(t, out)
         handler = self._dispatch.get(name)
         if handler is not None:
             handler(t, event.args, out)
-        elif name not in ("reward", "valve", "lick", "cue", "session_start", "note"):
+        elif name not in _QUIET_EVENTS:
             self.counts["unknown_event"] += 1
         return out
 

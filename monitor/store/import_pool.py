@@ -1,0 +1,169 @@
+"""Worker processes beside an import: files parsed ahead, animals refitted meanwhile.
+
+Rule: the importing process stores the files in the order given, each in its
+own transaction; the workers (spawned, as many as asked, each with one BLAS
+thread, Ctrl-C ignored: the importing process handles it and cancels them)
+parse the files ahead of it (the first one in the importing process, while
+they start), at most `LOOKAHEAD_BYTES` of files at a time so memory stays
+bounded. As soon as an animal's last file is stored (`Finished`
+tells which), its consolidation model can be refitted in a worker
+(`refit_animal`, which saves its own fit in a short transaction), so fits run
+while later files are still being imported. Until every file has been handed
+to a worker, such jobs wait, so parsing never queues behind a fit."""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+import signal
+from collections import Counter, deque
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from concurrent.futures import CancelledError, Future, ProcessPoolExecutor
+from pathlib import Path
+from typing import Any
+
+LOOKAHEAD_BYTES = 64_000_000  # files parsed ahead of the one being stored (the parsed rows take ~10x this)
+
+_cancelled: Any = None  # in a worker: the pool's cancel event
+
+
+def _start_worker(cancel: Any) -> None:
+    """A worker's first step: Ctrl-C is the importing process's to handle; remember the cancel event."""
+    global _cancelled
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _cancelled = cancel
+
+
+def refit(db: str, animal: str) -> dict[str, Any] | None:
+    """Refit an animal and save the fit (a worker's job); its block, or None when cancelled."""
+    from monitor.store.consolidation_fits import refit_animal
+
+    return refit_animal(db, animal, cancel=None if _cancelled is None else _cancelled.is_set)
+
+
+class Finished:
+    """Which animals have all their files stored, from what each file may hold.
+
+    `holds[i]` is the animal file i holds (known from --animal or its NAME_sNN name), or None when any
+    animal may be in it (a mapped file with an animal column)."""
+
+    def __init__(self, holds: Sequence[str | None]) -> None:
+        self._ahead = Counter(holds)  # files not stored yet, by the animal they hold
+        self._stored: set[str] = set()
+        self._told: set[str] = set()
+
+    def stored(self, holds: str | None, animals: Iterable[str]) -> list[str]:
+        """A file was stored (holding `holds`, as given to the constructor, and in fact `animals`): the animals
+        whose files are now all stored, not told before."""
+        self._ahead[holds] -= 1
+        self._stored.update(animals)
+        if self._ahead[None] > 0:
+            return []
+        done = sorted(a for a in self._stored - self._told if self._ahead[a] <= 0)
+        self._told.update(done)
+        return done
+
+    def rest(self) -> list[str]:
+        """The stored animals not told yet (the import ended, or was cut short)."""
+        rest = sorted(self._stored - self._told)
+        self._told.update(rest)
+        return rest
+
+
+class ImportPool:
+    """Spawned worker processes for one import (a context manager: it ends them)."""
+
+    def __init__(self, workers: int) -> None:
+        from monitor.store.consolidation_fits import ONE_CORE
+
+        context = multiprocessing.get_context("spawn")
+        self.cancel = context.Event()
+        self._saved = {key: os.environ.get(key) for key in ONE_CORE}
+        os.environ.update(ONE_CORE)  # read by each worker's interpreter as it starts, before numpy loads
+        self._pool = ProcessPoolExecutor(max_workers=workers, mp_context=context, initializer=_start_worker,
+                                         initargs=(self.cancel,))
+        self._held: deque[tuple[Callable[..., Any], tuple, Future]] = deque()
+        self._parsing = True
+
+    def parse_all(self, parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]],
+                  options: dict[str, Any]) -> Iterator[Any]:
+        """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller
+        (the first one here, while the workers start)."""
+        pending: deque[tuple[Future, int]] = deque()
+        files = list(contents[1:])
+        state = {"submitted": 0, "ahead": 0}
+
+        def top_up() -> None:
+            """Hand files to the workers up to the look-ahead bound; once all are handed out, held jobs go."""
+            while state["submitted"] < len(files) and (state["ahead"] <= LOOKAHEAD_BYTES or not pending):
+                path, data = files[state["submitted"]]
+                pending.append((self._pool.submit(parse, path, data, **options), len(data)))
+                state["submitted"] += 1
+                state["ahead"] += len(data)
+            if state["submitted"] == len(files) and self._parsing:
+                self.done_parsing()
+
+        try:
+            top_up()
+            for path, data in contents[:1]:
+                yield parse(path, data, **options)
+            while pending:
+                future, size = pending.popleft()
+                state["ahead"] -= size
+                top_up()
+                yield future.result()
+        finally:
+            for future, _ in pending:
+                future.cancel()
+
+    def submit(self, job: Callable[..., Any], *args: Any) -> Future:
+        """Run `job(*args)` in a worker once every file has been handed out for parsing."""
+        if not self._parsing:
+            return self._pool.submit(job, *args)
+        future: Future = Future()
+        self._held.append((job, args, future))
+        return future
+
+    def _release(self) -> None:
+        while self._held:
+            job, args, future = self._held.popleft()
+            if future.set_running_or_notify_cancel():
+                _chain(self._pool.submit(job, *args), future)
+
+    def done_parsing(self) -> None:
+        """No more files to parse (a single file, or parsed here): held jobs may start."""
+        self._parsing = False
+        self._release()
+
+    def stop(self) -> None:
+        """Cancel: jobs not started are dropped, running fits stop at their next check (nothing saved)."""
+        self.cancel.set()
+        while self._held:
+            self._held.popleft()[2].cancel()
+        self._pool.shutdown(wait=False, cancel_futures=True)
+
+    def __enter__(self) -> ImportPool:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if exc[0] is not None:
+            self.stop()
+        self._pool.shutdown(wait=True, cancel_futures=exc[0] is not None)
+        for key, value in self._saved.items():
+            if value is None:
+                os.environ.pop(key, None)
+            else:
+                os.environ[key] = value
+
+
+def _chain(source: Future, target: Future) -> None:
+    """Hand `source`'s outcome to `target` when it comes."""
+    def copy(done: Future) -> None:
+        if done.cancelled():
+            target.set_exception(CancelledError())
+        elif done.exception() is not None:
+            target.set_exception(done.exception())
+        else:
+            target.set_result(done.result())
+
+    source.add_done_callback(copy)
