@@ -59,8 +59,8 @@ _.backlog_bytes  # mock_rig/outputs.py
 _.inject  # mock_rig/live.py
 classic_params  # mock_rig/learner.py (the simulator's documented classic mode)
 _.classic_trial  # mock_rig/learner.py
-_.batches  # monitor/app/engine.py
-_.jobs  # monitor/app/controller.py
+_.batches  # monitor/app/live/engine.py
+_.jobs  # monitor/app/window/controller.py
 _.notifier  # monitor/ui/main_window.py
 scheme  # monitor/ui/main_window.py
 _.static_builds  # monitor/ui/tile.py

@@ -1,4 +1,4 @@
-"""monitor.app.controller: a file source through the Fanout, store and engine to the owners (offscreen)."""
+"""monitor.app.window.controller: a file source through the Fanout, store and engine to the owners (offscreen)."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import threading
 
 import pytest
 
-from monitor.app.controller import Controller, RigSpec
+from monitor.app.window.controller import Controller, RigSpec
 from monitor.store.writer import StoreWriter
 from monitor.ui.main_window import MainWindow
 from monitor.ui.models import CheckIn, Severity
@@ -103,7 +103,7 @@ def test_history_comes_from_the_store_when_the_page_opens(rig, qtbot):
                     controller.writer.status().pending_rows == 0, timeout=10000)
     controller.check_out("box 1")
     qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
-    from monitor.app.controller import store_v2
+    from monitor.app.window.controller import store_v2
     if store_v2():                                  # the store derived the session's trials at check-out
         with sqlite3.connect(db) as conn:
             assert conn.execute("SELECT count(*) FROM trials").fetchone()[0] == 5
@@ -186,10 +186,10 @@ def test_a_failing_job_is_shown_not_swallowed(rig, qtbot):
 
 
 def test_alerts_go_to_the_stores_alerts_table(qapp, tmp_path, qtbot):
-    from monitor.app.controller import store_v2
+    from monitor.app.window.controller import store_v2
     if not store_v2():
         pytest.skip("the store has no alerts table")
-    from monitor.app.engine import RaisedAlert
+    from monitor.app.live.engine import RaisedAlert
     from monitor.core.alerts import URGENT, Raised
     writer = StoreWriter(tmp_path / "a.sqlite3")
     writer.start()
@@ -250,7 +250,7 @@ def test_params_sent_before_check_in_are_the_sessions_and_the_box_names_the_stag
 
 
 def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_afterwards(rig, qtbot):
-    from monitor.app.controller import store_v2
+    from monitor.app.window.controller import store_v2
     from monitor.ui.models import Connection, UnattendedGift
 
     controller, window, log, store, db = rig
@@ -279,7 +279,7 @@ def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_af
 
 
 def test_check_out_records_who_confirmed_it(rig, qtbot):
-    from monitor.app.controller import store_v2
+    from monitor.app.window.controller import store_v2
     from monitor.ui.models import CheckOut
 
     controller, window, log, store, db = rig

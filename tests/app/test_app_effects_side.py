@@ -10,7 +10,7 @@ import pytest
 
 from drivers.wire import encode_event, encode_header
 from monitor.app import cli
-from monitor.app.controller import Controller
+from monitor.app.window.controller import Controller
 from monitor.store.writer import StoreWriter
 from monitor.ui.effects_view import EffectsView
 from monitor.ui.main_window import MainWindow

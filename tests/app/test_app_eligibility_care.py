@@ -1,4 +1,4 @@
-"""monitor.app.eligibility_care: verdict and care lines, alerts, decisions and care records through a real store."""
+"""monitor.app.window.eligibility_care: verdict and care lines, alerts, decisions and care records through a real store."""
 
 from __future__ import annotations
 
@@ -9,8 +9,8 @@ import pytest
 from PySide6.QtGui import QImage
 
 from drivers.wire import Event
-from monitor.app.eligibility_care import CLEARED_BY, care_row, decision_view
-from monitor.app.animal_records import Judgement
+from monitor.app.window.eligibility_care import CLEARED_BY, care_row, decision_view
+from monitor.app.services.animal_records import Judgement
 from monitor.core.eligibility.assignment import blinding_key
 from monitor.core.care.ledger import AnimalCare, CareConfig, Weighing, day_summary
 from monitor.core.care.water import session_water
@@ -156,7 +156,7 @@ def test_care_row_check_values():
 def test_a_day_with_nothing_recorded_reads_as_a_state_and_counts_in_words():
     from datetime import timedelta
 
-    from monitor.app.eligibility_care import care_text
+    from monitor.app.window.eligibility_care import care_text
 
     now = datetime.now().astimezone()
     yesterday = now - timedelta(days=1)
@@ -171,7 +171,7 @@ def test_a_day_with_nothing_recorded_reads_as_a_state_and_counts_in_words():
 
 
 def test_cohort_row_from_the_figures_the_verdict_and_the_care_day():
-    from monitor.app.eligibility_care import cohort_row
+    from monitor.app.window.eligibility_care import cohort_row
 
     now = datetime.now().astimezone()
     events = [Event(1_000_000, "valve", ("25",), "1000", 0, 1, 0, 0), Event(1_100_000, "lick", (), "1100", 0, 2, 0, 0)]

@@ -1,4 +1,4 @@
-"""monitor.app.live_fraction: the session's trials reach the cached filter once each, in order."""
+"""monitor.app.live.fraction: the session's trials reach the cached filter once each, in order."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from drivers.wire import decode_all
-from monitor.app.live_fraction import LiveFractions, live_text
+from monitor.app.live.fraction import LiveFractions, live_text
 from monitor.core.consolidation.live import LiveSetup, LiveFilter, filter_state, restore_filter
 from monitor.core.session.live_stats import LiveSession
 from fixtures.protocols import two_press

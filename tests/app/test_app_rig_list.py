@@ -1,4 +1,4 @@
-"""The rig list (monitor.app.rig_list) and `rigside window` on it: rigs restored, bad files named."""
+"""The rig list (monitor.app.rigs) and `rigside window` on it: rigs restored, bad files named."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ import pytest
 
 from drivers.config import ConfigError
 from drivers.wire import encode_event, encode_header
-from monitor.app.rig_list import append_rig, read_rigs
+from monitor.app.rigs import append_rig, read_rigs
 from monitor.ui.models import RigSetup
 
 pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test

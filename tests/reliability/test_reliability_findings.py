@@ -17,7 +17,7 @@ import pytest
 from drivers.serial import SerialSource
 from drivers.status import CONNECTED, READING, WAITING
 from drivers.wire import encode_event, encode_header
-from monitor.app.pipeline import Fanout
+from monitor.app.live.pipeline import Fanout
 from monitor.store import db
 from monitor.store.writer import StoreWriter
 

@@ -26,7 +26,7 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
-from monitor.app.engine import RigSnapshot
+from monitor.app.live.engine import RigSnapshot
 from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.eligibility.from_report import figures_from_report
 from monitor.core.session.binomial import wilson

@@ -37,12 +37,12 @@ from PySide6.QtWidgets import QApplication, QLabel, QProgressBar, QPushButton
 
 from drivers.status import Batch
 from drivers.wire import Event, WireDecoder
-from monitor.app.alerting import AlertCentre, AlertStore, TableAlertStore
-from monitor.app.engine import Engine, RaisedAlert, RigSnapshot, SessionPlan
-from monitor.app.live_fraction import LiveFractions, live_text, session_start_wall
-from monitor.app.pipeline import Fanout
+from monitor.app.window.alerting import AlertCentre, AlertStore, TableAlertStore
+from monitor.app.live.engine import Engine, RaisedAlert, RigSnapshot, SessionPlan
+from monitor.app.live.fraction import LiveFractions, live_text, session_start_wall
+from monitor.app.live.pipeline import Fanout
 from monitor.app.stopping import StopRequests
-from monitor.app import views
+from monitor.app.live import views
 from monitor.core.alerts import AlertRules, plateau_alert, store_alert
 from monitor.core.protocol import Protocol, parse_protocol
 from monitor.core.session.live_stats import LiveSession
@@ -253,9 +253,9 @@ class Controller(QObject):
         self.fit_consolidation = fit_consolidation
         self.rigs: dict[str, _Rig] = {}
         self.window = None
-        self.records = None          # eligibility and care (monitor/app/eligibility_care.py) once a window attaches
+        self.records = None          # eligibility and care (monitor/app/window/eligibility_care.py) once a window attaches
         self.recorded_animals: set[str] = set()  # added in the animals window this run (offered at check-in)
-        self.animal_records = None   # the animals window's side (monitor/app/animal_window.py) once a window attaches
+        self.animal_records = None   # the animals window's side (monitor/app/window/animal_window.py) once a window attaches
         self.open_pages: set[str] = set()
         self.history_parts: dict[str, views.HistoryParts] = {}
         self.fits: dict[str, Any] = {}
@@ -320,16 +320,16 @@ class Controller(QObject):
             widget.hide()
         window.set_roster(self.roster())
         self.load_stored_stages()
-        from monitor.app.eligibility_care import DecisionsAndCare
+        from monitor.app.window.eligibility_care import DecisionsAndCare
 
         self.records = DecisionsAndCare(self, care)
         self.records.attach(window)
-        from monitor.app.animal_window import AnimalRecordsSide
+        from monitor.app.window.animal_window import AnimalRecordsSide
 
         self.animal_records = AnimalRecordsSide(self)
         self.animal_records.attach(window)
 
-        from monitor.app.effects_side import EffectsSide
+        from monitor.app.window.effects_side import EffectsSide
 
         EffectsSide(self).attach(window)
 

@@ -31,7 +31,7 @@ from pathlib import Path
 
 from drivers.wire import Event, Header, Malformed, decode_all
 from mock_rig import scenario
-from monitor.app import views
+from monitor.app.live import views
 from monitor.core.care.ledger import CareConfig
 from monitor.core.protocol import Protocol
 
@@ -66,7 +66,7 @@ class FileHistory:
         self.files = files
 
     def sessions(self, animal: str, protocol: Protocol, job) -> list[views.HistorySession]:
-        from monitor.app.controller import segment
+        from monitor.app.window.controller import segment
 
         paths = self.files.get(animal, [])
         out: list[views.HistorySession] = []
@@ -178,8 +178,8 @@ def _run(options: DemoOptions, folder: Path, inspect) -> int:
     from mock_rig.demo import STAGES, prepare_demo, start_demo
     from mock_rig.live import LiveRig, stop_rigs
     from mock_rig.outputs import FileOutput, pty_available
-    from monitor.app.controller import Controller, RigSpec, StoreHistory, load_protocol, wait_for
-    from monitor.app.discovery import discover_devices
+    from monitor.app.window.controller import Controller, RigSpec, StoreHistory, load_protocol, wait_for
+    from monitor.app.window.discovery import discover_devices
     from monitor.core.alerts import AlertRules
     from monitor.store.writer import StoreWriter
     from monitor.ui.main_window import MainWindow

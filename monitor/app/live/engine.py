@@ -32,7 +32,7 @@ from typing import Any, Callable, NamedTuple
 
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from drivers.wire import Event, Header, Malformed
-from monitor.app.pipeline import EngineBatch
+from monitor.app.live.pipeline import EngineBatch
 from monitor.core.alerts import ACTIVITY_EVENTS, LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
 from monitor.core.protocol import Protocol
 from monitor.core.session.live_stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot, RateSeries

@@ -20,7 +20,7 @@ import math
 from pathlib import Path
 
 from drivers.config import ConfigError, TomlFile
-from monitor.app.controller import RigSpec
+from monitor.app.window.controller import RigSpec
 from monitor.ui.models import RigSetup
 from monitor.ui.validation import RIG_NAME, VALVE_RANGE_UL_PER_MS
 
