@@ -32,7 +32,7 @@ def shoot(out: Path, missing: list[str]) -> Callable:
     def run(controller, window) -> None:
         from PySide6.QtWidgets import QApplication
 
-        from monitor.app.window.controller import wait_for
+        from monitor.app.window.demo import wait_for
 
         app = QApplication.instance()
         for width, height, suffix in SIZES:

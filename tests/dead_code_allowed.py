@@ -60,7 +60,7 @@ _.inject  # mock_rig/live.py
 classic_params  # mock_rig/learner.py (the simulator's documented classic mode)
 _.classic_trial  # mock_rig/learner.py
 _.batches  # monitor/app/live/engine.py
-_.jobs  # monitor/app/window/controller.py
+_.titles  # monitor/app/window/jobs.py (the tests wait for the jobs to end)
 _.notifier  # monitor/ui/main_window.py
 scheme  # monitor/ui/main_window.py
 _.static_builds  # monitor/ui/tile.py

@@ -68,13 +68,9 @@ def derive(conn: sqlite3.Connection, session_id: int, events: Iterable[Event] | 
 def derive_events(protocol_text: str, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Event]
                   ) -> tuple[list[Trial], dict[str, int], float | None]:
     """(trials, builder counts, water µL) of one session's events under a protocol text; needs no database."""
-    from monitor.core.session.live_stats import LiveSession
+    from monitor.core.session.live_stats import replay
 
-    live = LiveSession(protocol_of(protocol_text), stage, valve_ul_per_ms=valve_ul_per_ms)
-    for event in events:
-        live.feed(event)
-    live.finish()
-    return live.trials, dict(live.builder.counts), live.stats.water_ul
+    return replay(protocol_of(protocol_text), events, stage, valve_ul_per_ms)
 
 
 def malformed_count(conn: sqlite3.Connection, session_id: int) -> int:

@@ -31,7 +31,7 @@ class Controller:
     def run_job(self, title, work, done):
         done(work(None))
 
-    def _refresh_roster(self) -> None:
+    def refresh_roster(self) -> None:
         self.roster_refreshed += 1
 
 

@@ -67,16 +67,16 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     # a second check raises nothing new: each alert once per day and level
     count = len(kinds(controller))
     records.update()
-    qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: not controller.jobs.titles(), timeout=20000)
     assert len(kinds(controller)) == count
     # care records through the window: baseline 25.0 g, weight 21.3 g -> 85.2 % (hand arithmetic)
     records.open_care()
     panel = records.care_panel
     assert isinstance(panel, CarePanel)
     records.log_care(CareEntry("heron", "baseline", 25.0, "", "ana"))
-    qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: not controller.jobs.titles(), timeout=20000)
     records.log_care(CareEntry("heron", "weight", 21.3, "", "ana"))
-    qtbot.waitUntil(lambda: records.summaries["heron"].weight_g == 21.3 and not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: records.summaries["heron"].weight_g == 21.3 and not controller.jobs.titles(), timeout=20000)
     assert round(records.summaries["heron"].percent_of_baseline, 1) == 85.2
     # the weight is logged: "weight missing" no longer holds and leaves the open list (kept, acknowledged by rigside)
     missing = [a for a in controller.alert_book.alerts() if a.kind == "weight missing"]
@@ -87,7 +87,7 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     panel.grab().save(str(tmp_path / "care.png"))
     # the sheet as CSV and as a printable page
     records.export("csv", str(tmp_path / "sheet.csv"))
-    qtbot.waitUntil(lambda: (tmp_path / "sheet.csv").exists() and not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: (tmp_path / "sheet.csv").exists() and not controller.jobs.titles(), timeout=20000)
     row = next(csv.DictReader(open(tmp_path / "sheet.csv", encoding="utf-8")))
     assert (row["animal"], float(row["earned_ml"]), float(row["percent_of_baseline"])) == ("heron", 1.2, 85.2)
     records.export("png", str(tmp_path / "sheet.png"))

@@ -35,7 +35,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from drivers.config import ConfigError
-    from monitor.app.window.controller import load_protocol
+    from monitor.app.rigs import load_protocol
     from monitor.app.rigs import default_rigs_path, read_rigs
 
     if args.seconds is not None and not args.seconds > 0:

@@ -1,6 +1,7 @@
 """Views: pure functions from engine snapshots, source status and stored history to the UI's view models.
 
-Rule: nothing here touches Qt, a thread, the store or a file; every function
+Rule: nothing here touches Qt, a thread, the store or a file (history comes as
+monitor.store.history's plain `HistorySession` records); every function
 takes plain values and returns the frozen view models of `monitor.ui.models`.
 Missing figures stay `None` (NaN in arrays), never 0. A rig's connection word
 comes from its source's state and whether a session runs: lost (reader ended),
@@ -35,7 +36,7 @@ from monitor.core.session.start_drop import start_drops
 from monitor.core.consolidation.words import fraction_text
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import BINARY_MEASURES, SessionInput, learning_curve, summarize
-from monitor.core.session.trials import Trial
+from monitor.store.history import HistorySession
 from monitor.ui.models import (AnimalPageState, ConsolidationState, Connection, CurveState, HistogramData,
                                RigTileState, SessionRow, Severity, StartDrop, StatusState, StoreHealth, TodayState)
 
@@ -142,22 +143,6 @@ def status_state(statuses: Mapping[str, SourceStatus], writer_state: str, writer
 
 
 # --- history ------------------------------------------------------------------------------
-class HistorySession(NamedTuple):
-    """One past session of an animal, segmented, with what the store knows of it."""
-
-    trials: tuple[Trial, ...]
-    start: str = ""                 # local start time, formatted
-    rig: str = ""
-    counts: Mapping[str, int] = {}
-    water_ul: float | None = None
-    malformed_lines: int = 0
-    excluded: bool = False
-    exclusion_reason: str = ""
-    conditions: str = ""
-    break_hours: float = 23.0       # since the previous session ended
-    session_id: int | None = None   # the store's id (exclusions and conditions refer to it)
-
-
 class HistoryParts(NamedTuple):
     """The parts of an animal page that come from its history."""
 

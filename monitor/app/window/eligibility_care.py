@@ -334,7 +334,7 @@ class DecisionsAndCare(QObject):
             self.care_panel.set_view(CareView(self.care_panel.view.day, tuple(care_row(s) for s in panel),
                                               thresholds_text(self.config)))
         for name in set(judged) | {s.animal for s in summaries}:
-            self.controller._push_page(name)
+            self.controller.pages.push(name)
         self._over()
 
     def _push(self, animal: str, kind: str, severity: str, text: str) -> int:

@@ -1,7 +1,7 @@
 """The per-animal report (`rigside report`), built from a protocol and sessions.
 
 Rule: pure. `animal_report` takes the protocol and, per session in time
-order, either its events (segmented here with the live `LiveSession`, so the
+order, either its events (segmented here as the live view does (`live_stats.replay`), so the
 report and the live view count alike) or its trial records, plus what the
 store knows (start time text, malformed-line count, exclusion flag). Sessions
 are indexed from 1. Plateau is judged on the learning curve of the final
@@ -24,7 +24,7 @@ import numpy as np
 from monitor.core.session.plateau import judge_all, learning_trial
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import SessionInput, learning_curve, summarize
-from monitor.core.session.live_stats import LiveSession
+from monitor.core.session.live_stats import replay
 from monitor.core.session.start_drop import start_drops
 from monitor.core.session.trials import Trial
 
@@ -59,11 +59,7 @@ def plain(value: Any) -> Any:
 
 def _session_input(protocol: Protocol, data: SessionData, valve_ul_per_ms: float | None) -> SessionInput:
     if data.events is not None:
-        live = LiveSession(protocol, data.stage, valve_ul_per_ms=valve_ul_per_ms)
-        for event in data.events:
-            live.feed(event)
-        live.finish()
-        trials, counts, water = live.trials, dict(live.builder.counts), live.stats.water_ul
+        trials, counts, water = replay(protocol, data.events, data.stage, valve_ul_per_ms)
     else:
         trials, counts, water = list(data.trials or ()), {}, None
     return SessionInput(trials, data.start, data.malformed_lines, data.excluded, data.exclusion_reason,

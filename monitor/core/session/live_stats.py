@@ -280,3 +280,13 @@ class LiveSession:
         moves them at once)."""
         target, low, high = self.builder.window_in_force
         return self.stats.snapshot()._replace(target_ms=target, window_low_ms=low, window_high_ms=high)
+
+
+def replay(protocol: Protocol, events: Iterable[Any], stage: str | None = None,
+           valve_ul_per_ms: float | None = None) -> tuple[list[Trial], dict[str, int], float]:
+    """Trials, builder counts and water (µL) of one whole session's events, as the live view counts them."""
+    live = LiveSession(protocol, stage, valve_ul_per_ms=valve_ul_per_ms)
+    for event in events:
+        live.feed(event)
+    live.finish()
+    return live.trials, dict(live.builder.counts), live.stats.water_ul
