@@ -38,8 +38,6 @@ y_high
 strain
 genotype
 median_abs_error
-warmup_drop
-after_warmup_drop
 after_miss
 after_hit
 difference

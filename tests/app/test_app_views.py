@@ -152,7 +152,7 @@ def test_start_of_session_drop_and_its_interval():
     # previous session ends 16/20 hits; this one starts with 5 warm-up trials, then 9/20
     sessions = history([[1] * 4 + [1] * 16 + [0] * 4, [0] * 5 + [1] * 9 + [0] * 11])
     before = [t.rewarded for t in sessions[0].trials if t.completed][-20:]
-    drop = views.hit_rate_drops(PROTOCOL, sessions)[0]
+    drop = views.history_parts(PROTOCOL, sessions).consolidation.start_drops[0]   # the page's drop (core/session/start_drop.py)
     assert drop.session == 2 and drop.warmup_trials == 5
     assert drop.drop == pytest.approx(sum(before) / 20 - 9 / 20)
     low, high = confint_proportions_2indep(sum(before), 20, 9, 20, method="newcomb", compare="diff")  # statsmodels

@@ -32,7 +32,7 @@ from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.eligibility.from_report import figures_from_report
 from monitor.core.session.binomial import wilson
 from monitor.core.session.plateau import judge
-from monitor.core.session.start_drop import start_drops
+from monitor.core.session.start_drop import hit_rate_drops
 from monitor.core.consolidation.words import fraction_text
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import BINARY_MEASURES, SessionInput, learning_curve, summarize
@@ -179,7 +179,7 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
         index=s.index, trials=s.figures.trials, excluded=s.excluded, hit_rate=s.figures.hit_rate, cv=s.figures.cv,
         fixed_window_fraction=s.figures.fixed_window_fraction, median_abs_log_error=s.figures.median_abs_log_error)
         for s in summaries], "plateau": {"reached": result.reached, "session": plateau_session}})
-    drops = hit_rate_drops(protocol, sessions)
+    drops = hit_rate_drops(protocol, [(index, s.trials) for index, s in enumerate(sessions, start=1) if not s.excluded])
     consolidation = _consolidation_state(figures, drops, fit)
     previous: dict[str, tuple[float, ...]] = {}
     if sessions:
@@ -217,13 +217,6 @@ def _curve_state(protocol: Protocol, inputs: Sequence[SessionInput], measure: st
         criterion=protocol.plateau.threshold, plateau_session=plateau_session,
         plateau_word="reached" if result.reached else "not reached", plateau_reason=result.reason,
         final_stage=protocol.final_stage.name)
-
-
-def hit_rate_drops(protocol: Protocol, sessions: Sequence[HistorySession]) -> tuple[StartDrop, ...]:
-    """The start-of-session drops of the final stage's hit rate (monitor.core.session.start_drop)."""
-    final = protocol.final_stage.name
-    return start_drops([(index, [t.rewarded for t in s.trials if t.completed and t.stage == final])
-                        for index, s in enumerate(sessions, start=1) if not s.excluded])
 
 
 def _consolidation_state(figures: AnimalFigures, drops: tuple[StartDrop, ...],
