@@ -175,7 +175,6 @@ class Controller(QObject):
             if self.board.update(tile) and name in fresh:
                 self.painted.append((name, fresh[name].newest_stamp))
             if rig.animal and name in fresh:
-                self.pages.follow(rig.animal, rig)
                 self.pages.push(rig.animal)
         bar = views.status_state(statuses, wstatus.state, wstatus.text, wstatus.committed_events)
         if self.window is not None and bar != self._status_shown:

@@ -24,7 +24,7 @@ from typing import Any, Callable, Protocol as TypingProtocol
 
 from monitor.app.live import views
 from monitor.app.live.engine import RaisedAlert
-from monitor.app.live.fraction import LiveFractions, live_text, session_start_wall
+from monitor.app.live.fraction import live_text
 from monitor.app.rigs import LoadedProtocol
 from monitor.app.window.jobs import Cancelled, Job
 from monitor.app.window.rig_sessions import Rig
@@ -65,10 +65,8 @@ class Pages:
         self.fits: dict[str, Any] = {}
         self.loading: dict[str, Job] = {}       # animals whose history is being loaded
         self._reload: set[str] = set()          # animals whose data changed while their history was loading
-        self.live_fractions = LiveFractions()   # this session's slow-state fraction from the cached fit
         self._live_panels: dict[str, tuple] = {}  # animal -> (history panel, fraction, panel with it)
         self._measured_panels: dict[str, tuple] = {}  # animal -> (panel, figures, panel with those measures)
-        self._followed: dict[str, tuple | None] = {}  # animal -> (fraction, missed) of its session so far
         self._today: dict[str, tuple[int, TodayState | None]] = {}
         self._plateau: dict[str, bool] = {}
         self._heavy = threading.Condition()   # one history load at a time: the GUI keeps its share of the GIL
@@ -119,9 +117,10 @@ class Pages:
 
         def done(result) -> None:
             parts, block = result
-            if (block or {}).get("live") != (self.fits.get(animal) or {}).get("live"):
-                self.live_fractions.forget(animal)        # a new fit: follow the session from it
+            changed = (block or {}).get("live") != (self.fits.get(animal) or {}).get("live")
             self.fits[animal] = block
+            if changed:                                   # a new fit: follow the session from it
+                self._follow(animal)
             self._history_ready(animal, parts)
             over()
 
@@ -202,13 +201,16 @@ class Pages:
             self.c.records.update([animal])
 
     def session_started(self, animal: str) -> None:
-        """A session of `animal` began: its history (and fit) are loaded if they are not yet."""
+        """A session of `animal` began: the engine follows it from the fit known, and the history (and fit) are
+        loaded if they are not yet."""
+        self._follow(animal)
         self.load_history(animal)
 
-    def session_ended(self, animal: str) -> None:
-        """The session ended: its figure is no longer followed."""
-        self.live_fractions.forget(animal)
-        self._followed.pop(animal, None)
+    def _follow(self, animal: str) -> None:
+        """Have the engine follow the animal's running session from its cached fit (monitor.app.live.fraction)."""
+        rig, block, loaded = self.c.sessions.rig_of(animal), self.fits.get(animal) or {}, self.protocol_of(animal)
+        if rig is not None and rig.session_id is not None and block.get("live") and loaded is not None:
+            self.c.engine.follow(rig.spec.name, rig.session_id, block["live"], loaded.protocol.final_stage.name)
 
     # --- pages ------------------------------------------------------------------------------------------
     def opened(self, animal: str) -> None:
@@ -257,27 +259,20 @@ class Pages:
         self._measured_panels[animal] = (panel, figures, out)
         return out
 
-    def follow(self, animal: str, rig: Rig) -> None:
-        """Feed the session's new trials to the animal's cached filter (every rig, page open or not)."""
-        snapshot, block, loaded = rig.snapshot, self.fits.get(animal) or {}, self.protocol_of(animal)
-        if snapshot is None or snapshot.session_id is None or snapshot.animal != animal or not block.get("live") \
-                or loaded is None:
-            return
-        self._followed[animal] = self.live_fractions.update(
-            animal, snapshot.session_id, snapshot.live, block["live"], loaded.protocol.final_stage.name,
-            session_start_wall(snapshot.started))
-
     def _live_panel(self, animal: str, rig: Rig | None):
-        """The consolidation panel with this session's figure (the same object until a trial is followed)."""
+        """The consolidation panel with this session's figure from the engine's snapshot (the same object until the
+        engine followed a new trial)."""
         parts, block = self.history_parts.get(animal), self.fits.get(animal) or {}
-        followed = self._followed.get(animal) if rig is not None else None
-        if parts is None or followed is None:
+        snapshot = rig.snapshot if rig is not None else None
+        fraction = snapshot.fraction if snapshot is not None and snapshot.animal == animal \
+            and snapshot.session_id == rig.session_id else None
+        if parts is None or fraction is None:
             return None
         before = self._live_panels.get(animal)
-        if before is not None and before[0] is parts.consolidation and before[1] is followed[0]:
+        if before is not None and before[0] is parts.consolidation and before[1] is fraction:
             return before[2]
-        panel = replace(parts.consolidation, live_text=live_text(*followed, block.get("session")))
-        self._live_panels[animal] = (parts.consolidation, followed[0], panel)
+        panel = replace(parts.consolidation, live_text=live_text(fraction, block.get("session")))
+        self._live_panels[animal] = (parts.consolidation, fraction, panel)
         return panel
 
     # --- exclusions and conditions ------------------------------------------------------------------

@@ -196,8 +196,6 @@ class RigSessions:
         self.c.engine.close_session(rig_name, session_id)
         rig.fanout.session_id = rig.idle_session_id
         rig.session_id, rig.animal = None, None
-        if animal:
-            self.c.pages.session_ended(animal)
         self.c.refresh_roster()
 
         def done(_: Any) -> None:
