@@ -179,7 +179,8 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
         index=s.index, trials=s.figures.trials, excluded=s.excluded, hit_rate=s.figures.hit_rate, cv=s.figures.cv,
         fixed_window_fraction=s.figures.fixed_window_fraction, median_abs_log_error=s.figures.median_abs_log_error)
         for s in summaries], "plateau": {"reached": result.reached, "session": plateau_session}})
-    drops = hit_rate_drops(protocol, [(index, s.trials) for index, s in enumerate(sessions, start=1) if not s.excluded])
+    drops = hit_rate_drops(protocol.final_stage.name,
+                           [(index, s.trials) for index, s in enumerate(sessions, start=1) if not s.excluded])
     consolidation = _consolidation_state(figures, drops, fit)
     previous: dict[str, tuple[float, ...]] = {}
     if sessions:

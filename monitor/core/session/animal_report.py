@@ -74,7 +74,8 @@ def _result(result) -> dict[str, Any]:
 def _fixed_window_drops(protocol: Protocol, inputs: Sequence[SessionInput]) -> dict[int, float]:
     """Session index -> start-of-session drop of the final stage's fixed-window fraction (included sessions)."""
     kept = [(index, s.trials) for index, s in enumerate(inputs, start=1) if not s.excluded]
-    return {d.session: d.drop for d in fixed_window_drops(protocol, kept)}
+    final = protocol.final_stage.name
+    return {d.session: d.drop for d in fixed_window_drops(final, protocol.fixed_window(final), kept)}
 
 
 def animal_report(animal: str, protocol: Protocol, sessions: Sequence[SessionData],
