@@ -302,3 +302,29 @@ def test_the_pages_measures_are_the_eligibility_figures_once_judged(rig, qtbot):
             shown.measures_session) == (0.281, 0.229, 4, 321, 7)
     controller.pages.push("wren")
     assert controller.book.state("wren").consolidation is shown           # unchanged: no redraw
+
+
+def test_the_page_shows_this_sessions_fraction_followed_by_the_engine(rig, qtbot):
+    import numpy as np
+
+    from monitor.core.consolidation.live import LiveFilter, LiveSetup, filter_state
+
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))       # a first, empty session
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    controller.check_out("box 1")
+    qtbot.waitUntil(lambda: "wren" in controller.history_parts and not controller.jobs.titles(), timeout=20000)
+    params = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
+    live = LiveFilter(LiveSetup(params, "error", True, np.array([-0.3, 0.0, 0.0, 0.0]), 0.01, below=0.1, above=0.1,
+                                status="estimated"), np.array([-0.1, -0.2]), np.eye(2) * 1e-3, -0.25)
+    controller.fits["wren"] = {"live": {**filter_state(live), "ended_at": None}, "session": 4}   # a cached fit
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    window.open_animal("wren")
+    intervals = [650, 700, 640, 1000, 655, 610]
+    with log.open("ab") as fh:
+        fh.write(session_bytes(intervals))
+    qtbot.waitUntil(lambda: "followed through 6 new trials" in controller.book.state("wren").consolidation.live_text,
+                    timeout=10000)
+    assert controller.rigs["box 1"].snapshot.fraction.trials_since_fit == len(intervals)
+    assert "the fit of session 4" in controller.book.state("wren").consolidation.live_text
