@@ -62,7 +62,7 @@ def texts(app):
 
 def inspect(controller, window):
     from PySide6.QtWidgets import QApplication
-    from monitor.app.window.controller import wait_for
+    from monitor.app.window.demo import wait_for
     from monitor.ui.tile import tile_texts
     app = QApplication.instance()
     seen = [t for rig in controller.board.rigs() for t in tile_texts(controller.board.state(rig))]
