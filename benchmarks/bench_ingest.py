@@ -24,7 +24,7 @@ from pathlib import Path
 from drivers.status import CONNECTED, Batch
 from drivers.tail import FileTail
 from drivers.wire import WireDecoder, encode_event, encode_header
-from monitor.app.pipeline import Fanout
+from monitor.app.live.pipeline import Fanout
 from monitor.store import db
 from monitor.store.writer import StoreWriter
 

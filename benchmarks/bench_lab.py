@@ -114,7 +114,7 @@ def page(db: Path, url: str, animal: str) -> None:
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     from datetime import datetime
 
-    from monitor.app.lab_pages import ReadJob, page_from_store, read_page
+    from monitor.app.window.lab_pages import ReadJob, page_from_store, read_page
     from monitor.core.care.ledger import CareConfig
 
     now = datetime.now().astimezone()

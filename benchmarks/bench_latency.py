@@ -34,7 +34,8 @@ from PySide6.QtWidgets import QApplication  # noqa: E402
 
 from drivers.status import READING, Batch, SourceStatus  # noqa: E402
 from drivers.wire import WireDecoder, encode_event, encode_header  # noqa: E402
-from monitor.app.controller import Controller, RigSpec  # noqa: E402
+from monitor.app.rigs import RigSpec  # noqa: E402
+from monitor.app.window.controller import Controller  # noqa: E402
 from monitor.store.writer import StoreWriter  # noqa: E402
 from monitor.ui import tile as tile_module  # noqa: E402
 from monitor.ui.main_window import MainWindow  # noqa: E402

@@ -37,7 +37,7 @@ from drivers.status import Batch  # noqa: E402
 from drivers.wire import Event, WireDecoder  # noqa: E402
 from mock_rig.history import cohort  # noqa: E402
 from mock_rig.protocol_file import protocol_toml  # noqa: E402
-from monitor.app.pipeline import Fanout  # noqa: E402
+from monitor.app.live.pipeline import Fanout  # noqa: E402
 from monitor.core.protocol import parse_protocol  # noqa: E402
 from monitor.core.session.live_stats import LiveSession  # noqa: E402
 from monitor.store import db  # noqa: E402

@@ -32,7 +32,7 @@ def shoot(out: Path, missing: list[str]) -> Callable:
     def run(controller, window) -> None:
         from PySide6.QtWidgets import QApplication
 
-        from monitor.app.controller import wait_for
+        from monitor.app.window.demo import wait_for
 
         app = QApplication.instance()
         for width, height, suffix in SIZES:
@@ -43,7 +43,7 @@ def shoot(out: Path, missing: list[str]) -> Callable:
     def shoot_all(controller, window, app, wait_for, suffix: str, size: tuple[int, int]) -> None:
         from PySide6.QtWidgets import QWidget
 
-        from monitor.app.demo import SECTIONS
+        from monitor.app.window.demo import SECTIONS
 
         def save(widget: QWidget, name: str) -> None:
             app.processEvents()
@@ -104,7 +104,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, default=HERE / "screens", help="folder for the PNGs (default docs/screens)")
     args = parser.parse_args(argv)
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-    from monitor.app.demo import DemoOptions, run
+    from monitor.app.window.demo import DemoOptions, run
 
     args.out.mkdir(parents=True, exist_ok=True)
     missing: list[str] = []

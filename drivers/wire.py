@@ -228,7 +228,6 @@ class LineDecoder:
             if data is None:
                 return out
         data = self._buf + data if self._buf else data
-        decode = self._decode_line
         if b"\r" in data and (data.count(b"\r") != data.count(b"\r\n") or data[-1:] == b"\r"):
             rest = self._feed_with_lone_cr(data, out)
         else:

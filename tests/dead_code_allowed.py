@@ -38,8 +38,6 @@ y_high
 strain
 genotype
 median_abs_error
-warmup_drop
-after_warmup_drop
 after_miss
 after_hit
 difference
@@ -59,8 +57,8 @@ _.backlog_bytes  # mock_rig/outputs.py
 _.inject  # mock_rig/live.py
 classic_params  # mock_rig/learner.py (the simulator's documented classic mode)
 _.classic_trial  # mock_rig/learner.py
-_.batches  # monitor/app/engine.py
-_.jobs  # monitor/app/controller.py
+_.batches  # monitor/app/live/engine.py
+_.titles  # monitor/app/window/jobs.py (the tests wait for the jobs to end)
 _.notifier  # monitor/ui/main_window.py
 scheme  # monitor/ui/main_window.py
 _.static_builds  # monitor/ui/tile.py

@@ -1,7 +1,7 @@
 """Package boundaries (DEVELOPERS.md): the import-linter contracts in pyproject.toml hold.
 
 The contracts (core pure and its areas independent, drivers and the simulator
-apart from the monitor, a plain ui, Qt only in ui and app, sqlite3 only in the
+apart from the monitor, a plain ui, Qt only in ui and app.window, sqlite3 only in the
 store) are read from every import statement, the lazy ones inside functions
 too; a test below proves that on a small package of its own. Core must also
 never open a file, which no import shows: that is checked on the source.
@@ -55,3 +55,20 @@ def test_a_lazy_import_breaks_a_contract(tmp_path):
     assert done.returncode != 0 and "pkg.core.sneaky -> sqlite3" in done.stdout, done.stdout + done.stderr
     (core / "sneaky.py").write_text("import math\n")
     assert lint(tmp_path).returncode == 0
+
+
+def test_every_app_module_outside_the_window_is_kept_free_of_qt():
+    """The Qt contract lists app's modules one by one: a new module outside app.window must be added to it."""
+    import tomllib
+
+    config = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))
+    contract = next(c for c in config["tool"]["importlinter"]["contracts"] if c["id"] == "qt-in-ui-and-window")
+    listed = contract["source_modules"]
+    allowed_qt = ("monitor.app.window", "monitor.app.commands.window", "monitor.app.commands.demo")
+    app = ROOT / "monitor" / "app"
+    modules = [".".join(("monitor", "app", *p.relative_to(app).with_suffix("").parts)) for p in app.rglob("*.py")
+               if p.name != "__init__.py"]
+    missing = [m for m in modules
+               if not any(m == a or m.startswith(a + ".") for a in allowed_qt)
+               and not any(m == s or m.startswith(s + ".") for s in listed)]
+    assert missing == []

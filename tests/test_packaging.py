@@ -59,4 +59,4 @@ def test_the_distribution_carries_the_licence_and_both_entry_points():
     assert "MIT License" in (dist.read_text("licenses/LICENSE") or "")
     scripts = {(e.group, e.name): e.value for e in dist.entry_points}
     assert scripts[("console_scripts", "rigside")] == "monitor.app.cli:main"
-    assert scripts[("gui_scripts", "rigside-window")] == "monitor.app.launcher:main"   # no console on Windows
+    assert scripts[("gui_scripts", "rigside-window")] == "monitor.app.window.launcher:main"   # no console on Windows

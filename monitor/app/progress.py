@@ -14,7 +14,7 @@ same way). Inside `with Progress(...)` on the main thread
 the first Ctrl-C only asks the work to stop at its next safe point (the
 command then names what was finished and exits 130); a second Ctrl-C
 interrupts at once. A process started with Ctrl-C ignored (a background job)
-keeps ignoring it. The window's tracker is monitor.app.file_jobs'. The
+keeps ignoring it. The window's tracker is monitor.app.window.file_jobs'. The
 closing summary line is the command's own.
 """
 

@@ -3,7 +3,7 @@ log and joins the check-in list; a refused value is shown in the window and noth
 
 from __future__ import annotations
 
-from monitor.app.animal_window import AnimalRecordsSide
+from monitor.app.window.animal_window import AnimalRecordsSide
 from monitor.store.animals import changes_of, get_animal
 from monitor.store.db import open_store
 
@@ -31,7 +31,7 @@ class Controller:
     def run_job(self, title, work, done):
         done(work(None))
 
-    def _refresh_roster(self) -> None:
+    def refresh_roster(self) -> None:
         self.roster_refreshed += 1
 
 

@@ -1,4 +1,4 @@
-"""The window's random draw: the decision dialog draws through monitor.app.assigning and records codes when blinded."""
+"""The window's random draw: the decision dialog draws through monitor.app.services.assigning and records codes when blinded."""
 
 from __future__ import annotations
 

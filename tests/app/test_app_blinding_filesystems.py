@@ -9,7 +9,7 @@ import os
 
 import pytest
 
-from monitor.app import blinding
+from monitor.app.services import blinding
 
 
 @pytest.fixture

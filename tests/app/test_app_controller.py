@@ -1,4 +1,4 @@
-"""monitor.app.controller: a file source through the Fanout, store and engine to the owners (offscreen)."""
+"""monitor.app.window.controller: a file source through the Fanout, store and engine to the owners (offscreen)."""
 
 from __future__ import annotations
 
@@ -9,7 +9,8 @@ import threading
 
 import pytest
 
-from monitor.app.controller import Controller, RigSpec
+from monitor.app.rigs import RigSpec
+from monitor.app.window.controller import Controller
 from monitor.store.writer import StoreWriter
 from monitor.ui.main_window import MainWindow
 from monitor.ui.models import CheckIn, Severity
@@ -103,10 +104,8 @@ def test_history_comes_from_the_store_when_the_page_opens(rig, qtbot):
                     controller.writer.status().pending_rows == 0, timeout=10000)
     controller.check_out("box 1")
     qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
-    from monitor.app.controller import store_v2
-    if store_v2():                                  # the store derived the session's trials at check-out
-        with sqlite3.connect(db) as conn:
-            assert conn.execute("SELECT count(*) FROM trials").fetchone()[0] == 5
+    with sqlite3.connect(db) as conn:               # the store derived the session's trials at check-out
+        assert conn.execute("SELECT count(*) FROM trials").fetchone()[0] == 5
     controller.history_parts.clear()
     window.open_animal("wren")
     qtbot.waitUntil(lambda: "wren" in controller.history_parts, timeout=20000)
@@ -114,13 +113,12 @@ def test_history_comes_from_the_store_when_the_page_opens(rig, qtbot):
     assert [(r.trials, r.hits, r.rig) for r in rows] == [(5, 4, "box 1")]
     page = controller.book.state("wren")
     assert page is not None and page.curve is controller.history_parts["wren"].curve
-    if store_v2():                                  # an exclusion from the page goes to the store
-        from monitor.ui.models import Exclusion
-        window.alert_panel.operator.setText("ana")
-        controller.exclude(Exclusion("wren", 1, "cable fault"))
-        qtbot.waitUntil(lambda: "wren" in controller.history_parts and
-                        controller.history_parts["wren"].sessions[0].excluded, timeout=20000)
-        assert controller.history_parts["wren"].sessions[0].exclusion_reason == "cable fault"
+    from monitor.ui.models import Exclusion         # an exclusion from the page goes to the store
+    window.alert_panel.operator.setText("ana")
+    controller.pages.exclude(Exclusion("wren", 1, "cable fault"))
+    qtbot.waitUntil(lambda: "wren" in controller.history_parts and
+                    controller.history_parts["wren"].sessions[0].excluded, timeout=20000)
+    assert controller.history_parts["wren"].sessions[0].exclusion_reason == "cable fault"
 
 
 def fits_in(db) -> list[str]:
@@ -130,7 +128,7 @@ def fits_in(db) -> list[str]:
 
 def test_check_out_refits_in_a_child_process_and_unchanged_data_are_not_refitted(rig, qtbot, monkeypatch):
     controller, window, log, store, db = rig
-    controller.fit_consolidation = True
+    controller.pages.fit_consolidation = True
     spawned = []
     import monitor.store.consolidation_fits as fits_module
     real = fits_module.refit_in_process
@@ -143,7 +141,7 @@ def test_check_out_refits_in_a_child_process_and_unchanged_data_are_not_refitted
     controller.check_out("box 1")
     qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
     # check-out derives the session's trials, then refits (the data changed): let that finish first
-    qtbot.waitUntil(lambda: spawned and not controller.jobs() and "wren" not in controller._loading, timeout=60000)
+    qtbot.waitUntil(lambda: spawned and not controller.jobs.titles() and "wren" not in controller.pages.loading, timeout=60000)
     assert all(names == ["wren"] for names in spawned)
     fitted = fits_in(db)
     assert fitted[-1] == "too few trials"          # five trials: far below the estimator's minimum
@@ -151,12 +149,12 @@ def test_check_out_refits_in_a_child_process_and_unchanged_data_are_not_refitted
     controller.history_parts.clear()
     window.open_animal("wren")
     # the page shows the cached fit
-    qtbot.waitUntil(lambda: "wren" in controller.history_parts and "wren" not in controller._loading, timeout=60000)
+    qtbot.waitUntil(lambda: "wren" in controller.history_parts and "wren" not in controller.pages.loading, timeout=60000)
     assert fits_in(db) == fitted
     assert spawned == []                            # opening the page used the fit cached at check-out
     assert "too few trials" in controller.book.state("wren").consolidation.model_comparison
     controller.load_history("wren", refresh=True)   # same data: the cached fit is current, no new process
-    qtbot.waitUntil(lambda: "wren" not in controller._loading, timeout=20000)
+    qtbot.waitUntil(lambda: "wren" not in controller.pages.loading, timeout=20000)
     assert spawned == [] and fits_in(db) == fitted
 
 
@@ -171,12 +169,12 @@ def test_long_work_shows_progress_and_can_be_cancelled(rig, qtbot):
             job.cancel_event.wait(0.05)
 
     controller.run_job("a long job", work, lambda result: None)
-    qtbot.waitUntil(lambda: controller.progress_bar.isVisibleTo(window), timeout=5000)
-    assert controller.progress_bar.value() == 50 and controller.progress_label.text() == "a long job"
-    controller.cancel_jobs()
-    qtbot.waitUntil(lambda: controller.jobs() == [], timeout=5000)
+    qtbot.waitUntil(lambda: controller.jobs.progress_bar.isVisibleTo(window), timeout=5000)
+    assert controller.jobs.progress_bar.value() == 50 and controller.jobs.progress_label.text() == "a long job"
+    controller.jobs.cancel_all()
+    qtbot.waitUntil(lambda: controller.jobs.titles() == [], timeout=5000)
     assert "cancelled" in window.statusBar().currentMessage()
-    assert not controller.progress_bar.isVisibleTo(window)
+    assert not controller.jobs.progress_bar.isVisibleTo(window)
 
 
 def test_a_failing_job_is_shown_not_swallowed(rig, qtbot):
@@ -186,10 +184,7 @@ def test_a_failing_job_is_shown_not_swallowed(rig, qtbot):
 
 
 def test_alerts_go_to_the_stores_alerts_table(qapp, tmp_path, qtbot):
-    from monitor.app.controller import store_v2
-    if not store_v2():
-        pytest.skip("the store has no alerts table")
-    from monitor.app.engine import RaisedAlert
+    from monitor.app.live.engine import RaisedAlert
     from monitor.core.alerts import URGENT, Raised
     writer = StoreWriter(tmp_path / "a.sqlite3")
     writer.start()
@@ -250,7 +245,6 @@ def test_params_sent_before_check_in_are_the_sessions_and_the_box_names_the_stag
 
 
 def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_afterwards(rig, qtbot):
-    from monitor.app.controller import store_v2
     from monitor.ui.models import Connection, UnattendedGift
 
     controller, window, log, store, db = rig
@@ -260,8 +254,6 @@ def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_af
                     and controller.board.state("box 1").connection is Connection.UNATTENDED, timeout=10000)
     assert controller.board.state("box 1").unattended_presses == 15          # 5 trial starts + 10 presses
     qtbot.waitUntil(lambda: any(a.kind == "nobody checked in" for a in controller.alert_book.alerts()), timeout=5000)
-    if not store_v2():
-        return
     qtbot.waitUntil(lambda: controller.writer.status().pending_rows == 0, timeout=10000)
     old = controller.rigs["box 1"].idle_session_id
     controller.give_unattended(UnattendedGift("box 1", "newt", "ana", "checked in late"))
@@ -279,7 +271,6 @@ def test_a_box_running_with_nobody_checked_in_is_flagged_and_its_trials_given_af
 
 
 def test_check_out_records_who_confirmed_it(rig, qtbot):
-    from monitor.app.controller import store_v2
     from monitor.ui.models import CheckOut
 
     controller, window, log, store, db = rig
@@ -288,10 +279,9 @@ def test_check_out_records_who_confirmed_it(rig, qtbot):
     session_id = controller.rigs["box 1"].session_id
     controller.check_out(CheckOut("box 1", "wren", "bo"))
     qtbot.waitUntil(lambda: ("wren", "box 1", 1) in sessions_in(db), timeout=10000)
-    if store_v2():
-        with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
-            assert conn.execute("SELECT operator, checked_out_by FROM checkins WHERE session_id = ?",
-                                (session_id,)).fetchone() == ("ana", "bo")
+    with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+        assert conn.execute("SELECT operator, checked_out_by FROM checkins WHERE session_id = ?",
+                            (session_id,)).fetchone() == ("ana", "bo")
 
 
 def test_the_pages_measures_are_the_eligibility_figures_once_judged(rig, qtbot):
@@ -306,9 +296,35 @@ def test_the_pages_measures_are_the_eligibility_figures_once_judged(rig, qtbot):
                             plateau_session=3, sessions_since_plateau=4, trials_since_plateau=321,
                             measures={"interval_error": 0.281, "cv": 0.229})
     controller.records.figures["wren"] = figures
-    controller._push_page("wren")
+    controller.pages.push("wren")
     shown = controller.book.state("wren").consolidation
     assert (shown.interval_error, shown.cv, shown.sessions_since_plateau, shown.trials_since_plateau,
             shown.measures_session) == (0.281, 0.229, 4, 321, 7)
-    controller._push_page("wren")
+    controller.pages.push("wren")
     assert controller.book.state("wren").consolidation is shown           # unchanged: no redraw
+
+
+def test_the_page_shows_this_sessions_fraction_followed_by_the_engine(rig, qtbot):
+    import numpy as np
+
+    from monitor.core.consolidation.live import LiveFilter, LiveSetup, filter_state
+
+    controller, window, log, store, db = rig
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))       # a first, empty session
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    controller.check_out("box 1")
+    qtbot.waitUntil(lambda: "wren" in controller.history_parts and not controller.jobs.titles(), timeout=20000)
+    params = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0, "q_f": 1e-3, "q_s": 1e-5}
+    live = LiveFilter(LiveSetup(params, "error", True, np.array([-0.3, 0.0, 0.0, 0.0]), 0.01, below=0.1, above=0.1,
+                                status="estimated"), np.array([-0.1, -0.2]), np.eye(2) * 1e-3, -0.25)
+    controller.fits["wren"] = {"live": {**filter_state(live), "ended_at": None}, "session": 4}   # a cached fit
+    controller.check_in(CheckIn("wren", "box 1", "ana", 301.0, "main"))
+    qtbot.waitUntil(lambda: controller.rigs["box 1"].session_id is not None, timeout=10000)
+    window.open_animal("wren")
+    intervals = [650, 700, 640, 1000, 655, 610]
+    with log.open("ab") as fh:
+        fh.write(session_bytes(intervals))
+    qtbot.waitUntil(lambda: "followed through 6 new trials" in controller.book.state("wren").consolidation.live_text,
+                    timeout=10000)
+    assert controller.rigs["box 1"].snapshot.fraction.trials_since_fit == len(intervals)
+    assert "the fit of session 4" in controller.book.state("wren").consolidation.live_text

@@ -1,12 +1,12 @@
-"""monitor.app.discovery (pyserial's port list as plain data) and monitor.app.alerting (raised → book)."""
+"""monitor.app.window.discovery (pyserial's port list as plain data) and monitor.app.window.alerting (raised → book)."""
 
 from __future__ import annotations
 
 from serial.tools import list_ports_common
 
-from monitor.app import discovery
-from monitor.app.alerting import AlertCentre
-from monitor.app.engine import RaisedAlert
+from monitor.app.window import discovery
+from monitor.app.window.alerting import AlertCentre
+from monitor.app.live.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT, Raised
 from monitor.ui.models import SerialDevice, Severity
 from monitor.ui.owners import AlertBook

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from monitor.app.effects import stage_at
+from monitor.app.services.effects import stage_at
 from monitor.store.db import open_store
 from monitor.store.fits import save_fit
 

@@ -1,4 +1,4 @@
-"""monitor.app.eligibility_care: verdict and care lines, alerts, decisions and care records through a real store."""
+"""monitor.app.window.eligibility_care: verdict and care lines, alerts, decisions and care records through a real store."""
 
 from __future__ import annotations
 
@@ -9,8 +9,8 @@ import pytest
 from PySide6.QtGui import QImage
 
 from drivers.wire import Event
-from monitor.app.eligibility_care import CLEARED_BY, care_row, decision_view
-from monitor.app.animal_records import Judgement
+from monitor.app.window.eligibility_care import CLEARED_BY, care_row, decision_view
+from monitor.app.services.animal_records import Judgement
 from monitor.core.eligibility.assignment import blinding_key
 from monitor.core.care.ledger import AnimalCare, CareConfig, Weighing, day_summary
 from monitor.core.care.water import session_water
@@ -67,16 +67,16 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     # a second check raises nothing new: each alert once per day and level
     count = len(kinds(controller))
     records.update()
-    qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: not controller.jobs.titles(), timeout=20000)
     assert len(kinds(controller)) == count
     # care records through the window: baseline 25.0 g, weight 21.3 g -> 85.2 % (hand arithmetic)
     records.open_care()
     panel = records.care_panel
     assert isinstance(panel, CarePanel)
     records.log_care(CareEntry("heron", "baseline", 25.0, "", "ana"))
-    qtbot.waitUntil(lambda: not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: not controller.jobs.titles(), timeout=20000)
     records.log_care(CareEntry("heron", "weight", 21.3, "", "ana"))
-    qtbot.waitUntil(lambda: records.summaries["heron"].weight_g == 21.3 and not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: records.summaries["heron"].weight_g == 21.3 and not controller.jobs.titles(), timeout=20000)
     assert round(records.summaries["heron"].percent_of_baseline, 1) == 85.2
     # the weight is logged: "weight missing" no longer holds and leaves the open list (kept, acknowledged by rigside)
     missing = [a for a in controller.alert_book.alerts() if a.kind == "weight missing"]
@@ -87,7 +87,7 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     panel.grab().save(str(tmp_path / "care.png"))
     # the sheet as CSV and as a printable page
     records.export("csv", str(tmp_path / "sheet.csv"))
-    qtbot.waitUntil(lambda: (tmp_path / "sheet.csv").exists() and not controller.jobs(), timeout=20000)
+    qtbot.waitUntil(lambda: (tmp_path / "sheet.csv").exists() and not controller.jobs.titles(), timeout=20000)
     row = next(csv.DictReader(open(tmp_path / "sheet.csv", encoding="utf-8")))
     assert (row["animal"], float(row["earned_ml"]), float(row["percent_of_baseline"])) == ("heron", 1.2, 85.2)
     records.export("png", str(tmp_path / "sheet.png"))
@@ -156,7 +156,7 @@ def test_care_row_check_values():
 def test_a_day_with_nothing_recorded_reads_as_a_state_and_counts_in_words():
     from datetime import timedelta
 
-    from monitor.app.eligibility_care import care_text
+    from monitor.app.window.eligibility_care import care_text
 
     now = datetime.now().astimezone()
     yesterday = now - timedelta(days=1)
@@ -171,7 +171,7 @@ def test_a_day_with_nothing_recorded_reads_as_a_state_and_counts_in_words():
 
 
 def test_cohort_row_from_the_figures_the_verdict_and_the_care_day():
-    from monitor.app.eligibility_care import cohort_row
+    from monitor.app.window.eligibility_care import cohort_row
 
     now = datetime.now().astimezone()
     events = [Event(1_000_000, "valve", ("25",), "1000", 0, 1, 0, 0), Event(1_100_000, "lick", (), "1100", 0, 2, 0, 0)]

@@ -1,4 +1,4 @@
-"""monitor.app.engine: batches from the Fanout become snapshots equal to a batch recomputation."""
+"""monitor.app.live.engine: batches from the Fanout become snapshots equal to a batch recomputation."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ from statsmodels.stats.proportion import proportion_confint
 
 from drivers.status import READING, WAITING, Batch, SourceStatus
 from drivers.wire import Event, WireDecoder
-from monitor.app.engine import Engine, SessionPlan, link_of
-from monitor.app.pipeline import Fanout
+from monitor.app.live.engine import Engine, SessionPlan, link_of
+from monitor.app.live.pipeline import Fanout
 from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import build_trials
 from fixtures.protocols import two_press

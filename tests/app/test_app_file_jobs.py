@@ -9,7 +9,7 @@ import pytest
 
 from mock_rig.history import cohort, write_history
 from monitor.app import cli
-from monitor.app.controller import Controller
+from monitor.app.window.controller import Controller
 from monitor.store.writer import StoreWriter
 from monitor.ui.file_dialogs import ExportChoice, ExportDialog, ImportChoice
 from monitor.ui.main_window import MainWindow
@@ -118,7 +118,7 @@ def test_the_export_dialog_refuses_a_missing_folder_and_emits_the_choice(qapp, t
 def test_the_window_tracker_shows_counts_rate_and_time_left_and_reads_cancel():
     import threading
 
-    from monitor.app.file_jobs import JobTracker
+    from monitor.app.window.file_jobs import JobTracker
 
     class FakeJob:
         def __init__(self) -> None:

@@ -10,7 +10,7 @@ import pytest
 
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
-from monitor.app.lab_background import LabLink, status_text
+from monitor.app.window.lab_background import LabLink, status_text
 from monitor.app.settings import lab_url as configured_url, set_lab_url
 
 SHOTS = Path("/tmp/rigside-shots")

@@ -15,7 +15,7 @@ import pytest
 
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
-from monitor.app.lab_pages import READ_ONLY_NOTE, ReadJob, page_from_store, read_page
+from monitor.app.window.lab_pages import READ_ONLY_NOTE, ReadJob, page_from_store, read_page
 from monitor.core.care.ledger import CareConfig
 from monitor.core.eligibility.decision_log import Decision
 from monitor.store import lab_sync
@@ -106,7 +106,7 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
 def test_the_lab_page_equals_the_page_the_rig_pcs_window_shows(qtbot, store, lab_url, tmp_path):
     """The rig PC's own window over a copy of its store, the animal's page opened there, against the lab's."""
     from fixtures.windows import window_over
-    from monitor.app.controller import LoadedProtocol
+    from monitor.app.window.controller import LoadedProtocol
     from monitor.store.derive import protocol_of
     from monitor.store.manipulations import latest_protocol_text
 
@@ -175,7 +175,7 @@ def test_an_animal_the_lab_does_not_hold_is_a_clear_error(store, lab_url):
 def test_the_lab_view_opens_a_read_only_page(qtbot, store, lab_url, tmp_path):
     from PySide6.QtWidgets import QMainWindow
 
-    from monitor.app.lab_background import LabLink
+    from monitor.app.window.lab_background import LabLink
 
     synced(store, lab_url)
     window = QMainWindow()

@@ -12,7 +12,7 @@ from importlib.metadata import version
 CHILD = r"""
 import sys
 from pathlib import Path
-from monitor.app import launcher
+from monitor.app.window import launcher
 log, shown = Path(sys.argv[1]), Path(sys.argv[2])
 launcher.log_path = lambda: log
 launcher.show_failure = lambda path, code: shown.write_text(f"{code} {launcher.last_line(path)}")

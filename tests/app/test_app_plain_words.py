@@ -32,7 +32,7 @@ def internal(text: str) -> list[str]:
 WALK_IN_CHILD = """
 import json, sys
 from pathlib import Path
-from monitor.app.demo import DemoOptions, run
+from monitor.app.window.demo import DemoOptions, run
 
 def texts(app):
     from PySide6.QtWidgets import (QAbstractButton, QComboBox, QGroupBox, QLabel, QListWidget, QTabWidget,
@@ -62,7 +62,7 @@ def texts(app):
 
 def inspect(controller, window):
     from PySide6.QtWidgets import QApplication
-    from monitor.app.controller import wait_for
+    from monitor.app.window.demo import wait_for
     from monitor.ui.tile import tile_texts
     app = QApplication.instance()
     seen = [t for rig in controller.board.rigs() for t in tile_texts(controller.board.state(rig))]

@@ -1,4 +1,4 @@
-"""The rig list (monitor.app.rig_list) and `rigside window` on it: rigs restored, bad files named."""
+"""The rig list (monitor.app.rigs) and `rigside window` on it: rigs restored, bad files named."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ import pytest
 
 from drivers.config import ConfigError
 from drivers.wire import encode_event, encode_header
-from monitor.app.rig_list import append_rig, read_rigs
+from monitor.app.rigs import append_rig, read_rigs
 from monitor.ui.models import RigSetup
 
 pytestmark = pytest.mark.slow  # windows, subprocesses or simulated histories: seconds per test
@@ -152,3 +152,12 @@ def test_window_refuses_a_rig_another_process_records_into_the_same_database(tmp
     assert "being recorded into this database by rigside record" in done.stderr
     with sqlite3.connect(db) as conn:  # each line once: the window stored nothing of it
         assert conn.execute("SELECT count(*) FROM events").fetchone()[0] == 7
+
+
+def test_reading_the_rig_list_loads_no_qt():
+    """The rig list, its RigSpec and protocol loading live outside the window: no PySide6, no pyqtgraph."""
+    script = ("import sys, monitor.app.rigs as r; assert r.RigSpec and r.load_protocol; "
+              "print(sorted(m for m in sys.modules if m.split('.')[0] in ('PySide6', 'shiboken6', 'pyqtgraph')))")
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=60)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip() == "[]"

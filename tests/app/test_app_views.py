@@ -1,4 +1,4 @@
-"""monitor.app.views: snapshots, source states and history mapped to the UI's view models, without Qt."""
+"""monitor.app.live.views: snapshots, source states and history mapped to the UI's view models, without Qt."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ from statsmodels.stats.proportion import proportion_confint
 
 from drivers.status import CONNECTED, LOST, READING, SILENT, STOPPED, WAITING, SourceStatus
 from drivers.wire import Event, WireDecoder
-from monitor.app import views
-from monitor.app.engine import Engine, SessionPlan
+from monitor.app.live import views
+from monitor.app.live.engine import Engine, SessionPlan
 from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.protocol import parse_protocol
 from monitor.core.session.trials import build_trials
@@ -44,7 +44,7 @@ def snapshot(intervals):
     engine.open_session(SessionPlan("box 1", 5, "wren", PROTOCOL, started=10.0,
                                     previous_intervals={"main": (600.0, 640.0, 700.0)}))
     engine.step(0)
-    from monitor.app.pipeline import EngineBatch
+    from monitor.app.live.pipeline import EngineBatch
     from drivers.status import Batch
     data = session_bytes(intervals)
     engine.queue.put(EngineBatch(1, 5, Batch(WireDecoder().feed(data), 0.0), 1.0))
@@ -141,7 +141,7 @@ def test_history_leaves_out_excluded_sessions():
 def test_views_load_no_qt():
     import subprocess
 
-    code = "import sys, monitor.app.views; print(any(m.startswith('PySide6') for m in sys.modules))"
+    code = "import sys, monitor.app.live.views; print(any(m.startswith('PySide6') for m in sys.modules))"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
 
@@ -152,7 +152,7 @@ def test_start_of_session_drop_and_its_interval():
     # previous session ends 16/20 hits; this one starts with 5 warm-up trials, then 9/20
     sessions = history([[1] * 4 + [1] * 16 + [0] * 4, [0] * 5 + [1] * 9 + [0] * 11])
     before = [t.rewarded for t in sessions[0].trials if t.completed][-20:]
-    drop = views.hit_rate_drops(PROTOCOL, sessions)[0]
+    drop = views.history_parts(PROTOCOL, sessions).consolidation.start_drops[0]   # the page's drop (core/session/start_drop.py)
     assert drop.session == 2 and drop.warmup_trials == 5
     assert drop.drop == pytest.approx(sum(before) / 20 - 9 / 20)
     low, high = confint_proportions_2indep(sum(before), 20, 9, 20, method="newcomb", compare="diff")  # statsmodels
@@ -218,7 +218,7 @@ def test_learning_curve_of_a_shaping_animal_is_not_empty():
 
 def test_a_box_streaming_with_nobody_checked_in_has_its_own_tile_state():
     engine = Engine(publish_s=0.0, check_s=1e9)
-    from monitor.app.pipeline import EngineBatch
+    from monitor.app.live.pipeline import EngineBatch
     from drivers.status import Batch
     engine.add_rig("box 2", 1)
     engine.step(0)

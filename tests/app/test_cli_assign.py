@@ -11,7 +11,7 @@ import pytest
 
 from drivers.wire import encode_event, encode_header
 from monitor.app import cli
-from monitor.app.blinding import key_file
+from monitor.app.services.blinding import key_file
 from monitor.store.db import open_store
 from monitor.store.decisions import entries
 from monitor.store.plans import find_plan

@@ -37,7 +37,7 @@ def stored_events(db: Path) -> tuple[int, int]:
 DEMO_IN_CHILD = """
 import json, sys
 from pathlib import Path
-from monitor.app.demo import DemoOptions, run
+from monitor.app.window.demo import DemoOptions, run
 from monitor.app.settings import care_config
 seen = {}
 def inspect(controller, window):

@@ -1,4 +1,4 @@
-"""monitor.app.pipeline: each batch reaches the store's queue, and the engine's when it has room."""
+"""monitor.app.live.pipeline: each batch reaches the store's queue, and the engine's when it has room."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ import time
 
 from drivers.status import Batch
 from drivers.wire import WireDecoder, encode_event
-from monitor.app.pipeline import EngineBatch, Fanout
+from monitor.app.live.pipeline import EngineBatch, Fanout
 
 
 class RecordingWriter:

@@ -8,7 +8,6 @@ import pytest
 from monitor.core.consolidation.measures import (
     outcome_sensitivity,
     session_summaries,
-    start_drops,
     trend,
 )
 from monitor.core.consolidation.model import TrialSeries
@@ -44,14 +43,6 @@ def test_trend_matches_scipy_linregress():
 
     half = student_t.ppf(0.95, 5) * ref.stderr
     assert (out.low, out.high) == pytest.approx((ref.slope - half, ref.slope + half))
-
-
-def test_start_drops_show_warmup_apart():
-    drops = start_drops(_series(), warmup_trials=1, window=2)
-    # session 2: end of session 1 |0.0|,|0.2| -> 0.1; warm-up |-0.3| -> +0.2; next two |-0.1|,|0.1| -> 0.0
-    assert drops[0].session == 2
-    assert drops[0].warmup_drop == pytest.approx(0.2)
-    assert drops[0].after_warmup_drop == pytest.approx(0.0)
 
 
 def test_outcome_sensitivity_by_hand():

@@ -126,7 +126,7 @@ def two_stages(events, second_ms: float) -> LiveSession:
 
 def test_stage_change_restarts_interval_figures_but_not_totals(events):
     snap = two_stages(events, 1000).snapshot()
-    assert snap.stage == "b" and snap.trials == 2 and snap.stage_trials == 1
+    assert snap.stage == "b" and snap.trials == 2 and len(snap.recent_intervals_ms) == 1
     assert snap.median_interval_ms == 1000.0 and snap.target_ms == 1000.0
     assert snap.recent_intervals_ms.tolist() == [1000.0] and not snap.recent_intervals_ms.flags.writeable
 

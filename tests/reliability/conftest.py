@@ -21,7 +21,7 @@ from drivers.status import CONNECTED, READING, WAITING
 from fixtures.devices import PtyBoard, StderrLines, point_link
 from fixtures.protocols import protocol_toml
 from fixtures.sessions import wait_for
-from monitor.app.pipeline import Fanout
+from monitor.app.live.pipeline import Fanout
 from monitor.store import db
 from monitor.store.writer import StoreWriter
 

@@ -22,7 +22,7 @@ import pytest
 
 from drivers.tail import FileTail
 from drivers.wire import encode_event
-from monitor.app.pipeline import Fanout
+from monitor.app.live.pipeline import Fanout
 from monitor.store import db
 from monitor.store.writer import StoreWriter
 

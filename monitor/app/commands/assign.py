@@ -1,7 +1,7 @@
 """`rigside assign --animal NAME | --animals NAME... --operator NAME --reason TEXT`: random assignment
 to the cohort's groups, recorded in the decision log; `rigside assign --reveal-key --cohort NAME`.
 
-Rule: the group is drawn by `monitor.app.assigning` (the same function as the
+Rule: the group is drawn by `monitor.app.services.assigning` (the same function as the
 window's "Draw the group at random") and never from the animal's figures:
 `--animal` draws the next entry of the cohort's permuted blocks
 (blocks-sha256-v1), `--animals` deals a listed set at once (cohort-sha256-v1),
@@ -62,7 +62,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _assign(conn, args) -> list:
-    from monitor.app.assigning import AssignError, assign_listed, draw_next, record_draw
+    from monitor.app.services.assigning import AssignError, assign_listed, draw_next, record_draw
 
     names = [args.animal] if args.animal else list(args.animals)
     option = "--animal" if args.animal else "--animals"
@@ -84,7 +84,7 @@ def _assign(conn, args) -> list:
 
 
 def _judgement(conn, name: str, option: str):
-    from monitor.app.animal_records import RuleError, judge
+    from monitor.app.services.animal_records import RuleError, judge
     from monitor.app.commands.report import known_animal
 
     try:
@@ -101,7 +101,7 @@ def _judgement(conn, name: str, option: str):
 
 
 def _reveal(args: argparse.Namespace) -> int:
-    from monitor.app.blinding import BlindingError, key_file, read_key
+    from monitor.app.services.blinding import BlindingError, key_file, read_key
 
     if not args.cohort:
         raise UsageError("--cohort: say which cohort's key to reveal")

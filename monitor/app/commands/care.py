@@ -152,7 +152,7 @@ def _need(value, option: str):
 
 
 def _sheet(args: argparse.Namespace) -> int:
-    from monitor.app.animal_records import CARE_CAUTION, care_day, care_line, write_care_csv
+    from monitor.app.services.animal_records import CARE_CAUTION, care_day, care_line, write_care_csv
     from monitor.app.settings import care_config, settings_path
     from monitor.app.commands.report import known_animal, open_readonly
     from monitor.store.records import animal_names

@@ -2,7 +2,7 @@
 
 Rule: this module only parses and checks the options and the display (bad
 values, no display or missing system libraries exit 2 with one line);
-`monitor.app.demo.run` does the work and imports Qt itself.
+`monitor.app.window.demo.run` does the work and imports Qt itself.
 """
 
 from __future__ import annotations
@@ -70,8 +70,8 @@ def run(args: argparse.Namespace) -> int:
         care = care_config(settings_path(args.settings))
     except ValueError as exc:
         raise UsageError(f"--settings: {exc}") from None
-    from monitor.app.demo import DemoOptions
-    from monitor.app.demo import run as run_demo
+    from monitor.app.window.demo import DemoOptions
+    from monitor.app.window.demo import run as run_demo
 
     return run_demo(DemoOptions(speed=args.speed, seconds=args.seconds, headless=args.headless,
                                 screenshot=args.screenshot, db=args.db, folder=args.folder, seed=args.seed,

@@ -1,6 +1,6 @@
 """`rigside effects --db DB [--cohort NAME] --json|--csv [FILE]`: each manipulation's effect against the stage.
 
-Rule: read-only (monitor.app.effects): every manipulation in force, its effect
+Rule: read-only (monitor.app.services.effects): every manipulation in force, its effect
 on five measures against its baseline sessions with 95 % intervals (and
 against an acute test's control session; a lasting one's recovery), the
 stage frozen when it was recorded, the trends of effect against slow-state
@@ -35,7 +35,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from monitor.store.csv_export import atomic_file, safe_cell
     from monitor.app.commands.report import open_readonly
-    from monitor.app.effects import CSV_COLUMNS, csv_rows, effects
+    from monitor.app.services.effects import CSV_COLUMNS, csv_rows, effects
 
     conn = open_readonly(args.db)
     try:

@@ -4,7 +4,7 @@ Rule: `add --animal NAME --acute|--lasting --what TEXT --session N [--control]
 [--control-session M] [--group NAME] --operator NAME --reason TEXT [--time T]` appends a
 hash-chained entry with the stage frozen at the last session before session N
 (sessions are the report's indexes, from 1) and flags the affected sessions
-excluded, in one BEGIN IMMEDIATE transaction (monitor.app.effects); the group
+excluded, in one BEGIN IMMEDIATE transaction (monitor.app.services.effects); the group
 comes from the animal's latest `assigned` decision unless `--group` names it
 (a code in a blinded cohort). `list [--animal NAME] [--json]` prints the log
 and says whether its chain holds. `withdraw --seq N` appends an entry that
@@ -78,7 +78,7 @@ def run(args: argparse.Namespace) -> int:
 
 def _add(args: argparse.Namespace) -> int:
     from monitor.app.commands.report import known_animal
-    from monitor.app.effects import ADVISORY, record_manipulation
+    from monitor.app.services.effects import ADVISORY, record_manipulation
 
     def work(conn):
         known_animal(conn, args.animal)
@@ -129,7 +129,7 @@ def _list(args: argparse.Namespace) -> int:
 
 
 def _withdraw(args: argparse.Namespace) -> int:
-    from monitor.app.effects import withdraw_manipulation
+    from monitor.app.services.effects import withdraw_manipulation
 
     def work(conn):
         try:
@@ -143,7 +143,7 @@ def _withdraw(args: argparse.Namespace) -> int:
 
 
 def _unblind(args: argparse.Namespace) -> int:
-    from monitor.app.effects import unblind
+    from monitor.app.services.effects import unblind
 
     def work(conn):
         try:

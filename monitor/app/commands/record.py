@@ -132,7 +132,7 @@ def _drop_if_empty(conn: Any, session_id: int) -> bool:
 
 def _record(args, kind, where, factory, writer, source_id, session_id, resume) -> int:
     from drivers.status import LOST
-    from monitor.app.pipeline import Fanout
+    from monitor.app.live.pipeline import Fanout
     from monitor.store import db
     from monitor.store.writer import FAILED
     from monitor.store.records import session_count

@@ -1,7 +1,7 @@
 """`rigside window` (also plain `rigside`): the window for this PC's real rigs, all day.
 
 Rule: the rigs come from the rig list (`--rigs`, default the user config
-directory's rigs.toml; monitor.app.rig_list), the data go to the store
+directory's rigs.toml; monitor.app.rigs), the data go to the store
 (`--db`); a rig added from the window's "Add rig" dialog is appended to the
 list, so the window opens with it tomorrow. A bad rig list or protocol file
 is refused before any window opens: one line naming the file, line and key,
@@ -35,8 +35,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from drivers.config import ConfigError
-    from monitor.app.controller import load_protocol
-    from monitor.app.rig_list import default_rigs_path, read_rigs
+    from monitor.app.rigs import load_protocol
+    from monitor.app.rigs import default_rigs_path, read_rigs
 
     if args.seconds is not None and not args.seconds > 0:
         raise UsageError(f"--seconds: must be above 0, got {args.seconds:g}")
@@ -79,9 +79,9 @@ def open_window(db_path: Path, rigs_path: Path, specs: list, seconds: float | No
     from PySide6.QtCore import QCoreApplication, QEvent, QSettings, QTimer
     from PySide6.QtWidgets import QApplication
 
-    from monitor.app.controller import Controller
-    from monitor.app.discovery import discover_devices
-    from monitor.app.rig_list import append_rig
+    from monitor.app.window.controller import Controller
+    from monitor.app.window.discovery import discover_devices
+    from monitor.app.rigs import append_rig
     from monitor.store.writer import StoreWriter
     from monitor.ui.main_window import MainWindow
 
@@ -97,7 +97,7 @@ def open_window(db_path: Path, rigs_path: Path, specs: list, seconds: float | No
     controller.attach(window, care=care)
     link = None
     if lab is not None:
-        from monitor.app.lab_background import LabLink
+        from monitor.app.window.lab_background import LabLink
         link = LabLink(window, db_path, *lab)
     window.rig_added.connect(lambda setup: append_rig(rigs_path, setup))
     from monitor.store.source_locks import SourceBusy

@@ -4,10 +4,9 @@ Rule: pure functions of a TrialSeries (excluded sessions and non-finite trials
 left out); per session in time order.  Interval error is the median |log(interval
 / target)|; CV is SD / mean of the intervals (of interval/target when only y is
 known); a trend is the least-squares slope per session over the last sessions
-with its 90 % interval; a start-of-session drop compares the first trials of a
-session with the last trials of the previous one, the warm-up trials apart from
-the trials right after them; outcome sensitivity is how much the next interval
-moves after an unrewarded versus a rewarded trial, within sessions.
+with its 90 % interval; outcome sensitivity is how much the next interval
+moves after an unrewarded versus a rewarded trial, within sessions. The
+start-of-session drop has one home, monitor.core.session.start_drop.
 """
 from __future__ import annotations
 
@@ -76,29 +75,6 @@ def trend(values: list[float] | np.ndarray, last: int = 10) -> Trend:
     se = float(np.sqrt(resid @ resid / (len(v) - 2) / (xc @ xc)))
     half = float(student_t.ppf(0.95, len(v) - 2)) * se
     return Trend(slope, slope - half, slope + half, len(v))
-
-
-@dataclass(frozen=True)
-class StartDrop:
-    session: int
-    warmup_drop: float  # mean |y| of the warm-up trials minus that at the end of the previous session
-    after_warmup_drop: float  # same for the trials right after warm-up
-
-
-def start_drops(series: TrialSeries, warmup_trials: int = 5, window: int = 20) -> list[StartDrop]:
-    """Start-of-session change in absolute log error, warm-up shown apart (positive = worse)."""
-    sessions = _included(series)
-    rows = []
-    for (_, prev, _, _), (label, y, _, _) in zip(sessions[:-1], sessions[1:]):
-        before = float(np.mean(np.abs(prev[-window:])))
-        warm = np.abs(y[:warmup_trials])
-        after = np.abs(y[warmup_trials : warmup_trials + window])
-        rows.append(StartDrop(
-            label,
-            float(np.mean(warm)) - before if len(warm) else float("nan"),
-            float(np.mean(after)) - before if len(after) else float("nan"),
-        ))
-    return rows
 
 
 @dataclass(frozen=True)

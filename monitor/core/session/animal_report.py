@@ -25,7 +25,7 @@ from monitor.core.session.plateau import judge_all, learning_trial
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import SessionInput, learning_curve, summarize
 from monitor.core.session.derivation import derive_session
-from monitor.core.session.start_drop import start_drops
+from monitor.core.session.start_drop import fixed_window_drops
 from monitor.core.session.trials import Trial
 
 
@@ -73,12 +73,9 @@ def _result(result) -> dict[str, Any]:
 
 def _fixed_window_drops(protocol: Protocol, inputs: Sequence[SessionInput]) -> dict[int, float]:
     """Session index -> start-of-session drop of the final stage's fixed-window fraction (included sessions)."""
+    kept = [(index, s.trials) for index, s in enumerate(inputs, start=1) if not s.excluded]
     final = protocol.final_stage.name
-    low, high = protocol.fixed_window(final)
-    flags = [(index, [low <= t.interval_ms <= high for t in s.trials
-                      if t.completed and t.stage == final and math.isfinite(t.interval_ms)])
-             for index, s in enumerate(inputs, start=1) if not s.excluded]
-    return {d.session: d.drop for d in start_drops(flags)}
+    return {d.session: d.drop for d in fixed_window_drops(final, protocol.fixed_window(final), kept)}
 
 
 def animal_report(animal: str, protocol: Protocol, sessions: Sequence[SessionData],

@@ -53,7 +53,6 @@ class LiveSnapshot(NamedTuple):
     rolling_hit_rate: float
     rolling_low: float
     rolling_high: float
-    stage_trials: int
     fixed_window_fraction: float
     median_interval_ms: float
     rolling_median_ms: float
@@ -228,7 +227,6 @@ class LiveStats:
             rolling_hit_rate=figures.rolling.rate,
             rolling_low=low,
             rolling_high=high,
-            stage_trials=counted,
             fixed_window_fraction=figures.in_fixed / counted if counted else math.nan,
             median_interval_ms=figures.median.median,
             rolling_median_ms=figures.rolling_median.median,

@@ -7,13 +7,21 @@ session's last `window` trials minus the proportion over this session's
 `window` trials after its first `warmup` (the warm-up is set apart, it is its
 own phenomenon). Positive = worse at the start. The 95 % interval of the
 difference is Newcombe's hybrid score interval (`binomial.newcombe_difference`).
-A session with no trial after its warm-up has no drop.
+A session with no trial after its warm-up has no drop. Two figures use it,
+both over the completed trials (core.session.trials.Trial) of the protocol's
+final stage: the hit rate
+(`hit_rate_drops`, the animal page) and the fraction of intervals inside the
+stage's fixed window (`fixed_window_drops`, the per-animal report's
+`start_drop` and the eligibility measure of that name). The module imports
+nothing of the protocol, so the ui's view models may name `StartDrop`.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 from monitor.core.session.binomial import newcombe_difference
 
@@ -43,3 +51,19 @@ def start_drops(sessions: Sequence[tuple[int, Sequence[bool]]], warmup: int = WA
             d, low, high = newcombe_difference(sum(end), len(end), sum(start), len(start))
             drops.append(StartDrop(index, d, low, high, warmup))
     return tuple(drops)
+
+
+def hit_rate_drops(final_stage: str, sessions: Sequence[tuple[int, Sequence[Any]]]) -> tuple[StartDrop, ...]:
+    """Drops of the final stage's hit rate; `sessions` is (index, trials) of the included sessions."""
+    return start_drops([(index, [t.rewarded for t in trials if t.completed and t.stage == final_stage])
+                        for index, trials in sessions])
+
+
+def fixed_window_drops(final_stage: str, window: tuple[float, float],
+                       sessions: Sequence[tuple[int, Sequence[Any]]]) -> tuple[StartDrop, ...]:
+    """Drops of the final stage's fraction of intervals inside its fixed `window` (ms); `sessions` as in
+    `hit_rate_drops`."""
+    low, high = window
+    return start_drops([(index, [low <= t.interval_ms <= high for t in trials
+                                 if t.completed and t.stage == final_stage and math.isfinite(t.interval_ms)])
+                        for index, trials in sessions])

@@ -17,7 +17,7 @@ import queue
 import threading
 from typing import Protocol
 
-from monitor.app.engine import RaisedAlert
+from monitor.app.live.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT
 from monitor.ui.models import Alert, Severity
 from monitor.ui.owners import AlertBook

@@ -1,6 +1,7 @@
 """Views: pure functions from engine snapshots, source status and stored history to the UI's view models.
 
-Rule: nothing here touches Qt, a thread, the store or a file; every function
+Rule: nothing here touches Qt, a thread, the store or a file (history comes as
+monitor.store.history's plain `HistorySession` records); every function
 takes plain values and returns the frozen view models of `monitor.ui.models`.
 Missing figures stay `None` (NaN in arrays), never 0. A rig's connection word
 comes from its source's state and whether a session runs: lost (reader ended),
@@ -27,16 +28,16 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
-from monitor.app.engine import RigSnapshot
+from monitor.app.live.engine import RigSnapshot
 from monitor.core.eligibility.figures import AnimalFigures
 from monitor.core.eligibility.from_report import figures_from_report
 from monitor.core.session.binomial import wilson
 from monitor.core.session.plateau import judge
-from monitor.core.session.start_drop import start_drops
+from monitor.core.session.start_drop import hit_rate_drops
 from monitor.core.consolidation.words import fraction_text
 from monitor.core.protocol import Protocol
 from monitor.core.session.summary import BINARY_MEASURES, SessionInput, learning_curve, summarize
-from monitor.core.session.trials import Trial
+from monitor.store.history import HistorySession
 from monitor.ui.models import (AnimalPageState, ConsolidationState, Connection, CurveState, HistogramData,
                                RigTileState, SessionRow, Severity, StartDrop, StatusState, StoreHealth, TodayState)
 
@@ -143,22 +144,6 @@ def status_state(statuses: Mapping[str, SourceStatus], writer_state: str, writer
 
 
 # --- history ------------------------------------------------------------------------------
-class HistorySession(NamedTuple):
-    """One past session of an animal, segmented, with what the store knows of it."""
-
-    trials: tuple[Trial, ...]
-    start: str = ""                 # local start time, formatted
-    rig: str = ""
-    counts: Mapping[str, int] = {}
-    water_ul: float | None = None
-    malformed_lines: int = 0
-    excluded: bool = False
-    exclusion_reason: str = ""
-    conditions: str = ""
-    break_hours: float = 23.0       # since the previous session ended
-    session_id: int | None = None   # the store's id (exclusions and conditions refer to it)
-
-
 class HistoryParts(NamedTuple):
     """The parts of an animal page that come from its history."""
 
@@ -195,7 +180,8 @@ def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
         index=s.index, trials=s.figures.trials, excluded=s.excluded, hit_rate=s.figures.hit_rate, cv=s.figures.cv,
         fixed_window_fraction=s.figures.fixed_window_fraction, median_abs_log_error=s.figures.median_abs_log_error)
         for s in summaries], "plateau": {"reached": result.reached, "session": plateau_session}})
-    drops = hit_rate_drops(protocol, sessions)
+    drops = hit_rate_drops(protocol.final_stage.name,
+                           [(index, s.trials) for index, s in enumerate(sessions, start=1) if not s.excluded])
     consolidation = _consolidation_state(figures, drops, fit)
     previous = stage_intervals(sessions[-1]) if sessions else {}
     return HistoryParts(curve_state, consolidation, rows, previous, result.reached, plateau_session, result.reason,
@@ -238,13 +224,6 @@ def _curve_state(protocol: Protocol, inputs: Sequence[SessionInput], measure: st
         criterion=protocol.plateau.threshold, plateau_session=plateau_session,
         plateau_word="reached" if result.reached else "not reached", plateau_reason=result.reason,
         final_stage=protocol.final_stage.name)
-
-
-def hit_rate_drops(protocol: Protocol, sessions: Sequence[HistorySession]) -> tuple[StartDrop, ...]:
-    """The start-of-session drops of the final stage's hit rate (monitor.core.session.start_drop)."""
-    final = protocol.final_stage.name
-    return start_drops([(index, [t.rewarded for t in s.trials if t.completed and t.stage == final])
-                        for index, s in enumerate(sessions, start=1) if not s.excluded])
 
 
 def _consolidation_state(figures: AnimalFigures, drops: tuple[StartDrop, ...],

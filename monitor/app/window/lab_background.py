@@ -8,7 +8,7 @@ thread or the live path; one at a time, and a sync still running when the
 window closes is killed (the next one resumes where it stopped). After each
 run the state is read from the local store (monitor.store.lab_sync.sync_status)
 and said in words. The lab view reads `rigside lab show --json` the same way;
-an animal's pages open read-only from the lab (monitor.app.lab_pages, a
+an animal's pages open read-only from the lab (monitor.app.window.lab_pages, a
 worker thread).
 """
 
@@ -61,7 +61,7 @@ class LabLink(QObject):
         self.window, self.db_path, self.settings_file, self.url = window, db_path, settings_file, url
         self.sync_process: QProcess | None = None
         self.show_process: QProcess | None = None
-        self.pages = None   # monitor.app.lab_pages.LabPages, made when the first page is asked for
+        self.pages = None   # monitor.app.window.lab_pages.LabPages, made when the first page is asked for
         self.view: LabWindow | None = None
         self.label = plain_label(wrap=False)
         self.label.setObjectName("lab_state")
@@ -162,11 +162,11 @@ class LabLink(QObject):
             self.view.show_message(err.strip() or f"rigside lab show ended with {code}")
 
     def read_animal(self, animal: str) -> None:
-        """Open the animal's pages from the lab, read-only (monitor.app.lab_pages, read off the GUI thread)."""
+        """Open the animal's pages from the lab, read-only (monitor.app.window.lab_pages, read off the GUI thread)."""
         if not self.url:
             return
         if self.pages is None:
-            from monitor.app.lab_pages import LabPages
+            from monitor.app.window.lab_pages import LabPages
             from monitor.app.settings import care_config
 
             try:

@@ -89,7 +89,7 @@ class AnimalRecordsSide:
                 return
             if added:
                 self.controller.recorded_animals.add(name)
-                self.controller._refresh_roster()
+                self.controller.refresh_roster()
                 main = self.controller.window
                 if main is not None:
                     main.statusBar().showMessage(f"{name} added: check it in with Rigs → Check in", 15000)

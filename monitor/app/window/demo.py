@@ -11,9 +11,9 @@ TCP port and the same `SerialSource` opens `socket://127.0.0.1:PORT` through
 pyserial, as it opens a COM port; with `--files` each box appends to a log
 file read by the real `FileTail`. History: the generated session files are imported into the demo
 database with the store's importer in a worker job (progress in the status
-bar), and animal pages read their history from the store once it is done;
-where the store has no importer, the parts are computed from the files
-directly (`FileHistory`). Headless (`--headless`) uses the
+bar), and animal pages read their history from the store once it is done.
+`wait_for` processes Qt events while it waits (the demo's own steps, and the
+guide's pictures). Headless (`--headless`) uses the
 offscreen platform, sizes the window 1366×768 and saves `window.grab()` to
 `--screenshot` when `--seconds` have passed; exit 0 when every row was stored.
 """
@@ -23,17 +23,17 @@ from __future__ import annotations
 import os
 import shutil
 import sys
-import threading
 import tempfile
+import threading
+import time
+from collections.abc import Callable
 from dataclasses import dataclass
-from datetime import datetime, timedelta
 from pathlib import Path
 
-from drivers.wire import Event, Header, Malformed, decode_all
 from mock_rig import scenario
-from monitor.app import views
 from monitor.core.care.ledger import CareConfig
 from monitor.core.protocol import Protocol
+from monitor.store.history import HistorySession
 
 SECTIONS = {"today": 0, "curve": 1, "consolidation": 2, "sessions": 3}
 CHECK_IN_WEIGHT_G = 310.0   # the demo's rats weigh in at this (our own figure)
@@ -59,58 +59,16 @@ class DemoOptions:
     care: CareConfig | None = None           # the lab's [care] thresholds (None: the defaults)
 
 
-class FileHistory:
-    """Past sessions of the demo animals, read from the generated session files."""
-
-    def __init__(self, files: dict[str, list[Path]]) -> None:
-        self.files = files
-
-    def sessions(self, animal: str, protocol: Protocol, job) -> list[views.HistorySession]:
-        from monitor.app.controller import segment
-
-        paths = self.files.get(animal, [])
-        out: list[views.HistorySession] = []
-        previous_end: datetime | None = None
-        for k, path in enumerate(paths):
-            job.progress(k / max(len(paths), 1), f"session {k + 1} of {len(paths)}")
-            records = decode_all(path.read_bytes())
-            events = [r for r in records if isinstance(r, Event)]
-            start_text = next((r.fields.get("start", "") for r in records if isinstance(r, Header)), "")
-            start = datetime.fromisoformat(start_text) if start_text else None
-            trials, counts, water = segment(protocol, events)
-            hours = 23.0
-            if start is not None and previous_end is not None:
-                hours = max((start - previous_end).total_seconds() / 3600.0, 0.0)
-            if start is not None and events:
-                previous_end = start + timedelta(microseconds=events[-1].t_us - events[0].t_us)
-            malformed = sum(1 for r in records if isinstance(r, Malformed))
-            out.append(views.HistorySession(tuple(trials), start_text[:16].replace("T", " "),
-                                            _box_of(records), counts, water, malformed, break_hours=hours))
-        return out
-
-
-def _box_of(records) -> str:
-    return next((r.fields.get("rig", "") for r in records if isinstance(r, Header)), "")
-
-
 class ImportedHistory:
     """The store's history, once the demo's files are imported (waits, cancellably, until then)."""
 
     def __init__(self, inner, done: threading.Event) -> None:
         self.inner, self.done = inner, done
 
-    def sessions(self, animal: str, protocol: Protocol, job) -> list[views.HistorySession]:
+    def sessions(self, animal: str, protocol: Protocol, job) -> list[HistorySession]:
         while not self.done.wait(0.2):
             job.progress(0.0, "waiting for the demo history to be imported")
         return self.inner.sessions(animal, protocol, job)
-
-
-def importer_available() -> bool:
-    try:
-        from monitor.store.importer import import_file  # noqa: F401
-    except ImportError:
-        return False
-    return True
 
 
 def import_history(controller, prepared, done: threading.Event) -> None:
@@ -152,6 +110,17 @@ def import_history(controller, prepared, done: threading.Event) -> None:
     controller.run_job("importing the demo history", work, finished)
 
 
+def wait_for(condition: Callable[[], bool], timeout: float, app) -> bool:
+    """Process Qt events until `condition()` holds or `timeout` seconds pass."""
+    deadline = time.monotonic() + timeout
+    while not condition():
+        if time.monotonic() > deadline:
+            return False
+        app.processEvents()
+        time.sleep(0.01)
+    return True
+
+
 def run(options: DemoOptions, inspect=None) -> int:
     """Run the demo until the window closes, a signal, or `options.seconds`; the exit code.
 
@@ -178,8 +147,10 @@ def _run(options: DemoOptions, folder: Path, inspect) -> int:
     from mock_rig.demo import STAGES, prepare_demo, start_demo
     from mock_rig.live import LiveRig, stop_rigs
     from mock_rig.outputs import FileOutput, pty_available
-    from monitor.app.controller import Controller, RigSpec, StoreHistory, load_protocol, wait_for
-    from monitor.app.discovery import discover_devices
+    from monitor.app.rigs import RigSpec, load_protocol
+    from monitor.app.window.controller import Controller
+    from monitor.app.window.pages import StoreHistory
+    from monitor.app.window.discovery import discover_devices
     from monitor.core.alerts import AlertRules
     from monitor.store.writer import StoreWriter
     from monitor.ui.main_window import MainWindow
@@ -196,10 +167,7 @@ def _run(options: DemoOptions, folder: Path, inspect) -> int:
     writer.start()
     protocols = {d.animal.name: load_protocol(d.protocol_path) for d in prepared}
     imported = threading.Event()
-    if importer_available():
-        history = ImportedHistory(StoreHistory(db_path), imported)
-    else:
-        history = FileHistory({d.animal.name: d.session_files for d in prepared})
+    history = ImportedHistory(StoreHistory(db_path), imported)
     controller = Controller(writer, history=history, rules=AlertRules(clock_rate=options.speed),
                             protocols=protocols, fit_consolidation=options.fit)
     settings = None if options.headless else QSettings("rigside", "rigside-demo")
@@ -223,8 +191,7 @@ def _run(options: DemoOptions, folder: Path, inspect) -> int:
     window.show()
     controller.start()
     controller.install_signal_handlers(app)
-    if isinstance(history, ImportedHistory):
-        import_history(controller, prepared, imported)
+    import_history(controller, prepared, imported)
     for d in prepared:       # check in first, then open the ports: every event lands in its animal's session
         stage = d.animal.protocol.stages[d.animal.stage_index].name
         controller.check_in(CheckIn(d.animal.name, d.animal.board.rig_name, "demo", CHECK_IN_WEIGHT_G, stage))

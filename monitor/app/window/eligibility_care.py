@@ -29,11 +29,11 @@ from typing import Any, Callable, Sequence
 from PySide6.QtCore import QObject, Qt, QTimer
 from PySide6.QtWidgets import QWidget
 
-from monitor.app.animal_records import Judgement, RuleError, care_day, care_line, judge, record_decision, \
+from monitor.app.services.animal_records import Judgement, RuleError, care_day, care_line, judge, record_decision, \
     write_care_csv
-from monitor.app.engine import RaisedAlert
+from monitor.app.live.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT, Raised
-from monitor.app.assigning import AssignError, Draw, draw_next, record_draw
+from monitor.app.services.assigning import AssignError, Draw, draw_next, record_draw
 from monitor.core.eligibility.assignment import BLOCKS_METHOD
 from monitor.core.care.ledger import NO_RECORD, RECORDED, RUNNING, CareConfig, DaySummary
 from monitor.core.eligibility.decision_log import ChainCheck, LogEntry, rule_agrees
@@ -334,7 +334,7 @@ class DecisionsAndCare(QObject):
             self.care_panel.set_view(CareView(self.care_panel.view.day, tuple(care_row(s) for s in panel),
                                               thresholds_text(self.config)))
         for name in set(judged) | {s.animal for s in summaries}:
-            self.controller._push_page(name)
+            self.controller.pages.push(name)
         self._over()
 
     def _push(self, animal: str, kind: str, severity: str, text: str) -> int:

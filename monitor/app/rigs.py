@@ -10,7 +10,10 @@ file with a `ConfigError` naming the file, line and key (a rig twice, a
 missing key, a value of the wrong kind, a calibration out of range); a
 missing file is an empty list. `append_rig` adds one table at the end and
 never rewrites what is there, so comments and hand edits survive. The file
-only says where rigs are; what they sent lives in the store.
+only says where rigs are; what they sent lives in the store. `RigSpec` is
+one rig as the window opens it, `load_protocol` reads its protocol file and
+`decoder_factory` makes a new line decoder per source (the wire format, or a
+lab's mapped format). Reading the rig list loads no Qt.
 """
 
 from __future__ import annotations
@@ -19,13 +22,54 @@ import json
 import math
 from pathlib import Path
 
+from collections.abc import Callable
+from typing import Any, NamedTuple
+
 from drivers.config import ConfigError, TomlFile
-from monitor.app.controller import RigSpec
+from drivers.wire import WireDecoder
+from monitor.core.protocol import Protocol, parse_protocol
 from monitor.ui.models import RigSetup
 from monitor.ui.validation import RIG_NAME, VALVE_RANGE_UL_PER_MS
 
 REQUIRED = ("name", "source", "path", "protocol")
 OPTIONAL = ("usb_serial", "mapping", "valve_ul_per_ms", "reset")
+
+
+class RigSpec(NamedTuple):
+    """One rig on this PC: its source and its default protocol."""
+
+    name: str
+    kind: str                        # "serial" | "file"
+    path: str
+    protocol_path: Path
+    usb_serial: str | None = None
+    mapping_path: Path | None = None
+    valve_ul_per_ms: float | None = None
+    wait_for_header: bool = True
+
+
+class LoadedProtocol(NamedTuple):
+    """A protocol file as read: the parsed protocol, its text (stored with each session) and its path."""
+
+    protocol: Protocol
+    text: str
+    path: Path
+
+
+def load_protocol(path: Path) -> LoadedProtocol:
+    """Read and parse a protocol file (a ConfigError names file, line and key)."""
+    text = Path(path).read_text(encoding="utf-8")
+    return LoadedProtocol(parse_protocol(text, str(path)), text, Path(path))
+
+
+def decoder_factory(mapping_path: Path | None) -> Callable[[], Any]:
+    """A new line decoder per source: the wire format, or a lab's mapped format."""
+    if mapping_path is None:
+        return WireDecoder
+    from drivers.mapping import MappedDecoder, load_mapping
+
+    mapping = load_mapping(mapping_path)
+    return lambda: MappedDecoder(mapping)
 
 
 def default_rigs_path() -> Path:

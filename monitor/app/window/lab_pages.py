@@ -55,7 +55,7 @@ class ReadJob:
         self.cancelled = cancelled
 
     def progress(self, fraction: float, message: str = "") -> None:
-        from monitor.app.controller import Cancelled
+        from monitor.app.window.controller import Cancelled
 
         if self.cancelled():
             raise Cancelled()
@@ -79,10 +79,10 @@ def page_from_store(path: Path, animal: str, config: CareConfig, now: datetime, 
                     where: str | None = None) -> AnimalPageState:
     """An animal's page from the store at `path` by the rig PC's own code (history, cached fit, judgement, care
     day, latest session); `where` is said where the rig PC names the box."""
-    from monitor.app import views
-    from monitor.app.animal_records import RuleError, care_day, judge
-    from monitor.app.controller import StoreHistory
-    from monitor.app.eligibility_care import care_text, eligibility_text
+    from monitor.app.live import views
+    from monitor.app.services.animal_records import RuleError, care_day, judge
+    from monitor.app.window.controller import StoreHistory
+    from monitor.app.window.eligibility_care import care_text, eligibility_text
     from monitor.store.db import open_store
     from monitor.store.derive import protocol_of
     from monitor.store.fits import cached_block
@@ -119,8 +119,8 @@ def _latest_session(path: Path, animal: str, session_id: int,
                     previous: dict[str, tuple[float, ...]] | None) -> TodayState | None:
     """The latest session's part of the page (histograms against the session before, rolling hit rate), as the
     live page showed it: its events replayed through the live view's own code."""
-    from monitor.app import views
-    from monitor.app.engine import RigSnapshot
+    from monitor.app.live import views
+    from monitor.app.live.engine import RigSnapshot
     from monitor.store.db import open_store
     from monitor.store.derive import session_replayed
 
@@ -139,7 +139,7 @@ def _latest_session(path: Path, animal: str, session_id: int,
 
 def _history(animal: str, entries: tuple[Any, ...], chains: tuple[tuple[str, Any], ...]) -> HistoryView:
     """The animal's entries from every PC it trained on, and each PC's chain check in words."""
-    from monitor.app.eligibility_care import history_view
+    from monitor.app.window.eligibility_care import history_view
 
     checks = [(pc, history_view(animal, (), check)) for pc, check in chains]
     rows = history_view(animal, entries, chains[0][1]).rows if chains else ()

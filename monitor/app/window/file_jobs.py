@@ -22,7 +22,7 @@ from typing import Any
 from PySide6.QtCore import QObject, Qt, Signal
 from PySide6.QtWidgets import QLabel
 
-from monitor.app.controller import Cancelled, Job
+from monitor.app.window.controller import Cancelled, Job
 
 SHOW_S = 0.1       # at most ten progress updates a second
 MESSAGE_MS = 30000  # how long the closing line stays in the status bar

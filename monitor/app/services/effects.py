@@ -163,7 +163,7 @@ def unblind(conn: Connection, cohort: str, operator: str, reason: str) -> None:
 
 def _group_names(conn: Connection, cohorts: set[str]) -> dict[str, dict[str, str]]:
     """cohort -> {code: group name} for unblinded cohorts whose key file can be read."""
-    from monitor.app.blinding import BlindingError, database_path, key_file, read_key
+    from monitor.app.services.blinding import BlindingError, database_path, key_file, read_key
     from monitor.store.manipulations import unblinded
 
     db = database_path(conn)

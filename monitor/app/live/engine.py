@@ -19,7 +19,12 @@ new header or `param stage` starts afresh); a session opens with
 those fed first (`SessionPlan.carried`), so a window the box sent before
 check-in is in force. A disagreement with the rig is alerted only while the
 window in force is known (the rig's own, or a fixed stage's). Alert rules that
-depend on time and on the source's link are checked every `check_s`.
+depend on time and on the source's link are checked every `check_s`. Once
+told the animal's cached fit (`follow`), the engine also feeds every trial
+the session completes to that fit's filter as it completes (monitor.app.live
+.fraction), the session's trials so far first, and the snapshot carries the
+slow-state fraction after the latest one: no trial is missed however fast
+they come.
 """
 
 from __future__ import annotations
@@ -32,8 +37,10 @@ from typing import Any, Callable, NamedTuple
 
 from drivers.status import LOST, STOPPED, WAITING, SourceStatus
 from drivers.wire import Event, Header, Malformed
-from monitor.app.pipeline import EngineBatch
+from monitor.app.live.fraction import FractionFollower
+from monitor.app.live.pipeline import EngineBatch
 from monitor.core.alerts import ACTIVITY_EVENTS, LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
+from monitor.core.consolidation.live import LiveFraction
 from monitor.core.protocol import Protocol
 from monitor.core.session.live_stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot, RateSeries
 
@@ -75,6 +82,7 @@ class RigSnapshot(NamedTuple):
     params: tuple[Event, ...] = ()   # the rig's newest `param` event of each name (any session or none)
     window_known: bool = False    # the window in force is the rig's own or a fixed stage's (not a guess)
     unattended_events: int = 0    # presses, pushes, trial starts since the last session ended with nobody in
+    fraction: LiveFraction | None = None   # the slow-state fraction after the session's latest trial (followed)
 
 
 class RaisedAlert(NamedTuple):
@@ -92,8 +100,20 @@ class _Session:
         self.live = LiveSession(plan.protocol, plan.stage, window=window, valve_ul_per_ms=plan.valve_ul_per_ms,
                                 previous_intervals=dict(plan.previous_intervals or {}))
         self.ended = False
+        self.follower: FractionFollower | None = None
         for event in plan.carried:
             self.live.feed(event)
+
+    def feed(self, event: Event) -> None:
+        """One event into the session; its completed trials into the followed fit too."""
+        new = self.live.feed(event)
+        if new and self.follower is not None:
+            self.follower.add(new)
+
+    def follow(self, cached: dict, final_stage: str, start_wall: float) -> None:
+        """Follow the slow-state fraction from a cached fit, from the session's first trial on."""
+        self.follower = FractionFollower(cached, final_stage, start_wall)
+        self.follower.add(self.live.trials)
 
     def window_known(self) -> bool:
         """The rig sent its window, or the stage in force has a fixed window in the protocol (rigside's
@@ -181,6 +201,10 @@ class Engine:
 
     def close_session(self, rig: str, session_id: int) -> None:
         self._controls.append(("close", (rig, session_id)))
+
+    def follow(self, rig: str, session_id: int, cached: dict, final_stage: str) -> None:
+        """Follow the session's slow-state fraction from the animal's cached fit (its "live" filter state)."""
+        self._controls.append(("follow", (rig, session_id, cached, final_stage)))
 
     def start(self) -> Engine:
         self._thread = threading.Thread(target=self._run, name="engine", daemon=True)
@@ -272,12 +296,22 @@ class Engine:
                 state = self._rigs.get(rig)
                 if state is not None and state.session is not None and state.session.plan.session_id == session_id:
                     self._end(state)
+            elif kind == "follow":
+                rig, session_id, cached, final_stage = value
+                state = self._rigs.get(rig)
+                session = state.session if state is not None else None
+                if session is not None and session.plan.session_id == session_id and not session.ended:
+                    start_wall = self._wall() - (self._clock() - session.plan.started)
+                    session.follow(cached, final_stage, start_wall)
+                    state.dirty = True
 
     def _end(self, state: _Rig) -> None:
         session = state.session
         if session is None or session.ended:
             return
-        session.live.finish()
+        flushed = session.live.finish()
+        if session.follower is not None:
+            session.follower.add(flushed)
         session.ended = True
         state.unattended = 0
         state.watch.session(False, self._clock())
@@ -308,7 +342,7 @@ class Engine:
                     state.unattended += 1
                 raised += watch.event(record.name, record.args, record.t_us, now)
                 if session is not None:
-                    session.live.feed(record)
+                    session.feed(record)
             elif isinstance(record, Header):
                 state.remember(record)
             elif isinstance(record, Malformed):
@@ -367,7 +401,8 @@ class Engine:
                 disagreements=len(session.live.builder.disagreements) if session else 0,
                 events=state.events, malformed=state.malformed, last_event_at=state.last_event_at,
                 newest_stamp=state.newest_stamp, params=tuple(state.params.values()),
-                window_known=session.window_known() if session else False, unattended_events=state.unattended)
+                window_known=session.window_known() if session else False, unattended_events=state.unattended,
+                fraction=session.follower.fraction if session and session.follower else None)
         if fresh:
             with self._lock:
                 self._latest.update(fresh)

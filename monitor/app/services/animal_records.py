@@ -6,7 +6,7 @@ animal)` takes the animal's figures from the same data as `rigside report`
 protocol in force and returns the figures with the rule's verdict (the
 verdict "no eligibility rule" when the protocol has none). For a blinded
 cohort (`[eligibility] blinded = true`) the rule's groups are renamed to their
-codes before judging (monitor.app.blinding keeps the key beside the
+codes before judging (monitor.app.services.blinding keeps the key beside the
 database), so the verdict, its alerts, the dialog and the log speak codes
 only. `record_decision`
 freezes those figures and the verdict in a new hash-chained entry inside the
@@ -95,7 +95,7 @@ def judge(conn: Connection, animal: str) -> Judgement | None:
 
 
 def _blinding(conn: Connection, rule: EligibilityRule) -> BlindingKey:
-    from monitor.app.blinding import BlindingError, cohort_key, database_path
+    from monitor.app.services.blinding import BlindingError, cohort_key, database_path
 
     db = database_path(conn)
     if db is None:

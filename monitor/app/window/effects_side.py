@@ -2,7 +2,7 @@
 
 Rule: "Record a manipulation…" reads the animal's sessions (report indexes,
 start, stage) in a worker, shows the dialog, and stores a valid request
-through the store writer with monitor.app.effects' `record_manipulation` (the
+through the store writer with monitor.app.services.effects' `record_manipulation` (the
 same function as `rigside manipulation add`). "Cohort effects…" computes
 `effects` for all cohorts and for each one from a read-only connection in a
 worker and shows the cohort view.
@@ -74,7 +74,7 @@ class EffectsSide(QObject):
 
     def record(self, request) -> None:
         """Store the request through the store writer; say the entry (or why not) in the status bar."""
-        from monitor.app.effects import record_manipulation
+        from monitor.app.services.effects import record_manipulation
 
         def write(conn):
             return record_manipulation(conn, animal=request.animal, duration=request.duration, role=request.role,
@@ -91,7 +91,7 @@ class EffectsSide(QObject):
                                 lambda job: self.controller.writer.call(write), done)
 
     def open_effects(self) -> None:
-        from monitor.app.effects import effects
+        from monitor.app.services.effects import effects
         from monitor.ui.effects_view import EffectsView
 
         def read(conn) -> tuple[dict[str, Any], dict[str, dict[str, Any]]]:
