@@ -78,7 +78,7 @@ def test_cancel_stops_an_export_with_nothing_half_written_and_says_so(app, qtbot
     folder = tmp_path / "out"
     folder.mkdir()
     controller.file_jobs.start_export("events", folder)
-    controller.cancel_jobs()
+    controller.jobs.cancel_all()
     qtbot.waitUntil(lambda: controller.file_jobs.last is not None, timeout=60000)
     assert controller.file_jobs.last.stopped
     assert list(folder.iterdir()) == []          # neither the file nor its temporary twin
@@ -90,7 +90,7 @@ def test_cancel_stops_an_import_between_files_and_names_what_was_finished(app, q
     controller, window, history, db = app
     files = sorted(history.glob("alder_s*.rsw"))
     controller.file_jobs.start_import(files, history / "alder.protocol.toml")
-    controller.cancel_jobs()
+    controller.jobs.cancel_all()
     qtbot.waitUntil(lambda: controller.file_jobs.last is not None, timeout=60000)
     result = controller.file_jobs.last
     assert result.stopped and result.imported < len(files)

@@ -106,7 +106,7 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
 def test_the_lab_page_equals_the_page_the_rig_pcs_window_shows(qtbot, store, lab_url, tmp_path):
     """The rig PC's own window over a copy of its store, the animal's page opened there, against the lab's."""
     from fixtures.windows import window_over
-    from monitor.app.window.controller import LoadedProtocol
+    from monitor.app.rigs import LoadedProtocol
     from monitor.store.derive import protocol_of
     from monitor.store.manipulations import latest_protocol_text
 
@@ -138,7 +138,7 @@ def judged_page(controller, animal: str) -> bool:
     """The window's page of `animal` has its history, its care day and its judged figures, and no job runs."""
     state = controller.book.state(animal)
     return state is not None and state.consolidation is not None and animal in controller.records.summaries \
-        and state.consolidation.measures_session is not None and not controller.jobs()
+        and state.consolidation.measures_session is not None and not controller.jobs.titles()
 
 
 def test_one_animal_trained_on_two_pcs_is_one_page(store, lab_url, tmp_path):

@@ -22,7 +22,7 @@ from typing import Any
 from PySide6.QtCore import QObject, Qt, Signal
 from PySide6.QtWidgets import QLabel
 
-from monitor.app.window.controller import Cancelled, Job
+from monitor.app.window.jobs import Cancelled, Job
 
 SHOW_S = 0.1       # at most ten progress updates a second
 MESSAGE_MS = 30000  # how long the closing line stays in the status bar
@@ -137,7 +137,7 @@ class FileJobs(QObject):
 
         def work(tracker: JobTracker):
             result = import_files(self._db(), files, protocol, tracker, skip_imported=True)
-            if result.animals and not result.stopped and self.controller.fit_consolidation:
+            if result.animals and not result.stopped and self.controller.pages.fit_consolidation:
                 refit_animals(self._db(), result.animals, tracker)
             return result
 
@@ -151,7 +151,7 @@ class FileJobs(QObject):
             else:
                 self._say(f"Imported {result.files} files: {result.sessions} sessions, {result.events:,} events, "
                           f"{result.malformed} malformed lines, in {result.seconds:.1f} s{skipped}.")
-            self.controller.load_stored_stages()
+            self.controller.sessions.load_stored_stages()
 
         return self._run(f"Importing {len(files)} files", work, done)
 

@@ -5,7 +5,7 @@ fits, care entries, events of sessions without trials and of the latest
 session) are copied into a scratch SQLite store
 (monitor.store.lab_read.copy_animal), and the rig PC's own code builds the
 page from that store exactly as it does from its own: the history reader
-(controller.StoreHistory), the cached fit (store.fits.cached_block),
+(window.pages.StoreHistory), the cached fit (store.fits.cached_block),
 views.history_parts and views.page_state, the eligibility judgement and the
 care day (app.animal_records) and their lines (app.eligibility_care). The
 first tab shows the latest session replayed through the live view's code
@@ -55,7 +55,7 @@ class ReadJob:
         self.cancelled = cancelled
 
     def progress(self, fraction: float, message: str = "") -> None:
-        from monitor.app.window.controller import Cancelled
+        from monitor.app.window.jobs import Cancelled
 
         if self.cancelled():
             raise Cancelled()
@@ -81,7 +81,7 @@ def page_from_store(path: Path, animal: str, config: CareConfig, now: datetime, 
     day, latest session); `where` is said where the rig PC names the box."""
     from monitor.app.live import views
     from monitor.app.services.animal_records import RuleError, care_day, judge
-    from monitor.app.window.controller import StoreHistory
+    from monitor.app.window.pages import StoreHistory
     from monitor.app.window.eligibility_care import care_text, eligibility_text
     from monitor.store.db import open_store
     from monitor.store.derive import protocol_of
