@@ -73,7 +73,7 @@ def shoot(out: Path, missing: list[str]) -> Callable:
         for section in SECTIONS:
             page.sections.setCurrentIndex(SECTIONS[section])
             save(window, f"animal-{section}")
-        records = controller.records
+        records = controller.decisions_and_care
         dialog(lambda: records.open_decision(ANIMAL), records, "decision")
         dialog(lambda: records.open_history(ANIMAL), records, "decision-history")
         records.open_care()

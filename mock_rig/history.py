@@ -35,7 +35,7 @@ from mock_rig import scenario
 from mock_rig.learner import Learner, LearnerParams, consolidation_fraction, draw_params
 from mock_rig.protocol_file import protocol_toml
 from mock_rig.rig import Board, BoardConfig
-from mock_rig.tasks import JOYSTICK_HOLD, TWO_PRESS, Protocol, Session
+from mock_rig.tasks import JOYSTICK_HOLD, TWO_PRESS, ScenarioProtocol, Session
 
 
 @dataclass
@@ -43,7 +43,7 @@ class Animal:
     """A simulated subject: learner, protocol, stage, board and schedule."""
 
     name: str
-    protocol: Protocol
+    protocol: ScenarioProtocol
     learner: Learner
     rng: np.random.Generator
     board: BoardConfig = field(default_factory=BoardConfig)

@@ -12,10 +12,10 @@ stage-advance rule is not part of the file (docs/mock_rig.md).
 
 from __future__ import annotations
 
-from mock_rig.tasks import JOYSTICK_HOLD, Protocol, Stage
+from mock_rig.tasks import JOYSTICK_HOLD, ScenarioProtocol, Stage
 
 
-def protocol_toml(protocol: Protocol) -> str:
+def protocol_toml(protocol: ScenarioProtocol) -> str:
     """The TOML text of `protocol`."""
     final = protocol.final
     lines = [

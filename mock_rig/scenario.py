@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from datetime import date, datetime, time, timedelta, timezone
 
 from mock_rig.learner import LearnerParams
-from mock_rig.tasks import JOYSTICK_HOLD, TWO_PRESS, Protocol, Stage
+from mock_rig.tasks import JOYSTICK_HOLD, TWO_PRESS, ScenarioProtocol, Stage
 
 COHORT = "orchard-26a"
 LAB_TZ = timezone(timedelta(hours=1))
@@ -37,9 +37,9 @@ def animal_names(count: int) -> list[str]:
     ]
 
 
-def two_press_protocol(target_ms: int) -> Protocol:
+def two_press_protocol(target_ms: int) -> ScenarioProtocol:
     """The cohort's two-press protocol for a final target of `target_ms`."""
-    return Protocol(
+    return ScenarioProtocol(
         name=f"two-press {target_ms} ms",
         task=TWO_PRESS,
         stages=(
@@ -53,9 +53,9 @@ def two_press_protocol(target_ms: int) -> Protocol:
     )
 
 
-def joystick_protocol(hold_ms: int = 700) -> Protocol:
+def joystick_protocol(hold_ms: int = 700) -> ScenarioProtocol:
     """A joystick hold protocol: push past 15 degrees and hold for `hold_ms`."""
-    return Protocol(
+    return ScenarioProtocol(
         name=f"joystick hold {hold_ms} ms",
         task=JOYSTICK_HOLD,
         stages=(

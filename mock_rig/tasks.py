@@ -63,7 +63,7 @@ class Stage:
 
 
 @dataclass(frozen=True)
-class Protocol:
+class ScenarioProtocol:
     """A training protocol: task, stages, session limits, plateau criterion."""
 
     name: str
@@ -114,7 +114,7 @@ class Faults:
 class Session:
     """One session of `protocol` at stage `stage_index`, driven by `learner`."""
 
-    protocol: Protocol
+    protocol: ScenarioProtocol
     stage_index: int
     learner: Learner
     rng: np.random.Generator

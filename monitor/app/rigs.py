@@ -27,7 +27,7 @@ from typing import Any, NamedTuple
 
 from drivers.config import ConfigError, TomlFile
 from drivers.wire import WireDecoder
-from monitor.core.protocol import Protocol, parse_protocol
+from monitor.core.protocol import TrainingProtocol, parse_protocol
 from monitor.ui.models import RigSetup
 from monitor.ui.validation import RIG_NAME, VALVE_RANGE_UL_PER_MS
 
@@ -51,7 +51,7 @@ class RigSpec(NamedTuple):
 class LoadedProtocol(NamedTuple):
     """A protocol file as read: the parsed protocol, its text (stored with each session) and its path."""
 
-    protocol: Protocol
+    protocol: TrainingProtocol
     text: str
     path: Path
 

@@ -99,7 +99,7 @@ class PlateauRule:
 
 
 @dataclass(frozen=True, slots=True)
-class Protocol:
+class TrainingProtocol:
     """A parsed training protocol."""
 
     name: str
@@ -337,7 +337,7 @@ def _read_session(toml: TomlFile) -> SessionLimits:
     )
 
 
-def parse_protocol(text: str, path: str = "<protocol>") -> Protocol:
+def parse_protocol(text: str, path: str = "<protocol>") -> TrainingProtocol:
     """Parse a protocol file's text; raise ConfigError naming file:line:key."""
     toml = TomlFile(text, path)
     for name in toml.data:
@@ -375,7 +375,7 @@ def parse_protocol(text: str, path: str = "<protocol>") -> Protocol:
         stages = tuple(built)
     eligibility = toml.table("eligibility", required=False)
     care_limits = _read_care_limits(toml)
-    return Protocol(
+    return TrainingProtocol(
         name=name,
         version=version,
         task=task,

@@ -24,7 +24,7 @@ from functools import lru_cache
 from typing import TYPE_CHECKING, Iterable, Iterator
 
 from drivers.wire import Event
-from monitor.core.protocol import Protocol, parse_protocol
+from monitor.core.protocol import TrainingProtocol, parse_protocol
 from monitor.core.session.derivation import derive_session
 from monitor.core.session.trials import Trial
 from monitor.store.records import valve_calibration
@@ -37,7 +37,7 @@ TRIAL_COLUMNS = ("idx", "t_us", "interval_ms", "target_ms", "window_low_ms", "wi
 
 
 @lru_cache(maxsize=64)
-def protocol_of(text: str) -> Protocol:
+def protocol_of(text: str) -> TrainingProtocol:
     """The parsed protocol of a stored text (stored texts were checked when they were stored)."""
     return parse_protocol(text, "<stored protocol>")
 

@@ -19,7 +19,7 @@ import sqlite3
 from collections.abc import Callable, Mapping
 from typing import Any, NamedTuple
 
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.core.session.derivation import derive_session
 from monitor.core.session.trials import Trial
 from monitor.store.derive import malformed_count, session_events, trials_by_session
@@ -62,7 +62,7 @@ def _builds(conn: sqlite3.Connection, ids: list[int]) -> dict[int, tuple[str, fl
     return out
 
 
-def ended_sessions(conn: sqlite3.Connection, animal: str, protocol: Protocol,
+def ended_sessions(conn: sqlite3.Connection, animal: str, protocol: TrainingProtocol,
                    progress: Callable[[float, str], None] = lambda f, m: None) -> list[HistorySession]:
     """The animal's ended sessions in time order; `progress(fraction, words)` once per session."""
     rows = conn.execute("SELECT id, rig, start_wall, started_at, ended_at, excluded, coalesce(exclusion_reason, '') "

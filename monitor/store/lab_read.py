@@ -297,7 +297,7 @@ def copy_to(url: str, path: Path, animal: str | None = None) -> list[str]:
 
 
 def report(url: str, animal: str | None = None) -> dict[str, Any]:
-    """CONTRACTS.md §5 for the lab: one animal (its shown name) or every lab animal."""
+    """the report JSON in docs/cli.md for the lab: one animal (its shown name) or every lab animal."""
     from monitor.store.reporting import animal_entry
 
     with Lab(url) as lab:

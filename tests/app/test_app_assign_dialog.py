@@ -44,7 +44,7 @@ def app(qapp, tmp_path):
 
 def test_the_dialog_draws_a_code_at_random_and_records_it(app, qtbot, tmp_path):
     controller, window, db = app
-    records = controller.records
+    records = controller.decisions_and_care
     qtbot.waitUntil(lambda: "heron" in records.verdicts, timeout=20000)
     # blinded: the page's verdict line and the window alerts name codes, never the groups
     alerts = " ".join(a.text for a in controller.alert_book.alerts())

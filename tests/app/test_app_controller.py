@@ -295,7 +295,7 @@ def test_the_pages_measures_are_the_eligibility_figures_once_judged(rig, qtbot):
     figures = AnimalFigures(animal="wren", protocol_name="p", protocol_version=1, session=7, plateau_reached=True,
                             plateau_session=3, sessions_since_plateau=4, trials_since_plateau=321,
                             measures={"interval_error": 0.281, "cv": 0.229})
-    controller.records.figures["wren"] = figures
+    controller.decisions_and_care.figures["wren"] = figures
     controller.pages.push("wren")
     shown = controller.book.state("wren").consolidation
     assert (shown.interval_error, shown.cv, shown.sessions_since_plateau, shown.trials_since_plateau,

@@ -54,7 +54,7 @@ def kinds(controller) -> list[str]:
 
 def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
     controller, window, db = app
-    records = controller.records
+    records = controller.decisions_and_care
     qtbot.waitUntil(lambda: "heron" in records.verdicts and "heron" in records.summaries, timeout=20000)
     assert records.verdicts["heron"].state == "in window: any hit rate"
     assert records.summaries["heron"].earned_ml == pytest.approx(1.2)     # 40 x 30 µL (hand arithmetic)
@@ -96,7 +96,7 @@ def test_judged_and_cared_for_from_the_store(app, qtbot, tmp_path):
 
 def test_a_decision_against_the_rule_is_recorded_with_the_snapshot_shown(app, qtbot):
     controller, window, db = app
-    records = controller.records
+    records = controller.decisions_and_care
     records.open_decision("heron")
     qtbot.waitUntil(lambda: isinstance(records.dialog, DecisionDialog), timeout=20000)
     dialog = records.dialog

@@ -137,7 +137,7 @@ def test_the_lab_page_equals_the_page_the_rig_pcs_window_shows(qtbot, store, lab
 def judged_page(controller, animal: str) -> bool:
     """The window's page of `animal` has its history, its care day and its judged figures, and no job runs."""
     state = controller.book.state(animal)
-    return state is not None and state.consolidation is not None and animal in controller.records.summaries \
+    return state is not None and state.consolidation is not None and animal in controller.decisions_and_care.summaries \
         and state.consolidation.measures_session is not None and not controller.jobs.titles()
 
 

@@ -73,7 +73,7 @@ def inspect(controller, window):
         page.sections.setCurrentIndex(i)
         app.processEvents()
         seen += texts(app)
-    records = controller.records
+    records = controller.decisions_and_care
     for opener in (lambda: records.open_decision("cedar"), lambda: records.open_history("cedar")):
         before = records.dialog
         opener()

@@ -45,7 +45,7 @@ def inspect(controller, window):
                      for rig in controller.board.rigs()}
     seen["kinds"] = sorted({r.spec.kind for r in controller.rigs.values()})
     seen["size"] = [window.width(), window.height()]
-    seen["minimum"] = controller.records.config.daily_minimum_ml
+    seen["minimum"] = controller.decisions_and_care.config.daily_minimum_ml
 code = run(DemoOptions(speed=20, seconds=3, headless=True, folder=Path(sys.argv[1]), fit=False,
                        files=sys.argv[2] == "files", history=(1, 2, 3, 4),
                        care=care_config(Path(sys.argv[3]))), inspect)

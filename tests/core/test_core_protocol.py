@@ -27,7 +27,7 @@ sessions = 3
 
 
 def test_contract_example_parses_as_written():
-    # CONTRACTS.md §3, copied verbatim (comments included)
+    # docs/protocol.md, copied verbatim (comments included)
     p = parse_protocol(CONTRACT_EXAMPLE, "c.toml")
     assert (p.name, p.version, p.task) == ("two-press 650 ms", 3, "two_press")
     stage = p.final_stage

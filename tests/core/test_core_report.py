@@ -77,7 +77,7 @@ def test_report_from_events(events):
     rows = report["sessions"]
     assert [r["index"] for r in rows] == [1, 2, 3, 4, 5]
     first = rows[0]
-    # CONTRACTS.md §5 keys
+    # the report JSON in docs/cli.md keys
     assert {"index", "start", "trials", "hits", "hit_rate", "median_interval_ms", "cv", "malformed_lines"} <= set(first)
     assert (first["trials"], first["hits"], first["hit_rate"], first["malformed_lines"]) == (20, 8, 0.4, 2)
     assert first["stage"] == "shaping" and first["start"] == "2026-03-02T09:14:03+01:00"

@@ -76,7 +76,7 @@ def test_rig_outcome_is_the_truth_and_disagreements_are_kept(basic, events):
 
 
 def test_contract_example_stream(basic_text):
-    # CONTRACTS.md §1, the example lines verbatim; protocol of the contract's §3 (650 ms, tolerance 0.2)
+    # docs/wire-format.md, the example lines verbatim; protocol of docs/protocol.md (650 ms, tolerance 0.2)
     p = parse_protocol(basic_text.replace("700", "650"), "p.toml")
     evs = [r for r in decode_all(CONTRACT_EXAMPLE) if isinstance(r, Event)]
     trials, builder = run(p, evs)

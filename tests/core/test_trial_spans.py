@@ -1,4 +1,4 @@
-"""Trial spans from the rig's own framing: a worked session in the wire format's example (CONTRACTS.md section 1)
+"""Trial spans from the rig's own framing: a worked session in the wire format's example (docs/wire-format.md)
 and a rig without framing, checked against the segmentation's own trials."""
 
 from __future__ import annotations
@@ -11,7 +11,7 @@ from monitor.core.session.trials import TrialBuilder
 
 PROTOCOL = two_press(trial_timeout_ms=3000)
 
-# the wire format's own example session (CONTRACTS.md section 1), then a lone press and an omission
+# the wire format's own example session (docs/wire-format.md), then a lone press and an omission
 FRAMED = b"".join(CONTRACT_EXAMPLE.splitlines(keepends=True)[:8]) + b"""2000000 trial_start
 2100000 lever_down
 2200000 lever_up

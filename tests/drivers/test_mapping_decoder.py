@@ -1,4 +1,4 @@
-"""A lab's own line format through a TOML mapping (CONTRACTS.md section 2)."""
+"""A lab's own line format through a TOML mapping (docs/mapping.md)."""
 
 from __future__ import annotations
 

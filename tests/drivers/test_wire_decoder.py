@@ -1,4 +1,4 @@
-"""Wire format v1 decoder and encoder (CONTRACTS.md section 1).
+"""Wire format v1 decoder and encoder (docs/wire-format.md).
 
 Every decoder input is fed three ways (whole, byte by byte, and with a
 trailing partial line held back), the habit of h11's test-suite.

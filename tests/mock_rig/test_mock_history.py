@@ -1,4 +1,4 @@
-"""`python -m mock_rig history`: files per CONTRACTS.md §4, protocol files per §3, and a
+"""`python -m mock_rig history`: files as docs/mock_rig.md says, protocol files per docs/protocol.md, and a
 truth file that agrees with what the bytes say."""
 
 import json

@@ -12,7 +12,7 @@ from mock_rig import scenario
 from mock_rig.history import Animal, run_session, train
 from mock_rig.learner import Learner, LearnerParams
 from mock_rig.rig import Board, BoardConfig, wrap_soon
-from mock_rig.tasks import Protocol, Session, Stage
+from mock_rig.tasks import ScenarioProtocol, Session, Stage
 
 WALL = datetime(2026, 2, 2, 9, 0, tzinfo=scenario.LAB_TZ)
 
@@ -128,7 +128,7 @@ def test_shaping_advances_stages_and_ramps_target():
 
 
 def test_adaptive_window_holds_reward_rate():
-    protocol = Protocol("adaptive", stages=(
+    protocol = ScenarioProtocol("adaptive", stages=(
         Stage("adaptive", target_ms=400, tolerance=0.4, adaptive_rate=0.5,
               tolerance_min=0.05, tolerance_max=0.6),))
     a = animal(seed=4, protocol=protocol, params=LearnerParams(naive_ms=400))
@@ -197,7 +197,7 @@ def test_board_reset_starts_a_new_segment_with_restarted_counter():
 
 def test_session_limits_trials_and_water():
     protocol = scenario.two_press_protocol(650)
-    short = Protocol(protocol.name, protocol.stages, max_trials=40)
+    short = ScenarioProtocol(protocol.name, protocol.stages, max_trials=40)
     a = animal(protocol=short)
     _, session, _ = run_session(a, WALL)
     assert session.counts.trials == 40

@@ -41,7 +41,7 @@ from monitor.app.live.fraction import FractionFollower
 from monitor.app.live.pipeline import EngineBatch
 from monitor.core.alerts import ACTIVITY_EVENTS, LINK_DOWN, LINK_ENDED, LINK_UP, AlertRules, Raised, RigWatch
 from monitor.core.consolidation.live import LiveFraction
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.core.session.live_stats import DEFAULT_WINDOW, LiveSession, LiveSnapshot, RateSeries
 
 QUEUE_SIZE = 50_000   # batches; at 16 rigs this is minutes of backlog
@@ -55,7 +55,7 @@ class SessionPlan(NamedTuple):
     rig: str
     session_id: int
     animal: str
-    protocol: Protocol
+    protocol: TrainingProtocol
     stage: str | None = None
     valve_ul_per_ms: float | None = None
     previous_intervals: dict[str, tuple[float, ...]] | None = None

@@ -35,7 +35,7 @@ from monitor.core.session.binomial import wilson
 from monitor.core.session.plateau import judge
 from monitor.core.session.start_drop import hit_rate_drops
 from monitor.core.consolidation.words import fraction_text
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.core.session.summary import BINARY_MEASURES, SessionInput, learning_curve, summarize
 from monitor.store.history import HistorySession
 from monitor.ui.models import (AnimalPageState, ConsolidationState, Connection, CurveState, HistogramData,
@@ -157,7 +157,7 @@ class HistoryParts(NamedTuple):
     session_ids: tuple[int | None, ...] = ()   # the store's id of each row of `sessions`
 
 
-def history_parts(protocol: Protocol, sessions: Sequence[HistorySession],
+def history_parts(protocol: TrainingProtocol, sessions: Sequence[HistorySession],
                   fit: Mapping[str, Any] | None = None) -> HistoryParts:
     """Learning curve, consolidation panel and session table from an animal's past sessions.
 
@@ -198,7 +198,7 @@ def stage_intervals(session: HistorySession) -> dict[str, tuple[float, ...]]:
     return out
 
 
-def stage_names(protocol: Protocol, sessions: Sequence[SessionInput]) -> tuple[str, ...]:
+def stage_names(protocol: TrainingProtocol, sessions: Sequence[SessionInput]) -> tuple[str, ...]:
     """Every stage with trials, the protocol's order first, then any other stage in the order it was met."""
     seen = {t.stage for s in sessions for t in s.trials}
     known = [s.name for s in protocol.stages if s.name in seen]
@@ -206,7 +206,7 @@ def stage_names(protocol: Protocol, sessions: Sequence[SessionInput]) -> tuple[s
     return tuple(known + others)
 
 
-def _curve_state(protocol: Protocol, inputs: Sequence[SessionInput], measure: str, result: Any,
+def _curve_state(protocol: TrainingProtocol, inputs: Sequence[SessionInput], measure: str, result: Any,
                  plateau_session: int | None) -> CurveState:
     """Every kept session of every stage (one point per session and stage, even short ones), by stage."""
     binary = measure in BINARY_MEASURES

@@ -63,7 +63,7 @@ class Controller(QObject):
         self.check_in, self.check_out = self.sessions.check_in, self.sessions.check_out
         self.give_unattended, self.load_history = self.sessions.give_unattended, self.pages.load_history
         self.window = None
-        self.records = None          # eligibility and care (monitor/app/window/eligibility_care.py) once attached
+        self.decisions_and_care = None          # eligibility and care (monitor/app/window/eligibility_care.py) once attached
         self.recorded_animals: set[str] = set()  # added in the animals window this run (offered at check-in)
         self.animal_records = None   # the animals window's side (monitor/app/window/animal_window.py) once attached
         self._store_failing = False
@@ -102,8 +102,8 @@ class Controller(QObject):
         from monitor.app.window.effects_side import EffectsSide
         from monitor.app.window.eligibility_care import DecisionsAndCare
 
-        self.records = DecisionsAndCare(self, care)
-        self.records.attach(window)
+        self.decisions_and_care = DecisionsAndCare(self, care)
+        self.decisions_and_care.attach(window)
         self.animal_records = AnimalRecordsSide(self)
         self.animal_records.attach(window)
         EffectsSide(self).attach(window)

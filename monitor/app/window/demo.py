@@ -32,7 +32,7 @@ from pathlib import Path
 
 from mock_rig import scenario
 from monitor.core.care.ledger import CareConfig
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.store.history import HistorySession
 
 SECTIONS = {"today": 0, "curve": 1, "consolidation": 2, "sessions": 3}
@@ -65,7 +65,7 @@ class ImportedHistory:
     def __init__(self, inner, done: threading.Event) -> None:
         self.inner, self.done = inner, done
 
-    def sessions(self, animal: str, protocol: Protocol, job) -> list[HistorySession]:
+    def sessions(self, animal: str, protocol: TrainingProtocol, job) -> list[HistorySession]:
         while not self.done.wait(0.2):
             job.progress(0.0, "waiting for the demo history to be imported")
         return self.inner.sessions(animal, protocol, job)

@@ -20,7 +20,7 @@ import time
 from dataclasses import replace
 from datetime import datetime
 from pathlib import Path
-from typing import Any, Callable, Protocol as TypingProtocol
+from typing import Any, Callable, Protocol
 
 from monitor.app.live import views
 from monitor.app.live.engine import RaisedAlert
@@ -29,15 +29,15 @@ from monitor.app.rigs import LoadedProtocol
 from monitor.app.window.jobs import Cancelled, Job
 from monitor.app.window.rig_sessions import Rig
 from monitor.core.alerts import plateau_alert
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.store.history import HistorySession
 from monitor.ui.models import ConditionRecord, Exclusion, TodayState
 
 
-class HistoryProvider(TypingProtocol):
+class HistoryProvider(Protocol):
     """An animal's past sessions, segmented (runs in a worker thread)."""
 
-    def sessions(self, animal: str, protocol: Protocol, job: Job) -> list[HistorySession]: ...
+    def sessions(self, animal: str, protocol: TrainingProtocol, job: Job) -> list[HistorySession]: ...
 
 
 class StoreHistory:
@@ -46,7 +46,7 @@ class StoreHistory:
     def __init__(self, path: Path) -> None:
         self.path = Path(path)
 
-    def sessions(self, animal: str, protocol: Protocol, job: Job) -> list[HistorySession]:
+    def sessions(self, animal: str, protocol: TrainingProtocol, job: Job) -> list[HistorySession]:
         from monitor.app.store_access import read_job
         from monitor.store.history import ended_sessions
 
@@ -197,8 +197,8 @@ class Pages:
             self.c.alerts.push(RaisedAlert(rig.spec.name if rig else "", animal, alert, time.time()))
         self.c.refresh_roster()
         self.push(animal)
-        if self.c.records is not None:
-            self.c.records.update([animal])
+        if self.c.decisions_and_care is not None:
+            self.c.decisions_and_care.update([animal])
 
     def session_started(self, animal: str) -> None:
         """A session of `animal` began: the engine follows it from the fit known, and the history (and fit) are
@@ -236,7 +236,7 @@ class Pages:
                                            time.monotonic())
                 self._today[animal] = (rig.snapshot.version, cached)
             today = cached
-        care, eligibility = self.c.records.texts(animal) if self.c.records is not None else ("", "")
+        care, eligibility = self.c.decisions_and_care.texts(animal) if self.c.decisions_and_care is not None else ("", "")
         parts = self.history_parts.get(animal)
         panel = self._live_panel(animal, rig) or (parts.consolidation if parts else None)
         self.c.book.update(views.page_state(animal, rig.spec.name if rig else None,
@@ -246,7 +246,7 @@ class Pages:
     def _measured(self, animal: str, panel):
         """The panel with the eligibility's own figures as its measures (the same session, the same definition
         as the eligibility line), once the animal is judged; the same object until either changes."""
-        figures = self.c.records.figures.get(animal) if self.c.records is not None else None
+        figures = self.c.decisions_and_care.figures.get(animal) if self.c.decisions_and_care is not None else None
         if panel is None or figures is None:
             return panel
         before = self._measured_panels.get(animal)

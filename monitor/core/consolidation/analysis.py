@@ -337,7 +337,7 @@ def _select_modes(prep: Prepared, found: list[ModelFit], spent: int, options: Op
 
 
 def consolidation_block(result: ConsolidationResult, aic_margin: float = 10.0) -> dict:
-    """The report's ``consolidation`` block (CONTRACTS.md section 5) plus extra keys."""
+    """The report's ``consolidation`` block (the report JSON in docs/cli.md) plus extra keys."""
     last = result.sessions[-1] if result.sessions else SessionEstimate(0, 0.0, 0.0, 1.0, result.status)
     block: dict = {
         "session": last.session if result.sessions else None,

@@ -22,7 +22,7 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from monitor.core.session.plateau import judge_all, learning_trial
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.core.session.summary import SessionInput, learning_curve, summarize
 from monitor.core.session.derivation import derive_session
 from monitor.core.session.start_drop import fixed_window_drops
@@ -57,7 +57,7 @@ def plain(value: Any) -> Any:
     return value
 
 
-def _session_input(protocol: Protocol, data: SessionData, valve_ul_per_ms: float | None) -> SessionInput:
+def _session_input(protocol: TrainingProtocol, data: SessionData, valve_ul_per_ms: float | None) -> SessionInput:
     if data.events is not None:
         trials, counts, water = derive_session(protocol, data.stage, valve_ul_per_ms, data.events)
     else:
@@ -71,14 +71,14 @@ def _result(result) -> dict[str, Any]:
             "reason": result.reason, "figures": plain(result.figures)}
 
 
-def _fixed_window_drops(protocol: Protocol, inputs: Sequence[SessionInput]) -> dict[int, float]:
+def _fixed_window_drops(protocol: TrainingProtocol, inputs: Sequence[SessionInput]) -> dict[int, float]:
     """Session index -> start-of-session drop of the final stage's fixed-window fraction (included sessions)."""
     kept = [(index, s.trials) for index, s in enumerate(inputs, start=1) if not s.excluded]
     final = protocol.final_stage.name
     return {d.session: d.drop for d in fixed_window_drops(final, protocol.fixed_window(final), kept)}
 
 
-def animal_report(animal: str, protocol: Protocol, sessions: Sequence[SessionData],
+def animal_report(animal: str, protocol: TrainingProtocol, sessions: Sequence[SessionData],
                   valve_ul_per_ms: float | None = None) -> dict[str, Any]:
     """The report entry of one animal (without `consolidation`)."""
     inputs = [_session_input(protocol, data, valve_ul_per_ms) for data in sessions]

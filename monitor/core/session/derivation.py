@@ -14,11 +14,11 @@ import math
 from collections.abc import Iterable
 from typing import Any
 
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.core.session.trials import Trial, TrialBuilder
 
 
-def water_of(event: Any, protocol: Protocol, valve_ul_per_ms: float | None) -> float:
+def water_of(event: Any, protocol: TrainingProtocol, valve_ul_per_ms: float | None) -> float:
     """µL of water one event delivers: `reward UL`, a bare `reward` (the protocol's reward_ul), or `valve MS`
     times the calibration (when one is known); 0 for anything else or a value that is not a real volume."""
     name = getattr(event, "name", None)
@@ -32,7 +32,7 @@ def water_of(event: Any, protocol: Protocol, valve_ul_per_ms: float | None) -> f
     return volume if volume is not None and math.isfinite(volume) and volume >= 0 else 0.0
 
 
-def derive_session(protocol: Protocol, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Any]
+def derive_session(protocol: TrainingProtocol, stage: str | None, valve_ul_per_ms: float | None, events: Iterable[Any]
                    ) -> tuple[list[Trial], dict[str, int], float]:
     """(trials, builder counts, water µL) of one session's events, in order."""
     builder = TrialBuilder(protocol, stage)

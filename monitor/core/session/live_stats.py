@@ -26,7 +26,7 @@ import numpy as np
 
 from monitor.core.session.derivation import water_of
 from monitor.core.session.histogram import HistogramSnapshot, IntervalHistograms, linear_edges, log_edges
-from monitor.core.protocol import Protocol
+from monitor.core.protocol import TrainingProtocol
 from monitor.core.session.rolling import RollingRate, RunningMedian, RunningMoments, WindowMedian
 from monitor.core.session.trials import Trial, TrialBuilder
 
@@ -150,7 +150,7 @@ class _StageFigures:
 class LiveStats:
     """Session totals and the stage's interval figures, fed one record at a time."""
 
-    def __init__(self, protocol: Protocol, stage: str | None = None, *, window: int = DEFAULT_WINDOW,
+    def __init__(self, protocol: TrainingProtocol, stage: str | None = None, *, window: int = DEFAULT_WINDOW,
                  valve_ul_per_ms: float | None = None, linear_range_ms: tuple[float, float] | None = None,
                  log_range_ms: tuple[float, float] | None = None,
                  previous_intervals: dict[str, Iterable[float]] | None = None) -> None:
@@ -245,7 +245,7 @@ class LiveStats:
 class LiveSession:
     """One session stream: events in, trials out, a snapshot on demand."""
 
-    def __init__(self, protocol: Protocol, stage: str | None = None, **stats_options: Any) -> None:
+    def __init__(self, protocol: TrainingProtocol, stage: str | None = None, **stats_options: Any) -> None:
         self.builder = TrialBuilder(protocol, stage)
         self.stats = LiveStats(protocol, stage, **stats_options)
         self.trials: list[Trial] = []

@@ -30,7 +30,7 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-from monitor.core.protocol import BINARY_MEASURES, HIGHER_IS_BETTER, RULES, PlateauRule, Protocol
+from monitor.core.protocol import BINARY_MEASURES, HIGHER_IS_BETTER, RULES, PlateauRule, TrainingProtocol
 from monitor.core.session.summary import LearningCurve
 
 LN10 = math.log(10.0)
@@ -392,7 +392,7 @@ def judge(rule: PlateauRule, curve: LearningCurve, name: str | None = None) -> P
     raise ValueError(f"unknown plateau rule {name!r}")
 
 
-def judge_all(protocol: Protocol, curve: LearningCurve) -> dict[str, PlateauResult]:
+def judge_all(protocol: TrainingProtocol, curve: LearningCurve) -> dict[str, PlateauResult]:
     """Every rule that applies to the curve, the protocol's own first."""
     rule = protocol.plateau
     names = [rule.rule] + [n for n in RULES if n != rule.rule]

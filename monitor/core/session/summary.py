@@ -20,7 +20,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from monitor.core.protocol import BINARY_MEASURES, Protocol
+from monitor.core.protocol import BINARY_MEASURES, TrainingProtocol
 from monitor.core.session.trials import Trial
 
 
@@ -115,7 +115,7 @@ def figures(trials: Sequence[Trial], fixed: tuple[float, float]) -> Figures:
     )
 
 
-def summarize(protocol: Protocol, session: SessionInput, index: int) -> SessionSummary:
+def summarize(protocol: TrainingProtocol, session: SessionInput, index: int) -> SessionSummary:
     """The summary of one session (`index` from 1)."""
     stages: list[str] = []
     by_stage: dict[str, list[Trial]] = {}
@@ -160,7 +160,7 @@ class LearningCurve(NamedTuple):
     left_out: tuple[tuple[int, str], ...]  # (session index, why)
 
 
-def learning_curve(protocol: Protocol, sessions: Sequence[SessionInput], stage: str | None = None,
+def learning_curve(protocol: TrainingProtocol, sessions: Sequence[SessionInput], stage: str | None = None,
                    measure: str | None = None, min_trials: int | None = None) -> LearningCurve:
     """The curve of `measure` (default: the plateau's) in `stage` (default: the final stage)."""
     stage = stage or protocol.final_stage.name

@@ -28,7 +28,7 @@ from collections import Counter
 from fractions import Fraction
 from typing import Any, NamedTuple
 
-from monitor.core.protocol import Protocol, Stage, exact, tolerance_edges
+from monitor.core.protocol import TrainingProtocol, Stage, exact, tolerance_edges
 
 NOT_TRIALS = frozenset({"lone", "premature", "omission"})
 OUTCOME_GRACE_US = 500_000  # a rig outcome this soon after an attempt claims it (before any outcome was seen)
@@ -82,7 +82,7 @@ class _Attempt(NamedTuple):
 class TrialBuilder:
     """Feed one session stream's events in order; get Trial records back."""
 
-    def __init__(self, protocol: Protocol, stage: str | None = None) -> None:
+    def __init__(self, protocol: TrainingProtocol, stage: str | None = None) -> None:
         self.protocol = protocol
         self.counts: Counter[str] = Counter()
         self.disagreements: list[tuple[int, str, str]] = []  # (trial index, rig word, computed word)
@@ -460,7 +460,7 @@ class TrialBuilder:
         out.extend(self.flush())
 
 
-def build_trials(protocol: Protocol, events, stage: str | None = None) -> tuple[list[Trial], TrialBuilder]:
+def build_trials(protocol: TrainingProtocol, events, stage: str | None = None) -> tuple[list[Trial], TrialBuilder]:
     """Segment a whole recorded session (the same rules, all at once)."""
     builder = TrialBuilder(protocol, stage)
     trials: list[Trial] = []
