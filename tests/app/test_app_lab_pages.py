@@ -103,6 +103,7 @@ def test_the_lab_page_is_the_rig_pcs_page(store, lab_url):
     assert page.history.chain_ok and "room-a: Decision log intact: 2 entries" in page.history.chain_text
 
 
+@pytest.mark.slow
 def test_the_lab_page_equals_the_page_the_rig_pcs_window_shows(qtbot, store, lab_url, tmp_path):
     """The rig PC's own window over a copy of its store, the animal's page opened there, against the lab's."""
     from fixtures.windows import window_over
@@ -141,6 +142,7 @@ def judged_page(controller, animal: str) -> bool:
         and state.consolidation.measures_session is not None and not controller.jobs.titles()
 
 
+@pytest.mark.slow
 def test_one_animal_trained_on_two_pcs_is_one_page(store, lab_url, tmp_path):
     first, second = tmp_path / "room-a.sqlite3", tmp_path / "room-b.sqlite3"  # the same rows on two PCs
     for db in (first, second):

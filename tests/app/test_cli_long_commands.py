@@ -137,6 +137,7 @@ def test_ctrl_c_stops_an_import_between_files_and_names_them(cohort_store, tmp_p
 
 
 @posix_signal
+@pytest.mark.slow
 def test_ctrl_c_stops_an_nwb_export_between_files(cohort_store, tmp_path):
     pytest.importorskip("pynwb")
     _, db = cohort_store
@@ -177,6 +178,7 @@ def test_mock_rig_history_bar_on_a_terminal_only(tmp_path, monkeypatch, capsys):
 
 
 @posix_signal
+@pytest.mark.slow
 def test_ctrl_c_stops_a_sync_after_a_committed_chunk_and_the_next_sync_sends_the_rest(cohort_store, lab_url,
                                                                                       tmp_path):
     import psycopg
@@ -199,6 +201,7 @@ def test_ctrl_c_stops_a_sync_after_a_committed_chunk_and_the_next_sync_sends_the
 
 
 @posix_signal
+@pytest.mark.slow
 def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
     history, _ = cohort_store
     files = sorted(history.glob("alder_s*.rsw"))

@@ -38,6 +38,7 @@ def test_race_keeps_the_best_and_never_loses_to_the_plain_multistart(prep):
     assert raced.loglike >= plain.loglike - 1e-3
 
 
+@pytest.mark.slow
 def test_the_one_rate_model_compared_is_at_its_maximum():
     """Only the chosen variant's one-rate model goes on from its race to convergence: its optimum must be
     one that scipy's Nelder-Mead (likelihood values only, none of our gradient code) cannot raise by more

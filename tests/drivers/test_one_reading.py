@@ -94,6 +94,7 @@ def through_file(pieces: list[bytes], path) -> list:
 
 @settings(max_examples=40, deadline=None)
 @given(st.lists(PIECES, max_size=30).map(b"".join), st.lists(st.integers(0, 600), max_size=12))
+@pytest.mark.slow
 def test_serial_and_file_paths_give_the_same_records(tmp_path_factory, data, points):
     pieces = _cut(data, points)
     from_file = through_file(pieces, tmp_path_factory.mktemp("f") / "log.rsw")

@@ -4,6 +4,7 @@ with no pseudo-terminal anywhere (the path every platform has)."""
 
 import time
 
+import pytest
 import serial
 
 from drivers.serial import SerialSource
@@ -40,6 +41,7 @@ class Source:
         return sum(isinstance(r, Event) for r in self.records)
 
 
+@pytest.mark.slow
 def test_serial_source_on_socket_url_gets_exactly_what_was_sent_across_unplug():
     output = SocketOutput(record=True)
     assert output.url.startswith("socket://127.0.0.1:") and output.port > 0

@@ -463,6 +463,7 @@ def test_report_from_the_lab_equals_the_local_reports(pcs, lab_url):
     assert fitted["status"] != "not fitted" and fitted["current"] is True  # pc1's cached fit came along
 
 
+@pytest.mark.slow
 def test_export_from_the_lab_holds_every_pcs_rows(pcs, lab_url, tmp_path):
     import csv
 

@@ -36,6 +36,7 @@ def rows(path: Path) -> list[list[str]]:
         return list(csv.reader(f))
 
 
+@pytest.mark.slow
 def test_interleaved_sessions_and_any_block_size_give_each_event_the_same_row(store, tmp_path):
     conn = open_store(store, readonly=True)
     write_events_csv(conn, tmp_path / "straight.csv")

@@ -166,6 +166,7 @@ def test_the_writer_lays_out_what_pynwb_writes_for_the_same_content(store, tmp_p
         layout(tmp_path / "pynwb-1.nwb")["intervals/trials/start_time"]
 
 
+@pytest.mark.slow
 def test_files_written_in_worker_processes_equal_those_written_in_one(store, tmp_path, capsys):
     from monitor.store.nwb_export import export_nwb
 
@@ -180,6 +181,7 @@ def test_files_written_in_worker_processes_equal_those_written_in_one(store, tmp
         assert layout(a) == layout(b)
 
 
+@pytest.mark.slow
 def test_ctrl_c_leaves_only_whole_files_and_names_them(store, tmp_path):
     import os
     import re
