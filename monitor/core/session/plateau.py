@@ -125,46 +125,53 @@ class _RecordHull:
         self.lower: list[int] = []
         self.last = origin - 1
 
-    def _cross(self, o: int, a: int, b: int) -> int:
-        c = self.cum
-        return (a - o) * (c[b] - c[o]) - (c[a] - c[o]) * (b - o)
-
-    def extend_to(self, t: int) -> None:
-        for n in range(self.last + 1, t + 1):
-            upper, lower = self.upper, self.lower
-            while len(upper) >= 2 and self._cross(upper[-2], upper[-1], n) >= 0:
-                upper.pop()
-            upper.append(n)
-            while len(lower) >= 2 and self._cross(lower[-2], lower[-1], n) <= 0:
-                lower.pop()
-            lower.append(n)
-        self.last = max(self.last, t)
-
-    def _extreme(self, chain: list[int], num: int, den: int, upper: bool) -> int:
-        """First vertex whose next edge is no steeper (upper) / no shallower (lower) than num/den."""
-        c = self.cum
-        lo, hi = 0, len(chain) - 1
-        while lo < hi:
-            mid = (lo + hi) // 2
-            a, b = chain[mid], chain[mid + 1]
-            rise = (c[b] - c[a]) * den
-            run = num * (b - a)
-            if (rise <= run) if upper else (rise >= run):
-                hi = mid
-            else:
-                lo = mid + 1
-        return chain[lo]
-
-    def candidate(self, t: int) -> int:
-        o, c = self.origin, self.cum
-        num, den = c[t] - c[o], t - o
-        top = self._extreme(self.upper, num, den, True)
-        bottom = self._extreme(self.lower, num, den, False)
-        above = (c[top] - c[o]) * den - (top - o) * num
-        below = (bottom - o) * num - (c[bottom] - c[o]) * den
-        if above != below:
-            return top if above > below else bottom
-        return min(top, bottom)
+    def candidates(self, first: int, last: int) -> list[int]:
+        """The candidate change point for each chord to t = first..last (the hull grows to `last`)."""
+        c, o = self.cum, self.origin
+        upper, lower = self.upper, self.lower
+        out: list[int] = []
+        for t in range(first, last + 1):
+            for n in range(self.last + 1, t + 1):  # add the points up to t
+                cn = c[n]
+                while len(upper) >= 2:
+                    p, q = upper[-2], upper[-1]
+                    if (q - p) * (cn - c[p]) - (c[q] - c[p]) * (n - p) >= 0:
+                        upper.pop()
+                    else:
+                        break
+                upper.append(n)
+                while len(lower) >= 2:
+                    p, q = lower[-2], lower[-1]
+                    if (q - p) * (cn - c[p]) - (c[q] - c[p]) * (n - p) <= 0:
+                        lower.pop()
+                    else:
+                        break
+                lower.append(n)
+            if t > self.last:
+                self.last = t
+            num, den = c[t] - c[o], t - o
+            lo, hi = 0, len(upper) - 1  # first upper vertex whose next edge is no steeper than the chord
+            while lo < hi:
+                mid = (lo + hi) // 2
+                u, v = upper[mid], upper[mid + 1]
+                if (c[v] - c[u]) * den <= num * (v - u):
+                    hi = mid
+                else:
+                    lo = mid + 1
+            top = upper[lo]
+            lo, hi = 0, len(lower) - 1  # first lower vertex whose next edge is no shallower than the chord
+            while lo < hi:
+                mid = (lo + hi) // 2
+                u, v = lower[mid], lower[mid + 1]
+                if (c[v] - c[u]) * den >= num * (v - u):
+                    hi = mid
+                else:
+                    lo = mid + 1
+            bottom = lower[lo]
+            above = (c[top] - c[o]) * den - (top - o) * num
+            below = (bottom - o) * num - (c[bottom] - c[o]) * den
+            out.append(min(top, bottom) if above == below else top if above > below else bottom)
+        return out
 
 
 def change_points(outcomes: Sequence[bool] | np.ndarray, crit: float, chunk: int = 512) -> list[ChangePoint]:
@@ -187,10 +194,7 @@ def change_points(outcomes: Sequence[bool] | np.ndarray, crit: float, chunk: int
     while t_next <= total:
         stop = min(total, t_next + chunk - 1)
         ts = np.arange(t_next, stop + 1)
-        cands = np.empty(len(ts), dtype=int)
-        for i, t in enumerate(range(t_next, stop + 1)):
-            hull.extend_to(t)
-            cands[i] = hull.candidate(t)
+        cands = np.array(hull.candidates(t_next, stop), dtype=np.int64)
         after_n = ts - cands
         after_k = cum[ts] - cum[cands]
         successes = cum[ts] - cum[origin]
@@ -206,7 +210,7 @@ def change_points(outcomes: Sequence[bool] | np.ndarray, crit: float, chunk: int
         found.append(ChangePoint(r, t, float(scores[i]), float(before), float(after_k[i] / after_n[i])))
         origin, t_next = r, t + 1
         hull = _RecordHull(cum_list, origin)
-        hull.extend_to(t)
+        hull.candidates(origin + 1, t)  # grows the hull to t
     return found
 
 
