@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import sqlite3
 
 import pytest
@@ -42,3 +43,11 @@ def test_an_import_with_worker_processes_keeps_current_report_entries(tmp_path, 
                              "ON a.id = r.animal_id"))
     assert sorted(kept) == sorted(truth["animals"])
     assert all(kept[animal] == report_fingerprint(conn, animal) for animal in kept)  # current: read from cache
+    from monitor.store.db import open_store
+    from monitor.store.reporting import build_entry
+
+    store = open_store(db, readonly=True)
+    built = dict(conn.execute("SELECT a.name, r.entry FROM report_cache AS r JOIN animals AS a ON a.id = r.animal_id"))
+    for animal in kept:  # a worker's entry is the one this process would build from the same rows
+        assert json.loads(built[animal]) == json.loads(json.dumps(build_entry(store, animal)))
+    store.close()
