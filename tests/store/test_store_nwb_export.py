@@ -237,9 +237,10 @@ def test_sessions_with_several_manipulations_carry_them_in_a_table_the_checker_a
                                "--reason", "as planned", "--db", db)
         assert code == 0, err
     assert run_cli(capsys, "export", "--db", db, "--nwb", tmp_path / "nwb")[0] == 0
-    expected = {2: {("muscimol M1", "acute", "test"), ("M1 lesion", "lasting", "test")},
-                3: {("muscimol M1", "acute", "control session of"), ("saline M1", "acute", "control"),
-                    ("M1 lesion", "lasting", "test")}}
+    # the log numbers its entries 1, 2, 3 in the order recorded; what each session is to each, as recorded above
+    expected = {2: {(1, "muscimol M1", "acute", "test"), (3, "M1 lesion", "lasting", "test")},
+                3: {(1, "muscimol M1", "acute", "control session of"), (2, "saline M1", "acute", "control"),
+                    (3, "M1 lesion", "lasting", "test")}}
     for n, rows in expected.items():
         path = tmp_path / "nwb" / f"sub-alder_ses-{n:03d}_behavior.nwb"
         levels = inspector_levels(path)  # nwbinspector, DANDI configuration: the outside checker
@@ -251,7 +252,8 @@ def test_sessions_with_several_manipulations_carry_them_in_a_table_the_checker_a
             assert type(table).__name__ == "DynamicTable"
             frame = table.to_dataframe()
         assert list(frame.columns) == [name for name, _ in COLUMNS]
-        assert set(zip(frame["what"], frame["duration"], frame["role"])) == rows and len(frame) == len(rows)
+        assert set(zip(frame["seq"], frame["what"], frame["duration"], frame["role"])) == rows
+        assert len(frame) == len(rows)
         assert set(frame["group"]) >= {"lesion"} and (frame["first_session"] > 0).all()
         assert set(frame["stage_session"]) <= {-1, *range(1, 4)}
     with pynwb.NWBHDF5IO(str(tmp_path / "nwb" / "sub-alder_ses-001_behavior.nwb"), "r") as io:
