@@ -12,7 +12,9 @@ lab, keywords and experiment description (the settings' `[export]` table),
 protocol name and version, stage and conditions. Trials run from trial start
 to trial end (monitor.core.session.trial_spans) with our TRIAL_FIELDS; the
 events table `rig_events` holds every event with its word as a categorical
-column. Times are seconds after `session_start_time` on the device clock
+column; the manipulations in force, when any, are the `manipulations` table
+of the `behavior` processing module (monitor.store.nwb_manipulations). Times
+are seconds after `session_start_time` on the device clock
 (segments continue from the last time seen, as in
 monitor.core.session.trials). NUL in a note is written as the text `\\x00`
 (HDF5 strings cannot hold it).
@@ -32,7 +34,7 @@ import numpy as np
 from monitor.store.animals import get_animal
 from monitor.store.derive import derive, protocol_of, stored_trials
 from monitor.store.event_blocks import EventBlock, event_words, session_block
-from monitor.store.nwb_file import Column, Content, Table
+from monitor.store.nwb_file import Column, Content, Module, Table
 from monitor.store.nwb_manipulations import manipulations_table
 from monitor.store.records import conditions_of
 from monitor.store.session_time import SessionClock, start_shift_us
@@ -49,6 +51,7 @@ TRIAL_FIELDS = (("first_press_time", "s", "first press or crossing of the trial 
                 ("window_high_ms", "ms", "high edge of the reward window in force"),
                 ("stage", "", "shaping stage in force"),
                 ("segment", "", "device clock segment (a board reset starts a new one)"))
+BEHAVIOR = "session-level behavioral annotations: the manipulations in force during this session"
 DEFAULT_KEYWORDS = ("behavior", "operant conditioning", "motor timing", "motor skill learning")
 DEFAULT_EXPERIMENT = ("Operant training of a motor timing task (two lever presses a target delay apart, or a "
                       "joystick push held for a target time), recorded from the box's event stream by rigside.")
@@ -234,8 +237,7 @@ def session_content(conn: sqlite3.Connection, session_id: int, number: int,
         content.trials = _trials_table(trials, _spans(conn, session_id, trials, events), shift_us)
     if len(block):
         content.events.append(_events_table(events, shift_us))
-    stops = [c.data for c in content.trials.columns if c.name == "stop_time"] if content.trials else []
-    manipulations = manipulations_table(conn, session_id, float(max(stops[0])) if stops else 0.0)
+    manipulations = manipulations_table(conn, session_id)
     if manipulations is not None:
-        content.intervals.append(manipulations)
+        content.processing.append(Module("behavior", BEHAVIOR, [manipulations]))
     return animal, content

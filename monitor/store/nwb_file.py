@@ -4,11 +4,13 @@ Rule: pynwb builds, checks and maps one Python object per file part and table
 column before anything is written, about ten times the cost of the writing
 itself; this module writes the same HDF5 groups, datasets and attributes
 directly. Every typed object carries `neurodata_type`, `namespace` and a fresh
-`object_id`; a table has `colnames`, `description` and an `id` column; a
-categorical column (EnumData) refers to its dataset of words by an object
-reference. Text is variable-length UTF-8, times ISO 8601 in ASCII, as pynwb
-writes them. The schema a reader needs (`/specifications`, pointed to by the
-root's `.specloc`) is copied from a small file pynwb itself wrote
+`object_id`; a table has `colnames`, `description` and an `id` column and
+sits in `intervals/`, `events/` or a processing module (`/processing/<name>`,
+a ProcessingModule with its own description); a categorical column
+(EnumData) refers to its dataset of words by an object reference. Text is
+variable-length UTF-8, times ISO 8601 in ASCII, as pynwb writes them. The
+schema a reader needs (`/specifications`, pointed to by the root's
+`.specloc`) is copied from a small file pynwb itself wrote
 (`write_schema_file`, once per export), so it always matches the installed
 pynwb. What goes into a file is monitor.store.nwb_export's choice; the tests
 hold this layout against pynwb's reading, its validator and nwbinspector.
@@ -28,6 +30,7 @@ GZIP_LEVEL = 4  # hdmf's default; levels 1 and 9 measured: sizes within 1 %, tim
 HDF5_FORMAT = "v110"  # object headers of HDF5 1.10 (readable by 1.10 and later): smaller than the earliest format
 CHUNK_BYTES = 4 * 1024 * 1024  # hdmf's chunk size for table columns (HDF5IO.compute_default_chunk_shape)
 COMMON = "hdmf-common"
+NAMESPACES = {"DynamicTable": COMMON}  # a table type's namespace when it is not NWB's core
 
 
 @dataclass(frozen=True)
@@ -43,8 +46,8 @@ class Column:
 
 @dataclass(frozen=True)
 class Table:
-    """A dynamic table: its type (TimeIntervals, EventsTable), description, columns, row count, and whether its
-    numbers are compressed (a table of a few rows is not)."""
+    """A dynamic table: its type (TimeIntervals, EventsTable, DynamicTable), description, columns, row count,
+    and whether its numbers are compressed (a table of a few rows is not)."""
 
     name: str
     neurodata_type: str
@@ -54,10 +57,19 @@ class Table:
     compressed: bool = True
 
 
+@dataclass(frozen=True)
+class Module:
+    """A processing module (`/processing/<name>`, pynwb's ProcessingModule): its description and its tables."""
+
+    name: str
+    description: str
+    tables: Sequence[Table]
+
+
 @dataclass
 class Content:
     """What one NWB file holds: the file's own fields, `general/` (text or lists of text), the subject's fields,
-    the trials, the events tables (under `events/`) and further intervals tables."""
+    the trials, the events tables (under `events/`) and processing modules."""
 
     identifier: str
     session_description: str
@@ -66,7 +78,7 @@ class Content:
     subject: dict[str, Any]
     trials: Table | None = None
     events: list[Table] = field(default_factory=list)
-    intervals: list[Table] = field(default_factory=list)
+    processing: list[Module] = field(default_factory=list)
 
 
 def write_schema_file(path: Path) -> None:
@@ -107,8 +119,11 @@ def write(content: Content, path: Path, schema: Path) -> None:
             _table(out.require_group("intervals"), content.trials)
         for table in content.events:
             _table(out.require_group("events"), table)
-        for table in content.intervals:
-            _table(out.require_group("intervals"), table)
+        for module in content.processing:
+            group = _typed(out["processing"].create_group(module.name), "ProcessingModule", "core")
+            _say(group, "description", module.description)
+            for table in module.tables:
+                _table(group, table)
 
 
 def _iso(moment: datetime) -> str:
@@ -167,7 +182,8 @@ def _subject(general: Any, fields: dict[str, Any]) -> None:
 def _table(parent: Any, table: Table) -> None:
     import h5py
 
-    group = _typed(parent.create_group(table.name), table.neurodata_type, "core")
+    group = _typed(parent.create_group(table.name), table.neurodata_type,
+                   NAMESPACES.get(table.neurodata_type, "core"))
     group.attrs["colnames"] = np.array([c.name for c in table.columns], dtype=h5py.string_dtype("utf-8"))
     _say(group, "description", table.description)
     _typed(_column(group, "id", np.arange(table.rows, dtype=np.int64), table.compressed), "ElementIdentifiers",

@@ -1,14 +1,17 @@
-"""NWB: the manipulations in force during a session, as an intervals table (pynwb's TimeIntervals).
+"""NWB: the manipulations in force during a session, as a session-level table (hdmf's DynamicTable).
 
 Rule: a session's file gets a `manipulations` table when a manipulation in
 force (not withdrawn) affects it: an acute one its test session (or, for a
 control, its vehicle or sham session), a lasting one every session from the
 first affected on, and an acute test's control session carries the test as
-well (role `control session of`). One row per manipulation, spanning the
-session's trials (0 to the last trial's end, seconds after
-session_start_time), with its seq, duration (acute | lasting), role, what,
-group as stored (a code in a blinded cohort: the file never unblinds) and the
-stage frozen when it was recorded.
+well (role `control session of`). The table describes the whole session, not
+a span inside it, so it has no time columns (an intervals table whose every
+row spans the session has nothing but one start time, which NWB's checker
+rightly refuses): it is a plain DynamicTable in the `behavior` processing
+module (`/processing/behavior/manipulations`). One row per manipulation, with
+its seq, duration (acute | lasting), role, what, group as stored (a code in a
+blinded cohort: the file never unblinds) and the stage frozen when it was
+recorded.
 """
 
 from __future__ import annotations
@@ -66,18 +69,17 @@ def rows_for_session(conn: sqlite3.Connection, session_id: int) -> list[dict[str
     return out
 
 
-def manipulations_table(conn: sqlite3.Connection, session_id: int, stop_s: float) -> Table | None:
-    """The `manipulations` intervals table of `session_id`, each row from 0 to `stop_s` (the last trial's end);
-    None when no manipulation affects the session."""
+def manipulations_table(conn: sqlite3.Connection, session_id: int) -> Table | None:
+    """The `manipulations` table of `session_id` (one row per manipulation in force, no times); None when no
+    manipulation affects the session."""
     rows = rows_for_session(conn, session_id)
     if not rows:
         return None
-    columns = [Column("start_time", "Start time of epoch, in seconds", np.zeros(len(rows))),
-               Column("stop_time", "Stop time of epoch, in seconds", np.full(len(rows), float(stop_s)))]
+    columns = []
     for name, description in COLUMNS:
         values = [r[name] for r in rows]
         kind = np.float64 if isinstance(values[0], float) else np.int64 if isinstance(values[0], int) else None
         columns.append(Column(name, description, values if kind is None else np.array(values, dtype=kind)))
-    return Table("manipulations", "TimeIntervals", "manipulations in force during this session (rigside's "
-                 "manipulation log); the stage columns are frozen at the time it was recorded", columns, len(rows),
-                 compressed=False)
+    return Table("manipulations", "DynamicTable", "manipulations in force during this whole session (rigside's "
+                 "manipulation log), one row each; session-level annotations, so no start or stop times; the "
+                 "stage columns are frozen at the time each was recorded", columns, len(rows), compressed=False)

@@ -198,7 +198,7 @@ def test_list_verifies_the_chain_and_withdraw_appends(capsys, recorded, tmp_path
     assert code == 2 and "--seq" in err
 
 
-def test_nwb_carries_the_manipulations_as_an_intervals_table(capsys, recorded, tmp_path):
+def test_nwb_carries_the_manipulations_as_a_session_table(capsys, recorded, tmp_path):
     pynwb = pytest.importorskip("pynwb")
     from monitor.store.nwb_export import file_name
 
@@ -206,12 +206,13 @@ def test_nwb_carries_the_manipulations_as_an_intervals_table(capsys, recorded, t
     code, _, err = rigside(capsys, "export", "--db", db, "--nwb", tmp_path)
     assert code == 0, err
     with pynwb.NWBHDF5IO(str(tmp_path / file_name("alder", 10)), "r") as io:   # read back with pynwb
-        table = io.read().intervals["manipulations"].to_dataframe()
+        nwb = io.read()
+        table = nwb.processing["behavior"]["manipulations"].to_dataframe()
         assert list(table["what"]) == ["muscimol M1"] and list(table["duration"]) == ["acute"]
         assert table["group"].iloc[0].startswith("G-") and table["stage_session"].iloc[0] == 9
-        assert table["stop_time"].iloc[0] > 60
+        assert "start_time" not in table and "manipulations" not in nwb.intervals  # the session's, not a span's
     with pynwb.NWBHDF5IO(str(tmp_path / file_name("alder", 12)), "r") as io:
-        table = io.read().intervals["manipulations"].to_dataframe()
+        table = io.read().processing["behavior"]["manipulations"].to_dataframe()
         assert sorted(table["role"]) == ["control", "control session of"]
     with pynwb.NWBHDF5IO(str(tmp_path / file_name("alder", 9)), "r") as io:
-        assert "manipulations" not in io.read().intervals
+        assert "behavior" not in io.read().processing

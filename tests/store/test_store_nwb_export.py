@@ -216,3 +216,51 @@ def test_two_names_that_give_one_file_name_are_not_mixed(tmp_path):
     assert len(result.failed) == 1 and result.failed[0].startswith("oak-1 session 1")
     with pynwb.NWBHDF5IO(str(result.written[0]), "r") as io:
         assert "rigside name oak 1" in io.read().subject.description
+
+
+@pytest.mark.slow  # three sessions imported, three manipulations recorded, the NWB checker over two files
+def test_sessions_with_several_manipulations_carry_them_in_a_table_the_checker_accepts(tmp_path, capsys):
+    """Two and three manipulations in force: a plain table in the behavior module, one row each, every column."""
+    from monitor.store.nwb_manipulations import COLUMNS
+
+    out = tmp_path / "h"
+    write_history(out, cohort(1, seed=5), days=3)
+    db = tmp_path / "store.sqlite3"
+    assert run_cli(capsys, "import", *sorted(out.glob("alder_s*.rsw")), "--protocol", out / "alder.protocol.toml",
+                   "--db", db, "--no-fit")[0] == 0
+    run_animal_script(capsys, out / "animals.sh", db, "alder")
+    added = [("--acute", "--what", "muscimol M1", "--session", "2", "--control-session", "3"),
+             ("--acute", "--control", "--what", "saline M1", "--session", "3"),
+             ("--lasting", "--what", "M1 lesion", "--session", "2", "--group", "lesion")]
+    for args in added:
+        code, _, err = run_cli(capsys, "manipulation", "add", "--animal", "alder", *args, "--operator", "Kim, Bo",
+                               "--reason", "as planned", "--db", db)
+        assert code == 0, err
+    assert run_cli(capsys, "export", "--db", db, "--nwb", tmp_path / "nwb")[0] == 0
+    # the log numbers its entries 1, 2, 3 in the order recorded; what each session is to each, as recorded above
+    expected = {2: {(1, "muscimol M1", "acute", "test"), (3, "M1 lesion", "lasting", "test")},
+                3: {(1, "muscimol M1", "acute", "control session of"), (2, "saline M1", "acute", "control"),
+                    (3, "M1 lesion", "lasting", "test")}}
+    for n, rows in expected.items():
+        path = tmp_path / "nwb" / f"sub-alder_ses-{n:03d}_behavior.nwb"
+        levels = inspector_levels(path)  # nwbinspector, DANDI configuration: the outside checker
+        assert levels <= {"BEST_PRACTICE_SUGGESTION"}, levels  # nothing critical, no violation
+        with pynwb.NWBHDF5IO(str(path), "r") as io:  # read back with pynwb
+            nwb = io.read()
+            assert "manipulations" not in nwb.intervals
+            table = nwb.processing["behavior"]["manipulations"]
+            assert type(table).__name__ == "DynamicTable"
+            frame = table.to_dataframe()
+        assert list(frame.columns) == [name for name, _ in COLUMNS]
+        assert set(zip(frame["seq"], frame["what"], frame["duration"], frame["role"])) == rows
+        assert len(frame) == len(rows)
+        assert set(frame["group"]) >= {"lesion"} and (frame["first_session"] > 0).all()
+        assert set(frame["stage_session"]) <= {-1, *range(1, 4)}
+    with pynwb.NWBHDF5IO(str(tmp_path / "nwb" / "sub-alder_ses-001_behavior.nwb"), "r") as io:
+        assert "behavior" not in io.read().processing  # no manipulation in force: no table
+    # the same rows as intervals each spanning the session are what the checker calls CRITICAL (nwbinspector)
+    spanning = pynwb.epoch.TimeIntervals(name="manipulations", description="each row spans the session")
+    for _ in range(len(frame)):
+        spanning.add_row(start_time=0.0, stop_time=60.0)
+    message = nwbinspector.checks.check_time_intervals_start_time_not_constant(spanning)
+    assert message is not None and message.importance.name == "CRITICAL"

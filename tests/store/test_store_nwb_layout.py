@@ -51,7 +51,7 @@ def store(tmp_path_factory) -> Path:
 def by_pynwb(content, path: Path) -> None:
     """`content` built as pynwb objects and written by pynwb (the reference)."""
     from hdmf.backends.hdf5 import H5DataIO
-    from hdmf.common import ElementIdentifiers, EnumData, VectorData
+    from hdmf.common import DynamicTable, ElementIdentifiers, EnumData, VectorData
     from pynwb import NWBHDF5IO, NWBFile
     from pynwb.epoch import TimeIntervals
     from pynwb.event import EventsTable, TimestampVectorData
@@ -85,8 +85,10 @@ def by_pynwb(content, path: Path) -> None:
             nwb.trials = table(content.trials, TimeIntervals)
         for events in content.events:
             nwb.add_events_table(table(events, EventsTable))
-        for intervals in content.intervals:
-            nwb.add_time_intervals(table(intervals, TimeIntervals))
+        for module in content.processing:
+            made = nwb.create_processing_module(name=module.name, description=module.description)
+            for t in module.tables:
+                made.add(table(t, DynamicTable))
         with NWBHDF5IO(str(path), mode="w") as io:
             io.write(nwb)
 
@@ -128,7 +130,7 @@ def layout(path: Path) -> dict[str, tuple]:
 
 def test_the_writer_lays_out_what_pynwb_writes_for_the_same_content(store, tmp_path):
     from monitor.store.nwb_export import session_content
-    from monitor.store.nwb_file import Column, Table, write, write_schema_file
+    from monitor.store.nwb_file import Column, Module, Table, write, write_schema_file
 
     schema = tmp_path / "schema.nwb"
     write_schema_file(schema)
@@ -138,13 +140,12 @@ def test_the_writer_lays_out_what_pynwb_writes_for_the_same_content(store, tmp_p
     for number, (session_id, animal) in enumerate(sessions[:4], start=1):
         _, content = session_content(conn, session_id, number, {"institution": "University of Somewhere",
                                                                 "lab": "Timing Lab"})
-        if number == 1:  # a small uncompressed table of numbers and texts, as the manipulations table is
-            content.intervals.append(Table("manipulations", "TimeIntervals", "a few rows", [
-                Column("start_time", "Start time of epoch, in seconds", np.zeros(2)),
-                Column("stop_time", "Stop time of epoch, in seconds", np.full(2, 61.5)),
-                Column("seq", "entry", np.array([1, 2], dtype=np.int64)),
-                Column("what", "what", ["muscimol, M1", "saline \"sham\""]),
-                Column("slow", "fraction", np.array([np.nan, 0.25]))], 2, compressed=False))
+        if number == 1:  # a processing module with a small uncompressed plain table, as the manipulations table is
+            content.processing.append(Module("behavior", "session-level annotations", [Table(
+                "manipulations", "DynamicTable", "a few rows", [
+                    Column("seq", "entry", np.array([1, 2], dtype=np.int64)),
+                    Column("what", "what", ["muscimol, M1", "saline \"sham\""]),
+                    Column("slow", "fraction", np.array([np.nan, 0.25]))], 2, compressed=False)]))
         ours, theirs = tmp_path / f"ours-{number}.nwb", tmp_path / f"pynwb-{number}.nwb"
         write(content, ours, schema)
         by_pynwb(content, theirs)
