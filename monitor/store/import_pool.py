@@ -6,8 +6,7 @@ thread, Ctrl-C ignored: the importing process handles it and cancels them)
 parse the files ahead of it (the first one in the importing process, while
 they start), at most `LOOKAHEAD_BYTES` of files at a time so memory stays
 bounded. As soon as an animal's last file is stored (`Finished`
-tells which), its report entry can be built in a worker (`report_entry`,
-read-only: the importing process keeps it) and its consolidation model refitted in one
+tells which), its consolidation model can be refitted in a worker
 (`refit_animal`, which saves its own fit in a short transaction), so fits run
 while later files are still being imported. Until every file has been handed
 to a worker, such jobs wait, so parsing never queues behind a fit."""
@@ -40,19 +39,6 @@ def refit(db: str, animal: str) -> dict[str, Any] | None:
     from monitor.store.consolidation_fits import refit_animal
 
     return refit_animal(db, animal, cancel=None if _cancelled is None else _cancelled.is_set)
-
-
-def report_entry(db: str, animal: str) -> tuple[str, dict[str, Any]] | None:
-    """The animal's report entry built from the stored rows (a worker's job, read-only); the importing process
-    keeps it."""
-    from monitor.store.db import open_store
-    from monitor.store.reporting import computed_entry
-
-    conn = open_store(Path(db), readonly=True)
-    try:
-        return computed_entry(conn, animal)
-    finally:
-        conn.close()
 
 
 class Finished:

@@ -64,21 +64,10 @@ def animal_entry(conn: sqlite3.Connection, animal: str) -> dict[str, Any] | None
 
 def refresh_cache(conn: sqlite3.Connection, animal: str) -> None:
     """Build and keep the animal's report entry (in the caller's transaction)."""
-    computed = computed_entry(conn, animal)
-    if computed is not None:
-        keep_entry(conn, animal, *computed)
-
-
-def computed_entry(conn: sqlite3.Connection, animal: str) -> tuple[str, dict[str, Any]] | None:
-    """(fingerprint, entry) of the animal as stored now, or None without a session with a protocol; reads only,
-    so another process may build it."""
     fingerprint = report_fingerprint(conn, animal)
     entry = build_entry(conn, animal)
-    return None if entry is None else (fingerprint, entry)
-
-
-def keep_entry(conn: sqlite3.Connection, animal: str, fingerprint: str, entry: dict[str, Any]) -> None:
-    """Keep a built entry under its fingerprint (in the caller's transaction)."""
+    if entry is None:
+        return
     conn.execute("INSERT INTO report_cache (animal_id, fingerprint, entry, built_at) VALUES (?, ?, ?, ?) "
                  "ON CONFLICT (animal_id) DO UPDATE SET fingerprint = excluded.fingerprint, entry = excluded.entry, "
                  "built_at = excluded.built_at", (ensure_animal(conn, animal), fingerprint, json.dumps(entry),

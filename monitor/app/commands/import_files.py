@@ -11,9 +11,9 @@ into rows and their trials derived in worker processes (`--jobs`, one per
 core besides this one; monitor.store.import_pool) while this process stores them in the order
 given. While another process holds the write lock the import waits up to
 `--wait` seconds instead of failing. As soon as an animal's last file is
-stored, its report entry is built in a worker from one read snapshot (kept
-by this process at the end; built here when no worker runs), and (unless
-`--no-fit`) its consolidation model is refitted in a worker process (one per core, one BLAS thread each) and cached
+stored, its report entry is built once here and kept (the workers parse ahead
+meanwhile), and (unless `--no-fit`) its consolidation model is refitted in a
+worker process (one per core, one BLAS thread each) and cached
 (monitor.store.consolidation_fits), so fits run while later files are still
 being imported; one stderr line per animal at the end.
 One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
@@ -131,7 +131,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
 
     from monitor.app.commands.record import _read_protocol
     from monitor.store.db import StoreError, open_store
-    from monitor.store.import_pool import Finished, ImportPool, refit, report_entry
+    from monitor.store.import_pool import Finished, ImportPool, refit
     from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name, event_codes,
                                         file_digest, parse_file, rig_calibrations, store_parsed)
 
@@ -196,7 +196,6 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         workers = max(parsers, _fit_workers(holds)) if fit else parsers
         finished = Finished(holds)
         fits: dict[str, Future] = {}
-        entries: dict[str, Future] = {}
         fitted, fits_stopped = 0, False
         interrupted = False
         tracker.begin(len(contents), "file", "importing")
@@ -210,16 +209,14 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                     pool.done_parsing()
 
             def ready(names: list[str]) -> None:
-                """The animals' files are all stored: build their report entries and refit them in the workers
-                (kept here at the end), or build the entries here when there are no workers."""
+                """The animals' files are all stored: refit them beside, and build their report entries here
+                (the workers parse ahead meanwhile; in a worker, numpy and scipy would load once more)."""
                 animals.update(names)
                 for name in names:
-                    if pool is None:
-                        _refresh_entry(conn, name)
-                        continue
-                    entries[name] = pool.submit(report_entry, str(db), name)
-                    if fit:
+                    if pool is not None and fit:
                         fits[name] = pool.submit(refit, str(db), name)
+                for name in names:
+                    _refresh_entry(conn, name)
 
             try:
                 for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
@@ -251,13 +248,14 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                 fits.clear()
                 if pool is not None:
                     pool.stop()
-                animals.update(finished.rest())  # the stored animals' report entries stay current
-                _keep_entries(conn, entries, sorted(animals))
+                ready_entries = finished.rest()  # the stored animals' report entries stay current
+                animals.update(ready_entries)
+                for name in ready_entries:
+                    _refresh_entry(conn, name)
             else:
                 if pool is not None:
                     pool.done_parsing()
                 ready(finished.rest())
-                _keep_entries(conn, entries, [])
                 if fits:
                     fitted, fits_stopped = _collect_fits(fits, workers, tracker, pool)
     except ImportRefused as exc:
@@ -305,32 +303,6 @@ def _refresh_entry(conn: Any, animal: str) -> None:
         if conn.in_transaction:
             conn.execute("ROLLBACK")
         raise
-
-
-def _keep_entries(conn: Any, entries: dict[str, Future], stored: list[str]) -> None:
-    """Keep the report entries the workers built; an animal of `stored` whose entry was not built (stopped, or
-    failed in a worker) gets it built here."""
-    from monitor.store.reporting import keep_entry
-
-    for name in sorted(set(entries) | set(stored)):
-        future = entries.get(name)
-        built = None
-        if future is not None and not future.cancelled() and (future.done() or not stored):
-            try:
-                built = (future.result(),)
-            except Exception:  # noqa: BLE001 - a worker that failed: built here instead
-                built = None
-        if built is None:
-            _refresh_entry(conn, name)
-        elif built[0] is not None:
-            conn.execute("BEGIN IMMEDIATE")
-            try:
-                keep_entry(conn, name, *built[0])
-                conn.execute("COMMIT")
-            except BaseException:
-                if conn.in_transaction:
-                    conn.execute("ROLLBACK")
-                raise
 
 
 def _fit_workers(holds: list[str | None]) -> int:
