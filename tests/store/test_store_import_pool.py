@@ -48,6 +48,6 @@ def test_an_import_with_worker_processes_keeps_current_report_entries(tmp_path, 
 
     store = open_store(db, readonly=True)
     built = dict(conn.execute("SELECT a.name, r.entry FROM report_cache AS r JOIN animals AS a ON a.id = r.animal_id"))
-    for animal in kept:  # a worker's entry is the one this process would build from the same rows
+    for animal in kept:  # the kept entry is the one built from the same rows
         assert json.loads(built[animal]) == json.loads(json.dumps(build_entry(store, animal)))
     store.close()
