@@ -22,7 +22,7 @@ import time
 from datetime import date
 from typing import Any
 
-from monitor.store.records import SEXES, RecordError, iso_local
+from monitor.store.registry import SEXES, RecordError, iso_local
 
 SUBJECT_FIELDS = ("lab_id", "cohort", "species", "sex", "date_of_birth", "age_days", "age_date", "strain",
                   "genotype", "supplier", "baseline_weight_g", "baseline_weight_date", "notes")

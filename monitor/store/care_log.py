@@ -31,7 +31,7 @@ from monitor.core.care.chain import GENESIS, CareChainCheck, care_hash, verify_c
 from monitor.core.care.limits import (CareLimits, Concern, limits_for, supplement_concerns, weighing_concerns,
                                       with_protocol)
 from monitor.store.derive import protocol_of, session_events
-from monitor.store.records import RecordError, find_animal, valve_calibration
+from monitor.store.registry import RecordError, find_animal, valve_calibration
 
 # the columns an entry's hash covers, in the order they are read
 CHAINED = ("id", "animal_id", "kind", "at", "amount", "by", "text", "recorded_at", "replaces", "action", "reason",

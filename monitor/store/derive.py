@@ -27,7 +27,7 @@ from drivers.wire import Event
 from monitor.core.protocol import TrainingProtocol, parse_protocol
 from monitor.core.session.derivation import derive_session
 from monitor.core.session.trials import Trial
-from monitor.store.records import valve_calibration
+from monitor.store.registry import valve_calibration
 
 if TYPE_CHECKING:
     from monitor.core.session.live_stats import LiveSession

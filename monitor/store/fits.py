@@ -19,7 +19,7 @@ import sqlite3
 import time
 from typing import Any, Mapping, Sequence
 
-from monitor.store.records import ensure_animal
+from monitor.store.registry import ensure_animal
 
 NOT_FITTED = "not fitted"
 FINISHED = "(s.ended_at IS NOT NULL OR s.import_id IS NOT NULL)"  # SQL: a session that is not being recorded now

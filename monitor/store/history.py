@@ -24,7 +24,7 @@ from monitor.core.session.derivation import derive_session
 from monitor.core.session.trials import Trial
 from monitor.store.derive import malformed_count, session_events, trials_by_session
 from monitor.store.fits import cached_block, latest_fit
-from monitor.store.records import conditions_of
+from monitor.store.registry import conditions_of
 
 DEFAULT_BREAK_H = 23.0   # hours between sessions when one end is unknown
 _CHUNK = 500             # ids per IN (...) query

@@ -33,7 +33,7 @@ from typing import Any
 
 from drivers.wire import Event, Header, Malformed, Record, WireDecoder
 from monitor.store.derive import derive_events, store_trials, trial_row
-from monitor.store.records import ensure_animal, ensure_protocol
+from monitor.store.registry import ensure_animal, ensure_protocol
 from monitor.store.rows import Codes, insert_rows, recode, session_rows
 from monitor.store.schema import KNOWN_EVENT_CODES
 

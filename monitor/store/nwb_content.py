@@ -36,7 +36,7 @@ from monitor.store.derive import derive, protocol_of, stored_trials
 from monitor.store.event_blocks import EventBlock, event_words, session_block
 from monitor.store.nwb_file import Column, Content, Module, Table
 from monitor.store.nwb_manipulations import manipulations_table
-from monitor.store.records import conditions_of
+from monitor.store.registry import conditions_of
 from monitor.store.session_time import SessionClock, start_shift_us
 
 _ID = re.compile(r"[^A-Za-z0-9-]")

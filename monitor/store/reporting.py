@@ -27,7 +27,7 @@ from typing import Any
 
 from monitor.store.derive import derive, malformed_count, protocol_of, trials_by_session
 from monitor.store.fits import cached_block
-from monitor.store.records import animal_names, conditions_of, ensure_animal
+from monitor.store.registry import animal_names, conditions_of, ensure_animal
 
 
 def report(conn: sqlite3.Connection, animal: str | None = None) -> dict[str, Any]:

@@ -3,7 +3,7 @@
 Rule: each function runs in the caller's transaction (the store writer's
 `call`). Before anyone checks in, a rig's events go to a run of no animal
 (`NO_ANIMAL`); check-in ends the session before it and opens a checked-in
-session under the protocol's stored text (monitor.store.records); check-out
+session under the protocol's stored text (monitor.store.registry); check-out
 ends the check-in record (with who, when named) and derives the session's
 trials (monitor.store.derive), and a session opened without a check-in
 record is simply ended; giving an unattended run ends it and hands it to an
@@ -16,7 +16,7 @@ import sqlite3
 from typing import NamedTuple
 
 from drivers.status import FilePosition
-from monitor.store import db, derive, records, session_changes
+from monitor.store import db, derive, registry, session_changes
 
 NO_ANIMAL = ""  # the sessions row of a rig's events before anyone checked in
 
@@ -41,7 +41,7 @@ def register_rig(conn: sqlite3.Connection, *, name: str, kind: str, key: str, us
                  mapping: str | None, valve_ul_per_ms: float | None) -> RegisteredRig:
     """The source row, the rig's binding and valve calibration, a fresh idle run and the file's resume point."""
     source_id = db.register_source(conn, kind, key, name, usb_serial, mapping)
-    records.ensure_rig(conn, name, usb_serial=usb_serial, port=key, valve_ul_per_ms=valve_ul_per_ms)
+    registry.ensure_rig(conn, name, usb_serial=usb_serial, port=key, valve_ul_per_ms=valve_ul_per_ms)
     idle = start_idle_run(conn, source_id, name)
     return RegisteredRig(source_id, idle, db.file_position(conn, source_id) if kind == "file" else None)
 
@@ -57,18 +57,18 @@ def check_in(conn: sqlite3.Connection, *, previous: int | None, animal: str, rig
     """End the rig's checked-in session (if any) and open one for `animal`: (session id, warning or None)."""
     if previous is not None:
         check_out(conn, previous)
-    protocol_id = records.ensure_protocol(conn, *protocol)
-    return records.check_in(conn, animal=animal, rig=rig, operator=operator, protocol_id=protocol_id,
+    protocol_id = registry.ensure_protocol(conn, *protocol)
+    return registry.check_in(conn, animal=animal, rig=rig, operator=operator, protocol_id=protocol_id,
                             weight_before_g=weight_g, stage=stage, source_id=source_id)
 
 
 def check_out(conn: sqlite3.Connection, session_id: int, operator: str = "") -> None:
     """End a checked-in session (who, when named) and derive its trials; a session without a check-in just ends."""
     try:
-        records.check_out(conn, session_id)
+        registry.check_out(conn, session_id)
         if operator.strip():
             session_changes.checked_out_by(conn, session_id, operator)
-    except records.RecordError:           # a session opened without a check-in record
+    except registry.RecordError:           # a session opened without a check-in record
         db.end_session(conn, session_id)
     derive.rebuild_trials(conn, session_id)
 
@@ -85,6 +85,6 @@ def give_run(conn: sqlite3.Connection, session_id: int, *, animal: str, operator
              protocol: ProtocolText, stage: str | None) -> int:
     """End an unattended run and give it to `animal` (logged); the number of trials it held."""
     db.end_session(conn, session_id)
-    protocol_id = records.ensure_protocol(conn, *protocol)
+    protocol_id = registry.ensure_protocol(conn, *protocol)
     return session_changes.give_run(conn, session_id, animal=animal, operator=operator, reason=reason,
                                     protocol_id=protocol_id, stage=stage)

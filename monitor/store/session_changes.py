@@ -16,8 +16,8 @@ from datetime import datetime
 from typing import NamedTuple
 
 from monitor.core.alerts import ACTIVITY_EVENTS
-from monitor.store import derive, records
-from monitor.store.records import RecordError
+from monitor.store import derive, registry
+from monitor.store.registry import RecordError
 
 ACTIVITY = ACTIVITY_EVENTS   # what makes a run worth giving: presses, pushes or trials
 
@@ -89,7 +89,7 @@ def give_run(conn: sqlite3.Connection, session_id: int, *, animal: str, operator
         raise RecordError("run: it is still running; end it first")
     name, version, text = conn.execute("SELECT name, version, text FROM protocols WHERE id = ?",
                                        (protocol_id,)).fetchone()
-    animal_id = records.ensure_animal(conn, animal.strip())
+    animal_id = registry.ensure_animal(conn, animal.strip())
     conn.execute("UPDATE sessions SET animal = ?, animal_id = ?, protocol_id = ?, protocol_name = ?, "
                  "protocol_version = ?, protocol_text = ?, stage = ? WHERE id = ?",
                  (animal.strip(), animal_id, protocol_id, name, version, text, stage, session_id))
@@ -100,7 +100,7 @@ def give_run(conn: sqlite3.Connection, session_id: int, *, animal: str, operator
 def set_excluded(conn: sqlite3.Connection, session_id: int, excluded: bool, *, reason: str, operator: str) -> None:
     """Exclude a session, or undo its exclusion, with a reason (logged)."""
     _needs(reason, operator)
-    records.exclude_session(conn, session_id, reason.strip(), operator.strip(), excluded=excluded)
+    registry.exclude_session(conn, session_id, reason.strip(), operator.strip(), excluded=excluded)
     animal = conn.execute("SELECT animal FROM sessions WHERE id = ?", (session_id,)).fetchone()[0]
     _log(conn, session_id, "excluded" if excluded else "included", animal, reason, operator)
 

@@ -10,7 +10,7 @@ from PySide6.QtGui import QImage
 
 from drivers.wire import Event
 from monitor.app.window.eligibility_care import CLEARED_BY, care_row, decision_view
-from monitor.app.services.animal_records import Judgement
+from monitor.app.services.judging import Judgement
 from monitor.core.eligibility.assignment import blinding_key
 from monitor.core.care.ledger import AnimalCare, CareConfig, Weighing, day_summary
 from monitor.core.care.water import session_water

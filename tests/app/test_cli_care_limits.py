@@ -12,7 +12,7 @@ from monitor.app.cli import main
 from monitor.core.care.limits import RODENT, limits_for, weighing_concerns
 from monitor.store import db as store_db
 from monitor.store.db import open_store
-from monitor.store.records import ensure_animal
+from monitor.store.registry import ensure_animal
 
 
 def care(capsys, *args) -> tuple[int, str, str]:

@@ -67,7 +67,9 @@ def interrupt_after_line(process: subprocess.Popen, start: str) -> tuple[list[st
         if line.startswith(start):
             break
     process.send_signal(signal.SIGINT)
-    out, err = process.communicate(timeout=120)
+    err = process.stderr.read()  # through the same reader: lines it has buffered already are kept
+    out = process.stdout.read()
+    process.wait(timeout=120)
     return seen, out, err
 
 

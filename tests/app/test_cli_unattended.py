@@ -10,8 +10,8 @@ from monitor.app.errors import plain_error
 from monitor.store.db import open_store
 from fixtures.devices import run_main as run_cli
 
-spec = importlib.util.spec_from_file_location("store_records_cli", Path(__file__).parents[1] / "store" /
-                                              "test_store_records.py")
+spec = importlib.util.spec_from_file_location("store_registry_cli", Path(__file__).parents[1] / "store" /
+                                              "test_store_registry.py")
 records_tests = importlib.util.module_from_spec(spec)
 spec.loader.exec_module(records_tests)
 

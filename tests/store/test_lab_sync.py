@@ -25,7 +25,7 @@ from monitor.store import lab_read, lab_schema, lab_sync
 from monitor.store.db import open_store
 from monitor.store.care_log import add_supplement, add_weighing
 from monitor.store.decisions import append_decision
-from monitor.store.records import check_in, check_out
+from monitor.store.registry import check_in, check_out
 from monitor.core.eligibility.decision_log import Decision
 from monitor.store.reporting import report
 
@@ -199,7 +199,7 @@ def test_one_more_session_sends_only_its_rows(pcs, lab_url, tmp_path):
 
 
 def test_a_changed_row_is_sent_again_and_the_lab_report_follows(pcs, lab_url):
-    from monitor.store.records import exclude_session
+    from monitor.store.registry import exclude_session
 
     lab_schema.upgrade(lab_url)
     do_sync(pcs["pc2"], lab_url, "pc2")

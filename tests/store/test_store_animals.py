@@ -10,7 +10,7 @@ import pytest
 from monitor.store.animals import (add_animal, changes_of, edit_animal, get_animal, list_animals, missing_fields,
                                    retire_animal)
 from monitor.store.db import open_store
-from monitor.store.records import RecordError, ensure_animal
+from monitor.store.registry import RecordError, ensure_animal
 
 
 @pytest.fixture

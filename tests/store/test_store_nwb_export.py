@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 
 from mock_rig.history import cohort, write_history
-from monitor.store import care_log, records
+from monitor.store import care_log, registry
 from monitor.store.db import open_store
 from fixtures.devices import run_main as run_cli
 
@@ -136,7 +136,7 @@ def test_zero_trial_session_nul_note_and_a_failed_session(tmp_path, capsys, hist
     assert run_cli(capsys, "import", quiet, "--protocol", out / "alder.protocol.toml", "--db", db, "--no-fit")[0] == 0
     conn = open_store(db)
     protocol = conn.execute("SELECT protocol_id FROM sessions WHERE protocol_id IS NOT NULL").fetchone()[0]
-    records.check_in(conn, animal="dove", rig="box2", operator="Rivera, Ana", protocol_id=protocol,
+    registry.check_in(conn, animal="dove", rig="box2", operator="Rivera, Ana", protocol_id=protocol,
                      weight_before_g=290.0)  # checked in, nothing recorded: no events at all
     broken = conn.execute("SELECT id FROM sessions WHERE animal = 'birch' ORDER BY started_at").fetchall()[1][0]
     conn.execute("UPDATE sessions SET start_wall = 'not a time' WHERE id = ?", (broken,))
@@ -209,7 +209,7 @@ def test_two_names_that_give_one_file_name_are_not_mixed(tmp_path):
 
     conn = open_store(tmp_path / "store.sqlite3")
     for animal in ("oak 1", "oak-1"):  # both would be sub-oak-1 (DANDI labels: letters, digits, "-")
-        records.check_in(conn, animal=animal, rig="box1", operator="Kim, Bo", protocol_id=None)
+        registry.check_in(conn, animal=animal, rig="box1", operator="Kim, Bo", protocol_id=None)
     result = export_nwb(conn, tmp_path / "nwb")
     conn.close()
     assert [p.name for p in result.written] == ["sub-oak-1_ses-001_behavior.nwb"]

@@ -13,7 +13,7 @@ import pytest
 
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
-from monitor.store import care_log, records
+from monitor.store import care_log, registry
 from monitor.store.db import open_store
 
 pynwb = pytest.importorskip("pynwb")
@@ -40,9 +40,9 @@ def store(tmp_path_factory) -> Path:
                  "VALUES (?, ?, 'box1', 'Rivera, Ana', 312, 0)", (ids[0], alder))
     day = conn.execute("SELECT start_wall FROM sessions WHERE id = ?", (ids[1],)).fetchone()[0][:10]
     care_log.add_weighing(conn, "alder", at=f"{day}T18:00:00+01:00", grams=318.5, by="Kim, Bo")
-    records.add_condition(conn, ids[1], what="saline, i.p.", operator="Kim, Bo", at=f"{day}T08:00:00+01:00",
+    registry.add_condition(conn, ids[1], what="saline, i.p.", operator="Kim, Bo", at=f"{day}T08:00:00+01:00",
                           dose="1 ml/kg")
-    records.exclude_session(conn, ids[2], "cable fault", "Kim, Bo")
+    registry.exclude_session(conn, ids[2], "cable fault", "Kim, Bo")
     conn.commit()
     conn.close()
     return db

@@ -8,11 +8,11 @@ from pathlib import Path
 
 import pytest
 
-from monitor.store.records import RecordError, ensure_protocol
+from monitor.store.registry import RecordError, ensure_protocol
 from monitor.store.reporting import report
 from monitor.store.session_changes import changes_of, give_run, set_excluded, unattended_runs
 
-spec = importlib.util.spec_from_file_location("store_records_tests", Path(__file__).with_name("test_store_records.py"))
+spec = importlib.util.spec_from_file_location("store_registry_tests", Path(__file__).with_name("test_store_registry.py"))
 records_tests = importlib.util.module_from_spec(spec)
 spec.loader.exec_module(records_tests)
 

@@ -51,7 +51,7 @@ def run(args: argparse.Namespace) -> int:
     if args.action == "history":
         return _history(args)
     from monitor.store import animals
-    from monitor.store.records import RecordError
+    from monitor.store.registry import RecordError
 
     fields = {f: getattr(args, f) for f in OPTIONS.values() if getattr(args, f) is not None}
     operator = args.operator or getpass.getuser()

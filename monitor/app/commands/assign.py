@@ -84,7 +84,7 @@ def _assign(conn, args) -> list:
 
 
 def _judgement(conn, name: str, option: str):
-    from monitor.app.services.animal_records import RuleError, judge
+    from monitor.app.services.judging import RuleError, judge
     from monitor.app.commands.report import known_animal
 
     try:

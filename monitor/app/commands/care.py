@@ -62,7 +62,7 @@ def run(args: argparse.Namespace) -> int:
     if not args.animal:
         raise UsageError("--animal: say which animal")
     from monitor.store import care_log
-    from monitor.store.records import ensure_animal, find_animal
+    from monitor.store.registry import ensure_animal, find_animal
 
     at = args.at or datetime.now().astimezone().isoformat(timespec="seconds")
 
@@ -88,7 +88,7 @@ def run(args: argparse.Namespace) -> int:
 def _store(args: argparse.Namespace, work) -> object:
     """Run `work(conn)` in one write transaction; a RecordError becomes a one-line error naming the option."""
     from monitor.store.care_log import NeedsConfirmation
-    from monitor.store.records import RecordError
+    from monitor.store.registry import RecordError
 
     try:
         return write_transaction(args.db, WAIT_S, work)
@@ -152,10 +152,10 @@ def _need(value, option: str):
 
 
 def _sheet(args: argparse.Namespace) -> int:
-    from monitor.app.services.animal_records import CARE_CAUTION, care_day, care_line, write_care_csv
+    from monitor.app.services.judging import CARE_CAUTION, care_day, care_line, write_care_csv
     from monitor.app.settings import care_config, settings_path
     from monitor.app.commands.report import known_animal, open_readonly
-    from monitor.store.records import animal_names
+    from monitor.store.registry import animal_names
 
     try:
         day = date.fromisoformat(args.day) if args.day else date.today()

@@ -51,7 +51,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _decide(conn, args):
-    from monitor.app.services.animal_records import RuleError, judge, record_decision
+    from monitor.app.services.judging import RuleError, judge, record_decision
     from monitor.app.commands.report import known_animal
 
     known_animal(conn, args.animal)

@@ -97,7 +97,7 @@ def run(args: argparse.Namespace) -> int:
 
 def _known_animal(conn: Any, animal: str, create: bool) -> None:
     """Refuse an animal the store does not know, unless it may be created."""
-    from monitor.store.records import ensure_animal, find_animal
+    from monitor.store.registry import ensure_animal, find_animal
 
     if find_animal(conn, animal) is None:
         if not create:
@@ -108,7 +108,7 @@ def _known_animal(conn: Any, animal: str, create: bool) -> None:
 
 def _start_session(conn: Any, source_id: int, args: argparse.Namespace, protocol: dict[str, Any]) -> int:
     from monitor.store import db
-    from monitor.store.records import ensure_protocol, find_animal
+    from monitor.store.registry import ensure_protocol, find_animal
 
     session_id = db.start_session(conn, source_id, args.animal, args.rig, protocol["name"], protocol["version"],
                                   protocol["text"])
@@ -135,7 +135,7 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
     from monitor.app.live.pipeline import Fanout
     from monitor.store import db
     from monitor.store.writer import FAILED
-    from monitor.store.records import session_count
+    from monitor.store.registry import session_count
 
     sink = Fanout(writer, source_id=source_id, session_id=session_id, live=kind == "serial")
     number = writer.call(lambda c: session_count(c, args.animal), transaction=False)   # the animal's own count

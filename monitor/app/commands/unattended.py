@@ -67,7 +67,7 @@ def _runs(conn, rig: str | None):
 
 
 def _give(conn, args, protocol: dict | None) -> int:
-    from monitor.store.records import RecordError, ensure_protocol
+    from monitor.store.registry import RecordError, ensure_protocol
     from monitor.store.session_changes import give_run, latest_protocol_id
 
     wanted = args.started.strip().replace("T", " ")

@@ -20,7 +20,7 @@ from __future__ import annotations
 from datetime import datetime
 from typing import NamedTuple, Sequence
 
-from monitor.app.services.animal_records import Judgement, record_decision
+from monitor.app.services.judging import Judgement, record_decision
 from monitor.core.eligibility.assignment import BLOCKS_METHOD, COHORT_METHOD, assign_cohort, assign_next, new_seed
 from monitor.core.eligibility.decision_log import LogEntry
 from monitor.store.connection import Connection

@@ -110,7 +110,7 @@ def record_manipulation(conn: Connection, *, animal: str, duration: str, role: s
     `refresh_report` rebuilds the animal's cached report entry at once (the window leaves it to its next read).
     """
     from monitor.store.manipulations import append_manipulation, assigned_group
-    from monitor.store.records import exclude_session
+    from monitor.store.registry import exclude_session
     from monitor.store.reporting import refresh_cache
 
     sessions, entry = _sessions(conn, animal)

@@ -109,7 +109,7 @@ class TableAlertStore:
         def insert(conn) -> int:
             animal_id = None
             if alert.animal:
-                from monitor.store.records import ensure_animal
+                from monitor.store.registry import ensure_animal
 
                 animal_id = ensure_animal(conn, alert.animal)
             return int(conn.execute("INSERT INTO alerts (animal_id, rig, kind, level, message, raised_at) "

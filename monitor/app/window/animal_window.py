@@ -54,7 +54,7 @@ class AnimalRecordsSide:
 
     def save(self, edit: AnimalEdit) -> None:
         from monitor.store import animals
-        from monitor.store.records import RecordError
+        from monitor.store.registry import RecordError
 
         def write(conn) -> str:
             try:
@@ -70,7 +70,7 @@ class AnimalRecordsSide:
 
     def retire(self, name: str, reason: str, operator: str) -> None:
         from monitor.store import animals
-        from monitor.store.records import RecordError
+        from monitor.store.registry import RecordError
 
         def write(conn) -> str:
             try:

@@ -75,7 +75,7 @@ def import_history(controller, prepared, done: threading.Event) -> None:
     """Import every demo session file into the store, in a worker job; set `done` at the end."""
     from monitor.store.importer import ImportRefused, import_file
     from mock_rig.history import subject_record
-    from monitor.store.records import ensure_animal
+    from monitor.store.registry import ensure_animal
 
     files = [(d, path) for d in prepared for path in d.session_files]
 

@@ -29,7 +29,7 @@ from typing import Any, Callable, Sequence
 from PySide6.QtCore import QObject, Qt, QTimer
 from PySide6.QtWidgets import QWidget
 
-from monitor.app.services.animal_records import Judgement, RuleError, care_day, care_line, judge, record_decision, \
+from monitor.app.services.judging import Judgement, RuleError, care_day, care_line, judge, record_decision, \
     write_care_csv
 from monitor.app.live.engine import RaisedAlert
 from monitor.core.alerts import ATTENTION, INFO, URGENT, Raised
@@ -282,7 +282,7 @@ class DecisionsAndCare(QObject):
         panel_day = self.care_panel.view.day if self.care_panel is not None else None
 
         def read(conn) -> tuple:
-            from monitor.store.records import animal_names, find_animal
+            from monitor.store.registry import animal_names, find_animal
 
             known = [n for n in animal_names(conn) if n and find_animal(conn, n) is not None]
             names = known if animals is None else [n for n in animals if n in known]
@@ -456,7 +456,7 @@ class DecisionsAndCare(QObject):
     def log_care(self, entry: CareEntry) -> None:
         """Store a weight, supplement, note or baseline now, then recompute the care day."""
         from monitor.store import care_log
-        from monitor.store.records import ensure_animal
+        from monitor.store.registry import ensure_animal
 
         at = datetime.now().astimezone().isoformat(timespec="seconds")
 
@@ -489,7 +489,7 @@ class DecisionsAndCare(QObject):
         day, now = panel.view.day, datetime.now().astimezone()
 
         def read(conn) -> None:
-            from monitor.store.records import animal_names, find_animal
+            from monitor.store.registry import animal_names, find_animal
 
             names = [n for n in animal_names(conn) if n and find_animal(conn, n) is not None]
             write_care_csv(Path(path), care_day(conn, names, day, self.config, now))

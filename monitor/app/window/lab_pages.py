@@ -80,7 +80,7 @@ def page_from_store(path: Path, animal: str, config: CareConfig, now: datetime, 
     """An animal's page from the store at `path` by the rig PC's own code (history, cached fit, judgement, care
     day, latest session); `where` is said where the rig PC names the box."""
     from monitor.app.live import views
-    from monitor.app.services.animal_records import RuleError, care_day, judge
+    from monitor.app.services.judging import RuleError, care_day, judge
     from monitor.app.window.pages import StoreHistory
     from monitor.app.window.eligibility_care import care_text, eligibility_text
     from monitor.store.db import open_store

@@ -294,9 +294,9 @@ class Pages:
                      lambda c, sid, who: set_excluded(c, sid, record.excluded, reason=record.reason, operator=who))
 
     def add_condition(self, record: ConditionRecord) -> None:
-        from monitor.store import records as store_records
+        from monitor.store import registry
 
         at = datetime.now().astimezone().isoformat(timespec="seconds")
-        self._record("condition", record.animal, record.session, lambda c, sid, who: store_records.add_condition(
+        self._record("condition", record.animal, record.session, lambda c, sid, who: registry.add_condition(
             c, sid, what=record.what, operator=who, at=at, dose=record.dose or None, volume_ul=record.volume_ul,
             sham=record.sham, notes=record.note or None))

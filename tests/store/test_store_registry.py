@@ -17,7 +17,7 @@ from monitor.store.care_log import add_note, add_supplement, add_weighing, anima
 from monitor.store.db import open_store
 from monitor.store.fits import cached_block, data_fingerprint, save_fit
 from monitor.store.importer import import_file
-from monitor.store.records import (RecordError, add_condition, check_in, check_out, conditions_of, ensure_animal,
+from monitor.store.registry import (RecordError, add_condition, check_in, check_out, conditions_of, ensure_animal,
                                    ensure_protocol, ensure_rig, exclude_session, find_animal)
 from monitor.store.reporting import build_entry, refresh_cache, report
 from monitor.store.schema import MIGRATIONS, SCHEMA_VERSION

@@ -1,4 +1,4 @@
-"""Audited records around sessions: animals, rigs, protocols, check-ins, conditions, exclusions.
+"""The register of animals, rigs and protocols, and the audited records around sessions: check-ins, conditions, exclusions.
 
 Rule: every function takes a connection and runs inside the caller's
 transaction (the writer's `call()`, or a command's `BEGIN IMMEDIATE`). An
