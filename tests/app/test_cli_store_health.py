@@ -110,6 +110,7 @@ def recording(tmp_path: Path, n: int) -> tuple[Path, Path, subprocess.Popen]:
     return log, db, proc
 
 
+@pytest.mark.slow
 def test_deleting_the_database_while_recording_stops_the_recorder_with_exit_1(tmp_path):
     log, db, proc = recording(tmp_path, 100)
     deadline = time.monotonic() + 30

@@ -6,6 +6,8 @@ import importlib.util
 import sqlite3
 from pathlib import Path
 
+import pytest
+
 from monitor.app.errors import plain_error
 from monitor.store.db import open_store
 from fixtures.devices import run_main as run_cli
@@ -65,6 +67,7 @@ def test_the_text_report_names_each_sessions_stage_and_counts_in_words(tmp_path,
     assert "stage main" in lines[1] and "hit rate 0.60" in lines[1] and "CV " in lines[1]
 
 
+@pytest.mark.slow
 def test_record_names_the_session_by_the_animals_own_count(tmp_path):
     import subprocess
     import sys

@@ -68,6 +68,7 @@ def test_serial_source_on_socket_url_gets_exactly_what_was_sent_across_unplug():
     assert len(closed) == 1 and closed[0].reason.startswith("unplugged")
 
 
+@pytest.mark.slow
 def test_box_waits_for_a_reader_before_booting():
     output = SocketOutput(record=True)
     rig = LiveRig(cohort(1, 13)[0], output, speed=100, drain_timeout=0.1).start()

@@ -101,6 +101,7 @@ def test_a_crafted_clock_is_malformed_lines_and_record_and_import_store_the_rest
     assert lost == 0 and dup == 0 and malformed >= 2  # the clock overflows and the 3e6 uL reward
 
 
+@pytest.mark.slow
 def test_a_source_that_never_opens_fails_and_keeps_no_session(recorder, kit):
     typo = subprocess.run(recorder.args("serial:/dev/rigside-typo", "box1", "--seconds", "1"),
                           capture_output=True, text=True, timeout=60)

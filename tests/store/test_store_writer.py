@@ -278,6 +278,7 @@ def test_one_row_sqlite_cannot_take_is_kept_as_a_malformed_line_and_the_writer_g
     assert rows[0][2].startswith(b"0 lever_down")
 
 
+@pytest.mark.slow
 def test_a_deleted_database_file_stops_the_writer_loudly(writer, tmp_path):
     w = writer()
     setup_session(w)
