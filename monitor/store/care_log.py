@@ -31,7 +31,7 @@ from monitor.core.care.chain import GENESIS, CareChainCheck, care_hash, verify_c
 from monitor.core.care.limits import (CareLimits, Concern, limits_for, supplement_concerns, weighing_concerns,
                                       with_protocol)
 from monitor.store.derive import protocol_of, session_events
-from monitor.store.registry import RecordError, find_animal, valve_calibration
+from monitor.store.registry import RecordError, aware_time, find_animal, valve_calibration
 
 # the columns an entry's hash covers, in the order they are read
 CHAINED = ("id", "animal_id", "kind", "at", "amount", "by", "text", "recorded_at", "replaces", "action", "reason",
@@ -49,16 +49,6 @@ def _animal_id(conn: sqlite3.Connection, animal: str) -> int:
     if known is None:
         raise RecordError(f"animal: no animal {animal!r} in the database")
     return known.id
-
-
-def _at(text: str) -> datetime:
-    try:
-        moment = datetime.fromisoformat(text)
-    except (TypeError, ValueError):
-        moment = None
-    if moment is None or moment.tzinfo is None:
-        raise RecordError(f"time: expected ISO 8601 date-time with a UTC offset, got {text!r}")
-    return moment
 
 
 def _insert(conn: sqlite3.Connection, **row: object) -> int:
@@ -91,7 +81,7 @@ def verify(conn: sqlite3.Connection) -> CareChainCheck:
 
 def _add(conn: sqlite3.Connection, animal: str, kind: str, at: str, by: str, amount: float | None,
          text: str | None, concerns: list[Concern] = (), confirmed: str | None = None) -> int:
-    _at(at)
+    aware_time("time", at)
     if not by or not by.strip():
         raise RecordError("by: who did it is needed")
     return _insert(conn, animal_id=_animal_id(conn, animal), kind=kind, at=at, amount=amount, by=by, text=text,
@@ -132,7 +122,7 @@ def add_weighing(conn: sqlite3.Connection, animal: str, *, at: str, grams: float
                  confirmed: str | None = None) -> int:
     if not grams > 0:
         raise RecordError(f"grams: a weight is more than 0 g, got {grams!r}")
-    moment = _at(at)
+    moment = aware_time("time", at)
     last = None
     for when, amount in conn.execute(
             f"SELECT at, amount FROM care_log WHERE animal_id = ? AND kind = 'weight' AND {_LIVE}",
@@ -184,7 +174,7 @@ def correct_entry(conn: sqlite3.Connection, entry: int, *, by: str, reason: str,
         raise RecordError("by: who did it is needed")
     _, animal_id, kind, old_at, old_amount, old_text, _ = _replaceable(conn, entry)
     at = at or old_at
-    moment = _at(at)
+    moment = aware_time("time", at)
     amount = old_amount if amount is None else float(amount)
     text = old_text if text is None else text
     concerns: list[Concern] = []

@@ -204,7 +204,7 @@ def add_condition(conn: sqlite3.Connection, session_id: int, *, what: str, opera
         raise RecordError("what: say what was done")
     if not operator or not operator.strip():
         raise RecordError("operator: who did it is needed")
-    _aware("at", at)
+    aware_time("at", at)
     if conn.execute("SELECT 1 FROM sessions WHERE id = ?", (session_id,)).fetchone() is None:
         raise RecordError(f"session: no session {session_id}")
     cur = conn.execute("INSERT INTO conditions (session_id, what, dose, volume_ul, sham, notes, operator, at) "
@@ -232,7 +232,8 @@ def exclude_session(conn: sqlite3.Connection, session_id: int, reason: str, by: 
         raise RecordError(f"session: no session {session_id}")
 
 
-def _aware(name: str, text: str) -> datetime:
+def aware_time(name: str, text: str) -> datetime:
+    """`text` as an ISO 8601 date-time with a UTC offset; a RecordError naming `name` otherwise."""
     try:
         moment = datetime.fromisoformat(text)
     except (TypeError, ValueError):
