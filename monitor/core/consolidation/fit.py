@@ -173,7 +173,7 @@ def fit_model(
     from scipy.optimize import minimize
 
     obj = Objective(prep, variant, two_rate, cancel)
-    screened = sorted(starts, key=lambda t: obj(np.asarray(t, float)))
+    screened = sorted(starts, key=lambda t: obj(np.asarray(t, float))) if len(starts) > 1 else list(starts)
     best, best_joined = None, False
     bounds = [(-THETA_BOUND, THETA_BOUND)] * len(obj.names)
     joined: list[bool] = []

@@ -28,6 +28,7 @@ gradient of the profiled likelihood (:mod:`monitor.core.consolidation.kalman_tan
 """
 from __future__ import annotations
 
+import functools
 import math
 import os
 from dataclasses import dataclass
@@ -151,6 +152,9 @@ BLAS_ONE_THREAD = os.environ.get("OPENBLAS_NUM_THREADS") == "1"  # read by OpenB
 ONE_CORE_PRODUCT = 200_000  # multiply-adds per BLAS call, below OpenBLAS's threading threshold (4 * 65536)
 
 
+PART_COST_CELLS = 500  # one stretch's product (~4 us) in cells of the running sum (~8 ns each)
+
+
 def one_core_matmul(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """x @ y for x (R, T) and y (..., T, K), in row blocks small enough that BLAS stays on one core.
 
@@ -163,6 +167,20 @@ def one_core_matmul(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     if x.shape[0] <= rows or BLAS_ONE_THREAD:
         return x @ y
     return np.concatenate([x[i : i + rows] @ y for i in range(0, x.shape[0], rows)], axis=-2)
+
+
+def session_sums(left: np.ndarray, right: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """sum over t < L_s of left[k, t] right[t, j] for every session: (S, K, J).
+
+    One matrix product per stretch between distinct session lengths, then a cumulative
+    sum; with many distinct lengths and few products per trial, the running sum of the
+    products at every trial instead (``PART_COST_CELLS``).
+    """
+    edges, where = np.unique(lengths, return_inverse=True)
+    if len(edges) * PART_COST_CELLS > left.shape[0] * right.shape[1] * edges[-1]:
+        return np.cumsum(left.T[:, :, None] * right[:, None, :], axis=0)[np.asarray(lengths) - 1]
+    parts = [left[:, lo:hi] @ right[lo:hi] for lo, hi in zip(np.concatenate(([0], edges[:-1])), edges)]
+    return np.cumsum(np.stack(parts), 0)[where]
 
 
 def _powers(m: np.ndarray, count: int) -> np.ndarray:
@@ -187,13 +205,11 @@ def steady_response(m: np.ndarray, drive: np.ndarray) -> np.ndarray:
 
     tr, det = m[0, 0] + m[1, 1], m[0, 0] * m[1, 1] - m[0, 1] * m[1, 0]
     c1, c2 = drive[0], drive[1]
-    shape = c1.shape[:-1] + (c1.shape[-1] + 1,)
-    w1, w2 = np.zeros(shape), np.zeros(shape)
-    w1[..., 1:] = c1
-    w2[..., 1:] = c2
-    w1[..., 2:] += -m[1, 1] * c1[..., :-1] + m[0, 1] * c2[..., :-1]
-    w2[..., 2:] += m[1, 0] * c1[..., :-1] - m[0, 0] * c2[..., :-1]
-    return lfilter([1.0], [1.0, -tr, det], np.stack([w1, w2]), axis=-1)
+    w = np.zeros(drive.shape[:-1] + (drive.shape[-1] + 1,))
+    w[..., 1:] = drive
+    w[0, ..., 2:] += -m[1, 1] * c1[..., :-1] + m[0, 1] * c2[..., :-1]
+    w[1, ..., 2:] += m[1, 0] * c1[..., :-1] - m[0, 0] * c2[..., :-1]
+    return lfilter([1.0], [1.0, -tr, det], w, axis=-1)
 
 
 def _covariance_chain(
@@ -254,6 +270,13 @@ def _mean_chain(breaks: np.ndarray, trans: np.ndarray, const: np.ndarray, init_m
     return np.moveaxis(chain_solve(breaks[1:] @ trans[:-1], rhs), 2, 1)
 
 
+@functools.cache
+def _square_index(size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Row and column of every entry of a size x size matrix."""
+    rows, cols = np.indices((size, size)).reshape(2, -1)
+    return rows, cols
+
+
 def chain_solve(step: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     """Solve x[0] = rhs[0], x[k+1] = step[k] x[k] + rhs[k+1] for all k; step (S-1, n, n), rhs (S, n, C).
 
@@ -266,10 +289,12 @@ def chain_solve(step: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     n_sess, size, n_cols = rhs.shape
     if n_sess == 1:
         return rhs.copy()
-    band = np.zeros((2 * size, size * n_sess))  # band[i - j, j] = matrix[i, j]; the unit diagonal is implied
-    rows, cols = np.indices((size, size))
-    for i, j in zip(rows.ravel(), cols.ravel()):  # entry (i, j) of step[k] sits at (n(k+1) + i, nk + j)
-        band[size + i - j, j : size * (n_sess - 1) : size] = -step[:, i, j]
+    # band[i - j, j] = matrix[i, j], the unit diagonal implied; entry (i, j) of step[k] sits at
+    # (n(k+1) + i, nk + j), so at band row n + i - j, column nk + j
+    band = np.zeros((2 * size, n_sess, size))
+    rows, cols = _square_index(size)
+    band[size + rows - cols, :-1, cols] = -step[:, rows, cols].T
+    band = band.reshape(2 * size, size * n_sess)
     solved, info = dtbtrs(band, rhs.reshape(size * n_sess, n_cols), uplo="L", diag="U")
     if info != 0:
         raise np.linalg.LinAlgError(f"dtbtrs failed (info {info})")
@@ -404,7 +429,7 @@ def kalman_filter(
 
     # sums over each session's trials (divided by s) of products of the shared sequences
     basis = np.concatenate([eff_a.T, h_m, o_tilde], axis=1)  # (T, E + 4)
-    at_end = np.cumsum(basis[:, :, None] * basis[:, None, :], axis=0)[lengths - 1] / s_inf
+    at_end = session_sums(basis.T, basis, lengths) / s_inf
     ee, eh, eo = at_end[:, :n_eff, :n_eff], at_end[:, :n_eff, n_eff : n_eff + 2], at_end[:, :n_eff, n_eff + 2 :]
     hh, oh, oo = at_end[:, n_eff : n_eff + 2, n_eff : n_eff + 2], at_end[:, n_eff + 2 :, n_eff : n_eff + 2], \
         at_end[:, n_eff + 2 :, n_eff + 2 :]

@@ -30,6 +30,7 @@ from monitor.core.consolidation.kalman import (
     StateSpace,
     chain_solve,
     one_core_matmul,
+    session_sums,
     steady_response,
 )
 
@@ -64,8 +65,9 @@ def _congruence(a: np.ndarray, x: np.ndarray) -> np.ndarray:
 
 
 def _first(x: np.ndarray) -> np.ndarray:
-    """(N, 2, 2) -> (2, 2, N) (or (N, 2) -> (2, N))."""
-    return np.ascontiguousarray(np.moveaxis(x, 0, -1) if x.ndim == 2 else np.moveaxis(x, (-2, -1), (0, 1)))
+    """(..., 2, 2) -> (2, 2, ...) (or (N, 2) -> (2, N))."""
+    axes = (1, 0) if x.ndim == 2 else (x.ndim - 2, x.ndim - 1, *range(x.ndim - 2))
+    return np.ascontiguousarray(x.transpose(axes))
 
 
 def _trace_det(mat: np.ndarray, dmat: np.ndarray) -> tuple[float, float, np.ndarray, np.ndarray]:
@@ -133,16 +135,6 @@ def _filter_coef_tangent(h: np.ndarray, m: np.ndarray, dm: np.ndarray, vec: np.n
     return np.stack([h @ dvec, h @ (np.einsum("abp,b->ap", dadj0, vec) + adj0 @ dvec)], -1)
 
 
-def _session_sums(left: np.ndarray, right: np.ndarray, lengths: np.ndarray) -> np.ndarray:
-    """sum over t < L_s of left[k, t] right[t, j] for every session: (S, K, J).
-
-    One matrix product per stretch between distinct session lengths, then a cumulative sum.
-    """
-    edges, where = np.unique(lengths, return_inverse=True)
-    parts = [left[:, lo:hi] @ right[lo:hi] for lo, hi in zip(np.r_[0, edges[:-1]], edges)]
-    return np.cumsum(np.stack(parts), 0)[where]
-
-
 def profile_gradient(
     model: StateSpace, layout: Layout, padded: Padded, out: FilterOutput, prof: Profiled, tangents: Tangents
 ) -> np.ndarray:
@@ -159,14 +151,15 @@ def profile_gradient(
     df, db = _first(tangents.transition), _first(tangents.input_gain)  # (2, 2, P), (2, P)
     lengths = layout.lengths.astype(np.intp)
     n_sess, t_max, n = len(lengths), len(wk.h_m), out.n_obs
-    v = np.r_[1.0, prof.coef]
+    v = np.concatenate(([1.0], prof.coef))
     s, k, m, gain, p_inf = wk.s_inf, wk.k_inf, wk.m, wk.gain, wk.p_inf
 
     # steady covariance: dP = M dP M' + dF Pf F' + F Pf dF' + dQ (a Stein equation), Pf = (I - k h') P
     pf = p_inf - np.outer(k, h @ p_inf)
     rhs = _mm(_mm(df, pf), f.T)
     rhs = rhs + rhs.swapaxes(0, 1) + _first(tangents.state_cov)
-    dp_inf = np.linalg.solve(np.eye(4) - np.kron(m, m), rhs.reshape(4, n_dir)).reshape(2, 2, n_dir)
+    stein = np.eye(4) - (m[:, None, :, None] * m[None, :, None, :]).reshape(4, 4)  # I - kron(M, M)
+    dp_inf = np.linalg.solve(stein, rhs.reshape(4, n_dir)).reshape(2, 2, n_dir)
     dph = np.einsum("abp,b->ap", dp_inf, h)
     ds = h @ dph
     dk = (dph - np.outer(k, ds)) / s
@@ -193,7 +186,7 @@ def profile_gradient(
     to_combined = np.zeros((len(prof.coef) + 4, 5))  # [effects, H M^t, O~] -> [coef . effects, H M^t, O~]
     to_combined[: len(prof.coef), 0], to_combined[len(prof.coef) :, 1:] = prof.coef, np.eye(4)
     sums = np.moveaxis(to_combined.T @ wk.shared_sums @ to_combined, 0, -1)  # (5, 5, S); einsum did it 10x slower
-    dsums = _session_sums(dbasis.reshape(5 * n_dir, t_max), basis, lengths).reshape(n_sess, 5, n_dir, 5)
+    dsums = session_sums(dbasis.reshape(5 * n_dir, t_max), basis, lengths).reshape(n_sess, 5, n_dir, 5)
     dsums = np.transpose(dsums, (1, 3, 2, 0))
     dsums = (dsums + dsums.swapaxes(0, 1)) / s - sums[:, :, None] * (ds / s)[:, None]  # (5, 5, P, S)
 

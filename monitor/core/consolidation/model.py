@@ -17,6 +17,7 @@ dropped and their breaks merged into the next session's break.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -184,24 +185,24 @@ def _running_mean(y: np.ndarray) -> np.ndarray:
 def to_natural(theta: np.ndarray, names: tuple[str, ...]) -> dict[str, float]:
     """Unbounded values -> parameters in their ranges (logistic, on a log scale where marked)."""
     out = {}
-    for value, name in zip(np.asarray(theta, float), names):
+    for value, name in zip(np.asarray(theta, float).tolist(), names):
         low, high, log = RANGES[name]
-        frac = 1.0 / (1.0 + np.exp(-value))
-        value = np.exp(np.log(low) + frac * (np.log(high) - np.log(low))) if log else low + frac * (high - low)
-        out[name] = float(min(max(value, low), high))
+        frac = 1.0 / (1.0 + math.exp(-value))
+        value = math.exp(math.log(low) + frac * (math.log(high) - math.log(low))) if log else low + frac * (high - low)
+        out[name] = min(max(value, low), high)
     return out
 
 
 def natural_slopes(theta: np.ndarray, names: tuple[str, ...]) -> np.ndarray:
     """d(parameter)/d(theta) of :func:`to_natural`, per parameter."""
     out = []
-    for value, name in zip(np.asarray(theta, float), names):
+    for value, name in zip(np.asarray(theta, float).tolist(), names):
         low, high, log = RANGES[name]
-        frac = 1.0 / (1.0 + np.exp(-value))
+        frac = 1.0 / (1.0 + math.exp(-value))
         slope = frac * (1.0 - frac)
         if log:
-            natural = np.exp(np.log(low) + frac * (np.log(high) - np.log(low)))
-            out.append(natural * slope * (np.log(high) - np.log(low)))
+            natural = math.exp(math.log(low) + frac * (math.log(high) - math.log(low)))
+            out.append(natural * slope * (math.log(high) - math.log(low)))
         else:
             out.append(slope * (high - low))
     return np.array(out)
