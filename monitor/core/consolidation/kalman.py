@@ -169,6 +169,13 @@ def one_core_matmul(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.concatenate([x[i : i + rows] @ y for i in range(0, x.shape[0], rows)], axis=-2)
 
 
+@functools.lru_cache(maxsize=64)
+def _distinct_lengths(lengths: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct session lengths, sorted, and each session's place among them (a fit asks again and
+    again for the same layout)."""
+    return np.unique(np.frombuffer(lengths, np.intp), return_inverse=True)
+
+
 def session_sums(left: np.ndarray, right: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     """sum over t < L_s of left[k, t] right[t, j] for every session: (S, K, J).
 
@@ -176,7 +183,7 @@ def session_sums(left: np.ndarray, right: np.ndarray, lengths: np.ndarray) -> np
     sum; with many distinct lengths and few products per trial, the running sum of the
     products at every trial instead (``PART_COST_CELLS``).
     """
-    edges, where = np.unique(lengths, return_inverse=True)
+    edges, where = _distinct_lengths(np.asarray(lengths, np.intp).tobytes())
     if len(edges) * PART_COST_CELLS > left.shape[0] * right.shape[1] * edges[-1]:
         return np.cumsum(left.T[:, :, None] * right[:, None, :], axis=0)[np.asarray(lengths) - 1]
     parts = [left[:, lo:hi] @ right[lo:hi] for lo, hi in zip(np.concatenate(([0], edges[:-1])), edges)]
