@@ -29,6 +29,7 @@ import math
 import multiprocessing
 import os
 import queue as queue_module
+import signal
 import sqlite3
 from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
@@ -177,7 +178,9 @@ def worker_count(animals: int, workers: int | None = None) -> int:
 
 def _child(db_path: str, tasks: Any, out: Any, cancel: Any) -> None:
     """A child process: refit the animals it takes from `tasks` (None: no more), reporting
-    ("progress"|"done"|"failed", animal, ...) on `out`."""
+    ("progress"|"done"|"failed", animal, ...) on `out`. Ctrl-C is the parent's to handle (it passes cancel on):
+    a terminal sends it to every process of its group, and a fit stopped by it here would only print a traceback."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     while True:
         animal = tasks.get()
         if animal is None or cancel.is_set():

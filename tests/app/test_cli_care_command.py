@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import csv
+import errno
+import os
 import shutil
 from datetime import datetime
 from pathlib import Path
@@ -11,6 +13,7 @@ import pytest
 
 from monitor.app import cli
 from monitor.app.commands import care
+from fixtures.disks import FullDisk
 from fixtures.protocols import protocol_toml
 from fixtures.stores import imported_store, rewarded_session
 
@@ -98,3 +101,14 @@ def test_the_default_settings_file_sets_the_thresholds(tmp_path, capsys, db, mon
     (config / "settings.toml").write_text("[care]\n\nweight_limit_percent = 90\n")   # above the warning level
     code, _, err = rigside_care(capsys, "sheet", "--db", db)
     assert code == 2 and f"--settings: {config / 'settings.toml'}:3" in err and "weight_limit_percent" in err
+
+
+def test_a_care_sheet_that_cannot_be_finished_leaves_the_last_one_whole(tmp_path, capsys, db, monkeypatch):
+    assert rigside_care(capsys, "baseline", "--db", db, "--animal", "heron", "--grams", "25.0")[0] == 0
+    sheet = tmp_path / "sheet.csv"
+    assert rigside_care(capsys, "sheet", "--db", db, "--csv", sheet)[0] == 0
+    before = sheet.read_bytes()
+    monkeypatch.setattr(csv, "writer", FullDisk)
+    code, _, err = rigside_care(capsys, "sheet", "--db", db, "--csv", sheet)
+    assert code == 2 and "--csv" in err and os.strerror(errno.ENOSPC) in err
+    assert sheet.read_bytes() == before and list(tmp_path.glob("*.part")) == []

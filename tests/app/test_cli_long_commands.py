@@ -52,13 +52,18 @@ def run(capsys, monkeypatch, stderr: io.StringIO, *args) -> tuple[int, str, str]
     return code, capsys.readouterr().out, stderr.getvalue()
 
 
-def rigside(*args) -> subprocess.Popen:
+def rigside(*args, own_group: bool = False) -> subprocess.Popen:
+    """The command in a child process; with `own_group` in a process group of its own, as a terminal starts a
+    command (a terminal's Ctrl-C reaches every process of the group: the command's worker processes too)."""
     return subprocess.Popen([sys.executable, "-m", "monitor.app", *map(str, args)], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, env={**os.environ, "PYTHONUNBUFFERED": "1"})
+                            stderr=subprocess.PIPE, text=True, env={**os.environ, "PYTHONUNBUFFERED": "1"},
+                            start_new_session=own_group)
 
 
-def interrupt_after_line(process: subprocess.Popen, start: str) -> tuple[list[str], str, str]:
-    """SIGINT as soon as a stderr line starting with `start` appears; the lines read before, out and err."""
+def interrupt_after_line(process: subprocess.Popen, start: str,
+                         whole_group: bool = False) -> tuple[list[str], str, str]:
+    """SIGINT (to the process, or to its whole group as a terminal's Ctrl-C) as soon as a stderr line starting
+    with `start` appears; the lines read before, out and err."""
     seen = []
     while True:
         line = process.stderr.readline()
@@ -66,7 +71,10 @@ def interrupt_after_line(process: subprocess.Popen, start: str) -> tuple[list[st
         seen.append(line)
         if line.startswith(start):
             break
-    process.send_signal(signal.SIGINT)
+    if whole_group:
+        os.killpg(process.pid, signal.SIGINT)
+    else:
+        process.send_signal(signal.SIGINT)
     err = process.stderr.read()  # through the same reader: lines it has buffered already are kept
     out = process.stdout.read()
     process.wait(timeout=120)
@@ -208,10 +216,11 @@ def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
     history, _ = cohort_store
     files = sorted(history.glob("alder_s*.rsw"))
     db = tmp_path / "store.sqlite3"
-    process = rigside("import", *files, "--protocol", history / "alder.protocol.toml", "--db", db)
-    seen, out, err = interrupt_after_line(process, "fitting the consolidation model")
+    process = rigside("import", *files, "--protocol", history / "alder.protocol.toml", "--db", db, own_group=True)
+    seen, out, err = interrupt_after_line(process, "fitting the consolidation model", whole_group=True)
     assert process.returncode == SIGINT_EXIT, err
     assert out.startswith(f"imported {len(files)} files") and "interrupted while fitting: 0 of 1 animals fitted" in err
+    assert "Traceback" not in err and "KeyboardInterrupt" not in err   # the fit's process left Ctrl-C to the command
     assert count(db, "sessions") == len(files)
 
 

@@ -4,8 +4,10 @@ one-line errors, and the store's faults (corrupt or newer file, a lock held by a
 from __future__ import annotations
 
 import csv
+import errno
 import hashlib
 import json
+import os
 import sqlite3
 import subprocess
 import sys
@@ -16,6 +18,7 @@ import pytest
 from monitor.store.db import open_store
 from fixtures.devices import run_child as cli
 from fixtures.devices import run_main as run_cli
+from fixtures.disks import FullDisk
 
 pytestmark = pytest.mark.slow  # subprocesses and a simulated history: seconds per test
 
@@ -178,6 +181,12 @@ def test_decide_records_figures_and_verdict_and_log_verifies(tmp_path, capsys, m
     with open(log_csv, newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert [(r["seq"], r["decision"], r["corrects"]) for r in rows] == [("1", "eligible", ""), ("2", "deferred", "1")]
+    before = log_csv.read_bytes()
+    with pytest.MonkeyPatch.context() as patch:   # the disk fills up after the header (ENOSPC)
+        patch.setattr(csv, "writer", FullDisk)
+        code, _, err = run_cli(capsys, "log", "export", "--db", db, "--csv", log_csv)
+    assert code == 2 and os.strerror(errno.ENOSPC) in err
+    assert log_csv.read_bytes() == before and list(tmp_path.glob("*.part")) == []   # the last export stays whole
 
 
 def test_corrupt_or_newer_database_is_refused_and_left_untouched(tmp_path, capsys, mock_history):

@@ -9,7 +9,11 @@ search reaches on the same data, and be saved as current.
 
 from __future__ import annotations
 
+import os
+import signal
 import sqlite3
+import subprocess
+import sys
 
 import pytest
 
@@ -73,3 +77,34 @@ def test_a_cohort_is_fitted_by_one_process_per_core_and_each_fit_is_saved(tmp_pa
             assert results[name] is not None
             assert latest_fit(conn, name)["block"]["status"] == results[name]["status"]
             assert cached_block(conn, name, None)["current"]
+
+
+PARENT_OF_FITS = """
+import signal, sys
+from monitor.store.consolidation_fits import refit_in_process
+asked = []
+signal.signal(signal.SIGINT, lambda *_: asked.append(1))   # the parent decides what Ctrl-C means: stop the fits
+started = []
+def progress(animal, fraction, message):
+    if not started:
+        started.append(1)
+        print("fitting", flush=True)
+results = refit_in_process(sys.argv[1], sys.argv[2:], progress=progress, cancel=lambda: bool(asked), workers=2)
+print("stopped" if asked else "finished", sum(r is not None for r in results.values()), flush=True)
+"""
+
+
+@pytest.mark.skipif(not hasattr(os, "killpg"), reason="sends a POSIX SIGINT to a process group, as a terminal does")
+def test_a_terminals_ctrl_c_reaches_the_fits_processes_and_they_leave_it_to_their_parent(tmp_path):
+    cohort = prepare_demo(tmp_path / "history", stages=(STAGES[1][:2] + (6,), STAGES[2][:2] + (6,)))
+    db = tmp_path / "cohort.sqlite3"
+    for demo in cohort:
+        import_sessions(db, demo, demo.session_files)
+    # a process group of its own, as a terminal starts a command: Ctrl-C goes to every process in it
+    parent = subprocess.Popen([sys.executable, "-c", PARENT_OF_FITS, str(db), *[d.animal.name for d in cohort]],
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True)
+    assert parent.stdout.readline().strip() == "fitting"
+    os.killpg(parent.pid, signal.SIGINT)
+    out, err = parent.communicate(timeout=120)   # the rest, through the same readers
+    assert parent.returncode == 0, err
+    assert out.split()[0] in ("stopped", "finished") and "Traceback" not in err and "KeyboardInterrupt" not in err

@@ -51,7 +51,7 @@ def _heads(values: list[str]):
 
 
 def run(args: argparse.Namespace) -> int:
-    from monitor.store.csv_export import safe_cell
+    from monitor.store.csv_export import atomic_file, safe_cell
     from monitor.app.commands.report import open_readonly
     from monitor.core.eligibility.decision_log import DECISION_CSV_COLUMNS
     from monitor.store.care_log import verify as care_chain
@@ -85,7 +85,7 @@ def run(args: argparse.Namespace) -> int:
     finally:
         conn.close()
     try:
-        with open(args.csv, "w", newline="", encoding="utf-8") as out:
+        with atomic_file(args.csv) as out:  # Ctrl-C or a full disk leaves no partial file
             writer = csv.writer(out)
             writer.writerow(DECISION_CSV_COLUMNS)
             for row in rows:

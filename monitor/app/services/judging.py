@@ -156,9 +156,9 @@ def care_line(s: DaySummary) -> str:
 
 def write_care_csv(path: Path, summaries: Sequence[DaySummary]) -> None:
     """The care sheet as CSV (CARE_SHEET_COLUMNS; cells that a spreadsheet would run are made safe)."""
-    from monitor.store.csv_export import safe_cell
+    from monitor.store.csv_export import atomic_file, safe_cell
 
-    with open(path, "w", newline="", encoding="utf-8") as out:
+    with atomic_file(Path(path)) as out:  # an interrupted write leaves no partial sheet
         writer = csv.writer(out)
         writer.writerow(CARE_SHEET_COLUMNS)
         for s in summaries:
