@@ -42,12 +42,13 @@ def resolve_lab(given: str | None, settings: Path | None = None) -> str:
 
 
 def lab_call(work: Callable[[], T]) -> T:
-    """`work()`, with an unreachable or failing lab as a Fault and other lab faults as a UsageError naming --lab."""
-    from monitor.store.lab_schema import LabError, LabUnreachable
+    """`work()`, with an unreachable, busy or failing lab as a Fault (exit 1: nothing lost, try later) and other
+    lab faults as a UsageError naming --lab."""
+    from monitor.store.lab_schema import LabBusy, LabError, LabUnreachable
 
     try:
         return work()
-    except LabUnreachable as exc:
+    except (LabUnreachable, LabBusy) as exc:
         raise Fault(str(exc)) from None
     except LabError as exc:
         raise UsageError(f"--lab: {exc}") from None

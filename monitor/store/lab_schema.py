@@ -30,6 +30,10 @@ class LabUnreachable(LabError):
     """The lab server did not answer (or refused the connection)."""
 
 
+class LabBusy(LabError):
+    """The lab answered but cannot take this work now (another sync of the same PC holds it); try again later."""
+
+
 def shown(url: str) -> str:
     """The URL without its password, for messages."""
     parts = urlsplit(url)

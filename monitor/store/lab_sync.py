@@ -32,7 +32,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable
 
 from monitor.store.derive import TRIAL_COLUMNS
-from monitor.store.lab_schema import LabError, LabUnreachable, connect, lab_driver, require_current, shown
+from monitor.store.lab_schema import LabBusy, LabError, LabUnreachable, connect, lab_driver, require_current, shown
 
 BULK = "events"                       # its own typed table on the server
 DERIVED = "trials"                    # replaced per session with its trial build
@@ -311,7 +311,8 @@ def sync(conn: sqlite3.Connection, url: str, *, pc_name: str | None = None, chun
     """Push everything new in the local store `conn` to the lab at `url` (see the module rule).
 
     LabUnreachable when the server does not answer or the connection drops (the local store
-    records since when); SyncRefused for data the lab cannot take; LabError for a lab not set up.
+    records since when); LabBusy while another sync of this PC runs; SyncRefused for data the lab cannot
+    take; LabError for a lab not set up.
     """
     psycopg = lab_driver()
     began = time.monotonic()
@@ -344,7 +345,7 @@ def _sync(conn: sqlite3.Connection, url: str, ident: str, name: str, chunk_rows:
         require_current(pg, url)
         pc = _register_pc(pg, ident, name)
         if not pg.execute(f"SELECT pg_try_advisory_lock(%s, {_IN_THIS_LAB})", (_LOCK_SPACE, str(pc))).fetchone()[0]:
-            raise LabError(f"another sync of {name} into {shown(url)} is running; try again when it ends")
+            raise LabBusy(f"another sync of {name} into {shown(url)} is running; try again when it ends")
         pg.commit()
         result = SyncResult(name, pc)
         _place_animals(pg, pc, name, _local_animals(conn))

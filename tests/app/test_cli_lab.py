@@ -119,6 +119,24 @@ def test_a_statement_the_lab_refuses_is_one_line_and_exit_1(capsys, store, lab_u
     assert code == 1 and err.count("\n") == 1 and "duplicate key" in err, err
 
 
+def test_a_sync_while_another_sync_of_the_pc_runs_is_exit_1_and_sends_nothing(capsys, store, lab_url):
+    """Another process holding this PC's sync (its advisory lock, held here through psycopg) is a busy lab, not
+    bad input: one line, exit 1, and the next sync sends what there is."""
+    import psycopg
+
+    from monitor.store.lab_sync import _IN_THIS_LAB, _LOCK_SPACE
+
+    assert run_cli(capsys, "lab", "init", "--lab", lab_url)[0] == 0
+    assert run_cli(capsys, "sync", "--db", store, "--lab", lab_url)[0] == 0
+    with psycopg.connect(lab_url) as other:
+        pc = other.execute("SELECT id FROM pcs").fetchone()[0]
+        other.execute(f"SELECT pg_advisory_lock(%s, {_IN_THIS_LAB})", (_LOCK_SPACE, str(pc)))
+        code, _, err = run_cli(capsys, "sync", "--db", store, "--lab", lab_url)
+        assert code == 1 and err.count("\n") == 1 and "another sync" in err, err
+    code, out, err = run_cli(capsys, "sync", "--db", store, "--lab", lab_url)
+    assert code == 0 and out.startswith("synced 0 rows"), (out, err)
+
+
 def test_nwb_from_the_lab(capsys, store, lab_url, tmp_path):
     from pynwb import NWBHDF5IO  # reference: pynwb reads the files back
 

@@ -159,7 +159,7 @@ def sync_during(db: Path, url: str, name: str, other: Callable[[], object]) -> l
 def test_a_second_sync_of_the_same_pc_waits_its_turn(pcs, lab_url):
     lab_schema.upgrade(lab_url)
     seen = sync_during(pcs["pc2"], lab_url, "pc2", lambda: do_sync(pcs["pc2"], lab_url, "pc2"))
-    assert isinstance(seen[0], lab_schema.LabError) and "another sync of pc2" in str(seen[0])
+    assert isinstance(seen[0], lab_schema.LabBusy) and "another sync of pc2" in str(seen[0])
     assert do_sync(pcs["pc2"], lab_url, "pc2").total == 0
 
 
