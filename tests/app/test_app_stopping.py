@@ -120,7 +120,8 @@ def test_closing_the_terminal_stops_record_with_everything_stored(tmp_path):
         while stored(db) < 200 and time.monotonic() < deadline:
             time.sleep(0.1)
         proc.send_signal(signal.SIGHUP)              # what a closing terminal sends its programs
-        out, err = proc.communicate(timeout=60)
+        proc.wait(timeout=60)
+        out, err = proc.stdout.read(), proc.stderr.read()   # through the readers that read the first line
     finally:
         proc.kill()
     assert proc.returncode == 0, err
