@@ -48,6 +48,7 @@ JOINED = "joined a known optimum"
 POLISH_STEPS = 8  # Newton steps after a run to convergence (see polish)
 POLISH_HALVINGS = 12  # a step is halved at most this often before the polish stops
 POLISH_TOLERANCE = 1e-6  # a step shorter than this (max-norm on theta's scale) ends the polish
+CURVATURE_MOVE = 1e-3  # a polish that moved the optimum further (max-norm) takes the curvature again
 
 
 class Cancelled(Exception):
@@ -230,8 +231,8 @@ def with_curvature(prep: Prepared, fit: ModelFit, cancel: Callable[[], bool] | N
     theta, loglike = fit.theta, fit.loglike
     if np.all(np.isfinite(hess)):
         theta, value = polish(obj, fit.theta, hess)
-        if value < -loglike:
-            loglike = -value
+        loglike = max(loglike, -value)
+        if np.max(np.abs(theta - fit.theta)) > CURVATURE_MOVE:
             hess = obj.hessian(theta)  # the covariance where the fit now ends
     cov, problem = laplace_covariance(hess)
     converged = fit.converged and not problem
