@@ -103,7 +103,35 @@ def test_the_polish_ends_every_route_at_the_end_of_a_flat_ridge(t, nudge):
 
     ridge = _Ridge()
     start = ridge.at(t, nudge)
-    theta, value = polish(ridge, start, ridge.hessian(start))
+    theta, value, _ = polish(ridge, start, ridge.hessian(start))
     expected = np.append(ridge.centre - ridge.slope * THETA_BOUND, -THETA_BOUND)
     assert np.max(np.abs(theta - expected)) < 1e-6, theta - expected
     assert value == pytest.approx(ridge(expected), abs=1e-12) and value <= ridge(start)
+
+
+class _Saddle:
+    """A stand-in objective 25 x^2 - y^2 / 4 + y^4 / 4: a saddle at the origin, minima at y = +-sqrt(1/2)."""
+
+    def __call__(self, theta: np.ndarray) -> float:
+        x, y = theta
+        return float(25.0 * x**2 - 0.25 * y**2 + 0.25 * y**4)
+
+    def value_and_grad(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
+        x, y = theta
+        return self(theta), np.array([50.0 * x, -0.5 * y + y**3])
+
+    def hessian(self, theta: np.ndarray) -> np.ndarray:
+        return np.diag([50.0, -0.5 + 3.0 * theta[1] ** 2])
+
+
+def test_the_polish_leaves_a_saddle_where_a_run_stopped():
+    """A run can stop where the gradient vanishes but the curvature is negative along one direction.
+    Check value: the minima of x^2 and y^4 / 4 - y^2 / 4 in closed form (common practice)."""
+    from monitor.core.consolidation.fit import polish
+
+    saddle = _Saddle()
+    start = np.array([2e-5, 0.0])
+    theta, value, hess = polish(saddle, start, saddle.hessian(start))
+    assert abs(theta[0]) < 1e-6 and abs(abs(theta[1]) - np.sqrt(0.5)) < 1e-6, theta
+    assert value == pytest.approx(-1.0 / 16.0, abs=1e-12)
+    assert np.all(np.linalg.eigvalsh(hess) > 0)  # the curvature returned is the minimum's

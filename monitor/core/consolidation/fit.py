@@ -45,10 +45,12 @@ CURVATURE_FLOOR = 1e-2  # a flat direction still gets a variance of at most 100 
 FTOL = 1e-8  # relative change of the objective at which L-BFGS-B stops by default (about 1e-4 units here)
 JOIN_DISTANCE = 0.3  # a run this close to a known optimum is converging onto it
 JOINED = "joined a known optimum"
-POLISH_STEPS = 8  # Newton steps after a run to convergence (see polish)
+POLISH_STEPS = 8  # Newton steps of a polish with one curvature (see polish)
 POLISH_HALVINGS = 12  # a step is halved at most this often before the polish stops
 POLISH_TOLERANCE = 1e-6  # a step shorter than this (max-norm on theta's scale) ends the polish
-CURVATURE_MOVE = 1e-3  # a polish that moved the optimum further (max-norm) takes the curvature again
+POLISH_ROUNDS = 10  # at most this many times the curvature is taken again where the steps ended
+POLISH_GAIN = 1e-12  # a polish step must gain more than this, relative (evaluation noise is ~1e-15)
+CURVATURE_MOVE = 1e-3  # steps that moved the optimum further (max-norm) take the curvature again
 
 
 class Cancelled(Exception):
@@ -230,10 +232,8 @@ def with_curvature(prep: Prepared, fit: ModelFit, cancel: Callable[[], bool] | N
     hess = obj.hessian(fit.theta)
     theta, loglike = fit.theta, fit.loglike
     if np.all(np.isfinite(hess)):
-        theta, value = polish(obj, fit.theta, hess)
+        theta, value, hess = polish(obj, fit.theta, hess)
         loglike = max(loglike, -value)
-        if np.max(np.abs(theta - fit.theta)) > CURVATURE_MOVE:
-            hess = obj.hessian(theta)  # the covariance where the fit now ends
     cov, problem = laplace_covariance(hess)
     converged = fit.converged and not problem
     reason = problem or fit.reason
@@ -241,31 +241,48 @@ def with_curvature(prep: Prepared, fit: ModelFit, cancel: Callable[[], bool] | N
                     converged, reason, cov, fit.evaluations + obj.evaluations)
 
 
-def polish(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndarray, float]:
-    """Newton steps from where a run stopped, with the curvature ``hess`` found there; the point and its
-    objective.
+def polish(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndarray, float, np.ndarray]:
+    """Newton steps from where a run stopped (``hess``: the curvature there), taken again with the
+    curvature where they end until they no longer move; the point, its objective and its curvature.
 
     Along a direction with curvature below ``CURVATURE_FLOOR`` (a slow-state noise
     near zero, say) L-BFGS-B's steps, scaled by the stiff directions, gain almost
     nothing: a run stops (a step's gain below ``ftol``, or the gradient below gtol)
     anywhere on a ridge still rising by ~1e-4 units, where its route and the scipy
     release put it.  Each step here is Newton's in the curved directions and, in
-    the flat ones, goes uphill as far as the box allows, halved until the objective
-    falls; so every route ends where the ridge stops rising (often the box's end).
+    the flat ones, goes uphill (and both ways out of a saddle) as far as the box
+    allows, halved until the objective falls; so every route ends where the ridge
+    stops rising (often the box's end).
     """
+    theta = np.asarray(theta, float)
+    for _ in range(POLISH_ROUNDS):
+        polished, value = _newton_steps(obj, theta, hess)
+        moved, theta = np.max(np.abs(polished - theta)) > CURVATURE_MOVE, polished
+        if not moved:
+            break
+        hess = obj.hessian(theta)
+        if not np.all(np.isfinite(hess)):
+            break
+    return theta, value, hess
+
+
+def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndarray, float]:
+    """Up to ``POLISH_STEPS`` steps of :func:`polish` with one curvature; the point and its objective."""
     vals, vecs = np.linalg.eigh(0.5 * (hess + hess.T))
     curved, flat = vecs[:, vals >= CURVATURE_FLOOR], vecs[:, vals < CURVATURE_FLOOR]
     inverse = (curved / vals[vals >= CURVATURE_FLOOR]) @ curved.T
-    theta = np.asarray(theta, float)
+    bent = vecs[:, vals < -CURVATURE_FLOOR]  # negative curvature: rising both ways (a saddle)
     value, grad = obj.value_and_grad(theta)
     for _ in range(POLISH_STEPS):
         newton = -inverse @ grad
         uphill = -flat @ (flat.T @ grad)
+        size = np.max(np.abs(uphill), initial=0.0)
+        uphill = (uphill / size if size > 0 else uphill) + bent @ np.where(bent.T @ grad > 0, -1.0, 1.0)
         reach = _reach(theta + newton, uphill)
         for halving in range(POLISH_HALVINGS + 1):
             trial = np.clip(theta + newton + uphill * reach * 0.5 ** halving, -THETA_BOUND, THETA_BOUND)
             trial_value = obj(trial)
-            if trial_value < value:
+            if trial_value < value - POLISH_GAIN * max(abs(value), 1.0):
                 break
         else:
             break
