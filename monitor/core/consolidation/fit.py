@@ -251,8 +251,8 @@ def polish(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndar
     anywhere on a ridge still rising by ~1e-4 units, where its route and the scipy
     release put it.  Each step here is Newton's in the curved directions and, in
     the flat ones, goes uphill (and both ways out of a saddle) as far as the box
-    allows, halved until the objective falls; so every route ends where the ridge
-    stops rising (often the box's end).
+    allows, the whole step halved until the objective falls; so every route ends
+    where the ridge stops rising (often the box's end).
     """
     theta = np.asarray(theta, float)
     for _ in range(POLISH_ROUNDS):
@@ -279,8 +279,8 @@ def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[
         size = np.max(np.abs(uphill), initial=0.0)
         uphill = (uphill / size if size > 0 else uphill) + bent @ np.where(bent.T @ grad > 0, -1.0, 1.0)
         reach = _reach(theta + newton, uphill)
-        for halving in range(POLISH_HALVINGS + 1 if reach > 0 else 1):  # nothing to halve without reach
-            trial = np.clip(theta + newton + uphill * reach * 0.5 ** halving, -THETA_BOUND, THETA_BOUND)
+        for halving in range(POLISH_HALVINGS + 1):
+            trial = np.clip(theta + (newton + uphill * reach) * 0.5 ** halving, -THETA_BOUND, THETA_BOUND)
             trial_value = obj(trial)
             if trial_value < value - POLISH_GAIN * max(abs(value), 1.0):
                 break
