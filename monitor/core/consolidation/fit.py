@@ -279,6 +279,8 @@ def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[
         size = np.max(np.abs(uphill), initial=0.0)
         uphill = (uphill / size if size > 0 else uphill) + bent @ np.where(bent.T @ grad > 0, -1.0, 1.0)
         reach = _reach(theta + newton, uphill)
+        if reach == 0 and -0.5 * grad @ newton <= POLISH_GAIN * max(abs(value), 1.0):
+            break  # Newton's alone, and its model gains less than a step must
         for halving in range(POLISH_HALVINGS + 1):
             trial = np.clip(theta + (newton + uphill * reach) * 0.5 ** halving, -THETA_BOUND, THETA_BOUND)
             trial_value = obj(trial)
