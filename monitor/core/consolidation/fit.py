@@ -13,10 +13,14 @@ is "converged" when the optimiser reports success and the curvature (the
 Hessian from central differences of the exact gradient) is that of a maximum;
 otherwise the reason is kept.  Besides a central start and random ones,
 ``spread_starts`` gives a fixed, well-spread (scrambled Sobol) set over the
-box that a search screens on the cheap likelihood (its global stage).  Parameter uncertainty is the Laplace approximation N(theta_hat, H^-1)
-on the transformed scale; flat directions get a floor curvature so that their
-draws spread over the whole range (wide, never falsely narrow).  Every
-likelihood evaluation checks the cancel callback.
+box that a search screens on the cheap likelihood (its global stage).  Before
+its curvature is taken, an optimum is polished by Newton steps with that
+Hessian, its flat directions (curvature below the floor) followed uphill to
+where they stop rising, so that where a run happened to stop along them never
+decides the answer.  Parameter uncertainty is the Laplace approximation
+N(theta_hat, H^-1) on the transformed scale; flat directions get a floor
+curvature so that their draws spread over the whole range (wide, never falsely
+narrow).  Every likelihood evaluation checks the cancel callback.
 """
 from __future__ import annotations
 
@@ -41,6 +45,12 @@ CURVATURE_FLOOR = 1e-2  # a flat direction still gets a variance of at most 100 
 FTOL = 1e-8  # relative change of the objective at which L-BFGS-B stops by default (about 1e-4 units here)
 JOIN_DISTANCE = 0.3  # a run this close to a known optimum is converging onto it
 JOINED = "joined a known optimum"
+POLISH_STEPS = 8  # Newton steps of a polish with one curvature (see polish)
+POLISH_HALVINGS = 12  # a step is halved at most this often before the polish stops
+POLISH_TOLERANCE = 1e-6  # a step shorter than this (max-norm on theta's scale) ends the polish
+POLISH_ROUNDS = 10  # at most this many times the curvature is taken again where the steps ended
+POLISH_GAIN = 1e-12  # a polish step must gain more than this, relative (evaluation noise is ~1e-15)
+CURVATURE_MOVE = 1e-3  # steps that moved the optimum further (max-norm) take the curvature again
 
 
 class Cancelled(Exception):
@@ -216,13 +226,83 @@ def fit_model(
 
 
 def with_curvature(prep: Prepared, fit: ModelFit, cancel: Callable[[], bool] | None = None) -> ModelFit:
-    """The fit with its Laplace covariance; not converged when the curvature is not a maximum's."""
+    """The fit polished (see :func:`polish`) with its Laplace covariance there; not converged when the
+    curvature is not a maximum's."""
     obj = Objective(prep, fit.variant, fit.two_rate, cancel)
-    cov, problem = laplace_covariance(obj.hessian(fit.theta))
+    hess = obj.hessian(fit.theta)
+    theta, loglike = fit.theta, fit.loglike
+    if np.all(np.isfinite(hess)):
+        theta, value, hess = polish(obj, fit.theta, hess)
+        loglike = max(loglike, -value)
+    cov, problem = laplace_covariance(hess)
     converged = fit.converged and not problem
     reason = problem or fit.reason
-    return ModelFit(fit.variant, fit.two_rate, fit.theta, fit.params, fit.loglike, fit.n_params, converged,
-                    reason, cov, fit.evaluations + obj.evaluations)
+    return ModelFit(fit.variant, fit.two_rate, theta, to_natural(theta, obj.names), loglike, fit.n_params,
+                    converged, reason, cov, fit.evaluations + obj.evaluations)
+
+
+def polish(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndarray, float, np.ndarray]:
+    """Newton steps from where a run stopped (``hess``: the curvature there), taken again with the
+    curvature where they end until they no longer move; the point, its objective and its curvature.
+
+    Along a direction with curvature below ``CURVATURE_FLOOR`` (a slow-state noise
+    near zero, say) L-BFGS-B's steps, scaled by the stiff directions, gain almost
+    nothing: a run stops (a step's gain below ``ftol``, or the gradient below gtol)
+    anywhere on a ridge still rising by ~1e-4 units, where its route and the scipy
+    release put it.  Each step here is Newton's in the curved directions and, in
+    the flat ones, goes uphill (and both ways out of a saddle) as far as the box
+    allows, the whole step halved until the objective falls; so every route ends
+    where the ridge stops rising (often the box's end).
+    """
+    theta = np.asarray(theta, float)
+    for _ in range(POLISH_ROUNDS):
+        polished, value = _newton_steps(obj, theta, hess)
+        moved, theta = np.max(np.abs(polished - theta)) > CURVATURE_MOVE, polished
+        if not moved:
+            break
+        hess = obj.hessian(theta)
+        if not np.all(np.isfinite(hess)):
+            break
+    return theta, value, hess
+
+
+def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndarray, float]:
+    """Up to ``POLISH_STEPS`` steps of :func:`polish` with one curvature; the point and its objective."""
+    vals, vecs = np.linalg.eigh(0.5 * (hess + hess.T))
+    curved, flat = vecs[:, vals >= CURVATURE_FLOOR], vecs[:, vals < CURVATURE_FLOOR]
+    inverse = (curved / vals[vals >= CURVATURE_FLOOR]) @ curved.T
+    bent = vecs[:, vals < -CURVATURE_FLOOR]  # negative curvature: rising both ways (a saddle)
+    value, grad = obj.value_and_grad(theta)
+    for _ in range(POLISH_STEPS):
+        newton = -inverse @ grad
+        uphill = -flat @ (flat.T @ grad)
+        size = np.max(np.abs(uphill), initial=0.0)
+        uphill = (uphill / size if size > 0 else uphill) + bent @ np.where(bent.T @ grad > 0, -1.0, 1.0)
+        reach = _reach(theta + newton, uphill)
+        if reach == 0 and -0.5 * grad @ newton <= POLISH_GAIN * max(abs(value), 1.0):
+            break  # Newton's alone, and its model gains less than a step must
+        for halving in range(POLISH_HALVINGS + 1):
+            trial = np.clip(theta + (newton + uphill * reach) * 0.5 ** halving, -THETA_BOUND, THETA_BOUND)
+            trial_value = obj(trial)
+            if trial_value < value - POLISH_GAIN * max(abs(value), 1.0):
+                break
+        else:
+            break
+        step, theta = np.max(np.abs(trial - theta)), trial
+        value, grad = obj.value_and_grad(theta)
+        if step < POLISH_TOLERANCE:
+            break
+    return theta, value
+
+
+def _reach(theta: np.ndarray, direction: np.ndarray) -> float:
+    """How far along ``direction`` from ``theta`` the box ends (at most its width, in max-norm)."""
+    size = np.max(np.abs(direction))
+    if size == 0.0:
+        return 0.0
+    room = np.where(direction > 0, THETA_BOUND - theta, -THETA_BOUND - theta)
+    moving = np.abs(direction) > 1e-12 * size
+    return float(min(np.min(np.maximum(room[moving] / direction[moving], 0.0)), 2 * THETA_BOUND / size))
 
 
 def laplace_covariance(hess: np.ndarray) -> tuple[np.ndarray, str]:
