@@ -1,5 +1,5 @@
 """monitor.store.import_pool: when an animal's files are all stored; files parsed in order, some taken back from a
-slow worker; report entries after an import with workers."""
+slow worker; the collector's thresholds while storing; report entries after an import with workers."""
 
 from __future__ import annotations
 
@@ -83,3 +83,16 @@ def test_a_file_taken_back_that_fails_raises_at_its_turn_after_the_files_before_
             for path, _, _ in pool.parse_all(slow_in_a_worker, contents, {"pause_s": 0.5}):
                 got.append(path.name)
     assert got == [f"f{i}.rsw" for i in range(6)]
+
+
+def test_few_collections_raises_the_youngest_threshold_inside_and_restores_all_three_after_an_error():
+    import gc
+
+    from monitor.store.import_pool import FEW_COLLECTIONS, few_collections
+
+    before = gc.get_threshold()
+    with pytest.raises(RuntimeError):
+        with few_collections():
+            assert gc.get_threshold() == (FEW_COLLECTIONS, *before[1:])
+            raise RuntimeError("stop")
+    assert gc.get_threshold() == before

@@ -131,7 +131,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
 
     from monitor.app.commands.record import _read_protocol
     from monitor.store.db import StoreError, open_store
-    from monitor.store.import_pool import Finished, ImportPool, refit
+    from monitor.store.import_pool import Finished, ImportPool, few_collections, refit
     from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name, event_codes,
                                         file_digest, parse_file, rig_calibrations, store_parsed)
 
@@ -200,7 +200,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         interrupted = False
         tracker.begin(len(contents), "file", "importing")
         # fits always run in other processes; files are parsed here when one process is enough
-        with (ImportPool(workers) if workers else nullcontext(None)) as pool:
+        with few_collections(), (ImportPool(workers) if workers else nullcontext(None)) as pool:
             if pool is not None and parsers:
                 parsed_files: Iterator[Any] = pool.parse_all(parse_file, contents, options)
             else:
