@@ -4,7 +4,7 @@ Rule: the importing process stores the files in the order given, each in its
 own transaction; the workers (spawned, as many as asked, each with one BLAS
 thread, Ctrl-C ignored: the importing process handles it and cancels them)
 parse the files ahead of it (the first one in the importing process, while
-they start), at most `LOOKAHEAD_BYTES` of files at a time so memory stays
+they start, after any work of its own it was given to do meanwhile), at most `LOOKAHEAD_BYTES` of files at a time so memory stays
 bounded. Whenever the next file's result is not ready, the importing process
 parses the last file handed out that no worker has taken yet instead of
 waiting (its result, or its error, kept for that file's turn), so the two
@@ -110,9 +110,11 @@ class ImportPool:
         self._parsing = True
 
     def parse_all(self, parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]],
-                  options: dict[str, Any]) -> Iterator[Any]:
+                  options: dict[str, Any], meanwhile: Callable[[], None] | None = None) -> Iterator[Any]:
         """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller
-        (the first one here, while the workers start; later ones here too while the next is not ready)."""
+        (the first one here, while the workers start; later ones here too while the next is not ready).
+        `meanwhile` is this process's own work to do first, once the files are handed out, while the workers
+        start."""
         pending: deque[_Handed] = deque()
         state = {"submitted": 1, "ahead": 0}  # files handed out (the first is parsed here), their bytes
 
@@ -129,6 +131,8 @@ class ImportPool:
 
         try:
             top_up()
+            if meanwhile is not None:
+                meanwhile()
             for path, data in contents[:1]:
                 yield parse(path, data, **options)
             while pending:
