@@ -3,15 +3,16 @@
 Rule: the importing process stores the files in the order given, each in its
 own transaction; the workers (spawned, as many as asked, each with one BLAS
 thread, Ctrl-C ignored: the importing process handles it and cancels them)
-parse the files ahead of it (the first one in the importing process, while
-they start, after any work of its own it was given to do meanwhile), at most `LOOKAHEAD_BYTES` of files at a time so memory stays
-bounded. Whenever the next file's result is not ready, the importing process
-parses the last file handed out that no worker has taken yet instead of
-waiting (its result, or its error, kept for that file's turn), so the two
-sides share the parsing when the workers are the slower. As soon as an
-animal's last file is stored (`Finished` tells which), its consolidation
-model can be refitted in a worker (`refit_animal`, which saves its own fit in
-a short transaction), so fits run while later files are still being imported. Until every file has been handed
+parse the files ahead of it, at most `LOOKAHEAD_BYTES` of files at a time so
+memory stays bounded. While they start, the importing process does the work
+of its own it was given (`meanwhile`), then parses the first file itself.
+Whenever the next file's result is not ready, it parses the last file handed
+out that no worker has taken yet instead of waiting (its result, or its
+error, kept for that file's turn), so the two sides share the parsing when
+the workers are the slower. As soon as an animal's last file is stored
+(`Finished` tells which), its consolidation model can be refitted in a worker
+(`refit_animal`, which saves its own fit in a short transaction), so fits run
+while later files are still being imported. Until every file has been handed
 to a worker, such jobs wait, so parsing never queues behind a fit. In the
 workers, and in the importing process while it stores (`few_collections`),
 Python's cyclic garbage collector runs rarely: the records and rows are
@@ -112,9 +113,8 @@ class ImportPool:
     def parse_all(self, parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]],
                   options: dict[str, Any], meanwhile: Callable[[], None] | None = None) -> Iterator[Any]:
         """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller
-        (the first one here, while the workers start; later ones here too while the next is not ready).
-        `meanwhile` is this process's own work to do first, once the files are handed out, while the workers
-        start."""
+        (the first one here, while the workers start; later ones here too while the next is not ready);
+        `meanwhile` is this process's own work, done first, once the files are handed out."""
         pending: deque[_Handed] = deque()
         state = {"submitted": 1, "ahead": 0}  # files handed out (the first is parsed here), their bytes
 

@@ -63,8 +63,10 @@ def test_files_come_back_in_order_and_the_importing_process_parses_while_the_wor
     from monitor.store.import_pool import ImportPool
 
     contents = [(Path(f"f{i}.rsw"), f"file {i}".encode()) for i in range(8)]
+    done: list[str] = []
     with ImportPool(1) as pool:
-        out = list(pool.parse_all(slow_in_a_worker, contents, {"pause_s": 0.5}))
+        out = list(pool.parse_all(slow_in_a_worker, contents, {"pause_s": 0.5}, meanwhile=lambda: done.append("ran")))
+    assert done == ["ran"]  # the work given to do meanwhile, once
     assert [(path, upper) for path, upper, _ in out] == [(path, data.upper()) for path, data in contents]
     here = [path.name for path, _, pid in out if pid == os.getpid()]
     assert here[0] == "f0.rsw" and len(here) > 1  # the first, and later ones taken back from the slow worker
