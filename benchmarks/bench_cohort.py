@@ -10,8 +10,9 @@ import figure, which is printed beside that run and their ratio. The commands ar
 runs them (`python -m monitor.app ...` in a child process), one after another:
 import without fits (one command per protocol file, and one per animal),
 import with fits (another database), events and trials CSV, the whole
-cohort's report, and NWB when pynwb is installed. Run:
-    python benchmarks/bench_cohort.py [--quick] [--keep DIR]
+cohort's report, and NWB when pynwb is installed; with --import-only, the
+yardstick and the import without fits, a command per protocol, alone. Run:
+    python benchmarks/bench_cohort.py [--quick] [--keep DIR] [--import-only]
 """
 
 from __future__ import annotations
@@ -122,8 +123,10 @@ def export_nwb(db: Path, folder: Path, yard_s: float) -> list[tuple[str, float, 
              f"{os.getloadavg()[0]:.1f}")]
 
 
-def figures(quick: bool = False, keep: Path | None = None) -> list[tuple[str, float, str, str]]:
-    """Table lines for `python -m benchmarks`: (label, value, unit, detail)."""
+def figures(quick: bool = False, keep: Path | None = None,
+            import_only: bool = False) -> list[tuple[str, float, str, str]]:
+    """Table lines for `python -m benchmarks`: (label, value, unit, detail); with `import_only`, the yardstick
+    and the import without fits, a command per protocol."""
     animals, days = (2, 6) if quick else (8, 30)
     folder = Path(tempfile.mkdtemp(prefix="bench_cohort_")) if keep is None else keep
     folder.mkdir(parents=True, exist_ok=True)
@@ -144,7 +147,7 @@ def figures(quick: bool = False, keep: Path | None = None) -> list[tuple[str, fl
                 ("cohort import --no-fit, a command per protocol", db, False, False, " (goal <= 2)"),
                 ("cohort import --no-fit, a command per animal", folder / "each.sqlite", False, True, ""),
                 ("cohort import with fits, a command per protocol", folder / "fitted.sqlite", True, False,
-                 " (goal <= 4)")):
+                 " (goal <= 4)"))[:1 if import_only else None]:
             cpu = time.process_time()
             beside_s = yardstick(files, folder / f"yardstick-{target.stem}.sqlite")[0]  # just before: same load
             beside_cpu = time.process_time() - cpu
@@ -154,6 +157,8 @@ def figures(quick: bool = False, keep: Path | None = None) -> list[tuple[str, fl
             out.append((label, took_s, "s", f"beside the yardstick {beside_s:.2f} s run just before it: "
                                             f"{took_s / beside_s:.1f} x{goal}; {lines / took_s:,.0f} lines/s; CPU "
                                             f"{took_cpu:.2f} s in all its processes, the yardstick's {beside_cpu:.2f} s"))
+        if import_only:
+            return out
 
         with sqlite3.connect(db) as conn:
             events = conn.execute("SELECT count(*) FROM events").fetchone()[0]
@@ -172,8 +177,10 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="2 animals x 6 days instead of 8 x 30")
     parser.add_argument("--keep", type=Path, help="work in this folder and keep it (default: a temporary one)")
+    parser.add_argument("--import-only", action="store_true",
+                        help="only the yardstick and the import without fits, a command per protocol")
     args = parser.parse_args()
-    for label, value, unit, detail in figures(args.quick, args.keep):
+    for label, value, unit, detail in figures(args.quick, args.keep, args.import_only):
         print(f"{label}: {value:.2f} {unit}")
         print(f"    {detail}")
 

@@ -3,35 +3,60 @@
 Rule: the importing process stores the files in the order given, each in its
 own transaction; the workers (spawned, as many as asked, each with one BLAS
 thread, Ctrl-C ignored: the importing process handles it and cancels them)
-parse the files ahead of it (the first one in the importing process, while
-they start), at most `LOOKAHEAD_BYTES` of files at a time so memory stays
-bounded. As soon as an animal's last file is stored (`Finished`
-tells which), its consolidation model can be refitted in a worker
+parse the files ahead of it, at most `LOOKAHEAD_BYTES` of files at a time so
+memory stays bounded. While they start, the importing process does the work
+of its own it was given (`meanwhile`), then parses the first file itself.
+Whenever the next file's result is not ready, it parses the last file handed
+out that no worker has taken yet instead of waiting (its result, or its
+error, kept for that file's turn), so the two sides share the parsing when
+the workers are the slower. As soon as an animal's last file is stored
+(`Finished` tells which), its consolidation model can be refitted in a worker
 (`refit_animal`, which saves its own fit in a short transaction), so fits run
 while later files are still being imported. Until every file has been handed
-to a worker, such jobs wait, so parsing never queues behind a fit."""
+to a worker, such jobs wait, so parsing never queues behind a fit. In the
+workers, and in the importing process while it stores (`few_collections`),
+Python's cyclic garbage collector runs rarely: the records and rows are
+millions of young tuples in no cycle, and at the default threshold (a
+collection per 700 new objects, a full one now and then) collecting took
+about a tenth of each process's time."""
 
 from __future__ import annotations
 
+import gc
 import multiprocessing
 import os
 import signal
 from collections import Counter, deque
 from collections.abc import Callable, Iterable, Iterator, Sequence
+from contextlib import contextmanager
 from concurrent.futures import CancelledError, Future, ProcessPoolExecutor
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 LOOKAHEAD_BYTES = 64_000_000  # files parsed ahead of the one being stored (the parsed rows take ~10x this)
+FEW_COLLECTIONS = 1_000_000  # new objects between two collections of the youngest generation (Python's default: 700)
 
 _cancelled: Any = None  # in a worker: the pool's cancel event
 
 
 def _start_worker(cancel: Any) -> None:
-    """A worker's first step: Ctrl-C is the importing process's to handle; remember the cancel event."""
+    """A worker's first step: Ctrl-C is the importing process's to handle; remember the cancel event; collect
+    garbage rarely."""
     global _cancelled
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _cancelled = cancel
+    gc.set_threshold(FEW_COLLECTIONS, *gc.get_threshold()[1:])
+
+
+@contextmanager
+def few_collections() -> Iterator[None]:
+    """Python's cyclic garbage collector runs rarely inside (the module rule); its thresholds are restored after."""
+    old = gc.get_threshold()
+    gc.set_threshold(FEW_COLLECTIONS, *old[1:])
+    try:
+        yield
+    finally:
+        gc.set_threshold(*old)
 
 
 def refit(db: str, animal: str) -> dict[str, Any] | None:
@@ -86,35 +111,40 @@ class ImportPool:
         self._parsing = True
 
     def parse_all(self, parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]],
-                  options: dict[str, Any]) -> Iterator[Any]:
+                  options: dict[str, Any], meanwhile: Callable[[], None] | None = None) -> Iterator[Any]:
         """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller
-        (the first one here, while the workers start)."""
-        pending: deque[tuple[Future, int]] = deque()
-        files = list(contents[1:])
-        state = {"submitted": 0, "ahead": 0}
+        (the first one here, while the workers start; later ones here too while the next is not ready);
+        `meanwhile` is this process's own work, done first, once the files are handed out."""
+        pending: deque[_Handed] = deque()
+        state = {"submitted": 1, "ahead": 0}  # files handed out (the first is parsed here), their bytes
 
         def top_up() -> None:
             """Hand files to the workers up to the look-ahead bound; once all are handed out, held jobs go."""
-            while state["submitted"] < len(files) and (state["ahead"] <= LOOKAHEAD_BYTES or not pending):
-                path, data = files[state["submitted"]]
-                pending.append((self._pool.submit(parse, path, data, **options), len(data)))
+            while state["submitted"] < len(contents) and (state["ahead"] <= LOOKAHEAD_BYTES or not pending):
+                path, data = contents[state["submitted"]]
+                pending.append(_Handed(self._pool.submit(parse, path, data, **options), state["submitted"],
+                                       len(data)))
                 state["submitted"] += 1
                 state["ahead"] += len(data)
-            if state["submitted"] == len(files) and self._parsing:
+            if state["submitted"] >= len(contents) and self._parsing:
                 self.done_parsing()
 
         try:
             top_up()
+            if meanwhile is not None:
+                meanwhile()
             for path, data in contents[:1]:
                 yield parse(path, data, **options)
             while pending:
-                future, size = pending.popleft()
-                state["ahead"] -= size
+                while not pending[0].future.done() and _parse_one_here(parse, contents, options, pending):
+                    pass
+                handed = pending.popleft()
+                state["ahead"] -= handed.size
                 top_up()
-                yield future.result()
+                yield handed.future.result()
         finally:
-            for future, _ in pending:
-                future.cancel()
+            for handed in pending:
+                handed.future.cancel()
 
     def submit(self, job: Callable[..., Any], *args: Any) -> Future:
         """Run `job(*args)` in a worker once every file has been handed out for parsing."""
@@ -154,6 +184,37 @@ class ImportPool:
                 os.environ.pop(key, None)
             else:
                 os.environ[key] = value
+
+
+class _Handed(NamedTuple):
+    """A file handed out for parsing: its future, its place in the files, its size; `here` once this process
+    took it back."""
+
+    future: Future
+    index: int
+    size: int
+    here: bool = False
+
+
+def _parse_one_here(parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]], options: dict[str, Any],
+                    pending: deque[_Handed]) -> bool:
+    """Parse in this process the last file of `pending` no worker has taken (its future cancelled), keeping its
+    result or error in its place; False when the workers have taken every one."""
+    for i in range(len(pending) - 1, -1, -1):
+        handed = pending[i]
+        if handed.here:
+            continue
+        if not handed.future.cancel():
+            return False  # taken by a worker: so were the files before it (they are taken in order)
+        here: Future = Future()
+        path, data = contents[handed.index]
+        try:
+            here.set_result(parse(path, data, **options))
+        except Exception as exc:  # noqa: BLE001 - raised at the file's turn, as a worker's error would be
+            here.set_exception(exc)
+        pending[i] = _Handed(here, handed.index, handed.size, True)
+        return True
+    return False
 
 
 def _chain(source: Future, target: Future) -> None:

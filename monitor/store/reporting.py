@@ -30,6 +30,14 @@ from monitor.store.fits import cached_block
 from monitor.store.registry import animal_names, conditions_of, ensure_animal
 
 
+def load_libraries() -> None:
+    """Import what building an entry needs (numpy; scipy.special for the plateau rules, about 0.4 s), so that an
+    import loads them while its workers start rather than before its first entry."""
+    import scipy.special  # noqa: F401
+
+    import monitor.core.session.animal_report  # noqa: F401
+
+
 def report(conn: sqlite3.Connection, animal: str | None = None) -> dict[str, Any]:
     """`{"animals": [...]}` for one animal or every animal with sessions."""
     names = [animal] if animal is not None else animal_names(conn)

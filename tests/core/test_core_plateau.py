@@ -295,6 +295,36 @@ def test_hull_candidates_equal_the_literal_rule(series, origin):
         assert chosen in allowed and chosen == min(allowed)  # the first trial on a tie
 
 
+def literal_change_points(series, crit):
+    """Gallistel et al.'s search read literally, trial by trial: the first candidate on a tie (brute_candidates),
+    L from scipy.stats.binom (the reference), a change at the first |L| > crit, the search restarted from it."""
+    from scipy.stats import binom
+
+    cum = np.concatenate(([0], np.cumsum(series)))
+    found, origin, t = [], 0, 1
+    while t <= len(series):
+        r = min(brute_candidates(series[:t], origin)[-1])
+        n, k, p = cum[t] - cum[origin], cum[t] - cum[r], (t - r) / (t - origin)
+        if r > origin and t > r:
+            with np.errstate(divide="ignore"):
+                score = np.log10(binom.cdf(k, n, p)) - np.log10(binom.sf(k - 1, n, p) if k >= 1 else 1.0)
+            if abs(score) > crit:
+                found.append((r, t))
+                origin = r
+        t += 1
+    return found
+
+
+@pytest.mark.slow  # the literal search costs O(n^2)
+@pytest.mark.parametrize("seed", [1, 2])
+def test_change_points_equal_the_literal_search_across_many_restarts(seed):
+    rng = np.random.default_rng(seed)
+    rates = [0.2, 0.8, 0.3, 0.9, 0.1, 0.7, 0.4, 0.95]  # a change every 40 trials: restarts inside scoring blocks
+    series = np.concatenate([rng.random(40) < rate for rate in rates])
+    mine = [(c.trial, c.detected_at) for c in change_points(series, 1.3)]
+    assert len(mine) >= 4 and mine == literal_change_points(series, 1.3)
+
+
 @pytest.mark.parametrize("prior_var", [0.01, 0.5, 5.0, 20.0])
 @pytest.mark.parametrize("hits, total", [(50, 50), (45, 50), (0, 50), (1, 1), (0, 1)])
 @pytest.mark.parametrize("chance", [0.01, 0.5, 0.9])

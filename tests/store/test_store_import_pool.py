@@ -1,9 +1,12 @@
-"""monitor.store.import_pool: when an animal's files are all stored; report entries after an import with workers."""
+"""monitor.store.import_pool: when an animal's files are all stored; files parsed in order, some taken back from a
+slow worker; the collector's thresholds while storing; report entries after an import with workers."""
 
 from __future__ import annotations
 
 import json
+import os
 import sqlite3
+from pathlib import Path
 
 import pytest
 
@@ -51,3 +54,47 @@ def test_an_import_with_worker_processes_keeps_current_report_entries(tmp_path, 
     for animal in kept:  # the kept entry is the one built from the same rows
         assert json.loads(built[animal]) == json.loads(json.dumps(build_entry(store, animal)))
     store.close()
+
+
+@pytest.mark.slow  # starts a worker process
+def test_files_come_back_in_order_and_the_importing_process_parses_while_the_worker_is_slow():
+    from fixtures.pool_jobs import slow_in_a_worker
+
+    from monitor.store.import_pool import ImportPool
+
+    contents = [(Path(f"f{i}.rsw"), f"file {i}".encode()) for i in range(8)]
+    done: list[str] = []
+    with ImportPool(1) as pool:
+        out = list(pool.parse_all(slow_in_a_worker, contents, {"pause_s": 0.5}, meanwhile=lambda: done.append("ran")))
+    assert done == ["ran"]  # the work given to do meanwhile, once
+    assert [(path, upper) for path, upper, _ in out] == [(path, data.upper()) for path, data in contents]
+    here = [path.name for path, _, pid in out if pid == os.getpid()]
+    assert here[0] == "f0.rsw" and len(here) > 1  # the first, and later ones taken back from the slow worker
+
+
+@pytest.mark.slow  # starts a worker process
+def test_a_file_taken_back_that_fails_raises_at_its_turn_after_the_files_before_it():
+    from fixtures.pool_jobs import slow_in_a_worker
+
+    from monitor.store.import_pool import ImportPool
+
+    contents = [(Path(f"f{i}.rsw"), b"bad" if i == 6 else f"file {i}".encode()) for i in range(8)]
+    got = []
+    with pytest.raises(ValueError, match="f6.rsw"):
+        with ImportPool(1) as pool:
+            for path, _, _ in pool.parse_all(slow_in_a_worker, contents, {"pause_s": 0.5}):
+                got.append(path.name)
+    assert got == [f"f{i}.rsw" for i in range(6)]
+
+
+def test_few_collections_raises_the_youngest_threshold_inside_and_restores_all_three_after_an_error():
+    import gc
+
+    from monitor.store.import_pool import FEW_COLLECTIONS, few_collections
+
+    before = gc.get_threshold()
+    with pytest.raises(RuntimeError):
+        with few_collections():
+            assert gc.get_threshold() == (FEW_COLLECTIONS, *before[1:])
+            raise RuntimeError("stop")
+    assert gc.get_threshold() == before

@@ -12,7 +12,7 @@ core besides this one; monitor.store.import_pool) while this process stores them
 given. While another process holds the write lock the import waits up to
 `--wait` seconds instead of failing. As soon as an animal's last file is
 stored, its report entry is built once here and kept (the workers parse ahead
-meanwhile), and (unless `--no-fit`) its consolidation model is refitted in a
+meanwhile; the libraries it needs are loaded while the workers start), and (unless `--no-fit`) its consolidation model is refitted in a
 worker process (one per core, one BLAS thread each) and cached
 (monitor.store.consolidation_fits), so fits run while later files are still
 being imported; one stderr line per animal at the end.
@@ -131,7 +131,8 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
 
     from monitor.app.commands.record import _read_protocol
     from monitor.store.db import StoreError, open_store
-    from monitor.store.import_pool import Finished, ImportPool, refit
+    from monitor.store.import_pool import Finished, ImportPool, few_collections, refit
+    from monitor.store.reporting import load_libraries
     from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name, event_codes,
                                         file_digest, parse_file, rig_calibrations, store_parsed)
 
@@ -200,9 +201,10 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         interrupted = False
         tracker.begin(len(contents), "file", "importing")
         # fits always run in other processes; files are parsed here when one process is enough
-        with (ImportPool(workers) if workers else nullcontext(None)) as pool:
+        with few_collections(), (ImportPool(workers) if workers else nullcontext(None)) as pool:
             if pool is not None and parsers:
-                parsed_files: Iterator[Any] = pool.parse_all(parse_file, contents, options)
+                parsed_files: Iterator[Any] = pool.parse_all(parse_file, contents, options,
+                                                             meanwhile=load_libraries)
             else:
                 parsed_files = (parse_file(path, data, **options) for path, data in contents)
                 if pool is not None:

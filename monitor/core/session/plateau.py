@@ -110,6 +110,9 @@ def _log_odds(k: np.ndarray, n: np.ndarray, p: np.ndarray) -> np.ndarray:
     return np.where(np.isnan(value), 0.0, value)
 
 
+FIRST_BLOCK = 32  # trials scored at once after a restart of the change-point search (then doubling)
+
+
 class _RecordHull:
     """Upper and lower convex hulls of the cumulative record (n, C(n)) from an origin.
 
@@ -182,7 +185,10 @@ def change_points(outcomes: Sequence[bool] | np.ndarray, crit: float, chunk: int
     Under a constant rate the C(t) - C(r0) successes fall after r with
     probability (t - r) / (t - r0) each; L = log10(P(X <= k) / P(X >= k)) for the
     k successes seen after r. A change is accepted at the first t where
-    |L| > crit, and the search restarts from r.
+    |L| > crit, and the search restarts from r. The trials are scored in
+    blocks that start at `FIRST_BLOCK` after each restart and double up to
+    `chunk` (a change often follows soon after the last one: less is scored
+    past it); the blocks do not change the result.
     """
     x = np.asarray(outcomes, dtype=bool)
     cum_list = [0] + np.cumsum(x, dtype=np.int64).tolist()
@@ -191,8 +197,10 @@ def change_points(outcomes: Sequence[bool] | np.ndarray, crit: float, chunk: int
     found: list[ChangePoint] = []
     origin, t_next = 0, 1
     hull = _RecordHull(cum_list, origin)
+    block = min(FIRST_BLOCK, chunk)
     while t_next <= total:
-        stop = min(total, t_next + chunk - 1)
+        stop = min(total, t_next + block - 1)
+        block = min(2 * block, chunk)
         ts = np.arange(t_next, stop + 1)
         cands = np.array(hull.candidates(t_next, stop), dtype=np.int64)
         after_n = ts - cands
@@ -209,8 +217,8 @@ def change_points(outcomes: Sequence[bool] | np.ndarray, crit: float, chunk: int
         before = (cum[r] - cum[origin]) / (r - origin)
         found.append(ChangePoint(r, t, float(scores[i]), float(before), float(after_k[i] / after_n[i])))
         origin, t_next = r, t + 1
-        hull = _RecordHull(cum_list, origin)
-        hull.candidates(origin + 1, t)  # grows the hull to t
+        hull = _RecordHull(cum_list, origin)  # grows to the next block's trials as they are asked
+        block = min(FIRST_BLOCK, chunk)
     return found
 
 
