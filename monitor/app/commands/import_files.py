@@ -8,12 +8,13 @@ on stderr, so an interrupted import resumes with the same command.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived. Files are read, split, turned
 into rows and their trials derived in worker processes (`--jobs`, one per
-core besides this one; monitor.store.import_pool) while this process stores them in the order
-given. While another process holds the write lock the import waits up to
-`--wait` seconds instead of failing. As soon as an animal's last file is
-stored, its report entry is built once here and kept (the workers parse ahead
-meanwhile; the libraries it needs are loaded while the workers start), and (unless `--no-fit`) its consolidation model is refitted in a
-worker process (one per core, one BLAS thread each) and cached
+core besides this one; monitor.store.import_pool) while this process stores
+them in the order given. While another process holds the write lock the
+import waits up to `--wait` seconds instead of failing. As soon as an
+animal's last file is stored, its report entry is built once here and kept
+(the workers parse ahead meanwhile; the libraries it needs are loaded while
+the workers start), and (unless `--no-fit`) its consolidation model is
+refitted in a worker process (one per core, one BLAS thread each) and cached
 (monitor.store.consolidation_fits), so fits run while later files are still
 being imported; one stderr line per animal at the end.
 One progress line per file goes to stderr (`[3/240] alder_s03.rsw: 1
