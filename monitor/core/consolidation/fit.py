@@ -255,8 +255,9 @@ def polish(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndar
     where the ridge stops rising (often the box's end).
     """
     theta = np.asarray(theta, float)
+    value, grad = obj.value_and_grad(theta)
     for _ in range(POLISH_ROUNDS):
-        polished, value = _newton_steps(obj, theta, hess)
+        polished, value, grad = _newton_steps(obj, theta, hess, value, grad)
         moved, theta = np.max(np.abs(polished - theta)) > CURVATURE_MOVE, polished
         if not moved:
             break
@@ -266,13 +267,14 @@ def polish(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndar
     return theta, value, hess
 
 
-def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndarray, float]:
-    """Up to ``POLISH_STEPS`` steps of :func:`polish` with one curvature; the point and its objective."""
+def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray, value: float,
+                  grad: np.ndarray) -> tuple[np.ndarray, float, np.ndarray]:
+    """Up to ``POLISH_STEPS`` steps of :func:`polish` with one curvature from ``theta`` (objective ``value``,
+    gradient ``grad`` there); the point where they end, its objective and gradient."""
     vals, vecs = np.linalg.eigh(0.5 * (hess + hess.T))
     curved, flat = vecs[:, vals >= CURVATURE_FLOOR], vecs[:, vals < CURVATURE_FLOOR]
     inverse = (curved / vals[vals >= CURVATURE_FLOOR]) @ curved.T
     bent = vecs[:, vals < -CURVATURE_FLOOR]  # negative curvature: rising both ways (a saddle)
-    value, grad = obj.value_and_grad(theta)
     for _ in range(POLISH_STEPS):
         newton = -inverse @ grad
         uphill = -flat @ (flat.T @ grad)
@@ -292,7 +294,7 @@ def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[
         value, grad = obj.value_and_grad(theta)
         if step < POLISH_TOLERANCE:
             break
-    return theta, value
+    return theta, value, grad
 
 
 def _reach(theta: np.ndarray, direction: np.ndarray) -> float:
