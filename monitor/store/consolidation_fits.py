@@ -31,6 +31,7 @@ import os
 import queue as queue_module
 import signal
 import sqlite3
+import threading
 from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import Any
@@ -165,6 +166,23 @@ def _environment(values: dict[str, str]):
                 os.environ[key] = value
 
 
+@contextlib.contextmanager
+def _children_ignore_ctrl_c():
+    """Children started inside begin with Ctrl-C ignored (an ignored signal stays ignored across the
+    spawn, and Python then installs no handler of its own), so a terminal's Ctrl-C that comes while a
+    child is still starting cannot stop it mid-import with a traceback. Only the main thread may change
+    a handler: started from another thread (the window's jobs), a child ignores Ctrl-C from its first
+    step instead (`_child`). A Ctrl-C in the few milliseconds of the start itself is lost to the caller."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
 def worker_count(animals: int, workers: int | None = None) -> int:
     """Processes for `animals` fits: `workers`, else this PC's cores (the ones this process may use); at most one
     per animal, at least one."""
@@ -212,7 +230,7 @@ def refit_in_process(db_path: str | Path, animals: Iterable[str],
         tasks.put(animal)
     children = [context.Process(target=_child, args=(str(db_path), tasks, out, stop), daemon=True,
                                 name=f"consolidation fit {i + 1}") for i in range(count)]
-    with _environment(ONE_CORE):   # the spawned interpreters read it before numpy loads
+    with _environment(ONE_CORE), _children_ignore_ctrl_c():   # read by the spawned interpreters as they start
         for child in children:
             child.start()
     try:
