@@ -8,9 +8,10 @@ likelihood alone, the global stage) run ``race_iter`` steps each; then every
 variant goes on to convergence (the two-rate candidates within
 ``race_margin`` of that variant's best, the best optimum also from short and
 long break retentions), and the higher two-rate optimum wins; only its
-variant's one-rate model goes on to convergence.  Runs to convergence stop at
-a relative change of ``ftol`` per step (tight: along a flat direction every
-route then ends at the same point), raced runs at ``fit.FTOL``.  The two-rate
+variant's one-rate model goes on to convergence (raced candidates that meet an
+earlier one's end stop).  Runs stop at a relative change of ``ftol`` per step;
+the chosen optimum is then polished (``fit.polish``), so that along a flat
+direction every route ends at the same point.  The two-rate
 model counts as constraining the split only when it beats the one-rate model of the
 same variant by AIC(one) - AIC(two) >= ``aic_margin`` (10 by default: the
 one-rate model then has essentially no support), and a refit whose cached fit
@@ -40,8 +41,8 @@ from typing import Callable
 import numpy as np
 
 from monitor.core.consolidation.estimate import Forecast, forecast, slow_fractions
-from monitor.core.consolidation.fit import (JOINED, Cancelled, ModelFit, Objective, default_starts, fit_model,
-                                            spread_starts, with_curvature)
+from monitor.core.consolidation.fit import (FTOL, JOINED, Cancelled, ModelFit, Objective, default_starts,
+                                            fit_model, spread_starts, with_curvature)
 from monitor.core.consolidation.model import ONE_RATE, TWO_RATE, VARIANTS, Prepared, TrialSeries, prepare, to_theta
 from monitor.core.consolidation.words import SUPPORTED_NOTE, UNSUPPORTED_NOTE, supported
 
@@ -58,7 +59,7 @@ class Options:
     starts: int = 4
     optimise: int = 1
     max_iter: int = 150
-    ftol: float = 1e-10  # a run to convergence stops below this relative change per step (raced runs: fit.FTOL)
+    ftol: float = FTOL  # a run to convergence stops below this relative change per step (the polish goes on)
     race_iter: int = 15
     race_margin: float = 50.0
     spread: int = 32  # Sobol-spread candidates screened by the likelihood (the global stage)
@@ -242,7 +243,9 @@ def _race_two_rate(prep: Prepared, variant: str, one: ModelFit, warm: dict, opti
 
     Candidates: the cached optima, the one-rate solution with a small slow state (the nested
     model's basin, at two slow-state rates), and the best ``screened`` of a central, random and
-    Sobol-spread set ranked by the likelihood alone (the global stage).
+    Sobol-spread set ranked by the likelihood alone (the global stage).  A candidate whose run comes
+    within ``fit.JOIN_DISTANCE`` of an earlier candidate's end stops there and is dropped: it would
+    follow that one.
     """
     key = _key(variant, True)
     cached = [np.asarray(t) for t in warm.get("modes", []) if warm.get("variant") == variant]
@@ -251,9 +254,13 @@ def _race_two_rate(prep: Prepared, variant: str, one: ModelFit, warm: dict, opti
     pool = default_starts(True, options.starts, rng) + spread_starts(True, options.spread, options.seed)
     objective = Objective(prep, variant, True, cancel)
     screened = sorted(pool, key=objective)[: options.screened]
-    raced = [fit_model(prep, variant, True, [s], 1, options.race_iter, cancel, False)
-             for s in cached + embeds + screened]
-    return sorted(raced, key=lambda f: -f.loglike), objective.evaluations
+    raced: list[ModelFit] = []
+    for start in cached + embeds + screened:  # one that meets an earlier candidate's end would follow it
+        raced.append(fit_model(prep, variant, True, [start], 1, options.race_iter, cancel, False,
+                               tuple(r.theta for r in raced if r.reason != JOINED)))
+    followers = sum(r.evaluations for r in raced if r.reason == JOINED)
+    kept = [r for r in raced if r.reason != JOINED]
+    return sorted(kept, key=lambda f: -f.loglike), objective.evaluations + followers
 
 
 def _converge_two_rate(prep: Prepared, variant: str, raced: list[ModelFit], options: Options,
