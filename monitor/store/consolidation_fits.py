@@ -167,7 +167,7 @@ def _environment(values: dict[str, str]):
 
 
 @contextlib.contextmanager
-def _children_ignore_ctrl_c():
+def children_ignore_ctrl_c():
     """Children started inside begin with Ctrl-C ignored (an ignored signal stays ignored across the
     spawn, and Python then installs no handler of its own), so a terminal's Ctrl-C that comes while a
     child is still starting cannot stop it mid-import with a traceback. Only the main thread may change
@@ -230,7 +230,7 @@ def refit_in_process(db_path: str | Path, animals: Iterable[str],
         tasks.put(animal)
     children = [context.Process(target=_child, args=(str(db_path), tasks, out, stop), daemon=True,
                                 name=f"consolidation fit {i + 1}") for i in range(count)]
-    with _environment(ONE_CORE), _children_ignore_ctrl_c():   # read by the spawned interpreters as they start
+    with _environment(ONE_CORE), children_ignore_ctrl_c():   # read by the spawned interpreters as they start
         for child in children:
             child.start()
     try:

@@ -2,7 +2,8 @@
 
 Rule: the importing process stores the files in the order given, each in its
 own transaction; the workers (spawned, as many as asked, each with one BLAS
-thread, Ctrl-C ignored: the importing process handles it and cancels them)
+thread, Ctrl-C ignored from their start: the importing process handles it and
+cancels them)
 parse the files ahead of it, at most `LOOKAHEAD_BYTES` of files at a time so
 memory stays bounded. While they start, the importing process does the work
 of its own it was given (`meanwhile`), then parses the first file itself.
@@ -122,7 +123,7 @@ class ImportPool:
             """Hand files to the workers up to the look-ahead bound; once all are handed out, held jobs go."""
             while state["submitted"] < len(contents) and (state["ahead"] <= LOOKAHEAD_BYTES or not pending):
                 path, data = contents[state["submitted"]]
-                pending.append(_Handed(self._pool.submit(parse, path, data, **options), state["submitted"],
+                pending.append(_Handed(self._submit(parse, path, data, **options), state["submitted"],
                                        len(data)))
                 state["submitted"] += 1
                 state["ahead"] += len(data)
@@ -149,7 +150,7 @@ class ImportPool:
     def submit(self, job: Callable[..., Any], *args: Any) -> Future:
         """Run `job(*args)` in a worker once every file has been handed out for parsing."""
         if not self._parsing:
-            return self._pool.submit(job, *args)
+            return self._submit(job, *args)
         future: Future = Future()
         self._held.append((job, args, future))
         return future
@@ -158,7 +159,15 @@ class ImportPool:
         while self._held:
             job, args, future = self._held.popleft()
             if future.set_running_or_notify_cancel():
-                _chain(self._pool.submit(job, *args), future)
+                _chain(self._submit(job, *args), future)
+
+    def _submit(self, job: Callable[..., Any], *args: Any, **kwargs: Any) -> Future:
+        """The executor's submit, which starts a worker when none is idle: begun with Ctrl-C ignored, a worker
+        still starting (before `_start_worker`) cannot be stopped by a terminal's Ctrl-C with a traceback."""
+        from monitor.store.consolidation_fits import children_ignore_ctrl_c
+
+        with children_ignore_ctrl_c():
+            return self._pool.submit(job, *args, **kwargs)
 
     def done_parsing(self) -> None:
         """No more files to parse (a single file, or parsed here): held jobs may start."""

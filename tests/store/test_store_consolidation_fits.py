@@ -114,10 +114,10 @@ def test_a_terminals_ctrl_c_reaches_the_fits_processes_and_they_leave_it_to_thei
 @pytest.mark.skipif(not hasattr(os, "killpg"), reason="POSIX: an ignored signal stays ignored across exec")
 def test_a_fit_process_starts_with_ctrl_c_already_ignored():
     """A Ctrl-C that comes while a child is still starting (before its first step) must not stop it either."""
-    from monitor.store.consolidation_fits import _children_ignore_ctrl_c
+    from monitor.store.consolidation_fits import children_ignore_ctrl_c
 
     ask = [sys.executable, "-c", "import signal; print(signal.getsignal(signal.SIGINT) == signal.SIG_IGN)"]
-    with _children_ignore_ctrl_c():
+    with children_ignore_ctrl_c():
         started = subprocess.run(ask, capture_output=True, text=True, timeout=60)
     assert started.stdout.strip() == "True"
     assert signal.getsignal(signal.SIGINT) is signal.default_int_handler   # this process's handler is back

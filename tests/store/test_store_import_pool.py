@@ -98,3 +98,31 @@ def test_few_collections_raises_the_youngest_threshold_inside_and_restores_all_t
             assert gc.get_threshold() == (FEW_COLLECTIONS, *before[1:])
             raise RuntimeError("stop")
     assert gc.get_threshold() == before
+
+
+STARTING_WORKER = """
+import os, signal, sys
+from monitor.store.import_pool import ImportPool
+received = []
+signal.signal(signal.SIGINT, lambda *_: received.append(1))   # the importing process handles Ctrl-C itself
+with ImportPool(1) as pool:
+    pool.done_parsing()
+    started = pool.submit(os.getpid)         # spawns the worker, which is still starting when ...
+    os.killpg(os.getpgid(0), signal.SIGINT)  # ... a terminal's Ctrl-C reaches the whole group
+    print(started.result(timeout=120) != os.getpid(), bool(received))
+"""
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not hasattr(os, "killpg"), reason="POSIX process groups")
+def test_a_worker_still_starting_ignores_a_terminal_ctrl_c():
+    """Before its initializer runs a worker is an interpreter importing modules; Ctrl-C there printed a
+    traceback and broke the pool."""
+    import subprocess
+    import sys
+
+    run = subprocess.run([sys.executable, "-c", STARTING_WORKER], capture_output=True, text=True, timeout=180,
+                         start_new_session=True, cwd=Path(__file__).resolve().parents[2])
+    assert run.returncode == 0, run.stderr
+    assert run.stdout.split() == ["True", "True"]   # the job ran in the worker; the parent saw the Ctrl-C
+    assert "KeyboardInterrupt" not in run.stderr and "Traceback" not in run.stderr
