@@ -51,17 +51,31 @@ class OneLineParser(argparse.ArgumentParser):
         raise SystemExit(2)
 
 
-def build_parser() -> argparse.ArgumentParser:
+class _Version(argparse.Action):
+    """`--version`: the installed version, looked up only when asked (pip's metadata costs a start ~20 ms)."""
+
+    def __call__(self, parser: argparse.ArgumentParser, namespace: argparse.Namespace, values: object,
+                 option_string: str | None = None) -> None:
+        print(f"rigside {installed_version()}")
+        parser.exit()
+
+
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """Every command's parser; given one of the commands, only its module is imported and its arguments
+    added (the others keep their names and help for `rigside --help`): a command starts ~0.1 s sooner."""
     parser = OneLineParser(prog="rigside", description="Training monitor for operant boxes.")
-    parser.add_argument("--version", action="version", version=f"rigside {installed_version()}")
+    parser.add_argument("--version", action=_Version, nargs=0, help="show the installed version and exit")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=OneLineParser)
     for name, (module_name, help_text) in COMMANDS.items():
+        if command in COMMANDS and name != command:
+            sub.add_parser(name, help=help_text, description=help_text)
+            continue
         module = _command_module(module_name)
         if module is None:
             continue
-        command = sub.add_parser(name, help=help_text, description=help_text)
-        module.add_arguments(command)
-        command.set_defaults(_module=module)
+        parsed = sub.add_parser(name, help=help_text, description=help_text)
+        module.add_arguments(parsed)
+        parsed.set_defaults(_module=module)
     return parser
 
 
@@ -85,9 +99,8 @@ def _command_module(module_name: str):
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
-    words = list(sys.argv[1:] if argv is None else argv)
-    args = parser.parse_args(words or ["window"])  # plain `rigside` opens the window
+    words = list(sys.argv[1:] if argv is None else argv) or ["window"]  # plain `rigside` opens the window
+    args = build_parser(words[0]).parse_args(words)
     try:
         return int(args._module.run(args) or 0)
     except UsageError as exc:

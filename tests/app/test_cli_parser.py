@@ -38,6 +38,23 @@ def test_parser_builds_without_importing_qt_or_scipy():
     assert result.stdout.strip() == "[]"
 
 
+def test_a_command_imports_its_own_module_only_and_help_still_names_every_command():
+    code = ("import sys; from monitor.app.cli import build_parser; parser = build_parser('report'); "
+            "print(sorted(m.rsplit('.', 1)[1] for m in sys.modules if m.startswith('monitor.app.commands.'))); "
+            "parser.parse_args(['--help'])")
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    imported, usage = result.stdout.split("\n", 1)
+    assert imported == "['report']"
+    assert all(name in usage for name in COMMANDS)
+
+
+def test_version_names_the_installed_release():
+    from monitor.app.cli import installed_version
+
+    result = run_cli("--version")
+    assert result.returncode == 0 and result.stdout.strip() == f"rigside {installed_version()}"
+
+
 def test_bad_flag_exits_2_with_one_line(capsys):
     assert build_parser().prog == "rigside"
     with pytest.raises(SystemExit) as caught:
