@@ -54,8 +54,7 @@ class OneLineParser(argparse.ArgumentParser):
 class _Version(argparse.Action):
     """`--version`: the installed version, looked up only when asked (pip's metadata costs a start ~20 ms)."""
 
-    def __call__(self, parser: argparse.ArgumentParser, namespace: argparse.Namespace, values: object,
-                 option_string: str | None = None) -> None:
+    def __call__(self, parser: argparse.ArgumentParser, *_: object) -> None:
         print(f"rigside {installed_version()}")
         parser.exit()
 

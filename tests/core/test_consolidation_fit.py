@@ -109,6 +109,37 @@ def test_the_polish_ends_every_route_at_the_end_of_a_flat_ridge(t, nudge):
     assert value == pytest.approx(ridge(expected), abs=1e-12) and value <= ridge(start)
 
 
+class _TwoFlat:
+    """A stand-in objective 5e3 x^2 + b exp(t1) + b exp(t2): two flat directions falling towards the box's end,
+    the way two state noises near zero do."""
+
+    b = 5e-3
+
+    def __call__(self, theta: np.ndarray) -> float:
+        x, t1, t2 = theta
+        return float(5e3 * x**2 + self.b * (np.exp(t1) + np.exp(t2)))
+
+    def value_and_grad(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
+        x, t1, t2 = theta
+        return self(theta), np.array([1e4 * x, self.b * np.exp(t1), self.b * np.exp(t2)])
+
+    def hessian(self, theta: np.ndarray) -> np.ndarray:
+        return np.diag([1e4, self.b * np.exp(theta[1]), self.b * np.exp(theta[2])])
+
+
+def test_a_flat_direction_that_leans_on_a_parameter_at_its_end_still_moves_the_others():
+    """One flat parameter a hair from the box's end, another with room: the step uphill must not shrink to
+    that hair.  Check value: both exponentials fall towards -9, so the minimum in the box is x = 0 at
+    t1 = t2 = -9 (common practice)."""
+    from monitor.core.consolidation.fit import THETA_BOUND, polish
+
+    flat = _TwoFlat()
+    start = np.array([1e-4, -THETA_BOUND + 2e-7, -7.63])
+    theta, value, _ = polish(flat, start, flat.hessian(start))
+    assert np.max(np.abs(theta - [0.0, -THETA_BOUND, -THETA_BOUND])) < 1e-6, theta
+    assert value == pytest.approx(flat(np.array([0.0, -THETA_BOUND, -THETA_BOUND])), abs=1e-12)
+
+
 class _Saddle:
     """A stand-in objective 25 x^2 - y^2 / 4 + y^4 / 4: a saddle at the origin, minima at y = +-sqrt(1/2)."""
 

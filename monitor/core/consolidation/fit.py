@@ -252,7 +252,8 @@ def polish(obj: Objective, theta: np.ndarray, hess: np.ndarray) -> tuple[np.ndar
     release put it.  Each step here is Newton's in the curved directions and, in
     the flat ones, goes uphill (and both ways out of a saddle) as far as the box
     allows, the whole step halved until the objective falls; so every route ends
-    where the ridge stops rising (often the box's end).
+    where the ridge stops rising (often the box's end).  A parameter already at the
+    box's end, the objective falling outwards, is held there (``_step_parts``).
     """
     theta = np.asarray(theta, float)
     value, grad = obj.value_and_grad(theta)
@@ -271,15 +272,9 @@ def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray, value: fl
                   grad: np.ndarray) -> tuple[np.ndarray, float, np.ndarray]:
     """Up to ``POLISH_STEPS`` steps of :func:`polish` with one curvature from ``theta`` (objective ``value``,
     gradient ``grad`` there); the point where they end, its objective and gradient."""
-    vals, vecs = np.linalg.eigh(0.5 * (hess + hess.T))
-    curved, flat = vecs[:, vals >= CURVATURE_FLOOR], vecs[:, vals < CURVATURE_FLOOR]
-    inverse = (curved / vals[vals >= CURVATURE_FLOOR]) @ curved.T
-    bent = vecs[:, vals < -CURVATURE_FLOOR]  # negative curvature: rising both ways (a saddle)
+    hess = 0.5 * (hess + hess.T)
     for _ in range(POLISH_STEPS):
-        newton = -inverse @ grad
-        uphill = -flat @ (flat.T @ grad)
-        size = np.max(np.abs(uphill), initial=0.0)
-        uphill = (uphill / size if size > 0 else uphill) + bent @ np.where(bent.T @ grad > 0, -1.0, 1.0)
+        newton, uphill = _step_parts(theta, hess, grad)
         reach = _reach(theta + newton, uphill)
         if reach == 0 and -0.5 * grad @ newton <= POLISH_GAIN * max(abs(value), 1.0):
             break  # Newton's alone, and its model gains less than a step must
@@ -295,6 +290,29 @@ def _newton_steps(obj: Objective, theta: np.ndarray, hess: np.ndarray, value: fl
         if step < POLISH_TOLERANCE:
             break
     return theta, value, grad
+
+
+def _step_parts(theta: np.ndarray, hess: np.ndarray, grad: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Newton's step in the curved directions and the way uphill (max-norm 1) in the flat ones, plus both
+    ways out of a saddle along negative curvature, among the parameters not held at the box's end: one
+    within ``POLISH_TOLERANCE`` of it with the likelihood rising outwards stays there, and the directions
+    are those of the others' curvature (a flat direction that leans on a held parameter would otherwise
+    be cut short by that parameter's last hair of room)."""
+    held = (((theta <= -THETA_BOUND + POLISH_TOLERANCE) & (grad > 0))
+            | ((theta >= THETA_BOUND - POLISH_TOLERANCE) & (grad < 0)))
+    newton, uphill = np.zeros(len(theta)), np.zeros(len(theta))
+    free = ~held
+    if not free.any():
+        return newton, uphill
+    vals, vecs = np.linalg.eigh(hess[np.ix_(free, free)])
+    slope = grad[free]
+    curved, flat = vecs[:, vals >= CURVATURE_FLOOR], vecs[:, vals < CURVATURE_FLOOR]
+    bent = vecs[:, vals < -CURVATURE_FLOOR]  # negative curvature: rising both ways (a saddle)
+    newton[free] = -(curved / vals[vals >= CURVATURE_FLOOR]) @ (curved.T @ slope)
+    up = -flat @ (flat.T @ slope)
+    size = np.max(np.abs(up), initial=0.0)
+    uphill[free] = (up / size if size > 0 else up) + bent @ np.where(bent.T @ slope > 0, -1.0, 1.0)
+    return newton, uphill
 
 
 def _reach(theta: np.ndarray, direction: np.ndarray) -> float:
