@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from monitor.core.consolidation.kalman import Layout, Padded, Profiled, StateSpace, kalman_filter, pad, profile_effects
+from monitor.core.consolidation.kalman_one import one_state
 from monitor.core.consolidation.kalman_tangent import Tangents, profile_gradient
 
 VARIANTS = ("error", "outcome")
@@ -274,9 +275,12 @@ class Evaluation:
 
 def evaluate(prep: Prepared, params: dict[str, float], variant: str, two_rate: bool) -> Evaluation:
     """Exact profile log-likelihood (b0, w, r profiled) and end states."""
-    model = state_space(params, two_rate)
-    layout = layout_for(prep, params, two_rate)
-    out = kalman_filter(model, layout, prep.y, prep.inputs[variant], prep.effects, prep.padded[variant])
+    if two_rate:
+        out = kalman_filter(state_space(params, True), layout_for(prep, params, True), prep.y, prep.inputs[variant],
+                            prep.effects, prep.padded[variant])
+    else:
+        out = one_state(params["a_f"], params["b_f"], params["q_f"], prep.hours, params["tau_b"], prep.layout_lengths,
+                        prep.padded[variant], prep.effects)
     prof = profile_effects(out, profile_scale=True)
     weights = np.r_[1.0, prof.coef]
     means = np.einsum("c,csa->sa", weights, out.end_means)
@@ -284,9 +288,14 @@ def evaluate(prep: Prepared, params: dict[str, float], variant: str, two_rate: b
 
 
 def loglike_gradient(prep: Prepared, theta: np.ndarray, variant: str, two_rate: bool) -> tuple[float, np.ndarray]:
-    """Exact profile log-likelihood and its gradient with respect to the transformed parameters."""
+    """Exact profile log-likelihood and its gradient with respect to the transformed parameters (the one-rate
+    model through its scalar filter, ``kalman_one``)."""
     names = TWO_RATE if two_rate else ONE_RATE
     params = to_natural(theta, names)
+    if not two_rate:
+        _, prof, grad = one_state(params["a_f"], params["b_f"], params["q_f"], prep.hours, params["tau_b"],
+                                  prep.layout_lengths, prep.padded[variant], prep.effects, gradient=True)
+        return prof.loglike, grad * natural_slopes(theta, names)
     model, layout, padded = state_space(params, two_rate), layout_for(prep, params, two_rate), prep.padded[variant]
     out = kalman_filter(model, layout, prep.y, prep.inputs[variant], prep.effects, padded, keep_work=True)
     prof = profile_effects(out, profile_scale=True)
