@@ -15,6 +15,7 @@ from monitor.core.consolidation.kalman import (
     one_core_matmul,
     pad,
     profile_effects,
+    session_sums,
     steady_covariance,
 )
 
@@ -166,3 +167,14 @@ def test_one_core_matmul_matches_numpy():
     # numpy.matmul in one call
     np.testing.assert_allclose(one_core_matmul(x, y), x @ y, rtol=1e-12, atol=1e-12)
     np.testing.assert_allclose(one_core_matmul(x, y[0]), x @ y[0], rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("k, j, distinct", [(8, 8, 75), (35, 5, 75), (8, 8, 1), (3, 2, 4)])
+def test_session_sums_match_numpy_per_session(k, j, distinct):
+    """Both ways of summing (a product per stretch of equal length, or all products summed by stretch)."""
+    rng = np.random.default_rng(k * j + distinct)
+    lengths = rng.choice(rng.integers(250, 551, distinct), 75)
+    left, right = rng.normal(size=(k, lengths.max())), rng.normal(size=(lengths.max(), j))
+    # numpy.matmul over each session's first L_s positions
+    reference = np.stack([left[:, :length] @ right[:length] for length in lengths])
+    np.testing.assert_allclose(session_sums(left, right, lengths), reference, rtol=1e-11, atol=1e-11)
