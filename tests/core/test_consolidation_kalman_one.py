@@ -18,10 +18,10 @@ TRUTH = {"a_f": 0.95, "b_f": 0.05, "c": 1.2e-3, "slow_leak": 1e-5, "tau_b": 20.0
 THETAS = [np.array([2.0, -1.0, 0.5, -3.0]), np.array([-1.5, 1.2, -2.0, 1.0]), np.array([6.0, -4.0, 3.0, -8.0])]
 
 
-def _prep(groups: int):
+def _prep(groups: int, lengths: tuple[int, ...] = (2, 150, 1, 90, 3, 210, 40, 120)):
     """A short animal whose sessions (some of 1-3 trials: the variance never settles) fall in ``groups`` groups."""
     rng = np.random.default_rng(11)
-    lengths = np.array([2, 150, 1, 90, 3, 210, 40, 120])
+    lengths = np.array(lengths)
     sim = simulate(TRUTH, lengths, rng.choice([10.0, 22.0, 48.0, 70.0], len(lengths)), rng, warmup=-0.2)
     prep = prepare(sim.series)
     layout = Layout(prep.starts, prep.layout_lengths, np.tile(np.eye(2), (len(lengths), 1, 1)))
@@ -66,9 +66,10 @@ def test_the_steady_variance_is_the_riccati_fixed_point():
         assert p == pytest.approx(a * a * p / (p + 1.0) + q, rel=1e-13)
 
 
+@pytest.mark.parametrize("lengths", [(2, 150, 1, 90, 3, 210, 40, 120), (300,), (1, 1, 2)])
 @pytest.mark.parametrize("variant", ["error", "outcome"])
-def test_the_one_state_filter_matches_a_textbook_filter(variant):
-    prep = _prep(groups=3)
+def test_the_one_state_filter_matches_a_textbook_filter(variant, lengths):
+    prep = _prep(groups=min(3, len(lengths)), lengths=lengths)
     for theta in THETAS:
         params = to_natural(theta, ONE_RATE)
         out = _one(prep, params, variant)
