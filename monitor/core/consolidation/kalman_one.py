@@ -20,6 +20,7 @@ import numpy as np
 
 from monitor.core.consolidation.kalman import (FilterOutput, Padded, Profiled, chain_solve, one_core_matmul,
                                                profile_effects, session_sums)
+from monitor.core.consolidation.kalman_tangent import innovation_tangent_sums
 
 
 def steady_variance(a: float, q: float) -> float:
@@ -174,12 +175,9 @@ def one_state(a: float, b: float, q: float, hours: np.ndarray, tau: float, lengt
     for grp, (a_data, phis, psi) in zip(padded.groups, kept):
         tg, rows = grp.t_max, grp.rows
         lagged = np.stack([phi[:, :tg] for phi in phis] + [_first_order(m, psi[:, :tg])[:, :tg]])
-        lagged *= grp.valid  # da = -sum_j weight_j lagged_j
-        dsa[:, rows] = -2.0 * (weight @ np.einsum("jst,st->js", lagged, a_data)) / s
-        lagged_basis = one_core_matmul(lagged.reshape(-1, tg), basis3[:tg]).reshape(len(lagged), len(rows), 3)
-        a_dbasis = one_core_matmul(a_data, dbasis3[..., :tg].reshape(3 * n_dir, tg).T).reshape(len(rows), 3, n_dir)
-        da_basis[:, :, rows] = (np.transpose(a_dbasis, (1, 2, 0))
-                                - np.einsum("pj,jsi->ips", weight, lagged_basis)) / s
+        lagged *= grp.valid
+        dsa[:, rows], da_basis[:, :, rows] = innovation_tangent_sums(lagged, weight, a_data, basis3[:tg],
+                                                                     dbasis3[..., :tg], s)
         rights = [grp.y_right] if padded.u_is_minus_y else [grp.y_right, grp.u_right]
         powers = np.arange(tg)[::-1]  # the weight of x[t] at the session's end is c m^(T_g - 1 - t)
         back, dback = m_pow[powers], dm_pow[:, powers]

@@ -135,6 +135,20 @@ def _filter_coef_tangent(h: np.ndarray, m: np.ndarray, dm: np.ndarray, vec: np.n
     return np.stack([h @ dvec, h @ (np.einsum("abp,b->ap", dadj0, vec) + adj0 @ dvec)], -1)
 
 
+def innovation_tangent_sums(lagged: np.ndarray, weight: np.ndarray, a: np.ndarray, basis: np.ndarray,
+                            dbasis: np.ndarray, s: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per session, the tangents of sum a^2 / s and of sum a basis / s at a fixed s, where the innovations'
+    tangent is da = -sum_j weight[p, j] lagged[j] (``lagged`` (J, G, T) already zero past each session's
+    end, ``a`` (G, T), ``basis`` (T, B), ``dbasis`` (B, P, T)): (P, G) and (B, P, G)."""
+    n_rows, t_len = a.shape
+    n_basis, n_dir = dbasis.shape[:2]
+    d_square = -2.0 * (weight @ np.einsum("jst,st->js", lagged, a)) / s
+    lagged_basis = one_core_matmul(lagged.reshape(-1, t_len), basis).reshape(len(lagged), n_rows, n_basis)
+    a_dbasis = one_core_matmul(a, dbasis.reshape(n_basis * n_dir, t_len).T).reshape(n_rows, n_basis, n_dir)
+    d_basis = (np.transpose(a_dbasis, (1, 2, 0)) - np.einsum("pj,jsi->ips", weight, lagged_basis)) / s
+    return d_square, d_basis
+
+
 def profile_gradient(
     model: StateSpace, layout: Layout, padded: Padded, out: FilterOutput, prof: Profiled, tangents: Tangents
 ) -> np.ndarray:
@@ -207,12 +221,8 @@ def profile_gradient(
         lagged = np.zeros((2 * len(bases), len(rows), tg))  # x / den and h_psi / den at lags 1 and 2
         for i, base in enumerate(bases):
             lagged[2 * i, :, 1:], lagged[2 * i + 1, :, 2:] = base[:, : tg - 1], base[:, : tg - 2]
-        lagged *= grp.valid  # da = -sum_j weight_j lagged_j
-        dsa[:, rows] = -2.0 * (weight @ np.einsum("jst,st->js", lagged, a)) / s
-        lagged_basis = one_core_matmul(lagged.reshape(-1, tg), basis[:tg]).reshape(len(lagged), len(rows), 5)
-        a_dbasis = one_core_matmul(a, dbasis[..., :tg].reshape(5 * n_dir, tg).T).reshape(len(rows), 5, n_dir)
-        da_basis[:, :, rows] = (np.transpose(a_dbasis, (1, 2, 0))
-                                - np.einsum("pj,jsi->ips", weight, lagged_basis)) / s
+        lagged *= grp.valid
+        dsa[:, rows], da_basis[:, :, rows] = innovation_tangent_sums(lagged, weight, a, basis[:tg], dbasis[..., :tg], s)
         rights = [grp.y_right] if padded.u_is_minus_y else [grp.y_right, grp.u_right]
         for x, weights in zip(rights, end_weights):
             dpsi[:, rows] += one_core_matmul(x, weights[..., tg - 1 :: -1].reshape(2 * n_dir, tg).T).T
