@@ -84,10 +84,9 @@ def one_state(a: float, b: float, q: float, hours: np.ndarray, tau: float, lengt
         s_aa[grp.rows] = np.einsum("st,st->s", a_data, a_data) / s
         sums[grp.rows] = one_core_matmul(a_data, basis[: grp.t_max]) / s
         rights = [grp.y_right] if padded.u_is_minus_y else [grp.y_right, grp.u_right]
-        back = m_pow[grp.t_max - 1 :: -1][: grp.t_max]
-        for x, coef in zip(rights, coefs):
-            psi_end[grp.rows] += coef * (x @ back)
-        kept.append((a_data, phis, psi))
+        ends_at = [x @ m_pow[grp.t_max - 1 :: -1] for x in rights]  # x[t] weighs m^(T_g - 1 - t) at the end
+        psi_end[grp.rows] += sum(coef * at_end_x for coef, at_end_x in zip(coefs, ends_at))
+        kept.append((a_data, phis, psi, rights, ends_at))
 
     # the variance chain over sessions (data-free)
     g_l = g_end[lengths]
@@ -172,17 +171,15 @@ def one_state(a: float, b: float, q: float, hours: np.ndarray, tau: float, lengt
     weight = np.stack(dcoefs + [dm], axis=1)  # (P, J)
     a_basis = (sums @ to_combined).T  # (3, S)
     dsa, da_basis, dpsi = np.empty((n_dir, n_sess)), np.empty((3, n_dir, n_sess)), np.zeros((n_dir, n_sess))
-    for grp, (a_data, phis, psi) in zip(padded.groups, kept):
+    for grp, (a_data, phis, psi, rights, ends_at) in zip(padded.groups, kept):
         tg, rows = grp.t_max, grp.rows
         lagged = np.stack([phi[:, :tg] for phi in phis] + [_first_order(m, psi[:, :tg])[:, :tg]])
         lagged *= grp.valid
         dsa[:, rows], da_basis[:, :, rows] = innovation_tangent_sums(lagged, weight, a_data, basis3[:tg],
                                                                      dbasis3[..., :tg], s)
-        rights = [grp.y_right] if padded.u_is_minus_y else [grp.y_right, grp.u_right]
-        powers = np.arange(tg)[::-1]  # the weight of x[t] at the session's end is c m^(T_g - 1 - t)
-        back, dback = m_pow[powers], dm_pow[:, powers]
-        for x, c_x, dc_x in zip(rights, coefs, dcoefs):
-            dpsi[:, rows] += np.outer(dc_x, x @ back) + c_x * (dback @ x.T)
+        dback = dm_pow[:, tg - 1 :: -1]
+        for x, at_end_x, c_x, dc_x in zip(rights, ends_at, coefs, dcoefs):
+            dpsi[:, rows] += np.outer(dc_x, at_end_x) + c_x * (dback @ x.T)
     dsa -= s_aa * (ds / s)[:, None]
     da_basis -= a_basis[:, None] * (ds / s)[:, None]
     ah_c, ao_c = a_basis[1] + sums3[:, 0, 1], a_basis[2] + sums3[:, 0, 2]  # (S,)
