@@ -9,7 +9,9 @@ what to do, and left byte-for-byte as it was. Only then are WAL, the
 synchronous level and the migrations applied. Connections are in autocommit mode
 (`isolation_level=None`): writers say `BEGIN IMMEDIATE` themselves, readers
 never hold a snapshot open, so checkpoints can complete. Other processes
-(record, import, decide) wait for the write lock up to `busy_timeout_ms`.
+(record, import, decide) wait for the write lock up to `busy_timeout_ms`;
+processes creating a new file together all open it (the checks read one
+snapshot, the switch to WAL is retried).
 """
 
 from __future__ import annotations
@@ -68,7 +70,7 @@ def open_store(
                 raise StoreError(f"{path}: schema version {version} is older than this rigside's "
                                  f"{len(migrations)}; a recording command upgrades it")
         else:
-            conn.execute("PRAGMA journal_mode = WAL")
+            _use_wal(conn, busy_timeout_ms)
             conn.execute(f"PRAGMA synchronous = {synchronous}")
             apply_migrations(conn, migrations)
         conn.execute("PRAGMA foreign_keys = ON")
@@ -98,6 +100,24 @@ def _writable(path: Path) -> None:
                          "write (its journal lives beside it)")
 
 
+def _use_wal(conn: sqlite3.Connection, busy_timeout_ms: int) -> None:
+    """Switch the file to WAL, retrying while another process holds it.
+
+    SQLite answers a journal-mode change "database is locked" at once, without
+    its busy handler, while another connection reads the file: two processes
+    creating a new store together met that in up to one opening in six here.
+    """
+    deadline = time.monotonic() + busy_timeout_ms / 1000
+    while True:
+        try:
+            conn.execute("PRAGMA journal_mode = WAL")
+            return
+        except sqlite3.OperationalError as exc:
+            if "locked" not in str(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.005)
+
+
 def _intact(conn: sqlite3.Connection, path: Path) -> None:
     """SQLite's quick_check: a damaged page or index refuses the file (a backup restores it)."""
     try:
@@ -113,9 +133,13 @@ def _intact(conn: sqlite3.Connection, path: Path) -> None:
 def _check(conn: sqlite3.Connection, path: Path, newest: int) -> int:
     """The file's schema version, or a StoreError saying why it is not ours to change."""
     try:
-        app_id = conn.execute("PRAGMA application_id").fetchone()[0]
-        version = conn.execute("PRAGMA user_version").fetchone()[0]
-        tables = conn.execute("SELECT count(*) FROM sqlite_master").fetchone()[0]
+        conn.execute("BEGIN")  # one snapshot: another process may be creating the file meanwhile
+        try:
+            app_id = conn.execute("PRAGMA application_id").fetchone()[0]
+            version = conn.execute("PRAGMA user_version").fetchone()[0]
+            tables = conn.execute("SELECT count(*) FROM sqlite_master").fetchone()[0]
+        finally:
+            conn.execute("COMMIT")
     except sqlite3.DatabaseError as exc:
         raise StoreError(f"{path}: not a rigside database, or damaged ({exc}); the file was left unchanged") from None
     if app_id not in (0, APPLICATION_ID) or (app_id == 0 and tables):

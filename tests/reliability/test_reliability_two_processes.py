@@ -58,7 +58,12 @@ def test_two_recorders_and_a_reader_share_one_database(tmp_path, recorder, kit, 
 
     exports = 0
     try:
-        kit.wait_for(lambda: all(e.has("byte 0") for e in errs), 30, "both recorders started")
+        try:
+            kit.wait_for(lambda: all(e.has("byte 0") for e in errs) or any(p.poll() is not None for p in procs),
+                         30, "both recorders started")
+        except AssertionError as exc:
+            raise AssertionError(f"{exc}; they printed {[e.lines for e in errs]}") from None
+        assert all(p.poll() is None for p in procs), [e.text for e in errs]
         for g in growers:
             g.start()
         while not all(d.is_set() for d in done):  # a reader in a third process while both write
