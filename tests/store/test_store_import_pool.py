@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import os
 import sqlite3
+import sys
 from pathlib import Path
 
 import pytest
@@ -60,12 +61,15 @@ def test_an_import_with_worker_processes_keeps_current_report_entries(tmp_path, 
 def test_files_come_back_in_order_and_the_importing_process_parses_while_the_worker_is_slow():
     from fixtures.pool_jobs import slow_in_a_worker
 
-    from monitor.store.import_pool import ImportPool
+    from monitor.store.import_pool import HANDOFF_SWITCH_S, ImportPool
 
     contents = [(Path(f"f{i}.rsw"), f"file {i}".encode()) for i in range(8)]
     done: list[str] = []
+    before = sys.getswitchinterval()
     with ImportPool(1) as pool:
         out = list(pool.parse_all(slow_in_a_worker, contents, {"pause_s": 0.5}, meanwhile=lambda: done.append("ran")))
+        assert sys.getswitchinterval() == HANDOFF_SWITCH_S  # results are handed over promptly meanwhile
+    assert sys.getswitchinterval() == before
     assert done == ["ran"]  # the work given to do meanwhile, once
     assert [(path, upper) for path, upper, _ in out] == [(path, data.upper()) for path, data in contents]
     here = [path.name for path, _, pid in out if pid == os.getpid()]
@@ -80,6 +84,7 @@ def test_a_file_taken_back_that_fails_raises_at_its_turn_after_the_files_before_
 
     contents = [(Path(f"f{i}.rsw"), b"bad" if i == 6 else f"file {i}".encode()) for i in range(8)]
     got = []
+    before = sys.getswitchinterval()
     with pytest.raises(ValueError, match="f6.rsw"):
         with ImportPool(1) as pool:
             for path, _, _ in pool.parse_all(slow_in_a_worker, contents, {"pause_s": 0.5}):
