@@ -7,9 +7,9 @@ without an env.py straight on one psycopg connection, recorded in the table
 `lab_schema_version`; only `upgrade` changes it (`rigside lab init`).
 Readers and the sync refuse a database that is not at this rigside's head
 revision, with a one-line `LabError`. Upgrades of one schema run one at a
-time (a transaction-scoped advisory lock): a second `lab init` finds it current. A server that does not answer, or
-refuses the connection, is a `LabUnreachable` naming the URL without any
-password.
+time (a transaction-scoped advisory lock): a second `lab init` finds it
+current. A server that does not answer, or refuses the connection, is a
+`LabUnreachable` naming the URL without any password.
 """
 
 from __future__ import annotations
@@ -21,7 +21,11 @@ VERSION_TABLE = "lab_schema_version"
 HEAD = "lab_0001"  # the newest revision in lab_migrations/versions (a test checks it against Alembic's head)
 _SCRIPTS = Path(__file__).with_name("lab_migrations")
 CONNECT_TIMEOUT_S = 5
-_UPGRADE_LOCK = 0x52534433  # advisory lock namespace ("RSD3"): one schema upgrade at a time in a lab's schema
+# advisory lock namespaces: "RSD1" one PC's sync, "RSD2" the animal registry, "RSD3" a schema upgrade.
+# Advisory locks are database-wide: the second key names the lab's schema (and the thing locked), so labs
+# in schemas of one database (and a PC number 1 in each) never wait for each other
+LOCK_SYNC, LOCK_REGISTRY, LOCK_UPGRADE = 0x52534431, 0x52534432, 0x52534433
+IN_THIS_LAB = "hashtext(current_schema() || '/' || %s)"
 
 
 class LabError(Exception):
@@ -128,8 +132,7 @@ def upgrade(url: str) -> tuple[str | None, str]:
         with engine.begin() as connection:
             # two `lab init` at once: the second waits here, then finds the schema current (without the
             # lock it failed on a duplicate catalogue entry while creating the version table)
-            connection.exec_driver_sql(f"SELECT pg_advisory_xact_lock({_UPGRADE_LOCK}, "
-                                       "hashtext(current_schema()))")
+            connection.exec_driver_sql(f"SELECT pg_advisory_xact_lock(%s, {IN_THIS_LAB})", (LOCK_UPGRADE, "schema"))
             context = MigrationContext.configure(
                 connection, opts={"version_table": VERSION_TABLE, "transactional_ddl": True,
                                   "fn": lambda rev, _ctx: script._upgrade_revs("head", rev)})

@@ -32,7 +32,8 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable
 
 from monitor.store.derive import TRIAL_COLUMNS
-from monitor.store.lab_schema import LabBusy, LabError, LabUnreachable, connect, lab_driver, require_current, shown
+from monitor.store.lab_schema import (IN_THIS_LAB, LOCK_REGISTRY, LOCK_SYNC, LabBusy, LabError, LabUnreachable, connect,
+                                      lab_driver, require_current, shown)
 
 BULK = "events"                       # its own typed table on the server
 DERIVED = "trials"                    # replaced per session with its trial build
@@ -40,11 +41,6 @@ APPEND_ONLY = ("decisions", "care_log", "raw_lines", "clock_samples", "fits", "a
 LOCAL_ONLY = ("file_offsets", "lab_sync", "lab_bookmarks", "sqlite_sequence", "sqlite_stat1")
 CHUNK_ROWS = 50_000
 _EVENT_COLUMNS = ("session_id", "segment", "line", "t_us", "raw_time", "code", "value", "wall")
-_LOCK_SPACE = 0x52534431  # advisory lock namespaces ("RSD1": one PC's sync; "RSD2": the animal registry)
-_REGISTRY_SPACE = 0x52534432
-# advisory locks are database-wide: the second key names the lab's schema, so labs in schemas of one database
-# (and a PC number 1 in each) never wait for each other
-_IN_THIS_LAB = "hashtext(current_schema() || '/' || %s)"
 
 
 class SyncRefused(LabError):
@@ -175,7 +171,7 @@ def _register_pc(pg, ident: str, name: str) -> int:
 
 def _place_animals(pg, pc: int, pc_name: str, animals: dict[str, str | None]) -> None:
     """Map each local animal to a lab animal (see the module rule); SyncRefused names every conflict."""
-    pg.execute(f"SELECT pg_advisory_xact_lock(%s, {_IN_THIS_LAB})", (_REGISTRY_SPACE, "animals"))
+    pg.execute(f"SELECT pg_advisory_xact_lock(%s, {IN_THIS_LAB})", (LOCK_REGISTRY, "animals"))
     mapped = {name: (aid, lab_id) for name, aid, lab_id in pg.execute(
         "SELECT m.local_name, a.id, a.lab_id FROM pc_animals AS m JOIN animals AS a ON a.id = m.animal_id "
         "WHERE m.pc_id = %s", (pc,))}
@@ -344,7 +340,7 @@ def _sync(conn: sqlite3.Connection, url: str, ident: str, name: str, chunk_rows:
     try:
         require_current(pg, url)
         pc = _register_pc(pg, ident, name)
-        if not pg.execute(f"SELECT pg_try_advisory_lock(%s, {_IN_THIS_LAB})", (_LOCK_SPACE, str(pc))).fetchone()[0]:
+        if not pg.execute(f"SELECT pg_try_advisory_lock(%s, {IN_THIS_LAB})", (LOCK_SYNC, str(pc))).fetchone()[0]:
             raise LabBusy(f"another sync of {name} into {shown(url)} is running; try again when it ends")
         pg.commit()
         result = SyncResult(name, pc)

@@ -124,13 +124,13 @@ def test_a_sync_while_another_sync_of_the_pc_runs_is_exit_1_and_sends_nothing(ca
     bad input: one line, exit 1, and the next sync sends what there is."""
     import psycopg
 
-    from monitor.store.lab_sync import _IN_THIS_LAB, _LOCK_SPACE
+    from monitor.store.lab_schema import IN_THIS_LAB, LOCK_SYNC
 
     assert run_cli(capsys, "lab", "init", "--lab", lab_url)[0] == 0
     assert run_cli(capsys, "sync", "--db", store, "--lab", lab_url)[0] == 0
     with psycopg.connect(lab_url) as other:
         pc = other.execute("SELECT id FROM pcs").fetchone()[0]
-        other.execute(f"SELECT pg_advisory_lock(%s, {_IN_THIS_LAB})", (_LOCK_SPACE, str(pc)))
+        other.execute(f"SELECT pg_advisory_lock(%s, {IN_THIS_LAB})", (LOCK_SYNC, str(pc)))
         code, _, err = run_cli(capsys, "sync", "--db", store, "--lab", lab_url)
         assert code == 1 and err.count("\n") == 1 and "another sync" in err, err
     code, out, err = run_cli(capsys, "sync", "--db", store, "--lab", lab_url)

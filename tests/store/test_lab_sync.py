@@ -19,6 +19,7 @@ from typing import Callable
 import psycopg
 import pytest
 
+from fixtures.races import together
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
 from monitor.store import lab_read, lab_schema, lab_sync
@@ -109,29 +110,11 @@ def test_alembic_init_creates_the_schema_once(lab_url):
         assert lab_schema.current_revision(pg) == lab_schema.head_revision()
 
 
-def _init_together(url: str, start, answers) -> None:
-    """One `lab init` of the race below, started the moment both processes are ready."""
-    start.wait()
-    try:
-        answers.put(lab_schema.upgrade(url))
-    except lab_schema.LabError as exc:
-        answers.put(str(exc))
-
-
 def test_two_inits_of_a_new_lab_at_once_both_succeed(lab_url):
     # without a lock the second one's CREATE TABLE of the version table waited for the first and then
     # failed on a duplicate catalogue entry (pg_type_typname_nsp_index): 5 of 5 tries
-    import multiprocessing
-
-    context = multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
-    start, answers = context.Barrier(2), context.Queue()
-    processes = [context.Process(target=_init_together, args=(lab_url, start, answers)) for _ in range(2)]
-    for process in processes:
-        process.start()
-    for process in processes:
-        process.join(60)
     head = lab_schema.head_revision()
-    got = [answers.get(timeout=10) for _ in processes]
+    got = together(lab_schema.upgrade, (lab_url,), 2, expected=(lab_schema.LabError,))
     assert (None, head) in got and (head, head) in got, got  # one created it, the other found it current
 
 

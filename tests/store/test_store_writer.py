@@ -15,6 +15,7 @@ from drivers.wire import WireDecoder, encode_event, encode_header
 from monitor.store import db
 from monitor.store.schema import APPLICATION_ID, MIGRATIONS, SCHEMA_VERSION, Migration
 from monitor.store.writer import HOLDING, OK, OVERFLOW, StoreWriter
+from fixtures.races import together
 from fixtures.sessions import wait_for
 
 
@@ -132,33 +133,18 @@ def test_forward_migration_keeps_data_and_a_failed_one_rolls_back(tmp_path):
         db.open_store(path)
 
 
-def _open_together(path: str, start, answers) -> None:
-    """One process of the race below: open the store the moment every process is ready."""
-    start.wait()
-    try:
-        db.open_store(path).close()
-        answers.put("opened")
-    except db.StoreError as exc:
-        answers.put(str(exc))
+def _open_and_close(path: str) -> str:
+    db.open_store(path).close()
+    return "opened"
 
 
 def test_processes_creating_one_new_store_at_once_all_open_it(tmp_path):
     # two recorders started together on a new database: SQLite refuses a journal-mode change at once
     # ("database is locked") while another connection reads the file, and a check made of three reads
     # can see the other process's first commit between them ("another program")
-    import multiprocessing
-
-    context = multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
-    answers = context.Queue()
     for attempt in range(15):
         path = str(tmp_path / f"new{attempt}.sqlite3")
-        start = context.Barrier(3)
-        processes = [context.Process(target=_open_together, args=(path, start, answers)) for _ in range(3)]
-        for process in processes:
-            process.start()
-        for process in processes:
-            process.join(60)
-        got = [answers.get(timeout=10) for _ in processes]
+        got = together(_open_and_close, (path,), 3, expected=(db.StoreError,))
         assert got == ["opened"] * 3, (attempt, got)
         assert read(Path(path), "PRAGMA user_version") == [(SCHEMA_VERSION,)]
 
