@@ -14,7 +14,8 @@ session breaks, state_intercept = B u) with a capped number of iterations
 ``python -m benchmarks``.  ``--baseline REV`` instead times only the first fit
 (median of ``--repeats``, both animals) of this tree and of the tree at git
 revision REV (extracted with ``git archive`` into a temporary folder), each in
-its own fresh process on the same data, and prints the ratio.
+its own fresh process on the same data, and prints the ratio (REV may predate
+the consolidation package: its modules are then found where they were).
 Run: python benchmarks/bench_refit.py [--baseline REV]
 
 The goal is one core: BLAS is held to one thread (``OPENBLAS_NUM_THREADS=1``
@@ -252,8 +253,12 @@ FIRST_FIT = """
 import statistics, sys, time
 import numpy as np
 import monitor
-from monitor.core.consolidation.analysis import estimate_consolidation
-from monitor.core.consolidation.model import TrialSeries
+try:
+    from monitor.core.consolidation.analysis import estimate_consolidation
+    from monitor.core.consolidation.model import TrialSeries
+except ImportError:  # revisions before the consolidation modules became a package
+    from monitor.core.consolidation import estimate_consolidation
+    from monitor.core.consolidation_model import TrialSeries
 times, lines = [], []
 for path in sys.argv[2:]:
     d = np.load(path)
