@@ -66,5 +66,15 @@ def cached_block(conn: sqlite3.Connection, animal: str, last_session: int | None
         return {"session": last_session, "estimate": 0.0, "low": 0.0, "high": 1.0, "status": NOT_FITTED,
                 "current": False}
     block = dict(fit["block"])
-    block["current"] = fit["fingerprint"] == data_fingerprint(conn, animal)
+    block["current"] = _fits_data_now(conn, animal, fit)
     return block
+
+
+def has_current_fit(conn: sqlite3.Connection, animal: str) -> bool:
+    """Whether the animal's newest fit was fitted to its data as they are now."""
+    fit = latest_fit(conn, animal)
+    return fit is not None and _fits_data_now(conn, animal, fit)
+
+
+def _fits_data_now(conn: sqlite3.Connection, animal: str, fit: Mapping[str, Any]) -> bool:
+    return fit["fingerprint"] == data_fingerprint(conn, animal)

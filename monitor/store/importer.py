@@ -88,6 +88,13 @@ def already_imported(conn: sqlite3.Connection, digest: str) -> tuple[str, float]
     return None if row is None else (row[0], row[1])
 
 
+def animals_imported_from(conn: sqlite3.Connection, digest: str) -> list[str]:
+    """The animals of the sessions stored from an earlier import of the same bytes, by name."""
+    rows = conn.execute("SELECT DISTINCT s.animal FROM sessions AS s JOIN imports AS i ON i.id = s.import_id "
+                        "WHERE i.sha256 = ? ORDER BY s.animal", (digest,))
+    return [row[0] for row in rows]
+
+
 def animal_from_file_name(path: Path) -> str | None:
     """`alder_s03.rsw` -> `alder` (mock_rig's and many labs' naming), else None."""
     match = _FILE_ANIMAL.match(path.stem)

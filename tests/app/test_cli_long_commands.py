@@ -222,6 +222,20 @@ def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
     assert out.startswith(f"imported {len(files)} files") and "interrupted while fitting: 0 of 1 animals fitted" in err
     assert "Traceback" not in err and "KeyboardInterrupt" not in err   # the fit's process left Ctrl-C to the command
     assert count(db, "sessions") == len(files)
+    assert count(db, "fits") == 0 and "the same command with --skip-imported fits the others" in err
+
+    # the command the message names: every file is skipped, and the animal whose fit was stopped is fitted
+    again = rigside("import", *files, "--protocol", history / "alder.protocol.toml", "--db", db, "--skip-imported",
+                    "--quiet")
+    out, err = again.communicate(timeout=300)
+    assert again.returncode == 0, err
+    assert out.startswith("imported 0 files") and "fit alder: slow-state fraction" in err
+    assert count(db, "fits") == 1 and count(db, "sessions") == len(files)
+    # once the fit is current, the same command fits nothing more
+    third = rigside("import", *files, "--protocol", history / "alder.protocol.toml", "--db", db, "--skip-imported",
+                    "--quiet")
+    out, err = third.communicate(timeout=120)
+    assert third.returncode == 0 and "fitting" not in err and count(db, "fits") == 1
 
 
 @pytest.mark.skipif(not hasattr(os, "openpty"), reason="needs a pseudo-terminal (POSIX)")

@@ -362,3 +362,26 @@ def test_an_interrupted_import_resumes_with_skip_imported_naming_what_was_skippe
     conn = sqlite3.connect(db)
     assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == 3
     conn.close()
+
+
+def test_skipped_files_name_their_animals_whose_model_is_not_fitted_to_their_data(tmp_path, mock_history):
+    from monitor.app.commands.import_files import import_files
+    from monitor.app.progress import Progress
+    from monitor.store.fits import data_fingerprint, save_fit
+
+    out, _ = mock_history
+    alder, birch = sorted(out.glob("alder_s*.rsw"))[:2], sorted(out.glob("birch_s*.rsw"))[:2]
+    db = tmp_path / "unfitted.sqlite3"
+    protocol = out / "alder.protocol.toml"
+    first = import_files(db, [*alder, *birch], protocol, Progress(quiet=True), fit=False)
+    assert first.unfitted == () and first.fit_targets == ["alder", "birch"]
+    again = import_files(db, [*alder, birch[0]], protocol, Progress(quiet=True), skip_imported=True, fit=False)
+    assert again.imported == 0 and again.unfitted == ("alder", "birch") and again.fit_targets == ["alder", "birch"]
+    conn = open_store(db)
+    with conn:  # a fit of alder's data as they are now: alder no longer needs one
+        save_fit(conn, "alder", fingerprint=data_fingerprint(conn, "alder"), params={},
+                 block={"session": 2, "estimate": 0.0, "low": 0.0, "high": 1.0, "status": "too few trials"},
+                 sessions=[])
+    conn.close()
+    last = import_files(db, [*alder, *birch], protocol, Progress(quiet=True), skip_imported=True, fit=False)
+    assert last.unfitted == ("birch",)

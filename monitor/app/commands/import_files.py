@@ -4,7 +4,10 @@ Rule: every file is checked before anything is stored: each must be readable,
 and none may have been imported before (the same bytes, by SHA-256, under
 any name) or be given twice; otherwise one line names the file and exit 2.
 With `--skip-imported` files imported before are skipped instead, each named
-on stderr, so an interrupted import resumes with the same command.
+on stderr, so an interrupted import resumes with the same command; the animals
+of skipped files whose model is not fitted to their data as they are now
+(`Imported.unfitted`: an earlier import stopped during its fits, or ran with
+`--no-fit`) are fitted too, unless `--no-fit`.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived. Files are read, split, turned
 into rows and their trials derived in worker processes (`--jobs`, one per
@@ -85,6 +88,12 @@ class Imported(NamedTuple):
     stopped: bool
     fitted: int = 0            # animals whose model was refitted during the import
     fits_stopped: bool = False  # asked to stop while fitting: every file imported, some fits abandoned
+    unfitted: tuple[str, ...] = ()  # animals of skipped files whose model is not fitted to their data as they are
+
+    @property
+    def fit_targets(self) -> list[str]:
+        """The animals a fitting import fits: those whose files it stored and those of `unfitted`."""
+        return sorted(set(self.animals) | set(self.unfitted))
 
     def summary(self) -> str:
         """The closing line: the counts, or (stopped) how far it got and how to finish."""
@@ -112,8 +121,9 @@ def run(args: argparse.Namespace) -> int:
         print(f"skipped {len(result.skipped)} already imported", file=sys.stderr)
     print(result.summary())
     if result.fits_stopped:
-        print(f"interrupted while fitting: {result.fitted} of {len(result.animals)} animals fitted; every file was "
-              "imported; the window refits the others when their page opens", file=sys.stderr)
+        print(f"interrupted while fitting: {result.fitted} of {len(result.fit_targets)} animals fitted; every file "
+              "was imported; the same command with --skip-imported fits the others (the window refits them when "
+              "their page opens)", file=sys.stderr)
         return INTERRUPTED
     return 0
 
@@ -134,8 +144,10 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     from monitor.store.db import StoreError, open_store
     from monitor.store.import_pool import Finished, ImportPool, few_collections, refit
     from monitor.store.reporting import load_libraries
-    from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name, event_codes,
-                                        file_digest, parse_file, rig_calibrations, store_parsed)
+    from monitor.store.fits import has_current_fit
+    from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name,
+                                        animals_imported_from, event_codes, file_digest, parse_file,
+                                        rig_calibrations, store_parsed)
 
     if not gap_hours > 0:
         raise UsageError(f"--gap-hours: must be above 0, got {gap_hours:g}")
@@ -178,6 +190,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     imported = 0
     try:
         skipped = []
+        of_skipped: set[str] = set()
         for path, data in contents:
             earlier = already_imported(conn, file_digest(data))
             if earlier is not None:
@@ -185,8 +198,11 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                     raise UsageError(f"FILE: {path} was already imported (same content as {earlier[0]}); "
                                      "nothing imported (--skip-imported imports the rest)")
                 skipped.append(path)
+                of_skipped.update(animals_imported_from(conn, file_digest(data)))
                 tracker.say(f"skipped {path}: already imported (same content as {earlier[0]})")
         contents = [(path, data) for path, data in contents if path not in skipped]
+        # an earlier import stopped before their fits ended (or ran without them): this one fits them
+        unfitted = tuple(name for name in sorted(of_skipped) if not has_current_fit(conn, name))
         started = time.monotonic()
         totals = [0, 0, 0, 0]
         animals: set[str] = set()
@@ -195,7 +211,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         holds = [None if mapping is not None and "animal" in mapping.columns
                  else animal or animal_from_file_name(path) for path, _ in contents]
         parsers = _parsers(contents, jobs)
-        workers = max(parsers, _fit_workers(holds)) if fit else parsers
+        workers = max(parsers, _fit_workers([*holds, *unfitted])) if fit else parsers
         finished = Finished(holds)
         fits: dict[str, Future] = {}
         fitted, fits_stopped = 0, False
@@ -259,8 +275,11 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                 if pool is not None:
                     pool.done_parsing()
                 ready(finished.rest())
+                for name in unfitted:
+                    if pool is not None and fit and name not in fits:
+                        fits[name] = pool.submit(refit, str(db), name)
                 if fits:
-                    fitted, fits_stopped = _collect_fits(fits, workers, tracker, pool)
+                    fitted, fits_stopped = _collect_fits(fits, workers, tracker, pool, early=bool(animals))
     except ImportRefused as exc:
         raise UsageError(f"FILE: {exc}") from None
     except ConfigError as exc:
@@ -273,7 +292,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         conn.close()
     return Imported(len(contents), imported, skipped, *totals, sorted(animals),
                     contents[imported - 1][0].name if imported else None, time.monotonic() - started, interrupted,
-                    fitted, fits_stopped)
+                    fitted, fits_stopped, unfitted)
 
 
 def _parsers(contents: list[tuple[Path, bytes]], jobs: int) -> int:
@@ -315,16 +334,17 @@ def _fit_workers(holds: list[str | None]) -> int:
     return worker_count(len(holds) if None in holds else len(set(holds)))
 
 
-def _collect_fits(fits: dict[str, Future], workers: int, tracker: Tracker, pool: Any) -> tuple[int, bool]:
-    """Wait for the refits (started as each animal's files were stored), a line per animal on `tracker`;
-    asked to stop, the fits under way are abandoned. Return (animals fitted, stopped)."""
+def _collect_fits(fits: dict[str, Future], workers: int, tracker: Tracker, pool: Any,
+                  early: bool) -> tuple[int, bool]:
+    """Wait for the refits (`early`: some started as their animal's files were stored), a line per animal on
+    `tracker`; asked to stop, the fits under way are abandoned. Return (animals fitted, stopped)."""
     from concurrent.futures import FIRST_COMPLETED, wait
 
     from monitor.core.consolidation.words import fraction_text
 
     tracker.say(f"fitting the consolidation model of {_n(len(fits), 'animal')} in {workers} separate "
-                f"{'process' if workers == 1 else 'processes'} (one per core), started as each animal's files were "
-                "stored")
+                f"{'process' if workers == 1 else 'processes'} (one per core)"
+                + (", started as each animal's files were stored" if early else ""))
     tracker.begin(len(fits), "animal", "fitting")
     waiting = {future: animal for animal, future in fits.items()}
     fitted = 0

@@ -131,14 +131,15 @@ class FileJobs(QObject):
             self.controller.window.statusBar().showMessage(message, MESSAGE_MS)
 
     def start_import(self, files: list[Path], protocol: Path) -> Job:
-        """Import `files` (recorded under `protocol`) as `rigside import --skip-imported` does, then refit them
-        (unless the window fits no models)."""
+        """Import `files` (recorded under `protocol`) as `rigside import --skip-imported` does, then refit their
+        animals, and those of skipped files with no fit to their data as they are (unless the window fits no
+        models)."""
         from monitor.app.commands.import_files import import_files, refit_animals
 
         def work(tracker: JobTracker):
             result = import_files(self._db(), files, protocol, tracker, skip_imported=True)
-            if result.animals and not result.stopped and self.controller.pages.fit_consolidation:
-                refit_animals(self._db(), result.animals, tracker)
+            if result.fit_targets and not result.stopped and self.controller.pages.fit_consolidation:
+                refit_animals(self._db(), result.fit_targets, tracker)
             return result
 
         def done(result) -> None:
