@@ -41,6 +41,7 @@ import numpy as np
 from monitor.core.consolidation.model import TrialSeries
 from monitor.core.session.trials import Trial
 from monitor.store.fits import FINISHED
+from monitor.store.orphans import end_with_parent
 
 DEFAULT_BREAK_HOURS = 23.0
 TOO_FEW = "too few trials"
@@ -197,7 +198,9 @@ def worker_count(animals: int, workers: int | None = None) -> int:
 def _child(db_path: str, tasks: Any, out: Any, cancel: Any) -> None:
     """A child process: refit the animals it takes from `tasks` (None: no more), reporting
     ("progress"|"done"|"failed", animal, ...) on `out`. Ctrl-C is the parent's to handle (it passes cancel on):
-    a terminal sends it to every process of its group, and a fit stopped by it here would only print a traceback."""
+    a terminal sends it to every process of its group, and a fit stopped by it here would only print a traceback.
+    It ends with its parent (monitor.store.orphans)."""
+    end_with_parent()
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     while True:
         animal = tasks.get()

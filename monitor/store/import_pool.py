@@ -39,6 +39,8 @@ from concurrent.futures import CancelledError, Future, ProcessPoolExecutor
 from pathlib import Path
 from typing import Any, NamedTuple
 
+from monitor.store.orphans import end_with_parent
+
 LOOKAHEAD_BYTES = 64_000_000  # files parsed ahead of the one being stored (the parsed rows take ~10x this)
 # while the pool runs, this process's busy thread hands the interpreter lock over this often (Python's
 # default: every 5 ms): a worker's parsed file comes back through the executor's thread here, 64 kB of pipe
@@ -50,9 +52,10 @@ _cancelled: Any = None  # in a worker: the pool's cancel event
 
 
 def _start_worker(cancel: Any) -> None:
-    """A worker's first step: Ctrl-C is the importing process's to handle; remember the cancel event; collect
-    garbage rarely."""
+    """A worker's first step: it ends with the importing process (monitor.store.orphans); Ctrl-C is the importing
+    process's to handle; remember the cancel event; collect garbage rarely."""
     global _cancelled
+    end_with_parent()
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _cancelled = cancel
     gc.set_threshold(FEW_COLLECTIONS, *gc.get_threshold()[1:])

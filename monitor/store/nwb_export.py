@@ -166,7 +166,9 @@ def _start_worker(database: Path) -> None:
     import signal
 
     from monitor.store.db import open_store
+    from monitor.store.orphans import end_with_parent
 
+    end_with_parent()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's: it lets the files under way finish
     _WORKER["conn"] = open_store(database, readonly=True)
 

@@ -238,6 +238,45 @@ def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
     assert third.returncode == 0 and "fitting" not in err and count(db, "fits") == 1
 
 
+def in_session(session: int) -> list[int]:
+    """Processes of a session, from /proc (Linux): field 6 of /proc/PID/stat, after the command's name."""
+    found = []
+    for entry in Path("/proc").iterdir():
+        try:
+            stat = (entry / "stat").read_text()
+        except (OSError, ValueError):
+            continue
+        if entry.name.isdigit() and int(stat.rpartition(")")[2].split()[3]) == session:
+            found.append(int(entry.name))
+    return found
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="finds the command's processes in /proc (Linux)")
+@pytest.mark.slow
+def test_killing_an_import_while_fitting_leaves_no_process_behind(cohort_store, tmp_path):
+    """SIGKILL (the OS, a task manager): no handler runs, yet the fits' and parsers' processes end too."""
+    history, _ = cohort_store
+    files = sorted(history.glob("alder_s*.rsw"))
+    db = tmp_path / "store.sqlite3"
+    process = rigside("import", *files, "--protocol", history / "alder.protocol.toml", "--db", db, own_group=True)
+    while not process.stderr.readline().startswith("fitting the consolidation model"):
+        assert process.poll() is None, "the import ended before its fits"
+    workers = [pid for pid in in_session(process.pid) if pid != process.pid]
+    assert workers, "the fit runs in a process of its own"
+    process.kill()
+    process.wait(timeout=10)
+    deadline = time.monotonic() + 15
+    while in_session(process.pid) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    left = in_session(process.pid)
+    for pid in left:
+        os.kill(pid, signal.SIGKILL)
+    assert not left, f"processes outlived the killed import: {left}"
+    assert count(db, "sessions") == len(files)
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+
+
 @pytest.mark.skipif(not hasattr(os, "openpty"), reason="needs a pseudo-terminal (POSIX)")
 def test_a_real_terminal_that_states_no_size_still_gets_the_bar(cohort_store, tmp_path):
     _, db = cohort_store
