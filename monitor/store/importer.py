@@ -47,6 +47,10 @@ class ImportRefused(Exception):
     """The file cannot be imported as asked; the message says why in one line."""
 
 
+class AlreadyImported(ImportRefused):
+    """The same bytes were imported before (perhaps by another process a moment ago)."""
+
+
 @dataclass
 class _Session:
     animal: str
@@ -327,11 +331,11 @@ def import_file(conn: sqlite3.Connection, path: Path, data: bytes, *, protocol_t
 
 
 def refuse_if_imported(conn: sqlite3.Connection, path: Path, digest: str) -> None:
-    """Raise ImportRefused when the same bytes were imported before."""
+    """Raise AlreadyImported when the same bytes were imported before."""
     earlier = already_imported(conn, digest)
     if earlier is not None:
         when = datetime.fromtimestamp(earlier[1]).astimezone().isoformat(timespec="seconds")
-        raise ImportRefused(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
+        raise AlreadyImported(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
                             "nothing was changed")
 
 

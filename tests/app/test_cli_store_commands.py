@@ -385,3 +385,78 @@ def test_skipped_files_name_their_animals_whose_model_is_not_fitted_to_their_dat
     conn.close()
     last = import_files(db, [*alder, *birch], protocol, Progress(quiet=True), skip_imported=True, fit=False)
     assert last.unfitted == ("birch",)
+
+
+class ImportsMeanwhile:
+    """A tracker that, once the first file is stored, has "another process" (its own connection) import the
+    command's next file: what a second import of the same files at the same time does."""
+
+    def __init__(self, db: Path, other: Path, protocol: Path) -> None:
+        from monitor.app.progress import Progress
+
+        self.quiet, self.db, self.other, self.protocol, self.done = Progress(quiet=True), db, other, protocol, False
+        self.lines: list[str] = []
+
+    def begin(self, total: int, unit: str, label: str) -> None: ...
+
+    def advance(self, amount: int = 1) -> None: ...
+
+    def cancelled(self) -> bool:
+        return False
+
+    def say(self, line: str) -> None:
+        from monitor.store.importer import import_file
+
+        self.lines.append(line)
+        if line.startswith("[1/") and not self.done:
+            self.done = True
+            conn = open_store(self.db)
+            with conn:
+                import_file(conn, self.other, self.other.read_bytes(), protocol_text=self.protocol.read_text(),
+                            protocol_name="other", protocol_version=1)
+            conn.close()
+
+
+@pytest.mark.parametrize("skip", [True, False])
+def test_a_file_imported_meanwhile_by_another_process_is_skipped_or_named(tmp_path, mock_history, skip):
+    from monitor.app.commands.import_files import import_files
+    from monitor.app.errors import UsageError
+
+    out, _ = mock_history
+    files = sorted(out.glob("alder_s*.rsw"))[:3]
+    db = tmp_path / "meanwhile.sqlite3"
+    tracker = ImportsMeanwhile(db, files[1], out / "alder.protocol.toml")
+    if skip:
+        result = import_files(db, files, out / "alder.protocol.toml", tracker, skip_imported=True)
+        assert result.imported == 2 and result.skipped == [files[1]] and result.last == files[2].name
+        assert any("skipped alder_s02.rsw: imported meanwhile by another process" in line for line in tracker.lines)
+        assert result.summary().startswith("imported 2 files")
+    else:
+        with pytest.raises(UsageError, match="imported meanwhile by another process; 1 of 3 files imported, the rest "
+                                             "not"):
+            import_files(db, files, out / "alder.protocol.toml", tracker)
+    conn = sqlite3.connect(db)   # plain sqlite3: each file's sessions once
+    assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == (3 if skip else 2)
+    assert conn.execute("SELECT count(*) FROM sessions").fetchone()[0] == (3 if skip else 2)
+    conn.close()
+
+
+def _import_skipping(db: str, protocol: str, files: list[str]) -> int:
+    from monitor.app.cli import main
+
+    return main(["import", *files, "--protocol", protocol, "--db", db, "--no-fit", "--skip-imported", "--quiet"])
+
+
+def test_two_imports_of_the_same_files_at_once_with_skip_imported_both_succeed(tmp_path, mock_history):
+    from fixtures.races import together
+
+    out, _ = mock_history
+    files = [str(p) for p in sorted(out.glob("alder_s*.rsw"))]
+    for attempt in range(3):
+        db = tmp_path / f"race{attempt}.sqlite3"
+        answers = together(_import_skipping, (str(db), str(out / "alder.protocol.toml"), files), 2)
+        assert answers == [0, 0], answers
+        conn = sqlite3.connect(db)   # plain sqlite3: every file once, its events once
+        assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == len(files)
+        assert conn.execute("SELECT count(*), count(DISTINCT import_id) FROM sessions").fetchone() == (len(files),) * 2
+        conn.close()

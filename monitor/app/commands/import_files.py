@@ -4,7 +4,9 @@ Rule: every file is checked before anything is stored: each must be readable,
 and none may have been imported before (the same bytes, by SHA-256, under
 any name) or be given twice; otherwise one line names the file and exit 2.
 With `--skip-imported` files imported before are skipped instead, each named
-on stderr, so an interrupted import resumes with the same command; the animals
+on stderr, so an interrupted import resumes with the same command (a file that
+another process imports meanwhile is skipped too; without the option that ends
+the command, naming how many files it had imported); the animals
 of skipped files whose model is not fitted to their data as they are now
 (`Imported.unfitted`: an earlier import stopped during its fits, or ran with
 `--no-fit`) are fitted too, unless `--no-fit`.
@@ -102,7 +104,7 @@ class Imported(NamedTuple):
             return (f"interrupted: {self.imported} of {self.files} files imported{last}; the other "
                     f"{self.files - self.imported} were not touched and are imported by the same command with "
                     "--skip-imported")
-        return (f"imported {self.files} files: {_n(self.sessions, 'session')}, {self.events} events, "
+        return (f"imported {self.imported} files: {_n(self.sessions, 'session')}, {self.events} events, "
                 f"{self.malformed} malformed lines, {self.trials} attempts (trials, lone, premature, omitted) "
                 f"in {self.seconds:.1f} s")
 
@@ -145,7 +147,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     from monitor.store.import_pool import Finished, ImportPool, few_collections, refit
     from monitor.store.reporting import load_libraries
     from monitor.store.fits import has_current_fit
-    from monitor.store.importer import (ImportRefused, already_imported, animal_from_file_name,
+    from monitor.store.importer import (AlreadyImported, ImportRefused, already_imported, animal_from_file_name,
                                         animals_imported_from, event_codes, file_digest, parse_file,
                                         rig_calibrations, store_parsed)
 
@@ -216,6 +218,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         fits: dict[str, Future] = {}
         fitted, fits_stopped = 0, False
         interrupted = False
+        last: str | None = None
         tracker.begin(len(contents), "file", "importing")
         # fits always run in other processes; files are parsed here when one process is enough
         with few_collections(), (ImportPool(workers) if workers else nullcontext(None)) as pool:
@@ -248,11 +251,23 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                                               protocol_name=protocol["name"], protocol_version=protocol["version"],
                                               mapping_text=mapping_text)
                         conn.execute("COMMIT")
-                    except BaseException:
+                    except BaseException as exc:
                         if conn.in_transaction:
                             conn.execute("ROLLBACK")
-                        raise
+                        if not isinstance(exc, AlreadyImported):
+                            raise
+                        if not skip_imported:  # another process imported it since the check above
+                            raise UsageError(f"FILE: {path} was imported meanwhile by another process; {imported} "
+                                             f"of {len(contents)} files imported, the rest not (the same command "
+                                             "with --skip-imported imports them)") from None
+                        skipped.append(path)
+                        tracker.advance()
+                        tracker.say(f"[{number}/{len(contents)}] skipped {path.name}: imported meanwhile by another "
+                                    "process")
+                        ready(finished.stored(holds[number - 1], []))
+                        continue
                     imported += 1
+                    last = path.name
                     tracker.advance()
                     for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
                         totals[i] += value
@@ -290,9 +305,8 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                          "imported, the rest not: run the same command with --skip-imported to import them)") from None
     finally:
         conn.close()
-    return Imported(len(contents), imported, skipped, *totals, sorted(animals),
-                    contents[imported - 1][0].name if imported else None, time.monotonic() - started, interrupted,
-                    fitted, fits_stopped, unfitted)
+    return Imported(len(contents), imported, skipped, *totals, sorted(animals), last, time.monotonic() - started,
+                    interrupted, fitted, fits_stopped, unfitted)
 
 
 def _parsers(contents: list[tuple[Path, bytes]], jobs: int) -> int:

@@ -150,7 +150,7 @@ class FileJobs(QObject):
                           f"whole; the other {result.files - result.imported} were not touched (import them "
                           f"again: files already imported are skipped){skipped}.")
             else:
-                self._say(f"Imported {result.files} files: {result.sessions} sessions, {result.events:,} events, "
+                self._say(f"Imported {result.imported} files: {result.sessions} sessions, {result.events:,} events, "
                           f"{result.malformed} malformed lines, in {result.seconds:.1f} s{skipped}.")
             self.controller.sessions.load_stored_stages()
 
