@@ -4,7 +4,7 @@ Rule: the copy is taken from one read snapshot (`Connection.backup` in a single
 step), so a recorder or the window may go on writing meanwhile (WAL: readers
 and the writer do not block each other), and it includes what is still in the
 write-ahead log, which a plain file copy would miss. It is written under a
-temporary name beside the target, checked with `quick_check`, and only then
+temporary twin beside the target (monitor.store.twins), checked with `quick_check`, and only then
 renamed to the target, so a target name never holds half a copy. An existing
 target is never overwritten.
 """
@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import NamedTuple
 
 from monitor.store.db import StoreError, open_store
+from monitor.store.twins import twin
 
 
 class BackupResult(NamedTuple):
@@ -36,10 +37,10 @@ def backup_store(source: Path, target: Path) -> BackupResult:
         target.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise StoreError(f"{target}: cannot create the folder {target.parent} ({exc.strerror or exc})") from None
-    partial = target.with_name(target.name + ".partial")
     conn = open_store(source, readonly=True)
+    partial = None
     try:
-        partial.unlink(missing_ok=True)
+        partial = twin(target)
         copy = sqlite3.connect(partial)
         try:
             conn.backup(copy)  # pages=-1: the whole file from one snapshot
@@ -60,5 +61,6 @@ def backup_store(source: Path, target: Path) -> BackupResult:
                          "name") from None
     finally:
         conn.close()
-        partial.unlink(missing_ok=True)
+        if partial is not None:
+            partial.unlink(missing_ok=True)
     return BackupResult(target, target.stat().st_size, sessions, events)

@@ -29,6 +29,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterator, TextIO
 
 from monitor.store.event_blocks import BLOCK_ROWS
+from monitor.store.twins import twin
 
 EVENT_COLUMNS = ("animal", "session", "rig", "segment", "line", "device_time", "t_us", "session_time_s",
                  "wall_time", "event", "value")
@@ -57,8 +58,9 @@ def safe_cell(value: object) -> object:
 
 @contextlib.contextmanager
 def atomic_file(path: Path) -> Iterator[TextIO]:
-    """`path`'s temporary twin, open for writing; renamed to `path` when the block ends without error."""
-    part = path.with_name(path.name + ".part")
+    """`path`'s temporary twin (monitor.store.twins), open for writing; renamed to `path` when the block ends
+    without error."""
+    part = twin(path)
     try:
         with open(part, "w", newline="", encoding="utf-8") as out:
             yield out

@@ -2,8 +2,8 @@
 
 Rule: each session's content (monitor.store.nwb_content: names, subject,
 session, trials, events) is written by monitor.store.nwb_file under a
-temporary name and renamed when complete, so a file of that name is always
-whole. One failed session is reported and the others are written. Sessions
+temporary twin of its own (monitor.store.twins) and renamed when complete, so
+a file of that name is always whole, also when two exports write it at once. One failed session is reported and the others are written. Sessions
 are written side by side in spawned processes (one per core when there are
 enough), each with its own read-only connection, while this process writes
 the schema file they copy; Ctrl-C lets the files under way finish, starts no
@@ -25,6 +25,7 @@ from monitor.store.connection import database_path
 from monitor.store.consolidation_fits import worker_count
 from monitor.store.nwb_content import file_name, session_content, subject_label
 from monitor.store.nwb_file import write, write_schema_file
+from monitor.store.twins import twin
 
 SCHEMA_WAIT_S = 120.0  # a worker waits this long at most for the schema file (importing pynwb takes seconds)
 SESSIONS_PER_WORKER = 8  # a spawned writer costs about as much to start as eight sessions take to write
@@ -51,8 +52,8 @@ def write_session(conn: sqlite3.Connection, session_id: int, number: int, out_di
     `schema`: a file of `nwb_file.write_schema_file`, whose specifications the new file carries."""
     animal, content = session_content(conn, session_id, number, settings)
     path = out_dir / file_name(animal, number)
-    part = path.with_name(f".{path.stem}.partial.nwb")
     _wait_for(schema)
+    part = twin(path)
     try:
         write(content, part, schema)
         os.replace(part, path)

@@ -105,3 +105,24 @@ def test_a_csv_export_that_fails_midway_leaves_the_earlier_file_whole(tmp_path, 
     finally:
         conn.close()
     assert target.read_text() == "the earlier export\n" and sorted(p.name for p in tmp_path.glob("*.part")) == []
+
+
+def _export_events(db: str, target: str) -> int:
+    return main(["export", "events", "--db", db, "--csv", target, "--quiet"])
+
+
+def test_two_exports_to_one_file_at_once_both_succeed_and_leave_it_whole(tmp_path, capsys):
+    from fixtures.races import together
+
+    write_history(tmp_path / "h", cohort(1, seed=2), days=4)
+    db = tmp_path / "store.sqlite3"
+    files = sorted((tmp_path / "h").glob("*.rsw"))
+    assert run_cli(capsys, "import", *files, "--protocol", tmp_path / "h" / "alder.protocol.toml", "--db", db,
+                   "--no-fit")[0] == 0
+    alone = tmp_path / "alone.csv"
+    assert _export_events(str(db), str(alone)) == 0
+    target = tmp_path / "shared.csv"
+    for _ in range(3):
+        assert together(_export_events, (str(db), str(target)), 2) == [0, 0]
+        assert target.read_bytes() == alone.read_bytes()   # one whole export, not a mix of two
+        assert not list(tmp_path.glob("*.part")) and not list(tmp_path.glob(".*.part"))

@@ -122,7 +122,7 @@ def test_ctrl_c_stops_a_csv_export_with_no_partial_file(cohort_store, tmp_path):
     target = tmp_path / "events.csv"
     target.write_text("the earlier export\n")
     process = rigside("export", "events", "--db", db, "--csv", target)
-    out, err = interrupt_when(process, lambda: (tmp_path / "events.csv.part").exists())
+    out, err = interrupt_when(process, lambda: any(tmp_path.glob(".events.csv.*.part")))
     assert process.returncode == SIGINT_EXIT, err
     assert "interrupted" in err and f"nothing was written under {target}" in err
     assert target.read_text() == "the earlier export\n" and sorted(p.name for p in tmp_path.iterdir()) == ["events.csv"]
