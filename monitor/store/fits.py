@@ -5,8 +5,11 @@ Rule: a fit is stored with the fingerprint of the data it was fitted to
 time their trials were last derived; a session still being recorded is left
 out), its parameters, the report's
 consolidation block (`consolidation_block`) and its per-session estimates, all JSON.
-Reading never refits: `cached_block` gives the newest fit's block with
-`"current"` (its fingerprint equals the data's now) added; an animal with no
+Reading never refits: `latest_fit` is the newest fit of the data as they are
+now, else the newest fit (two fits can be saved out of order: a slower refit
+of older data finishing after a newer one must not hide the current fit);
+`cached_block` gives its block with `"current"` (its fingerprint equals the
+data's now) added; an animal with no
 fit yet gets NOT_FITTED for its last session, estimate 0 with the interval
 [0, 1], which no eligibility window accepts.
 """
@@ -49,14 +52,17 @@ def save_fit(conn: sqlite3.Connection, animal: str, *, fingerprint: str, params:
 
 
 def latest_fit(conn: sqlite3.Connection, animal: str) -> dict[str, Any] | None:
-    """The newest fit of `animal`: fingerprint, params, block, sessions, created_at; or None."""
-    row = conn.execute("SELECT f.fingerprint, f.params, f.block, f.sessions, f.created_at FROM fits AS f "
-                       "JOIN animals AS a ON a.id = f.animal_id WHERE a.name = ? ORDER BY f.id DESC LIMIT 1",
-                       (animal,)).fetchone()
+    """The fit to read for `animal` (the module rule): fingerprint, params, block, sessions, created_at and
+    current (fitted to the data as they are now); or None."""
+    now = data_fingerprint(conn, animal)
+    select = ("SELECT f.fingerprint, f.params, f.block, f.sessions, f.created_at FROM fits AS f "
+              "JOIN animals AS a ON a.id = f.animal_id WHERE a.name = ?")
+    row = (conn.execute(f"{select} AND f.fingerprint = ? ORDER BY f.id DESC LIMIT 1", (animal, now)).fetchone()
+           or conn.execute(f"{select} ORDER BY f.id DESC LIMIT 1", (animal,)).fetchone())
     if row is None:
         return None
     return {"fingerprint": row[0], "params": json.loads(row[1]), "block": json.loads(row[2]),
-            "sessions": json.loads(row[3]), "created_at": row[4]}
+            "sessions": json.loads(row[3]), "created_at": row[4], "current": row[0] == now}
 
 
 def cached_block(conn: sqlite3.Connection, animal: str, last_session: int | None) -> dict[str, Any]:
@@ -66,15 +72,11 @@ def cached_block(conn: sqlite3.Connection, animal: str, last_session: int | None
         return {"session": last_session, "estimate": 0.0, "low": 0.0, "high": 1.0, "status": NOT_FITTED,
                 "current": False}
     block = dict(fit["block"])
-    block["current"] = _fits_data_now(conn, animal, fit)
+    block["current"] = fit["current"]
     return block
 
 
 def has_current_fit(conn: sqlite3.Connection, animal: str) -> bool:
-    """Whether the animal's newest fit was fitted to its data as they are now."""
+    """Whether one of the animal's fits was fitted to its data as they are now."""
     fit = latest_fit(conn, animal)
-    return fit is not None and _fits_data_now(conn, animal, fit)
-
-
-def _fits_data_now(conn: sqlite3.Connection, animal: str, fit: Mapping[str, Any]) -> bool:
-    return fit["fingerprint"] == data_fingerprint(conn, animal)
+    return fit is not None and fit["current"]
