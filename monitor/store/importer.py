@@ -99,6 +99,49 @@ def animals_imported_from(conn: sqlite3.Connection, digest: str) -> list[str]:
     return [row[0] for row in rows]
 
 
+@dataclass(frozen=True)
+class Grown:
+    """An earlier import of a file that has grown since (imported while it was still being written)."""
+
+    import_id: int
+    path: str
+    imported_at: float
+    sessions: tuple[int, ...]  # its sessions not excluded yet
+
+
+def grown_from(conn: sqlite3.Connection, path: Path, data: bytes) -> list[Grown]:
+    """Earlier imports of a file of the same name whose bytes are the beginning of `data`: the file grew
+    after they were imported. Importing it whole stores their events a second time, so the caller
+    supersedes them (`supersede`) in the same transaction."""
+    name = path.name
+    found = []
+    for import_id, earlier, at, size, digest in conn.execute(
+            "SELECT id, path, imported_at, size, sha256 FROM imports WHERE size < ? AND substr(path, -?) = ? "
+            "ORDER BY id", (len(data), len(name), name)).fetchall():
+        if re.split(r"[\\/]", earlier)[-1] != name or file_digest(data[:size]) != digest:
+            continue
+        sessions = tuple(row[0] for row in conn.execute(
+            "SELECT id FROM sessions WHERE import_id = ? AND excluded = 0 ORDER BY id", (import_id,)))
+        found.append(Grown(import_id, earlier, at, sessions))
+    return found
+
+
+def supersede(conn: sqlite3.Connection, grown: list[Grown], path: Path, operator: str) -> int:
+    """Exclude the sessions of the earlier imports of `path` (each exclusion logged, in the caller's
+    transaction, which also stores the whole file); how many."""
+    from monitor.store.session_changes import set_excluded
+
+    count = 0
+    for earlier in grown:
+        when = datetime.fromtimestamp(earlier.imported_at).astimezone().isoformat(timespec="seconds")
+        for session_id in earlier.sessions:
+            set_excluded(conn, session_id, True, operator=operator,
+                         reason=f"superseded: {path.name} was imported at {when} while still being written; "
+                                "the whole file was imported again")
+            count += 1
+    return count
+
+
 def animal_from_file_name(path: Path) -> str | None:
     """`alder_s03.rsw` -> `alder` (mock_rig's and many labs' naming), else None."""
     match = _FILE_ANIMAL.match(path.stem)

@@ -460,3 +460,54 @@ def test_two_imports_of_the_same_files_at_once_with_skip_imported_both_succeed(t
         assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == len(files)
         assert conn.execute("SELECT count(*), count(DISTINCT import_id) FROM sessions").fetchone() == (len(files),) * 2
         conn.close()
+
+
+@pytest.mark.parametrize("cut", ["line", "mid-line"])
+def test_a_file_imported_while_still_written_and_again_whole_is_stored_once(tmp_path, capsys, mock_history, cut):
+    """The everyday way to double events: an import of the day's folder while one box still writes its log, then
+    the folder again. The whole file's session counts; the earlier, cut one is kept but excluded (logged)."""
+    out, _ = mock_history
+    whole = sorted(out.glob("alder_s*.rsw"))[1].read_bytes()
+    lines = whole.splitlines(keepends=True)
+    head = b"".join(lines[: len(lines) // 2])
+    head += lines[len(lines) // 2][:7] if cut == "mid-line" else b""   # the writer was in the middle of a line
+    folder = tmp_path / "rig"
+    folder.mkdir()
+    growing = folder / "alder_s02.rsw"
+    db = tmp_path / "grown.sqlite3"
+    protocol = out / "alder.protocol.toml"
+    stages = [head[: len(head) // 2], head, whole]   # imported at a third, at a half, then whole
+    for data in stages:
+        growing.write_bytes(data)
+        code, stdout, err = run_cli(capsys, "import", growing, "--protocol", protocol, "--db", db, "--no-fit")
+        assert code == 0, err
+    assert "1 earlier session superseded" in stdout and "the file grew after an earlier import of it" in err
+    conn = sqlite3.connect(db)   # plain sqlite3, not the store's code
+    rows = conn.execute("SELECT excluded, exclusion_reason FROM sessions ORDER BY id").fetchall()
+    assert [r[0] for r in rows] == [1, 1, 0] and all(r[1].startswith("superseded: alder_s02.rsw") for r in rows[:2])
+    assert conn.execute("SELECT count(*) FROM session_changes WHERE change = 'excluded'").fetchone()[0] == 2
+    counted = conn.execute("SELECT count(*) FROM events AS e JOIN sessions AS s ON s.id = e.session_id "
+                           "WHERE s.excluded = 0").fetchone()[0]
+    conn.close()
+    fresh = tmp_path / "fresh.sqlite3"   # the whole file alone, for comparison
+    assert run_cli(capsys, "import", growing, "--protocol", protocol, "--db", fresh, "--no-fit")[0] == 0
+    with sqlite3.connect(fresh) as other:
+        assert counted == other.execute("SELECT count(*) FROM events").fetchone()[0]
+    code, stdout, _ = run_cli(capsys, "report", "--db", db, "--json")
+    (animal,) = json.loads(stdout)["animals"]
+    assert code == 0 and [s["excluded"] for s in animal["sessions"]] == [True, True, False]   # kept, flagged
+
+
+def test_a_different_file_of_the_same_name_supersedes_nothing(tmp_path, capsys, mock_history):
+    out, _ = mock_history
+    first, second = sorted(out.glob("alder_s*.rsw"))[:2]
+    db = tmp_path / "names.sqlite3"
+    for source, folder in ((first, "a"), (second, "b")):
+        (tmp_path / folder).mkdir()
+        target = tmp_path / folder / "alder_s01.rsw"
+        target.write_bytes(source.read_bytes())
+        code, stdout, err = run_cli(capsys, "import", target, "--protocol", out / "alder.protocol.toml", "--db", db,
+                                    "--no-fit")
+        assert code == 0 and "superseded" not in stdout + err
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("SELECT sum(excluded), count(*) FROM sessions").fetchone() == (0, 2)

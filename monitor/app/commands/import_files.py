@@ -11,7 +11,9 @@ of skipped files whose model is not fitted to their data as they are now
 (`Imported.unfitted`: an earlier import stopped during its fits, or ran with
 `--no-fit`) are fitted too, unless `--no-fit`.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
-file or none of it) with its trials derived. Files are read, split, turned
+file or none of it) with its trials derived; a file that grew since an earlier
+import of it (imported while still being written) supersedes that import's
+sessions in the same transaction (excluded, logged: monitor.store.importer.supersede). Files are read, split, turned
 into rows and their trials derived in worker processes (`--jobs`, one per
 core besides this one; monitor.store.import_pool) while this process stores
 them in the order given. While another process holds the write lock the
@@ -91,6 +93,7 @@ class Imported(NamedTuple):
     fitted: int = 0            # animals whose model was refitted during the import
     fits_stopped: bool = False  # asked to stop while fitting: every file imported, some fits abandoned
     unfitted: tuple[str, ...] = ()  # animals of skipped files whose model is not fitted to their data as they are
+    superseded: int = 0  # sessions of earlier imports of files that grew since, now excluded
 
     @property
     def fit_targets(self) -> list[str]:
@@ -104,9 +107,10 @@ class Imported(NamedTuple):
             return (f"interrupted: {self.imported} of {self.files} files imported{last}; the other "
                     f"{self.files - self.imported} were not touched and are imported by the same command with "
                     "--skip-imported")
+        superseded = f", {_n(self.superseded, 'earlier session')} superseded" if self.superseded else ""
         return (f"imported {self.imported} files: {_n(self.sessions, 'session')}, {self.events} events, "
-                f"{self.malformed} malformed lines, {self.trials} attempts (trials, lone, premature, omitted) "
-                f"in {self.seconds:.1f} s")
+                f"{self.malformed} malformed lines, {self.trials} attempts (trials, lone, premature, omitted)"
+                f"{superseded} in {self.seconds:.1f} s")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -132,12 +136,15 @@ def run(args: argparse.Namespace) -> int:
 
 def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Tracker, *, animal: str | None = None,
                  mapping_path: Path | None = None, gap_hours: float = 2.0, wait: float = WAIT_S, jobs: int = 0,
-                 skip_imported: bool = False, fit: bool = False) -> Imported:
+                 skip_imported: bool = False, fit: bool = False, operator: str | None = None) -> Imported:
     """Check and import `files` into the store at `db`, one transaction per file, counting files on `tracker`;
     with `fit`, each animal's model is refitted in a worker as soon as its files are stored.
 
     Bad input is a UsageError naming the option (nothing imported); asked to stop, it stops after the
-    file being stored (a second Ctrl-C rolls that file back) and says how far it got."""
+    file being stored (a second Ctrl-C rolls that file back) and says how far it got. A file that grew
+    since an earlier import of it supersedes that import's sessions (excluded by `operator`, default
+    this PC's user name, in the same transaction)."""
+    import getpass
     import sqlite3
 
     from drivers.config import ConfigError
@@ -148,8 +155,8 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     from monitor.store.reporting import load_libraries
     from monitor.store.fits import has_current_fit
     from monitor.store.importer import (AlreadyImported, ImportRefused, already_imported, animal_from_file_name,
-                                        animals_imported_from, event_codes, file_digest, parse_file,
-                                        rig_calibrations, store_parsed)
+                                        animals_imported_from, event_codes, file_digest, grown_from, parse_file,
+                                        rig_calibrations, store_parsed, supersede)
 
     if not gap_hours > 0:
         raise UsageError(f"--gap-hours: must be above 0, got {gap_hours:g}")
@@ -203,6 +210,13 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                 of_skipped.update(animals_imported_from(conn, file_digest(data)))
                 tracker.say(f"skipped {path}: already imported (same content as {earlier[0]})")
         contents = [(path, data) for path, data in contents if path not in skipped]
+        grown = {}  # files that grew since an earlier import of them: the earlier imports
+        for path, data in contents:
+            earlier = grown_from(conn, path, data)
+            if any(e.sessions for e in earlier):
+                grown[path] = earlier
+        who = operator or getpass.getuser()
+        superseded = 0
         # an earlier import stopped before their fits ended (or ran without them): this one fits them
         unfitted = tuple(name for name in sorted(of_skipped) if not has_current_fit(conn, name))
         started = time.monotonic()
@@ -250,6 +264,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                         result = store_parsed(conn, parsed, protocol_text=protocol["text"],
                                               protocol_name=protocol["name"], protocol_version=protocol["version"],
                                               mapping_text=mapping_text)
+                        replaced = supersede(conn, grown[path], path, who) if path in grown else 0
                         conn.execute("COMMIT")
                     except BaseException as exc:
                         if conn.in_transaction:
@@ -275,6 +290,11 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                                 f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
                     for notice in result.notices:
                         tracker.say(f"  {path.name}: {notice}")
+                    if replaced:
+                        superseded += replaced
+                        tracker.say(f"  {path.name}: the file grew after an earlier import of it (imported while "
+                                    f"still being written): {_n(replaced, 'earlier session')} of it now excluded as "
+                                    "superseded, kept in the store (the window can count them again)")
                     ready(finished.stored(holds[number - 1], result.animals))
             except KeyboardInterrupt:  # a second Ctrl-C: the file being stored was rolled back, the finished ones stay
                 interrupted = True
@@ -306,7 +326,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     finally:
         conn.close()
     return Imported(len(contents), imported, skipped, *totals, sorted(animals), last, time.monotonic() - started,
-                    interrupted, fitted, fits_stopped, unfitted)
+                    interrupted, fitted, fits_stopped, unfitted, superseded)
 
 
 def _parsers(contents: list[tuple[Path, bytes]], jobs: int) -> int:

@@ -136,8 +136,10 @@ class FileJobs(QObject):
         models)."""
         from monitor.app.commands.import_files import import_files, refit_animals
 
+        operator = self.controller.operator() or None  # who excludes a grown file's earlier sessions
+
         def work(tracker: JobTracker):
-            result = import_files(self._db(), files, protocol, tracker, skip_imported=True)
+            result = import_files(self._db(), files, protocol, tracker, skip_imported=True, operator=operator)
             if result.fit_targets and not result.stopped and self.controller.pages.fit_consolidation:
                 refit_animals(self._db(), result.fit_targets, tracker)
             return result
@@ -150,8 +152,10 @@ class FileJobs(QObject):
                           f"whole; the other {result.files - result.imported} were not touched (import them "
                           f"again: files already imported are skipped){skipped}.")
             else:
+                superseded = (f"; {result.superseded} earlier sessions of files that grew since are now excluded as "
+                              "superseded" if result.superseded else "")
                 self._say(f"Imported {result.imported} files: {result.sessions} sessions, {result.events:,} events, "
-                          f"{result.malformed} malformed lines, in {result.seconds:.1f} s{skipped}.")
+                          f"{result.malformed} malformed lines, in {result.seconds:.1f} s{skipped}{superseded}.")
             self.controller.sessions.load_stored_stages()
 
         return self._run(f"Importing {len(files)} files", work, done)
