@@ -23,6 +23,7 @@ Records become rows through monitor.store.rows, as in the live writer;
 from __future__ import annotations
 
 import hashlib
+import io
 import re
 import sqlite3
 import time
@@ -140,6 +141,35 @@ def supersede(conn: sqlite3.Connection, grown: list[Grown], path: Path, operator
                                 "the whole file was imported again")
             count += 1
     return count
+
+
+@dataclass(frozen=True)
+class RecordedLive:
+    """A log file that `rigside record` (or the window) followed live: its bytes are stored already."""
+
+    source: str  # the recorded source's path, as configured
+    rig: str | None
+    recorded_bytes: int  # how far the recording got
+    sessions: tuple[int, ...]
+    animals: tuple[str, ...]
+
+
+def recorded_live(conn: sqlite3.Connection, data: bytes) -> RecordedLive | None:
+    """The file source recorded live whose recorded bytes are the beginning of `data` (the same log file, or
+    a copy: recognised by the recorder's own fingerprint of its first bytes and of those before where it
+    stopped), or None. Importing such a file would store its recorded events a second time."""
+    from drivers.tail import file_fingerprint
+
+    for source_id, path, rig, offset, expected, span in conn.execute(
+            "SELECT s.id, s.path, s.rig, f.byte_offset, f.fingerprint, f.prefix_len FROM sources AS s "
+            "JOIN file_offsets AS f ON f.source_id = s.id WHERE s.kind = 'file' AND f.byte_offset BETWEEN 1 AND ? "
+            "ORDER BY s.id", (len(data),)).fetchall():
+        if file_fingerprint(io.BytesIO(data), offset, span)[0] == expected:
+            rows = conn.execute("SELECT id, animal FROM sessions WHERE source_id = ? ORDER BY id",
+                                (source_id,)).fetchall()
+            return RecordedLive(path, rig, offset, tuple(r[0] for r in rows),
+                                tuple(sorted({r[1] for r in rows if r[1] is not None})))
+    return None
 
 
 def animal_from_file_name(path: Path) -> str | None:

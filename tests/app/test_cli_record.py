@@ -195,3 +195,30 @@ def test_bad_record_input_is_one_line_and_exit_2(tmp_path):
     args[args.index("--protocol") + 1] = str(bad_protocol)
     result = cli(*args)
     assert result.returncode == 2 and "--protocol" in result.stderr and len(result.stderr.strip().splitlines()) == 1
+
+
+def test_a_log_file_recorded_live_is_not_imported_a_second_time(tmp_path):
+    """A box's log recorded live by `rigside record`, then imported with the day's files: its events would be
+    stored twice. The import refuses it (or skips it with --skip-imported), copies included, and says how
+    to take up what the recording did not reach."""
+    log = tmp_path / "box1.rsw"
+    log.write_bytes(encode_header(fw="t") + b"".join(event_line(i) for i in range(200)))
+    assert cli(*record_args(tmp_path, f"file:{log}", "--seconds", "0.5")).returncode == 0
+    db = tmp_path / "store.sqlite3"
+    before = len(stored_times(db))
+    assert before == 200
+    protocol = tmp_path / "p.toml"
+    refused = cli("import", str(log), "--animal", "heron", "--protocol", str(protocol), "--db", str(db), "--no-fit")
+    assert refused.returncode == 2 and "recorded live from file:" in refused.stderr
+    assert "store those events twice" in refused.stderr and "takes up the rest" not in refused.stderr
+
+    copy = tmp_path / "copied" / "box1.rsw"   # the same log copied elsewhere, and grown by a few lines meanwhile
+    copy.parent.mkdir()
+    copy.write_bytes(log.read_bytes() + b"".join(event_line(i) for i in range(200, 210)))
+    other = tmp_path / "other.rsw"
+    other.write_bytes(encode_header(fw="t") + b"".join(event_line(i) for i in range(50)))
+    done = cli("import", str(copy), str(other), "--animal", "heron", "--protocol", str(protocol), "--db", str(db),
+               "--no-fit", "--skip-imported", "--quiet")
+    assert done.returncode == 0, done.stderr
+    assert f"skipped {copy}: recorded live from file:{log}" in done.stderr and "takes up the rest" in done.stderr
+    assert len(stored_times(db)) == before + 50   # the other file only

@@ -2,7 +2,8 @@
 
 Rule: every file is checked before anything is stored: each must be readable,
 and none may have been imported before (the same bytes, by SHA-256, under
-any name) or be given twice; otherwise one line names the file and exit 2.
+any name), nor be a log file recorded live (or a copy of one: monitor.store.importer.recorded_live),
+or be given twice; otherwise one line names the file and exit 2.
 With `--skip-imported` files imported before are skipped instead, each named
 on stderr, so an interrupted import resumes with the same command (a file that
 another process imports meanwhile is skipped too; without the option that ends
@@ -124,7 +125,7 @@ def run(args: argparse.Namespace) -> int:
             print(result.summary(), file=sys.stderr)
             return INTERRUPTED
     if result.skipped:
-        print(f"skipped {len(result.skipped)} already imported", file=sys.stderr)
+        print(f"skipped {len(result.skipped)} already stored (imported, or recorded live)", file=sys.stderr)
     print(result.summary())
     if result.fits_stopped:
         print(f"interrupted while fitting: {result.fitted} of {len(result.fit_targets)} animals fitted; every file "
@@ -156,7 +157,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     from monitor.store.fits import has_current_fit
     from monitor.store.importer import (AlreadyImported, ImportRefused, already_imported, animal_from_file_name,
                                         animals_imported_from, event_codes, file_digest, grown_from, parse_file,
-                                        rig_calibrations, store_parsed, supersede)
+                                        recorded_live, rig_calibrations, store_parsed, supersede)
 
     if not gap_hours > 0:
         raise UsageError(f"--gap-hours: must be above 0, got {gap_hours:g}")
@@ -209,6 +210,19 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                 skipped.append(path)
                 of_skipped.update(animals_imported_from(conn, file_digest(data)))
                 tracker.say(f"skipped {path}: already imported (same content as {earlier[0]})")
+                continue
+            live = recorded_live(conn, data)
+            if live is not None:
+                where = (f"recorded live from file:{live.source}" + (f" (rig {live.rig})" if live.rig else "")
+                         + f", {live.recorded_bytes} of its {len(data)} bytes, {_n(len(live.sessions), 'session')}")
+                rest = (f"; `rigside record --source file:{live.source}` takes up the rest"
+                        if live.recorded_bytes < len(data) else "")
+                if not skip_imported:
+                    raise UsageError(f"FILE: {path} was {where}: importing it would store those events twice; "
+                                     f"nothing imported{rest} (--skip-imported skips it and imports the rest)")
+                skipped.append(path)
+                of_skipped.update(live.animals)
+                tracker.say(f"skipped {path}: {where}{rest}")
         contents = [(path, data) for path, data in contents if path not in skipped]
         grown = {}  # files that grew since an earlier import of them: the earlier imports
         for path, data in contents:
