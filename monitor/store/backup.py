@@ -4,9 +4,9 @@ Rule: the copy is taken from one read snapshot (`Connection.backup` in a single
 step), so a recorder or the window may go on writing meanwhile (WAL: readers
 and the writer do not block each other), and it includes what is still in the
 write-ahead log, which a plain file copy would miss. It is written under a
-temporary twin beside the target (monitor.store.twins), checked with `quick_check`, and only then
-renamed to the target, so a target name never holds half a copy. An existing
-target is never overwritten.
+temporary twin beside the target (monitor.store.twins), checked with
+`quick_check`, and only then renamed to the target, so a target name never
+holds half a copy. An existing target is never overwritten.
 """
 
 from __future__ import annotations

@@ -3,8 +3,9 @@
 Rule: each session's content (monitor.store.nwb_content: names, subject,
 session, trials, events) is written by monitor.store.nwb_file under a
 temporary twin of its own (monitor.store.twins) and renamed when complete, so
-a file of that name is always whole, also when two exports write it at once. One failed session is reported and the others are written. Sessions
-are written side by side in spawned processes (one per core when there are
+a file of that name is always whole, also when two exports write it at once.
+One failed session is reported and the others are written. Sessions are
+written side by side in spawned processes (one per core when there are
 enough), each with its own read-only connection, while this process writes
 the schema file they copy; Ctrl-C lets the files under way finish, starts no
 other, and the result names the files written.

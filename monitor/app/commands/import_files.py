@@ -2,19 +2,20 @@
 
 Rule: every file is checked before anything is stored: each must be readable,
 and none may have been imported before (the same bytes, by SHA-256, under
-any name), nor be a log file recorded live (or a copy of one: monitor.store.importer.recorded_live),
-or be given twice; otherwise one line names the file and exit 2.
-With `--skip-imported` files imported before are skipped instead, each named
-on stderr, so an interrupted import resumes with the same command (a file that
-another process imports meanwhile is skipped too; without the option that ends
-the command, naming how many files it had imported); the animals
-of skipped files whose model is not fitted to their data as they are now
-(`Imported.unfitted`: an earlier import stopped during its fits, or ran with
-`--no-fit`) are fitted too, unless `--no-fit`.
+any name), be a log file recorded live (or a copy of one:
+monitor.store.importer.recorded_live) or be given twice; otherwise one line
+names the file and exit 2. With `--skip-imported` such files are skipped
+instead, each named on stderr, so an interrupted import resumes with the same
+command (a file that another process imports meanwhile is skipped too; without
+the option that ends the command, naming how many files it had imported); the
+animals of skipped files whose model is not fitted to their data as they are
+now (`Imported.unfitted`: an earlier import stopped during its fits, or ran
+with `--no-fit`) are fitted too, unless `--no-fit`.
 Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived; a file that grew since an earlier
 import of it (imported while still being written) supersedes that import's
-sessions in the same transaction (excluded, logged: monitor.store.importer.supersede). Files are read, split, turned
+sessions in the same transaction (excluded and logged:
+monitor.store.importer.supersede). Files are read, split, turned
 into rows and their trials derived in worker processes (`--jobs`, one per
 core besides this one; monitor.store.import_pool) while this process stores
 them in the order given. While another process holds the write lock the
