@@ -116,10 +116,13 @@ def grown_from(conn: sqlite3.Connection, path: Path, data: bytes) -> list[Grown]
     supersedes them (`supersede`) in the same transaction."""
     name = path.name
     found = []
+    head, hashed = hashlib.sha256(), 0  # one pass over `data`, however many earlier files share its name
     for import_id, earlier, at, size, digest in conn.execute(
             "SELECT id, path, imported_at, size, sha256 FROM imports WHERE size < ? AND substr(path, -?) = ? "
-            "ORDER BY id", (len(data), len(name), name)).fetchall():
-        if re.split(r"[\\/]", earlier)[-1] != name or file_digest(data[:size]) != digest:
+            "ORDER BY size, id", (len(data), len(name), name)).fetchall():
+        head.update(memoryview(data)[hashed:size])
+        hashed = size
+        if re.split(r"[\\/]", earlier)[-1] != name or head.copy().hexdigest() != digest:
             continue
         sessions = tuple(row[0] for row in conn.execute(
             "SELECT id FROM sessions WHERE import_id = ? AND excluded = 0 ORDER BY id", (import_id,)))

@@ -511,3 +511,23 @@ def test_a_different_file_of_the_same_name_supersedes_nothing(tmp_path, capsys, 
         assert code == 0 and "superseded" not in stdout + err
     with sqlite3.connect(db) as conn:
         assert conn.execute("SELECT sum(excluded), count(*) FROM sessions").fetchone() == (0, 2)
+
+
+def test_among_files_of_one_name_only_the_grown_ones_beginning_is_superseded(tmp_path, capsys, mock_history):
+    """A rig that writes the same file name every day: earlier, shorter files of that name that are not the
+    beginning of this one stay counted."""
+    out, _ = mock_history
+    days = [p.read_bytes() for p in sorted(out.glob("alder_s*.rsw"))[:3]]
+    db = tmp_path / "daily.sqlite3"
+    shortest = min(days[:2], key=len)
+    growing = max(days[2:], key=len)
+    stages = [(f"d{i}", data) for i, data in enumerate((shortest, growing[: len(growing) // 3], growing))]
+    for folder, data in stages:
+        target = tmp_path / folder / "box1.rsw"
+        target.parent.mkdir()
+        target.write_bytes(data)
+        code, _, err = run_cli(capsys, "import", target, "--animal", "alder", "--protocol",
+                               out / "alder.protocol.toml", "--db", db, "--no-fit")
+        assert code == 0, err
+    with sqlite3.connect(db) as conn:   # plain sqlite3: the other day's file counts, the cut one does not
+        assert [r[0] for r in conn.execute("SELECT excluded FROM sessions ORDER BY id")] == [0, 1, 0]
