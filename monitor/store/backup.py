@@ -6,7 +6,10 @@ and the writer do not block each other), and it includes what is still in the
 write-ahead log, which a plain file copy would miss. It is written under a
 temporary twin beside the target (monitor.store.twins), checked with
 `quick_check`, and only then renamed to the target, so a target name never
-holds half a copy. An existing target is never overwritten.
+holds half a copy. An existing target is never overwritten, also not one that
+another backup put there meanwhile: the copy takes the name by a hard link,
+which fails when the name exists (where the file system has no hard links,
+by a rename after a last check).
 """
 
 from __future__ import annotations
@@ -53,7 +56,7 @@ def backup_store(source: Path, target: Path) -> BackupResult:
             events = copy.execute("SELECT count(*) FROM events").fetchone()[0]
         finally:
             copy.close()
-        os.replace(partial, target)
+        _take_name(partial, target)
     except sqlite3.Error as exc:
         raise StoreError(f"{target}: the backup failed ({exc}); nothing was written under that name") from None
     except OSError as exc:
@@ -64,3 +67,17 @@ def backup_store(source: Path, target: Path) -> BackupResult:
         if partial is not None:
             partial.unlink(missing_ok=True)
     return BackupResult(target, target.stat().st_size, sessions, events)
+
+
+def _take_name(copy: Path, target: Path) -> None:
+    """Give the finished copy the name `target` unless a file of that name exists (the module rule)."""
+    try:
+        os.link(copy, target)
+    except FileExistsError:
+        raise StoreError(f"{target}: already exists (another backup took the name meanwhile); a backup never "
+                         "overwrites a file (choose a new name)") from None
+    except OSError:  # no hard links here (FAT, some network shares)
+        if target.exists():
+            raise StoreError(f"{target}: already exists; a backup never overwrites a file (choose a new "
+                             "name)") from None
+        os.replace(copy, target)

@@ -161,3 +161,28 @@ def _count(db: Path) -> int:
             conn.close()
     except sqlite3.Error:
         return 0
+
+
+def _backup(db: str, target: str) -> int:
+    from monitor.app.cli import main
+
+    return main(["backup", "--db", db, "--to", target])
+
+
+def test_two_backups_to_one_new_name_at_once_never_overwrite_each_other(tmp_path):
+    from fixtures.races import together
+
+    db = tmp_path / "store.sqlite3"
+    log = tmp_path / "box.rsw"
+    log.write_bytes(encode_header() + lines(200))
+    (tmp_path / "p.toml").write_text(PROTOCOL)
+    imported = cli("import", log, "--animal", "a", "--protocol", tmp_path / "p.toml", "--db", db, "--no-fit")
+    assert imported.returncode == 0, imported.stderr
+    for attempt in range(3):
+        target = tmp_path / f"copy{attempt}.sqlite3"
+        answers = together(_backup, (str(db), str(target)), 2)
+        assert sorted(answers) == [0, 2], answers   # one copy takes the name, the other is refused (exit 2)
+        with sqlite3.connect(target) as conn:   # plain sqlite3: the one copy is whole
+            assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        assert sorted(p.name for p in tmp_path.iterdir() if p.name.startswith((".copy", "copy"))) == \
+            [f"copy{i}.sqlite3" for i in range(attempt + 1)]   # no twin left behind
