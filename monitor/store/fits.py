@@ -67,7 +67,11 @@ def latest_fit(conn: sqlite3.Connection, animal: str) -> dict[str, Any] | None:
 
 def cached_block(conn: sqlite3.Connection, animal: str, last_session: int | None) -> dict[str, Any]:
     """The consolidation block for the report (never a refit)."""
-    fit = latest_fit(conn, animal)
+    return block_of(latest_fit(conn, animal), last_session)
+
+
+def block_of(fit: dict[str, Any] | None, last_session: int | None) -> dict[str, Any]:
+    """The report's consolidation block of a `latest_fit` answer (NOT_FITTED at `last_session` for None)."""
     if fit is None:
         return {"session": last_session, "estimate": 0.0, "low": 0.0, "high": 1.0, "status": NOT_FITTED,
                 "current": False}

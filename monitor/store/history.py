@@ -23,7 +23,7 @@ from monitor.core.protocol import TrainingProtocol
 from monitor.core.session.derivation import derive_session
 from monitor.core.session.trials import Trial
 from monitor.store.derive import malformed_count, session_events, trials_by_session
-from monitor.store.fits import cached_block, latest_fit
+from monitor.store.fits import block_of, latest_fit
 from monitor.store.registry import conditions_of
 
 DEFAULT_BREAK_H = 23.0   # hours between sessions when one end is unknown
@@ -91,4 +91,4 @@ def ended_sessions(conn: sqlite3.Connection, animal: str, protocol: TrainingProt
 def fit_block(conn: sqlite3.Connection, animal: str) -> dict[str, Any]:
     """The newest consolidation block of `animal` with "current", and its cached filter as "live" (or None)."""
     fit = latest_fit(conn, animal)
-    return {**cached_block(conn, animal, None), "live": fit["params"].get("live") if fit else None}
+    return {**block_of(fit, None), "live": fit["params"].get("live") if fit else None}
