@@ -3,7 +3,11 @@
 Rule: a file is imported once: its SHA-256 is stored in `imports` in the same
 transaction as its sessions, events, raw lines and trials, so a crash leaves
 all of the file or none, and the same bytes (under any name) are refused
-afterwards. Every record is kept: events in `events`, malformed lines,
+afterwards; so is a log file whose beginning was recorded live
+(`recorded_live`). A file whose beginning was imported earlier under the same
+name (imported while still being written: `grown_from`) is stored whole and the
+earlier import's sessions are excluded as superseded (`supersede`) in its
+transaction, so no event counts twice. Every record is kept: events in `events`, malformed lines,
 headers and comments in `raw_lines` with their position. Sessions
 (docs/store.md, "Sessions"): a mapped file's `session` column, when it has
 one, names them; otherwise a `session_end` closes the running session, a
@@ -104,8 +108,6 @@ def animals_imported_from(conn: sqlite3.Connection, digest: str) -> list[str]:
 class Grown:
     """An earlier import of a file that has grown since (imported while it was still being written)."""
 
-    import_id: int
-    path: str
     imported_at: float
     sessions: tuple[int, ...]  # its sessions not excluded yet
 
@@ -117,7 +119,7 @@ def grown_from(conn: sqlite3.Connection, path: Path, data: bytes) -> list[Grown]
     name = path.name
     found = []
     head, hashed = hashlib.sha256(), 0  # one pass over `data`, however many earlier files share its name
-    for import_id, earlier, at, size, digest in conn.execute(
+    for import_id, earlier, imported_at, size, digest in conn.execute(
             "SELECT id, path, imported_at, size, sha256 FROM imports WHERE size < ? AND substr(path, -?) = ? "
             "ORDER BY size, id", (len(data), len(name), name)).fetchall():
         head.update(memoryview(data)[hashed:size])
@@ -126,7 +128,7 @@ def grown_from(conn: sqlite3.Connection, path: Path, data: bytes) -> list[Grown]
             continue
         sessions = tuple(row[0] for row in conn.execute(
             "SELECT id FROM sessions WHERE import_id = ? AND excluded = 0 ORDER BY id", (import_id,)))
-        found.append(Grown(import_id, earlier, at, sessions))
+        found.append(Grown(imported_at, sessions))
     return found
 
 
@@ -412,7 +414,7 @@ def refuse_if_imported(conn: sqlite3.Connection, path: Path, digest: str) -> Non
     if earlier is not None:
         when = datetime.fromtimestamp(earlier[1]).astimezone().isoformat(timespec="seconds")
         raise AlreadyImported(f"{path}: already imported (same content as {earlier[0]}, imported {when}); "
-                            "nothing was changed")
+                              "nothing was changed")
 
 
 def event_codes(conn: sqlite3.Connection) -> dict[str, int]:
