@@ -239,7 +239,8 @@ def test_ctrl_c_while_fitting_keeps_every_imported_file(cohort_store, tmp_path):
 
 
 def in_session(session: int) -> list[int]:
-    """Processes of a session, from /proc (Linux): field 6 of /proc/PID/stat, after the command's name."""
+    """Processes of a session, from /proc (Linux): field 6 of /proc/PID/stat, the session id (proc(5), the Linux
+    man page), counted after the command's name in parentheses."""
     found = []
     for entry in Path("/proc").iterdir():
         try:

@@ -35,7 +35,7 @@ if __name__ == "__main__":
 
 def alive(pid: int) -> bool:
     try:
-        os.kill(pid, 0)
+        os.kill(pid, 0)   # signal 0 only asks whether the process exists (POSIX kill(2); common practice)
     except ProcessLookupError:
         return False
     return True
