@@ -1,29 +1,26 @@
-"""Worker processes beside an import: files parsed ahead, animals refitted meanwhile.
+"""Worker processes beside an import: files read and stored side by side, animals refitted meanwhile.
 
-Rule: the importing process stores the files in the order given, each in its
-own transaction; the workers (spawned, as many as asked, each with one BLAS
-thread, Ctrl-C ignored from their start: the importing process handles it and
-cancels them)
-parse the files ahead of it, at most `LOOKAHEAD_BYTES` of files at a time so
-memory stays bounded. While they start, the importing process does the work
-of its own it was given (`meanwhile`), then parses the first file itself.
-Whenever the next file's result is not ready, it parses the last file handed
-out that no worker has taken yet instead of waiting (its result, or its
-error, kept for that file's turn), so the two sides share the parsing when
-the workers are the slower. As soon as an animal's last file is stored
-(`Finished` tells which), its consolidation model can be refitted in a worker
-(`refit_animal`, which saves its own fit in a short transaction), so fits run
-while later files are still being imported. Until every file has been handed
-to a worker, such jobs wait, so parsing never queues behind a fit. In the
-workers, and in the importing process while it stores (`few_collections`),
-Python's cyclic garbage collector runs rarely: the records and rows are
-millions of young tuples in no cycle, and at the default threshold (a
-collection per 700 new objects, a full one now and then) collecting took
-about a tenth of each process's time. While the pool runs, the importing
-process's threads take turns every millisecond instead of Python's 5 ms: a
-parsed file comes back through the executor's thread in 64 kB pieces while
-the worker waits, and at 5 ms turns the worker sat idle a quarter of the
-time."""
+Rule: the workers (spawned, as many as asked, each with one BLAS thread,
+Ctrl-C ignored from their start: the importing process handles it) take the
+files in the order given, one at a time as each is free (`import_file`): each
+reads, splits and derives its file, then stores it in its own transaction
+through its own connection (importer.commit_file); SQLite's write lock lets
+one worker store at a time while the other reads its next file, so the
+files are stored about in order, and each whole or not at all. The importing
+process meanwhile does its own work (`meanwhile`, then the report entries of
+animals whose files are all stored: `Finished` tells which). Asked to stop
+(`halt`) a worker begins no other file and finishes the one under way; told
+to cancel (`stop`) it also rolls back the file under way, and fits stop at
+their next check. As soon as an animal's last file is stored its
+consolidation model can be refitted in a worker (`refit`, which saves its
+own fit in a short transaction), so fits run while later files are still
+being imported; such jobs wait until every file has been handed out, so a
+file never queues behind a fit. In the workers, and in the importing process
+(`few_collections`), Python's cyclic garbage collector runs rarely: the
+records and rows are millions of young tuples in no cycle, and at the default
+threshold (a collection per 700 new objects, a full one now and then)
+collecting took about a tenth of each process's time.
+"""
 
 from __future__ import annotations
 
@@ -31,34 +28,55 @@ import gc
 import multiprocessing
 import os
 import signal
-import sys
+import sqlite3
 from collections import Counter, deque
 from collections.abc import Callable, Iterable, Iterator, Sequence
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from concurrent.futures import CancelledError, Future, ProcessPoolExecutor
 from pathlib import Path
-from typing import Any, NamedTuple
+from typing import Any
 
 from monitor.store.orphans import end_with_parent
 
-LOOKAHEAD_BYTES = 64_000_000  # files parsed ahead of the one being stored (the parsed rows take ~10x this)
-# while the pool runs, this process's busy thread hands the interpreter lock over this often (Python's
-# default: every 5 ms): a worker's parsed file comes back through the executor's thread here, 64 kB of pipe
-# at a time, and the worker waits until that thread has read it
-HANDOFF_SWITCH_S = 0.001
 FEW_COLLECTIONS = 1_000_000  # new objects between two collections of the youngest generation (Python's default: 700)
 
-_cancelled: Any = None  # in a worker: the pool's cancel event
+_cancelled: Any = None  # in a worker: the pool's cancel event (fits stop, a file under way rolls back)
+_halted: Any = None  # in a worker: the pool's halt event (no other file begins)
+_writing: Any = None  # in a worker: the pool's lock, held while a file is stored
+_stores: dict[str, sqlite3.Connection] = {}  # in a worker: its connection to each store it writes
 
 
-def _start_worker(cancel: Any) -> None:
+def _start_worker(cancel: Any, halted: Any, writing: Any) -> None:
     """A worker's first step: it ends with the importing process (monitor.store.orphans); Ctrl-C is the importing
-    process's to handle; remember the cancel event; collect garbage rarely."""
-    global _cancelled
+    process's to handle; remember the pool's events and lock; collect garbage rarely."""
+    global _cancelled, _halted, _writing
     end_with_parent()
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    _cancelled = cancel
+    _cancelled, _halted, _writing = cancel, halted, writing
     gc.set_threshold(FEW_COLLECTIONS, *gc.get_threshold()[1:])
+
+
+def import_file(db: str, wait_ms: int, path: Path, data: bytes, parse_options: dict[str, Any],
+                store_options: dict[str, Any], earlier: list[Any], operator: str) -> tuple[Any, int]:
+    """A worker's job: read, split and derive one file (importer.parse_file with `parse_options`) and store it
+    in its own transaction (importer.commit_file); (what it held, sessions superseded). Once the import has
+    halted a file not begun raises Abandoned; once it is cancelled the file under way is rolled back."""
+    from monitor.store.importer import Abandoned, commit_file, parse_file
+
+    if _halted is not None and _halted.is_set():
+        raise Abandoned(f"{path}: not begun")
+    parsed = parse_file(path, data, **parse_options)
+    conn = _stores.get(db)
+    if conn is None:
+        from monitor.store.db import open_store
+
+        conn = _stores[db] = open_store(Path(db), busy_timeout_ms=wait_ms, check=False)  # checked by the caller
+    with _writing if _writing is not None else nullcontext():
+        return commit_file(conn, parsed, earlier, operator, keep=_keep, **store_options)
+
+
+def _keep() -> bool:
+    return _cancelled is None or not _cancelled.is_set()
 
 
 @contextmanager
@@ -109,61 +127,42 @@ class Finished:
 
 
 class ImportPool:
-    """Spawned worker processes for one import (a context manager: it ends them)."""
+    """Spawned worker processes for one import, started at once (a context manager: it ends them)."""
 
     def __init__(self, workers: int) -> None:
         from monitor.store.consolidation_fits import ONE_CORE
 
         context = multiprocessing.get_context("spawn")
         self.cancel = context.Event()
+        self.halted = context.Event()
+        # taken by a worker around each file's transaction (and by the caller around its own writes): the next
+        # writer starts the moment the lock is free, where SQLite's busy handler would sleep 1 to 100 ms
+        self.writing = context.Lock()
         self._saved = {key: os.environ.get(key) for key in ONE_CORE}
         os.environ.update(ONE_CORE)  # read by each worker's interpreter as it starts, before numpy loads
         self._pool = ProcessPoolExecutor(max_workers=workers, mp_context=context, initializer=_start_worker,
-                                         initargs=(self.cancel,))
+                                         initargs=(self.cancel, self.halted, self.writing))
         self._held: deque[tuple[Callable[..., Any], tuple, Future]] = deque()
-        self._parsing = True
-        self._switch_interval = sys.getswitchinterval()
-        sys.setswitchinterval(HANDOFF_SWITCH_S)
+        self._handing_out = True
+        for _ in range(workers):  # start every worker now (each takes about half a second to start)
+            self._submit(os.getpid)
 
-    def parse_all(self, parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]],
-                  options: dict[str, Any], meanwhile: Callable[[], None] | None = None) -> Iterator[Any]:
-        """`parse(path, data, **options)` of every file, in order, parsed in the workers ahead of the caller
-        (the first one here, while the workers start; later ones here too while the next is not ready);
-        `meanwhile` is this process's own work, done first, once the files are handed out."""
-        pending: deque[_Handed] = deque()
-        state = {"submitted": 1, "ahead": 0}  # files handed out (the first is parsed here), their bytes
+    def hand_out(self, job: Callable[..., Any], jobs: Sequence[tuple]) -> dict[Future, int]:
+        """`job(*args)` for every `args` of `jobs`, taken by the workers in that order; each future with its
+        place. Jobs given to `submit` (fits) go after these."""
+        futures = {self._submit(job, *args): i for i, args in enumerate(jobs)}
+        self.all_handed_out()
+        return futures
 
-        def top_up() -> None:
-            """Hand files to the workers up to the look-ahead bound; once all are handed out, held jobs go."""
-            while state["submitted"] < len(contents) and (state["ahead"] <= LOOKAHEAD_BYTES or not pending):
-                path, data = contents[state["submitted"]]
-                pending.append(_Handed(self._submit(parse, path, data, **options), state["submitted"],
-                                       len(data)))
-                state["submitted"] += 1
-                state["ahead"] += len(data)
-            if state["submitted"] >= len(contents) and self._parsing:
-                self.done_parsing()
-
-        try:
-            top_up()
-            if meanwhile is not None:
-                meanwhile()
-            for path, data in contents[:1]:
-                yield parse(path, data, **options)
-            while pending:
-                while not pending[0].future.done() and _parse_one_here(parse, contents, options, pending):
-                    pass
-                handed = pending.popleft()
-                state["ahead"] -= handed.size
-                top_up()
-                yield handed.future.result()
-        finally:
-            for handed in pending:
-                handed.future.cancel()
+    def halt(self, futures: Iterable[Future]) -> None:
+        """No other file begins: `futures` not taken yet are dropped, a worker's file under way finishes."""
+        self.halted.set()
+        for future in futures:
+            future.cancel()
 
     def submit(self, job: Callable[..., Any], *args: Any) -> Future:
-        """Run `job(*args)` in a worker once every file has been handed out for parsing."""
-        if not self._parsing:
+        """Run `job(*args)` in a worker once every file has been handed out."""
+        if not self._handing_out:
             return self._submit(job, *args)
         future: Future = Future()
         self._held.append((job, args, future))
@@ -175,22 +174,24 @@ class ImportPool:
             if future.set_running_or_notify_cancel():
                 _chain(self._submit(job, *args), future)
 
-    def _submit(self, job: Callable[..., Any], *args: Any, **kwargs: Any) -> Future:
+    def _submit(self, job: Callable[..., Any], *args: Any) -> Future:
         """The executor's submit, which starts a worker when none is idle: begun with Ctrl-C ignored, a worker
         still starting (before `_start_worker`) cannot be stopped by a terminal's Ctrl-C with a traceback."""
         from monitor.store.consolidation_fits import children_ignore_ctrl_c
 
         with children_ignore_ctrl_c():
-            return self._pool.submit(job, *args, **kwargs)
+            return self._pool.submit(job, *args)
 
-    def done_parsing(self) -> None:
-        """No more files to parse (a single file, or parsed here): held jobs may start."""
-        self._parsing = False
+    def all_handed_out(self) -> None:
+        """No more files to hand out (or none at all): held jobs may start."""
+        self._handing_out = False
         self._release()
 
     def stop(self) -> None:
-        """Cancel: jobs not started are dropped, running fits stop at their next check (nothing saved)."""
+        """Cancel: jobs not started are dropped, a file under way rolls back, running fits stop at their next
+        check (nothing saved)."""
         self.cancel.set()
+        self.halted.set()
         while self._held:
             self._held.popleft()[2].cancel()
         self._pool.shutdown(wait=False, cancel_futures=True)
@@ -202,43 +203,11 @@ class ImportPool:
         if exc[0] is not None:
             self.stop()
         self._pool.shutdown(wait=True, cancel_futures=exc[0] is not None)
-        sys.setswitchinterval(self._switch_interval)
         for key, value in self._saved.items():
             if value is None:
                 os.environ.pop(key, None)
             else:
                 os.environ[key] = value
-
-
-class _Handed(NamedTuple):
-    """A file handed out for parsing: its future, its place in the files, its size; `here` once this process
-    took it back."""
-
-    future: Future
-    index: int
-    size: int
-    here: bool = False
-
-
-def _parse_one_here(parse: Callable[..., Any], contents: Sequence[tuple[Path, bytes]], options: dict[str, Any],
-                    pending: deque[_Handed]) -> bool:
-    """Parse in this process the last file of `pending` no worker has taken (its future cancelled), keeping its
-    result or error in its place; False when the workers have taken every one."""
-    for i in range(len(pending) - 1, -1, -1):
-        handed = pending[i]
-        if handed.here:
-            continue
-        if not handed.future.cancel():
-            return False  # taken by a worker: so were the files before it (they are taken in order)
-        here: Future = Future()
-        path, data = contents[handed.index]
-        try:
-            here.set_result(parse(path, data, **options))
-        except Exception as exc:  # noqa: BLE001 - raised at the file's turn, as a worker's error would be
-            here.set_exception(exc)
-        pending[i] = _Handed(here, handed.index, handed.size, True)
-        return True
-    return False
 
 
 def _chain(source: Future, target: Future) -> None:

@@ -34,7 +34,7 @@ import time
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 from drivers.wire import Event, Header, Malformed, Record, WireDecoder
 from monitor.store.derive import derive_events, store_trials, trial_row
@@ -54,6 +54,10 @@ class ImportRefused(Exception):
 
 class AlreadyImported(ImportRefused):
     """The same bytes were imported before (perhaps by another process a moment ago)."""
+
+
+class Abandoned(Exception):
+    """A file the import stopped storing: not begun, or rolled back before its commit."""
 
 
 @dataclass
@@ -452,6 +456,25 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
     return Imported(parsed.path, len(sessions), total_events, total_malformed, trials,
                     tuple(s.label for s in sessions), tuple(parsed.notices),
                     tuple(sorted({s.animal for s in sessions})))
+
+
+def commit_file(conn: sqlite3.Connection, parsed: ParsedFile, earlier: list[Grown], operator: str, *,
+                keep: Callable[[], bool] | None = None, **store_options: Any) -> tuple[Imported, int]:
+    """A parsed file in a transaction of its own (BEGIN IMMEDIATE): its rows (`store_parsed`) and the earlier
+    imports of it that it supersedes (`supersede`); (what it held, sessions superseded). Any error, a Ctrl-C
+    included, rolls it back; so does `keep()` saying no just before the commit (then Abandoned)."""
+    conn.execute("BEGIN IMMEDIATE")
+    try:
+        result = store_parsed(conn, parsed, **store_options)
+        replaced = supersede(conn, earlier, Path(parsed.path), operator) if earlier else 0
+        if keep is not None and not keep():
+            raise Abandoned(f"{parsed.path}: rolled back")
+        conn.execute("COMMIT")
+    except BaseException:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+        raise
+    return result, replaced
 
 
 def _store_session(conn: sqlite3.Connection, session: ParsedSession, import_id: int, protocol_id: int,

@@ -72,8 +72,22 @@ def animal_entry(conn: sqlite3.Connection, animal: str) -> dict[str, Any] | None
 
 def refresh_cache(conn: sqlite3.Connection, animal: str) -> None:
     """Build and keep the animal's report entry (in the caller's transaction)."""
-    fingerprint = report_fingerprint(conn, animal)
-    entry = build_entry(conn, animal)
+    keep_entry(conn, animal, report_fingerprint(conn, animal), build_entry(conn, animal))
+
+
+def entry_with_fingerprint(conn: sqlite3.Connection, animal: str) -> tuple[str, dict[str, Any] | None]:
+    """The animal's entry and the fingerprint of what it was built from, read in one snapshot (a read
+    transaction of its own: the caller holds none), so that writers need not wait while it is built."""
+    conn.execute("BEGIN")
+    try:
+        return report_fingerprint(conn, animal), build_entry(conn, animal)
+    finally:
+        conn.execute("COMMIT")
+
+
+def keep_entry(conn: sqlite3.Connection, animal: str, fingerprint: str, entry: dict[str, Any] | None) -> None:
+    """Keep a built entry under its fingerprint (in the caller's transaction; nothing for None). Should the
+    rows have changed since it was built, its fingerprint no longer matches and it is built again when read."""
     if entry is None:
         return
     conn.execute("INSERT INTO report_cache (animal_id, fingerprint, entry, built_at) VALUES (?, ?, ?, ?) "

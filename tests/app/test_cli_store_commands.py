@@ -297,9 +297,10 @@ def test_full_disk_during_import_stores_nothing_and_says_so(tmp_path, capsys, mo
     assert import_animal(capsys, db, out, "alder")[0] == 0  # with space again, the same files import
 
 
-def test_files_read_in_worker_processes_store_the_same_rows(tmp_path, capsys, mock_history):
-    """--jobs 2 (files parsed in spawned processes, stored here in order) gives row for row the store
-    that --jobs 1 gives: events, raw lines, trials, trial builds and the report."""
+def test_files_stored_by_worker_processes_give_the_same_rows(tmp_path, capsys, mock_history):
+    """--jobs 2 (files read and stored side by side by spawned processes, so each session's id is its
+    place in the order they were stored) gives row for row the store that --jobs 1 gives: events, raw
+    lines, trials, trial builds and the report, each session known by its file and label."""
     out, _ = mock_history
     tables = {"events": "session_id, segment, line, t_us, raw_time, code, value, wall",
               "raw_lines": "session_id, line, byte_offset, kind, reason, raw",
@@ -311,10 +312,16 @@ def test_files_read_in_worker_processes_store_the_same_rows(tmp_path, capsys, mo
         code, _, err = import_animal(capsys, db, out, "alder", "--no-fit", "--jobs", jobs)
         assert code == 0, err
         with sqlite3.connect(db) as conn:
-            rows = {t: conn.execute(f"SELECT {cols} FROM {t} ORDER BY {cols}").fetchall() for t, cols in tables.items()}
-        report = run_cli(capsys, "report", "--db", db, "--json")[1]
-        seen.append((rows, json.loads(report)))
-    assert seen[0][0]["events"] and seen[0][0]["trials"]
+            known = dict(conn.execute("SELECT s.id, i.path || ' ' || s.label FROM sessions AS s "
+                                      "JOIN imports AS i ON i.id = s.import_id"))
+            rows = {t: sorted((known[r[0]], *r[1:]) for r in conn.execute(f"SELECT {cols} FROM {t}"))
+                    for t, cols in tables.items()}
+        report = json.loads(run_cli(capsys, "report", "--db", db, "--json")[1])
+        for entry in report["animals"]:
+            for session in entry["sessions"]:
+                session["session_id"] = known[session["session_id"]]
+        seen.append((rows, report))
+    assert seen[0][0]["events"] and seen[0][0]["trials"] and len(known) > 2
     assert seen[0] == seen[1]
 
 

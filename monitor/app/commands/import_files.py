@@ -15,14 +15,14 @@ Then each file is stored in its own `BEGIN IMMEDIATE` transaction (all of a
 file or none of it) with its trials derived; a file that grew since an earlier
 import of it (imported while still being written) supersedes that import's
 sessions in the same transaction (excluded and logged:
-monitor.store.importer.supersede). Files are read, split, turned
-into rows and their trials derived in worker processes (`--jobs`, one per
-core besides this one; monitor.store.import_pool) while this process stores
-them in the order given. While another process holds the write lock the
-import waits up to `--wait` seconds instead of failing. As soon as an
-animal's last file is stored, its report entry is built once here and kept
-(the workers parse ahead meanwhile; the libraries it needs are loaded while
-the workers start), and (unless `--no-fit`) its consolidation model is
+monitor.store.importer.supersede). Files adding up to a few MB are read,
+split, turned into rows, their trials derived and stored by worker processes
+(`--jobs`, one per core; monitor.store.import_pool), each file whole in its
+own transaction, about in the order given; they start while the files are
+checked. While another process holds the write lock the import waits up to
+`--wait` seconds instead of failing. As soon as an animal's last file is
+stored, its report entry is built once here (from one snapshot, outside any
+write) and kept, and (unless `--no-fit`) its consolidation model is
 refitted in a worker process (one per core, one BLAS thread each) and cached
 (monitor.store.consolidation_fits), so fits run while later files are still
 being imported; one stderr line per animal at the end.
@@ -31,8 +31,8 @@ session, 5123 events, 0 malformed, 402 attempts`) below a progress bar on a term
 (not with `--quiet`), a summary line to stdout. `import_files` is the work
 both this command and the window's File > Import run (a `Tracker` counts
 files and animals fitted and asks whether to stop): asked to stop (Ctrl-C,
-the window's Cancel) it finishes the file being stored and stops, naming how
-far it got (exit 130); a second Ctrl-C rolls that file back; during the fits
+the window's Cancel) it begins no other file, finishes those being stored and
+stops, naming how far it got (exit 130); a second Ctrl-C rolls those back; during the fits
 it abandons the fits under way (every file stays imported).
 Sessions, animals and times: monitor.store.importer and docs/store.md.
 """
@@ -44,9 +44,9 @@ import os
 import sys
 import time
 from concurrent.futures import Future
-from contextlib import nullcontext
+from contextlib import ExitStack, nullcontext
 from pathlib import Path
-from typing import Any, Iterator, NamedTuple
+from typing import Any, NamedTuple
 
 from monitor.app.errors import UsageError
 from monitor.app.paths import add_db_argument, resolve_db
@@ -69,9 +69,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-fit", action="store_true",
                         help="skip refitting the consolidation model (the report then says \"not fitted\")")
     parser.add_argument("--jobs", type=int, default=0,
-                        help="processes that read files side by side (default 0: one per core besides this one, "
-                             "which stores, when the files add up "
-                             "to a few MB, else this process alone)")
+                        help="processes that read and store files side by side (default 0: one per core when "
+                             "there are two or more and the files add up to a few MB, else this process alone; "
+                             "1: this process alone)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
     parser.add_argument("--skip-imported", action="store_true",
                         help="skip files already imported (named on stderr) instead of refusing the whole command; "
@@ -143,22 +143,14 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
     with `fit`, each animal's model is refitted in a worker as soon as its files are stored.
 
     Bad input is a UsageError naming the option (nothing imported); asked to stop, it stops after the
-    file being stored (a second Ctrl-C rolls that file back) and says how far it got. A file that grew
+    files being stored (a second Ctrl-C rolls them back) and says how far it got. A file that grew
     since an earlier import of it supersedes that import's sessions (excluded by `operator`, default
     this PC's user name, in the same transaction)."""
-    import getpass
-    import sqlite3
-
     from drivers.config import ConfigError
 
     from monitor.app.commands.record import _read_protocol
-    from monitor.store.db import StoreError, open_store
-    from monitor.store.import_pool import Finished, ImportPool, few_collections, refit
-    from monitor.store.reporting import load_libraries
-    from monitor.store.fits import has_current_fit
-    from monitor.store.importer import (AlreadyImported, ImportRefused, already_imported, animal_from_file_name,
-                                        animals_imported_from, event_codes, file_digest, grown_from, parse_file,
-                                        recorded_live, rig_calibrations, store_parsed, supersede)
+    from monitor.store.import_pool import ImportPool
+    from monitor.store.importer import file_digest
 
     if not gap_hours > 0:
         raise UsageError(f"--gap-hours: must be above 0, got {gap_hours:g}")
@@ -194,6 +186,36 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         seen[digest] = path
         contents.append((path, data))
 
+    storers = _storers(contents, jobs)
+    with ExitStack() as started_early:
+        # the workers that store the files start while the files are checked
+        early = started_early.enter_context(ImportPool(
+            max(storers, _fit_workers(_holds(contents, animal, mapping))) if fit else storers)) if storers else None
+        return _import_checked(db, contents, protocol, tracker, early, storers, animal=animal, mapping=mapping,
+                               mapping_text=mapping_text, gap_hours=gap_hours, wait=wait,
+                               skip_imported=skip_imported, fit=fit, operator=operator)
+
+
+def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict[str, Any], tracker: Tracker,
+                    early: Any, storers: int, *, animal: str | None, mapping: Any,
+                    mapping_text: str | None, gap_hours: float, wait: float, skip_imported: bool, fit: bool,
+                    operator: str | None) -> Imported:
+    """`import_files` once its arguments are read: check the files against the store, then store them (in
+    `storers` workers of the pool `early`, or here) and fit their animals."""
+    import getpass
+    import sqlite3
+    from concurrent.futures import FIRST_COMPLETED
+    from concurrent.futures import wait as first_of
+
+    from drivers.config import ConfigError
+    from monitor.store.db import StoreError, open_store
+    from monitor.store.fits import has_current_fit
+    from monitor.store.import_pool import Finished, ImportPool, few_collections, import_file, refit
+    from monitor.store.importer import (Abandoned, AlreadyImported, ImportRefused, already_imported,
+                                        animals_imported_from, commit_file, event_codes, file_digest, grown_from,
+                                        parse_file, recorded_live, rig_calibrations)
+    from monitor.store.reporting import load_libraries
+
     try:
         conn = open_store(db, busy_timeout_ms=int(wait * 1000))
     except StoreError as exc:
@@ -225,7 +247,7 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                 of_skipped.update(live.animals)
                 tracker.say(f"skipped {path}: {where}{rest}")
         contents = [(path, data) for path, data in contents if path not in skipped]
-        grown = {}  # files that grew since an earlier import of them: the earlier imports
+        grown: dict[Path, list] = {}  # files that grew since an earlier import of them: the earlier imports
         for path, data in contents:
             earlier = grown_from(conn, path, data)
             if any(e.sessions for e in earlier):
@@ -237,93 +259,141 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
         started = time.monotonic()
         totals = [0, 0, 0, 0]
         animals: set[str] = set()
-        options = {"protocol_text": protocol["text"], "animal": animal, "mapping": mapping,
-                   "gap_s": gap_hours * 3600.0, "calibrations": rig_calibrations(conn), "codes": event_codes(conn)}
-        holds = [None if mapping is not None and "animal" in mapping.columns
-                 else animal or animal_from_file_name(path) for path, _ in contents]
-        parsers = _parsers(contents, jobs)
-        workers = max(parsers, _fit_workers([*holds, *unfitted])) if fit else parsers
+        parse_options = {"protocol_text": protocol["text"], "animal": animal, "mapping": mapping,
+                         "gap_s": gap_hours * 3600.0, "calibrations": rig_calibrations(conn),
+                         "codes": event_codes(conn)}
+        store_options = {"protocol_text": protocol["text"], "protocol_name": protocol["name"],
+                         "protocol_version": protocol["version"], "mapping_text": mapping_text}
+        holds = _holds(contents, animal, mapping)
+        workers = max(storers, _fit_workers([*holds, *unfitted])) if fit else storers
         finished = Finished(holds)
         fits: dict[str, Future] = {}
         fitted, fits_stopped = 0, False
         interrupted = False
+        refused: Path | None = None  # a file another process imported meanwhile (without --skip-imported)
         last: str | None = None
+        done = 0  # files stored or skipped so far
+        untold: list[str] = []  # animals finished while the import was stopping: their entries come at the end
         tracker.begin(len(contents), "file", "importing")
-        # fits always run in other processes; files are parsed here when one process is enough
-        with few_collections(), (ImportPool(workers) if workers else nullcontext(None)) as pool:
-            if pool is not None and parsers:
-                parsed_files: Iterator[Any] = pool.parse_all(parse_file, contents, options,
-                                                             meanwhile=load_libraries)
-            else:
-                parsed_files = (parse_file(path, data, **options) for path, data in contents)
-                if pool is not None:
-                    pool.done_parsing()
+        with few_collections(), (nullcontext(early) if early is not None
+                                 else ImportPool(workers) if workers else nullcontext(None)) as pool:
 
             def ready(names: list[str]) -> None:
                 """The animals' files are all stored: refit them beside, and build their report entries here
-                (the workers parse ahead meanwhile; in a worker, numpy and scipy would load once more)."""
+                (the workers go on with the next files meanwhile)."""
                 animals.update(names)
                 for name in names:
                     if pool is not None and fit:
                         fits[name] = pool.submit(refit, str(db), name)
                 for name in names:
-                    _refresh_entry(conn, name)
+                    _refresh_entry(conn, name, None if pool is None else pool.writing)
+
+            def stored(index: int, result: Any, replaced: int) -> list[str]:
+                """File `index` was stored: count and name it; the animals whose files are now all stored."""
+                nonlocal imported, last, superseded, done
+                path = contents[index][0]
+                imported += 1
+                done += 1
+                last = path.name
+                tracker.advance()
+                for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
+                    totals[i] += value
+                tracker.say(f"[{done}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
+                            f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
+                for notice in result.notices:
+                    tracker.say(f"  {path.name}: {notice}")
+                if replaced:
+                    superseded += replaced
+                    tracker.say(f"  {path.name}: the file grew after an earlier import of it (imported while "
+                                f"still being written): {_n(replaced, 'earlier session')} of it now excluded as "
+                                "superseded, kept in the store (the window can count them again)")
+                return finished.stored(holds[index], result.animals)
+
+            def imported_meanwhile(index: int) -> list[str]:
+                """File `index` was imported meanwhile by another process: skipped with --skip-imported (the
+                animals now finished), else the import stops (`refused`)."""
+                nonlocal refused, done
+                path = contents[index][0]
+                if not skip_imported:
+                    refused = refused or path
+                    return []
+                skipped.append(path)
+                done += 1
+                tracker.advance()
+                tracker.say(f"[{done}/{len(contents)}] skipped {path.name}: imported meanwhile by another process")
+                return finished.stored(holds[index], [])
+
+            def taken(index: int, future: Future) -> list[str]:
+                """What a worker did with file `index`: the animals now finished (none when it was not stored)."""
+                if future.cancelled():
+                    return []
+                try:
+                    result, replaced = future.result()
+                except Abandoned:
+                    return []
+                except AlreadyImported:
+                    return imported_meanwhile(index)
+                return stored(index, result, replaced)
 
             try:
-                for number, ((path, _), parsed) in enumerate(zip(contents, parsed_files, strict=True), start=1):
-                    if tracker.cancelled():
-                        interrupted = True
-                        break
-                    conn.execute("BEGIN IMMEDIATE")
+                if pool is None or not storers:  # this process reads and stores the files, in the order given
+                    if pool is not None:
+                        pool.all_handed_out()
+                    for index, (path, data) in enumerate(contents):
+                        if tracker.cancelled():
+                            interrupted = True
+                            break
+                        parsed = parse_file(path, data, **parse_options)
+                        try:
+                            result, replaced = commit_file(conn, parsed, grown.get(path, []), who, **store_options)
+                        except AlreadyImported:
+                            ready(imported_meanwhile(index))
+                            if refused is not None:
+                                break
+                            continue
+                        ready(stored(index, result, replaced))
+                else:  # the workers read and store them; this process builds the report entries
+                    remaining = pool.hand_out(import_file, [
+                        (str(db), int(wait * 1000), path, data, parse_options, store_options, grown.get(path, []),
+                         who) for path, data in contents])
+                    load_libraries()  # what the entries need, while the workers start
                     try:
-                        result = store_parsed(conn, parsed, protocol_text=protocol["text"],
-                                              protocol_name=protocol["name"], protocol_version=protocol["version"],
-                                              mapping_text=mapping_text)
-                        replaced = supersede(conn, grown[path], path, who) if path in grown else 0
-                        conn.execute("COMMIT")
-                    except BaseException as exc:
-                        if conn.in_transaction:
-                            conn.execute("ROLLBACK")
-                        if not isinstance(exc, AlreadyImported):
-                            raise
-                        if not skip_imported:  # another process imported it since the check above
-                            raise UsageError(f"FILE: {path} was imported meanwhile by another process; {imported} "
-                                             f"of {len(contents)} files imported, the rest not (the same command "
-                                             "with --skip-imported imports them)") from None
-                        skipped.append(path)
-                        tracker.advance()
-                        tracker.say(f"[{number}/{len(contents)}] skipped {path.name}: imported meanwhile by another "
-                                    "process")
-                        ready(finished.stored(holds[number - 1], []))
-                        continue
-                    imported += 1
-                    last = path.name
-                    tracker.advance()
-                    for i, value in enumerate((result.sessions, result.events, result.malformed, result.trials)):
-                        totals[i] += value
-                    tracker.say(f"[{number}/{len(contents)}] {path.name}: {_n(result.sessions, 'session')}, "
-                                f"{result.events} events, {result.malformed} malformed, {result.trials} attempts")
-                    for notice in result.notices:
-                        tracker.say(f"  {path.name}: {notice}")
-                    if replaced:
-                        superseded += replaced
-                        tracker.say(f"  {path.name}: the file grew after an earlier import of it (imported while "
-                                    f"still being written): {_n(replaced, 'earlier session')} of it now excluded as "
-                                    "superseded, kept in the store (the window can count them again)")
-                    ready(finished.stored(holds[number - 1], result.animals))
-            except KeyboardInterrupt:  # a second Ctrl-C: the file being stored was rolled back, the finished ones stay
+                        while remaining:
+                            if not (interrupted or refused) and tracker.cancelled():
+                                interrupted = True
+                            if interrupted or refused:
+                                pool.halt(remaining)  # the files under way finish, no other begins
+                                _drop_cancelled(remaining)
+                            ended, _ = first_of(remaining, timeout=0.2, return_when=FIRST_COMPLETED)
+                            for future in sorted(ended, key=remaining.get):
+                                names = taken(remaining.pop(future), future)
+                                if interrupted or refused:
+                                    untold.extend(names)
+                                else:
+                                    ready(names)
+                    except KeyboardInterrupt:  # a second Ctrl-C: the files under way roll back
+                        pool.stop()
+                        untold.extend(_drain(remaining, taken))
+                        raise
+                    except Exception:  # the files under way finish first, so that the message counts them
+                        pool.halt(remaining)
+                        untold.extend(_drain(remaining, taken))
+                        raise
+            except KeyboardInterrupt:  # a second Ctrl-C: the files being stored were rolled back, the finished stay
                 interrupted = True
+            if refused is not None:
+                raise UsageError(f"FILE: {refused} was imported meanwhile by another process; {imported} of "
+                                 f"{len(contents)} files imported, the rest not (the same command with "
+                                 "--skip-imported imports them)")
             if interrupted:
                 fits.clear()
                 if pool is not None:
                     pool.stop()
-                ready_entries = finished.rest()  # the stored animals' report entries stay current
+                ready_entries = sorted({*untold, *finished.rest()})  # the stored animals' report entries stay current
                 animals.update(ready_entries)
                 for name in ready_entries:
                     _refresh_entry(conn, name)
             else:
-                if pool is not None:
-                    pool.done_parsing()
                 ready(finished.rest())
                 for name in unfitted:
                     if pool is not None and fit and name not in fits:
@@ -344,15 +414,52 @@ def import_files(db: Path, files: list[Path], protocol_path: Path, tracker: Trac
                     interrupted, fitted, fits_stopped, unfitted, superseded)
 
 
-def _parsers(contents: list[tuple[Path, bytes]], jobs: int) -> int:
-    """Worker processes that parse the files (0: this process parses them): `--jobs` when above 1, or with
-    0 one per core besides this process's (which stores) when the files add up to a few MB (a worker costs
-    about half a second to start); never more than the files."""
+def _holds(contents: list[tuple[Path, bytes]], animal: str | None, mapping: Any) -> list[str | None]:
+    """The animal each file holds (`Finished`): --animal, else NAME of NAME_sNN; None for a mapped file with an
+    animal column (any animal)."""
+    from monitor.store.importer import animal_from_file_name
+
+    return [None if mapping is not None and "animal" in mapping.columns
+            else animal or animal_from_file_name(path) for path, _ in contents]
+
+
+def _storers(contents: list[tuple[Path, bytes]], jobs: int) -> int:
+    """Worker processes that read and store the files (0: this process does): `--jobs` when above 1, or with
+    0 one per core when there are two or more and the files add up to a few MB (a worker costs about half a
+    second to start); never more than the files."""
     if jobs == 0:
-        if sum(len(data) for _, data in contents) < PARALLEL_BYTES:
+        if sum(len(data) for _, data in contents) < PARALLEL_BYTES or _cores() < 2:
             return 0
-        return min(_cores() - 1, len(contents))
+        return min(_cores(), len(contents))
     return 0 if jobs == 1 else min(jobs, len(contents))
+
+
+def _drop_cancelled(remaining: dict[Future, int]) -> None:
+    """Forget the files whose job was cancelled before a worker took it: not stored. (`wait` would never
+    return them: a future cancelled by hand counts as done only once its executor has seen it, and one that
+    is shutting down no longer looks.)"""
+    for future in [f for f in remaining if f.cancelled()]:
+        del remaining[future]
+
+
+def _drain(remaining: dict[Future, int], taken: Any) -> list[str]:
+    """Wait for the files under way after a stop (each finishes or rolls back), counting those stored through
+    `taken`; the animals they finished. Another Ctrl-C meanwhile does not cut the wait short."""
+    from concurrent.futures import wait
+
+    names: list[str] = []
+    while remaining:
+        _drop_cancelled(remaining)
+        try:
+            ended, _ = wait(remaining, timeout=0.2)
+        except KeyboardInterrupt:
+            continue
+        for future in sorted(ended, key=remaining.get):
+            try:
+                names.extend(taken(remaining.pop(future), future))
+            except BaseException:  # noqa: BLE001 - the first error is the one reported, and a stored file is
+                pass               # counted before its line is said (which another Ctrl-C may cut short)
+    return names
 
 
 def _cores() -> int:
@@ -362,18 +469,21 @@ def _cores() -> int:
         return os.cpu_count() or 1
 
 
-def _refresh_entry(conn: Any, animal: str) -> None:
-    """Build and keep the animal's report entry in a short transaction of its own."""
-    from monitor.store.reporting import refresh_cache
+def _refresh_entry(conn: Any, animal: str, writing: Any = None) -> None:
+    """Build the animal's report entry from one snapshot, then keep it in a short transaction of its own
+    (under `writing`, the import pool's lock, when workers store files meanwhile)."""
+    from monitor.store.reporting import entry_with_fingerprint, keep_entry
 
-    conn.execute("BEGIN IMMEDIATE")
-    try:
-        refresh_cache(conn, animal)
-        conn.execute("COMMIT")
-    except BaseException:
-        if conn.in_transaction:
-            conn.execute("ROLLBACK")
-        raise
+    fingerprint, entry = entry_with_fingerprint(conn, animal)
+    with writing if writing is not None else nullcontext():
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            keep_entry(conn, animal, fingerprint, entry)
+            conn.execute("COMMIT")
+        except BaseException:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            raise
 
 
 def _fit_workers(holds: list[str | None]) -> int:
