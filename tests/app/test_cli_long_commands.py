@@ -278,6 +278,37 @@ def test_killing_an_import_while_fitting_leaves_no_process_behind(cohort_store, 
         assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
 
 
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="finds the command's processes in /proc (Linux)")
+@pytest.mark.slow
+def test_killing_an_import_while_its_workers_store_files_leaves_whole_files_and_resumes(cohort_store, tmp_path):
+    """SIGKILL while two workers store files side by side: no process left behind, an intact database,
+    every stored file whole (SQLite rolls back a transaction cut short), and --skip-imported completes it
+    to the rows of an import never killed."""
+    history, _ = cohort_store
+    files = sorted(history.glob("alder_s*.rsw"))
+    db, whole_db = tmp_path / "store.sqlite3", tmp_path / "whole.sqlite3"
+    process = rigside("import", *files, "--protocol", history / "alder.protocol.toml", "--db", db, "--no-fit",
+                      "--jobs", "2", own_group=True)
+    while not process.stderr.readline().startswith("[2/"):
+        assert process.poll() is None, "the import ended before its second file"
+    process.kill()
+    process.wait(timeout=10)
+    deadline = time.monotonic() + 15
+    while in_session(process.pid) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert not in_session(process.pid), "worker processes outlived the killed import"
+    with sqlite3.connect(db) as conn:  # plain sqlite3, not the store's code
+        assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        stored = conn.execute("SELECT i.events, (SELECT count(*) FROM events AS e JOIN sessions AS s ON "
+                              "s.id = e.session_id WHERE s.import_id = i.id) FROM imports AS i").fetchall()
+    assert 2 <= len(stored) <= len(files) and all(counted == held for counted, held in stored)
+    for target, again in ((db, ["--skip-imported"]), (whole_db, [])):
+        assert main(["import", *map(str, files), "--protocol", str(history / "alder.protocol.toml"), "--db",
+                     str(target), "--no-fit", "--quiet", *again]) == 0
+    for table in ("imports", "sessions", "events", "trials", "raw_lines"):
+        assert count(db, table) == count(whole_db, table), table
+
+
 @pytest.mark.skipif(not hasattr(os, "openpty"), reason="needs a pseudo-terminal (POSIX)")
 def test_a_real_terminal_that_states_no_size_still_gets_the_bar(cohort_store, tmp_path):
     _, db = cohort_store
