@@ -448,20 +448,22 @@ def test_a_file_imported_meanwhile_by_another_process_is_skipped_or_named(tmp_pa
     conn.close()
 
 
-def _import_skipping(db: str, protocol: str, files: list[str]) -> int:
+def _import_skipping(db: str, protocol: str, files: list[str], jobs: str) -> int:
     from monitor.app.cli import main
 
-    return main(["import", *files, "--protocol", protocol, "--db", db, "--no-fit", "--skip-imported", "--quiet"])
+    return main(["import", *files, "--protocol", protocol, "--db", db, "--no-fit", "--skip-imported", "--quiet",
+                 "--jobs", jobs])
 
 
-def test_two_imports_of_the_same_files_at_once_with_skip_imported_both_succeed(tmp_path, mock_history):
+@pytest.mark.parametrize("jobs", ["1", "2"])  # 2: four processes storing, two per import
+def test_two_imports_of_the_same_files_at_once_with_skip_imported_both_succeed(tmp_path, mock_history, jobs):
     from fixtures.races import together
 
     out, _ = mock_history
     files = [str(p) for p in sorted(out.glob("alder_s*.rsw"))]
     for attempt in range(3):
         db = tmp_path / f"race{attempt}.sqlite3"
-        answers = together(_import_skipping, (str(db), str(out / "alder.protocol.toml"), files), 2)
+        answers = together(_import_skipping, (str(db), str(out / "alder.protocol.toml"), files, jobs), 2)
         assert answers == [0, 0], answers
         conn = sqlite3.connect(db)   # plain sqlite3: every file once, its events once
         assert conn.execute("SELECT count(*) FROM imports").fetchone()[0] == len(files)
