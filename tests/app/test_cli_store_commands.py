@@ -471,8 +471,9 @@ def test_two_imports_of_the_same_files_at_once_with_skip_imported_both_succeed(t
         conn.close()
 
 
-@pytest.mark.parametrize("cut", ["line", "mid-line"])
-def test_a_file_imported_while_still_written_and_again_whole_is_stored_once(tmp_path, capsys, mock_history, cut):
+@pytest.mark.parametrize("cut,jobs", [("line", "1"), ("mid-line", "1"), ("line", "2")])  # 2: stored by a worker
+def test_a_file_imported_while_still_written_and_again_whole_is_stored_once(tmp_path, capsys, mock_history, cut,
+                                                                              jobs):
     """The everyday way to double events: an import of the day's folder while one box still writes its log, then
     the folder again. The whole file's session counts; the earlier, cut one is kept but excluded (logged)."""
     out, _ = mock_history
@@ -488,7 +489,8 @@ def test_a_file_imported_while_still_written_and_again_whole_is_stored_once(tmp_
     stages = [head[: len(head) // 2], head, whole]   # imported at a third, at a half, then whole
     for data in stages:
         growing.write_bytes(data)
-        code, stdout, err = run_cli(capsys, "import", growing, "--protocol", protocol, "--db", db, "--no-fit")
+        code, stdout, err = run_cli(capsys, "import", growing, "--protocol", protocol, "--db", db, "--no-fit",
+                                    "--jobs", jobs)
         assert code == 0, err
     assert "1 earlier session superseded" in stdout and "the file grew after an earlier import of it" in err
     conn = sqlite3.connect(db)   # plain sqlite3, not the store's code
