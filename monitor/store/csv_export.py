@@ -77,7 +77,7 @@ class _Session:
 
         animal, rig, start_wall = conn.execute("SELECT animal, rig, start_wall FROM sessions WHERE id = ?",
                                                (session_id,)).fetchone()
-        self.animal, self.rig = safe_cell(animal), safe_cell(rig)
+        self.names = f"{safe_cell(animal)},{session_id},{safe_cell(rig)}"  # the row's first three cells
         self.start = datetime.fromisoformat(start_wall)
         self.shift_us = start_shift_us(conn, session_id, first_t_us)
         self.clock = SessionClock()
@@ -92,7 +92,7 @@ def write_events_csv(conn: sqlite3.Connection, path: Path, tick: Callable[[int],
     from monitor.store.event_blocks import event_blocks, event_words  # numpy: when a CSV is written
     from monitor.store.session_time import SECONDS, WALL, seconds_parts, wall_clock_parts
 
-    line = f"%s,%d,%s,%d,%d,%d,%d,{SECONDS},{WALL},%s,%s\r\n"
+    line = f"%s,%d,%d,%d,%d,{SECONDS},{WALL},%s,%s\r\n"  # the session's names (animal, session, rig) first
     words = {code: _cell(word) for code, word in event_words(conn).items()}
     sessions: dict[int, _Session] = {}
     count = 0
@@ -102,8 +102,8 @@ def write_events_csv(conn: sqlite3.Connection, path: Path, tick: Callable[[int],
             n = len(block)
             ids, t_us, segment = block.array("session"), block.array("t_us"), block.array("segment")
             session_us = np.empty(n, dtype=np.int64)
-            animal, rig = np.empty(n, dtype=object), np.empty(n, dtype=object)
-            wall: list[Any] = [np.empty(n, dtype=object) for _ in range(6)]
+            names = np.empty(n, dtype=object)
+            wall: list[Any] = [np.empty(n, dtype=object) for _ in range(4)]
             for session_id in np.unique(ids).tolist():
                 rows = ids == session_id
                 session = sessions.get(session_id)
@@ -111,13 +111,13 @@ def write_events_csv(conn: sqlite3.Connection, path: Path, tick: Callable[[int],
                     session = sessions[session_id] = _Session(conn, session_id, int(t_us[rows][0]))
                 here = session.shift_us + session.clock.relative(t_us[rows], segment[rows])
                 session_us[rows] = here
-                animal[rows], rig[rows] = session.animal, session.rig
+                names[rows] = session.names
                 for column, part in zip(wall, wall_clock_parts(session.start, here)):
                     column[rows] = part
             texts: dict[str | None, str] = {}  # one block's distinct values (text or None), each checked once
             values = [texts[v] if v in texts else texts.setdefault(v, _cell(v)) for v in block.value]
             out.write("".join([line % row for row in zip(
-                animal.tolist(), block.session, rig.tolist(), block.segment, block.line, block.raw_time, block.t_us,
+                names.tolist(), block.segment, block.line, block.raw_time, block.t_us,
                 *seconds_parts(session_us), *(column.tolist() for column in wall), [words[c] for c in block.code],
                 values)]))
             count += n

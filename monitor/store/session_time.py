@@ -14,6 +14,7 @@ events at a time (numpy), exactly as `f"{us / 1e6:.6f}"` and
 
 from __future__ import annotations
 
+import functools
 import sqlite3
 from datetime import datetime, timedelta
 from typing import Any
@@ -75,7 +76,14 @@ def seconds_parts(session_us: np.ndarray) -> tuple[list[str], list[int], list[in
     return np.where(session_us < 0, "-", "").tolist(), whole.tolist(), micro.tolist()
 
 
-WALL = "%sT%02d:%02d:%02d.%06d%s"  # date, hours, minutes, seconds, microseconds, UTC offset: `wall_clock_parts`
+WALL = "%sT%s.%06d%s"  # date, "HH:MM:SS", microseconds, UTC offset: the text of `wall_clock_parts`
+
+
+@functools.cache
+def _clock_faces() -> np.ndarray:
+    """"HH:MM:SS" of each second of a day, by the second: one lookup a row instead of three numbers to format."""
+    return np.array([f"{h:02d}:{m:02d}:{s:02d}" for h in range(24) for m in range(60) for s in range(60)],
+                    dtype=object)
 
 
 def wall_clock_parts(start: datetime, session_us: np.ndarray) -> tuple[list[Any], ...]:
@@ -85,12 +93,9 @@ def wall_clock_parts(start: datetime, session_us: np.ndarray) -> tuple[list[Any]
     local_us = (start.replace(tzinfo=None) - _EPOCH) // timedelta(microseconds=1) + np.asarray(session_us, np.int64)
     days, in_day = np.divmod(local_us, 86_400_000_000)
     seconds, micro = np.divmod(in_day, 1_000_000)
-    hours, rest = np.divmod(seconds, 3600)
-    minutes, seconds = np.divmod(rest, 60)
     distinct, which = np.unique(days, return_inverse=True)
     dates = np.array([(_EPOCH + timedelta(days=int(d))).date().isoformat() for d in distinct.tolist()], dtype=object)
-    return (dates[which].tolist(), hours.tolist(), minutes.tolist(), seconds.tolist(), micro.tolist(),
-            [offset] * len(local_us))
+    return dates[which].tolist(), _clock_faces()[seconds].tolist(), micro.tolist(), [offset] * len(local_us)
 
 
 _EPOCH = datetime(1970, 1, 1)
