@@ -1,14 +1,16 @@
 """Worker processes beside an import: files read and stored side by side, animals refitted meanwhile.
 
-Rule: the workers (spawned, as many as asked, each with one BLAS thread,
-Ctrl-C ignored from their start: the importing process handles it) take the
-files in the order given, one at a time as each is free (`import_file`): each
-reads, splits and derives its file, then stores it in its own transaction
-through its own connection (importer.commit_file); SQLite's write lock lets
-one worker store at a time while the other reads its next file, so the
-files are stored about in order, and each whole or not at all. The importing
-process meanwhile does its own work (`meanwhile`, then the report entries of
-animals whose files are all stored: `Finished` tells which). Asked to stop
+Rule: the workers (spawned as the pool is made, as many as asked, each with
+one BLAS thread, Ctrl-C ignored from their start: the importing process
+handles it) take the files in the order given, one at a time as each is free
+(`import_file`): each reads, splits and derives its file, then stores it in
+its own transaction through its own connection (importer.commit_file)
+holding the pool's lock (`writing`), so one worker stores while the other
+reads its next file (the lock wakes the next writer at once, where SQLite's
+busy handler sleeps 1 to 100 ms); the files are stored about in order, each
+whole or not at all. The importing process meanwhile builds the report
+entries of the animals whose files are all stored (`Finished` tells which),
+its own writes under the same lock. Asked to stop
 (`halt`) a worker begins no other file and finishes the one under way; told
 to cancel (`stop`) it also rolls back the file under way, and fits stop at
 their next check. As soon as an animal's last file is stored its

@@ -20,8 +20,10 @@ header's `start=` (+ device time when it begins inside a segment) or the
 mapped wall-time column; without either, the file's modification time, and a
 notice row says so. The trials of each session are derived as it is stored.
 Records become rows through monitor.store.rows, as in the live writer;
-`parse_file` does all of that without the database (worker processes), and
-`store_parsed` only inserts what it made.
+`parse_file` does all of that without the database, `store_parsed` only
+inserts what it made, and `commit_file` does that and the superseding in a
+transaction of its own (the importing process, or the worker processes that
+store files side by side).
 """
 
 from __future__ import annotations
