@@ -252,6 +252,20 @@ def in_session(session: int) -> list[int]:
     return found
 
 
+def killed(process: subprocess.Popen) -> list[int]:
+    """SIGKILL the command (started in a session of its own); the processes of its session still there 15 s
+    later, each then killed too."""
+    process.kill()
+    process.wait(timeout=10)
+    deadline = time.monotonic() + 15
+    while in_session(process.pid) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    left = in_session(process.pid)
+    for pid in left:
+        os.kill(pid, signal.SIGKILL)
+    return left
+
+
 @pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="finds the command's processes in /proc (Linux)")
 @pytest.mark.slow
 def test_killing_an_import_while_fitting_leaves_no_process_behind(cohort_store, tmp_path):
@@ -264,14 +278,7 @@ def test_killing_an_import_while_fitting_leaves_no_process_behind(cohort_store, 
         assert process.poll() is None, "the import ended before its fits"
     workers = [pid for pid in in_session(process.pid) if pid != process.pid]
     assert workers, "the fit runs in a process of its own"
-    process.kill()
-    process.wait(timeout=10)
-    deadline = time.monotonic() + 15
-    while in_session(process.pid) and time.monotonic() < deadline:
-        time.sleep(0.1)
-    left = in_session(process.pid)
-    for pid in left:
-        os.kill(pid, signal.SIGKILL)
+    left = killed(process)
     assert not left, f"processes outlived the killed import: {left}"
     assert count(db, "sessions") == len(files)
     with sqlite3.connect(db) as conn:
@@ -291,12 +298,8 @@ def test_killing_an_import_while_its_workers_store_files_leaves_whole_files_and_
                       "--jobs", "2", own_group=True)
     while not process.stderr.readline().startswith("[2/"):
         assert process.poll() is None, "the import ended before its second file"
-    process.kill()
-    process.wait(timeout=10)
-    deadline = time.monotonic() + 15
-    while in_session(process.pid) and time.monotonic() < deadline:
-        time.sleep(0.1)
-    assert not in_session(process.pid), "worker processes outlived the killed import"
+    left = killed(process)
+    assert not left, f"worker processes outlived the killed import: {left}"
     with sqlite3.connect(db) as conn:  # plain sqlite3, not the store's code
         assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
         stored = conn.execute("SELECT i.events, (SELECT count(*) FROM events AS e JOIN sessions AS s ON "
