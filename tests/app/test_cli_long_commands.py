@@ -289,8 +289,8 @@ def test_killing_an_import_while_fitting_leaves_no_process_behind(cohort_store, 
 @pytest.mark.slow
 def test_killing_an_import_while_its_workers_store_files_leaves_whole_files_and_resumes(cohort_store, tmp_path):
     """SIGKILL while two workers store files side by side: no process left behind, an intact database,
-    every stored file whole (SQLite rolls back a transaction cut short), and --skip-imported completes it
-    to the rows of an import never killed."""
+    every stored file whole (SQLite rolls back a transaction cut short: "Atomic Commit In SQLite",
+    sqlite.org/atomiccommit.html), and --skip-imported completes it to the rows of an import never killed."""
     history, _ = cohort_store
     files = sorted(history.glob("alder_s*.rsw"))
     db, whole_db = tmp_path / "store.sqlite3", tmp_path / "whole.sqlite3"
