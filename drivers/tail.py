@@ -27,7 +27,7 @@ from typing import BinaryIO, Callable
 
 from drivers.reader import ReaderThread
 from drivers.status import CONNECTED, WAITING, Batch, BatchSink, FilePosition, StatusBoard
-from drivers.wire import LineDecoder, Record, WireDecoder
+from drivers.wire import LineDecoder, Malformed, Record, WireDecoder
 
 POLL_S = 0.2
 CHUNK = 1 << 20  # bytes read per batch at most
@@ -52,6 +52,33 @@ def file_fingerprint(fh: BinaryIO, offset: int, span: int | None = None) -> tupl
     return hashlib.sha256(head + tail).hexdigest(), span
 
 
+def position_after(path: str | os.PathLike[str], stored: int, decoder_factory: DecoderFactory) -> FilePosition | None:
+    """Where to follow a file whose first `stored` bytes were read whole (by an import) before; None when
+    they hold no complete line.
+
+    Their lines are decoded and dropped, as that read did: the reader starts after its last complete line,
+    or after a last line it took as complete (ended by a lone CR, which a whole read decodes; the LF that
+    completes that CR, when written, is skipped); an unterminated last line, which that read kept as
+    malformed, is read again whole.
+    """
+    with open(path, "rb") as fh:
+        data = fh.read(stored + 1)
+        if len(data) < stored:
+            return None
+        decoder = decoder_factory()
+        decoder.feed(data[:stored])
+        state = decoder.state()
+        if any(type(record) is not Malformed for record in decoder.close()):
+            state = decoder.state()
+            if data[stored:] == b"\n":
+                state = {**state, "offset": stored + 1}
+        if state["offset"] == 0:
+            return None
+        fingerprint, span = file_fingerprint(fh, state["offset"])
+        st = os.fstat(fh.fileno())
+        return FilePosition(state["offset"], (st.st_dev, st.st_ino), fingerprint, span, state)
+
+
 class FileTail(ReaderThread):
     """Follows one file; `poll()` does one step (tests), `start()` runs it in a thread (drivers/reader.py)."""
 
@@ -64,6 +91,7 @@ class FileTail(ReaderThread):
         *,
         decoder_factory: DecoderFactory = WireDecoder,
         resume: FilePosition | None = None,
+        resume_notice: str | None = None,
         poll_s: float = POLL_S,
         silent_after_s: float = 5.0,
         should_pause: Callable[[], bool] | None = None,
@@ -79,6 +107,7 @@ class FileTail(ReaderThread):
         self._sink = sink
         self._wall = wall_clock
         self._resume = resume
+        self._resume_notice = resume_notice  # said when the file opens where `resume` left it
         self._fh: BinaryIO | None = None
         self._identity = (0, 0)
         self._read_pos = 0
@@ -140,11 +169,14 @@ class FileTail(ReaderThread):
         self._fh, self._identity, self._print = fh, (st.st_dev, st.st_ino), None
         self._ever_opened = True
         resume, self._resume = self._resume, None
+        notice, self._resume_notice = self._resume_notice, None
         start = 0
         if resume is not None:
             if self._continues(fh, st.st_size, resume):
                 self.decoder.restore(resume.decoder)
                 start = resume.offset
+                if notice:
+                    self._notify(notice)
             else:
                 self.decoder.restore(resume.decoder)  # so that segment numbers go on rising
                 self._renew_decoder()

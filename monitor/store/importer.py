@@ -7,7 +7,9 @@ afterwards; so is a log file whose beginning was recorded live
 (`recorded_live`). A file whose beginning was imported earlier under the same
 name (imported while still being written: `grown_from`) is stored whole and the
 earlier import's sessions are excluded as superseded (`supersede`) in its
-transaction, so no event counts twice. Every record is kept: events in `events`, malformed lines,
+transaction, so no event counts twice; the other way round, a file whose
+beginning was imported is recorded live from after the imported bytes
+(`imported_start`). Every record is kept: events in `events`, malformed lines,
 headers and comments in `raw_lines` with their position. Sessions
 (docs/store.md, "Sessions"): a mapped file's `session` column, when it has
 one, names them; otherwise a `session_end` closes the running session, a
@@ -30,6 +32,7 @@ from __future__ import annotations
 
 import hashlib
 import io
+import os
 import re
 import sqlite3
 import time
@@ -38,6 +41,7 @@ from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Any, Callable
 
+from drivers.status import FilePosition
 from drivers.wire import Event, Header, Malformed, Record, WireDecoder
 from monitor.store.derive import derive_events, store_trials, trial_row
 from monitor.store.registry import ensure_animal, ensure_protocol
@@ -152,6 +156,49 @@ def supersede(conn: sqlite3.Connection, grown: list[Grown], path: Path, operator
                                 "the whole file was imported again")
             count += 1
     return count
+
+
+@dataclass(frozen=True)
+class ImportedStart:
+    """Where live recording of a file goes on because its beginning was imported (while still being
+    written): after the imported bytes, so that none of their events is stored twice."""
+
+    position: FilePosition
+    imported_bytes: int
+    imported_at: float
+    events: int
+
+    def notice(self, path: str) -> str:
+        when = datetime.fromtimestamp(self.imported_at).astimezone().isoformat(timespec="seconds")
+        return (f"{Path(path).name}: its first {self.imported_bytes} bytes ({self.events} events) were imported "
+                f"at {when}: following it from byte {self.position.offset}")
+
+
+def imported_start(conn: sqlite3.Connection, path: str, decoder_factory: Callable[[], Any]) -> ImportedStart | None:
+    """For a file source never read live: the longest earlier import of a file of the same name whose bytes
+    are the beginning of the file now, and where to follow the file after them (`drivers.tail.position_after`;
+    an import is a whole read, so its events are stored already); None when there is none."""
+    from drivers.tail import position_after
+
+    name = Path(path).name
+    try:
+        with open(path, "rb") as fh:
+            size = os.fstat(fh.fileno()).st_size
+            rows = conn.execute(
+                "SELECT path, imported_at, size, sha256, events FROM imports WHERE size <= ? AND substr(path, -?) = ? "
+                "ORDER BY size, id", (size, len(name), name)).fetchall()
+            head, hashed, best = hashlib.sha256(), 0, None
+            for earlier, imported_at, stored, digest, events in rows:
+                head.update(fh.read(stored - hashed))
+                hashed = stored
+                if re.split(r"[\\/]", earlier)[-1] == name and head.copy().hexdigest() == digest:
+                    best = (stored, imported_at, events)
+    except FileNotFoundError:
+        return None
+    if best is None:
+        return None
+    position = position_after(path, best[0], decoder_factory)
+    return None if position is None else ImportedStart(position, *best)
 
 
 @dataclass(frozen=True)

@@ -13,10 +13,11 @@ animal, logged (monitor.store.session_changes).
 from __future__ import annotations
 
 import sqlite3
-from typing import NamedTuple
+from typing import Any, Callable, NamedTuple
 
 from drivers.status import FilePosition
 from monitor.store import db, derive, registry, session_changes
+from monitor.store.importer import imported_start
 
 NO_ANIMAL = ""  # the sessions row of a rig's events before anyone checked in
 
@@ -30,20 +31,30 @@ class ProtocolText(NamedTuple):
 
 
 class RegisteredRig(NamedTuple):
-    """A rig's rows: its source, its run of no animal, and where a file source resumes (None: serial, or new)."""
+    """A rig's rows: its source, its run of no animal, and where a file source resumes (None: serial, or new)
+    with what to say about it (a file whose beginning was imported goes on after the imported bytes)."""
 
     source_id: int
     idle_session_id: int
     resume: FilePosition | None
+    resume_notice: str | None = None
 
 
 def register_rig(conn: sqlite3.Connection, *, name: str, kind: str, key: str, usb_serial: str | None,
-                 mapping: str | None, valve_ul_per_ms: float | None) -> RegisteredRig:
-    """The source row, the rig's binding and valve calibration, a fresh idle run and the file's resume point."""
+                 mapping: str | None, valve_ul_per_ms: float | None,
+                 decoder_factory: Callable[[], Any] | None = None) -> RegisteredRig:
+    """The source row, the rig's binding and valve calibration, a fresh idle run and the file's resume point
+    (for a file never read live whose beginning was imported, after the imported bytes, decoded with
+    `decoder_factory`: `importer.imported_start`)."""
     source_id = db.register_source(conn, kind, key, name, usb_serial, mapping)
     registry.ensure_rig(conn, name, usb_serial=usb_serial, port=key, valve_ul_per_ms=valve_ul_per_ms)
     idle = start_idle_run(conn, source_id, name)
-    return RegisteredRig(source_id, idle, db.file_position(conn, source_id) if kind == "file" else None)
+    resume = db.file_position(conn, source_id) if kind == "file" else None
+    if kind == "file" and resume is None and decoder_factory is not None:
+        imported = imported_start(conn, key, decoder_factory)
+        if imported is not None:
+            return RegisteredRig(source_id, idle, imported.position, imported.notice(key))
+    return RegisteredRig(source_id, idle, resume)
 
 
 def start_idle_run(conn: sqlite3.Connection, source_id: int, rig: str) -> int:

@@ -328,3 +328,31 @@ def test_the_page_shows_this_sessions_fraction_followed_by_the_engine(rig, qtbot
                     timeout=10000)
     assert controller.rigs["box 1"].snapshot.fraction.trials_since_fit == len(intervals)
     assert "the fit of session 4" in controller.book.state("wren").consolidation.live_text
+
+
+def test_a_file_rig_whose_log_was_imported_while_written_goes_on_after_the_imported_bytes(rig, qtbot):
+    """The window follows a log whose beginning was imported (the rig still wrote it): from after the
+    imported bytes, so that every event is stored once, and the tile's notices say so."""
+    from drivers.wire import encode_event, encode_header
+    from fixtures.devices import run_child
+
+    controller, window, log, store, db = rig
+    box3, protocol = log.with_name("box3.rsw"), log.with_name("p.toml")
+    names = ("lever_down", "lever_up", "lick")
+    box3.write_bytes(encode_header(fw="t") + b"".join(encode_event(i, names[i % 3]) for i in range(60)) + b"60 lev")
+    imported = run_child("import", box3, "--animal", "heron", "--protocol", protocol, "--db", db, "--no-fit", "--quiet")
+    assert imported.returncode == 0, imported.stderr
+    controller.add_rig(RigSpec("box 3", "file", str(box3), protocol))
+    with box3.open("ab") as fh:
+        fh.write(b"er_up\n" + b"".join(encode_event(i, names[i % 3]) for i in range(61, 90)))
+
+    def times():
+        with sqlite3.connect(db) as conn:     # plain sqlite3, not the store's code
+            return sorted(r[0] for r in conn.execute("SELECT raw_time FROM events"))
+
+    qtbot.waitUntil(lambda: len(times()) >= 90, timeout=10000)
+    qtbot.waitUntil(lambda: controller.writer.status().pending_rows == 0, timeout=10000)
+    assert times() == list(range(90))
+    with sqlite3.connect(db) as conn:
+        notices = [r[0] for r in conn.execute("SELECT reason FROM raw_lines WHERE kind = 'notice'")]
+    assert any("box3.rsw: its first" in n and "(60 events) were imported" in n for n in notices), notices

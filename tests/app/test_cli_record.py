@@ -222,3 +222,35 @@ def test_a_log_file_recorded_live_is_not_imported_a_second_time(tmp_path):
     assert done.returncode == 0, done.stderr
     assert f"skipped {copy}: recorded live from file:{log}" in done.stderr and "takes up the rest" in done.stderr
     assert len(stored_times(db)) == before + 50   # the other file only
+
+
+def test_a_log_file_imported_while_written_is_recorded_live_after_the_imported_bytes(tmp_path):
+    """A box's log imported with the day's files while the rig still wrote it (its last line unfinished), then
+    recorded live: the recording goes on after the imported bytes (the unfinished line, which the import
+    kept as malformed, is read again whole), so every event is stored once, and a restart resumes as usual."""
+    log = tmp_path / "box1.rsw"
+    log.write_bytes(encode_header(fw="t") + b"".join(event_line(i) for i in range(100)) + b"100 lev")
+    db, protocol = tmp_path / "store.sqlite3", tmp_path / "p.toml"
+    protocol.write_text(PROTOCOL)
+    imported = cli("import", str(log), "--animal", "heron", "--protocol", str(protocol), "--db", str(db),
+                   "--no-fit", "--quiet")
+    assert imported.returncode == 0, imported.stderr
+    assert stored_times(db) == list(range(100))
+    with open(log, "ab") as fh:
+        fh.write(b"er_up\n" + b"".join(event_line(i) for i in range(101, 150)))
+    live = cli(*record_args(tmp_path, f"file:{log}", "--seconds", "0.5"))
+    assert live.returncode == 0, live.stderr
+    assert "box1.rsw: its first" in live.stderr and "100 events) were imported" in live.stderr
+    assert stored_times(db) == list(range(150))
+    with open(log, "ab") as fh:
+        fh.write(b"".join(event_line(i) for i in range(150, 160)))
+    again = cli(*record_args(tmp_path, f"file:{log}", "--seconds", "0.5"))
+    assert again.returncode == 0 and "resuming at byte" in again.stderr, again.stderr
+    assert stored_times(db) == list(range(160))
+    conn = sqlite3.connect(db)
+    try:   # the notice is kept with the live session, and nothing was excluded
+        notices = [r[0] for r in conn.execute("SELECT reason FROM raw_lines WHERE kind = 'notice'")]
+        assert any("were imported at" in n for n in notices), notices
+        assert conn.execute("SELECT COUNT(*) FROM sessions WHERE excluded = 1").fetchone()[0] == 0
+    finally:
+        conn.close()

@@ -6,7 +6,9 @@ monitor.app.stopping) or `--seconds`, then stops the source, commits
 everything it read, closes the session and exits 0. A serial PATH may
 be a symlink, a COM name or a pyserial URL; after an unplug it is opened again
 by that path (or found by `--usb-serial`). A file the store has never seen is
-read from byte 0, a file it has seen resumes at its stored offset. State
+read from byte 0, a file it has seen resumes at its stored offset, and a file
+whose beginning was imported (while the rig still wrote it) is followed from
+after the imported bytes, so that no event is stored twice. State
 changes are printed to stderr as they happen. Refused (exit 2, one line): a
 source another process records into the same store (its lock names it), an
 animal the store does not know unless `--new-animal`. It stops at once when
@@ -82,6 +84,12 @@ def run(args: argparse.Namespace) -> int:
         resume = writer.call(lambda c: db.file_position(c, source_id), transaction=False) if kind == "file" else None
         if resume is not None:
             _check_resume(resume.decoder, factory, where)
+        imported = None
+        if kind == "file" and resume is None:
+            from monitor.store.importer import imported_start
+
+            imported = writer.call(lambda c: imported_start(c, where, factory), transaction=False)
+            resume = imported.position if imported else None
         session_id = writer.call(lambda c: _start_session(c, source_id, args, protocol))
     except SourceBusy as exc:
         writer.stop()
@@ -92,7 +100,7 @@ def run(args: argparse.Namespace) -> int:
     except BaseException:
         writer.stop()
         raise
-    return _record(args, kind, where, factory, writer, source_id, session_id, resume)
+    return _record(args, kind, where, factory, writer, source_id, session_id, resume, imported)
 
 
 def _known_animal(conn: Any, animal: str, create: bool) -> None:
@@ -130,7 +138,7 @@ def _drop_if_empty(conn: Any, session_id: int) -> bool:
     return True
 
 
-def _record(args, kind, where, factory, writer, source_id, session_id, resume) -> int:
+def _record(args, kind, where, factory, writer, source_id, session_id, resume, imported) -> int:
     from drivers.status import LOST
     from monitor.app.live.pipeline import Fanout
     from monitor.store import db
@@ -142,10 +150,14 @@ def _record(args, kind, where, factory, writer, source_id, session_id, resume) -
     if kind == "file":
         from drivers.tail import FileTail
 
-        source: Any = FileTail(where, sink, decoder_factory=factory, resume=resume,
+        notice = imported.notice(where) if imported else None
+        source: Any = FileTail(where, sink, decoder_factory=factory, resume=resume, resume_notice=notice,
                                should_pause=lambda: writer.backlogged)
-        print(f"rigside record: {where}: " + ("resuming at byte %d" % resume.offset if resume
-                                              else "never read before: reading from byte 0"), file=sys.stderr)
+        if imported:
+            print(f"rigside record: {notice}", file=sys.stderr)
+        else:
+            print(f"rigside record: {where}: " + ("resuming at byte %d" % resume.offset if resume
+                                                  else "never read before: reading from byte 0"), file=sys.stderr)
     else:
         from drivers.serial import SerialSource
 

@@ -85,7 +85,8 @@ class RigSessions:
         self.c.writer.hold_source(resource_key(spec.kind, spec.path), "the rigside window")
         registered = self.c.writer.call(lambda c: store.register_rig(
             c, name=spec.name, kind=spec.kind, key=key, usb_serial=spec.usb_serial,
-            mapping=str(spec.mapping_path) if spec.mapping_path else None, valve_ul_per_ms=spec.valve_ul_per_ms))
+            mapping=str(spec.mapping_path) if spec.mapping_path else None, valve_ul_per_ms=spec.valve_ul_per_ms,
+            decoder_factory=decoder_factory(spec.mapping_path)))
         return spec, protocol, registered
 
     def _start_rig(self, registered: tuple[RigSpec, LoadedProtocol, store.RegisteredRig], start: bool = True,
@@ -100,6 +101,7 @@ class RigSessions:
             from drivers.tail import FileTail
 
             source = FileTail(spec.path, fanout, decoder_factory=factory, resume=rows.resume,
+                              resume_notice=rows.resume_notice,
                               should_pause=lambda: self.c.writer.backlogged)
         else:
             from drivers.serial import SerialSource
