@@ -61,6 +61,25 @@ class ImportRefused(Exception):
 class AlreadyImported(ImportRefused):
     """The same bytes were imported before (perhaps by another process a moment ago)."""
 
+    meanwhile = "imported meanwhile by another process"
+
+
+class RecordedMeanwhile(AlreadyImported):
+    """A recorder follows the file live into this store now (its source lock): importing it would store its
+    events twice."""
+
+    meanwhile = "recorded live meanwhile"
+
+
+def refuse_if_recording(conn: sqlite3.Connection, path: Path) -> None:
+    """Raise RecordedMeanwhile when a recorder (`rigside record`, the window) follows `path` into this store
+    now; it then stores the file's events itself (after any imported bytes: `imported_start`)."""
+    from monitor.store.source_locks import holder_of, resource_key
+
+    busy = holder_of(conn, resource_key("file", str(path)))
+    if busy is not None:
+        raise RecordedMeanwhile(f"{path}: {busy}: importing it would store its events twice; nothing was changed")
+
 
 class Abandoned(Exception):
     """A file the import stopped storing: not begun, or rolled back before its commit."""
@@ -482,8 +501,10 @@ def rig_calibrations(conn: sqlite3.Connection) -> dict[str, float]:
 
 def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text: str, protocol_name: str,
                  protocol_version: int, mapping_text: str | None = None) -> Imported:
-    """Store a parsed file in the caller's transaction: its import row, sessions, events, raw lines, trials."""
+    """Store a parsed file in the caller's transaction: its import row, sessions, events, raw lines, trials
+    (refused when the same bytes were imported, or a recorder follows the file now)."""
     refuse_if_imported(conn, Path(parsed.path), parsed.digest)
+    refuse_if_recording(conn, Path(parsed.path))
     sessions = parsed.sessions
     total_events = sum(len(s.events) for s in sessions)
     total_malformed = sum(s.malformed for s in sessions)

@@ -57,26 +57,38 @@ def acquire(conn: sqlite3.Connection, key: str, holder: str, now: float | None =
     `SourceBusy` when a live holder has it.
     """
     now = time.time() if now is None else now
-    row = conn.execute("SELECT holder, host, pid, taken_at, heartbeat_at FROM source_locks WHERE resource = ?",
+    busy = holder_of(conn, key, now)
+    if busy is not None:
+        raise SourceBusy(f"{busy}; stop it first")
+    row = conn.execute("SELECT holder, host, pid, heartbeat_at FROM source_locks WHERE resource = ?",
                        (key,)).fetchone()
     notice = None
-    if row is not None:
-        other, host, pid, taken_at, beat = row
-        alive = _alive(host, pid)
-        silent = now - beat
-        # same host: the process decides (a writer kept off the file by a long lock is still the holder);
-        # its id reused by another program after a crash shows as a heartbeat silent for REUSED_S
-        stale = alive is False or silent > (REUSED_S if alive else STALE_S)
-        if not stale:
-            since = datetime.fromtimestamp(taken_at).astimezone().isoformat(timespec="seconds")
-            raise SourceBusy(f"{key.partition(':')[2]} is being recorded into this database by {other} "
-                             f"(process {pid} on {host}, since {since}); stop it first")
-        why = "its process has ended" if alive is False else f"no sign of life for {silent:.0f} s"
+    if row is not None:  # a stale holder's
+        other, host, pid, beat = row
+        why = "its process has ended" if _alive(host, pid) is False else f"no sign of life for {now - beat:.0f} s"
         notice = f"took over the lock of {other} (process {pid} on {host}): {why}"
         conn.execute("DELETE FROM source_locks WHERE resource = ?", (key,))
     conn.execute("INSERT INTO source_locks (resource, holder, host, pid, taken_at, heartbeat_at) "
                  "VALUES (?, ?, ?, ?, ?, ?)", (key, holder, socket.gethostname(), os.getpid(), now, now))
     return notice
+
+
+def holder_of(conn: sqlite3.Connection, key: str, now: float | None = None) -> str | None:
+    """Who records `key` into this store now, in words (None when nobody does, or only a stale holder)."""
+    now = time.time() if now is None else now
+    row = conn.execute("SELECT holder, host, pid, taken_at, heartbeat_at FROM source_locks WHERE resource = ?",
+                       (key,)).fetchone()
+    if row is None:
+        return None
+    other, host, pid, taken_at, beat = row
+    alive = _alive(host, pid)
+    # same host: the process decides (a writer kept off the file by a long lock is still the holder);
+    # its id reused by another program after a crash shows as a heartbeat silent for REUSED_S
+    if alive is False or now - beat > (REUSED_S if alive else STALE_S):
+        return None
+    since = datetime.fromtimestamp(taken_at).astimezone().isoformat(timespec="seconds")
+    return (f"{key.partition(':')[2]} is being recorded into this database by {other} "
+            f"(process {pid} on {host}, since {since})")
 
 
 def heartbeat(conn: sqlite3.Connection, keys: list[str], now: float | None = None) -> None:

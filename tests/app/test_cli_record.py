@@ -254,3 +254,27 @@ def test_a_log_file_imported_while_written_is_recorded_live_after_the_imported_b
         assert conn.execute("SELECT COUNT(*) FROM sessions WHERE excluded = 1").fetchone()[0] == 0
     finally:
         conn.close()
+
+
+def test_a_log_file_a_recorder_follows_now_is_skipped_by_an_import_with_a_clear_line(tmp_path):
+    """The day's folder imported while `rigside record` follows one of its logs (nothing stored from it yet):
+    refused, or skipped with --skip-imported, naming the recorder; the other files are imported."""
+    log, other = tmp_path / "box1.rsw", tmp_path / "box2.rsw"
+    log.write_bytes(b"")
+    other.write_bytes(encode_header(fw="t") + b"".join(event_line(i) for i in range(30)))
+    db, protocol = tmp_path / "store.sqlite3", tmp_path / "p.toml"
+    recorder = subprocess.Popen([sys.executable, "-m", "monitor.app", *record_args(tmp_path, f"file:{log}")],
+                                stderr=subprocess.PIPE, text=True)
+    try:
+        lines = StderrLines(recorder)
+        wait_for(lambda: lines.has("never read before"), timeout=30)
+        common = ("--animal", "heron", "--protocol", str(protocol), "--db", str(db), "--no-fit")
+        refused = cli("import", str(log), str(other), *common)
+        assert refused.returncode == 2 and "is being recorded into this database by rigside record" in refused.stderr
+        assert "store its events twice" in refused.stderr and stored_times(db) == []
+        done = cli("import", str(log), str(other), *common, "--skip-imported", "--quiet")
+        assert done.returncode == 0, done.stderr
+        assert f"skipped {log}: " in done.stderr and stored_times(db) == list(range(30))
+    finally:
+        recorder.send_signal(signal.SIGTERM)
+        recorder.wait(timeout=30)

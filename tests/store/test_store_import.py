@@ -276,3 +276,23 @@ def test_a_live_recorded_session_is_reported_before_and_after_its_trials_are_der
     assert (live["trials"], live["hits"]) == (6, 2)  # only 600 and 700 lie inside 650 ± 130 (520-780)
     assert rebuild_missing(conn) == 1 and rebuild_missing(conn) == 0
     assert report(conn, "heron")["animals"][0]["sessions"][0] == live
+
+
+def test_a_file_a_recorder_follows_now_is_not_imported_and_a_stale_lock_does_not_stop_it(tmp_path):
+    """A recorder (`rigside record`, the window) holds its file's source lock from before it reads: an import of
+    that file, even one checked before the recorder began, is refused when it stores (the recorder stores those
+    events itself); the lock of a recorder that is gone does not stop the import."""
+    from monitor.store.importer import RecordedMeanwhile
+    from monitor.store.source_locks import STALE_S, acquire, resource_key
+
+    conn = open_store(tmp_path / "store.sqlite3")
+    log = tmp_path / "box1.rsw"
+    log.write_bytes(encode_header(fw="t") + b"".join(encode_event(i, "lever_down") for i in range(20)))
+    with conn:
+        acquire(conn, resource_key("file", str(tmp_path / "." / "box1.rsw")), "rigside record")
+    with pytest.raises(RecordedMeanwhile, match="is being recorded into this database by rigside record"):
+        do_import(conn, log, PROTOCOL, animal="heron")
+    assert conn.execute("SELECT count(*) FROM events").fetchone()[0] == 0
+    with conn:  # the holder went silent long ago on another host: stale
+        conn.execute("UPDATE source_locks SET host = 'elsewhere', heartbeat_at = heartbeat_at - ?", (STALE_S + 1,))
+    assert do_import(conn, log, PROTOCOL, animal="heron").events == 20

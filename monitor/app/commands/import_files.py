@@ -215,6 +215,7 @@ def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict
                                         animals_imported_from, commit_file, event_codes, file_digest, grown_from,
                                         parse_file, recorded_live, rig_calibrations)
     from monitor.store.reporting import load_libraries
+    from monitor.store.source_locks import holder_of, resource_key
 
     try:
         conn = open_store(db, busy_timeout_ms=int(wait * 1000))
@@ -233,6 +234,14 @@ def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict
                 skipped.append(path)
                 of_skipped.update(animals_imported_from(conn, file_digest(data)))
                 tracker.say(f"skipped {path}: already imported (same content as {earlier[0]})")
+                continue
+            busy = holder_of(conn, resource_key("file", str(path)))
+            if busy is not None:
+                if not skip_imported:
+                    raise UsageError(f"FILE: {busy}: importing it would store its events twice; nothing imported "
+                                     "(--skip-imported skips it and imports the rest)")
+                skipped.append(path)
+                tracker.say(f"skipped {path}: {busy}")
                 continue
             live = recorded_live(conn, data)
             if live is not None:
@@ -270,7 +279,7 @@ def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict
         fits: dict[str, Future] = {}
         fitted, fits_stopped = 0, False
         interrupted = False
-        refused: Path | None = None  # a file another process imported meanwhile (without --skip-imported)
+        refused: tuple[Path, str] | None = None  # a file imported or recorded meanwhile, how (no --skip-imported)
         last: str | None = None
         done = 0  # files stored or skipped so far
         untold: list[str] = []  # animals finished while the import was stopping: their entries come at the end
@@ -309,18 +318,18 @@ def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict
                                 "superseded, kept in the store (the window can count them again)")
                 return finished.stored(holds[index], result.animals)
 
-            def imported_meanwhile(index: int) -> list[str]:
-                """File `index` was imported meanwhile by another process: skipped with --skip-imported (the
-                animals now finished), else the import stops (`refused`)."""
+            def imported_meanwhile(index: int, exc: AlreadyImported) -> list[str]:
+                """File `index` was imported meanwhile by another process (or a recorder began to follow it):
+                skipped with --skip-imported (the animals now finished), else the import stops (`refused`)."""
                 nonlocal refused, done
                 path = contents[index][0]
                 if not skip_imported:
-                    refused = refused or path
+                    refused = refused or (path, exc.meanwhile)
                     return []
                 skipped.append(path)
                 done += 1
                 tracker.advance()
-                tracker.say(f"[{done}/{len(contents)}] skipped {path.name}: imported meanwhile by another process")
+                tracker.say(f"[{done}/{len(contents)}] skipped {path.name}: {exc.meanwhile}")
                 return finished.stored(holds[index], [])
 
             def taken(index: int, future: Future) -> list[str]:
@@ -331,8 +340,8 @@ def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict
                     result, replaced = future.result()
                 except Abandoned:
                     return []
-                except AlreadyImported:
-                    return imported_meanwhile(index)
+                except AlreadyImported as exc:
+                    return imported_meanwhile(index, exc)
                 return stored(index, result, replaced)
 
             try:
@@ -346,8 +355,8 @@ def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict
                         parsed = parse_file(path, data, **parse_options)
                         try:
                             result, replaced = commit_file(conn, parsed, grown.get(path, []), who, **store_options)
-                        except AlreadyImported:
-                            ready(imported_meanwhile(index))
+                        except AlreadyImported as exc:
+                            ready(imported_meanwhile(index, exc))
                             if refused is not None:
                                 break
                             continue
@@ -382,7 +391,7 @@ def _import_checked(db: Path, contents: list[tuple[Path, bytes]], protocol: dict
             except KeyboardInterrupt:  # a second Ctrl-C: the files being stored were rolled back, the finished stay
                 interrupted = True
             if refused is not None:
-                raise UsageError(f"FILE: {refused} was imported meanwhile by another process; {imported} of "
+                raise UsageError(f"FILE: {refused[0]} was {refused[1]}; {imported} of "
                                  f"{len(contents)} files imported, the rest not (the same command with "
                                  "--skip-imported imports them)")
             if interrupted:
