@@ -196,7 +196,8 @@ class ImportedStart:
 def imported_start(conn: sqlite3.Connection, path: str, decoder_factory: Callable[[], Any]) -> ImportedStart | None:
     """For a file source never read live: the longest earlier import of a file of the same name whose bytes
     are the beginning of the file now, and where to follow the file after them (`drivers.tail.position_after`;
-    an import is a whole read, so its events are stored already); None when there is none."""
+    an import is a whole read, so its events are stored already); None when there is none, or the file cannot
+    be read now (the reader then waits for it as for any file)."""
     from drivers.tail import position_after
 
     name = Path(path).name
@@ -212,11 +213,9 @@ def imported_start(conn: sqlite3.Connection, path: str, decoder_factory: Callabl
                 hashed = stored
                 if re.split(r"[\\/]", earlier)[-1] == name and head.copy().hexdigest() == digest:
                     best = (stored, imported_at, events)
-    except FileNotFoundError:
+        position = None if best is None else position_after(path, best[0], decoder_factory)
+    except OSError:
         return None
-    if best is None:
-        return None
-    position = position_after(path, best[0], decoder_factory)
     return None if position is None else ImportedStart(position, *best)
 
 
