@@ -3,7 +3,8 @@
 Rule: a file is imported once: its SHA-256 is stored in `imports` in the same
 transaction as its sessions, events, raw lines and trials, so a crash leaves
 all of the file or none, and the same bytes (under any name) are refused
-afterwards; so is a log file whose beginning was recorded live
+afterwards, as are other bytes that hold sessions stored already (the same
+animal, start and events: `refuse_if_stored`); so is a log file whose beginning was recorded live
 (`recorded_live`). A file whose beginning was imported earlier under the same
 name (imported while still being written: `grown_from`) is stored whole and the
 earlier import's sessions are excluded as superseded (`supersede`) in its
@@ -45,13 +46,16 @@ from drivers.status import FilePosition
 from drivers.wire import Event, Header, Malformed, Record, WireDecoder
 from monitor.store.derive import derive_events, store_trials, trial_row
 from monitor.store.registry import ensure_animal, ensure_protocol
-from monitor.store.rows import Codes, insert_rows, recode, session_rows
+from monitor.store.rows import EVENT_COLUMNS, Codes, insert_rows, recode, session_rows
 from monitor.store.schema import KNOWN_EVENT_CODES
 
 GAP_S = 2 * 3600.0  # a pause longer than this between two events of one animal starts a new session
 PRESSES = frozenset({"lever_down", "lever_up", "joystick", "trial_start", "outcome"})
 _FILE_ANIMAL = re.compile(r"^(?P<animal>.+?)_s\d+$")
 _EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
+
+
+_CONTENT = slice(EVENT_COLUMNS.index("t_us"), None)  # an event row without its segment and line numbers
 
 
 class ImportRefused(Exception):
@@ -69,6 +73,42 @@ class RecordedMeanwhile(AlreadyImported):
     events twice."""
 
     meanwhile = "recorded live meanwhile"
+
+
+class StoredAlready(AlreadyImported):
+    """The file's sessions are stored already from other bytes: the same animal, start and events (a copy
+    whose line endings were changed on the way, say)."""
+
+    meanwhile = "stored already from other bytes (the same animal, start and events: a copy re-saved on the way?)"
+
+
+def refuse_if_stored(conn: sqlite3.Connection, parsed: ParsedFile, remap: dict[int, int]) -> None:
+    """Raise StoredAlready when sessions of `parsed` are stored already (not excluded): a stored session of
+    the same animal that starts at the same moment and whose events begin with exactly this session's
+    (device time, counter, event, arguments, wall time). Bytes differ where content does not (CRLF line
+    endings from a copy or an editor), so the file's digest alone would store those events twice."""
+    twins: list[str] = []
+    for session in parsed.sessions:
+        events = [row[_CONTENT] for row in recode(session.events, remap)]
+        for session_id, label, earlier, first, last in conn.execute(
+                "SELECT s.id, s.label, coalesce(i.path, 'recorded live'), s.first_event, s.last_event "
+                "FROM sessions AS s JOIN animals AS a ON a.id = s.animal_id "
+                "LEFT JOIN imports AS i ON i.id = s.import_id "
+                "WHERE a.name = ? AND s.started_at = ? AND s.excluded = 0 ORDER BY s.id",
+                (session.animal, session.start.timestamp())).fetchall():
+            where, args = "session_id = ?", [session_id]
+            if first is not None and last is not None:
+                where, args = "rowid BETWEEN ? AND ? AND session_id = ?", [first, last, session_id]
+            stored = conn.execute(f"SELECT t_us, raw_time, code, value, wall FROM events WHERE {where} "
+                                  "ORDER BY rowid LIMIT ?", [*args, len(events)]).fetchall()
+            if stored == events:
+                twins.append(f"{label} ({earlier})")
+                break
+    if twins:
+        named = ", ".join(twins[:3]) + (", ..." if len(twins) > 3 else "")
+        raise StoredAlready(f"{parsed.path}: {len(twins)} of its {len(parsed.sessions)} sessions are stored already "
+                            f"from other bytes: {named}, the same animal, start and events (a copy whose line "
+                            "endings changed?); importing it would store their events twice; nothing was changed")
 
 
 def refuse_if_recording(conn: sqlite3.Connection, path: Path) -> None:
@@ -501,9 +541,12 @@ def rig_calibrations(conn: sqlite3.Connection) -> dict[str, float]:
 def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text: str, protocol_name: str,
                  protocol_version: int, mapping_text: str | None = None) -> Imported:
     """Store a parsed file in the caller's transaction: its import row, sessions, events, raw lines, trials
-    (refused when the same bytes were imported, or a recorder follows the file now)."""
+    (refused when the same bytes were imported, its sessions are stored already from other bytes, or a
+    recorder follows the file now)."""
     refuse_if_imported(conn, Path(parsed.path), parsed.digest)
     refuse_if_recording(conn, Path(parsed.path))
+    remap = parsed.codes.settle(conn)  # words new to the store since the file was parsed
+    refuse_if_stored(conn, parsed, remap)
     sessions = parsed.sessions
     total_events = sum(len(s.events) for s in sessions)
     total_malformed = sum(s.malformed for s in sessions)
@@ -513,7 +556,6 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
         (parsed.path, parsed.digest, parsed.size, "mapped" if parsed.mapped else "wire", mapping_text, time.time(),
          len(sessions), total_events, total_malformed)).lastrowid
     protocol_id = ensure_protocol(conn, protocol_name, protocol_version, protocol_text)
-    remap = parsed.codes.settle(conn)  # words new to the store since the file was parsed
     trials = 0
     for session in sessions:
         trials += _store_session(conn, session, import_id, protocol_id, protocol_name, protocol_version,

@@ -17,6 +17,7 @@ from pathlib import Path
 
 import pytest
 
+from drivers.wire import encode_event, encode_header
 from mock_rig.history import cohort, write_history
 from monitor.app.cli import main
 
@@ -332,3 +333,32 @@ def test_a_real_terminal_that_states_no_size_still_gets_the_bar(cohort_store, tm
     os.close(main_fd)
     assert process.wait(timeout=120) == 0
     assert b"exporting trials" in drawn and b"row/s" in drawn
+
+
+def test_copies_whose_line_endings_changed_are_skipped_by_the_storing_workers(cohort_store, tmp_path, capsys,
+                                                                              monkeypatch):
+    """An animal's files copied again after a text-mode transfer (CRLF), beside one new file: the workers
+    that store files side by side (--jobs 2, over 1 MB) skip the copies, naming each, and store the new one;
+    without --skip-imported nothing of the copies goes in."""
+    import shutil
+
+    history, stored = cohort_store
+    db = tmp_path / "store.sqlite3"
+    shutil.copy(stored, db)
+    copies = tmp_path / "copied"
+    copies.mkdir()
+    for path in sorted(history.glob("alder_s*.rsw")):
+        (copies / path.name).write_bytes(path.read_bytes().replace(b"\n", b"\r\n"))
+    assert sum(p.stat().st_size for p in copies.iterdir()) > 1_000_000   # the workers store them
+    new = copies / "alder_s99.rsw"
+    new.write_bytes(encode_header(fw="t", start="2026-03-02T09:00:00+00:00")
+                    + b"".join(encode_event(i * 700_000, "lever_down") for i in range(100)))
+    before = count(db, "events")
+    args = ["import", *sorted(copies.iterdir()), "--protocol", history / "alder.protocol.toml", "--db", db,
+            "--no-fit", "--quiet", "--jobs", "2"]
+    code, _, err = run(capsys, monkeypatch, io.StringIO(), *args)
+    assert code == 2 and "was stored already from other bytes" in err
+    code, out, err = run(capsys, monkeypatch, io.StringIO(), *args, "--skip-imported")
+    assert code == 0, err
+    assert err.count("stored already from other bytes") == len(list(history.glob("alder_s*.rsw")))
+    assert count(db, "events") - before == 100

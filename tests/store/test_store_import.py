@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from drivers.mapping import parse_mapping
-from drivers.wire import decode_all, encode_event, encode_header
+from drivers.wire import Event, decode_all, encode_event, encode_header
 from monitor.core.protocol import parse_protocol
 from monitor.core.session.animal_report import SessionData, animal_report
 from monitor.store.db import open_store
@@ -296,3 +296,33 @@ def test_a_file_a_recorder_follows_now_is_not_imported_and_a_stale_lock_does_not
     with conn:  # the holder went silent long ago on another host: stale
         conn.execute("UPDATE source_locks SET host = 'elsewhere', heartbeat_at = heartbeat_at - ?", (STALE_S + 1,))
     assert do_import(conn, log, PROTOCOL, animal="heron").events == 20
+
+
+def test_a_copy_whose_line_endings_changed_is_refused_as_stored_already(tmp_path, mock_history):
+    """The same session file after a copy that turned LF into CRLF (a text-mode transfer, an editor): other
+    bytes, so another digest, but the same animal, start and events: refused, whole or cut short, alone or
+    beside a new session, and the sessions it names are the stored ones; once those are excluded it goes in."""
+    from monitor.store.importer import StoredAlready
+    from monitor.store.session_changes import set_excluded
+
+    out, _ = mock_history
+    conn = open_store(tmp_path / "store.sqlite3")
+    original = sorted(out.glob("*_s01.rsw"))[0]
+    do_import(conn, original, PROTOCOL, animal="heron")
+    data = original.read_bytes()
+    crlf = data.replace(b"\n", b"\r\n")
+    cut = crlf[: crlf.index(b"\r\n", len(crlf) // 2) + 2]           # the copy made while the rig still wrote
+    later = sorted(out.glob("*_s02.rsw"))[0].read_bytes().replace(b"\n", b"\r\n")
+    counts = [conn.execute(f"SELECT count(*) FROM {t}").fetchone()[0] for t in ("events", "sessions", "imports")]
+    for name, content, sessions in (("copy.rsw", crlf, "1 of its 1"), ("cut.rsw", cut, "1 of its 1"),
+                                    ("both.rsw", crlf + later, "1 of its 2")):
+        copy = tmp_path / name
+        copy.write_bytes(content)
+        with pytest.raises(StoredAlready, match=f"{sessions} sessions are stored already from other bytes: "
+                                                f"{original.name}#1 \\({original}\\)"):
+            do_import(conn, copy, PROTOCOL, animal="heron")
+    assert counts == [conn.execute(f"SELECT count(*) FROM {t}").fetchone()[0] for t in ("events", "sessions", "imports")]
+    with conn:
+        set_excluded(conn, 1, True, operator="test", reason="the copy is kept instead")
+    assert do_import(conn, tmp_path / "copy.rsw", PROTOCOL, animal="heron").events == len(
+        [r for r in decode_all(data) if isinstance(r, Event)])
