@@ -31,31 +31,43 @@ import multiprocessing
 import os
 import signal
 import sqlite3
+import threading
 from collections import Counter, deque
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager, nullcontext
-from concurrent.futures import CancelledError, Future, ProcessPoolExecutor
+from concurrent.futures import CancelledError, Future, ProcessPoolExecutor, wait
 from pathlib import Path
 from typing import Any
 
 from monitor.store.orphans import end_with_parent
 
+STARTING_S = 60.0  # a worker's start takes about half a second; a PC busy enough to take longer still ends
 FEW_COLLECTIONS = 1_000_000  # new objects between two collections of the youngest generation (Python's default: 700)
 
 _cancelled: Any = None  # in a worker: the pool's cancel event (fits stop, a file under way rolls back)
 _halted: Any = None  # in a worker: the pool's halt event (no other file begins)
 _writing: Any = None  # in a worker: the pool's lock, held while a file is stored
+_gathering: Any = None  # in a worker: the pool's barrier, passed once every worker has started
 _stores: dict[str, sqlite3.Connection] = {}  # in a worker: its connection to each store it writes
 
 
-def _start_worker(cancel: Any, halted: Any, writing: Any) -> None:
+def _start_worker(cancel: Any, halted: Any, writing: Any, gathering: Any) -> None:
     """A worker's first step: it ends with the importing process (monitor.store.orphans); Ctrl-C is the importing
-    process's to handle; remember the pool's events and lock; collect garbage rarely."""
-    global _cancelled, _halted, _writing
+    process's to handle; remember the pool's events, lock and barrier; collect garbage rarely."""
+    global _cancelled, _halted, _writing, _gathering
     end_with_parent()
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    _cancelled, _halted, _writing = cancel, halted, writing
+    _cancelled, _halted, _writing, _gathering = cancel, halted, writing, gathering
     gc.set_threshold(FEW_COLLECTIONS, *gc.get_threshold()[1:])
+
+
+def _gather() -> None:
+    """A worker's first job: wait until every worker of the pool has started (a worker waiting here takes no
+    other job, so each worker takes one of these)."""
+    try:
+        _gathering.wait(timeout=STARTING_S)
+    except threading.BrokenBarrierError:  # a worker did not start: the pool reports it on the files' futures
+        pass
 
 
 def import_file(db: str, wait_ms: int, path: Path, data: bytes, parse_options: dict[str, Any],
@@ -140,14 +152,15 @@ class ImportPool:
         # taken by a worker around each file's transaction (and by the caller around its own writes): the next
         # writer starts the moment the lock is free, where SQLite's busy handler would sleep 1 to 100 ms
         self.writing = context.Lock()
+        gathering = context.Barrier(workers)
         self._saved = {key: os.environ.get(key) for key in ONE_CORE}
         os.environ.update(ONE_CORE)  # read by each worker's interpreter as it starts, before numpy loads
         self._pool = ProcessPoolExecutor(max_workers=workers, mp_context=context, initializer=_start_worker,
-                                         initargs=(self.cancel, self.halted, self.writing))
+                                         initargs=(self.cancel, self.halted, self.writing, gathering))
         self._held: deque[tuple[Callable[..., Any], tuple, Future]] = deque()
         self._handing_out = True
-        for _ in range(workers):  # start every worker now (each takes about half a second to start)
-            self._submit(os.getpid)
+        # start every worker now (each takes about half a second to start)
+        self._starting = [self._submit(_gather) for _ in range(workers)]
 
     def hand_out(self, job: Callable[..., Any], jobs: Sequence[tuple]) -> dict[Future, int]:
         """`job(*args)` for every `args` of `jobs`, taken by the workers in that order; each future with its
@@ -189,9 +202,16 @@ class ImportPool:
         self._handing_out = False
         self._release()
 
+    def _started(self) -> None:
+        """Wait until every worker has started (or failed to). A worker still starting reads the pool's lock,
+        events and barrier from this process, and they vanish with the pool once it is shut down without
+        waiting: the worker would end on a traceback printed after the command's own last line."""
+        wait(self._starting, timeout=STARTING_S)
+
     def stop(self) -> None:
         """Cancel: jobs not started are dropped, a file under way rolls back, running fits stop at their next
         check (nothing saved)."""
+        self._started()
         self.cancel.set()
         self.halted.set()
         while self._held:
@@ -202,6 +222,7 @@ class ImportPool:
         return self
 
     def __exit__(self, *exc: object) -> None:
+        self._started()
         if exc[0] is not None:
             self.stop()
         self._pool.shutdown(wait=True, cancel_futures=exc[0] is not None)

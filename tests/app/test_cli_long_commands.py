@@ -362,3 +362,15 @@ def test_copies_whose_line_endings_changed_are_skipped_by_the_storing_workers(co
     assert code == 0, err
     assert err.count("stored already from other bytes") == len(list(history.glob("alder_s*.rsw")))
     assert count(db, "events") - before == 100
+
+
+def test_an_import_refused_while_its_workers_start_ends_on_its_own_line_only(cohort_store):
+    """Files already imported, over 1 MB (the workers start while the files are checked): the refusal is the
+    command's one line, and no worker, still starting when the pool ended, adds a traceback after it."""
+    history, db = cohort_store
+    for _ in range(2):
+        process = rigside("import", *sorted(history.glob("alder_s*.rsw")), "--protocol",
+                          history / "alder.protocol.toml", "--db", db, "--no-fit", "--quiet", "--jobs", "2")
+        out, err = process.communicate(timeout=120)   # until every process holding the pipes has ended
+        assert process.returncode == 2 and "already imported" in err
+        assert err.count("\n") == 1 and "Traceback" not in err, err
