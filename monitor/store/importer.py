@@ -4,7 +4,7 @@ Rule: a file is imported once: its SHA-256 is stored in `imports` in the same
 transaction as its sessions, events, raw lines and trials, so a crash leaves
 all of the file or none, and the same bytes (under any name) are refused
 afterwards, as are other bytes that hold sessions stored already (the same
-animal, start and events: `refuse_if_stored`); so is a log file whose beginning was recorded live
+animal, start and events: `stored_before`); so is a log file whose beginning was recorded live
 (`recorded_live`). A file whose beginning was imported earlier under the same
 name (imported while still being written: `grown_from`) is stored whole and the
 earlier import's sessions are excluded as superseded (`supersede`) in its
@@ -82,16 +82,19 @@ class StoredAlready(AlreadyImported):
     meanwhile = "stored already from other bytes (the same animal, start and events: a copy re-saved on the way?)"
 
 
-def refuse_if_stored(conn: sqlite3.Connection, parsed: ParsedFile, remap: dict[int, int]) -> None:
-    """Raise StoredAlready when sessions of `parsed` are stored already (not excluded): a stored session of
-    the same animal that starts at the same moment and whose events begin with exactly this session's
-    (device time, counter, event, arguments, wall time). Bytes differ where content does not (CRLF line
-    endings from a copy or an editor), so the file's digest alone would store those events twice."""
+def stored_before(conn: sqlite3.Connection, parsed: ParsedFile, remap: dict[int, int]) -> list[Grown]:
+    """The file's sessions against the stored ones (not excluded) of the same animal that start at the same
+    moment, by content (device time, counter, event, arguments, wall time): bytes differ where content does
+    not (CRLF line endings from a copy or an editor), so the file's digest alone would store events twice.
+    Raises StoredAlready when a stored session's events begin with exactly a session of the file (the same
+    session, or the file cut short); returns the imported sessions whose events are a proper beginning of a
+    session of the file (it grew since, and came by other bytes): the caller supersedes them."""
     twins: list[str] = []
+    grown: list[Grown] = []
     for session in parsed.sessions:
         events = [row[_CONTENT] for row in recode(session.events, remap)]
-        for session_id, label, earlier, first, last in conn.execute(
-                "SELECT s.id, s.label, coalesce(i.path, 'recorded live'), s.first_event, s.last_event "
+        for session_id, label, earlier, imported_at, first, last in conn.execute(
+                "SELECT s.id, s.label, coalesce(i.path, 'recorded live'), i.imported_at, s.first_event, s.last_event "
                 "FROM sessions AS s JOIN animals AS a ON a.id = s.animal_id "
                 "LEFT JOIN imports AS i ON i.id = s.import_id "
                 "WHERE a.name = ? AND s.started_at = ? AND s.excluded = 0 ORDER BY s.id",
@@ -100,15 +103,18 @@ def refuse_if_stored(conn: sqlite3.Connection, parsed: ParsedFile, remap: dict[i
             if first is not None and last is not None:
                 where, args = "rowid BETWEEN ? AND ? AND session_id = ?", [first, last, session_id]
             stored = conn.execute(f"SELECT t_us, raw_time, code, value, wall FROM events WHERE {where} "
-                                  "ORDER BY rowid LIMIT ?", [*args, len(events)]).fetchall()
-            if stored == events:
+                                  "ORDER BY rowid LIMIT ?", [*args, len(events) + 1]).fetchall()
+            if stored[: len(events)] == events:
                 twins.append(f"{label} ({earlier})")
                 break
+            if imported_at is not None and stored == events[: len(stored)]:
+                grown.append(Grown(imported_at, (session_id,)))
     if twins:
         named = ", ".join(twins[:3]) + (", ..." if len(twins) > 3 else "")
         raise StoredAlready(f"{parsed.path}: {len(twins)} of its {len(parsed.sessions)} sessions are stored already "
                             f"from other bytes: {named}, the same animal, start and events (a copy whose line "
                             "endings changed?); importing it would store their events twice; nothing was changed")
+    return grown
 
 
 def refuse_if_recording(conn: sqlite3.Connection, path: Path) -> None:
@@ -154,6 +160,7 @@ class Imported:
     labels: tuple[str, ...]
     notices: tuple[str, ...]
     animals: tuple[str, ...]
+    grown: tuple[Grown, ...] = ()  # imported sessions this file holds grown, by content (`stored_before`)
 
 
 def file_digest(data: bytes) -> str:
@@ -542,11 +549,11 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
                  protocol_version: int, mapping_text: str | None = None) -> Imported:
     """Store a parsed file in the caller's transaction: its import row, sessions, events, raw lines, trials
     (refused when the same bytes were imported, its sessions are stored already from other bytes, or a
-    recorder follows the file now)."""
+    recorder follows the file now); `Imported.grown` names the imported sessions it holds grown."""
     refuse_if_imported(conn, Path(parsed.path), parsed.digest)
     refuse_if_recording(conn, Path(parsed.path))
     remap = parsed.codes.settle(conn)  # words new to the store since the file was parsed
-    refuse_if_stored(conn, parsed, remap)
+    grown = stored_before(conn, parsed, remap)
     sessions = parsed.sessions
     total_events = sum(len(s.events) for s in sessions)
     total_malformed = sum(s.malformed for s in sessions)
@@ -566,17 +573,20 @@ def store_parsed(conn: sqlite3.Connection, parsed: ParsedFile, *, protocol_text:
                          "VALUES (?, NULL, NULL, 'notice', ?, NULL)", [(first, n) for n in parsed.notices])
     return Imported(parsed.path, len(sessions), total_events, total_malformed, trials,
                     tuple(s.label for s in sessions), tuple(parsed.notices),
-                    tuple(sorted({s.animal for s in sessions})))
+                    tuple(sorted({s.animal for s in sessions})), tuple(grown))
 
 
 def commit_file(conn: sqlite3.Connection, parsed: ParsedFile, earlier: list[Grown], operator: str, *,
                 keep: Callable[[], bool] | None = None, **store_options: Any) -> tuple[Imported, int]:
     """A parsed file in a transaction of its own (BEGIN IMMEDIATE): its rows (`store_parsed`) and the earlier
-    imports of it that it supersedes (`supersede`); (what it held, sessions superseded). Any error, a Ctrl-C
+    imports of it that it supersedes (`supersede`: `earlier`, found by bytes, and the sessions it holds grown,
+    found by content); (what it held, sessions superseded). Any error, a Ctrl-C
     included, rolls it back; so does `keep()` saying no just before the commit (then Abandoned)."""
     conn.execute("BEGIN IMMEDIATE")
     try:
         result = store_parsed(conn, parsed, **store_options)
+        known = {i for e in earlier for i in e.sessions}
+        earlier = earlier + [g for g in result.grown if not known & set(g.sessions)]
         replaced = supersede(conn, earlier, Path(parsed.path), operator) if earlier else 0
         if keep is not None and not keep():
             raise Abandoned(f"{parsed.path}: rolled back")

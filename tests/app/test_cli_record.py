@@ -278,3 +278,34 @@ def test_a_log_file_a_recorder_follows_now_is_skipped_by_an_import_with_a_clear_
     finally:
         recorder.send_signal(signal.SIGTERM)
         recorder.wait(timeout=30)
+
+
+def test_a_grown_copy_whose_line_endings_changed_supersedes_the_import_made_while_written(tmp_path):
+    """A log imported while its rig still wrote it, then the finished log copied through a text-mode transfer
+    (CRLF, another folder): other bytes, so not found by its bytes, but its session holds the imported one grown.
+    The earlier session is excluded as superseded (kept, flagged), so every event counts once; the same copy
+    cut short instead is refused as stored already."""
+    whole = encode_header(fw="t", start="2026-03-02T09:00:00+00:00") + b"".join(event_line(i) for i in range(300))
+    log = tmp_path / "box1.rsw"
+    log.write_bytes(whole[: whole.index(event_line(120))])
+    db, protocol = tmp_path / "store.sqlite3", tmp_path / "p.toml"
+    protocol.write_text(PROTOCOL)
+    common = ("--animal", "heron", "--protocol", str(protocol), "--db", str(db), "--no-fit", "--quiet")
+    assert cli("import", str(log), *common).returncode == 0
+    copies = tmp_path / "copied"
+    copies.mkdir()
+    (copies / "box1.rsw").write_bytes(whole[: whole.index(event_line(60))].replace(b"\n", b"\r\n"))
+    cut = cli("import", str(copies / "box1.rsw"), *common)
+    assert cut.returncode == 2 and "stored already from other bytes" in cut.stderr
+    (copies / "box1.rsw").write_bytes(whole.replace(b"\n", b"\r\n"))
+    grown = cli("import", str(copies / "box1.rsw"), *common)
+    assert grown.returncode == 0, grown.stderr
+    assert "1 earlier session of it now excluded as superseded" in grown.stderr
+    conn = sqlite3.connect(db)
+    try:   # plain sqlite3: the events of the sessions that count
+        counted = [r[0] for r in conn.execute("SELECT e.raw_time FROM events e JOIN sessions s "
+                                              "ON s.id = e.session_id WHERE s.excluded = 0 ORDER BY e.rowid")]
+        assert conn.execute("SELECT count(*) FROM sessions WHERE excluded = 1").fetchone()[0] == 1
+    finally:
+        conn.close()
+    assert counted == list(range(300))
