@@ -92,13 +92,15 @@ def stored_before(conn: sqlite3.Connection, parsed: ParsedFile, remap: dict[int,
     twins: list[str] = []
     grown: list[Grown] = []
     for session in parsed.sessions:
-        events = [row[_CONTENT] for row in recode(session.events, remap)]
+        events: list[tuple] | None = None  # made only for a session that has a stored one to compare with
         for session_id, label, earlier, imported_at, first, last in conn.execute(
                 "SELECT s.id, s.label, coalesce(i.path, 'recorded live'), i.imported_at, s.first_event, s.last_event "
                 "FROM sessions AS s JOIN animals AS a ON a.id = s.animal_id "
                 "LEFT JOIN imports AS i ON i.id = s.import_id "
                 "WHERE a.name = ? AND s.started_at = ? AND s.excluded = 0 ORDER BY s.id",
                 (session.animal, session.start.timestamp())).fetchall():
+            if events is None:
+                events = [row[_CONTENT] for row in recode(session.events, remap)]
             where, args = "session_id = ?", [session_id]
             if first is not None and last is not None:
                 where, args = "rowid BETWEEN ? AND ? AND session_id = ?", [first, last, session_id]
