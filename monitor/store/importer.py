@@ -488,17 +488,19 @@ def parse_file(path: Path, data: bytes, *, protocol_text: str, animal: str | Non
         from drivers.mapping import MappedDecoder
 
         decoder = MappedDecoder(mapping)
-    records = decoder.feed(data) + decoder.close()
     has_session = mapping is not None and "session" in mapping.columns
     animal = animal if animal is not None or mapping is not None and "animal" in mapping.columns \
         else animal_from_file_name(path)
     splitter = _Splitter(path, animal, gap_s, mapping is not None, has_session)
-    for record in records:
+    for record in decoder.feed(data) + decoder.close():
         splitter.add(record)
     mtime = datetime.fromtimestamp(path.stat().st_mtime).astimezone() if path.exists() else datetime.now().astimezone()
     table = Codes(KNOWN_EVENT_CODES if codes is None else codes)
-    sessions = [_parse_session(s, protocol_text, (calibrations or {}).get(s.rig or "import"), table)
-                for s in splitter.finish(mtime)]
+    sessions = []
+    for session in splitter.finish(mtime):
+        sessions.append(_parse_session(session, protocol_text, (calibrations or {}).get(session.rig or "import"),
+                                       table))
+        session.records.clear()  # its rows are made: a file's decoded records are not all held at once
     return ParsedFile(str(path), file_digest(data), len(data), mapping is not None, sessions, splitter.notices,
                       table)
 
