@@ -190,20 +190,30 @@ class Grown:
     sessions: tuple[int, ...]  # its sessions not excluded yet
 
 
+def _imported_beginnings(conn: sqlite3.Connection, name: str, read: Callable[[int], bytes], size: int,
+                         whole: bool) -> list[tuple[int, float, int, int]]:
+    """(import id, imported at, size, events) of the earlier imports of a file named `name` whose bytes are the
+    beginning of the `size` bytes that `read` gives in turn (an import of all of them too when `whole`),
+    shortest first: one pass, however many earlier files share the name."""
+    found = []
+    head, hashed = hashlib.sha256(), 0
+    for import_id, earlier, imported_at, stored, digest, events in conn.execute(
+            f"SELECT id, path, imported_at, size, sha256, events FROM imports WHERE size {'<=' if whole else '<'} ? "
+            "AND substr(path, -?) = ? ORDER BY size, id", (size, len(name), name)).fetchall():
+        head.update(read(stored - hashed))
+        hashed = stored
+        if re.split(r"[\\/]", earlier)[-1] == name and head.copy().hexdigest() == digest:
+            found.append((import_id, imported_at, stored, events))
+    return found
+
+
 def grown_from(conn: sqlite3.Connection, path: Path, data: bytes) -> list[Grown]:
     """Earlier imports of a file of the same name whose bytes are the beginning of `data`: the file grew
     after they were imported. Importing it whole stores their events a second time, so the caller
     supersedes them (`supersede`) in the same transaction."""
-    name = path.name
     found = []
-    head, hashed = hashlib.sha256(), 0  # one pass over `data`, however many earlier files share its name
-    for import_id, earlier, imported_at, size, digest in conn.execute(
-            "SELECT id, path, imported_at, size, sha256 FROM imports WHERE size < ? AND substr(path, -?) = ? "
-            "ORDER BY size, id", (len(data), len(name), name)).fetchall():
-        head.update(memoryview(data)[hashed:size])
-        hashed = size
-        if re.split(r"[\\/]", earlier)[-1] != name or head.copy().hexdigest() != digest:
-            continue
+    for import_id, imported_at, _, _ in _imported_beginnings(conn, path.name, io.BytesIO(data).read, len(data),
+                                                             whole=False):
         sessions = tuple(row[0] for row in conn.execute(
             "SELECT id FROM sessions WHERE import_id = ? AND excluded = 0 ORDER BY id", (import_id,)))
         found.append(Grown(imported_at, sessions))
@@ -249,23 +259,16 @@ def imported_start(conn: sqlite3.Connection, path: str, decoder_factory: Callabl
     be read now (the reader then waits for it as for any file)."""
     from drivers.tail import position_after
 
-    name = Path(path).name
     try:
         with open(path, "rb") as fh:
-            size = os.fstat(fh.fileno()).st_size
-            rows = conn.execute(
-                "SELECT path, imported_at, size, sha256, events FROM imports WHERE size <= ? AND substr(path, -?) = ? "
-                "ORDER BY size, id", (size, len(name), name)).fetchall()
-            head, hashed, best = hashlib.sha256(), 0, None
-            for earlier, imported_at, stored, digest, events in rows:
-                head.update(fh.read(stored - hashed))
-                hashed = stored
-                if re.split(r"[\\/]", earlier)[-1] == name and head.copy().hexdigest() == digest:
-                    best = (stored, imported_at, events)
-        position = None if best is None else position_after(path, best[0], decoder_factory)
+            found = _imported_beginnings(conn, Path(path).name, fh.read, os.fstat(fh.fileno()).st_size, whole=True)
+        if not found:
+            return None
+        _, imported_at, stored, events = found[-1]
+        position = position_after(path, stored, decoder_factory)
     except OSError:
         return None
-    return None if position is None else ImportedStart(position, *best)
+    return None if position is None else ImportedStart(position, stored, imported_at, events)
 
 
 @dataclass(frozen=True)
